@@ -1,0 +1,81 @@
+"""barrierflow: transport through layered tissue barriers into compartments and the body.
+
+Results are research estimates, not for clinical dosing or regulatory decisions without
+qualified review; local regulations and licensed practice take precedence.
+
+The public API::
+
+    import barrierflow
+    scenario = barrierflow.load("scenarios/patch.toml")
+    result = barrierflow.simulate(scenario)
+    result.to_csv("patch.csv")
+
+``simulate`` and the engine are imported on first use, so ``import barrierflow`` stays fast.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from .errors import BarrierflowError, Problem, ScenarioError, SolverError, UnitsError
+from .io import load, loads, save
+from .model import (
+    Barrier,
+    Compartment,
+    Dose,
+    Exchange,
+    Layer,
+    OutputUnits,
+    Scenario,
+    Substance,
+    Transfer,
+)
+
+__version__ = "0.1.0"
+
+_LAZY = {
+    # name -> module that defines it (imported on first access: the engine imports numba)
+    "simulate": "barrierflow.engine",
+    "Result": "barrierflow.engine",
+    "steady_state": "barrierflow.analysis",
+    "metrics": "barrierflow.analysis",
+}
+
+__all__ = [
+    "Barrier",
+    "BarrierflowError",
+    "Compartment",
+    "Dose",
+    "Exchange",
+    "Layer",
+    "OutputUnits",
+    "Problem",
+    "Result",
+    "Scenario",
+    "ScenarioError",
+    "SolverError",
+    "Substance",
+    "Transfer",
+    "UnitsError",
+    "__version__",
+    "load",
+    "loads",
+    "metrics",
+    "save",
+    "simulate",
+    "steady_state",
+]
+
+
+def __getattr__(name: str) -> Any:
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'barrierflow' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)

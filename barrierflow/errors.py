@@ -1,0 +1,130 @@
+"""Exception types of barrierflow.
+
+The hierarchy is small on purpose::
+
+    BarrierflowError
+    ├── ScenarioError   a scenario (file, graph or object) cannot be run as given
+    ├── UnitsError      a value has no unit, an unknown unit or a unit of the wrong dimension
+    └── SolverError     the numerical solution failed
+
+Every message follows one pattern, so that a scientist reads at once what is wrong::
+
+    <file>: <field path>: got <value>; <what was expected>
+
+for example ``patch.toml: barrier 'skin' layer 1 thickness: got -15 um; must be > 0``.
+A :class:`ScenarioError` carries *all* the problems found in one file, not only the first.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+__all__ = [
+    "BarrierflowError",
+    "Problem",
+    "ScenarioError",
+    "SolverError",
+    "UnitsError",
+]
+
+
+class BarrierflowError(Exception):
+    """Base class of every error that barrierflow raises on purpose."""
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with a scenario.
+
+    Parameters
+    ----------
+    field : str
+        Path of the offending field, for example ``"barrier 'skin' layer 1 thickness"``.
+    value : str
+        The offending value as the user wrote it (or as the model holds it).
+    expected : str
+        What would have been accepted, for example ``"must be > 0"``.
+    file : str or None
+        The scenario file the value came from, if any.
+    """
+
+    field: str
+    value: str
+    expected: str
+    file: str | None = None
+
+    def __str__(self) -> str:
+        head = f"{self.file}: " if self.file else ""
+        field = f"{self.field}: " if self.field else ""
+        return f"{head}{field}got {self.value}; {self.expected}"
+
+    def within(self, prefix: str = "", file: str | None = None) -> Problem:
+        """Return this problem with ``prefix`` put in front of its field path and ``file`` set."""
+        field = f"{prefix} {self.field}".strip() if prefix else self.field
+        return replace(self, field=field, file=file if file is not None else self.file)
+
+
+class ScenarioError(BarrierflowError, ValueError):
+    """A scenario cannot be run as given; carries every :class:`Problem` found.
+
+    Parameters
+    ----------
+    problems : sequence of Problem
+        All problems found, in the order of the file.
+    """
+
+    def __init__(self, problems: list[Problem] | tuple[Problem, ...]):
+        self.problems: tuple[Problem, ...] = tuple(problems)
+        super().__init__("\n".join(str(p) for p in self.problems))
+
+    @classmethod
+    def single(cls, field: str, value: object, expected: str, file: str | None = None) -> ScenarioError:
+        """Build an error that holds one problem."""
+        return cls([Problem(field, str(value), expected, file)])
+
+    def within(self, prefix: str = "", file: str | None = None) -> ScenarioError:
+        """Return the same error with every field path prefixed and the file set."""
+        return type(self)([p.within(prefix, file) for p in self.problems])
+
+
+class UnitsError(BarrierflowError, ValueError):
+    """A dimensional value is missing its unit, has an unknown unit or a unit of the wrong kind.
+
+    Parameters
+    ----------
+    value : str
+        The text or number that was given.
+    expected : str
+        What was expected, for example ``"a length such as '15 um'"``.
+    field : str
+        The field path, when known.
+    """
+
+    def __init__(self, value: object, expected: str, field: str = ""):
+        self.value = str(value)
+        self.expected = expected
+        self.field = field
+        self.problem = Problem(field, self.value, expected)
+        super().__init__(str(self.problem))
+
+
+class SolverError(BarrierflowError, RuntimeError):
+    """The numerical solution failed.
+
+    Parameters
+    ----------
+    message : str
+        What failed and what to change.
+    time : float or None, h
+        Simulated time at which the failure happened.
+    part : str
+        The part of the model most involved (a barrier or compartment id), when known.
+    result : object or None
+        The partial result up to the failure, when one could be built.
+    """
+
+    def __init__(self, message: str, time: float | None = None, part: str = "", result: object = None):
+        self.time = time
+        self.part = part
+        self.result = result
+        super().__init__(message)

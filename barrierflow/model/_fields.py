@@ -1,0 +1,193 @@
+"""Field tables and the shared reader that turns plain mappings into validated model objects.
+
+Both routes into the model, a TOML file (``barrierflow.io``) and a graph with plain keyword
+attributes (:meth:`barrierflow.Scenario.from_graph`), go through :func:`build`, so they give
+the same objects and the same error messages.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from ..errors import Problem, ScenarioError, UnitsError
+from ..units import KINDS, format_quantity, parse_quantity
+
+
+@dataclass(frozen=True)
+class FieldSpec:
+    """How one key of a table is read.
+
+    ``kind`` is a kind of quantity from :data:`barrierflow.units.KINDS` (the value is a string
+    with a unit), or one of ``"number"`` (a bare float), ``"count"`` (a whole number),
+    ``"text"``, ``"id"``, ``"times"`` (a list of times).
+    """
+
+    attr: str
+    key: str
+    kind: str
+    required: bool = False
+    unit: str | None = None  # the unit preferred when writing the value back
+
+
+def finite(x: float) -> bool:
+    """True for a finite float."""
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def show(value: Any, spec: FieldSpec | None) -> str:
+    """How a model value is shown in a message."""
+    if spec is not None and spec.kind in KINDS and finite(value):
+        return format_quantity(float(value), spec.kind, spec.unit)
+    return str(value)
+
+
+def suggest(key: str, known: list[str]) -> str:
+    """A 'did you mean' hint for an unknown key."""
+    close = difflib.get_close_matches(key, known, n=1, cutoff=0.6)
+    hint = f"did you mean '{close[0]}'? " if close else ""
+    return f"{hint}known keys here: {', '.join(known)}"
+
+
+def parse_value(raw: Any, spec: FieldSpec, molar_mass: float | None) -> Any:
+    """Parse one raw value (from TOML or a keyword attribute) according to its spec.
+
+    Numbers given for a dimensional field are taken as already in the internal unit only when
+    they come from Python code (``allow_internal``); the TOML reader never passes them.
+    """
+    kind = spec.kind
+    if kind in KINDS:
+        return parse_quantity(raw, kind, spec.key, molar_mass=molar_mass)
+    if kind == "number":
+        if isinstance(raw, bool) or not isinstance(raw, (int, float)):
+            raise UnitsError(raw, "expected a bare number such as 10 (no unit)", spec.key)
+        if not math.isfinite(raw):
+            raise UnitsError(raw, "must be a finite number", spec.key)
+        return float(raw)
+    if kind == "count":
+        if isinstance(raw, bool) or not isinstance(raw, int):
+            raise UnitsError(raw, "expected a whole number such as 40", spec.key)
+        return int(raw)
+    if kind in ("text", "id"):
+        if not isinstance(raw, str):
+            raise UnitsError(raw, "expected text in quotes", spec.key)
+        return raw
+    if kind == "times":
+        if not isinstance(raw, (list, tuple)):
+            raise UnitsError(raw, "expected a list of times such as [\"0 h\", \"1 h\"]", spec.key)
+        return tuple(parse_quantity(t, "time", f"{spec.key}[{i}]") for i, t in enumerate(raw))
+    raise AssertionError(kind)
+
+
+def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
+          molar_mass: float | None = None, python: bool = False, extra: Mapping[str, Any] | None = None):
+    """Build ``cls`` from a mapping of raw values, reporting every problem at once.
+
+    Parameters
+    ----------
+    cls : type
+        A frozen model dataclass whose ``__post_init__`` validates it.
+    specs : tuple of FieldSpec
+        The keys it reads.
+    raw : mapping
+        Key to raw value (unit strings, numbers, text).
+    molar_mass : float or None, mg/mmol
+        Enables molar units.
+    python : bool
+        True when the mapping comes from Python code: then a plain number in a dimensional field
+        is taken as already in the internal unit, and attribute names are accepted as keys.
+    extra : mapping
+        Already-built attributes passed through unchanged (for example a barrier's layers).
+
+    Raises
+    ------
+    ScenarioError
+        With one problem per unknown key, unreadable value, missing key or failed check; field
+        paths are relative (the caller prefixes them).
+    """
+    by_key = {s.key: s for s in specs}
+    if python:
+        by_key.update({s.attr: s for s in specs})
+    problems: list[Problem] = []
+    values: dict[str, Any] = dict(extra or {})
+    raw_text: dict[str, str] = {}
+    for key, value in raw.items():
+        spec = by_key.get(key)
+        if spec is None:
+            problems.append(Problem(key, "an unknown key", suggest(key, [s.key for s in specs])))
+            continue
+        raw_text[spec.attr] = value if isinstance(value, str) else str(value)
+        if python and spec.kind in KINDS and finite(value):
+            values[spec.attr] = float(value)
+            continue
+        if python and spec.kind == "times" and isinstance(value, (list, tuple)) and all(finite(v) for v in value):
+            values[spec.attr] = tuple(float(v) for v in value)
+            continue
+        try:
+            values[spec.attr] = parse_value(value, spec, molar_mass)
+        except UnitsError as err:
+            problems.append(Problem(spec.key, err.value, err.expected))
+    for spec in specs:
+        if spec.required and spec.attr not in values and not any(p.field == spec.key for p in problems):
+            example = f" such as '{KINDS[spec.kind].example}'" if spec.kind in KINDS else ""
+            problems.append(Problem(spec.key, "nothing", f"this key is required{example}"))
+    failed = {p.field for p in problems}
+    if problems and any(s.required and s.attr not in values for s in specs):
+        raise ScenarioError(problems)
+    try:
+        built = cls(**values)
+    except ScenarioError as err:
+        key_of = {s.attr: s.key for s in specs}
+        fixed = []
+        for p in err.problems:
+            attr = next((a for a, k in key_of.items() if k == p.field or a == p.field), None)
+            if attr is not None and attr in raw_text:
+                p = Problem(key_of[attr], raw_text[attr], p.expected, p.file)
+            elif attr is not None:
+                p = Problem(key_of[attr], p.value, p.expected, p.file)
+            if p.field not in failed:
+                fixed.append(p)
+        raise ScenarioError(problems + fixed) from None
+    if problems:
+        raise ScenarioError(problems)
+    return built
+
+
+class Checker:
+    """Collects problems while a model object validates itself."""
+
+    def __init__(self, specs: tuple[FieldSpec, ...] = ()):
+        self.problems: list[Problem] = []
+        self._specs = {s.attr: s for s in specs}
+
+    def add(self, attr: str, value: Any, expected: str) -> None:
+        """Record that ``attr`` holds ``value`` where ``expected`` was wanted."""
+        spec = self._specs.get(attr)
+        key = spec.key if spec else attr
+        self.problems.append(Problem(key, show(value, spec), expected))
+
+    def positive(self, attr: str, value: Any, *, optional: bool = False) -> None:
+        """``value`` must be a finite number > 0 (or None when optional)."""
+        if value is None and optional:
+            return
+        if not finite(value):
+            self.add(attr, value, "must be a finite number")
+        elif value <= 0:
+            self.add(attr, value, "must be > 0")
+
+    def nonnegative(self, attr: str, value: Any, *, optional: bool = False) -> None:
+        """``value`` must be a finite number >= 0 (or None when optional)."""
+        if value is None and optional:
+            return
+        if not finite(value):
+            self.add(attr, value, "must be a finite number")
+        elif value < 0:
+            self.add(attr, value, "must be >= 0")
+
+    def done(self) -> None:
+        """Raise a :class:`ScenarioError` if anything was recorded."""
+        if self.problems:
+            raise ScenarioError(self.problems)

@@ -1,0 +1,564 @@
+"""The parts of a scenario: substance, compartments, layers, barriers, links and doses.
+
+All are frozen dataclasses holding plain floats in the internal unit system (cm, h, mg, mL;
+see :mod:`barrierflow.units`). Each checks its own invariants when it is built and raises
+:class:`~barrierflow.errors.ScenarioError` listing every problem. A change is a new object
+(:func:`dataclasses.replace`), never an edit in place.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any, ClassVar
+
+from ..errors import Problem, ScenarioError
+from ._fields import Checker, FieldSpec, build, finite
+
+__all__ = [
+    "DOSE_KINDS",
+    "Barrier",
+    "Compartment",
+    "Dose",
+    "Exchange",
+    "Layer",
+    "OutputUnits",
+    "Substance",
+    "Transfer",
+]
+
+ID_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_-]*\Z")
+MAX_CELLS_PER_LAYER = 100_000
+
+
+def _check_id(chk: Checker, value: Any, attr: str = "id") -> None:
+    if not isinstance(value, str) or not ID_PATTERN.match(value):
+        chk.add(attr, repr(value), "an id starts with a letter and holds only letters, digits, '_' and '-'")
+
+
+@dataclass(frozen=True)
+class Substance:
+    """The substance that is applied and followed.
+
+    Parameters
+    ----------
+    name : str
+        Free text.
+    molar_mass : float or None, mg/mmol (numerically g/mol)
+        Enables molar units in the scenario.
+    solubility : float or None, mg/mL
+        Solubility in the reference phase; enables sink-condition and saturation warnings.
+    log_kow : float or None
+        Octanol/water partition coefficient (log10), for screening estimates.
+    """
+
+    name: str = ""
+    molar_mass: float | None = None
+    solubility: float | None = None
+    log_kow: float | None = None
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("name", "name", "text"),
+        FieldSpec("molar_mass", "molar_mass", "molar_mass", unit="g/mol"),
+        FieldSpec("solubility", "solubility", "concentration", unit="mg/mL"),
+        FieldSpec("log_kow", "log_kow", "number"),
+    )
+
+    def __post_init__(self) -> None:
+        chk = Checker(self.SPECS)
+        chk.positive("molar_mass", self.molar_mass, optional=True)
+        chk.positive("solubility", self.solubility, optional=True)
+        if self.log_kow is not None and not finite(self.log_kow):
+            chk.add("log_kow", self.log_kow, "must be a finite number")
+        chk.done()
+
+
+@dataclass(frozen=True)
+class Compartment:
+    """A well-mixed volume: vehicle, donor chamber, receptor fluid, plasma, a tissue.
+
+    Parameters
+    ----------
+    id : str
+        Unique id, ``[A-Za-z][A-Za-z0-9_-]*``.
+    volume : float or None, mL
+        Required unless the compartment is held.
+    initial_concentration : float, mg/mL
+        Concentration at time 0 (default 0).
+    partition : float
+        Partition coefficient relative to the reference phase (dimensionless, default 1).
+    clearance : float, mL/h
+        Linear elimination, rate = clearance * C.
+    vmax : float or None, mg/h
+        Maximal rate of saturable (Michaelis-Menten) elimination; needs ``km``.
+    km : float or None, mg/mL
+        Concentration at half the maximal rate.
+    held_concentration : float or None, mg/mL
+        Makes the compartment a reservoir whose concentration never changes (0: a perfect sink).
+    description : str
+        Free text.
+    """
+
+    id: str
+    volume: float | None = None
+    initial_concentration: float = 0.0
+    partition: float = 1.0
+    clearance: float = 0.0
+    vmax: float | None = None
+    km: float | None = None
+    held_concentration: float | None = None
+    description: str = ""
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("id", "id", "id", required=True),
+        FieldSpec("volume", "volume", "volume", unit="mL"),
+        FieldSpec("initial_concentration", "initial_concentration", "concentration", unit="mg/mL"),
+        FieldSpec("partition", "partition", "number"),
+        FieldSpec("clearance", "clearance", "flow", unit="mL/h"),
+        FieldSpec("vmax", "vmax", "amount_rate", unit="mg/h"),
+        FieldSpec("km", "km", "concentration", unit="mg/mL"),
+        FieldSpec("held_concentration", "held_concentration", "concentration", unit="mg/mL"),
+        FieldSpec("description", "description", "text"),
+    )
+
+    def __post_init__(self) -> None:
+        chk = Checker(self.SPECS)
+        _check_id(chk, self.id)
+        if self.volume is None:
+            if self.held_concentration is None:
+                chk.add("volume", "nothing", "a volume such as '5 mL' is required unless the "
+                        "compartment is held (held_concentration)")
+        else:
+            chk.positive("volume", self.volume)
+        chk.nonnegative("initial_concentration", self.initial_concentration)
+        chk.positive("partition", self.partition)
+        chk.nonnegative("clearance", self.clearance)
+        chk.nonnegative("held_concentration", self.held_concentration, optional=True)
+        if (self.vmax is None) != (self.km is None):
+            missing = "km" if self.km is None else "vmax"
+            given = "vmax" if self.km is None else "km"
+            chk.add(given, getattr(self, given), f"{given} needs {missing} too (Michaelis-Menten elimination)")
+        else:
+            chk.nonnegative("vmax", self.vmax, optional=True)
+            chk.positive("km", self.km, optional=True)
+        if (self.held_concentration is not None and self.initial_concentration
+                and self.initial_concentration != self.held_concentration):
+            chk.add("initial_concentration", self.initial_concentration,
+                    "a held compartment stays at its held_concentration; leave initial_concentration out")
+        if self.held_concentration is not None and (self.clearance or self.vmax):
+            chk.add("clearance" if self.clearance else "vmax", self.clearance or self.vmax,
+                    "a held compartment does not change, so it cannot eliminate; remove the elimination")
+        chk.done()
+
+    @property
+    def held(self) -> bool:
+        """True for a reservoir or perfect sink whose concentration never changes."""
+        return self.held_concentration is not None
+
+    @property
+    def starting_concentration(self) -> float:
+        """Concentration at time 0, mg/mL (the held one for a held compartment)."""
+        return self.held_concentration if self.held_concentration is not None else self.initial_concentration
+
+    @classmethod
+    def from_mapping(cls, raw: Mapping[str, Any], molar_mass: float | None = None, *,
+                     python: bool = False) -> Compartment:
+        """Build from a mapping of unit strings (a TOML table or keyword attributes)."""
+        return build(cls, cls.SPECS, raw, molar_mass=molar_mass, python=python)
+
+
+@dataclass(frozen=True)
+class Layer:
+    """One homogeneous layer of a barrier, in which dC/dt = D d2C/dx2 - k_deg C.
+
+    Parameters
+    ----------
+    thickness : float, cm
+    diffusivity : float, cm^2/h
+    partition : float
+        Partition coefficient relative to the reference phase (default 1).
+    name : str
+        Free text, for example ``"stratum corneum"``.
+    cells : int or None
+        Number of equal cells of the grid; None lets the engine choose.
+    degradation_rate : float, 1/h
+        First-order degradation inside the layer.
+    """
+
+    thickness: float
+    diffusivity: float
+    partition: float = 1.0
+    name: str = ""
+    cells: int | None = None
+    degradation_rate: float = 0.0
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("name", "name", "text"),
+        FieldSpec("thickness", "thickness", "length", required=True, unit="um"),
+        FieldSpec("diffusivity", "diffusivity", "diffusivity", required=True, unit="cm^2/s"),
+        FieldSpec("partition", "partition", "number"),
+        FieldSpec("cells", "cells", "count"),
+        FieldSpec("degradation_rate", "degradation_rate", "rate", unit="1/h"),
+    )
+
+    def __post_init__(self) -> None:
+        chk = Checker(self.SPECS)
+        chk.positive("thickness", self.thickness)
+        chk.positive("diffusivity", self.diffusivity)
+        chk.positive("partition", self.partition)
+        chk.nonnegative("degradation_rate", self.degradation_rate)
+        if self.cells is not None:
+            if isinstance(self.cells, bool) or not isinstance(self.cells, int) or self.cells < 1:
+                chk.add("cells", self.cells, "must be a whole number >= 1")
+            elif self.cells > MAX_CELLS_PER_LAYER:
+                chk.add("cells", self.cells, f"must be at most {MAX_CELLS_PER_LAYER} (a grid too large for memory)")
+        chk.done()
+
+    @property
+    def resistance(self) -> float:
+        """Steady resistance L/(D K) of the layer, h/cm."""
+        return self.thickness / (self.diffusivity * self.partition)
+
+    @classmethod
+    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False) -> Layer:
+        """Build from a mapping of unit strings (a TOML table or keyword attributes)."""
+        return build(cls, cls.SPECS, raw, python=python)
+
+
+BARRIER_MODELS = ("resolved", "steady")
+
+
+@dataclass(frozen=True)
+class Barrier:
+    """A stack of layers joining two compartments through an area.
+
+    Parameters
+    ----------
+    id : str
+        Unique id.
+    from_id, to_id : str
+        The compartments on the two sides; ``from`` touches the first layer.
+    area : float, cm^2
+    layers : tuple of Layer
+        In order from the ``from`` side.
+    model : {"resolved", "steady"}
+        ``resolved`` solves the diffusion equation in every layer; ``steady`` is a quasi-steady
+        resistance without storage.
+    """
+
+    id: str
+    from_id: str
+    to_id: str
+    area: float
+    layers: tuple[Layer, ...]
+    model: str = "resolved"
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("id", "id", "id", required=True),
+        FieldSpec("from_id", "from", "id", required=True),
+        FieldSpec("to_id", "to", "id", required=True),
+        FieldSpec("area", "area", "area", required=True, unit="cm^2"),
+        FieldSpec("model", "model", "text"),
+    )
+
+    def __post_init__(self) -> None:
+        if isinstance(self.layers, list):
+            object.__setattr__(self, "layers", tuple(self.layers))
+        chk = Checker(self.SPECS)
+        _check_id(chk, self.id)
+        chk.positive("area", self.area)
+        if self.model not in BARRIER_MODELS:
+            chk.add("model", repr(self.model), "must be 'resolved' or 'steady'")
+        if not self.layers:
+            chk.add("layer", "no layers", "a barrier needs at least one [[barrier.layer]]")
+        elif not all(isinstance(layer, Layer) for layer in self.layers):
+            chk.add("layer", self.layers, "layers must be Layer objects")
+        if self.from_id == self.to_id:
+            chk.add("to_id", repr(self.to_id), "a barrier must join two different compartments")
+        chk.done()
+
+    @property
+    def resistances(self) -> tuple[float, ...]:
+        """Steady resistance L/(D K) of each layer, h/cm, in the order of the layers."""
+        return tuple(layer.resistance for layer in self.layers)
+
+    @property
+    def resistance(self) -> float:
+        """Total steady resistance, the sum of the layers', h/cm."""
+        return math.fsum(self.resistances)
+
+    @property
+    def thickness(self) -> float:
+        """Total thickness, cm."""
+        return math.fsum(layer.thickness for layer in self.layers)
+
+    @classmethod
+    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False) -> Barrier:
+        """Build from a mapping; ``raw['layer']`` (or ``'layers'``) is a list of layer mappings."""
+        raw = dict(raw)
+        layer_raw = raw.pop("layer", None)
+        if layer_raw is None:
+            layer_raw = raw.pop("layers", [])
+        problems: list[Problem] = []
+        layers = []
+        if not isinstance(layer_raw, (list, tuple)):
+            problems.append(Problem("layer", str(layer_raw), "expected a list of layer tables"))
+            layer_raw = []
+        for i, item in enumerate(layer_raw, start=1):
+            try:
+                if isinstance(item, Layer):
+                    layers.append(item)
+                elif isinstance(item, Mapping):
+                    layers.append(Layer.from_mapping(item, python=python))
+                else:
+                    problems.append(Problem(f"layer {i}", str(item), "expected a table of layer fields"))
+            except ScenarioError as err:
+                problems.extend(err.within(f"layer {i}").problems)
+        try:
+            if problems:
+                # still check the barrier's own fields, so every problem is reported
+                build(cls, cls.SPECS, raw, python=python, extra={"layers": (Layer(1.0, 1.0),)})
+            else:
+                return build(cls, cls.SPECS, raw, python=python, extra={"layers": tuple(layers)})
+        except ScenarioError as err:
+            problems = list(err.problems) + problems
+        raise ScenarioError(problems)
+
+
+@dataclass(frozen=True)
+class Exchange:
+    """A lumped, storage-free two-way link: rate = flow * (C_from/K_from - C_to/K_to).
+
+    Parameters
+    ----------
+    id : str
+    from_id, to_id : str
+    flow : float, mL/h
+    """
+
+    id: str
+    from_id: str
+    to_id: str
+    flow: float
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("id", "id", "id"),
+        FieldSpec("from_id", "from", "id", required=True),
+        FieldSpec("to_id", "to", "id", required=True),
+        FieldSpec("flow", "flow", "flow", required=True, unit="mL/h"),
+    )
+
+    def __post_init__(self) -> None:
+        chk = Checker(self.SPECS)
+        _check_id(chk, self.id)
+        chk.positive("flow", self.flow)
+        if self.from_id == self.to_id:
+            chk.add("to_id", repr(self.to_id), "an exchange must join two different compartments")
+        chk.done()
+
+    @classmethod
+    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False, default_id: str = "") -> Exchange:
+        """Build from a mapping of unit strings; ``default_id`` is used when no id is given."""
+        raw = dict(raw)
+        if "id" not in raw and default_id:
+            raw["id"] = default_id
+        return build(cls, cls.SPECS, raw, python=python)
+
+
+@dataclass(frozen=True)
+class Transfer:
+    """A one-way first-order link: rate = rate constant * amount in the ``from`` compartment.
+
+    Parameters
+    ----------
+    id : str
+    from_id, to_id : str
+    rate : float, 1/h
+    """
+
+    id: str
+    from_id: str
+    to_id: str
+    rate: float
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("id", "id", "id"),
+        FieldSpec("from_id", "from", "id", required=True),
+        FieldSpec("to_id", "to", "id", required=True),
+        FieldSpec("rate", "rate", "rate", required=True, unit="1/h"),
+    )
+
+    def __post_init__(self) -> None:
+        chk = Checker(self.SPECS)
+        _check_id(chk, self.id)
+        chk.positive("rate", self.rate)
+        if self.from_id == self.to_id:
+            chk.add("to_id", repr(self.to_id), "a transfer must join two different compartments")
+        chk.done()
+
+    @classmethod
+    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False, default_id: str = "") -> Transfer:
+        """Build from a mapping of unit strings; ``default_id`` is used when no id is given."""
+        raw = dict(raw)
+        if "id" not in raw and default_id:
+            raw["id"] = default_id
+        return build(cls, cls.SPECS, raw, python=python)
+
+
+DOSE_KINDS: dict[str, tuple[str, ...]] = {
+    "bolus": ("amount",),
+    "infusion": ("rate", "duration"),
+    "hold": ("concentration", "duration"),
+    "replace": ("concentration",),
+    "remove": (),
+}
+"""Each dose kind and the fields it needs (besides ``target``, ``at``, ``every``, ``count``)."""
+
+_DOSE_OPTIONAL = ("amount", "rate", "duration", "concentration")
+
+
+@dataclass(frozen=True)
+class Dose:
+    """A dosing event, possibly repeated.
+
+    Parameters
+    ----------
+    target : str
+        The compartment dosed.
+    kind : {"bolus", "infusion", "hold", "replace", "remove"}
+    at : float, h
+        Time of the first event.
+    amount : float or None, mg
+        Bolus amount.
+    rate : float or None, mg/h
+        Infusion rate.
+    duration : float or None, h
+        Infusion or hold duration.
+    concentration : float or None, mg/mL
+        Held or refill concentration.
+    every : float or None, h
+        Repetition interval.
+    count : int or None
+        How many events in all (default 1 without ``every``; without ``count``, ``every``
+        repeats until the end of the run).
+    """
+
+    target: str
+    kind: str
+    at: float = 0.0
+    amount: float | None = None
+    rate: float | None = None
+    duration: float | None = None
+    concentration: float | None = None
+    every: float | None = None
+    count: int | None = None
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("target", "target", "id", required=True),
+        FieldSpec("kind", "kind", "text", required=True),
+        FieldSpec("amount", "amount", "amount", unit="mg"),
+        FieldSpec("rate", "rate", "amount_rate", unit="mg/h"),
+        FieldSpec("duration", "duration", "time", unit="h"),
+        FieldSpec("concentration", "concentration", "concentration", unit="mg/mL"),
+        FieldSpec("at", "at", "time", unit="h"),
+        FieldSpec("every", "every", "time", unit="h"),
+        FieldSpec("count", "count", "count"),
+    )
+
+    def __post_init__(self) -> None:
+        chk = Checker(self.SPECS)
+        if self.kind not in DOSE_KINDS:
+            chk.add("kind", repr(self.kind), f"must be one of {', '.join(DOSE_KINDS)}")
+            chk.done()
+        needed = DOSE_KINDS[self.kind]
+        for name in _DOSE_OPTIONAL:
+            value = getattr(self, name)
+            if name in needed and value is None:
+                chk.add(name, "nothing", f"a {self.kind} dose needs {name}")
+            elif name not in needed and value is not None:
+                chk.add(name, value, f"a {self.kind} dose does not use {name}; remove it")
+        chk.nonnegative("at", self.at)
+        chk.positive("amount", self.amount, optional=True)
+        chk.positive("rate", self.rate, optional=True)
+        chk.positive("duration", self.duration, optional=True)
+        chk.nonnegative("concentration", self.concentration, optional=True)
+        chk.positive("every", self.every, optional=True)
+        if self.count is not None:
+            if isinstance(self.count, bool) or not isinstance(self.count, int) or self.count < 1:
+                chk.add("count", self.count, "must be a whole number >= 1")
+            elif self.count > 1 and self.every is None:
+                chk.add("count", self.count, "a repeated dose needs 'every' (the interval)")
+        if (self.kind == "hold" and self.every is not None and self.duration is not None
+                and finite(self.every) and finite(self.duration) and self.duration > self.every):
+            chk.add("duration", self.duration, "a repeated hold must end before the next one starts "
+                    "(duration <= every)")
+        chk.done()
+
+    def start_times(self, end: float) -> tuple[float, ...]:
+        """Start times of every event of this dose up to and including ``end`` (h)."""
+        if self.every is None:
+            return (self.at,) if self.at <= end else ()
+        n = self.count if self.count is not None else int(math.floor((end - self.at) / self.every + 1e-9)) + 1
+        times = []
+        for i in range(max(n, 0)):
+            t = self.at + i * self.every
+            if t > end * (1 + 1e-12):
+                break
+            times.append(min(t, end))
+        return tuple(times)
+
+    @classmethod
+    def from_mapping(cls, raw: Mapping[str, Any], molar_mass: float | None = None, *,
+                     python: bool = False) -> Dose:
+        """Build from a mapping of unit strings (a TOML table or keyword attributes)."""
+        return build(cls, cls.SPECS, raw, molar_mass=molar_mass, python=python)
+
+
+@dataclass(frozen=True)
+class OutputUnits:
+    """Units of the exported traces.
+
+    Parameters
+    ----------
+    time : str
+        Unit of the time column (default ``"h"``).
+    concentration : str
+        Default ``"mg/L"``.
+    amount : str
+        Default ``"mg"``.
+    area : str
+        Flux and permeated amounts are per this area (default ``"cm^2"``).
+    """
+
+    time: str = "h"
+    concentration: str = "mg/L"
+    amount: str = "mg"
+    area: str = "cm^2"
+
+    KIND_OF: ClassVar[dict[str, str]] = {
+        "time": "time", "concentration": "concentration", "amount": "amount", "area": "area"}
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = tuple(
+        FieldSpec(k, k, "text") for k in ("time", "concentration", "amount", "area"))
+
+    def check(self, molar_mass: float | None) -> list[Problem]:
+        """Problems with these units (wrong dimension, molar unit without molar mass)."""
+        from ..errors import UnitsError
+        from ..units import unit_factor
+        problems = []
+        for attr, kind in self.KIND_OF.items():
+            unit = getattr(self, attr)
+            try:
+                unit_factor(kind, unit, molar_mass)
+            except UnitsError as err:
+                problems.append(Problem(attr, unit, err.expected.replace("with its unit, such as", "unit, such as")))
+        return problems
+
+    @classmethod
+    def from_mapping(cls, raw: Mapping[str, Any]) -> OutputUnits:
+        """Build from a mapping of unit names."""
+        return build(cls, cls.SPECS, raw)
+
+
+_unused = field  # keep dataclasses.field importable for subclasses

@@ -1,0 +1,247 @@
+"""The scenario document: the nested tables of a TOML scenario file, both ways.
+
+:func:`from_document` turns a parsed TOML document into a validated :class:`Scenario`,
+reporting every problem of the file at once; :func:`to_document` and :func:`to_toml` write a
+scenario back so that reading it again gives an equal model. Reading and writing *files* is
+the job of :mod:`barrierflow.io`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from collections.abc import Mapping
+from typing import Any
+
+from ..errors import Problem, ScenarioError
+from ..units import KINDS, format_quantity
+from ._fields import FieldSpec, build, parse_value, suggest
+from .components import Barrier, Compartment, Dose, Exchange, Layer, OutputUnits, Substance, Transfer
+from .scenario import Scenario
+
+__all__ = ["from_document", "to_document", "to_toml"]
+
+TOP_KEYS = ("scenario", "substance", "compartment", "barrier", "exchange", "transfer", "dose", "output")
+SCENARIO_SPECS = (
+    FieldSpec("name", "name", "text"),
+    FieldSpec("description", "description", "text"),
+    FieldSpec("duration", "duration", "time", required=True, unit="h"),
+    FieldSpec("output_step", "output_step", "time", unit="h"),
+    FieldSpec("output_times", "output_times", "times"),
+)
+
+
+def _tables(doc: Mapping[str, Any], key: str, problems: list[Problem]) -> list[Mapping[str, Any]]:
+    value = doc.get(key, [])
+    if isinstance(value, Mapping):
+        problems.append(Problem(key, f"[{key}]", f"write [[{key}]] (a list of tables), one per {key}"))
+        return []
+    if not isinstance(value, list) or not all(isinstance(v, Mapping) for v in value):
+        problems.append(Problem(key, str(value), f"expected [[{key}]] tables"))
+        return []
+    return value
+
+
+def _label(kind: str, table: Mapping[str, Any], index: int) -> str:
+    ident = table.get("id")
+    return f"{kind} '{ident}'" if isinstance(ident, str) and ident else f"{kind} {index}"
+
+
+def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
+    """Build a scenario from a parsed TOML document.
+
+    Parameters
+    ----------
+    doc : mapping
+        The document as :mod:`tomllib` returns it.
+    file : str or None
+        The file name shown in messages.
+
+    Returns
+    -------
+    Scenario
+
+    Raises
+    ------
+    ScenarioError
+        With every problem of the document, each naming the file, the field path, the value and
+        what was expected.
+    """
+    problems: list[Problem] = []
+    failed_ids: set[str] = set()
+    for key in doc:
+        if key not in TOP_KEYS:
+            problems.append(Problem(f"[{key}]", "an unknown table", suggest(key, list(TOP_KEYS))))
+
+    substance = Substance()
+    sub_raw = doc.get("substance", {})
+    if not isinstance(sub_raw, Mapping):
+        problems.append(Problem("substance", str(sub_raw), "expected a [substance] table"))
+    elif sub_raw:
+        try:
+            substance = build(Substance, Substance.SPECS, sub_raw)
+        except ScenarioError as err:
+            problems.extend(err.within("substance").problems)
+    mm = substance.molar_mass
+
+    head: dict[str, Any] = {}
+    scen_raw = doc.get("scenario")
+    if not isinstance(scen_raw, Mapping):
+        problems.append(Problem("[scenario]", "nothing" if scen_raw is None else str(scen_raw),
+                                "a [scenario] table with at least duration, such as duration = \"7 d\""))
+    else:
+        by_key = {s.key: s for s in SCENARIO_SPECS}
+        for key, value in scen_raw.items():
+            spec = by_key.get(key)
+            if spec is None:
+                problems.append(Problem(f"scenario {key}", "an unknown key", suggest(key, list(by_key))))
+                continue
+            try:
+                head[spec.attr] = parse_value(value, spec, mm)
+            except Exception as err:  # UnitsError
+                problems.append(Problem(f"scenario {err.field}", err.value, err.expected))
+        if "duration" not in head and not any(p.field == "scenario duration" for p in problems):
+            problems.append(Problem("scenario duration", "nothing", "this key is required, such as duration = \"7 d\""))
+
+    def collect(kind: str, maker) -> list[Any]:
+        out = []
+        for i, table in enumerate(_tables(doc, kind, problems), start=1):
+            label = _label(kind, table, i)
+            try:
+                out.append(maker(table, i))
+            except ScenarioError as err:
+                problems.extend(err.within(label).problems)
+                if isinstance(table.get("id"), str):
+                    failed_ids.add(table["id"])
+        return out
+
+    compartments = collect("compartment", lambda t, i: Compartment.from_mapping(t, mm))
+    barriers = collect("barrier", lambda t, i: Barrier.from_mapping(t))
+    exchanges = collect("exchange", lambda t, i: Exchange.from_mapping(t, default_id=f"exchange_{i}"))
+    transfers = collect("transfer", lambda t, i: Transfer.from_mapping(t, default_id=f"transfer_{i}"))
+    doses = collect("dose", lambda t, i: Dose.from_mapping(t, mm))
+
+    output = OutputUnits()
+    out_raw = doc.get("output", {})
+    if not isinstance(out_raw, Mapping):
+        problems.append(Problem("output", str(out_raw), "expected an [output] table"))
+    elif out_raw:
+        try:
+            output = OutputUnits.from_mapping(out_raw)
+        except ScenarioError as err:
+            problems.extend(err.within("output").problems)
+
+    def make() -> Scenario:
+        return Scenario(
+            name=head.get("name", ""), description=head.get("description", ""),
+            duration=head["duration"], output_step=head.get("output_step"),
+            output_times=head.get("output_times"), substance=substance,
+            compartments=tuple(compartments), barriers=tuple(barriers), exchanges=tuple(exchanges),
+            transfers=tuple(transfers), doses=tuple(doses), output_units=output, source=file)
+
+    if not problems:
+        return make()  # raises its own ScenarioError, with the file, for network problems
+    if "duration" in head:
+        # also report the network's problems, except those caused by a part that failed above
+        try:
+            make()
+        except ScenarioError as err:
+            problems += [p for p in err.problems if not any(repr(f) in p.value for f in failed_ids)]
+    raise ScenarioError([p.within(file=file) for p in problems])
+
+
+def _default(cls: type, attr: str) -> Any:
+    for f in dataclasses.fields(cls):
+        if f.name == attr:
+            return f.default
+    return None
+
+
+def _put(table: dict[str, Any], obj: Any, specs: tuple[FieldSpec, ...]) -> dict[str, Any]:
+    """Write the fields of ``obj`` that differ from their defaults (required ones always)."""
+    for spec in specs:
+        value = getattr(obj, spec.attr)
+        if value is None or (not spec.required and value == _default(type(obj), spec.attr)):
+            continue
+        if spec.kind in KINDS:
+            table[spec.key] = format_quantity(value, spec.kind, spec.unit)
+        elif spec.kind == "number":
+            table[spec.key] = float(value)
+        else:
+            table[spec.key] = value
+    return table
+
+
+def to_document(scenario: Scenario) -> dict[str, Any]:
+    """The scenario as nested dicts of unit strings, in the layout of a scenario file.
+
+    Values are written in readable units (um for thickness, cm^2/s for diffusivity, ...) when the
+    number reads back to the identical float, else in the internal unit.
+    """
+    head = _put({}, scenario, SCENARIO_SPECS[:4])
+    if scenario.output_times is not None:
+        head["output_times"] = [format_quantity(t, "time", "h") for t in scenario.output_times]
+    doc: dict[str, Any] = {"scenario": head}
+    if scenario.substance != Substance():
+        doc["substance"] = _put({}, scenario.substance, Substance.SPECS)
+    doc["compartment"] = [
+        _put({}, c, Compartment.SPECS) for c in scenario.compartments]
+    if scenario.barriers:
+        doc["barrier"] = []
+        for b in scenario.barriers:
+            table = _put({}, b, Barrier.SPECS)
+            if b.model == "resolved":
+                table.pop("model", None)
+            table["layer"] = [_put({}, layer, Layer.SPECS) for layer in b.layers]
+            doc["barrier"].append(table)
+    if scenario.exchanges:
+        doc["exchange"] = [_put({}, e, Exchange.SPECS) for e in scenario.exchanges]
+    if scenario.transfers:
+        doc["transfer"] = [_put({}, t, Transfer.SPECS) for t in scenario.transfers]
+    if scenario.doses:
+        doc["dose"] = [_put({}, d, Dose.SPECS) for d in scenario.doses]
+    if scenario.output_units != OutputUnits():
+        doc["output"] = {k: getattr(scenario.output_units, k) for k in OutputUnits.KIND_OF}
+    return doc
+
+
+def to_toml(scenario: Scenario) -> str:
+    """The scenario as TOML text (see :func:`to_document`), tables in the order of the format."""
+    doc = to_document(scenario)
+    lines: list[str] = []
+    for key in TOP_KEYS:
+        if key not in doc:
+            continue
+        value = doc[key]
+        if isinstance(value, list):
+            for table in value:
+                _emit_table(lines, key, table, array=True)
+        else:
+            _emit_table(lines, key, value, array=False)
+    return "\n".join(lines).strip() + "\n"
+
+
+def _emit_table(lines: list[str], name: str, table: Mapping[str, Any], array: bool) -> None:
+    lines.append("")
+    lines.append(f"[[{name}]]" if array else f"[{name}]")
+    nested = []
+    for key, value in table.items():
+        if isinstance(value, list) and value and isinstance(value[0], Mapping):
+            nested.append((key, value))
+        else:
+            lines.append(f"{key} = {_scalar(value)}")
+    for key, tables in nested:
+        for sub in tables:
+            _emit_table(lines, f"{name}.{key}", sub, array=True)
+
+
+def _scalar(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, str):
+        return json.dumps(value, ensure_ascii=False)
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_scalar(v) for v in value) + "]"
+    raise TypeError(f"cannot write {value!r} to TOML")

@@ -1,0 +1,413 @@
+"""The scenario: a validated, immutable barrier network with its regimen and outputs."""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Any
+
+import networkx as nx
+
+from ..errors import Problem, ScenarioError, UnitsError
+from ..units import parse_quantity
+from ._fields import finite
+from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Substance, Transfer
+
+__all__ = ["MAX_TOTAL_CELLS", "Scenario"]
+
+MAX_TOTAL_CELLS = 1_000_000
+"""Largest grid accepted in one scenario (cells over all layers); larger grids do not fit in
+memory with the Jacobian and the saved profiles."""
+
+DEFAULT_OUTPUT_POINTS = 500
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A barrier network, its dosing regimen and what to report; validated when built.
+
+    Build one with :func:`barrierflow.load` (from a TOML file), :meth:`from_graph` (from a
+    networkx graph) or directly from model objects. Values are in the internal units
+    (cm, h, mg, mL).
+
+    Parameters
+    ----------
+    name : str
+        Free text.
+    duration : float, h
+        Simulated time.
+    compartments : tuple of Compartment
+    barriers : tuple of Barrier
+    exchanges : tuple of Exchange
+    transfers : tuple of Transfer
+    doses : tuple of Dose
+        In the order of the file: events at the same time are applied in this order.
+    substance : Substance
+    output_step : float or None, h
+        Output every step from 0 (the end of the run always included).
+    output_times : tuple of float or None, h
+        Explicit output times; with neither, 500 equal steps.
+    output_units : OutputUnits
+        Units of the exported traces.
+    description : str
+        Free text.
+    source : str or None
+        The file the scenario came from (not part of equality).
+
+    Raises
+    ------
+    ScenarioError
+        Listing every problem of the network: duplicated ids, links naming no compartment,
+        doses on unknown or held compartments, bad output times, a grid too large.
+    """
+
+    name: str
+    duration: float
+    compartments: tuple[Compartment, ...]
+    barriers: tuple[Barrier, ...] = ()
+    exchanges: tuple[Exchange, ...] = ()
+    transfers: tuple[Transfer, ...] = ()
+    doses: tuple[Dose, ...] = ()
+    substance: Substance = field(default_factory=Substance)
+    output_step: float | None = None
+    output_times: tuple[float, ...] | None = None
+    output_units: OutputUnits = field(default_factory=OutputUnits)
+    description: str = ""
+    source: str | None = field(default=None, compare=False, repr=False)
+
+    def __post_init__(self) -> None:
+        for name in ("compartments", "barriers", "exchanges", "transfers", "doses"):
+            value = getattr(self, name)
+            if not isinstance(value, tuple):
+                object.__setattr__(self, name, tuple(value))
+        if self.output_times is not None and not isinstance(self.output_times, tuple):
+            object.__setattr__(self, "output_times", tuple(self.output_times))
+        problems = self._problems()
+        if problems:
+            raise ScenarioError([p.within(file=self.source) for p in problems])
+
+    # ------------------------------------------------------------------ validation
+    def _problems(self) -> list[Problem]:
+        out: list[Problem] = []
+        if not finite(self.duration) or self.duration <= 0:
+            out.append(Problem("scenario duration", _h(self.duration), "must be a time > 0 such as '7 d'"))
+        seen: dict[str, str] = {}
+        for what, items in (("compartment", self.compartments), ("barrier", self.barriers),
+                            ("exchange", self.exchanges), ("transfer", self.transfers)):
+            for item in items:
+                if item.id in seen:
+                    out.append(Problem(f"{what} '{item.id}' id", repr(item.id),
+                                       f"ids must be unique across the file; already used by a {seen[item.id]}"))
+                else:
+                    seen[item.id] = what
+        if not self.compartments:
+            out.append(Problem("compartment", "no compartments", "a scenario needs at least one [[compartment]]"))
+        comps = {c.id: c for c in self.compartments}
+        known = ", ".join(comps) or "none"
+        for what, items in (("barrier", self.barriers), ("exchange", self.exchanges), ("transfer", self.transfers)):
+            for item in items:
+                for end, cid in (("from", item.from_id), ("to", item.to_id)):
+                    if cid not in comps:
+                        out.append(Problem(f"{what} '{item.id}' {end}", repr(cid),
+                                           f"names no compartment (known: {known})"))
+        for t in self.transfers:
+            c = comps.get(t.from_id)
+            if c is not None and c.volume is None:
+                out.append(Problem(f"transfer '{t.id}' from", repr(t.from_id),
+                                   "a transfer moves a fraction of the amount in 'from', which needs a volume"))
+        for i, d in enumerate(self.doses, start=1):
+            c = comps.get(d.target)
+            if c is None:
+                out.append(Problem(f"dose {i} target", repr(d.target), f"names no compartment (known: {known})"))
+            elif c.held:
+                out.append(Problem(f"dose {i} target", repr(d.target),
+                                   "a held compartment never changes, so it cannot be dosed; "
+                                   "dose another compartment or drop held_concentration"))
+            elif c.volume is None:
+                out.append(Problem(f"dose {i} target", repr(d.target), "a dosed compartment needs a volume"))
+            if finite(self.duration) and d.at > self.duration:
+                out.append(Problem(f"dose {i} at", _h(d.at), f"must be within the run (duration {_h(self.duration)})"))
+        if self.output_step is not None and self.output_times is not None:
+            out.append(Problem("scenario output_times", "both output_step and output_times",
+                               "give one of them"))
+        if self.output_step is not None:
+            if not finite(self.output_step) or self.output_step <= 0:
+                out.append(Problem("scenario output_step", _h(self.output_step), "must be a time > 0"))
+            elif finite(self.duration) and self.duration / self.output_step > 10_000_000:
+                out.append(Problem("scenario output_step", _h(self.output_step),
+                                   "gives more than 10 million output rows; choose a coarser step"))
+        if self.output_times is not None:
+            ts = self.output_times
+            if not ts:
+                out.append(Problem("scenario output_times", "an empty list", "give at least one time"))
+            for j, t in enumerate(ts):
+                if not finite(t) or t < 0 or (finite(self.duration) and t > self.duration):
+                    out.append(Problem(f"scenario output_times[{j}]", _h(t),
+                                       f"must lie between 0 h and the duration ({_h(self.duration)})"))
+                elif j and t <= ts[j - 1]:
+                    out.append(Problem(f"scenario output_times[{j}]", _h(t), "times must increase"))
+        total = sum(layer.cells or 0 for b in self.barriers for layer in b.layers)
+        if total > MAX_TOTAL_CELLS:
+            out.append(Problem("barrier layer cells", f"{total} cells in all",
+                               f"must be at most {MAX_TOTAL_CELLS} (a grid too large for memory)"))
+        out.extend(p.within("output") for p in self.output_units.check(self.substance.molar_mass))
+        return out
+
+    # ------------------------------------------------------------------ derived views
+    @cached_property
+    def graph(self) -> nx.MultiDiGraph:
+        """The network as a frozen :class:`networkx.MultiDiGraph`.
+
+        Layout
+        ------
+        - ``G.graph``: ``name`` (str), ``substance`` (:class:`Substance`).
+        - One node per compartment, keyed by its id, with attribute ``compartment``
+          (:class:`Compartment`).
+        - One edge per link, from its ``from`` to its ``to`` compartment, keyed by the link's
+          id, with attribute ``kind`` (``"barrier"``, ``"exchange"`` or ``"transfer"``) and an
+          attribute of that name holding the object (:class:`Barrier`, :class:`Exchange`,
+          :class:`Transfer`).
+
+        See :meth:`from_graph` for building a scenario from such a graph.
+        """
+        g = nx.MultiDiGraph(name=self.name, substance=self.substance)
+        for c in self.compartments:
+            g.add_node(c.id, compartment=c)
+        for kind, items in (("barrier", self.barriers), ("exchange", self.exchanges), ("transfer", self.transfers)):
+            for item in items:
+                g.add_edge(item.from_id, item.to_id, key=item.id, kind=kind, **{kind: item})
+        return nx.freeze(g)
+
+    def compartment(self, cid: str) -> Compartment:
+        """The compartment with id ``cid``."""
+        for c in self.compartments:
+            if c.id == cid:
+                return c
+        raise KeyError(f"no compartment {cid!r}; known: {', '.join(c.id for c in self.compartments)}")
+
+    def barrier(self, bid: str) -> Barrier:
+        """The barrier with id ``bid``."""
+        for b in self.barriers:
+            if b.id == bid:
+                return b
+        raise KeyError(f"no barrier {bid!r}; known: {', '.join(b.id for b in self.barriers)}")
+
+    @property
+    def is_linear(self) -> bool:
+        """True when no compartment has saturable elimination (the model is then linear)."""
+        return all(c.vmax is None or c.vmax == 0 for c in self.compartments)
+
+    def output_grid(self) -> tuple[float, ...]:
+        """The output times, h: as given, or every ``output_step`` from 0 and the end, or 500 steps."""
+        if self.output_times is not None:
+            return self.output_times
+        if self.output_step is not None:
+            n = int(math.floor(self.duration / self.output_step * (1 + 1e-12)))
+            times = [i * self.output_step for i in range(n + 1)]
+            if self.duration - times[-1] > 1e-9 * self.duration:
+                times.append(self.duration)
+            else:
+                times[-1] = self.duration
+            return tuple(times)
+        return tuple(self.duration * i / DEFAULT_OUTPUT_POINTS for i in range(DEFAULT_OUTPUT_POINTS + 1))
+
+    def components(self) -> list[list[str]]:
+        """Compartment ids of each connected part of the network (more than one is allowed)."""
+        return [sorted(part) for part in nx.weakly_connected_components(self.graph)]
+
+    def summary(self) -> str:
+        """One line describing the network."""
+        parts = len(self.components())
+        layers = sum(len(b.layers) for b in self.barriers)
+        text = (f"{len(self.compartments)} compartments, {len(self.barriers)} barriers "
+                f"({layers} layers), {len(self.exchanges)} exchanges, {len(self.transfers)} transfers, "
+                f"{len(self.doses)} doses, duration {_h(self.duration)}")
+        if parts > 1:
+            text += f"; note: the network has {parts} disconnected parts"
+        return text
+
+    @cached_property
+    def digest(self) -> str:
+        """SHA-256 of the scenario's canonical TOML text (identifies what made a result)."""
+        return hashlib.sha256(self.to_toml().encode()).hexdigest()
+
+    # ------------------------------------------------------------------ conversions
+    def to_document(self) -> dict[str, Any]:
+        """The scenario as a TOML document (nested dicts of unit strings)."""
+        from .document import to_document
+        return to_document(self)
+
+    def to_toml(self) -> str:
+        """The scenario as TOML text that :func:`barrierflow.load` reads back to an equal model."""
+        from .document import to_toml
+        return to_toml(self)
+
+    @classmethod
+    def from_graph(
+        cls,
+        graph: nx.MultiDiGraph,
+        doses: Iterable[Dose | Mapping[str, Any]] = (),
+        duration: float | str = 24.0,
+        output: OutputUnits | Mapping[str, str] | None = None,
+        *,
+        output_step: float | str | None = None,
+        output_times: Iterable[float | str] | None = None,
+        name: str | None = None,
+        substance: Substance | Mapping[str, Any] | None = None,
+        description: str = "",
+    ) -> Scenario:
+        """Build a scenario from a networkx graph of compartments and links.
+
+        Parameters
+        ----------
+        graph : networkx.MultiDiGraph (or DiGraph)
+            Nodes are compartment ids. A node holds either ``compartment=`` a
+            :class:`Compartment`, or plain keyword attributes (``volume="5 L"``,
+            ``clearance="10 L/h"``, ...; unit strings, or numbers already in internal units),
+            validated exactly as a file would be. An edge ``u -> v`` holds either
+            ``barrier=``/``exchange=``/``transfer=`` an object, or ``kind="barrier"`` (or
+            ``"exchange"``, ``"transfer"``) with keyword attributes (a barrier's ``layers`` a
+            list of :class:`Layer` or of mappings). The edge key is the link's id; with an
+            integer key (networkx's default) an id such as ``"barrier_1"`` is made up. A
+            missing ``kind`` is an error.
+        doses : iterable of Dose or mappings
+            The regimen, in order.
+        duration : float (h) or str
+            Simulated time.
+        output : OutputUnits or mapping, optional
+            Units of the exported traces.
+        output_step, output_times : optional
+            As in the file; numbers are hours.
+        name : str, optional
+            Defaults to ``graph.graph["name"]``.
+        substance : Substance or mapping, optional
+            Defaults to ``graph.graph["substance"]``.
+        description : str
+
+        Returns
+        -------
+        Scenario
+
+        Raises
+        ------
+        ScenarioError
+            Listing every problem, with field paths such as ``compartment 'plasma' volume``.
+        """
+        problems: list[Problem] = []
+        g = graph
+        sub = substance if substance is not None else g.graph.get("substance", Substance())
+        if isinstance(sub, Mapping):
+            try:
+                sub = Substance(**{}) if not sub else _build_substance(sub)
+            except ScenarioError as err:
+                problems.extend(err.within("substance").problems)
+                sub = Substance()
+        molar_mass = sub.molar_mass
+        comps = []
+        for node, attrs in g.nodes(data=True):
+            try:
+                if "compartment" in attrs:
+                    c = attrs["compartment"]
+                    if not isinstance(c, Compartment):
+                        raise ScenarioError.single("compartment", repr(c), "must be a Compartment object")
+                    if c.id != node:
+                        raise ScenarioError.single("id", repr(c.id), f"must equal the node key {node!r}")
+                    comps.append(c)
+                else:
+                    comps.append(Compartment.from_mapping({"id": node, **attrs}, molar_mass, python=True))
+            except ScenarioError as err:
+                problems.extend(err.within(f"compartment '{node}'").problems)
+        links: dict[str, list[Any]] = {"barrier": [], "exchange": [], "transfer": []}
+        multi = g.is_multigraph()
+        edges = g.edges(keys=True, data=True) if multi else ((u, v, None, d) for u, v, d in g.edges(data=True))
+        for u, v, key, attrs in edges:
+            attrs = dict(attrs)
+            kind = attrs.pop("kind", None)
+            if kind is None:
+                kind = next((k for k in links if k in attrs), None)
+            label = key if isinstance(key, str) else f"{u} -> {v}"
+            if kind not in links:
+                problems.append(Problem(f"link '{label}' kind", repr(kind),
+                                        "must be 'barrier', 'exchange' or 'transfer'"))
+                continue
+            lid = key if isinstance(key, str) else f"{kind}_{len(links[kind]) + 1}"
+            try:
+                obj = attrs.pop(kind, None)
+                cls_ = {"barrier": Barrier, "exchange": Exchange, "transfer": Transfer}[kind]
+                if obj is not None:
+                    if not isinstance(obj, cls_):
+                        raise ScenarioError.single(kind, repr(obj), f"must be a {cls_.__name__} object")
+                    if (obj.from_id, obj.to_id) != (u, v):
+                        raise ScenarioError.single("from", f"{obj.from_id} -> {obj.to_id}",
+                                                   f"must match the edge {u} -> {v}")
+                    links[kind].append(obj)
+                else:
+                    raw = {"id": lid, "from": u, "to": v, **attrs}
+                    links[kind].append(cls_.from_mapping(raw, python=True))
+            except ScenarioError as err:
+                problems.extend(err.within(f"{kind} '{lid}'").problems)
+        dose_objs = []
+        for i, d in enumerate(doses, start=1):
+            try:
+                dose_objs.append(d if isinstance(d, Dose) else Dose.from_mapping(d, molar_mass, python=True))
+            except ScenarioError as err:
+                problems.extend(err.within(f"dose {i}").problems)
+        out_units = output if output is not None else OutputUnits()
+        if isinstance(out_units, Mapping):
+            try:
+                out_units = OutputUnits.from_mapping(out_units)
+            except ScenarioError as err:
+                problems.extend(err.within("output").problems)
+                out_units = OutputUnits()
+        times = {}
+        for label, value in (("duration", duration), ("output_step", output_step)):
+            if value is None:
+                times[label] = None
+            elif finite(value):
+                times[label] = float(value)
+            else:
+                try:
+                    times[label] = parse_quantity(value, "time", f"scenario {label}")
+                except UnitsError as err:
+                    problems.append(err.problem)
+                    times[label] = None
+        otimes = None
+        if output_times is not None:
+            otimes = []
+            for j, t in enumerate(output_times):
+                try:
+                    otimes.append(float(t) if finite(t) else parse_quantity(t, "time", f"scenario output_times[{j}]"))
+                except UnitsError as err:
+                    problems.append(err.problem)
+            otimes = tuple(otimes)
+        if problems:
+            raise ScenarioError(problems)
+        return cls(
+            name=name if name is not None else str(g.graph.get("name", "")),
+            duration=times["duration"] if times["duration"] is not None else float("nan"),
+            compartments=tuple(comps),
+            barriers=tuple(links["barrier"]),
+            exchanges=tuple(links["exchange"]),
+            transfers=tuple(links["transfer"]),
+            doses=tuple(dose_objs),
+            substance=sub,
+            output_step=times["output_step"],
+            output_times=otimes,
+            output_units=out_units,
+            description=description,
+        )
+
+
+def _build_substance(raw: Mapping[str, Any]) -> Substance:
+    from ._fields import build
+    return build(Substance, Substance.SPECS, raw, python=True)
+
+
+def _h(value: Any) -> str:
+    if finite(value):
+        from ..units import format_quantity
+        return format_quantity(float(value), "time", "h")
+    return str(value)

@@ -119,7 +119,10 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
         if spec is None:
             problems.append(Problem(key, "an unknown key", suggest(key, [s.key for s in specs])))
             continue
-        raw_text[spec.attr] = value if isinstance(value, str) else str(value)
+        if spec.kind == "id":
+            raw_text[spec.attr] = repr(value)  # ids are quoted in messages, as the model checks show them
+        else:
+            raw_text[spec.attr] = value if isinstance(value, str) else str(value)
         if python and spec.kind in KINDS and finite(value):
             values[spec.attr] = float(value)
             continue
@@ -132,7 +135,7 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
             problems.append(Problem(spec.key, err.value, err.expected))
     for spec in specs:
         if spec.required and spec.attr not in values and not any(p.field == spec.key for p in problems):
-            example = f" such as '{KINDS[spec.kind].example}'" if spec.kind in KINDS else ""
+            example = f", such as '{KINDS[spec.kind].example}'" if spec.kind in KINDS else ""
             problems.append(Problem(spec.key, "nothing", f"this key is required{example}"))
     failed = {p.field for p in problems}
     if problems and any(s.required and s.attr not in values for s in specs):

@@ -17,7 +17,7 @@ from ..errors import Problem, ScenarioError
 from ..units import KINDS, format_quantity
 from ._fields import FieldSpec, build, parse_value, suggest
 from .components import Barrier, Compartment, Dose, Exchange, Layer, OutputUnits, Substance, Transfer
-from .scenario import Scenario
+from .scenario import Scenario, network_problems
 
 __all__ = ["from_document", "to_document", "to_toml"]
 
@@ -103,12 +103,16 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
         if "duration" not in head and not any(p.field == "scenario duration" for p in problems):
             problems.append(Problem("scenario duration", "nothing", "this key is required, such as duration = \"7 d\""))
 
+    built_at: dict[str, list[int]] = {}  # kind -> position in the file of each part built
+
     def collect(kind: str, maker) -> list[Any]:
         out = []
+        built_at[kind] = []
         for i, table in enumerate(_tables(doc, kind, problems), start=1):
             label = _label(kind, table, i)
             try:
                 out.append(maker(table, i))
+                built_at[kind].append(i)
             except ScenarioError as err:
                 problems.extend(err.within(label).problems)
                 if isinstance(table.get("id"), str):
@@ -143,10 +147,7 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
         return make()  # raises its own ScenarioError, with the file, for network problems
     if "duration" in head:
         # also report the network's problems, except those caused by a part that failed above
-        try:
-            make()
-        except ScenarioError as err:
-            problems += [p for p in err.problems if not any(repr(f) in p.value for f in failed_ids)]
+        problems = network_problems(problems, make, failed_ids, built_at["dose"])
     raise ScenarioError([p.within(file=file) for p in problems])
 
 

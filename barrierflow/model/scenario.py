@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import math
-from collections.abc import Iterable, Mapping
+import re
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import Any
@@ -16,7 +18,7 @@ from ..units import parse_quantity
 from ._fields import finite
 from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Substance, Transfer
 
-__all__ = ["MAX_TOTAL_CELLS", "Scenario"]
+__all__ = ["MAX_TOTAL_CELLS", "Scenario", "network_problems"]
 
 MAX_TOTAL_CELLS = 1_000_000
 """Largest grid accepted in one scenario (cells over all layers); larger grids do not fit in
@@ -222,9 +224,10 @@ class Scenario:
         """One line describing the network."""
         parts = len(self.components())
         layers = sum(len(b.layers) for b in self.barriers)
-        text = (f"{len(self.compartments)} compartments, {len(self.barriers)} barriers "
-                f"({layers} layers), {len(self.exchanges)} exchanges, {len(self.transfers)} transfers, "
-                f"{len(self.doses)} doses, duration {_h(self.duration)}")
+        text = (f"{_n(len(self.compartments), 'compartment')}, {_n(len(self.barriers), 'barrier')} "
+                f"({_n(layers, 'layer')}), {_n(len(self.exchanges), 'exchange')}, "
+                f"{_n(len(self.transfers), 'transfer')}, {_n(len(self.doses), 'dose')}, "
+                f"duration {_h(self.duration)}")
         if parts > 1:
             text += f"; note: the network has {parts} disconnected parts"
         return text
@@ -350,9 +353,11 @@ class Scenario:
             except ScenarioError as err:
                 problems.extend(err.within(f"{kind} '{lid}'").problems)
         dose_objs = []
+        dose_numbers = []  # the position of each built dose in the regimen given
         for i, d in enumerate(doses, start=1):
             try:
                 dose_objs.append(d if isinstance(d, Dose) else Dose.from_mapping(d, molar_mass, python=True))
+                dose_numbers.append(i)
             except ScenarioError as err:
                 problems.extend(err.within(f"dose {i}").problems)
         out_units = output if output is not None else OutputUnits()
@@ -383,27 +388,63 @@ class Scenario:
                 except UnitsError as err:
                     problems.append(err.problem)
             otimes = tuple(otimes)
-        if problems:
-            raise ScenarioError(problems)
-        return cls(
-            name=name if name is not None else str(g.graph.get("name", "")),
-            duration=times["duration"] if times["duration"] is not None else float("nan"),
-            compartments=tuple(comps),
-            barriers=tuple(links["barrier"]),
-            exchanges=tuple(links["exchange"]),
-            transfers=tuple(links["transfer"]),
-            doses=tuple(dose_objs),
-            substance=sub,
-            output_step=times["output_step"],
-            output_times=otimes,
-            output_units=out_units,
-            description=description,
-        )
+
+        def make() -> Scenario:
+            return cls(
+                name=name if name is not None else str(g.graph.get("name", "")),
+                duration=times["duration"] if times["duration"] is not None else float("nan"),
+                compartments=tuple(comps),
+                barriers=tuple(links["barrier"]),
+                exchanges=tuple(links["exchange"]),
+                transfers=tuple(links["transfer"]),
+                doses=tuple(dose_objs),
+                substance=sub,
+                output_step=times["output_step"],
+                output_times=otimes,
+                output_units=out_units,
+                description=description,
+            )
+
+        if not problems:
+            return make()
+        # Report the network's own problems too (every problem at once, as a file does), except
+        # those that only follow from a part that already failed above.
+        built = {c.id for c in comps} | {x.id for xs in links.values() for x in xs}
+        failed = {str(n) for n in g.nodes} - built
+        raise ScenarioError(network_problems(problems, make, failed, dose_numbers))
 
 
 def _build_substance(raw: Mapping[str, Any]) -> Substance:
     from ._fields import build
     return build(Substance, Substance.SPECS, raw, python=True)
+
+
+def network_problems(problems: list[Problem], make: Callable[[], Scenario], failed_ids: set[str],
+                     dose_numbers: list[int]) -> list[Problem]:
+    """Add the whole-network problems to those already found in the parts of a scenario.
+
+    ``make`` builds the scenario from the parts that were valid; its own problems are added
+    except those that only follow from a failed part (a link to a compartment that failed, a
+    field already reported). Doses are renumbered to their position in the input, since
+    ``make`` sees only the doses that were valid (``dose_numbers``: their positions).
+    """
+    out = list(problems)
+    seen = {p.field for p in problems}
+    try:
+        make()
+    except ScenarioError as err:
+        for p in err.problems:
+            m = re.match(r"dose (\d+)(\b.*)", p.field)
+            if m and 0 < int(m.group(1)) <= len(dose_numbers):
+                p = dataclasses.replace(p, field=f"dose {dose_numbers[int(m.group(1)) - 1]}{m.group(2)}")
+            if p.field in seen or any(repr(f) in p.value for f in failed_ids):
+                continue
+            out.append(p)
+    return out
+
+
+def _n(count: int, noun: str) -> str:
+    return f"{count} {noun}" if count == 1 else f"{count} {noun}s"
 
 
 def _h(value: Any) -> str:

@@ -1,0 +1,295 @@
+"""The command line: ``barrierflow check | run | steady | serve``.
+
+One entry point, :func:`main`, installed as the ``barrierflow`` console script. Every
+sub-command is registered in one table, :data:`COMMANDS`: its name, its one-line help, the
+function that adds its options and the function that carries it out.
+
+Exit status (the command-line contract):
+
+== =========================================================================================
+0  done
+2  the input was refused (bad scenario, bad option, unreadable file); the message names the
+   file, the field and the value, and no traceback is printed
+3  the numerical solution failed; the message says where and what to change
+1  an internal error; the traceback is printed only with ``--debug``
+== =========================================================================================
+
+Results are research estimates, not for clinical dosing or regulatory decisions without
+qualified review.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+
+import barrierflow
+from barrierflow import ScenarioError, SolverError, UnitsError
+
+__all__ = ["COMMANDS", "build_parser", "main"]
+
+PROG = "barrierflow"
+
+EXIT_OK = 0
+EXIT_INTERNAL = 1
+EXIT_REFUSED = 2
+EXIT_SOLVER = 3
+
+CAUTION = ("Results are research estimates, not for clinical dosing or regulatory decisions "
+           "without qualified review.")
+
+
+# ---------------------------------------------------------------------------- option types
+def _port(text: str) -> int:
+    """A TCP port number, 1 to 65535 (an argparse type)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"got {text!r}; expected a whole number from 1 to 65535") from None
+    if not 1 <= value <= 65535:
+        raise argparse.ArgumentTypeError(f"got {value}; expected a whole number from 1 to 65535")
+    return value
+
+
+def _positive_int(text: str) -> int:
+    """A whole number >= 1 (an argparse type)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"got {text!r}; expected a whole number >= 1") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"got {value}; expected a whole number >= 1")
+    return value
+
+
+# ---------------------------------------------------------------------------- check
+def _add_check(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenarios", nargs="+", metavar="SCENARIO.toml",
+                   help="one or more scenario files to validate")
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    """Validate each scenario file; print "ok" and a one-line summary, or every problem.
+
+    Returns
+    -------
+    int
+        0 when every file is valid, 2 when any was refused (the others are still checked).
+    """
+    status = EXIT_OK
+    for path in args.scenarios:
+        try:
+            scenario = barrierflow.load(path)
+        except (ScenarioError, UnitsError) as err:
+            _report_refusal(err)
+            status = EXIT_REFUSED
+            continue
+        print(f"ok: {path}: {scenario.summary()}")
+    return status
+
+
+# ---------------------------------------------------------------------------- run
+def _add_run(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml", help="the scenario file to simulate")
+    p.add_argument("-o", "--output", metavar="OUT.csv", default=None,
+                   help="traces CSV to write, with its JSON sidecar OUT.json beside it "
+                        "(default: the scenario's file name with .csv, in the current folder)")
+    p.add_argument("--integrator", metavar="NAME", default=None,
+                   help="time integrator (default: the engine's choice for the problem)")
+    p.add_argument("--cells", metavar="N", type=_positive_int, default=None,
+                   help="grid cells per layer for layers that do not set 'cells' "
+                        "(a whole number; default: the engine's grid, refined toward interfaces)")
+    p.add_argument("--no-progress", action="store_true",
+                   help="do not show the progress bar (default: shown on a terminal)")
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    """Simulate the scenario, write the traces CSV and sidecar, print the summary table."""
+    print("barrierflow run: not available yet", file=sys.stderr)
+    return EXIT_INTERNAL
+
+
+# ---------------------------------------------------------------------------- steady
+def _add_steady(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml", help="the scenario file")
+    p.add_argument("--json", action="store_true",
+                   help="print the result as JSON (permeability in cm/h, steady flux in mg/(cm^2 h), "
+                        "lag time in h, resistance per layer in h/cm) instead of a table "
+                        "(default: a table)")
+    p.add_argument("--profile", metavar="OUT.csv", default=None,
+                   help="also write the steady concentration profile through the layers of every "
+                        "barrier to this CSV (position in cm, concentration in mg/mL; default: not written)")
+
+
+def _cmd_steady(args: argparse.Namespace) -> int:
+    """Steady state of every barrier between a held source and a perfect sink."""
+    print("barrierflow steady: not available yet", file=sys.stderr)
+    return EXIT_INTERNAL
+
+
+# ---------------------------------------------------------------------------- serve
+def _add_serve(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml", nargs="?", default=None,
+                   help="scenario file to open in the dashboard (default: none, start empty)")
+    p.add_argument("--host", default="127.0.0.1",
+                   help="address to listen on (default: 127.0.0.1, this machine only)")
+    p.add_argument("--port", type=_port, default=8050,
+                   help="TCP port to listen on, 1 to 65535 (default: 8050)")
+
+
+def _cmd_serve(args: argparse.Namespace) -> int:
+    """Start the dashboard, with the scenario opened if one is named.
+
+    The dashboard package sits above the CLI in the import layers, so it is to be imported
+    here with :func:`importlib.import_module`, never by a module-level import.
+    """
+    print("barrierflow serve: not available yet", file=sys.stderr)
+    return EXIT_INTERNAL
+
+
+# ---------------------------------------------------------------------------- the table
+@dataclass(frozen=True)
+class Command:
+    """One sub-command: its help line, how it adds its options and what it does."""
+
+    help: str
+    add_arguments: Callable[[argparse.ArgumentParser], None]
+    handler: Callable[[argparse.Namespace], int]
+
+
+COMMANDS: dict[str, Command] = {
+    "run": Command("simulate a scenario; write the traces CSV and its JSON sidecar; print a summary",
+                   _add_run, lambda a: _cmd_run(a)),
+    "check": Command("validate scenario files only; print 'ok' and a one-line summary, or the errors",
+                     _add_check, lambda a: _cmd_check(a)),
+    "steady": Command("steady state of every barrier: permeability, steady flux, resistance per layer, "
+                      "lag time, profile", _add_steady, lambda a: _cmd_steady(a)),
+    "serve": Command("start the dashboard in a web browser, with the scenario opened if one is named",
+                     _add_serve, lambda a: _cmd_serve(a)),
+}
+"""Every sub-command, by name. (The lambdas look the functions up when called, so a
+function replaced in this module takes effect.)"""
+
+_EPILOG = f"""exit status: 0 done; 2 input refused (bad scenario, bad option, unreadable file);
+3 the numerical solution failed; 1 internal error (traceback with --debug).
+
+{CAUTION}"""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``barrierflow`` command, with every sub-command of :data:`COMMANDS`."""
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                        help="print the traceback of an internal error (default: off)")
+    parser = argparse.ArgumentParser(
+        prog=PROG,
+        description="Transport of a substance through layered tissue barriers (skin, mucosa, cornea, "
+                    "membranes) into compartments and the body, under a dosing regimen.",
+        epilog=_EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--version", action="version", version=f"{PROG} {barrierflow.__version__}")
+    parser.add_argument("--debug", action="store_true", default=False,
+                        help="print the traceback of an internal error (default: off)")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for name, cmd in COMMANDS.items():
+        p = sub.add_parser(name, help=cmd.help, description=cmd.help[0].upper() + cmd.help[1:] + ".",
+                           epilog=_EPILOG, parents=[common],
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        cmd.add_arguments(p)
+        p.set_defaults(handler=cmd.handler)
+    return parser
+
+
+# ---------------------------------------------------------------------------- errors
+def _report_refusal(err: ScenarioError | UnitsError) -> None:
+    """Print a refused input's problems on stderr, one a line, in the pattern
+    ``<file>: <field path>: got <value>; <what was expected>``."""
+    if isinstance(err, ScenarioError):
+        lines = [str(p) for p in err.problems] or [str(err)]
+    else:
+        lines = [str(err)]
+    for line in lines:
+        print(line, file=sys.stderr)
+    if len(lines) > 1:
+        print(f"{len(lines)} problems; the scenario was refused", file=sys.stderr)
+
+
+def _report_solver_failure(err: SolverError) -> None:
+    where = []
+    if err.time is not None:
+        where.append(f"at t = {err.time:.6g} h")
+    if err.part:
+        where.append(f"near '{err.part}'")
+    head = "the numerical solution failed" + (f" ({', '.join(where)})" if where else "")
+    print(f"{head}: {err}", file=sys.stderr)
+
+
+def _exit_code(code: object) -> int:
+    """The exit status that a :class:`SystemExit` from argparse carries."""
+    if code is None:
+        return EXIT_OK
+    if isinstance(code, int):
+        return code
+    print(code, file=sys.stderr)
+    return EXIT_REFUSED
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the ``barrierflow`` command.
+
+    Parameters
+    ----------
+    argv : sequence of str, optional
+        The arguments after the program name (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        The exit status: 0 done, 2 input refused, 3 the solution failed, 1 internal error.
+    """
+    parser = build_parser()
+    try:
+        args = parser.parse_args(None if argv is None else list(argv))
+    except SystemExit as exc:  # --help and --version (0), or a bad option (2)
+        return _exit_code(exc.code)
+    debug = bool(getattr(args, "debug", False))
+    try:
+        return int(args.handler(args) or 0)
+    except (ScenarioError, UnitsError) as err:
+        if debug:
+            traceback.print_exc()
+        _report_refusal(err)
+        return EXIT_REFUSED
+    except SolverError as err:
+        if debug:
+            traceback.print_exc()
+        _report_solver_failure(err)
+        return EXIT_SOLVER
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+    except OSError as err:
+        if debug:
+            traceback.print_exc()
+        if err.filename is None:
+            print(f"internal error: {type(err).__name__}: {err} (run with --debug for the traceback)",
+                  file=sys.stderr)
+            return EXIT_INTERNAL
+        # a file named on the command line cannot be read or written: refused input
+        print(f"{err.filename}: cannot be read or written ({err.strerror or err})", file=sys.stderr)
+        return EXIT_REFUSED
+    except Exception as err:  # the last line of defence: exit 1, no traceback unless --debug
+        if debug:
+            traceback.print_exc()
+        else:
+            print(f"internal error: {type(err).__name__}: {err} (run with --debug for the traceback)",
+                  file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -222,14 +222,15 @@ class Scenario:
 
     def summary(self) -> str:
         """One line describing the network."""
-        parts = len(self.components())
+        parts = self.components()
         layers = sum(len(b.layers) for b in self.barriers)
         text = (f"{_n(len(self.compartments), 'compartment')}, {_n(len(self.barriers), 'barrier')} "
                 f"({_n(layers, 'layer')}), {_n(len(self.exchanges), 'exchange')}, "
                 f"{_n(len(self.transfers), 'transfer')}, {_n(len(self.doses), 'dose')}, "
                 f"duration {_h(self.duration)}")
-        if parts > 1:
-            text += f"; note: the network has {parts} disconnected parts"
+        if len(parts) > 1:
+            listed = "; ".join("{" + ", ".join(part) + "}" for part in parts)
+            text += f"; note: the network has {len(parts)} disconnected parts: {listed}"
         return text
 
     @cached_property

@@ -35,8 +35,8 @@ __version__ = "0.1.0"
 
 _LAZY = {
     # name -> module that defines it (imported on first access: the engine imports numba)
-    "simulate": "barrierflow.engine",
-    "Result": "barrierflow.engine",
+    "simulate": "barrierflow.analysis",
+    "Result": "barrierflow.analysis",
     "steady_state": "barrierflow.analysis",
     "metrics": "barrierflow.analysis",
 }

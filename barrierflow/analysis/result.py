@@ -1,0 +1,422 @@
+"""The typed result of a simulation: traces by id, profiles, the mass balance, CSV export."""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import io
+import json
+import math
+import os
+import platform
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from functools import cached_property
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..engine import Trajectory
+from ..io import atomic_write
+from ..model import Scenario
+from ..units import unit_factor
+
+__all__ = ["CAUTION", "BarrierProfile", "MassBalance", "Result"]
+
+CAUTION = ("Research estimates only: not for clinical dosing or regulatory decisions without qualified "
+           "review. Local regulations and licensed practice take precedence.")
+
+
+@dataclass(frozen=True)
+class BarrierProfile:
+    """Concentration through a barrier at one time.
+
+    Attributes
+    ----------
+    barrier_id : str
+    time : float, h
+        The output time the profile belongs to.
+    x : ndarray, cm
+        Cell centres, from the ``from`` face.
+    conc : ndarray, mg/mL
+        Cell concentrations.
+    layer : ndarray of int
+        Index of the layer of each cell.
+    interfaces : tuple of float, cm
+        0, each interface, and the total thickness.
+    """
+
+    barrier_id: str
+    time: float
+    x: np.ndarray
+    conc: np.ndarray
+    layer: np.ndarray
+    interfaces: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class MassBalance:
+    """Where every milligram went, at the end of the run and as the worst error over time.
+
+    The ledger is ``initial + dosed + held_supply = present + eliminated + degraded + removed``,
+    where ``held_supply`` is what held compartments gave (negative when a sink took substance).
+
+    Attributes (mg unless said)
+    ----------
+    initial, dosed, held_supply, present, eliminated, degraded, removed : float
+        Values at the end of the run.
+    absolute_error : float, mg
+        Largest |left - right| over all output times.
+    relative_error : float
+        ``absolute_error`` divided by the largest amount that entered the ledger.
+    """
+
+    initial: float
+    dosed: float
+    held_supply: float
+    present: float
+    eliminated: float
+    degraded: float
+    removed: float
+    absolute_error: float
+    relative_error: float
+
+    def as_dict(self) -> dict[str, float]:
+        """The fields as a plain dict (mg, and the relative error)."""
+        return dataclasses.asdict(self)
+
+
+def _fmt(x: float) -> str:
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return ""
+    return format(float(x), ".12g")
+
+
+@dataclass(frozen=True, eq=False)
+class Result:
+    """The result of :func:`barrierflow.simulate`, looked up by compartment and barrier id.
+
+    All accessors return numpy arrays with one value per output time, in internal units
+    (h, mg, mL, cm); :meth:`to_csv` converts to the scenario's ``[output]`` units.
+    Concentrations are clipped at 0 in every accessor and export; the most negative raw value is
+    reported by :attr:`most_negative` (tiny negatives are integration noise).
+
+    Attributes
+    ----------
+    scenario : Scenario
+        What was simulated.
+    trajectory : Trajectory
+        The engine's raw output.
+    """
+
+    scenario: Scenario
+    trajectory: Trajectory
+
+    # ----------------------------------------------------------------- status
+    @property
+    def times(self) -> np.ndarray:
+        """Output times, h."""
+        return self.trajectory.times
+
+    @property
+    def status(self) -> int:
+        """0 when the run finished, -1 when it stopped early."""
+        return self.trajectory.status
+
+    @property
+    def message(self) -> str:
+        """What happened, in words."""
+        return self.trajectory.message
+
+    @property
+    def stats(self) -> dict[str, Any]:
+        """Run statistics: steps, rejected steps, evaluations, intervals, and wall time (s)."""
+        return {**self.trajectory.stats, "wall_time_s": self.trajectory.wall_time}
+
+    @property
+    def integrator(self) -> str:
+        """Name of the integrator that made the result."""
+        return self.trajectory.integrator
+
+    @property
+    def dose_times(self) -> tuple[tuple[float, str, str], ...]:
+        """Every event applied: (time h, compartment id, kind)."""
+        ids = self.trajectory.model.comp_ids
+        return tuple((e.time, ids[e.comp], e.kind) for e in self.trajectory.events)
+
+    # ----------------------------------------------------------------- lookups
+    def _c(self, cid: str) -> int:
+        try:
+            return self.trajectory.model.comp_index[cid]
+        except KeyError:
+            raise KeyError(f"no compartment {cid!r}; known: {', '.join(self.trajectory.model.comp_ids)}") from None
+
+    def _b(self, bid: str) -> int:
+        try:
+            return self.trajectory.model.barrier_index[bid]
+        except KeyError:
+            raise KeyError(f"no barrier {bid!r}; known: {', '.join(self.trajectory.model.barrier_ids)}") from None
+
+    @property
+    def compartment_ids(self) -> tuple[str, ...]:
+        """Ids of the compartments, in the order of the scenario."""
+        return self.trajectory.model.comp_ids
+
+    @property
+    def barrier_ids(self) -> tuple[str, ...]:
+        """Ids of the barriers, in the order of the scenario."""
+        return self.trajectory.model.barrier_ids
+
+    def concentration(self, cid: str) -> np.ndarray:
+        """Concentration in compartment ``cid``, mg/mL."""
+        return np.maximum(self.trajectory.states[:, self._c(cid)], 0.0)
+
+    def amount(self, cid: str) -> np.ndarray:
+        """Amount in compartment ``cid``, mg (NaN for a held compartment without volume)."""
+        i = self._c(cid)
+        m = self.trajectory.model
+        if not m.has_volume[i]:
+            return np.full(len(self.times), np.nan)
+        return self.concentration(cid) * m.capacity[i]
+
+    def eliminated(self, cid: str) -> np.ndarray:
+        """Cumulative amount eliminated from ``cid`` (clearance and saturable), mg."""
+        m = self.trajectory.model
+        return self.trajectory.states[:, m.q_elim + self._c(cid)].copy()
+
+    def removed(self, cid: str) -> np.ndarray:
+        """Cumulative amount taken out of ``cid`` by replace and remove doses, mg."""
+        return self.trajectory.event_removed[:, self._c(cid)].copy()
+
+    def dosed(self, cid: str) -> np.ndarray:
+        """Cumulative amount dosed into ``cid``, mg: boluses, infusions, refills and holds.
+
+        For a held compartment this is what it gave to keep its concentration (negative when
+        it took substance, as a perfect sink does).
+        """
+        m = self.trajectory.model
+        i = self._c(cid)
+        s = self.trajectory.states
+        return self.trajectory.event_dosed[:, i] + s[:, m.q_infused + i] + s[:, m.q_supply + i]
+
+    def _link_rate(self, link: int, into: bool) -> np.ndarray:
+        m = self.trajectory.model
+        s = self.trajectory.states
+        p, q = m.link_p[link], m.link_q[link]
+        up = s[:, p] * m.inv_partition[p]
+        uq = s[:, q] * m.inv_partition[q]
+        if into:
+            return m.link_c[link] * up - m.link_d[link] * uq
+        return m.link_a[link] * up - m.link_b[link] * uq
+
+    def flux(self, bid: str) -> np.ndarray:
+        """Flux per area from barrier ``bid`` into its ``to`` compartment, mg/(cm^2 h)."""
+        b = self._b(bid)
+        m = self.trajectory.model
+        return self._link_rate(m.grids[b].out_link, True) / m.area[b]
+
+    def uptake_flux(self, bid: str) -> np.ndarray:
+        """Flux per area from the ``from`` compartment into barrier ``bid``, mg/(cm^2 h)."""
+        b = self._b(bid)
+        m = self.trajectory.model
+        return self._link_rate(m.grids[b].in_link, False) / m.area[b]
+
+    def permeated(self, bid: str) -> np.ndarray:
+        """Cumulative amount per area that entered the ``to`` compartment through ``bid``, mg/cm^2."""
+        b = self._b(bid)
+        m = self.trajectory.model
+        return self.trajectory.states[:, m.q_perm + b] / m.area[b]
+
+    def content(self, bid: str) -> np.ndarray:
+        """Amount held inside the layers of ``bid``, mg (0 for a steady barrier)."""
+        g = self.trajectory.model.grids[self._b(bid)]
+        cells = np.maximum(self.trajectory.states[:, g.start:g.stop], 0.0)
+        return cells @ self.trajectory.model.capacity[g.start:g.stop]
+
+    def degraded(self, bid: str) -> np.ndarray:
+        """Cumulative amount degraded inside ``bid``, mg."""
+        m = self.trajectory.model
+        return self.trajectory.states[:, m.q_degr + self._b(bid)].copy()
+
+    def profile(self, bid: str, time: float) -> BarrierProfile:
+        """Concentration profile through ``bid`` at the output time nearest to ``time`` (h)."""
+        g = self.trajectory.model.grids[self._b(bid)]
+        k = int(np.argmin(np.abs(self.times - time)))
+        conc = np.maximum(self.trajectory.states[k, g.start:g.stop], 0.0)
+        return BarrierProfile(bid, float(self.times[k]), g.centres.copy(), conc, g.layer_of_cell.copy(),
+                              g.interfaces)
+
+    @property
+    def most_negative(self) -> float:
+        """The most negative raw concentration met (mg/mL; 0 when none), before clipping."""
+        m = self.trajectory.model
+        s = self.trajectory.states[:, : m.n_dyn]
+        return float(min(0.0, np.nanmin(s))) if s.size else 0.0
+
+    # ----------------------------------------------------------------- mass balance
+    @cached_property
+    def mass_balance(self) -> MassBalance:
+        """The ledger of the run (see :class:`MassBalance`)."""
+        tr = self.trajectory
+        m = tr.model
+        s = tr.states
+        nc = m.n_comp
+        vol = np.where(m.has_volume, m.capacity[:nc], 0.0)
+        present = s[:, :nc] @ vol + s[:, nc:m.n_dyn] @ m.capacity[nc:m.n_dyn]
+        supply = s[:, m.q_supply:m.q_supply + nc]
+        held = m.held
+        dosed = (tr.event_dosed.sum(axis=1) + s[:, m.q_infused:m.q_infused + nc].sum(axis=1)
+                 + supply[:, ~held].sum(axis=1))
+        held_supply = supply[:, held].sum(axis=1)
+        elim = s[:, m.q_elim:m.q_elim + nc].sum(axis=1)
+        degr = s[:, m.q_degr:m.q_degr + m.n_bar].sum(axis=1)
+        removed = tr.event_removed.sum(axis=1)
+        left = tr.initial_amount + dosed + held_supply
+        right = present + elim + degr + removed
+        err = np.abs(left - right)
+        through = max(float(np.max(np.abs(tr.initial_amount + dosed) + np.abs(held_supply), initial=0.0)),
+                      float(np.max(right, initial=0.0)), 1e-300)
+        last = -1
+        return MassBalance(
+            initial=float(tr.initial_amount), dosed=float(dosed[last]) if len(dosed) else 0.0,
+            held_supply=float(held_supply[last]) if len(dosed) else 0.0,
+            present=float(present[last]) if len(dosed) else 0.0,
+            eliminated=float(elim[last]) if len(dosed) else 0.0,
+            degraded=float(degr[last]) if len(dosed) else 0.0,
+            removed=float(removed[last]) if len(dosed) else 0.0,
+            absolute_error=float(err.max(initial=0.0)), relative_error=float(err.max(initial=0.0) / through))
+
+    # ----------------------------------------------------------------- analysis hooks
+    def metrics(self, threshold: float | None = None):
+        """Exposure and barrier metrics (see :func:`barrierflow.analysis.metrics.compute_metrics`).
+
+        Parameters
+        ----------
+        threshold : float or None, mg/mL
+            Concentration for the time-above-threshold metric.
+        """
+        from .metrics import compute_metrics
+
+        return compute_metrics(self, threshold=threshold)
+
+    def warnings(self) -> tuple[str, ...]:
+        """Practitioner warnings about the run (sink conditions, unreached steady state, ...)."""
+        out: list[str] = []
+        if self.most_negative < -1e-9 * float(np.max(self.trajectory.model.scale[: self.trajectory.model.n_dyn])):
+            out.append(f"the solver produced negative concentrations down to {self.most_negative:.3g} mg/mL; "
+                       "they are clipped to 0 in the output (tighten the tolerance if this matters)")
+        try:
+            from .warnings import find_warnings
+        except ImportError:  # the warnings module is optional while it is being built
+            return tuple(out)
+        return tuple(out) + tuple(find_warnings(self))
+
+    # ----------------------------------------------------------------- export
+    def columns(self) -> list[tuple[str, np.ndarray]]:
+        """The export columns (header with unit, values in the ``[output]`` units), in order."""
+        s = self.scenario
+        u = s.output_units
+        mm = s.substance.molar_mass
+        ft = unit_factor("time", u.time)
+        fc = unit_factor("concentration", u.concentration, mm)
+        fa = unit_factor("amount", u.amount, mm)
+        farea = unit_factor("area", u.area)
+        flux_unit = f"{u.amount}/({u.area}*{u.time})"
+        perm_unit = f"{u.amount}/{u.area}"
+        cols: list[tuple[str, np.ndarray]] = [(f"time [{u.time}]", self.times * ft)]
+        cids, bids = self.compartment_ids, self.barrier_ids
+        cols += [(f"conc:{c} [{u.concentration}]", self.concentration(c) * fc) for c in cids]
+        cols += [(f"amount:{c} [{u.amount}]", self.amount(c) * fa) for c in cids]
+        # flux per area: mg/(cm^2 h) -> amount/(area time): amount factor, divided by area and time factors
+        cols += [(f"flux:{b} [{flux_unit}]", self.flux(b) * fa / farea / ft) for b in bids]
+        cols += [(f"permeated:{b} [{perm_unit}]", self.permeated(b) * fa / farea) for b in bids]
+        cols += [(f"eliminated:{c} [{u.amount}]", self.eliminated(c) * fa) for c in cids]
+        cols += [(f"content:{b} [{u.amount}]", self.content(b) * fa) for b in bids]
+        cols += [(f"degraded:{b} [{u.amount}]", self.degraded(b) * fa) for b in bids]
+        cols += [(f"removed:{c} [{u.amount}]", self.removed(c) * fa) for c in cids]
+        cols += [(f"dosed:{c} [{u.amount}]", self.dosed(c) * fa) for c in cids]
+        return cols
+
+    def csv_text(self) -> str:
+        """The traces as CSV text (header row with units, one row per output time)."""
+        cols = self.columns()
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow([name for name, _ in cols])
+        data = np.column_stack([v for _, v in cols]) if cols else np.zeros((0, 0))
+        for row in data:
+            w.writerow([_fmt(x) for x in row])
+        return buf.getvalue()
+
+    def sidecar(self) -> dict[str, Any]:
+        """The JSON sidecar: scenario, software version, solver settings, grid, mass balance."""
+        from .. import __version__
+
+        tr = self.trajectory
+        m = tr.model
+        grid = {}
+        for g in m.grids:
+            b = self.scenario.barrier(g.barrier_id)
+            if b.model == "steady":
+                grid[g.barrier_id] = {"model": "steady"}
+                continue
+            grid[g.barrier_id] = {
+                "model": "resolved",
+                "cells_per_layer": [int(np.sum(g.layer_of_cell == i)) for i in range(len(b.layers))],
+                "smallest_cell_um": float(g.widths.min() * 1e4),
+                "largest_cell_um": float(g.widths.max() * 1e4),
+            }
+        integ = getattr(self, "_integrator_options", None)
+        doc: dict[str, Any] = {
+            "caution": CAUTION,
+            "software": {"name": "barrierflow", "version": __version__, "python": platform.python_version()},
+            "created": datetime.now(UTC).isoformat(timespec="seconds"),
+            "scenario": {"name": self.scenario.name, "file": self.scenario.source, "sha256": self.scenario.digest,
+                         "toml": self.scenario.to_toml()},
+            "solver": {"integrator": tr.integrator, "options": integ, "status": tr.status, "message": tr.message,
+                       "statistics": self.stats, "grid_defaults": dataclasses.asdict(tr.grid)},
+            "grid": grid,
+            "units": dataclasses.asdict(self.scenario.output_units),
+            "mass_balance_mg": self.mass_balance.as_dict(),
+            "most_negative_concentration_mg_per_mL": self.most_negative,
+            "warnings": list(self.warnings()),
+        }
+        try:
+            doc["metrics"] = self.metrics().as_dict()
+        except ImportError:  # the metrics module is optional while it is being built
+            pass
+        return doc
+
+    def to_csv(self, path: str | os.PathLike[str] | None = None) -> Path:
+        """Write the traces CSV and its JSON sidecar ``<name>.json`` beside it, atomically.
+
+        Parameters
+        ----------
+        path : path-like, optional
+            Default: the scenario file's name with ``.csv``, in the current folder.
+
+        Returns
+        -------
+        pathlib.Path
+            The CSV path.
+        """
+        if path is None:
+            stem = Path(self.scenario.source).stem if self.scenario.source else "barrierflow-run"
+            path = Path(f"{stem}.csv")
+        path = Path(path)
+        atomic_write(path, self.csv_text())
+        atomic_write(path.with_suffix(".json"), json.dumps(self.sidecar(), indent=2, default=_json_default) + "\n")
+        return path
+
+
+def _json_default(x: Any) -> Any:
+    if isinstance(x, np.generic):
+        return x.item()
+    if isinstance(x, np.ndarray):
+        return x.tolist()
+    if dataclasses.is_dataclass(x):
+        return dataclasses.asdict(x)
+    if isinstance(x, float) and not math.isfinite(x):
+        return str(x)
+    return str(x)

@@ -1,0 +1,48 @@
+"""The public simulation call."""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Callable
+
+from ..engine import Grid, solve
+from ..model import Scenario
+from .result import Result
+
+__all__ = ["simulate"]
+
+
+def simulate(
+    scenario: Scenario,
+    *,
+    integrator=None,
+    grid: Grid | None = None,
+    raise_on_failure: bool = True,
+    progress: Callable[[float], None] | None = None,
+) -> Result:
+    """Simulate a scenario and return its :class:`Result`.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        From :func:`barrierflow.load` or :meth:`Scenario.from_graph`.
+    integrator : object, optional
+        An integrator object from :mod:`barrierflow.engine` (default: the engine's choice).
+    grid : Grid, optional
+        Default grid of layers without ``cells``.
+    raise_on_failure : bool
+        Raise :class:`~barrierflow.SolverError` on a numerical failure (default); with False,
+        return the partial result with ``status = -1`` (so a population run survives one failed
+        subject).
+    progress : callable, optional
+        Called with the fraction of the run done, 0 to 1.
+
+    Returns
+    -------
+    Result
+    """
+    traj = solve(scenario, integrator, grid, raise_on_failure=raise_on_failure, progress=progress)
+    result = Result(scenario, traj)
+    if integrator is not None and dataclasses.is_dataclass(integrator):
+        object.__setattr__(result, "_integrator_options", dataclasses.asdict(integrator))
+    return result

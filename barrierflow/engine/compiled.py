@@ -1,0 +1,328 @@
+"""Compile a scenario into flat arrays: the only form the numerical kernels see.
+
+State vector layout (all float64)::
+
+    y = [ compartment concentrations (n_comp), mg/mL
+          cell concentrations of every resolved barrier, barrier after barrier (n_cells), mg/mL
+          | cumulative amounts, mg:
+          eliminated per compartment (n_comp)
+          degraded per barrier (n_bar)
+          permeated per barrier, the amount that entered its `to` compartment (n_bar)
+          supplied per compartment by a clamp: a held compartment or a hold dose (n_comp)
+          infused per compartment (n_comp) ]
+
+The first ``n_dyn = n_comp + n_cells`` entries are the dynamic states; the rest are
+quadratures that never feed back. Every transport process is written on the potential
+u = y / K (continuous at interfaces) and on amounts: a state of capacity V (mL; a compartment's
+volume, or a cell's area times width) changes as dy/dt = (sum of amount rates) / V.
+
+A *link* j joins states p and q: the amount rate leaving p is ``a u_p - b u_q`` and the rate
+entering q is ``c u_p - d u_q`` (mL/h times mg/mL). Storage-free links have a = b = c = d = G;
+a quasi-steady barrier with degradation in a layer has a != c, the difference degraded.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..model import Barrier, Scenario
+from .grid import Grid
+
+__all__ = ["BarrierGrid", "CompiledModel", "compile_scenario"]
+
+
+@dataclass(frozen=True)
+class BarrierGrid:
+    """Where one barrier's cells sit in the state vector, and their geometry.
+
+    Attributes
+    ----------
+    barrier_id : str
+    start, stop : int
+        Slice of the state vector holding the cells (empty for a steady barrier).
+    widths : ndarray, cm
+    centres : ndarray, cm (from the ``from`` face)
+    layer_of_cell : ndarray of int
+    interfaces : tuple of float, cm (0, each interface, total thickness)
+    in_link, out_link : int
+        Index of the link at the ``from`` face and at the ``to`` face.
+    """
+
+    barrier_id: str
+    start: int
+    stop: int
+    widths: np.ndarray
+    centres: np.ndarray
+    layer_of_cell: np.ndarray
+    interfaces: tuple[float, ...]
+    in_link: int
+    out_link: int
+
+
+@dataclass(frozen=True, eq=False)
+class CompiledModel:
+    """A scenario as flat arrays (see the module docstring for the layout).
+
+    Attributes hold internal units. ``comp_index`` and ``barrier_index`` map ids to positions.
+    """
+
+    n_comp: int
+    n_cells: int
+    n_bar: int
+    capacity: np.ndarray        # (n_dyn,) mL
+    inv_partition: np.ndarray   # (n_dyn,)
+    link_p: np.ndarray          # (n_link,) int
+    link_q: np.ndarray
+    link_a: np.ndarray          # (n_link,) mL/h
+    link_b: np.ndarray
+    link_c: np.ndarray
+    link_d: np.ndarray
+    link_loss: np.ndarray       # (n_link,) int: quadrature index of what a link degrades, or -1
+    link_track: np.ndarray      # (n_link,) int: quadrature index that counts what enters q, or -1
+    loss_rate: np.ndarray       # (n_dyn,) 1/h first-order loss (clearance/V, layer degradation)
+    loss_to: np.ndarray         # (n_dyn,) int quadrature index of the loss
+    mm_state: np.ndarray        # (n_mm,) int compartment index with saturable elimination
+    mm_vmax: np.ndarray         # mg/h
+    mm_km: np.ndarray           # mg/mL
+    tr_from: np.ndarray         # (n_tr,) int
+    tr_to: np.ndarray
+    tr_rate: np.ndarray         # 1/h
+    held: np.ndarray            # (n_comp,) bool: permanently held compartments
+    y0: np.ndarray              # (n_state,) initial state
+    scale: np.ndarray           # (n_state,) magnitude used to scale absolute tolerances
+    comp_ids: tuple[str, ...]
+    barrier_ids: tuple[str, ...]
+    grids: tuple[BarrierGrid, ...]
+    has_volume: np.ndarray      # (n_comp,) bool
+    area: np.ndarray            # (n_bar,) cm^2
+    comp_index: dict[str, int] = field(default_factory=dict)
+    barrier_index: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def n_dyn(self) -> int:
+        """Number of dynamic states (compartments and cells)."""
+        return self.n_comp + self.n_cells
+
+    @property
+    def n_state(self) -> int:
+        """Length of the full state vector."""
+        return self.n_dyn + 3 * self.n_comp + 2 * self.n_bar
+
+    # offsets of the cumulative amounts
+    @property
+    def q_elim(self) -> int:
+        """Offset of the eliminated amounts."""
+        return self.n_dyn
+
+    @property
+    def q_degr(self) -> int:
+        """Offset of the degraded amounts."""
+        return self.n_dyn + self.n_comp
+
+    @property
+    def q_perm(self) -> int:
+        """Offset of the permeated amounts."""
+        return self.n_dyn + self.n_comp + self.n_bar
+
+    @property
+    def q_supply(self) -> int:
+        """Offset of the clamp supplies."""
+        return self.n_dyn + self.n_comp + 2 * self.n_bar
+
+    @property
+    def q_infused(self) -> int:
+        """Offset of the infused amounts."""
+        return self.n_dyn + 2 * self.n_comp + 2 * self.n_bar
+
+    @property
+    def is_linear(self) -> bool:
+        """True without saturable elimination."""
+        return len(self.mm_state) == 0
+
+
+def _two_port(barrier: Barrier) -> tuple[float, float, float, float]:
+    """Quasi-steady amount-rate coefficients (per area) of a barrier, with degradation exact.
+
+    Per layer, the steady potential obeys u'' = (k/D) u; its transfer matrix from the ``from``
+    face (u, J) to the far face is [[cosh sl, -sinh sl/(DKs)], [-DKs sinh sl, cosh sl]],
+    s = sqrt(k/D) (Crank, The Mathematics of Diffusion, 2nd ed., 1975, ch. 14 for one layer).
+    Returns (a, b, c, d) with J_in = a u_from - b u_to and J_out = c u_from - d u_to, cm/h.
+    """
+    t = np.eye(2)
+    for layer in barrier.layers:
+        dk = layer.diffusivity * layer.partition
+        if layer.degradation_rate > 0:
+            s = np.sqrt(layer.degradation_rate / layer.diffusivity)
+            sl = s * layer.thickness
+            m = np.array([[np.cosh(sl), -np.sinh(sl) / (dk * s)], [-dk * s * np.sinh(sl), np.cosh(sl)]])
+        else:
+            m = np.array([[1.0, -layer.thickness / dk], [0.0, 1.0]])
+        t = m @ t
+    a = t[0, 0] / -t[0, 1]
+    b = 1.0 / -t[0, 1]
+    c = t[1, 0] + t[1, 1] * a
+    d = t[1, 1] * b
+    return float(a), float(b), float(c), float(d)
+
+
+def _mass_scale(s: Scenario) -> float:
+    """An amount, mg, that bounds what the run can move: present at start plus every dose.
+
+    Held reservoirs add what their barriers could pass at the steady flux over the run.
+    """
+    total = 0.0
+    for c in s.compartments:
+        if not c.held and c.volume:
+            total += c.initial_concentration * c.volume
+    vol = {c.id: c.volume or 0.0 for c in s.compartments}
+    for d in s.doses:
+        n = len(d.start_times(s.duration))
+        if d.kind == "bolus":
+            total += n * d.amount
+        elif d.kind == "infusion":
+            total += n * d.rate * d.duration
+        elif d.kind in ("replace", "hold"):
+            total += n * d.concentration * vol[d.target]
+    comps = {c.id: c for c in s.compartments}
+    for b in s.barriers:
+        src = comps[b.from_id]
+        if src.held:
+            total += src.held_concentration / src.partition / b.resistance * b.area * s.duration
+        dst = comps[b.to_id]
+        if dst.held:
+            total += dst.held_concentration / dst.partition / b.resistance * b.area * s.duration
+    for e in s.exchanges:
+        for cid in (e.from_id, e.to_id):
+            c = comps[cid]
+            if c.held:
+                total += c.held_concentration / c.partition * e.flow * s.duration
+    return total if total > 0 else 1.0
+
+
+def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledModel:
+    """Turn a validated scenario into the flat arrays of a :class:`CompiledModel`.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    grid : Grid or None
+        Default grid of layers without ``cells`` (``Grid()`` when None).
+    """
+    grid = grid or Grid()
+    comps = scenario.compartments
+    n_comp = len(comps)
+    comp_index = {c.id: i for i, c in enumerate(comps)}
+    bars = scenario.barriers
+    n_bar = len(bars)
+
+    capacity = [c.volume if c.volume else 1.0 for c in comps]
+    inv_k = [1.0 / c.partition for c in comps]
+    loss_rate = [c.clearance / c.volume if c.volume and c.clearance else 0.0 for c in comps]
+    q_elim0 = None  # offsets are known only once n_cells is
+    link: list[tuple[int, int, float, float, float, float, int, int]] = []
+    grids_tmp = []
+    cell_layers = []  # (barrier index, widths, layer index per cell)
+    offset = n_comp
+    for bi, b in enumerate(bars):
+        if b.model == "steady":
+            grids_tmp.append((bi, offset, offset, np.zeros(0), np.zeros(0, dtype=np.int64)))
+            continue
+        widths = []
+        lay = []
+        for li, layer in enumerate(b.layers):
+            w = grid.widths(layer)
+            widths.append(w)
+            lay.append(np.full(len(w), li, dtype=np.int64))
+        w = np.concatenate(widths)
+        lay_idx = np.concatenate(lay)
+        grids_tmp.append((bi, offset, offset + len(w), w, lay_idx))
+        cell_layers.append((bi, w, lay_idx))
+        for i in range(len(w)):
+            layer = b.layers[lay_idx[i]]
+            capacity.append(b.area * w[i])
+            inv_k.append(1.0 / layer.partition)
+            loss_rate.append(layer.degradation_rate)
+        offset += len(w)
+    n_cells = offset - n_comp
+    n_dyn = n_comp + n_cells
+    q_elim0 = n_dyn
+    q_degr0 = n_dyn + n_comp
+    q_perm0 = q_degr0 + n_bar
+    q_supply0 = q_perm0 + n_bar
+    n_state = q_supply0 + 2 * n_comp
+
+    loss_to = [q_elim0 + i for i in range(n_comp)]
+    grids = []
+    for bi, start, stop, w, lay_idx in grids_tmp:
+        b = bars[bi]
+        p_from = comp_index[b.from_id]
+        p_to = comp_index[b.to_id]
+        if b.model == "steady":
+            a, bb, c, d = (v * b.area for v in _two_port(b))
+            in_link = out_link = len(link)
+            link.append((p_from, p_to, a, bb, c, d, q_degr0 + bi if a != c else -1, q_perm0 + bi))
+            faces = (0.0, *[float(x) for x in np.cumsum([x.thickness for x in b.layers])])
+            grids.append(BarrierGrid(b.id, start, stop, w, w, lay_idx, faces, in_link, out_link))
+            continue
+        half_res = np.array([w[i] / (2 * b.layers[lay_idx[i]].diffusivity * b.layers[lay_idx[i]].partition)
+                             for i in range(len(w))])  # h/cm
+        in_link = len(link)
+        g = b.area / half_res[0]
+        link.append((p_from, start, g, g, g, g, -1, -1))
+        for i in range(len(w) - 1):
+            g = b.area / (half_res[i] + half_res[i + 1])
+            link.append((start + i, start + i + 1, g, g, g, g, -1, -1))
+        out_link = len(link)
+        g = b.area / half_res[-1]
+        link.append((stop - 1, p_to, g, g, g, g, -1, q_perm0 + bi))
+        loss_to.extend([q_degr0 + bi] * len(w))
+        centres = np.cumsum(w) - w / 2
+        interfaces = (0.0, *[float(x) for x in np.cumsum([x.thickness for x in b.layers])])
+        grids.append(BarrierGrid(b.id, start, stop, w, centres, lay_idx, interfaces, in_link, out_link))
+
+    for e in scenario.exchanges:
+        p, q = comp_index[e.from_id], comp_index[e.to_id]
+        link.append((p, q, e.flow, e.flow, e.flow, e.flow, -1, -1))
+    lk = np.array(link, dtype=np.float64).reshape(-1, 8)
+
+    mm = [(i, c.vmax, c.km) for i, c in enumerate(comps) if c.vmax]
+    tr = [(comp_index[t.from_id], comp_index[t.to_id], t.rate) for t in scenario.transfers]
+
+    y0 = np.zeros(n_state)
+    for i, c in enumerate(comps):
+        y0[i] = c.starting_concentration
+    m_ref = _mass_scale(scenario)
+    cap = np.array(capacity)
+    scale = np.empty(n_state)
+    scale[:n_comp] = m_ref / cap[:n_comp]
+    for (bi, start, stop, _, lay_idx) in grids_tmp:
+        b = bars[bi]
+        kc = max(comps[comp_index[b.from_id]].partition, comps[comp_index[b.to_id]].partition)
+        side = max(scale[comp_index[b.from_id]], scale[comp_index[b.to_id]])
+        for i in range(start, stop):
+            scale[i] = side * b.layers[lay_idx[i - start]].partition / kc
+    scale[:n_comp] = np.maximum(scale[:n_comp], [c.starting_concentration for c in comps])
+    scale[n_dyn:] = m_ref
+
+    return CompiledModel(
+        n_comp=n_comp, n_cells=n_cells, n_bar=n_bar,
+        capacity=cap, inv_partition=np.array(inv_k),
+        link_p=lk[:, 0].astype(np.int64), link_q=lk[:, 1].astype(np.int64),
+        link_a=lk[:, 2].copy(), link_b=lk[:, 3].copy(), link_c=lk[:, 4].copy(), link_d=lk[:, 5].copy(),
+        link_loss=lk[:, 6].astype(np.int64), link_track=lk[:, 7].astype(np.int64),
+        loss_rate=np.array(loss_rate), loss_to=np.array(loss_to, dtype=np.int64),
+        mm_state=np.array([m[0] for m in mm], dtype=np.int64),
+        mm_vmax=np.array([m[1] for m in mm], dtype=np.float64),
+        mm_km=np.array([m[2] for m in mm], dtype=np.float64),
+        tr_from=np.array([t[0] for t in tr], dtype=np.int64),
+        tr_to=np.array([t[1] for t in tr], dtype=np.int64),
+        tr_rate=np.array([t[2] for t in tr], dtype=np.float64),
+        held=np.array([c.held for c in comps], dtype=np.bool_),
+        y0=y0, scale=scale,
+        comp_ids=tuple(c.id for c in comps), barrier_ids=tuple(b.id for b in bars),
+        grids=tuple(grids), has_volume=np.array([c.volume is not None for c in comps], dtype=np.bool_),
+        area=np.array([b.area for b in bars], dtype=np.float64),
+        comp_index=comp_index, barrier_index={b.id: i for i, b in enumerate(bars)},
+    )

@@ -1,0 +1,210 @@
+"""Unit parsing and conversion, checked against the published definitions of the units.
+
+Sources named beside each check:
+
+- NIST SP 811: A. Thompson and B. N. Taylor, *Guide for the Use of the International System of
+  Units (SI)*, NIST Special Publication 811, 2008 edition. Table 5 (SI prefixes), Table 6
+  (units accepted for use with the SI: minute, hour, day, litre) and Appendix B.8 (conversion
+  factors, listed alphabetically). Factors printed there with seven digits are compared with a
+  relative tolerance of 1e-6; exact ones with 1e-12.
+- IUPAC Green Book: E. R. Cohen et al., *Quantities, Units and Symbols in Physical Chemistry*,
+  3rd edition, 2007, section 2.10: molar mass M = m / n, so c_mass = c_amount * M.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import pytest
+
+from barrierflow import UnitsError
+from barrierflow.units import (
+    INTERNAL_UNITS,
+    KINDS,
+    convert,
+    format_quantity,
+    parse_quantity,
+    registry,
+    unit_factor,
+)
+
+EXACT = 1e-12
+SEVEN_DIGITS = 1e-6
+
+# (text, kind, value in the internal unit, relative tolerance, source)
+DEFINITIONS = [
+    # NIST SP 811 Appendix B.8: inch = 2.54 E-02 m (exact)  ->  2.54 cm
+    ("1 in", "length", 2.54, EXACT, "SP 811 B.8 inch"),
+    # NIST SP 811 Table 5: micro = 1e-6, so 1 um = 1e-4 cm; 15 um = 0.0015 cm
+    ("15 um", "length", 0.0015, EXACT, "SP 811 Table 5 micro"),
+    ("1 nm", "length", 1e-7, EXACT, "SP 811 Table 5 nano"),
+    # NIST SP 811 Appendix B.8: square foot = 9.290 304 E-02 m^2 (exact)  ->  929.0304 cm^2
+    ("1 ft^2", "area", 929.0304, EXACT, "SP 811 B.8 square foot"),
+    ("1 mm^2", "area", 0.01, EXACT, "SP 811 Table 5 milli"),
+    # NIST SP 811 Table 6: litre L = 1 dm^3 = 1e-3 m^3  ->  1000 mL
+    ("1 L", "volume", 1000.0, EXACT, "SP 811 Table 6 litre"),
+    ("10 uL", "volume", 0.01, EXACT, "SP 811 Table 6 litre, Table 5 micro"),
+    ("1 cm^3", "volume", 1.0, EXACT, "SP 811 Table 6 litre (1 mL = 1 cm^3)"),
+    # NIST SP 811 Appendix B.8: gallon [U.S.] = 3.785 412 E-03 m^3
+    ("1 gal", "volume", 3785.412, SEVEN_DIGITS, "SP 811 B.8 gallon [U.S.]"),
+    # NIST SP 811 Table 6: min = 60 s, h = 3600 s, d = 86 400 s
+    ("1 d", "time", 24.0, EXACT, "SP 811 Table 6 day"),
+    ("90 min", "time", 1.5, EXACT, "SP 811 Table 6 minute"),
+    ("7200 s", "time", 2.0, EXACT, "SP 811 Table 6 hour"),
+    # NIST SP 811 Appendix B.8: pound (avoirdupois) = 4.535 924 E-01 kg
+    ("1 lb", "amount", 453592.4, SEVEN_DIGITS, "SP 811 B.8 pound (avoirdupois)"),
+    # NIST SP 811 Appendix B.8: grain = 6.479 891 E-05 kg  ->  64.79891 mg
+    ("1 grain", "amount", 64.79891, SEVEN_DIGITS, "SP 811 B.8 grain"),
+    ("500 ug", "amount", 0.5, EXACT, "SP 811 Table 5 micro"),
+    # NIST SP 811 Appendix B.8: square foot per hour = 2.580 64 E-05 m^2/s
+    #   -> 2.58064e-5 m^2/s * 1e4 cm^2/m^2 * 3600 s/h = 929.0304 cm^2/h
+    ("1 ft^2/h", "diffusivity", 2.58064e-5 * 1e4 * 3600, SEVEN_DIGITS, "SP 811 B.8 square foot per hour"),
+    # SP 811 Table 6 hour: 1 cm^2/s = 3600 cm^2/h
+    ("1e-9 cm^2/s", "diffusivity", 3.6e-6, EXACT, "SP 811 Table 6 hour"),
+    ("1e-9 cm**2/s", "diffusivity", 3.6e-6, EXACT, "SP 811 Table 6 hour"),
+    # NIST SP 811 Appendix B.8: pound per cubic foot = 1.601 846 E+01 kg/m^3 = 16.01846 mg/mL
+    ("1 lb/ft^3", "concentration", 16.01846, SEVEN_DIGITS, "SP 811 B.8 pound per cubic foot"),
+    # kg/m^3 = g/L = mg/mL (SP 811 Table 6 litre)
+    ("20 mg/mL", "concentration", 20.0, EXACT, "definition"),
+    ("1 ug/L", "concentration", 1e-6, EXACT, "SP 811 Table 5, Table 6"),
+    ("1 kg/m^3", "concentration", 1.0, EXACT, "SP 811 Table 6 litre"),
+    # NIST SP 811 Appendix B.8: gallon [U.S.] per minute = 6.309 020 E-05 m^3/s
+    #   -> 6.30902e-5 m^3/s * 1e6 mL/m^3 * 3600 s/h
+    ("1 gal/min", "flow", 6.309020e-5 * 1e6 * 3600, SEVEN_DIGITS, "SP 811 B.8 gallon [U.S.] per minute"),
+    # NIST SP 811 Appendix B.8: cubic foot per minute = 4.719 474 E-04 m^3/s
+    ("1 ft^3/min", "flow", 4.719474e-4 * 1e6 * 3600, SEVEN_DIGITS, "SP 811 B.8 cubic foot per minute"),
+    ("10 L/h", "flow", 10000.0, EXACT, "SP 811 Table 6 litre"),
+    ("1 mL/min", "flow", 60.0, EXACT, "SP 811 Table 6 minute"),
+    ("0.01 1/min", "rate", 0.6, EXACT, "SP 811 Table 6 minute"),
+    ("1 min^-1", "rate", 60.0, EXACT, "SP 811 Table 6 minute"),
+    ("2 mg/h", "amount_rate", 2.0, EXACT, "definition"),
+    ("1 g/day", "amount_rate", 1000.0 / 24.0, EXACT, "SP 811 Table 6 day"),
+    ("250 g/mol", "molar_mass", 250.0, EXACT, "g/mol = mg/mmol"),
+]
+
+
+@pytest.mark.parametrize(("text", "kind", "expected", "rtol", "source"), DEFINITIONS,
+                         ids=[f"{d[0]} ({d[4]})" for d in DEFINITIONS])
+def test_conversion_matches_the_definition(text, kind, expected, rtol, source):
+    assert parse_quantity(text, kind) == pytest.approx(expected, rel=rtol, abs=0.0)
+
+
+def test_micro_sign_and_greek_mu_read_as_u():
+    # The scenario format accepts both spellings: "um" and "µm" (micro sign U+00B5); the Greek
+    # small letter mu (U+03BC) looks the same and is accepted too.
+    assert parse_quantity("15 \u00b5m", "length") == parse_quantity("15 um", "length") == 0.0015
+    assert parse_quantity("15 \u03bcm", "length") == 0.0015
+    assert parse_quantity("5 \u00b5L", "volume") == pytest.approx(0.005, rel=EXACT)
+
+
+# IUPAC Green Book (2007) section 2.10: mass concentration = amount concentration * molar mass.
+@pytest.mark.parametrize(("text", "kind", "molar_mass", "expected"), [
+    ("1 mmol/L", "concentration", 250.0, 0.25),      # 1e-3 mol/L * 250 g/mol = 0.25 g/L
+    ("2 umol/L", "concentration", 320.0, 6.4e-4),    # 2e-6 mol/L * 320 g/mol = 6.4e-4 g/L
+    ("1 umol", "amount", 250.0, 0.25),               # 1e-6 mol * 250 g/mol = 0.25 mg
+    ("1 umol/min", "amount_rate", 250.0, 15.0),      # 0.25 mg/min = 15 mg/h
+])
+def test_molar_units_use_the_molar_mass(text, kind, molar_mass, expected):
+    assert parse_quantity(text, kind, molar_mass=molar_mass) == pytest.approx(expected, rel=EXACT)
+
+
+def test_molar_unit_without_molar_mass_is_refused():
+    with pytest.raises(UnitsError, match="molar_mass"):
+        parse_quantity("1 mmol/L", "concentration", field="km")
+
+
+def test_output_factors():
+    # 1 mg/mL = 1000 mg/L (SP 811 Table 6 litre); 1 h = 60 min (Table 6)
+    assert unit_factor("concentration", "mg/L") == pytest.approx(1000.0, rel=EXACT)
+    assert convert(2.0, "time", "min") == pytest.approx(120.0, rel=EXACT)
+    assert convert(1.0, "area", "mm^2") == pytest.approx(100.0, rel=EXACT)
+    # 1 mg/mL of a 250 g/mol compound is 4 mmol/L (Green Book 2.10)
+    assert convert(1.0, "concentration", "mmol/L", molar_mass=250.0) == pytest.approx(4.0, rel=EXACT)
+
+
+def test_internal_units_are_the_documented_ones():
+    assert INTERNAL_UNITS == {
+        "length": "cm", "time": "h", "area": "cm^2", "volume": "mL", "diffusivity": "cm^2/h",
+        "concentration": "mg/mL", "amount": "mg", "amount_rate": "mg/h", "flow": "mL/h",
+        "rate": "1/h", "molar_mass": "mg/mmol",
+    }
+    # every internal unit parses back to 1 in itself
+    for kind, unit in INTERNAL_UNITS.items():
+        assert parse_quantity(f"1 {unit}", kind) == 1.0, kind
+
+
+# ----------------------------------------------------------------------------- refusals
+def test_bare_number_is_refused_with_the_expected_wording():
+    with pytest.raises(UnitsError) as info:
+        parse_quantity(5, "volume", field="volume")
+    assert str(info.value) == ("volume: got 5; a bare number is not accepted here; "
+                               "expected a volume with its unit, such as '5 mL'")
+
+
+def test_number_in_a_string_without_unit_is_refused():
+    with pytest.raises(UnitsError, match="the unit is missing; expected a length"):
+        parse_quantity("15", "length")
+
+
+def test_wrong_dimension_is_refused_with_the_expected_wording():
+    with pytest.raises(UnitsError) as info:
+        parse_quantity("5 kg", "volume", field="volume")
+    assert str(info.value) == ("volume: got 5 kg; wrong kind of unit (kg); "
+                               "expected a volume with its unit, such as '5 mL'")
+
+
+@pytest.mark.parametrize("text", ["nan cm", "inf cm", "-inf cm"])
+def test_non_finite_number_is_refused(text):
+    with pytest.raises(UnitsError, match="must be a finite number"):
+        parse_quantity(text, "length")
+
+
+@pytest.mark.parametrize("text", ["15 blorbs", "fifteen um", "15 um um um ("])
+def test_unreadable_unit_is_refused(text):
+    with pytest.raises(UnitsError, match="expected a length"):
+        parse_quantity(text, "length")
+
+
+@pytest.mark.parametrize("value", [True, None, [1, "cm"], {"cm": 1}])
+def test_values_of_the_wrong_type_are_refused(value):
+    with pytest.raises(UnitsError):
+        parse_quantity(value, "length")
+
+
+def test_unknown_kind_is_a_programming_error():
+    with pytest.raises(KeyError):
+        parse_quantity("1 cm", "speed")
+
+
+# ----------------------------------------------------------------------------- writing back
+@pytest.mark.parametrize(("value", "kind", "unit"), [
+    (0.0015, "length", "um"), (0.01, "length", "um"), (0.1, "length", "um"),
+    (3.6e-6, "diffusivity", "cm^2/s"), (3.6e-7, "diffusivity", "cm^2/s"), (7.2e-7, "diffusivity", "cm^2/s"),
+    (10 / 60, "time", "h"), (168.0, "time", "h"), (1 / 12, "time", "h"),
+    (15000.0, "volume", "mL"), (0.007, "volume", "mL"), (0.18, "flow", "mL/h"),
+    (6.4e-4, "concentration", "mg/mL"), (1e-6, "concentration", "mg/mL"), (123.456789, "amount", "mg"),
+])
+def test_format_quantity_reads_back_to_the_same_float(value, kind, unit):
+    text = format_quantity(value, kind, unit)
+    assert parse_quantity(text, kind) == value, text
+
+
+def test_format_quantity_prefers_readable_units():
+    assert format_quantity(0.0015, "length", "um") == "15 um"
+    assert format_quantity(parse_quantity("10 min", "time"), "time") == "10 min"
+    assert format_quantity(parse_quantity("7 d", "time"), "time") == "168 h"  # the first unit wins unless much shorter
+    assert format_quantity(15000.0, "volume", "mL") == "15 L"
+
+
+def test_one_registry_in_the_package():
+    # Habit 4 of the style guide: a single pint registry; nothing else creates one.
+    import barrierflow
+
+    root = Path(barrierflow.__file__).parent
+    makers = [p.relative_to(root).as_posix() for p in root.rglob("*.py")
+              if re.search(r"UnitRegistry\(", p.read_text(encoding="utf-8"))]
+    assert makers == ["units.py"]
+    assert all(math.isfinite(parse_quantity(f"1 {k.internal}", name)) for name, k in KINDS.items())
+    assert registry.Quantity("1 cm").to("um").magnitude == pytest.approx(1e4)

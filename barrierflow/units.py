@@ -149,7 +149,16 @@ def parse_quantity(text: object, kind: str, field: str = "", molar_mass: float |
         raise UnitsError(text, f"wrong kind of unit ({q.units:~}); expected {_expected(kind)}", field)
     if kind == "length" and abs(value) < 1e-300 and value != 0:
         value = 0.0
+    if _digits(float(q.magnitude)) > 15:
+        # the number was written with full double precision (as format_quantity writes a value
+        # that has no shorter exact form): keep every digit, do not round
+        return value
     return _tidy(value)
+
+
+def _digits(x: float) -> int:
+    """Significant digits of the shortest text that reads back to ``x``."""
+    return len(repr(abs(x)).split("e")[0].replace(".", "").strip("0"))
 
 
 def _tidy(value: float) -> float:
@@ -158,6 +167,7 @@ def _tidy(value: float) -> float:
     Unit factors such as 1e-4 cm/um are not exact in binary: 15 um becomes
     0.0014999999999999998 cm. Rounding to 15 digits (below double precision's 15.95)
     gives the value the user meant, so that a saved and re-read file compares equal.
+    A number written with 16 or 17 digits is not rounded (see :func:`parse_quantity`).
     """
     if value == 0.0 or not math.isfinite(value):
         return value
@@ -200,8 +210,10 @@ def format_quantity(value: float, kind: str, unit: str | tuple[str, ...] | None 
     --------
     >>> format_quantity(0.0015, "length", "um")
     '15 um'
-    >>> format_quantity(10 / 60, "time")
+    >>> format_quantity(parse_quantity("10 min", "time"), "time")
     '10 min'
+    >>> format_quantity(10 / 60, "time")  # not exactly what "10 min" reads as: every digit kept
+    '0.16666666666666666 h'
     """
     internal = KINDS[kind].internal
     units = (unit,) if isinstance(unit, str) else tuple(unit or ())

@@ -108,8 +108,84 @@ def _add_run(p: argparse.ArgumentParser) -> None:
 
 def _cmd_run(args: argparse.Namespace) -> int:
     """Simulate the scenario, write the traces CSV and sidecar, print the summary table."""
-    print("barrierflow run: not available yet", file=sys.stderr)
-    return EXIT_INTERNAL
+    from pathlib import Path
+
+    from barrierflow.analysis import simulate
+    from barrierflow.engine import Grid, integrator_from_name
+
+    scenario = barrierflow.load(args.scenario)
+    integrator = integrator_from_name(args.integrator) if args.integrator else None
+    grid = Grid(cells_per_layer=args.cells) if args.cells else None
+    show_bar = not args.no_progress and sys.stderr.isatty()
+    if show_bar:
+        from tqdm import tqdm
+
+        with tqdm(total=1000, desc="simulating", unit="‰", file=sys.stderr, leave=False) as bar:
+            def progress(fraction: float) -> None:
+                bar.update(int(fraction * 1000) - bar.n)
+
+            result = simulate(scenario, integrator=integrator, grid=grid, progress=progress)
+    else:
+        result = simulate(scenario, integrator=integrator, grid=grid)
+    out = Path(args.output) if args.output else Path(Path(args.scenario).stem + ".csv")
+    result.to_csv(out)
+    print(run_summary(result))
+    print(f"wrote {out} and {out.with_suffix('.json')}")
+    print(CAUTION)
+    return EXIT_OK
+
+
+def run_summary(result) -> str:
+    """The summary table that ``barrierflow run`` prints (output units of the scenario).
+
+    Per compartment Cmax, tmax and AUC over the run; per barrier the total permeated amount and
+    the peak flux; the mass-balance error; the run statistics and any warnings.
+    """
+    from barrierflow.units import unit_factor
+
+    s = result.scenario
+    u = s.output_units
+    mm = s.substance.molar_mass
+    fc = unit_factor("concentration", u.concentration, mm)
+    ft = unit_factor("time", u.time)
+    fa = unit_factor("amount", u.amount, mm)
+    farea = unit_factor("area", u.area)
+    m = result.metrics()
+    lines = [f"scenario: {s.name}", ""]
+    rows = [("compartment", f"Cmax [{u.concentration}]", f"tmax [{u.time}]",
+             f"AUC [{u.concentration}*{u.time}]")]
+    for c in m.compartments:
+        rows.append((c.id, _g(c.cmax * fc), _g(c.tmax * ft), _g(c.auc * fc * ft)))
+    lines += _table(rows)
+    if m.barriers:
+        lines.append("")
+        rows = [("barrier", f"permeated [{u.amount}/{u.area}]", f"peak flux [{u.amount}/({u.area}*{u.time})]",
+                 f"time of peak [{u.time}]")]
+        for b in m.barriers:
+            rows.append((b.id, _g(b.total_permeated * fa / farea), _g(b.peak_flux * fa / farea / ft),
+                         _g(b.time_of_peak_flux * ft)))
+        lines += _table(rows)
+    mb = result.mass_balance
+    st = result.stats
+    lines += ["", f"mass balance: relative error {mb.relative_error:.2e} (absolute {mb.absolute_error:.3g} mg)",
+              f"solver: {result.integrator}, {st.get('steps', 0)} steps, {st['wall_time_s']:.3g} s"]
+    for w in result.warnings():
+        lines.append(f"warning: {w}")
+    return "\n".join(lines)
+
+
+def _g(x: float) -> str:
+    return f"{x:.4g}"
+
+
+def _table(rows: list[tuple[str, ...]]) -> list[str]:
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    out = []
+    for k, r in enumerate(rows):
+        out.append("  ".join(v.ljust(w) if i == 0 else v.rjust(w) for i, (v, w) in enumerate(zip(r, widths))))
+        if k == 0:
+            out.append("  ".join("-" * w for w in widths))
+    return out
 
 
 # ---------------------------------------------------------------------------- steady

@@ -182,7 +182,8 @@ def _table(rows: list[tuple[str, ...]]) -> list[str]:
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     out = []
     for k, r in enumerate(rows):
-        out.append("  ".join(v.ljust(w) if i == 0 else v.rjust(w) for i, (v, w) in enumerate(zip(r, widths))))
+        cells = zip(r, widths, strict=True)
+        out.append("  ".join(v.ljust(w) if i == 0 else v.rjust(w) for i, (v, w) in enumerate(cells)))
         if k == 0:
             out.append("  ".join("-" * w for w in widths))
     return out

@@ -119,8 +119,8 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
         if spec is None:
             problems.append(Problem(key, "an unknown key", suggest(key, [s.key for s in specs])))
             continue
-        if spec.kind == "id":
-            raw_text[spec.attr] = repr(value)  # ids are quoted in messages, as the model checks show them
+        if spec.kind in ("id", "text"):
+            raw_text[spec.attr] = repr(value)  # quoted in messages, as the model's own checks show them
         else:
             raw_text[spec.attr] = value if isinstance(value, str) else str(value)
         if python and spec.kind in KINDS and finite(value):

@@ -367,14 +367,13 @@ class Result:
                 "smallest_cell_um": float(g.widths.min() * 1e4),
                 "largest_cell_um": float(g.widths.max() * 1e4),
             }
-        integ = getattr(self, "_integrator_options", None)
         doc: dict[str, Any] = {
             "caution": CAUTION,
             "software": {"name": "barrierflow", "version": __version__, "python": platform.python_version()},
             "created": datetime.now(UTC).isoformat(timespec="seconds"),
             "scenario": {"name": self.scenario.name, "file": self.scenario.source, "sha256": self.scenario.digest,
                          "toml": self.scenario.to_toml()},
-            "solver": {"integrator": tr.integrator, "options": integ, "status": tr.status, "message": tr.message,
+            "solver": {"integrator": tr.integrator, "options": tr.integrator_options, "status": tr.status, "message": tr.message,
                        "statistics": self.stats, "grid_defaults": dataclasses.asdict(tr.grid)},
             "grid": grid,
             "units": dataclasses.asdict(self.scenario.output_units),
@@ -406,8 +405,20 @@ class Result:
             path = Path(f"{stem}.csv")
         path = Path(path)
         atomic_write(path, self.csv_text())
-        atomic_write(path.with_suffix(".json"), json.dumps(self.sidecar(), indent=2, default=_json_default) + "\n")
+        side = json.dumps(_clean(self.sidecar()), indent=2, default=_json_default, allow_nan=False)
+        atomic_write(path.with_suffix(".json"), side + "\n")
         return path
+
+
+def _clean(x: Any) -> Any:
+    """Replace non-finite floats (not valid JSON) by their names, recursively."""
+    if isinstance(x, dict):
+        return {k: _clean(v) for k, v in x.items()}
+    if isinstance(x, list | tuple):
+        return [_clean(v) for v in x]
+    if isinstance(x, float | np.floating) and not math.isfinite(x):
+        return "inf" if x > 0 else "-inf" if x < 0 else "nan"
+    return x
 
 
 def _json_default(x: Any) -> Any:

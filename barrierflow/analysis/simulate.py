@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
 from collections.abc import Callable
 
 from ..engine import Grid, solve
@@ -42,7 +41,4 @@ def simulate(
     Result
     """
     traj = solve(scenario, integrator, grid, raise_on_failure=raise_on_failure, progress=progress)
-    result = Result(scenario, traj)
-    if integrator is not None and dataclasses.is_dataclass(integrator):
-        object.__setattr__(result, "_integrator_options", dataclasses.asdict(integrator))
-    return result
+    return Result(scenario, traj)

@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time as _time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -46,6 +47,8 @@ class Trajectory:
     integrator : str
     wall_time : float, s
     grid : Grid
+    integrator_options : dict
+        The integrator's settings (its dataclass fields), for the record.
     """
 
     model: CompiledModel
@@ -61,6 +64,7 @@ class Trajectory:
     integrator: str
     wall_time: float
     grid: Grid
+    integrator_options: dict = field(default_factory=dict)
 
 
 def _snap(times: np.ndarray, marks: np.ndarray, tol: float) -> np.ndarray:
@@ -131,7 +135,8 @@ def solve(
         result = integrator.solve_schedule(model, events, times, duration, stats, progress)
         states, ev_dosed, ev_removed, status, message = result
         return Trajectory(model, times, states, ev_dosed, ev_removed, _present(model, model.y0), tuple(events),
-                          stats.as_dict(), status, message, integrator.name, _time.perf_counter() - start_clock, grid)
+                          stats.as_dict(), status, message, integrator.name, _time.perf_counter() - start_clock, grid,
+                          _options(integrator))
 
     y = model.y0.copy()
     initial = _present(model, y)
@@ -211,7 +216,11 @@ def solve(
     if status != 0:
         times, states, ev_dosed, ev_removed = times[:row], states[:row], ev_dosed[:row], ev_removed[:row]
     return Trajectory(model, times, states, ev_dosed, ev_removed, initial, tuple(events), stats.as_dict(),
-                      status, message, integrator.name, _time.perf_counter() - start_clock, grid)
+                      status, message, integrator.name, _time.perf_counter() - start_clock, grid, _options(integrator))
+
+
+def _options(integrator) -> dict:
+    return dataclasses.asdict(integrator) if dataclasses.is_dataclass(integrator) else {}
 
 
 def _busiest_part(model: CompiledModel, y: np.ndarray) -> str:

@@ -1,0 +1,48 @@
+"""Numerical failure is reported, not hidden: SolverError by default, a partial result on request."""
+
+from __future__ import annotations
+
+import pytest
+
+import barrierflow as bf
+from barrierflow import Compartment, Dose, Scenario, SolverError
+from barrierflow.engine import ScipyIntegrator
+
+
+class FailingAfter(ScipyIntegrator):
+    """A real BDF integrator that fails in the second dosing interval (to exercise the reporting)."""
+
+    def integrate(self, problem, y0, t_end, t_out, stats):
+        if stats.intervals >= 1:
+            raise SolverError("step size collapsed (injected)", time=0.5)
+        return super().integrate(problem, y0, t_end, t_out, stats)
+
+
+def scenario():
+    return Scenario(name="failure (invented)", duration=10.0, output_step=0.5,
+                    compartments=(Compartment("plasma", volume=1000.0, clearance=100.0),),
+                    doses=(Dose("plasma", "bolus", at=0.0, amount=10.0, every=4.0),))
+
+
+def test_failure_raises_with_where_and_what():
+    with pytest.raises(SolverError) as info:
+        bf.simulate(scenario(), integrator=FailingAfter())
+    msg = str(info.value)
+    assert "t = 4.5 h" in msg and "dosing interval 2" in msg and "compartment 'plasma'" in msg
+    assert "Try a tighter tolerance" in msg
+    assert info.value.time == pytest.approx(4.5)
+
+
+def test_failure_can_return_the_partial_result():
+    r = bf.simulate(scenario(), integrator=FailingAfter(), raise_on_failure=False)
+    assert r.status == -1
+    assert r.times[-1] < 4.0 and len(r.times) == 8
+    assert "failed" in r.message
+
+
+def test_bad_integrator_option_is_refused():
+    with pytest.raises(bf.ScenarioError, match="integrator rtol: got 2; must be a number between 0 and 1"):
+        ScipyIntegrator(rtol=2)
+    with pytest.raises(bf.ScenarioError, match="integrator: got 'euler'"):
+        from barrierflow.engine import integrator_from_name
+        integrator_from_name("euler")

@@ -30,10 +30,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-
-import pint
+from functools import cache
+from typing import TYPE_CHECKING, Any
 
 from .errors import UnitsError
+
+if TYPE_CHECKING:
+    import pint
 
 __all__ = [
     "INTERNAL_UNITS",
@@ -41,12 +44,27 @@ __all__ = [
     "convert",
     "format_quantity",
     "parse_quantity",
-    "registry",
+    "get_registry",
     "unit_factor",
 ]
 
-registry = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
-"""The single pint registry of the package. Do not create another one."""
+
+@cache
+def get_registry() -> pint.UnitRegistry:
+    """The single pint registry of the package, created on first use. Do not create another one.
+
+    It is made lazily so that ``import barrierflow`` stays fast (pint takes a few tenths of a
+    second to load its definitions); ``barrierflow.units.registry`` is the same object.
+    """
+    import pint
+
+    return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+
+
+def __getattr__(name: str) -> Any:
+    if name == "registry":
+        return get_registry()
+    raise AttributeError(f"module 'barrierflow.units' has no attribute {name!r}")
 
 
 @dataclass(frozen=True)
@@ -74,8 +92,13 @@ KINDS: dict[str, _Kind] = {
 INTERNAL_UNITS: dict[str, str] = {k: v.internal for k, v in KINDS.items()}
 """Internal unit of each kind of quantity."""
 
-_DIM = {k: registry.parse_units(v.internal).dimensionality for k, v in KINDS.items()}
-_MOLAR_DIM = {k: registry.parse_units(v.molar).dimensionality for k, v in KINDS.items() if v.molar}
+@cache
+def _dims() -> tuple[dict[str, Any], dict[str, Any]]:
+    """Dimensionality of each kind, and of its molar form where it has one."""
+    reg = get_registry()
+    plain = {k: reg.parse_units(v.internal).dimensionality for k, v in KINDS.items()}
+    molar = {k: reg.parse_units(v.molar).dimensionality for k, v in KINDS.items() if v.molar}
+    return plain, molar
 
 
 def _expected(kind: str) -> str:
@@ -92,10 +115,10 @@ def _quantity(text: object, kind: str, field: str) -> pint.Quantity:
         raise UnitsError(text, f"expected {_expected(kind)}", field)
     stripped = text.strip()
     try:
-        q = registry.Quantity(stripped.replace("µ", "u").replace("μ", "u"))
+        q = get_registry().Quantity(stripped.replace("µ", "u").replace("μ", "u"))
     except Exception:  # pint raises several types for unparsable text
         raise UnitsError(text, f"cannot read this unit; expected {_expected(kind)}", field) from None
-    if not isinstance(q, pint.Quantity) or q.dimensionless:
+    if not isinstance(q, get_registry().Quantity) or q.dimensionless:
         raise UnitsError(text, f"the unit is missing; expected {_expected(kind)}", field)
     if not isinstance(q.magnitude, (int, float)) or not math.isfinite(float(q.magnitude)):
         raise UnitsError(text, "must be a finite number with its unit", field)
@@ -137,9 +160,10 @@ def parse_quantity(text: object, kind: str, field: str = "", molar_mass: float |
     """
     q = _quantity(text, kind, field)
     dim = q.dimensionality
-    if dim == _DIM[kind]:
+    plain, molar = _dims()
+    if dim == plain[kind]:
         value = float(q.to(KINDS[kind].internal).magnitude)
-    elif kind in _MOLAR_DIM and dim == _MOLAR_DIM[kind]:
+    elif kind in molar and dim == molar[kind]:
         if molar_mass is None:
             raise UnitsError(
                 text, "a molar unit needs the substance's molar_mass in [substance]; "

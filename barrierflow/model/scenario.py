@@ -9,14 +9,15 @@ import re
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from functools import cached_property
-from typing import Any
-
-import networkx as nx
+from typing import TYPE_CHECKING, Any
 
 from ..errors import Problem, ScenarioError, UnitsError
 from ..units import parse_quantity
 from ._fields import finite
 from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Substance, Transfer
+
+if TYPE_CHECKING:
+    import networkx as nx
 
 __all__ = ["MAX_TOTAL_CELLS", "Scenario", "network_problems"]
 
@@ -175,6 +176,8 @@ class Scenario:
 
         See :meth:`from_graph` for building a scenario from such a graph.
         """
+        import networkx as nx  # imported on first use: it adds a tenth of a second to start-up
+
         g = nx.MultiDiGraph(name=self.name, substance=self.substance)
         for c in self.compartments:
             g.add_node(c.id, compartment=c)
@@ -218,6 +221,8 @@ class Scenario:
 
     def components(self) -> list[list[str]]:
         """Compartment ids of each connected part of the network (more than one is allowed)."""
+        import networkx as nx
+
         return [sorted(part) for part in nx.weakly_connected_components(self.graph)]
 
     def summary(self) -> str:

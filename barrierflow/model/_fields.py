@@ -52,6 +52,11 @@ def suggest(key: str, known: list[str]) -> str:
     return f"{hint}known keys here: {', '.join(known)}"
 
 
+def _quoted(raw: Any) -> Any:
+    """A text value shown in quotes, so that ``"5"`` where 5 was meant is seen for what it is."""
+    return f'"{raw}"' if isinstance(raw, str) else raw
+
+
 def parse_value(raw: Any, spec: FieldSpec, molar_mass: float | None) -> Any:
     """Parse one raw value (from TOML or a keyword attribute) according to its spec.
 
@@ -63,13 +68,13 @@ def parse_value(raw: Any, spec: FieldSpec, molar_mass: float | None) -> Any:
         return parse_quantity(raw, kind, spec.key, molar_mass=molar_mass)
     if kind == "number":
         if isinstance(raw, bool) or not isinstance(raw, (int, float)):
-            raise UnitsError(raw, "expected a bare number such as 10 (no unit)", spec.key)
+            raise UnitsError(_quoted(raw), "expected a bare number such as 10 (no unit, no quotes)", spec.key)
         if not math.isfinite(raw):
             raise UnitsError(raw, "must be a finite number", spec.key)
         return float(raw)
     if kind == "count":
         if isinstance(raw, bool) or not isinstance(raw, int):
-            raise UnitsError(raw, "expected a whole number such as 40", spec.key)
+            raise UnitsError(_quoted(raw), "expected a whole number such as 40 (no quotes)", spec.key)
         return int(raw)
     if kind in ("text", "id"):
         if not isinstance(raw, str):

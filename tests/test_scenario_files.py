@@ -296,6 +296,23 @@ PINNED = {
     "missing required key": (
         ('  diffusivity = "1e-6 cm^2/s"\n', ''),
         "patch.toml: barrier 'skin' layer 2 diffusivity: got nothing; this key is required, such as '1e-9 cm^2/s'"),
+    "quoted number where a bare number is meant": (
+        ('partition = 10', 'partition = "10"'),
+        "patch.toml: barrier 'skin' layer 1 partition: got \"10\"; expected a bare number such as 10 "
+        "(no unit, no quotes)"),
+    "negative partition coefficient": (
+        ('partition = 10', 'partition = -10'),
+        "patch.toml: barrier 'skin' layer 1 partition: got -10; must be > 0"),
+    "negative time of a dose": (
+        ('at = "12 h"', 'at = "-1 h"'),
+        "patch.toml: dose 1 at: got -1 h; must be >= 0"),
+    "output times that do not increase": (
+        ('output_step = "1 h"', 'output_times = ["0 h", "2 h", "1 h"]'),
+        "patch.toml: scenario output_times[2]: got 1 h; times must increase"),
+    "output unit of the wrong kind": (
+        ('[[dose]]', '[output]\nconcentration = "mg"\n\n[[dose]]'),
+        "patch.toml: output concentration: got mg; wrong kind of unit (mg); expected a concentration "
+        "(mass per volume) unit, such as '20 mg/mL'"),
     "bad id": (
         ('id = "body"', 'id = "2body"'),
         "patch.toml: compartment '2body' id: got '2body'; an id starts with a letter and holds only letters, "

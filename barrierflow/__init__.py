@@ -34,11 +34,12 @@ from .model import (
 __version__ = "0.1.0"
 
 _LAZY = {
-    # name -> module that defines it (imported on first access: the engine imports numba)
+    # name -> module that defines it, or "module:attribute" (imported on first access: the
+    # engine imports numba)
     "simulate": "barrierflow.analysis",
     "Result": "barrierflow.analysis",
-    "steady_state": "barrierflow.analysis",
-    "metrics": "barrierflow.analysis",
+    "steady_state": "barrierflow.analysis.steady",
+    "metrics": "barrierflow.analysis.metrics:compute_metrics",
 }
 
 __all__ = [
@@ -71,7 +72,8 @@ def __getattr__(name: str) -> Any:
     if name in _LAZY:
         import importlib
 
-        value = getattr(importlib.import_module(_LAZY[name]), name)
+        module, _, attr = _LAZY[name].partition(":")
+        value = getattr(importlib.import_module(module), attr or name)
         globals()[name] = value
         return value
     raise AttributeError(f"module 'barrierflow' has no attribute {name!r}")

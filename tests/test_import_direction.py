@@ -132,3 +132,18 @@ def test_importing_every_library_module_loads_no_dashboard_code():
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120, cwd=ROOT)
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip() == "[]"
+
+
+def test_every_public_name_resolves():
+    # barrierflow.__all__ is the public API; the lazy names (simulate, Result, ...) must resolve too
+    code = (
+        "import barrierflow, sys\n"
+        "fast = 'numba' not in sys.modules\n"
+        "from barrierflow import *\n"
+        "missing = [n for n in barrierflow.__all__ if getattr(barrierflow, n, None) is None]\n"
+        "print(fast, missing)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120, cwd=ROOT)
+    assert done.returncode == 0, done.stderr
+    # `import barrierflow` alone does not load the numerics (numba): they load on first use
+    assert done.stdout.strip() == "True []"

@@ -105,6 +105,12 @@ def _add_run(p: argparse.ArgumentParser) -> None:
                         "(a whole number; default: the engine's grid, refined toward interfaces)")
     p.add_argument("--no-progress", action="store_true",
                    help="do not show the progress bar (default: shown on a terminal)")
+    p.add_argument("--metrics", metavar="OUT.csv", default=None,
+                   help="also write the metrics table (columns kind, id, metric, value, unit; values in the "
+                        "scenario's [output] units) to this CSV (default: not written)")
+    p.add_argument("--threshold", metavar="CONC", default=None,
+                   help="concentration with its unit, such as '0.5 mg/L', for the time above threshold of "
+                        "every compartment (default: not computed)")
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
@@ -115,6 +121,11 @@ def _cmd_run(args: argparse.Namespace) -> int:
     from barrierflow.engine import Grid, integrator_from_name
 
     scenario = barrierflow.load(args.scenario)
+    threshold = None
+    if args.threshold is not None:
+        from barrierflow.units import parse_quantity
+
+        threshold = parse_quantity(args.threshold, "concentration", "--threshold", scenario.substance.molar_mass)
     integrator = integrator_from_name(args.integrator) if args.integrator else None
     grid = Grid(cells_per_layer=args.cells) if args.cells else None
     show_bar = not args.no_progress and sys.stderr.isatty()
@@ -132,6 +143,15 @@ def _cmd_run(args: argparse.Namespace) -> int:
     result.to_csv(out)
     print(run_summary(result))
     print(f"wrote {out} and {out.with_suffix('.json')}")
+    if args.metrics or threshold is not None:
+        metrics = result.metrics(threshold=threshold)
+        if threshold is not None:
+            print("\n" + metrics.to_text())
+        if args.metrics:
+            from barrierflow.io import atomic_write
+
+            atomic_write(args.metrics, metrics.to_csv())
+            print(f"wrote {args.metrics}")
     print(CAUTION)
     return EXIT_OK
 
@@ -199,13 +219,34 @@ def _add_steady(p: argparse.ArgumentParser) -> None:
                         "(default: a table)")
     p.add_argument("--profile", metavar="OUT.csv", default=None,
                    help="also write the steady concentration profile through the layers of every "
-                        "barrier to this CSV (position in cm, concentration in mg/mL; default: not written)")
+                        "barrier to this CSV (columns barrier, layer, x [um], conc [mg/mL]; each interface "
+                        "appears twice, once on each side, so the partition jump shows; default: not written)")
 
 
 def _cmd_steady(args: argparse.Namespace) -> int:
-    """Steady state of every barrier between a held source and a perfect sink."""
-    print("barrierflow steady: not available yet", file=sys.stderr)
-    return EXIT_INTERNAL
+    """Steady state of every barrier between a held source and a perfect sink.
+
+    Prints a table (or, with ``--json``, the object of the command-line contract: ``barriers``
+    mapping each id to its permeability, steady flux, lag time, resistance per layer and more)
+    and writes the profile CSV with ``--profile``.
+    """
+    import json
+
+    from barrierflow.analysis.steady import steady_state
+    from barrierflow.io import atomic_write
+
+    scenario = barrierflow.load(args.scenario)
+    report = steady_state(scenario)
+    if args.profile:
+        atomic_write(args.profile, report.profile_csv())
+    if args.json:
+        print(json.dumps(report.as_dict(), indent=2, allow_nan=False))
+        return EXIT_OK
+    print(report.to_text())
+    if args.profile:
+        print(f"\nwrote {args.profile}")
+    print(CAUTION)
+    return EXIT_OK
 
 
 # ---------------------------------------------------------------------------- serve

@@ -321,3 +321,38 @@ def test_application_times_from_scenario():
         doses=(Dose("patch", "replace", at=24.0, concentration=5.0, every=24.0, count=2),
                Dose("patch", "remove", at=70.0)))
     assert application_times(sc) == (0.0, 24.0, 48.0)
+
+
+def test_cli_run_writes_the_metrics_csv(tmp_path, capsys):
+    from barrierflow.cli import main
+
+    scen = tmp_path / "iv.toml"
+    scen.write_text("""
+[scenario]
+name = "IV bolus, one compartment (invented)"
+duration = "48 h"
+output_step = "15 min"
+[[compartment]]
+id = "plasma"
+volume = "10 L"
+clearance = "2 L/h"
+[[dose]]
+target = "plasma"
+kind = "bolus"
+amount = "100 mg"
+at = "0 h"
+""")
+    out, met = tmp_path / "iv.csv", tmp_path / "iv-metrics.csv"
+    assert main(["run", str(scen), "-o", str(out), "--metrics", str(met), "--threshold", "2 mg/L",
+                 "--no-progress"]) == 0
+    printed = capsys.readouterr().out
+    assert "AUCinf" in printed
+    parsed = list(csv.reader(io.StringIO(met.read_text())))
+    assert tuple(parsed[0]) == CSV_COLUMNS
+    rows = {(r[1], r[2]): r for r in parsed[1:]}
+    auc_inf = rows[("plasma", "auc_inf")]
+    assert auc_inf[4] == "mg/L*h" and close(float(auc_inf[3]), 50.0, 1e-5)      # Dose/CL = 100 mg / 2 L/h
+    # time above 2 mg/L: C0 = 10 mg/L, k = 0.2 1/h: ln(5)/0.2 = 8.047 h
+    assert close(float(rows[("plasma", "time_above")][3]), math.log(5) / 0.2, 1e-3)
+    side = json.loads(out.with_suffix(".json").read_text())
+    assert close(side["metrics"]["compartments"]["plasma"]["auc_inf"], 0.05, 1e-5)

@@ -433,3 +433,63 @@ def test_lag_time_against_a_long_engine_run(layers):
     s = barrier_steady(b, 1.0, 1.0)
     assert close(flux_sim, s.steady_flux, 1e-5)
     assert close(lag_sim, s.lag_time, 1e-3)
+
+
+# ----------------------------------------------------------------------------- command line
+@pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_cli_steady_json_prints_the_contract_keys(path, capsys):
+    from barrierflow.cli import main
+
+    assert main(["steady", str(path), "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    sc = barrierflow.load(path)
+    assert set(doc["barriers"]) == {b.id for b in sc.barriers}
+    for entry in doc["barriers"].values():
+        assert {"permeability_cm_per_h", "steady_flux_mg_per_cm2_per_h", "lag_time_h",
+                "resistance_h_per_cm"} <= set(entry)
+
+
+def test_cli_steady_table_and_profile(tmp_path, capsys):
+    from barrierflow.cli import main
+
+    scen = tmp_path / "two.toml"
+    scen.write_text("""
+[scenario]
+name = "two layers (invented)"
+duration = "24 h"
+[[compartment]]
+id = "donor"
+held_concentration = "2 mg/mL"
+[[compartment]]
+id = "receptor"
+held_concentration = "0 mg/mL"
+[[barrier]]
+id = "skin"
+from = "donor"
+to = "receptor"
+area = "1 cm^2"
+  [[barrier.layer]]
+  thickness = "15 um"
+  diffusivity = "1e-9 cm^2/s"
+  partition = 10
+  [[barrier.layer]]
+  thickness = "50 um"
+  diffusivity = "2e-8 cm^2/s"
+  partition = 1
+""")
+    out = tmp_path / "profile.csv"
+    assert main(["steady", str(scen), "--profile", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "permeability" in text and "0.018 mg/(cm^2*h)" in text and "research estimates" in text
+    rows = list(csv.reader(io.StringIO(out.read_text())))
+    assert tuple(rows[0]) == PROFILE_COLUMNS
+    at15 = [r for r in rows[1:] if float(r[2]) == 15.0]
+    assert [r[1] for r in at15] == ["1", "2"]
+    assert close(float(at15[0][3]), 12.5, 1e-9) and close(float(at15[1][3]), 1.25, 1e-9)
+
+
+def test_cli_steady_refuses_a_missing_file(tmp_path, capsys):
+    from barrierflow.cli import main
+
+    assert main(["steady", str(tmp_path / "nope.toml")]) == 2
+    assert "nope.toml" in capsys.readouterr().err

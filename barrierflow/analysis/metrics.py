@@ -79,6 +79,8 @@ STEADY_STATE_TOLERANCE = 0.05
 """Last two intervals' AUC within this fraction of the last: steady state reached."""
 LAG_TOLERANCE = 0.02
 """Time-lag window: flux within this fraction of the peak flux of the first interval."""
+PEAK_TOLERANCE = 1e-6
+"""Peak flux time: the first output time where the flux is within this fraction of its peak."""
 ADJ_R2_TOLERANCE = 1e-8
 """Terminal fit: adjusted R^2 within this of the best counts as equally good (more points win).
 
@@ -596,6 +598,7 @@ class BarrierMetrics:
     peak_flux : float, mg/(cm^2 h)
         Highest flux into ``to``.
     peak_flux_time : float, h
+        First time the flux comes within 1e-6 of the peak (:data:`PEAK_TOLERANCE`).
     permeated : float, mg/cm^2
         Net cumulative amount per area that entered ``to``, at the end.
     permeated_amount : float, mg
@@ -632,6 +635,17 @@ class BarrierMetrics:
     fraction_absorbed: float
     content: float
     content_fraction: float
+
+
+    @property
+    def total_permeated(self) -> float:
+        """Alias of :attr:`permeated`, mg/cm^2."""
+        return self.permeated
+
+    @property
+    def time_of_peak_flux(self) -> float:
+        """Alias of :attr:`peak_flux_time`, h."""
+        return self.peak_flux_time
 
 
 # unit kinds of every field, for the rows in output units
@@ -952,7 +966,9 @@ def barrier_metrics(
     BarrierMetrics
     """
     t, j, q, m = _asarray(t), _asarray(flux), _asarray(permeated), _asarray(content)
-    k = int(np.argmax(j))
+    # the first time the flux comes within PEAK_TOLERANCE of its peak (a plateau has no single top)
+    top = float(np.max(j))
+    k = int(np.nonzero(j >= top - PEAK_TOLERANCE * abs(top))[0][0])
     apps = sorted(x for x in applications if x <= t[-1])
     origin = apps[0] if apps else float(t[0])
     nxt = apps[1] if len(apps) > 1 else None
@@ -960,7 +976,7 @@ def barrier_metrics(
     perm_amount = float(q[-1]) * area
     finite = math.isfinite(applied) and applied > 0
     return BarrierMetrics(
-        id=bid, peak_flux=float(j[k]), peak_flux_time=float(t[k]), permeated=float(q[-1]),
+        id=bid, peak_flux=top, peak_flux_time=float(t[k]), permeated=float(q[-1]),
         permeated_amount=perm_amount, lag_time=fit.lag_time, steady_flux=fit.steady_flux,
         lag_window=fit.window, lag_points=fit.points, lag_r2=fit.r2, applied=float(applied),
         fraction_absorbed=perm_amount / applied if finite else NAN, content=float(m[-1]),

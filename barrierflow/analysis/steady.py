@@ -53,7 +53,7 @@ import csv
 import io
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -267,6 +267,41 @@ class SteadyReport:
             "disclaimer": DISCLAIMER,
         }
 
+    def to_text(self) -> str:
+        """A printed report (what ``barrierflow steady`` shows without ``--json``)."""
+        if not self.barriers:
+            return f"scenario: {self.scenario_name}\nno barriers: nothing to report"
+        lines = [f"scenario: {self.scenario_name}",
+                 "each barrier alone: held source at the 'from' compartment's starting concentration, "
+                 "perfect sink on the 'to' side"]
+        for b in self.barriers:
+            lines += ["", f"barrier '{b.barrier_id}' ({b.from_id} -> {b.to_id}, area {b.area:.4g} cm^2, "
+                          f"source {b.c_from:.4g} mg/mL, model {b.model})"]
+            items = [
+                ("permeability", f"{b.permeability:.4g} cm/h"),
+                ("steady flux", f"{b.steady_flux:.4g} mg/(cm^2*h)  ({b.steady_flux * b.area:.4g} mg/h over the area)"),
+                ("lag time", f"{b.lag_time:.4g} h"),
+                ("burst time", "-" if b.burst_time is None else f"{b.burst_time:.4g} h"),
+                ("total resistance", f"{b.resistance:.4g} h/cm"),
+                ("steady content", f"{b.content:.4g} mg/cm^2"),
+            ]
+            if b.degrades:
+                items.insert(2, ("fraction through", f"{b.fraction_through:.4g} (the rest degrades in the layers)"))
+            width = max(len(k) for k, _ in items)
+            lines += [f"  {k.ljust(width)}  {v}" for k, v in items]
+            rows = [("layer", "name", "thickness [um]", "resistance [h/cm]", "share", "C in [mg/mL]",
+                     "C out [mg/mL]")]
+            for i, ly in enumerate(b.layers, start=1):
+                share = ly.resistance / b.resistance if b.resistance > 0 else float("nan")
+                rows.append((str(i), ly.name or "-", f"{ly.thickness / _CM_PER_UM:.4g}", f"{ly.resistance:.4g}",
+                             f"{share:.1%}", f"{ly.conc_in:.4g}", f"{ly.conc_out:.4g}"))
+            widths = [max(len(r[k]) for r in rows) for k in range(len(rows[0]))]
+            for r in rows:
+                cells = [v.ljust(w) if k < 2 else v.rjust(w) for k, (v, w) in enumerate(zip(r, widths, strict=True))]
+                lines.append("  " + "  ".join(cells).rstrip())
+            lines += [f"  note: {n}" for n in b.notes]
+        return "\n".join(lines)
+
     def profile_rows(self) -> list[tuple[str, int, float, float]]:
         """Rows ``(barrier, layer, x [um], conc [mg/mL])``; layers numbered from 1."""
         rows = []
@@ -282,7 +317,7 @@ class SteadyReport:
         w = csv.writer(buf, lineterminator="\n")
         w.writerow(PROFILE_COLUMNS)
         for bid, layer, x, c in self.profile_rows():
-            w.writerow((bid, layer, repr(float(x)), repr(float(c))))
+            w.writerow((bid, layer, format(float(x), ".12g"), format(float(c), ".12g")))
         return buf.getvalue()
 
 
@@ -561,6 +596,15 @@ def steady_state(scenario: Scenario, *, points_per_layer: int = 21) -> SteadyRep
     for b in scenario.barriers:
         src = scenario.compartment(b.from_id)
         dst = scenario.compartment(b.to_id)
-        out.append(barrier_steady(b, src.starting_concentration, src.partition, 0.0, dst.partition,
-                                  points_per_layer=points_per_layer))
+        s = barrier_steady(b, src.starting_concentration, src.partition, 0.0, dst.partition,
+                           points_per_layer=points_per_layer)
+        if src.starting_concentration == 0.0:
+            held = [(i, d.concentration) for i, d in enumerate(scenario.doses, start=1)
+                    if d.target == b.from_id and d.concentration]
+            if held:
+                i, conc = max(held, key=lambda x: x[1])
+                note = (f"at the {conc:.4g} mg/mL that dose {i} gives '{b.from_id}', the steady flux would be "
+                        f"{s.permeability * conc:.4g} mg/(cm^2*h)")
+                s = replace(s, notes=s.notes + (note,))
+        out.append(s)
     return SteadyReport(scenario.name, tuple(out))

@@ -215,7 +215,13 @@ def unit_factor(kind: str, unit: str, molar_mass: float | None = None) -> float:
     UnitsError
         If the unit is not of that kind.
     """
-    per_internal = parse_quantity(f"1 {unit}", kind, field=f"unit {unit!r}", molar_mass=molar_mass)
+    field = f"unit {unit!r}"
+    q = _quantity(f"1 {unit}", kind, field)
+    if q.magnitude != 1:  # "2 mg" or "0 mg" is a quantity, not a unit
+        k = KINDS[kind]
+        raise UnitsError(unit, f"a unit without a number is expected; {k.description} unit, such as '{k.internal}'",
+                         field)
+    per_internal = parse_quantity(f"1 {unit}", kind, field=field, molar_mass=molar_mass)
     return 1.0 / per_internal
 
 

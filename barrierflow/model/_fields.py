@@ -7,6 +7,7 @@ the same objects and the same error messages.
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import math
 from collections.abc import Mapping
@@ -143,6 +144,15 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
             example = f", such as '{KINDS[spec.kind].example}'" if spec.kind in KINDS else ""
             problems.append(Problem(spec.key, "nothing", f"this key is required{example}"))
     failed = {p.field for p in problems}
+    # constructor arguments without a default (an exchange's id, say) that are still missing
+    key_of_attr = {s.attr: s.key for s in specs}
+    for f in dataclasses.fields(cls):
+        if (f.init and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
+                and f.name not in values and key_of_attr.get(f.name, f.name) not in failed):
+            problems.append(Problem(key_of_attr.get(f.name, f.name), "nothing", "this key is required"))
+    if problems and any(f.init and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
+                        and f.name not in values for f in dataclasses.fields(cls)):
+        raise ScenarioError(problems)
     if problems and any(s.required and s.attr not in values for s in specs):
         raise ScenarioError(problems)
     try:

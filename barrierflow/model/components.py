@@ -545,14 +545,16 @@ class OutputUnits:
     def check(self, molar_mass: float | None) -> list[Problem]:
         """Problems with these units (wrong dimension, molar unit without molar mass)."""
         from ..errors import UnitsError
-        from ..units import unit_factor
+        from ..units import KINDS, unit_factor
         problems = []
         for attr, kind in self.KIND_OF.items():
             unit = getattr(self, attr)
             try:
                 unit_factor(kind, unit, molar_mass)
             except UnitsError as err:
-                problems.append(Problem(attr, unit, err.expected.replace("with its unit, such as", "unit, such as")))
+                k = KINDS[kind]
+                expected = err.expected.replace("with its unit, such as", "unit, such as")
+                problems.append(Problem(attr, unit, expected.replace(f"'{k.example}'", f"'{k.internal}'")))
         return problems
 
     @classmethod

@@ -312,7 +312,14 @@ PINNED = {
     "output unit of the wrong kind": (
         ('[[dose]]', '[output]\nconcentration = "mg"\n\n[[dose]]'),
         "patch.toml: output concentration: got mg; wrong kind of unit (mg); expected a concentration "
-        "(mass per volume) unit, such as '20 mg/mL'"),
+        "(mass per volume) unit, such as 'mg/mL'"),
+    "output unit with a number": (
+        ('[[dose]]', '[output]\namount = "2 mg"\n\n[[dose]]'),
+        "patch.toml: output amount: got 2 mg; a unit without a number is expected; an amount (mass) unit, "
+        "such as 'mg'"),
+    "exchange id that is not text": (
+        ('id = "flow"', 'id = 5'),
+        "patch.toml: exchange 1 id: got 5; expected text in quotes"),
     "bad id": (
         ('id = "body"', 'id = "2body"'),
         "patch.toml: compartment '2body' id: got '2body'; an id starts with a letter and holds only letters, "

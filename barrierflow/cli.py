@@ -262,11 +262,31 @@ def _add_serve(p: argparse.ArgumentParser) -> None:
 def _cmd_serve(args: argparse.Namespace) -> int:
     """Start the dashboard, with the scenario opened if one is named.
 
-    The dashboard package sits above the CLI in the import layers, so it is to be imported
-    here with :func:`importlib.import_module`, never by a module-level import.
+    The dashboard package sits above the CLI in the import layers, so it is imported here with
+    :func:`importlib.import_module`, never by a module-level import. A scenario file that cannot
+    be loaded is refused (status 2) before the server starts.
     """
-    print("barrierflow serve: not available yet", file=sys.stderr)
-    return EXIT_INTERNAL
+    import importlib
+
+    scenario = None
+    if args.scenario is not None:
+        try:
+            scenario = barrierflow.load(args.scenario)
+        except (ScenarioError, UnitsError) as err:
+            _report_refusal(err)
+            return EXIT_REFUSED
+    try:
+        dashboard = importlib.import_module("dashboard")
+    except ImportError as err:
+        print(f"barrierflow serve: the dashboard needs its extras ({err}); install them with "
+              "pip install 'barrierflow[dashboard]'", file=sys.stderr)
+        return EXIT_INTERNAL
+    app = dashboard.create_app(scenario)
+    opened = f" with {args.scenario}" if args.scenario else ""
+    print(f"barrierflow dashboard{opened}: open http://{args.host}:{args.port}/ in a browser (Ctrl+C stops it)")
+    print(CAUTION)
+    app.run(host=args.host, port=args.port, debug=False)
+    return EXIT_OK
 
 
 # ---------------------------------------------------------------------------- the table

@@ -141,73 +141,36 @@ def _cmd_run(args: argparse.Namespace) -> int:
         result = simulate(scenario, integrator=integrator, grid=grid)
     out = Path(args.output) if args.output else Path(Path(args.scenario).stem + ".csv")
     result.to_csv(out)
-    print(run_summary(result))
+    print(run_summary(result, threshold))
     print(f"wrote {out} and {out.with_suffix('.json')}")
-    if args.metrics or threshold is not None:
-        metrics = result.metrics(threshold=threshold)
-        if threshold is not None:
-            print("\n" + metrics.to_text())
-        if args.metrics:
-            from barrierflow.io import atomic_write
+    if args.metrics:
+        from barrierflow.io import atomic_write
 
-            atomic_write(args.metrics, metrics.to_csv())
-            print(f"wrote {args.metrics}")
+        atomic_write(args.metrics, result.metrics(threshold=threshold).to_csv())
+        print(f"wrote {args.metrics}")
     print(CAUTION)
     return EXIT_OK
 
 
-def run_summary(result) -> str:
-    """The summary table that ``barrierflow run`` prints (output units of the scenario).
+def run_summary(result, threshold: float | None = None) -> str:
+    """The summary that ``barrierflow run`` prints, in the scenario's output units.
 
-    Per compartment Cmax, tmax and AUC over the run; per barrier the total permeated amount and
-    the peak flux; the mass-balance error; the run statistics and any warnings.
+    The metrics table (per compartment Cmax, tmax, AUC and the rest; per barrier peak flux,
+    total permeated, lag time, ...), the mass-balance error, the run statistics and every warning.
+
+    Parameters
+    ----------
+    result : Result
+    threshold : float or None, mg/mL
+        Concentration for the time-above-threshold column.
     """
-    from barrierflow.units import unit_factor
-
-    s = result.scenario
-    u = s.output_units
-    mm = s.substance.molar_mass
-    fc = unit_factor("concentration", u.concentration, mm)
-    ft = unit_factor("time", u.time)
-    fa = unit_factor("amount", u.amount, mm)
-    farea = unit_factor("area", u.area)
-    m = result.metrics()
-    lines = [f"scenario: {s.name}", ""]
-    rows = [("compartment", f"Cmax [{u.concentration}]", f"tmax [{u.time}]",
-             f"AUC [{u.concentration}*{u.time}]")]
-    for c in m.compartments:
-        rows.append((c.id, _g(c.cmax * fc), _g(c.tmax * ft), _g(c.auc * fc * ft)))
-    lines += _table(rows)
-    if m.barriers:
-        lines.append("")
-        rows = [("barrier", f"permeated [{u.amount}/{u.area}]", f"peak flux [{u.amount}/({u.area}*{u.time})]",
-                 f"time of peak [{u.time}]")]
-        for b in m.barriers:
-            rows.append((b.id, _g(b.total_permeated * fa / farea), _g(b.peak_flux * fa / farea / ft),
-                         _g(b.time_of_peak_flux * ft)))
-        lines += _table(rows)
     mb = result.mass_balance
     st = result.stats
-    lines += ["", f"mass balance: relative error {mb.relative_error:.2e} (absolute {mb.absolute_error:.3g} mg)",
-              f"solver: {result.integrator}, {st.get('steps', 0)} steps, {st['wall_time_s']:.3g} s"]
-    for w in result.warnings():
-        lines.append(f"warning: {w}")
+    lines = [f"scenario: {result.scenario.name}", "", result.metrics(threshold=threshold).to_text(), "",
+             f"mass balance: relative error {mb.relative_error:.2e} (absolute {mb.absolute_error:.3g} mg)",
+             f"solver: {result.integrator}, {st.get('steps', 0)} steps, {st['wall_time_s']:.3g} s"]
+    lines += [f"warning: {w}" for w in result.warnings()]
     return "\n".join(lines)
-
-
-def _g(x: float) -> str:
-    return f"{x:.4g}"
-
-
-def _table(rows: list[tuple[str, ...]]) -> list[str]:
-    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
-    out = []
-    for k, r in enumerate(rows):
-        cells = zip(r, widths, strict=True)
-        out.append("  ".join(v.ljust(w) if i == 0 else v.rjust(w) for i, (v, w) in enumerate(cells)))
-        if k == 0:
-            out.append("  ".join("-" * w for w in widths))
-    return out
 
 
 # ---------------------------------------------------------------------------- steady

@@ -1,6 +1,27 @@
 """Analysis of scenarios and results: simulation results, steady states, metrics, warnings."""
 
+from .metrics import BarrierMetrics, CompartmentMetrics, Metrics, compute_metrics
 from .result import CAUTION, BarrierProfile, MassBalance, Result
 from .simulate import simulate
+from .steady import BarrierSteady, SteadyReport, barrier_steady, burst_time, lag_time, steady_state
+from .warnings import find_warnings, scenario_warnings
 
-__all__ = ["CAUTION", "BarrierProfile", "MassBalance", "Result", "simulate"]
+__all__ = [
+    "CAUTION",
+    "BarrierMetrics",
+    "BarrierProfile",
+    "BarrierSteady",
+    "CompartmentMetrics",
+    "MassBalance",
+    "Metrics",
+    "Result",
+    "SteadyReport",
+    "barrier_steady",
+    "burst_time",
+    "compute_metrics",
+    "find_warnings",
+    "lag_time",
+    "scenario_warnings",
+    "simulate",
+    "steady_state",
+]

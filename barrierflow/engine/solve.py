@@ -205,6 +205,7 @@ def solve(
             if raise_on_failure:
                 raise SolverError(message, time=t0)
             break
+        ys[:, : model.n_comp][:, clamp] = y[: model.n_comp][clamp]  # clamped exactly, free of round-off
         stats.intervals += 1
         states[row:sel_end] = ys[:-1]
         ev_dosed[row:sel_end] = dosed

@@ -1,0 +1,169 @@
+"""The app factory: :func:`create_app` builds the dashboard, one panel module after another.
+
+Each panel module (:mod:`dashboard.panels`) holds its layout and a ``register(app, services)``
+that attaches its callbacks with ``app.callback``. Each researcher's state lives only in
+``dcc.Store`` components in their page; the server keeps nothing per user except the packed
+runs in a disk cache keyed by a hash of the scenario (see :mod:`dashboard.runs`).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import dash
+import diskcache
+from dash import DiskcacheManager, dcc, html
+
+import barrierflow
+from barrierflow.analysis import CAUTION as _CAUTION
+from barrierflow.model import Scenario
+
+from . import draft as D
+from . import ids
+from .panels import doses, network, properties, results, run
+from .panels import scenario as scenario_bar
+from .panels.common import card
+from .runs import RunArchive
+
+__all__ = ["CAUTION", "Services", "create_app", "example_scenarios"]
+
+CAUTION = _CAUTION
+"""The caution shown at the top and the foot of every page (the same words as in the sidecar)."""
+
+ASSETS = Path(__file__).parent / "assets"
+
+
+@dataclass(frozen=True)
+class Services:
+    """What the panels share on the server: the run archive and the background-job manager.
+
+    Attributes
+    ----------
+    archive : RunArchive
+    manager : dash.DiskcacheManager
+    examples : dict of str to str
+        Example file path -> label.
+    poll_ms : int, ms
+        How often the page asks whether a background run has finished.
+    """
+
+    archive: RunArchive
+    manager: Any
+    examples: dict[str, str]
+    poll_ms: int = 150
+
+
+def example_scenarios(folder: str | os.PathLike[str] | None = None) -> dict[str, str]:
+    """The example scenarios: file path -> "name (file)" for every ``*.toml`` of ``folder``.
+
+    The default folder is the project's ``scenarios/`` (beside the package), when it exists.
+    Files that do not load are left out.
+    """
+    if folder is None:
+        folder = Path(__file__).resolve().parent.parent / "scenarios"
+    folder = Path(folder)
+    out = {}
+    if folder.is_dir():
+        for path in sorted(folder.glob("*.toml")):
+            try:
+                s = barrierflow.load(path)
+            except barrierflow.ScenarioError:
+                continue
+            out[str(path)] = f"{s.name or path.stem} ({path.name})"
+    return out
+
+
+def _initial_draft(opened: Scenario | str | os.PathLike[str] | None) -> dict[str, Any]:
+    if opened is None:
+        return D.new_draft()
+    if isinstance(opened, Scenario):
+        name = Path(opened.source).name if opened.source else "untitled.toml"
+        return D.draft_from_scenario(opened, name)
+    path = Path(opened)
+    return D.draft_from_scenario(barrierflow.load(path), path.name)
+
+
+def page(initial: dict[str, Any], examples: dict[str, str]) -> html.Div:
+    """The whole page for an initial draft."""
+    header = html.Header([
+        html.Div([
+            html.H1("barrierflow"),
+            html.Span("transport through layered barriers into compartments and the body", className="tagline"),
+        ], className="brand"),
+        html.Div([html.Strong("Caution. "), html.Span(CAUTION)], id=ids.CAUTION, className="caution",
+                 role="note"),
+    ], className="page-header")
+    editor = html.Div([
+        card("Network", network.layout(initial), id="card-network", class_name="network-card",
+             extra=html.Span("drag compartments to move them; click to select", className="fine-print")),
+        card("Properties", properties.layout(D.first_selection(initial)), id="card-properties",
+             class_name="properties-card"),
+    ], className="editor-row")
+    return html.Div([
+        header,
+        html.Main([
+            card("Scenario", scenario_bar.layout(examples, initial), id="card-scenario"),
+            editor,
+            card("Dosing", doses.layout(initial), id="card-dosing"),
+            card("Run", run.layout(initial), id="card-run"),
+            card("Results", results.layout(), id="card-results"),
+        ]),
+        html.Footer([html.Span(CAUTION), html.Span(f" barrierflow {barrierflow.__version__}")],
+                    className="page-footer"),
+        dcc.Store(id=ids.DRAFT, data=initial),
+        dcc.Store(id=ids.CHECK),
+        dcc.Store(id=ids.VALID),
+        dcc.Store(id=ids.RUNS, data=[]),
+        dcc.Store(id=ids.LOADED, data={"gen": initial["gen"]}),
+    ], className="page")
+
+
+def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
+               examples_dir: str | os.PathLike[str] | None = None,
+               cache_dir: str | os.PathLike[str] | None = None,
+               poll_ms: int = 150) -> dash.Dash:
+    """Build the dashboard.
+
+    Parameters
+    ----------
+    scenario : Scenario or path, optional
+        Opened at start; by default the page starts empty.
+    examples_dir : path, optional
+        Folder of example scenarios (default: the project's ``scenarios/``).
+    cache_dir : path, optional
+        Where runs and background jobs are kept on disk (default: a new temporary folder).
+    poll_ms : int, ms
+        How often the page polls a background run.
+
+    Returns
+    -------
+    dash.Dash
+        Serve it with ``app.run(host="127.0.0.1", port=8050)``.
+
+    Raises
+    ------
+    barrierflow.ScenarioError
+        When ``scenario`` is a file that cannot be loaded.
+    """
+    initial = _initial_draft(scenario)
+    archive = RunArchive(cache_dir)
+    manager = DiskcacheManager(diskcache.Cache(str(archive.directory / "jobs")))
+    examples = example_scenarios(examples_dir)
+    app = dash.Dash(
+        __name__,
+        title="barrierflow",
+        update_title=None,
+        assets_folder=str(ASSETS),
+        serve_locally=True,
+        background_callback_manager=manager,
+        suppress_callback_exceptions=False,
+    )
+    app.layout = page(initial, examples)
+    services = Services(archive=archive, manager=manager, examples=examples, poll_ms=poll_ms)
+    for panel in (scenario_bar, network, properties, doses, run, results):
+        panel.register(app, services)
+    return app
+

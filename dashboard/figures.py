@@ -1,0 +1,415 @@
+"""Figures as plain functions of arrays: what the callbacks show, and what the tests call.
+
+Every function returns a plotly figure as a plain dict (``{"data": [...], "layout": {...}}``),
+with axis titles that carry their units. Runs are told apart by line dash as well as by name,
+compartments and barriers by colour (see :mod:`dashboard.palette`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+
+from barrierflow.units import unit_factor
+
+from .palette import GRID, INK, LAYER_FILLS, MUTED, color, dash
+from .runs import RunData
+
+__all__ = [
+    "AMOUNT_UNITS",
+    "CONCENTRATION_UNITS",
+    "TIME_UNITS",
+    "balance_figure",
+    "concentration_figure",
+    "dose_timeline_figure",
+    "empty_figure",
+    "flux_figure",
+    "permeated_figure",
+    "profile_figure",
+    "stack_figure",
+    "steady_profile_figure",
+]
+
+TIME_UNITS = ("h", "min", "d")
+CONCENTRATION_UNITS = ("mg/L", "mg/mL", "ug/mL", "ug/L", "ng/mL", "ng/L")
+MOLAR_CONCENTRATION_UNITS = ("umol/L", "nmol/L")
+AMOUNT_UNITS = ("mg", "ug", "ng")
+UM_PER_CM = 1e4
+
+
+def _layout(title: str, xtitle: str, ytitle: str, *, log: bool = False, height: int = 360,
+            legend: bool = True) -> dict[str, Any]:
+    return {
+        "title": {"text": title, "x": 0.01, "xanchor": "left", "font": {"size": 15, "color": INK}},
+        "height": height,
+        "margin": {"l": 72, "r": 18, "t": 46, "b": 56},
+        "paper_bgcolor": "#ffffff",
+        "plot_bgcolor": "#ffffff",
+        "font": {"family": "system-ui, -apple-system, 'Segoe UI', sans-serif", "size": 13, "color": INK},
+        "xaxis": {"title": {"text": xtitle}, "gridcolor": GRID, "zeroline": False, "showline": True,
+                  "linecolor": MUTED, "ticks": "outside", "exponentformat": "power", "automargin": True},
+        "yaxis": {"title": {"text": ytitle, "standoff": 8}, "gridcolor": GRID, "zeroline": False, "showline": True,
+                  "linecolor": MUTED, "ticks": "outside", "type": "log" if log else "linear",
+                  "exponentformat": "power", "automargin": True},
+        "showlegend": legend,
+        "legend": {"orientation": "h", "y": -0.22, "x": 0, "font": {"size": 12}},
+        "hovermode": "closest",
+        "uirevision": title,
+    }
+
+
+def _rgba(hex_color: str, alpha: float) -> str:
+    h = hex_color.lstrip("#")
+    r, g, b = (int(h[i:i + 2], 16) for i in (0, 2, 4))
+    return f"rgba({r},{g},{b},{alpha})"
+
+
+def empty_figure(message: str, height: int = 300) -> dict[str, Any]:
+    """A blank figure carrying a short message (before the first run, for instance)."""
+    layout = _layout("", "", "", height=height, legend=False)
+    layout["xaxis"].update(visible=False)
+    layout["yaxis"].update(visible=False)
+    layout["annotations"] = [{"text": message, "showarrow": False, "xref": "paper", "yref": "paper",
+                              "x": 0.5, "y": 0.5, "font": {"size": 14, "color": MUTED}}]
+    return {"data": [], "layout": layout}
+
+
+def _label(item: str, run: RunData, many: bool) -> str:
+    return f"{item} · {run.name}" if many else item
+
+
+def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str] | None = None,
+                         quantity: str = "concentration", unit: str = "mg/L", time_unit: str = "h",
+                         log: bool = False) -> dict[str, Any]:
+    """Concentration (or amount) against time in each compartment, for one or more runs.
+
+    Parameters
+    ----------
+    runs : sequence of RunData
+        Overlaid; the first is drawn solid, the others dashed, dotted, ...
+    compartments : sequence of str, optional
+        Which compartments (default: all of the first run).
+    quantity : {"concentration", "amount"}
+    unit : str
+        A concentration unit (``"mg/L"``, ``"umol/L"`` with a molar mass) or an amount unit.
+    time_unit : str
+    log : bool
+        Logarithmic concentration axis.
+    """
+    if not runs:
+        return empty_figure("Run the scenario to see the curves.")
+    kind = "amount" if quantity == "amount" else "concentration"
+    ft = unit_factor("time", time_unit)
+    if compartments is not None:
+        order = list(compartments)
+    else:
+        order = []
+        for run in runs:
+            order += [c for c in run.compartments if c not in order]
+    many = len(runs) > 1
+    data = []
+    for r_i, run in enumerate(runs):
+        fy = unit_factor(kind, unit, run.molar_mass)
+        for c_i, cid in enumerate(order):
+            if cid not in run.conc:
+                continue
+            y = (run.amount if kind == "amount" else run.conc)[cid] * fy
+            data.append({
+                "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(), "y": y.tolist(),
+                "name": _label(cid, run, many), "legendgroup": cid,
+                "line": {"color": color(c_i), "dash": dash(r_i), "width": 2.2},
+                "hovertemplate": f"{cid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {unit}<extra></extra>",
+            })
+    title = "Amount in each compartment" if kind == "amount" else "Concentration in each compartment"
+    return {"data": data, "layout": _layout(title, f"time [{time_unit}]", f"{kind} [{unit}]", log=log)}
+
+
+def flux_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
+                time_unit: str = "h") -> dict[str, Any]:
+    """Flux into each barrier's ``to`` compartment against time, mass per cm^2 per hour."""
+    if not runs:
+        return empty_figure("Run the scenario to see the flux through each barrier.")
+    ft = unit_factor("time", time_unit)
+    fa = unit_factor("amount", amount_unit)
+    order = list(barriers) if barriers is not None else list(runs[0].barriers)
+    many = len(runs) > 1
+    data = []
+    for r_i, run in enumerate(runs):
+        for b_i, bid in enumerate(order):
+            b = run.barriers.get(bid)
+            if b is None:
+                continue
+            data.append({
+                "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(), "y": (b.flux * fa).tolist(),
+                "name": _label(f"{bid} → {b.to_id}", run, many), "legendgroup": bid,
+                "line": {"color": color(b_i), "dash": dash(r_i), "width": 2.2},
+                "hovertemplate": f"{bid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} "
+                                 f"{amount_unit}/(cm² h)<extra></extra>"})
+    if not data:
+        return empty_figure("This scenario has no barrier.")
+    return {"data": data, "layout": _layout("Flux into the receiving compartment", f"time [{time_unit}]",
+                                            f"flux [{amount_unit}/(cm² h)]")}
+
+
+def permeated_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
+                     time_unit: str = "h") -> dict[str, Any]:
+    """Cumulative amount per area that has crossed each barrier (net), against time."""
+    if not runs:
+        return empty_figure("Run the scenario to see the cumulative amount permeated.")
+    ft = unit_factor("time", time_unit)
+    fa = unit_factor("amount", amount_unit)
+    order = list(barriers) if barriers is not None else list(runs[0].barriers)
+    many = len(runs) > 1
+    data = []
+    for r_i, run in enumerate(runs):
+        for b_i, bid in enumerate(order):
+            b = run.barriers.get(bid)
+            if b is None:
+                continue
+            data.append({
+                "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(),
+                "y": (b.permeated * fa).tolist(), "name": _label(f"{bid} → {b.to_id}", run, many),
+                "legendgroup": bid, "line": {"color": color(b_i), "dash": dash(r_i), "width": 2.2},
+                "hovertemplate": f"{bid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} "
+                                 f"{amount_unit}/cm²<extra></extra>"})
+    if not data:
+        return empty_figure("This scenario has no barrier.")
+    return {"data": data, "layout": _layout("Cumulative amount permeated (net)", f"time [{time_unit}]",
+                                            f"permeated [{amount_unit}/cm²]")}
+
+
+def _layer_shapes(interfaces: Sequence[float], names: Sequence[str]) -> tuple[list[dict], list[dict]]:
+    """Shaded bands for the layers and dotted lines at the interfaces (x in um)."""
+    shapes, notes = [], []
+    xs = [x * UM_PER_CM for x in interfaces]
+    for i in range(len(xs) - 1):
+        shapes.append({"type": "rect", "xref": "x", "yref": "paper", "x0": xs[i], "x1": xs[i + 1],
+                       "y0": 0, "y1": 1, "fillcolor": LAYER_FILLS[i % len(LAYER_FILLS)], "opacity": 0.75,
+                       "line": {"width": 0}, "layer": "below"})
+        name = names[i] if i < len(names) else f"layer {i + 1}"
+        notes.append({"x": (xs[i] + xs[i + 1]) / 2, "y": 1.0, "xref": "x", "yref": "paper", "yanchor": "bottom",
+                      "text": name, "showarrow": False, "font": {"size": 11, "color": MUTED}})
+    for x in xs[1:-1]:
+        shapes.append({"type": "line", "xref": "x", "yref": "paper", "x0": x, "x1": x, "y0": 0, "y1": 1,
+                       "line": {"color": MUTED, "width": 1, "dash": "dot"}})
+    return shapes, notes
+
+
+def profile_figure(runs: Sequence[RunData], barrier: str, time: float, *, unit: str = "mg/mL",
+                   time_unit: str = "h", steady: Any = None) -> dict[str, Any]:
+    """Concentration through a barrier at the saved time nearest to ``time`` (h).
+
+    Each layer is drawn as its own line through the cell centres, so that the jump at an
+    interface (from the partition coefficients) shows as a step between two lines; the layers
+    are shaded and named. ``steady`` (a :class:`barrierflow.analysis.steady.BarrierSteady`) adds
+    the steady profile, dotted.
+    """
+    runs = [r for r in runs if barrier in r.barriers]
+    if not runs:
+        return empty_figure("Run a scenario with this barrier to see its profile.")
+    first = runs[0].barriers[barrier]
+    if first.model == "steady" or first.profile_x.size == 0:
+        return empty_figure(f"Barrier '{barrier}' is quasi-steady: it stores nothing, so it has no profile.")
+    ft = unit_factor("time", time_unit)
+    many = len(runs) > 1
+    data = []
+    shown_time = None
+    for r_i, run in enumerate(runs):
+        b = run.barriers[barrier]
+        k = int(np.argmin(np.abs(b.profile_times - time)))
+        shown_time = b.profile_times[k] if shown_time is None else shown_time
+        fy = unit_factor("concentration", unit, run.molar_mass)
+        x_um = b.profile_x * UM_PER_CM
+        conc = b.profile_conc[k] * fy
+        for layer in range(len(b.interfaces) - 1):
+            sel = b.profile_layer == layer
+            if not np.any(sel):
+                continue
+            data.append({
+                "type": "scatter", "mode": "lines+markers" if sel.sum() <= 40 else "lines",
+                "x": x_um[sel].tolist(), "y": conc[sel].tolist(),
+                "name": _label(f"at {b.profile_times[k] * ft:.4g} {time_unit}", run, many),
+                "legendgroup": run.name, "showlegend": layer == 0,
+                "line": {"color": color(r_i), "dash": dash(r_i), "width": 2.4}, "marker": {"size": 4},
+                "hovertemplate": f"{run.name}, {b.layer_names[layer]}<br>x = %{{x:.4g}} µm: %{{y:.4g}} {unit}"
+                                 "<extra></extra>"})
+    if steady is not None and getattr(steady, "profile", None) is not None:
+        fy = unit_factor("concentration", unit, runs[0].molar_mass)
+        p = steady.profile
+        xs = np.asarray(p.x) * UM_PER_CM
+        cs = np.asarray(p.conc) * fy
+        ls = np.asarray(p.layer)
+        for layer in sorted(set(ls.tolist())):
+            sel = ls == layer
+            data.append({"type": "scatter", "mode": "lines", "x": xs[sel].tolist(), "y": cs[sel].tolist(),
+                         "name": "steady state (held source, perfect sink)", "legendgroup": "steady",
+                         "showlegend": layer == 0, "line": {"color": INK, "dash": "dot", "width": 1.6},
+                         "hovertemplate": f"steady<br>x = %{{x:.4g}} µm: %{{y:.4g}} {unit}<extra></extra>"})
+    layout = _layout(f"Concentration through '{barrier}' at {shown_time * ft:.4g} {time_unit}",
+                     f"depth from the '{first.from_id}' side [µm]", f"concentration in the layer [{unit}]")
+    layout["uirevision"] = f"profile-{barrier}"
+    shapes, notes = _layer_shapes(first.interfaces, first.layer_names)
+    layout["shapes"] = shapes
+    layout["annotations"] = notes
+    layout["margin"]["t"] = 64
+    layout["xaxis"]["range"] = [0, first.interfaces[-1] * UM_PER_CM]
+    top = max((max(t["y"]) for t in data if t["y"]), default=1.0)
+    layout["yaxis"]["range"] = [0, top * 1.08 if top > 0 else 1.0]
+    return {"data": data, "layout": layout}
+
+
+def steady_profile_figure(steady: Any, *, unit: str = "mg/mL", molar_mass: float | None = None,
+                          names: Sequence[str] = (), height: int = 230) -> dict[str, Any]:
+    """The steady profile of one barrier (a ``BarrierSteady``), layers shaded."""
+    if steady is None:
+        return empty_figure("Fix the layer values to see the steady state.", height=height)
+    fy = unit_factor("concentration", unit, molar_mass)
+    p = steady.profile
+    xs = np.asarray(p.x) * UM_PER_CM
+    cs = np.asarray(p.conc) * fy
+    ls = np.asarray(p.layer)
+    data = []
+    for layer in sorted(set(ls.tolist())):
+        sel = ls == layer
+        data.append({"type": "scatter", "mode": "lines", "x": xs[sel].tolist(), "y": cs[sel].tolist(),
+                     "showlegend": False, "line": {"color": color(0), "width": 2.4},
+                     "hovertemplate": f"x = %{{x:.4g}} µm: %{{y:.4g}} {unit}<extra></extra>"})
+    layout = _layout("Steady profile", "depth [µm]", f"conc. [{unit}]", height=height, legend=False)
+    layout["margin"] = {"l": 64, "r": 10, "t": 52, "b": 44}
+    interfaces = [0.0] + [float(x) for x in np.cumsum([ly.thickness for ly in steady.layers])]
+    shapes, notes = _layer_shapes(interfaces, names or [ly.name for ly in steady.layers])
+    layout["shapes"], layout["annotations"] = shapes, notes
+    layout["xaxis"]["range"] = [0, interfaces[-1] * UM_PER_CM]
+    return {"data": data, "layout": layout}
+
+
+def stack_figure(layers: Sequence[Mapping[str, Any]], height: int = 150) -> dict[str, Any]:
+    """A drawing of a barrier's layer stack to scale (thickness in um), ``from`` side at the left.
+
+    ``layers`` are mappings with ``name`` and ``thickness`` (cm, or None when not valid).
+    """
+    data = []
+    total = 0.0
+    for i, layer in enumerate(layers):
+        t = layer.get("thickness")
+        name = layer.get("name") or f"layer {i + 1}"
+        if t is None or not np.isfinite(t) or t <= 0:
+            continue
+        t_um = t * UM_PER_CM
+        data.append({"type": "bar", "orientation": "h", "x": [t_um], "y": [""], "base": [total],
+                     "name": f"{i + 1}. {name} ({t_um:.4g} µm)",
+                     "marker": {"color": LAYER_FILLS[i % len(LAYER_FILLS)], "line": {"color": INK, "width": 1.2},
+                                "pattern": {"shape": ("", "/", ".", "x", "\\", "+")[i % 6], "fgcolor": MUTED,
+                                            "size": 6, "solidity": 0.15}},
+                     "hovertemplate": f"{name}: {t_um:.4g} µm<extra></extra>"})
+        total += t_um
+    if not data:
+        return empty_figure("No layer with a valid thickness.", height=height)
+    layout = _layout("Layer stack to scale", "depth from the 'from' side [µm]", "", height=height)
+    layout.update(barmode="overlay", bargap=0.25)
+    rows = (len(data) + 1) // 2
+    layout["margin"] = {"l": 16, "r": 16, "t": 34, "b": 58 + 20 * rows}
+    layout["legend"] = {"orientation": "h", "yref": "container", "y": 0, "yanchor": "bottom", "x": 0,
+                        "font": {"size": 11}}
+    layout["yaxis"].update(showticklabels=False, showline=False, ticks="")
+    layout["xaxis"]["range"] = [0, total]
+    layout["height"] = height + 20 * rows
+    return {"data": data, "layout": layout}
+
+
+def balance_figure(run: RunData, *, amount_unit: str = "mg", time_unit: str = "h") -> dict[str, Any]:
+    """Where the substance is at each time: stacked areas, with the total that entered as a line.
+
+    Stacked: the amount in each (non-held) compartment and inside each barrier, what was
+    eliminated, degraded, removed (replace and remove doses) and taken up by held sinks. The
+    line is what entered: the starting amount, the doses and what held sources supplied. The
+    stack meets the line when mass is conserved.
+    """
+    ft = unit_factor("time", time_unit)
+    fa = unit_factor("amount", amount_unit)
+    t = (run.times * ft).tolist()
+    parts: list[tuple[str, np.ndarray]] = []
+    for cid in run.compartments:
+        if not run.held.get(cid):
+            parts.append((f"in {cid}", run.amount[cid]))
+    for bid, b in run.barriers.items():
+        if b.model != "steady":
+            parts.append((f"inside barrier {bid}", b.content))
+    zeros = np.zeros_like(run.times)
+    elim = sum((run.eliminated[c] for c in run.compartments), zeros)
+    degr = sum((b.degraded for b in run.barriers.values()), zeros)
+    removed = sum((run.removed[c] for c in run.compartments), zeros)
+    parts += [("eliminated", elim), ("degraded in barriers", degr), ("removed (replace, remove)", removed)]
+    entered = np.full_like(run.times, run.initial_amount)
+    for cid in run.compartments:
+        dosed = run.dosed[cid]
+        if run.held.get(cid):
+            parts.append((f"taken up by held {cid}", np.maximum(-dosed, 0.0)))
+            entered = entered + np.maximum(dosed, 0.0)
+        else:
+            entered = entered + dosed
+    data = []
+    i = 0
+    for label, values in parts:
+        if not np.any(np.abs(values) > 0):
+            continue
+        data.append({"type": "scatter", "mode": "lines", "x": t, "y": (values * fa).tolist(), "name": label,
+                     "stackgroup": "where", "line": {"width": 1.2, "color": color(i)},
+                     "fillcolor": _rgba(color(i), 0.55),
+                     "fillpattern": {"shape": ("", "/", ".", "x", "\\", "+", "-", "|")[i % 8],
+                                     "bgcolor": _rgba(color(i), 0.55), "fgcolor": _rgba("#1d2733", 0.45),
+                                     "size": 8, "solidity": 0.15},
+                     "hovertemplate": f"{label}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {amount_unit}<extra></extra>"})
+        i += 1
+    data.append({"type": "scatter", "mode": "lines", "x": t, "y": (entered * fa).tolist(),
+                 "name": "entered in all (start + doses + held sources)", "line": {"color": INK, "dash": "dash",
+                                                                                    "width": 2},
+                 "hovertemplate": f"entered<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {amount_unit}<extra></extra>"})
+    err = run.mass_balance.get("relative_error", float("nan"))
+    layout = _layout(f"Where the substance is: {run.name} (mass balance error {err:.1e} relative)",
+                     f"time [{time_unit}]", f"amount [{amount_unit}]", height=400)
+    layout["uirevision"] = "balance"
+    return {"data": data, "layout": layout}
+
+
+def dose_timeline_figure(rows: Sequence[Mapping[str, Any]], duration: float | None, *,
+                         time_unit: str = "h") -> dict[str, Any]:
+    """A strip showing when each dose event happens.
+
+    ``rows`` are mappings with ``label`` (str), ``kind``, ``starts`` (list of h) and ``length``
+    (h or None: an instant). Instants are drawn as markers, infusions and holds as bars.
+    """
+    if not rows:
+        return empty_figure("No doses yet: add one in the table.", height=150)
+    ft = unit_factor("time", time_unit)
+    symbols = {"bolus": "triangle-down", "replace": "diamond", "remove": "x-thin-open", "infusion": "square",
+               "hold": "square"}
+    data = []
+    labels = []
+    for i, row in enumerate(rows):
+        label = row["label"]
+        labels.append(label)
+        starts = [s * ft for s in row.get("starts", [])]
+        length = row.get("length")
+        col = color(i)
+        if length:
+            data.append({"type": "bar", "orientation": "h", "y": [label] * len(starts),
+                         "x": [length * ft] * len(starts), "base": starts,
+                         "marker": {"color": col, "opacity": 0.45, "line": {"color": col, "width": 1}},
+                         "name": label, "showlegend": False, "width": 0.5,
+                         "hovertemplate": f"{label}<br>from %{{base:.4g}} {time_unit} for %{{x:.4g}} {time_unit}"
+                                          "<extra></extra>"})
+        data.append({"type": "scatter", "mode": "markers", "y": [label] * len(starts), "x": starts,
+                     "marker": {"symbol": symbols.get(row.get("kind"), "circle"), "size": 11, "color": col,
+                                "line": {"color": INK, "width": 1}},
+                     "name": label, "showlegend": False,
+                     "hovertemplate": f"{label}<br>at %{{x:.4g}} {time_unit}<extra></extra>"})
+    layout = _layout("When each dose happens", f"time [{time_unit}]", "", height=110 + 34 * len(rows), legend=False)
+    layout["margin"] = {"l": 200, "r": 18, "t": 40, "b": 48}
+    layout["yaxis"].update(type="category", autorange="reversed", categoryorder="array", categoryarray=labels)
+    layout["barmode"] = "overlay"
+    if duration:
+        layout["xaxis"]["range"] = [0, duration * ft]
+    return {"data": data, "layout": layout}

@@ -1,0 +1,123 @@
+"""Every component id of the dashboard, in one place.
+
+Panels import their ids from here, so a test (or another panel) can name a component without
+repeating a string. Pattern-matching ids are built by the small functions at the end.
+"""
+
+from __future__ import annotations
+
+# ---------------------------------------------------------------- state (dcc.Store)
+DRAFT = "store-draft"              # the scenario being edited (editor document, JSON)
+VALID = "store-valid"              # TOML text of the last valid scenario, with its name and digest
+CHECK = "store-check"              # problems of the draft, located at their fields
+RUNS = "store-runs"                # the runs of the session (names, scenario TOML, archive keys)
+LOADED = "store-loaded"            # changes when a new scenario is opened (panels refresh their inputs)
+PENDING = "store-pending"          # the 'from' compartment of a link being drawn by clicking
+
+# ---------------------------------------------------------------- header and scenario bar
+CAUTION = "caution"
+EXAMPLE = "example-pick"
+OPEN_EXAMPLE = "example-open"
+UPLOAD = "scenario-upload"
+NEW = "scenario-new"
+SAVE = "scenario-save"
+SAVE_DOWNLOAD = "scenario-save-download"
+SCENARIO_NAME = "scenario-name"
+FILE_NAME = "scenario-file"
+OPEN_MESSAGE = "scenario-open-message"
+
+# ---------------------------------------------------------------- network editor
+CANVAS = "network-canvas"
+ADD_COMPARTMENT = "network-add-compartment"
+DELETE = "network-delete"
+LINK_KIND = "network-link-kind"
+LINK_FROM = "network-link-from"
+LINK_TO = "network-link-to"
+CONNECT = "network-connect"
+CLICK_CONNECT = "network-click-connect"
+TIDY = "network-tidy"
+NETWORK_MESSAGE = "network-message"
+LEGEND = "network-legend"
+
+# ---------------------------------------------------------------- properties
+SELECT = "element-select"          # which compartment or link is edited (value "c:<key>" / "l:<key>")
+PROPERTIES = "properties-body"
+LAYER_GRID = "layer-grid"
+LAYER_ADD = "layer-add"
+LAYER_REMOVE = "layer-remove"
+LAYER_UP = "layer-up"
+LAYER_DOWN = "layer-down"
+LAYER_MESSAGES = "layer-messages"
+STACK_FIGURE = "stack-figure"
+STEADY_TABLE = "steady-table"
+STEADY_FIGURE = "steady-figure"
+
+# ---------------------------------------------------------------- doses
+DOSE_GRID = "dose-grid"
+DOSE_ADD = "dose-add"
+DOSE_REMOVE = "dose-remove"
+DOSE_MESSAGES = "dose-messages"
+DOSE_TIMELINE = "dose-timeline"
+
+# ---------------------------------------------------------------- run
+DURATION = "run-duration"
+OUTPUT_STEP = "run-output-step"
+OUTPUT_TIMES_NOTE = "run-output-times-note"
+RUN_NAME = "run-name"
+RUN = "run-button"
+CANCEL = "run-cancel"
+PROGRESS = "run-progress"
+PROGRESS_TEXT = "run-progress-text"
+RUN_STATUS = "run-status"
+PROBLEMS = "run-problems"
+RUN_PICK = "runs-pick"             # which runs are shown (and compared)
+REFERENCE = "runs-reference"
+RUNS_CLEAR = "runs-clear"
+
+# ---------------------------------------------------------------- results
+RESULT_TABS = "result-tabs"
+CONC_FIGURE = "fig-concentration"
+CONC_SCALE = "conc-scale"
+CONC_UNIT = "conc-unit"
+CONC_QUANTITY = "conc-quantity"
+COMPARTMENT_PICK = "compartment-pick"
+TIME_UNIT = "time-unit"
+BARRIER_PICK = "barrier-pick"
+FLUX_FIGURE = "fig-flux"
+PERMEATED_FIGURE = "fig-permeated"
+FLUX_UNIT = "flux-unit"
+PROFILE_BARRIER = "profile-barrier"
+PROFILE_SLIDER = "profile-slider"
+PROFILE_TIME = "profile-time"
+PROFILE_FIGURE = "fig-profile"
+PROFILE_PLAY = "profile-play"
+PROFILE_TICK = "profile-tick"
+PROFILE_STEADY = "profile-steady"
+BALANCE_FIGURE = "fig-balance"
+BALANCE_RUN = "balance-run"
+METRICS_GRID = "metrics-grid"
+COMPARE_GRID = "compare-grid"
+WARNINGS = "run-warnings"
+EXPORT_RUN = "export-run"
+EXPORT_CSV = "export-csv"
+EXPORT_METRICS = "export-metrics"
+EXPORT_COMPARISON = "export-comparison"
+EXPORT_SIDECAR = "export-sidecar"
+EXPORT_DOWNLOAD = "export-download"
+IMAGE_FORMAT = "image-format"
+
+
+# ---------------------------------------------------------------- pattern-matching ids
+def field(scope: str, name: str) -> dict[str, str]:
+    """Id of an input of the properties panel: ``scope`` is ``"compartment"`` or ``"link"``."""
+    return {"type": "field", "scope": scope, "name": name}
+
+
+def field_message(scope: str, name: str) -> dict[str, str]:
+    """Id of the message shown under the input :func:`field` ``(scope, name)``."""
+    return {"type": "field-message", "scope": scope, "name": name}
+
+
+def scenario_message(name: str) -> dict[str, str]:
+    """Id of the message shown under a scenario-wide input (``duration``, ``output_step``, ``name``)."""
+    return {"type": "field-message", "scope": "scenario", "name": name}

@@ -1,0 +1,89 @@
+"""Small layout helpers shared by the panels: cards, labelled inputs with units and messages."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from dash import dcc, html
+
+from barrierflow.units import KINDS
+
+from .. import ids
+
+# the unit hint shown beside an input, by kind of quantity
+UNIT_HINT = {
+    "length": "length, e.g. 15 um",
+    "time": "time, e.g. 24 h, 15 min, 7 d",
+    "area": "area, e.g. 10 cm^2",
+    "volume": "volume, e.g. 5 mL, 15 L",
+    "diffusivity": "area per time, e.g. 1e-9 cm^2/s",
+    "concentration": "mass per volume, e.g. 20 mg/mL",
+    "amount": "mass, e.g. 2 mg",
+    "amount_rate": "mass per time, e.g. 0.1 mg/h",
+    "flow": "volume per time, e.g. 10 L/h",
+    "rate": "per time, e.g. 0.8 1/h",
+    "molar_mass": "e.g. 250 g/mol",
+    "number": "bare number, no unit",
+    "count": "whole number",
+    "id": "letters, digits, _ and -",
+    "text": "free text",
+}
+
+
+def card(title: str, *children: Any, id: str | None = None, extra: Any = None, class_name: str = "") -> html.Section:
+    """A titled card; ``extra`` goes at the right of the title bar."""
+    head = [html.H2(title)]
+    if extra is not None:
+        head.append(html.Div(extra, className="card-extra"))
+    kwargs = {"id": id} if id else {}
+    return html.Section([html.Div(head, className="card-head"), html.Div(list(children), className="card-body")],
+                        className=f"card {class_name}".strip(), **kwargs)
+
+
+def field_row(scope: str, name: str, label: str, kind: str, example: str, *, value: str = "",
+              help_text: str | None = None) -> html.Div:
+    """A labelled text input (debounced) with its unit hint and a message line below it."""
+    hint = help_text if help_text is not None else UNIT_HINT.get(kind, "")
+    unit = KINDS[kind].internal if kind in KINDS else None
+    return html.Div([
+        html.Label(label, htmlFor=f"field-{scope}-{name}", className="field-label"),
+        html.Div([
+            dcc.Input(id=ids.field(scope, name), type="text", value=value, debounce=True,
+                      placeholder=f"e.g. {example}", className="field-input", spellCheck=False,
+                      autoComplete="off"),
+            html.Span(hint, className="field-hint", title=f"internal unit: {unit}" if unit else None),
+        ], className="field-line"),
+        html.Div(id=ids.field_message(scope, name), className="field-message", role="alert"),
+    ], className="field-row", id=f"row-{scope}-{name}")
+
+
+def labelled(label: str, component: Any, hint: str | None = None, message_id: Any = None) -> html.Div:
+    """A label above any component, with an optional hint and message line."""
+    parts = [html.Label(label, className="field-label"),
+             html.Div([component] + ([html.Span(hint, className="field-hint")] if hint else []),
+                      className="field-line")]
+    if message_id is not None:
+        parts.append(html.Div(id=message_id, className="field-message", role="alert"))
+    return html.Div(parts, className="field-row")
+
+
+def message_list(messages: list[str]) -> Any:
+    """Messages as a list (empty string when there are none)."""
+    if not messages:
+        return ""
+    return html.Ul([html.Li(m) for m in messages], className="message-list")
+
+
+GRAPH_CONFIG = {
+    "displaylogo": False,
+    "responsive": True,
+    "toImageButtonOptions": {"format": "png", "scale": 2},
+    "modeBarButtonsToRemove": ["lasso2d", "select2d"],
+}
+
+
+def graph(id: str, figure: dict | None = None, height: int | None = None, **kwargs: Any) -> dcc.Graph:
+    """A plotly graph with the dashboard's mode bar (PNG or SVG export, no logo)."""
+    if height:
+        kwargs["style"] = {"height": f"{height}px"}
+    return dcc.Graph(id=id, figure=figure or {"data": [], "layout": {}}, config=dict(GRAPH_CONFIG), **kwargs)

@@ -1,0 +1,446 @@
+"""Results: curves, barrier fluxes, profiles, mass balance, metrics, comparison and export."""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import dash_ag_grid as dag
+from dash import Input, Output, State, ctx, dcc, html
+from dash.exceptions import PreventUpdate
+
+from .. import figures as F
+from .. import ids
+from ..runs import RunArchive, RunData, sidecar_text
+from .common import GRAPH_CONFIG, graph, labelled
+
+BALANCE_UNIT = "balance-unit"
+RESULT_GRAPHS = (ids.CONC_FIGURE, ids.FLUX_FIGURE, ids.PERMEATED_FIGURE, ids.PROFILE_FIGURE, ids.BALANCE_FIGURE)
+
+
+def fetch(picked: Sequence[str] | None, runs: Sequence[Mapping[str, Any]] | None,
+          archive: RunArchive) -> list[RunData]:
+    """The packed runs that are ticked, in the order of the session (failed runs left out)."""
+    chosen = set(picked or [])
+    out = []
+    for r in runs or []:
+        if r["id"] in chosen and not r.get("error"):
+            data = archive.fetch(r)
+            if data is not None:
+                out.append(data)
+    return out
+
+
+def compare_rows(runs: Sequence[RunData], reference: int = 0) -> tuple[list[dict[str, Any]], list[str]]:
+    """Rows of the side-by-side metrics table, and the run names.
+
+    Each row holds ``part``, ``id``, ``metric`` (the label), ``name`` (the analysis package's
+    name), ``unit``, the value of run i under ``v<i>`` and, for every run but the reference,
+    ``r<i>`` = its value divided by the reference run's (None where that is not a number).
+    """
+    names = [r.name for r in runs]
+    table: dict[tuple[str, str, str, str], dict[str, Any]] = {}
+    for i, run in enumerate(runs):
+        for m in run.metrics:
+            k = (m["part"], m["id"], m["name"], m["unit"])
+            row = table.setdefault(k, {"part": m["part"], "id": m["id"], "name": m["name"], "metric": m["metric"],
+                                       "unit": m["unit"]})
+            row[f"v{i}"] = m["value"]
+    rows = []
+    for row in table.values():
+        ref = row.get(f"v{reference}")
+        for i in range(len(runs)):
+            if i != reference:
+                row[f"r{i}"] = ratio(row.get(f"v{i}"), ref)
+        rows.append(row)
+    return rows, names
+
+
+def ratio(value: Any, reference: Any) -> float | None:
+    """value / reference for two finite numbers with a reference other than 0, else None."""
+    numbers = all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in (value, reference))
+    if not numbers or reference == 0 or not (math.isfinite(value) and math.isfinite(reference)):
+        return None
+    return value / reference
+
+
+def compare_columns(names: Sequence[str], reference: int = 0) -> list[dict[str, Any]]:
+    """Columns of the metrics table: the metric, each run's value, the ratios to the reference."""
+    fmt = {"function": "typeof params.value === 'number' ? d3.format('.4~g')(params.value) : "
+                       "(params.value == null ? '' : String(params.value))"}
+    cols: list[dict[str, Any]] = [
+        {"field": "part", "headerName": "Part", "width": 120, "pinned": "left"},
+        {"field": "id", "headerName": "Id", "width": 120, "pinned": "left"},
+        {"field": "metric", "headerName": "Metric", "minWidth": 230, "flex": 2, "pinned": "left",
+         "tooltipField": "name"},
+        {"field": "unit", "headerName": "Unit", "width": 130},
+    ]
+    for i, name in enumerate(names):
+        label = f"{name} (reference)" if i == reference and len(names) > 1 else name
+        cols.append({"field": f"v{i}", "headerName": label, "minWidth": 120, "flex": 1,
+                     "valueFormatter": fmt, "type": "rightAligned"})
+    for i, name in enumerate(names):
+        if i != reference:
+            cols.append({"field": f"r{i}", "headerName": f"{name} ÷ {names[reference]}", "minWidth": 140, "flex": 1,
+                         "valueFormatter": fmt, "type": "rightAligned", "cellClass": "ratio-cell"})
+    return cols
+
+
+def comparison_csv(runs: Sequence[RunData], reference: int = 0) -> str:
+    """The metrics of the runs as CSV, one row per run and metric, with the ratio to the reference run."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["run", "scenario", "kind", "id", "metric", "unit", "value", "ratio_to_reference"])
+    ref = {(m["part"], m["id"], m["name"]): m["value"] for m in runs[reference].metrics} if runs else {}
+    for run in runs:
+        for m in run.metrics:
+            v = m["value"]
+            r = ratio(v, ref.get((m["part"], m["id"], m["name"])))
+            text = "" if v is None else (v if isinstance(v, str) else format(float(v), ".10g"))
+            w.writerow([run.name, run.scenario_name, m["part"], m["id"], m["name"], m["unit"], text,
+                        "" if r is None else format(r, ".10g")])
+    return buf.getvalue()
+
+
+def concentration_units(molar: bool) -> list[str]:
+    """Concentration units offered (molar ones when the substance has a molar mass)."""
+    return list(F.CONCENTRATION_UNITS) + (list(F.MOLAR_CONCENTRATION_UNITS) if molar else [])
+
+
+def _radio(id: str, options: Sequence[tuple[str, str]], value: str) -> dcc.RadioItems:
+    return dcc.RadioItems(id=id, options=[{"label": f" {lab}", "value": v} for v, lab in options], value=value,
+                          inline=True, className="radio")
+
+
+def layout() -> html.Div:
+    """The results card's body."""
+    conc_tab = html.Div([
+        html.Div([
+            labelled("Show", _radio(ids.CONC_QUANTITY, [("concentration", "concentration"), ("amount", "amount")],
+                                    "concentration")),
+            labelled("Unit", dcc.Dropdown(id=ids.CONC_UNIT, options=list(F.CONCENTRATION_UNITS), value="mg/L",
+                                          clearable=False, className="unit-pick")),
+            labelled("Axis", _radio(ids.CONC_SCALE, [("linear", "linear"), ("log", "logarithmic")], "linear")),
+            labelled("Compartments", dcc.Dropdown(id=ids.COMPARTMENT_PICK, options=[], value=[], multi=True,
+                                                  className="barrier-pick", placeholder="all compartments")),
+        ], className="controls"),
+        graph(ids.CONC_FIGURE, F.empty_figure("Run the scenario to see the curves.")),
+    ])
+    barrier_tab = html.Div([
+        html.Div([
+            labelled("Barriers", dcc.Dropdown(id=ids.BARRIER_PICK, options=[], value=[], multi=True,
+                                              className="barrier-pick", placeholder="all barriers")),
+            labelled("Amount unit (per cm²)", dcc.Dropdown(id=ids.FLUX_UNIT, options=list(F.AMOUNT_UNITS), value="mg",
+                                                           clearable=False, className="unit-pick")),
+        ], className="controls"),
+        html.Div([graph(ids.FLUX_FIGURE, F.empty_figure("Run the scenario to see the flux.")),
+                  graph(ids.PERMEATED_FIGURE, F.empty_figure("Run the scenario to see the permeated amount."))],
+                 className="two-plots"),
+    ])
+    profile_tab = html.Div([
+        html.Div([
+            labelled("Barrier", dcc.Dropdown(id=ids.PROFILE_BARRIER, options=[], clearable=False,
+                                             className="barrier-one")),
+            labelled("Steady profile", dcc.Checklist(id=ids.PROFILE_STEADY, value=["on"], className="radio",
+                                                     options=[{"label": " draw it too (dotted)", "value": "on"}])),
+            html.Div([html.Button("▶ Play", id=ids.PROFILE_PLAY, className="btn"),
+                      dcc.Interval(id=ids.PROFILE_TICK, interval=180, disabled=True)], className="play-box"),
+        ], className="controls"),
+        html.Div([
+            html.Label("Time of the profile (saved output time)", htmlFor=ids.PROFILE_SLIDER, className="field-label"),
+            html.Div(dcc.Slider(id=ids.PROFILE_SLIDER, min=0, max=1, step=1, value=0, marks=None,
+                                updatemode="drag", tooltip={"always_visible": False, "placement": "bottom"},
+                                allow_direct_input=False), className="slider-box"),
+            html.Div(id=ids.PROFILE_TIME, className="profile-time", role="status"),
+        ], className="slider-row"),
+        graph(ids.PROFILE_FIGURE, F.empty_figure("Run a scenario with a barrier to see its profile.")),
+    ])
+    balance_tab = html.Div([
+        html.Div([
+            labelled("Run", dcc.Dropdown(id=ids.BALANCE_RUN, options=[], clearable=False, className="run-one")),
+            labelled("Amount unit", dcc.Dropdown(id=BALANCE_UNIT, options=list(F.AMOUNT_UNITS), value="mg",
+                                                 clearable=False, className="unit-pick")),
+        ], className="controls"),
+        graph(ids.BALANCE_FIGURE, F.empty_figure("Run the scenario to see where the dose goes.")),
+    ])
+    metrics_tab = html.Div([
+        html.Div("Metrics of each ticked run, side by side; with two or more runs, the ratio of each to the "
+                 "reference run (chosen in the run panel).", className="fine-print"),
+        dag.AgGrid(id=ids.METRICS_GRID, columnDefs=compare_columns([]), rowData=[],
+                   defaultColDef={"resizable": True, "sortable": True, "filter": True},
+                   dashGridOptions={"domLayout": "normal", "tooltipShowDelay": 200},
+                   className="metrics-grid", style={"height": "420px", "width": "100%"}),
+        html.Div(id=ids.WARNINGS, className="warnings", role="status"),
+    ])
+    time_row = html.Div([
+        labelled("Time axis in", _radio(ids.TIME_UNIT, [("h", "hours"), ("min", "minutes"), ("d", "days")], "h")),
+    ], className="controls")
+    tabs = dcc.Tabs(id=ids.RESULT_TABS, value="conc", children=[
+        dcc.Tab(label="Concentrations", value="conc", children=conc_tab),
+        dcc.Tab(label="Barriers: flux and permeated", value="barrier", children=barrier_tab),
+        dcc.Tab(label="Profile through a barrier", value="profile", children=profile_tab),
+        dcc.Tab(label="Mass balance", value="balance", children=balance_tab),
+        dcc.Tab(label="Metrics and comparison", value="metrics", children=metrics_tab),
+    ], className="result-tabs")
+    export = html.Div([
+        html.Span("Export", className="toolbar-label strong"),
+        dcc.Dropdown(id=ids.EXPORT_RUN, options=[], clearable=False, className="run-one", placeholder="run"),
+        html.Button("Traces CSV", id=ids.EXPORT_CSV, className="btn"),
+        html.Button("Sidecar JSON", id=ids.EXPORT_SIDECAR, className="btn"),
+        html.Button("Metrics CSV", id=ids.EXPORT_METRICS, className="btn"),
+        html.Button("Comparison CSV (ticked runs)", id=ids.EXPORT_COMPARISON, className="btn"),
+        html.Span("Plot images:", className="toolbar-label"),
+        _radio(ids.IMAGE_FORMAT, [("png", "PNG"), ("svg", "SVG")], "png"),
+        html.Span("(camera button at the top right of each plot)", className="fine-print"),
+        dcc.Download(id=ids.EXPORT_DOWNLOAD),
+    ], className="toolbar export-bar")
+    return html.Div([time_row, tabs, export])
+
+
+def register(app: Any, services: Any) -> None:
+    """Attach the results panel's callbacks."""
+    archive = services.archive
+
+    @app.callback(
+        Output(ids.CONC_UNIT, "options"),
+        Output(ids.CONC_UNIT, "value"),
+        Output(ids.COMPARTMENT_PICK, "options"),
+        Output(ids.BARRIER_PICK, "options"),
+        Output(ids.PROFILE_BARRIER, "options"),
+        Output(ids.PROFILE_BARRIER, "value"),
+        Output(ids.BALANCE_RUN, "options"),
+        Output(ids.BALANCE_RUN, "value"),
+        Output(ids.EXPORT_RUN, "options"),
+        Output(ids.EXPORT_RUN, "value"),
+        Input(ids.RUN_PICK, "value"),
+        Input(ids.CONC_QUANTITY, "value"),
+        Input(ids.REFERENCE, "value"),
+        State(ids.RUNS, "data"),
+        State(ids.CONC_UNIT, "value"),
+        State(ids.PROFILE_BARRIER, "value"),
+    )
+    def choices(picked, quantity, reference, runs, unit, barrier):
+        data = fetch(picked, runs, archive)
+        molar = any(r.molar_mass for r in data)
+        units = list(F.AMOUNT_UNITS) if quantity == "amount" else concentration_units(molar)
+        unit = unit if unit in units else units[0]
+        bids: list[str] = []
+        cids: list[str] = []
+        for r in data:
+            bids += [b for b in r.barriers if b not in bids]
+            cids += [c for c in r.compartments if c not in cids]
+        barrier = barrier if barrier in bids else (bids[0] if bids else None)
+        by_id = {r["id"]: r for r in runs or []}
+        run_opts = [{"label": by_id[v]["name"], "value": v} for v in picked or [] if v in by_id]
+        values = [o["value"] for o in run_opts]
+        chosen = reference if reference in values else (values[0] if values else None)
+        all_opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if not r.get("error")]
+        latest = values[-1] if values else (all_opts[-1]["value"] if all_opts else None)
+        return units, unit, cids, bids, bids, barrier, run_opts, chosen, all_opts, latest
+
+    @app.callback(
+        Output(ids.CONC_FIGURE, "figure"),
+        Input(ids.RUN_PICK, "value"),
+        Input(ids.CONC_QUANTITY, "value"),
+        Input(ids.CONC_UNIT, "value"),
+        Input(ids.CONC_SCALE, "value"),
+        Input(ids.TIME_UNIT, "value"),
+        Input(ids.COMPARTMENT_PICK, "value"),
+        State(ids.RUNS, "data"),
+    )
+    def concentrations(picked, quantity, unit, scale, time_unit, cids, runs):
+        data = fetch(picked, runs, archive)
+        kind_units = F.AMOUNT_UNITS if quantity == "amount" else (*F.CONCENTRATION_UNITS, *F.MOLAR_CONCENTRATION_UNITS)
+        if unit not in kind_units:
+            raise PreventUpdate
+        return F.concentration_figure(data, compartments=cids or None, quantity=quantity, unit=unit,
+                                      time_unit=time_unit, log=scale == "log")
+
+    @app.callback(
+        Output(ids.FLUX_FIGURE, "figure"),
+        Output(ids.PERMEATED_FIGURE, "figure"),
+        Input(ids.RUN_PICK, "value"),
+        Input(ids.BARRIER_PICK, "value"),
+        Input(ids.FLUX_UNIT, "value"),
+        Input(ids.TIME_UNIT, "value"),
+        State(ids.RUNS, "data"),
+    )
+    def barriers(picked, bids, unit, time_unit, runs):
+        data = fetch(picked, runs, archive)
+        chosen = bids or None
+        return (F.flux_figure(data, barriers=chosen, amount_unit=unit, time_unit=time_unit),
+                F.permeated_figure(data, barriers=chosen, amount_unit=unit, time_unit=time_unit))
+
+    @app.callback(
+        Output(ids.PROFILE_SLIDER, "max"),
+        Output(ids.PROFILE_SLIDER, "marks"),
+        Output(ids.PROFILE_SLIDER, "value"),
+        Input(ids.PROFILE_BARRIER, "value"),
+        Input(ids.RUN_PICK, "value"),
+        Input(ids.TIME_UNIT, "value"),
+        State(ids.RUNS, "data"),
+        State(ids.PROFILE_SLIDER, "value"),
+        State(ids.PROFILE_SLIDER, "max"),
+    )
+    def slider(barrier, picked, time_unit, runs, value, old_max):
+        data = [r for r in fetch(picked, runs, archive) if barrier in r.barriers]
+        if not data:
+            return 1, None, 0
+        from barrierflow.units import unit_factor
+
+        times = data[0].barriers[barrier].profile_times
+        n = len(times) - 1
+        ft = unit_factor("time", time_unit)
+        marks = {str(int(i)): f"{times[int(i)] * ft:.3g} {time_unit}"
+                 for i in sorted({round(n * f) for f in (0, 0.25, 0.5, 0.75, 1.0)})}
+        if value is None or old_max != n:
+            value = n // 2 if ctx.triggered_id != ids.TIME_UNIT else value
+        return max(n, 1), marks, min(value or 0, n)
+
+    @app.callback(
+        Output(ids.PROFILE_FIGURE, "figure"),
+        Output(ids.PROFILE_TIME, "children"),
+        Input(ids.PROFILE_SLIDER, "value"),
+        Input(ids.PROFILE_BARRIER, "value"),
+        Input(ids.PROFILE_STEADY, "value"),
+        Input(ids.TIME_UNIT, "value"),
+        State(ids.RUN_PICK, "value"),
+        State(ids.RUNS, "data"),
+    )
+    def profile(index, barrier, steady_on, time_unit, picked, runs):
+        data = [r for r in fetch(picked, runs, archive) if barrier in r.barriers]
+        if not data:
+            return F.empty_figure("Run a scenario with a barrier to see its profile."), ""
+        from barrierflow.units import unit_factor
+
+        times = data[0].barriers[barrier].profile_times
+        k = min(int(index or 0), len(times) - 1)
+        t = float(times[k])
+        steady = None
+        if steady_on:
+            steady = _steady_of(data[0], barrier)
+        ft = unit_factor("time", time_unit)
+        return (F.profile_figure(data, barrier, t, time_unit=time_unit, steady=steady),
+                f"t = {t * ft:.4g} {time_unit} (saved time {k + 1} of {len(times)})")
+
+    app.clientside_callback(
+        """
+        function(n, value, max) {
+            if (value === null || value === undefined) { return 0; }
+            return value >= max ? 0 : value + 1;
+        }
+        """,
+        Output(ids.PROFILE_SLIDER, "value", allow_duplicate=True),
+        Input(ids.PROFILE_TICK, "n_intervals"),
+        State(ids.PROFILE_SLIDER, "value"),
+        State(ids.PROFILE_SLIDER, "max"),
+        prevent_initial_call=True,
+    )
+
+    @app.callback(
+        Output(ids.PROFILE_TICK, "disabled"),
+        Output(ids.PROFILE_PLAY, "children"),
+        Input(ids.PROFILE_PLAY, "n_clicks"),
+        State(ids.PROFILE_TICK, "disabled"),
+        prevent_initial_call=True,
+    )
+    def play(_n, disabled):
+        return (False, "⏸ Pause") if disabled else (True, "▶ Play")
+
+    @app.callback(
+        Output(ids.BALANCE_FIGURE, "figure"),
+        Input(ids.BALANCE_RUN, "value"),
+        Input(BALANCE_UNIT, "value"),
+        Input(ids.TIME_UNIT, "value"),
+        State(ids.RUNS, "data"),
+    )
+    def balance(run_id, unit, time_unit, runs):
+        data = fetch([run_id] if run_id else [], runs, archive)
+        if not data:
+            return F.empty_figure("Run the scenario to see where the dose goes.")
+        return F.balance_figure(data[0], amount_unit=unit, time_unit=time_unit)
+
+    @app.callback(
+        Output(ids.METRICS_GRID, "rowData"),
+        Output(ids.METRICS_GRID, "columnDefs"),
+        Output(ids.WARNINGS, "children"),
+        Input(ids.RUN_PICK, "value"),
+        Input(ids.REFERENCE, "value"),
+        State(ids.RUNS, "data"),
+    )
+    def metrics(picked, reference, runs):
+        data = fetch(picked, runs, archive)
+        order = [r["id"] for r in runs or [] if r["id"] in set(picked or []) and not r.get("error")]
+        ref = order.index(reference) if reference in order else 0
+        rows, names = compare_rows(data, ref)
+        notes = []
+        for r in data:
+            for w in r.warnings:
+                notes.append(html.Li(f"{r.name}: {w}"))
+            mb = r.mass_balance
+            notes.append(html.Li(f"{r.name}: mass balance error {mb.get('absolute_error', float('nan')):.3g} mg "
+                                 f"({mb.get('relative_error', float('nan')):.2g} relative)", className="fine"))
+        return rows, compare_columns(names, ref), html.Ul(notes) if notes else ""
+
+    @app.callback(
+        Output(ids.EXPORT_DOWNLOAD, "data"),
+        Input(ids.EXPORT_CSV, "n_clicks"),
+        Input(ids.EXPORT_SIDECAR, "n_clicks"),
+        Input(ids.EXPORT_METRICS, "n_clicks"),
+        Input(ids.EXPORT_COMPARISON, "n_clicks"),
+        State(ids.EXPORT_RUN, "value"),
+        State(ids.RUN_PICK, "value"),
+        State(ids.REFERENCE, "value"),
+        State(ids.RUNS, "data"),
+        prevent_initial_call=True,
+    )
+    def export(_csv, _side, _met, _cmp, run_id, picked, reference, runs):
+        trigger = ctx.triggered_id
+        if trigger == ids.EXPORT_COMPARISON:
+            data = fetch(picked, runs, archive)
+            if not data:
+                raise PreventUpdate
+            order = [r["id"] for r in runs or [] if r["id"] in set(picked or []) and not r.get("error")]
+            ref = order.index(reference) if reference in order else 0
+            return dcc.send_string(comparison_csv(data, ref), "comparison.csv", type="text/csv")
+        record = next((r for r in runs or [] if r["id"] == run_id), None)
+        if record is None:
+            raise PreventUpdate
+        data = archive.fetch(record)
+        if data is None:
+            raise PreventUpdate
+        stem = (record.get("file") or "barrierflow-run").removesuffix(".toml")
+        if trigger == ids.EXPORT_CSV:
+            return dcc.send_string(data.csv, f"{stem}.csv", type="text/csv")
+        if trigger == ids.EXPORT_METRICS:
+            if not data.metrics_csv:
+                raise PreventUpdate
+            return dcc.send_string(data.metrics_csv, f"{stem}-metrics.csv", type="text/csv")
+        return dcc.send_string(sidecar_text(data), f"{stem}.json", type="application/json")
+
+    @app.callback(
+        [Output(g, "config") for g in RESULT_GRAPHS],
+        Input(ids.IMAGE_FORMAT, "value"),
+        prevent_initial_call=True,
+    )
+    def image_format(fmt):
+        config = dict(GRAPH_CONFIG, toImageButtonOptions={"format": fmt, "scale": 2 if fmt == "png" else 1})
+        return [config] * len(RESULT_GRAPHS)
+
+
+def _steady_of(run: RunData, barrier: str) -> Any:
+    """The steady state of a barrier of a run, from the run's scenario (None when not available)."""
+    import barrierflow
+    from barrierflow.analysis.steady import steady_state
+
+    toml = run.sidecar.get("scenario", {}).get("toml")
+    if not toml:
+        return None
+    try:
+        report = steady_state(barrierflow.loads(toml))
+        return report.barrier(barrier)
+    except (KeyError, ValueError, ArithmeticError):
+        return None

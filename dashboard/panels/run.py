@@ -1,0 +1,276 @@
+"""Run: validation of the draft, duration and output step, the run button, the runs of the session."""
+
+from __future__ import annotations
+
+import time
+from typing import Any
+
+from dash import Input, Output, State, ctx, dcc, html, no_update
+from dash.exceptions import PreventUpdate
+
+from barrierflow.errors import BarrierflowError, SolverError
+
+from .. import draft as D
+from .. import ids
+from ..runs import RunArchive, execute, new_record, run_key
+from .common import message_list
+
+
+def layout(initial: dict[str, Any]) -> html.Div:
+    """The run card's body."""
+    head = initial["scenario"]
+    return html.Div([
+        html.Div([
+            html.Div([
+                html.Label("Duration of the run", htmlFor=ids.DURATION, className="field-label"),
+                dcc.Input(id=ids.DURATION, type="text", debounce=True, value=head["duration"],
+                          className="field-input", placeholder="e.g. 7 d"),
+                html.Span("time, e.g. 24 h, 7 d", className="field-hint"),
+                html.Div(id=ids.scenario_message("duration"), className="field-message"),
+            ], className="run-field"),
+            html.Div([
+                html.Label("Output every", htmlFor=ids.OUTPUT_STEP, className="field-label"),
+                dcc.Input(id=ids.OUTPUT_STEP, type="text", debounce=True, value=head["output_step"],
+                          className="field-input", placeholder="e.g. 15 min"),
+                html.Span("time; empty: 500 equal steps", className="field-hint"),
+                html.Div(id=ids.scenario_message("output_step"), className="field-message"),
+                html.Div(id=ids.OUTPUT_TIMES_NOTE, className="fine-print"),
+            ], className="run-field"),
+            html.Div([
+                html.Label("Name of the run", htmlFor=ids.RUN_NAME, className="field-label"),
+                dcc.Input(id=ids.RUN_NAME, type="text", debounce=False, value="", className="field-input",
+                          placeholder="run 1"),
+                html.Span("shown in legends and tables", className="field-hint"),
+            ], className="run-field"),
+            html.Div([
+                html.Button("Run", id=ids.RUN, className="btn primary big"),
+                html.Button("Cancel", id=ids.CANCEL, className="btn", disabled=True),
+            ], className="run-buttons"),
+        ], className="run-row"),
+        html.Div([
+            html.Progress(id=ids.PROGRESS, value="0", max="100", className="progress"),
+            html.Span(id=ids.PROGRESS_TEXT, className="progress-text"),
+        ], className="progress-row"),
+        html.Div(id=ids.RUN_STATUS, className="run-status", role="status"),
+        html.Div(id=ids.PROBLEMS, className="problems", role="alert"),
+        html.Div([
+            html.Div([
+                html.Label("Runs of this session: tick two or more to compare them in every plot",
+                           className="field-label"),
+                dcc.Checklist(id=ids.RUN_PICK, options=[], value=[], className="run-pick"),
+                html.Div("No runs yet.", id="runs-empty", className="empty-note"),
+            ], className="runs-list"),
+            html.Div([
+                html.Label("Reference run for ratios", htmlFor=ids.REFERENCE, className="field-label"),
+                dcc.Dropdown(id=ids.REFERENCE, options=[], clearable=False, className="reference-pick"),
+                html.Button("Forget all runs", id=ids.RUNS_CLEAR, className="btn danger-outline small"),
+            ], className="runs-reference"),
+        ], className="runs-row"),
+    ])
+
+
+def make_run(valid: dict[str, Any] | None, found: dict[str, Any] | None, name: str | None,
+             runs: list[dict[str, Any]] | None, archive: RunArchive,
+             progress: Any = None) -> tuple[list[dict[str, Any]], Any]:
+    """Simulate the last valid scenario, keep it in the archive and add it to the runs.
+
+    Returns
+    -------
+    runs : list of dict
+        The run records, the new one last.
+    status : component
+        What to tell the researcher.
+    """
+    runs = list(runs or [])
+    if not valid or not valid.get("toml"):
+        return runs, html.Span("Nothing to run yet: the scenario has never been valid. Fix the problems listed "
+                               "below.", className="bad")
+    number = 1 + max((int(r["id"][1:]) for r in runs), default=0)
+    name = (name or "").strip() or f"run {number}"
+    toml = valid["toml"]
+    key = run_key(toml)
+    started = time.perf_counter()
+    data = archive.get(key)
+    reused = data is not None
+    error = ""
+    if data is None:
+        try:
+            data = execute(toml, name, valid.get("file"), progress=progress)
+        except SolverError as err:
+            error = f"The numerical solution failed: {err}"
+        except BarrierflowError as err:
+            error = str(err)
+        else:
+            archive.put(key, data)
+    elapsed = time.perf_counter() - started
+    record = new_record(f"r{number}", name, toml, valid.get("file"), data, error)
+    runs.append(record)
+    stale = found is not None and not found.get("ok")
+    parts = []
+    if error:
+        parts.append(html.Span(f"{name} failed. {error}", className="bad"))
+    else:
+        how = "the same scenario was run before; its result is reused" if reused else \
+            f"simulated in {data.stats.get('wall_time_s', elapsed):.2f} s"
+        parts.append(html.Span(f"{name} done: {data.scenario_name or 'unnamed scenario'}, "
+                               f"{len(data.times)} output times, {how}.", className="good"))
+        if data.status != 0:
+            parts.append(html.Span(f" The run stopped early: {data.message}", className="bad"))
+    if stale:
+        parts.append(html.Span(" The edited scenario has problems, so this run used its last valid version.",
+                               className="warn"))
+    return runs, parts
+
+
+def register(app: Any, services: Any) -> None:
+    """Attach the run panel's callbacks."""
+    archive = services.archive
+
+    @app.callback(
+        Output(ids.CHECK, "data"),
+        Output(ids.VALID, "data"),
+        Input(ids.DRAFT, "data"),
+    )
+    def validate(d):
+        _scenario, found = D.check(d)
+        valid = {"toml": found["toml"], "name": found["name"], "digest": found["digest"], "file": d["file"]}
+        return found, (valid if found["ok"] else no_update)
+
+    @app.callback(
+        Output(ids.PROBLEMS, "children"),
+        Output(ids.RUN, "children"),
+        Output(ids.scenario_message("duration"), "children"),
+        Output(ids.scenario_message("output_step"), "children"),
+        Output(ids.DURATION, "className"),
+        Output(ids.OUTPUT_STEP, "className"),
+        Output(ids.OUTPUT_TIMES_NOTE, "children"),
+        Input(ids.CHECK, "data"),
+        State(ids.VALID, "data"),
+        State(ids.DRAFT, "data"),
+    )
+    def problems(found, valid, d):
+        msgs = found.get("messages", {})
+        dur = " ".join(msgs.get("s:duration", []))
+        step = " ".join(msgs.get("s:output_step", []) + msgs.get("s:output_times", []))
+        note = ""
+        if d.get("output_times"):
+            note = (f"The file gives {len(d['output_times'])} explicit output times; typing a step here "
+                    "replaces them.")
+        cls = ("field-input invalid" if dur else "field-input", "field-input invalid" if step else "field-input")
+        if found.get("ok"):
+            return "", "Run", dur, step, cls[0], cls[1], note
+        n = len(found.get("all", []))
+        has_valid = bool(valid and valid.get("toml"))
+        head = (f"The scenario has {n} problem{'s' if n != 1 else ''}. "
+                + ("The Run button runs its last valid version." if has_valid else
+                   "Fix them to run it."))
+        return ([html.Div(head, className="problems-head"), message_list(found.get("all", []))],
+                "Run last valid version" if has_valid else "Run", dur, step, cls[0], cls[1], note)
+
+    @app.callback(
+        Output(ids.DURATION, "value"),
+        Output(ids.OUTPUT_STEP, "value"),
+        Input(ids.LOADED, "data"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+    def refresh(_loaded, d):
+        return d["scenario"]["duration"], d["scenario"]["output_step"]
+
+    @app.callback(
+        Output(ids.DRAFT, "data", allow_duplicate=True),
+        Input(ids.DURATION, "value"),
+        Input(ids.OUTPUT_STEP, "value"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+    def edit(duration, step, d):
+        changes = {}
+        if (duration or "") != d["scenario"]["duration"]:
+            changes["duration"] = duration or ""
+        if (step or "") != d["scenario"]["output_step"]:
+            changes["output_step"] = step or ""
+        if not changes:
+            raise PreventUpdate
+        return D.set_scenario(d, **changes)
+
+    @app.callback(
+        Output(ids.RUNS, "data"),
+        Output(ids.RUN_STATUS, "children"),
+        Output(ids.RUN_NAME, "value"),
+        Input(ids.RUN, "n_clicks"),
+        State(ids.VALID, "data"),
+        State(ids.CHECK, "data"),
+        State(ids.RUN_NAME, "value"),
+        State(ids.RUNS, "data"),
+        background=True,
+        manager=services.manager,
+        progress=[Output(ids.PROGRESS, "value"), Output(ids.PROGRESS_TEXT, "children")],
+        progress_default=["0", ""],
+        running=[
+            (Output(ids.RUN, "disabled"), True, False),
+            (Output(ids.CANCEL, "disabled"), False, True),
+            (Output(ids.PROGRESS, "className"), "progress running", "progress"),
+        ],
+        cancel=[Input(ids.CANCEL, "n_clicks")],
+        interval=services.poll_ms,
+        prevent_initial_call=True,
+    )
+    def run(set_progress, _n, valid, found, name, runs):
+        last = [0.0]
+
+        def progress(fraction: float) -> None:
+            now = time.perf_counter()
+            if now - last[0] > 0.2 or fraction >= 1.0:
+                last[0] = now
+                set_progress([f"{100 * fraction:.0f}", f"{100 * fraction:.0f} % of the simulated time"])
+
+        new_runs, status = make_run(valid, found, name, runs, archive, progress)
+        return new_runs, status, ""
+
+    @app.callback(
+        Output(ids.RUNS, "data", allow_duplicate=True),
+        Output(ids.RUN_STATUS, "children", allow_duplicate=True),
+        Input(ids.RUNS_CLEAR, "n_clicks"),
+        prevent_initial_call=True,
+    )
+    def clear(_n):
+        return [], "All runs of this session were forgotten."
+
+    @app.callback(
+        Output(ids.RUN_PICK, "options"),
+        Output(ids.RUN_PICK, "value"),
+        Output("runs-empty", "style"),
+        Output(ids.RUN_NAME, "placeholder"),
+        Input(ids.RUNS, "data"),
+        State(ids.RUN_PICK, "value"),
+    )
+    def list_runs(runs, picked):
+        runs = runs or []
+        opts = []
+        for r in runs:
+            took = f", {r['wall_time_s']:.2f} s" if r.get("wall_time_s") is not None else ""
+            failed = " (failed)" if r.get("error") or r.get("status") else ""
+            opts.append({"label": f" {r['name']}{failed}: {r.get('scenario') or r.get('file') or ''} "
+                                  f"[{r['created']}{took}]", "value": r["id"], "disabled": bool(r.get("error"))})
+        number = 1 + max((int(r["id"][1:]) for r in runs), default=0)
+        existing = {r["id"] for r in runs}
+        value = [v for v in (picked or []) if v in existing]
+        if ctx.triggered_id == ids.RUNS and runs and runs[-1]["id"] not in value and not runs[-1].get("error"):
+            value = [runs[-1]["id"]]
+        return opts, value, ({"display": "none"} if runs else {}), f"run {number}"
+
+    @app.callback(
+        Output(ids.REFERENCE, "options"),
+        Output(ids.REFERENCE, "value"),
+        Input(ids.RUN_PICK, "value"),
+        State(ids.RUNS, "data"),
+        State(ids.REFERENCE, "value"),
+    )
+    def reference(picked, runs, current):
+        by_id = {r["id"]: r for r in runs or []}
+        opts = [{"label": by_id[v]["name"], "value": v} for v in picked or [] if v in by_id]
+        if not opts:
+            return [], None
+        values = [o["value"] for o in opts]
+        return opts, current if current in values else values[0]

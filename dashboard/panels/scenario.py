@@ -1,0 +1,154 @@
+"""The scenario bar: open an example, upload a TOML file, start empty, save as TOML."""
+
+from __future__ import annotations
+
+import base64
+from pathlib import Path
+from typing import Any
+
+from dash import Input, Output, State, dcc, html, no_update
+from dash.exceptions import PreventUpdate
+
+import barrierflow
+from barrierflow.errors import ScenarioError
+
+from .. import draft as D
+from .. import ids
+from .common import message_list
+
+
+def layout(examples: dict[str, str], initial: dict[str, Any]) -> html.Div:
+    """The bar above the editor. ``examples`` maps a file path to its label."""
+    options = [{"label": label, "value": path} for path, label in examples.items()]
+    return html.Div([
+        html.Div([
+            html.Label("Example scenario", htmlFor=ids.EXAMPLE, className="field-label"),
+            html.Div([
+                dcc.Dropdown(id=ids.EXAMPLE, options=options, value=options[0]["value"] if options else None,
+                             clearable=False, className="example-pick", placeholder="pick an example"),
+                html.Button("Open example", id=ids.OPEN_EXAMPLE, className="btn"),
+            ], className="field-line"),
+        ], className="bar-group"),
+        html.Div([
+            html.Label("Your own file", className="field-label"),
+            dcc.Upload(id=ids.UPLOAD, children=html.Button("Upload TOML…", className="btn", tabIndex=-1),
+                       accept=".toml,text/plain", multiple=False, className="upload"),
+        ], className="bar-group"),
+        html.Div([
+            html.Label("Start again", className="field-label"),
+            html.Button("New empty scenario", id=ids.NEW, className="btn"),
+        ], className="bar-group"),
+        html.Div([
+            html.Label("Scenario name", htmlFor=ids.SCENARIO_NAME, className="field-label"),
+            dcc.Input(id=ids.SCENARIO_NAME, type="text", debounce=True, value=initial["scenario"]["name"],
+                      className="field-input wide", placeholder="free text"),
+        ], className="bar-group grow"),
+        html.Div([
+            html.Label("File name", htmlFor=ids.FILE_NAME, className="field-label"),
+            html.Div([
+                dcc.Input(id=ids.FILE_NAME, type="text", debounce=True, value=initial["file"],
+                          className="field-input", placeholder="untitled.toml"),
+                html.Button("Save as TOML", id=ids.SAVE, className="btn primary-outline"),
+            ], className="field-line"),
+        ], className="bar-group"),
+        dcc.Download(id=ids.SAVE_DOWNLOAD),
+        html.Div(id=ids.OPEN_MESSAGE, className="open-message", role="status"),
+    ], className="scenario-bar")
+
+
+def open_example(path: str) -> dict[str, Any]:
+    """A draft of an example file (examples are valid by construction; see tests)."""
+    scenario = barrierflow.load(path)
+    return D.draft_from_scenario(scenario, Path(path).name)
+
+
+def open_upload(contents: str, filename: str | None) -> tuple[dict[str, Any] | None, list[str]]:
+    """A draft of an uploaded file, and its problems (the draft keeps whatever the file holds)."""
+    name = Path(filename or "uploaded.toml").name
+    try:
+        _kind, data = contents.split(",", 1)
+        text = base64.b64decode(data).decode("utf-8")
+    except (ValueError, UnicodeDecodeError):
+        return None, [f"{name}: file: got unreadable contents; expected a UTF-8 TOML scenario file"]
+    try:
+        scenario = barrierflow.loads(text, name)
+    except ScenarioError:
+        d, problems = D.draft_from_toml(text, name)
+        return d, [str(p) for p in problems]
+    return D.draft_from_scenario(scenario, name), []
+
+
+def register(app: Any, services: Any) -> None:
+    """Attach the scenario bar's callbacks."""
+
+    @app.callback(
+        Output(ids.DRAFT, "data", allow_duplicate=True),
+        Output(ids.OPEN_MESSAGE, "children"),
+        Output(ids.SELECT, "value", allow_duplicate=True),
+        Output(ids.LOADED, "data"),
+        Input(ids.OPEN_EXAMPLE, "n_clicks"),
+        Input(ids.UPLOAD, "contents"),
+        Input(ids.NEW, "n_clicks"),
+        State(ids.EXAMPLE, "value"),
+        State(ids.UPLOAD, "filename"),
+        prevent_initial_call=True,
+    )
+    def open_scenario(_ex, contents, _new, example, filename):
+        from dash import ctx
+
+        trigger = ctx.triggered_id
+        problems: list[str] = []
+        if trigger == ids.OPEN_EXAMPLE:
+            if not example:
+                raise PreventUpdate
+            try:
+                d = open_example(example)
+            except ScenarioError as err:
+                return no_update, message_list([str(p) for p in err.problems]), no_update, no_update
+            note = f"Opened the example {Path(example).name}."
+        elif trigger == ids.UPLOAD:
+            if not contents:
+                raise PreventUpdate
+            d, problems = open_upload(contents, filename)
+            if d is None:
+                return no_update, message_list(problems), no_update, no_update
+            note = (f"Opened {d['file']}; it has problems, shown at their fields below."
+                    if problems else f"Opened {d['file']}.")
+        else:
+            d = D.new_draft()
+            note = "Started an empty scenario: add compartments on the canvas."
+        message = [html.Span(note)] + ([message_list(problems)] if problems else [])
+        return d, message, D.first_selection(d), {"gen": d["gen"]}
+
+    @app.callback(
+        Output(ids.SCENARIO_NAME, "value"),
+        Output(ids.FILE_NAME, "value"),
+        Input(ids.LOADED, "data"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+    def refresh_bar(_loaded, d):
+        return d["scenario"]["name"], d["file"]
+
+    @app.callback(
+        Output(ids.DRAFT, "data", allow_duplicate=True),
+        Input(ids.SCENARIO_NAME, "value"),
+        Input(ids.FILE_NAME, "value"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+    def edit_names(name, file, d):
+        new = D.set_scenario(d, name=name or "", file=file or "")
+        if new == d:
+            raise PreventUpdate
+        return new
+
+    @app.callback(
+        Output(ids.SAVE_DOWNLOAD, "data"),
+        Input(ids.SAVE, "n_clicks"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+    def save(_n, d):
+        text, _valid = D.save_text(d)
+        return dcc.send_string(text, d.get("file") or "untitled.toml", type="application/toml")

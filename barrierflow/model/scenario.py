@@ -338,7 +338,7 @@ class Scenario:
             if kind is None:
                 kind = next((k for k in links if k in attrs), None)
             label = key if isinstance(key, str) else f"{u} -> {v}"
-            if kind not in links:
+            if not isinstance(kind, str) or kind not in links:
                 problems.append(Problem(f"link '{label}' kind", repr(kind),
                                         "must be 'barrier', 'exchange' or 'transfer'"))
                 continue

@@ -202,3 +202,33 @@ def test_connected_network_has_no_note():
     assert s.components() == [["central", "patch", "peripheral"]]
     assert s.summary() == ("3 compartments, 1 barrier (2 layers), 1 exchange, 0 transfers, 1 dose, "
                            "duration 168 h")
+
+
+def test_odd_attribute_values_give_a_scenario_error_and_never_a_crash():
+    # a seeded sweep over odd Python values in node, edge, layer and dose attributes
+    import math
+    import random
+
+    rng = random.Random(7)
+    odd = [5, -1, 0, "x", "5 kg", [1, 2], {"a": 1}, True, None, math.nan, math.inf, "nan mg", "", "1 mmol/L",
+           [], (), 1e-320, "1 d", object(), b"5 mL", 3 + 0j]
+    for _ in range(200):
+        nodes = {"patch": {"volume": "1 mL", "initial_concentration": "10 mg/mL"},
+                 "central": {"volume": "5 L", "clearance": "10 L/h"}}
+        layer = {"thickness": "15 um", "diffusivity": "1e-9 cm^2/s", "partition": 10}
+        edge = {"kind": "barrier", "area": "10 cm^2", "layers": [layer]}
+        dose = {"target": "patch", "kind": "bolus", "amount": "1 mg"}
+        for _ in range(rng.randint(1, 3)):
+            where = rng.choice([nodes["patch"], nodes["central"], edge, layer, dose])
+            keys = {id(edge): ["area", "kind", "layers", "model"], id(layer): ["thickness", "diffusivity", "cells"],
+                    id(dose): ["amount", "kind", "at", "target"]}.get(id(where), ["volume", "vmax", "partition"])
+            where[rng.choice(keys)] = rng.choice(odd)
+        g = nx.MultiDiGraph()
+        for name, attrs in nodes.items():
+            g.add_node(name, **attrs)
+        g.add_edge("patch", "central", key="skin", **edge)
+        try:
+            s = Scenario.from_graph(g, doses=[dose], duration=rng.choice(["7 d", 24.0, -1.0, "x"]))
+        except ScenarioError:
+            continue
+        assert barrierflow.loads(s.to_toml()) == s

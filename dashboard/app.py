@@ -99,8 +99,8 @@ def page(initial: dict[str, Any], examples: dict[str, str]) -> html.Div:
     editor = html.Div([
         card("Network", network.layout(initial), id="card-network", class_name="network-card",
              extra=html.Span("drag compartments to move them; click to select", className="fine-print")),
-        card("Properties", properties.layout(D.first_selection(initial)), id="card-properties",
-             class_name="properties-card"),
+        card("Properties", properties.layout(D.first_selection(initial), network.element_options(initial)),
+             id="card-properties", class_name="properties-card"),
     ], className="editor-row")
     return html.Div([
         header,

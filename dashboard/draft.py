@@ -534,8 +534,12 @@ def compartment_by_id(draft: Mapping[str, Any], cid: str) -> dict[str, Any] | No
 
 
 def _unique_id(draft: Mapping[str, Any], stem: str) -> str:
+    """``<stem>_<n>``, n one more than the number of such elements (or the next free number)."""
     used = {c.get("id") for c in draft.get("compartments", [])} | {x.get("id") for x in draft.get("links", [])}
-    i = 1
+    if stem == "compartment":
+        i = len(draft.get("compartments", [])) + 1
+    else:
+        i = sum(1 for x in draft.get("links", []) if x.get("kind") == stem) + 1
     while f"{stem}_{i}" in used:
         i += 1
     return f"{stem}_{i}"

@@ -298,7 +298,7 @@ def stack_figure(layers: Sequence[Mapping[str, Any]], height: int = 150) -> dict
         if t is None or not np.isfinite(t) or t <= 0:
             continue
         t_um = t * UM_PER_CM
-        data.append({"type": "bar", "orientation": "h", "x": [t_um], "y": [""], "base": [total],
+        data.append({"type": "bar", "orientation": "h", "x": [t_um], "y": ["stack"], "base": [total],
                      "name": f"{i + 1}. {name} ({t_um:.4g} µm)",
                      "marker": {"color": LAYER_FILLS[i % len(LAYER_FILLS)], "line": {"color": INK, "width": 1.2},
                                 "pattern": {"shape": ("", "/", ".", "x", "\\", "+")[i % 6], "fgcolor": MUTED,

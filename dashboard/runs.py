@@ -79,6 +79,8 @@ class RunData:
         The traces CSV, the exact text ``barrierflow run`` writes.
     sidecar : dict
         The JSON sidecar (its ``created`` time is when the run was made).
+    sidecar_text : str
+        The sidecar as ``barrierflow run`` writes it.
     status : int
     message : str
     stats : dict
@@ -105,6 +107,7 @@ class RunData:
     warnings: tuple[str, ...]
     csv: str
     sidecar: dict[str, Any]
+    sidecar_text: str
     status: int
     message: str
     stats: dict[str, Any]
@@ -198,6 +201,11 @@ def pack(result: Any, name: str) -> RunData:
             profile_conc=conc)
     mb = result.mass_balance
     metrics, metrics_csv = metric_rows(result)
+    # the exports are written by the library's own writer, so they are the bytes the CLI writes
+    with tempfile.TemporaryDirectory(prefix="barrierflow-export-") as tmp:
+        csv_path = result.to_csv(Path(tmp) / "run.csv")
+        csv_text = csv_path.read_text(encoding="utf-8")
+        sidecar_json = csv_path.with_suffix(".json").read_text(encoding="utf-8")
     return RunData(
         name=name, scenario_name=s.name, times=times, compartments=comps,
         held={c.id: c.held for c in s.compartments},
@@ -206,7 +214,7 @@ def pack(result: Any, name: str) -> RunData:
         eliminated={c: result.eliminated(c) for c in comps}, removed={c: result.removed(c) for c in comps},
         dosed={c: result.dosed(c) for c in comps}, barriers=barriers,
         initial_amount=float(mb.initial), mass_balance=mb.as_dict(), metrics=metrics, metrics_csv=metrics_csv,
-        warnings=tuple(result.warnings()), csv=result.csv_text(), sidecar=result.sidecar(),
+        warnings=tuple(result.warnings()), csv=csv_text, sidecar=json.loads(sidecar_json), sidecar_text=sidecar_json,
         status=int(result.status), message=str(result.message), stats=dict(result.stats),
         molar_mass=s.substance.molar_mass, dose_times=tuple(result.dose_times))
 
@@ -281,18 +289,3 @@ def new_record(run_id: str, name: str, toml_text: str, file: str | None, data: R
         "wall_time_s": float(data.stats.get("wall_time_s", math.nan)) if data is not None else None,
         "error": error,
     }
-
-
-def sidecar_text(data: RunData) -> str:
-    """The JSON sidecar of a run, as ``barrierflow run`` writes it (indent 2)."""
-    return json.dumps(data.sidecar, indent=2, default=_json_default) + "\n"
-
-
-def _json_default(x: Any) -> Any:
-    if isinstance(x, np.generic):
-        return x.item()
-    if isinstance(x, np.ndarray):
-        return x.tolist()
-    if isinstance(x, float) and not math.isfinite(x):
-        return str(x)
-    return str(x)

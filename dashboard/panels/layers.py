@@ -242,7 +242,8 @@ def register(app: Any, services: Any) -> None:
                 row_key = ev.get("rowId") or (ev.get("data") or {}).get("key")
                 col = ev.get("colId")
                 if row_key in keys and col in D.LAYER_FIELDS:
-                    value = ev.get("newValue")
+                    # dash-ag-grid reports the new value as "value" (older versions: "newValue")
+                    value = ev["value"] if "value" in ev else ev.get("newValue")
                     rows[keys.index(row_key)][col] = "" if value is None else str(value)
                     touched = True
             if not touched:

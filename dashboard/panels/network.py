@@ -168,6 +168,7 @@ def register(app: Any, services: Any) -> None:
 
     @app.callback(
         Output(ids.DRAFT, "data", allow_duplicate=True),
+        Output(ids.SELECT, "options", allow_duplicate=True),
         Output(ids.SELECT, "value", allow_duplicate=True),
         Output(ids.NETWORK_MESSAGE, "children"),
         Output(ids.CANVAS, "elements", allow_duplicate=True),
@@ -186,40 +187,43 @@ def register(app: Any, services: Any) -> None:
         prevent_initial_call=True,
     )
     def act(_add, _delete, _connect, _tidy, d, selected, kind, from_key, to_key, current):
+        # the picker's options go out with its value: a value missing from the options is dropped
         trigger = ctx.triggered_id
         positions = canvas_positions(current)
         if trigger == ids.ADD_COMPARTMENT:
             new, key = D.add_compartment(d, position=free_spot(positions))
             name = D.find(new, key)["id"]
-            return (new, f"c:{key}", f"Added compartment {name} (1 mL); edit it on the right.", no_update,
-                    no_update, no_update)
+            return (new, element_options(new), f"c:{key}", f"Added compartment {name} (1 mL); edit it on the right.",
+                    no_update, no_update, no_update)
         if trigger == ids.DELETE:
             if not selected:
-                return no_update, no_update, "Select a compartment or a link first (click it).", no_update, \
-                    no_update, no_update
+                return (no_update, no_update, no_update, "Select a compartment or a link first (click it).",
+                        no_update, no_update, no_update)
             key = selected.split(":", 1)[1]
             item = D.find(d, key)
             if item is None:
                 raise PreventUpdate
             what = "link" if selected.startswith("l:") else "compartment"
-            return (D.delete(d, key), None, f"Deleted {what} {item.get('id') or ''}.", no_update,
+            new = D.delete(d, key)
+            return (new, element_options(new), None, f"Deleted {what} {item.get('id') or ''}.", no_update,
                     no_update, no_update)
         if trigger == ids.CONNECT:
             try:
                 new, key = D.connect(d, kind, from_key, to_key)
             except ValueError as err:
-                return no_update, no_update, str(err), no_update, no_update, no_update
+                return no_update, no_update, no_update, str(err), no_update, no_update, no_update
             link = D.find(new, key)
-            return (new, f"l:{key}", f"Connected with {kind} {link['id']}; edit it on the right.", no_update,
-                    None, None)
+            return (new, element_options(new), f"l:{key}", f"Connected with {kind} {link['id']}; edit it on the right.",
+                    no_update, None, None)
         if trigger == ids.TIDY:
             new = dict(d)
             new["positions"] = D.tidy_positions(d)
-            return new, no_update, "Laid out the network, sources at the left.", elements(new, None, selected), \
-                no_update, no_update
+            return (new, no_update, no_update, "Laid out the network, sources at the left.",
+                    elements(new, None, selected), no_update, no_update)
         raise PreventUpdate
 
     @app.callback(
+        Output(ids.SELECT, "options", allow_duplicate=True),
         Output(ids.SELECT, "value", allow_duplicate=True),
         Output(ids.PENDING, "data"),
         Output(ids.DRAFT, "data", allow_duplicate=True),
@@ -239,17 +243,19 @@ def register(app: Any, services: Any) -> None:
         if prop == "tapEdgeData":
             if not edge:
                 raise PreventUpdate
-            return f"l:{edge['id']}", None, no_update, no_update
+            return element_options(d), f"l:{edge['id']}", None, no_update, no_update
         if not node:
             raise PreventUpdate
         key = node["id"]
+        opts = element_options(d)
         if "on" not in (click_mode or []):
-            return f"c:{key}", None, no_update, no_update
+            return opts, f"c:{key}", None, no_update, no_update
         if not pending or D.find(d, pending) is None:
             name = D.find(d, key)["id"]
-            return f"c:{key}", key, no_update, f"Drawing a {kind} from {name}: now click the receiving compartment."
+            return (opts, f"c:{key}", key, no_update,
+                    f"Drawing a {kind} from {name}: now click the receiving compartment.")
         if pending == key:
-            return f"c:{key}", None, no_update, "Cancelled: a link needs two different compartments."
+            return opts, f"c:{key}", None, no_update, "Cancelled: a link needs two different compartments."
         new, link_key = D.connect(d, kind, pending, key)
         link = D.find(new, link_key)
-        return f"l:{link_key}", None, new, f"Connected with {kind} {link['id']}."
+        return element_options(new), f"l:{link_key}", None, new, f"Connected with {kind} {link['id']}."

@@ -64,11 +64,11 @@ def _link_form() -> html.Div:
                     id="form-link", className="form", style={"display": "none"})
 
 
-def layout(selected: str | None = None) -> html.Div:
+def layout(selected: str | None = None, options: list[dict[str, str]] | None = None) -> html.Div:
     """The properties card's body, with ``selected`` (``"c:<key>"`` or ``"l:<key>"``) picked."""
     return html.Div([
         html.Label("Edit", htmlFor=ids.SELECT, className="field-label"),
-        dcc.Dropdown(id=ids.SELECT, options=[], value=selected, className="element-select",
+        dcc.Dropdown(id=ids.SELECT, options=options or [], value=selected, className="element-select",
                      placeholder="click an element on the canvas, or pick it here"),
         html.Div("Nothing selected. Click a compartment or a link on the canvas, or add one.",
                  id="form-empty", className="empty-note"),

@@ -14,7 +14,7 @@ from dash.exceptions import PreventUpdate
 
 from .. import figures as F
 from .. import ids
-from ..runs import RunArchive, RunData, sidecar_text
+from ..runs import RunArchive, RunData
 from .common import GRAPH_CONFIG, graph, labelled
 
 BALANCE_UNIT = "balance-unit"
@@ -69,7 +69,8 @@ def ratio(value: Any, reference: Any) -> float | None:
 
 def compare_columns(names: Sequence[str], reference: int = 0) -> list[dict[str, Any]]:
     """Columns of the metrics table: the metric, each run's value, the ratios to the reference."""
-    fmt = {"function": "typeof params.value === 'number' ? d3.format('.4~g')(params.value) : "
+    # four significant digits, trailing zeros dropped (2.000 -> 2, 1.0e-7 -> 1e-7)
+    fmt = {"function": "typeof params.value === 'number' ? String(parseFloat(params.value.toPrecision(4))) : "
                        "(params.value == null ? '' : String(params.value))"}
     cols: list[dict[str, Any]] = [
         {"field": "part", "headerName": "Part", "width": 120, "pinned": "left"},
@@ -167,8 +168,13 @@ def layout() -> html.Div:
         graph(ids.BALANCE_FIGURE, F.empty_figure("Run the scenario to see where the dose goes.")),
     ])
     metrics_tab = html.Div([
-        html.Div("Metrics of each ticked run, side by side; with two or more runs, the ratio of each to the "
-                 "reference run (chosen in the run panel).", className="fine-print"),
+        html.Div([
+            labelled("Find a metric", dcc.Input(id=ids.METRICS_FILTER, type="search", debounce=False,
+                                                placeholder="e.g. Cmax, lag, skin", className="field-input")),
+            html.Div("Metrics of each ticked run, side by side, in the scenario's output units; with two or more "
+                     "runs, the ratio of each to the reference run (chosen in the run panel).",
+                     className="fine-print"),
+        ], className="controls"),
         dag.AgGrid(id=ids.METRICS_GRID, columnDefs=compare_columns([]), rowData=[],
                    defaultColDef={"resizable": True, "sortable": True, "filter": True},
                    dashGridOptions={"domLayout": "normal", "tooltipShowDelay": 200},
@@ -386,6 +392,15 @@ def register(app: Any, services: Any) -> None:
         return rows, compare_columns(names, ref), html.Ul(notes) if notes else ""
 
     @app.callback(
+        Output(ids.METRICS_GRID, "dashGridOptions"),
+        Input(ids.METRICS_FILTER, "value"),
+        State(ids.METRICS_GRID, "dashGridOptions"),
+        prevent_initial_call=True,
+    )
+    def find_metric(text, options):
+        return {**(options or {}), "quickFilterText": text or ""}
+
+    @app.callback(
         Output(ids.EXPORT_DOWNLOAD, "data"),
         Input(ids.EXPORT_CSV, "n_clicks"),
         Input(ids.EXPORT_SIDECAR, "n_clicks"),
@@ -419,7 +434,7 @@ def register(app: Any, services: Any) -> None:
             if not data.metrics_csv:
                 raise PreventUpdate
             return dcc.send_string(data.metrics_csv, f"{stem}-metrics.csv", type="text/csv")
-        return dcc.send_string(sidecar_text(data), f"{stem}.json", type="application/json")
+        return dcc.send_string(data.sidecar_text, f"{stem}.json", type="application/json")
 
     @app.callback(
         [Output(g, "config") for g in RESULT_GRAPHS],

@@ -268,9 +268,10 @@ def register(app: Any, services: Any) -> None:
         State(ids.REFERENCE, "value"),
     )
     def reference(picked, runs, current):
-        by_id = {r["id"]: r for r in runs or []}
-        opts = [{"label": by_id[v]["name"], "value": v} for v in picked or [] if v in by_id]
+        # in the order of the session; when the ticked runs change, the earliest becomes the
+        # reference (the baseline), and the researcher may pick another
+        chosen = set(picked or [])
+        opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if r["id"] in chosen]
         if not opts:
             return [], None
-        values = [o["value"] for o in opts]
-        return opts, current if current in values else values[0]
+        return opts, opts[0]["value"]

@@ -15,6 +15,7 @@ from barrierflow.errors import ScenarioError
 from .. import draft as D
 from .. import ids
 from .common import message_list
+from .network import element_options
 
 
 def layout(examples: dict[str, str], initial: dict[str, Any]) -> html.Div:
@@ -84,6 +85,7 @@ def register(app: Any, services: Any) -> None:
     @app.callback(
         Output(ids.DRAFT, "data", allow_duplicate=True),
         Output(ids.OPEN_MESSAGE, "children"),
+        Output(ids.SELECT, "options", allow_duplicate=True),
         Output(ids.SELECT, "value", allow_duplicate=True),
         Output(ids.LOADED, "data"),
         Input(ids.OPEN_EXAMPLE, "n_clicks"),
@@ -104,21 +106,21 @@ def register(app: Any, services: Any) -> None:
             try:
                 d = open_example(example)
             except ScenarioError as err:
-                return no_update, message_list([str(p) for p in err.problems]), no_update, no_update
+                return no_update, message_list([str(p) for p in err.problems]), no_update, no_update, no_update
             note = f"Opened the example {Path(example).name}."
         elif trigger == ids.UPLOAD:
             if not contents:
                 raise PreventUpdate
             d, problems = open_upload(contents, filename)
             if d is None:
-                return no_update, message_list(problems), no_update, no_update
+                return no_update, message_list(problems), no_update, no_update, no_update
             note = (f"Opened {d['file']}; it has problems, shown at their fields below."
                     if problems else f"Opened {d['file']}.")
         else:
             d = D.new_draft()
             note = "Started an empty scenario: add compartments on the canvas."
         message = [html.Span(note)] + ([message_list(problems)] if problems else [])
-        return d, message, D.first_selection(d), {"gen": d["gen"]}
+        return d, message, element_options(d), D.first_selection(d), {"gen": d["gen"]}
 
     @app.callback(
         Output(ids.SCENARIO_NAME, "value"),

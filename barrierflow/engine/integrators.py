@@ -16,7 +16,8 @@ from scipy.integrate import BDF, LSODA, Radau
 from ..errors import ScenarioError, SolverError
 from .problem import IntervalProblem
 
-__all__ = ["INTEGRATORS", "RunStats", "ScipyIntegrator", "integrator_from_name"]
+__all__ = ["INTEGRATORS", "AutoIntegrator", "RunStats", "ScipyIntegrator", "integrator_from_name",
+           "resolve_integrator"]
 
 
 @dataclass
@@ -114,7 +115,53 @@ class ScipyIntegrator:
         return out
 
 
+@dataclass(frozen=True)
+class AutoIntegrator:
+    """The engine's choice: the exact solution for a linear model, compiled RODAS4 otherwise.
+
+    Parameters
+    ----------
+    rtol, atol : float
+        Tolerances of the compiled integrator (see :class:`~barrierflow.engine.rosenbrock.
+        RosenbrockIntegrator`); the exact path needs none.
+    """
+
+    rtol: float = 1e-5
+    atol: float = 1e-8
+    name: str = field(init=False, default="auto")
+
+    def resolve(self, model):
+        """The integrator that runs ``model``."""
+        from .exact import ExactIntegrator, exact_supported
+        from .rosenbrock import RosenbrockIntegrator
+
+        if exact_supported(model):
+            return ExactIntegrator()
+        return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
+
+
+def resolve_integrator(integrator, model):
+    """``integrator`` itself, or what an :class:`AutoIntegrator` (the default, for None) picks for ``model``."""
+    integrator = AutoIntegrator() if integrator is None else integrator
+    return integrator.resolve(model) if hasattr(integrator, "resolve") else integrator
+
+
+def _rodas(**kw):
+    from .rosenbrock import RosenbrockIntegrator
+
+    return RosenbrockIntegrator(**kw)
+
+
+def _exact(**kw):
+    from .exact import ExactIntegrator
+
+    return ExactIntegrator(**kw)
+
+
 INTEGRATORS = {
+    "auto": lambda **kw: AutoIntegrator(**kw),
+    "rodas": _rodas,
+    "exact": _exact,
     "bdf": lambda **kw: ScipyIntegrator("BDF", **kw),
     "radau": lambda **kw: ScipyIntegrator("Radau", **kw),
     "lsoda": lambda **kw: ScipyIntegrator("LSODA", **kw),

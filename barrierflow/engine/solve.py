@@ -13,7 +13,7 @@ from ..errors import SolverError
 from ..model import Scenario
 from .compiled import CompiledModel, compile_scenario
 from .grid import Grid
-from .integrators import RunStats, ScipyIntegrator
+from .integrators import RunStats, resolve_integrator
 from .problem import IntervalProblem, IntervalSettings
 from .schedule import Event, build_schedule
 
@@ -102,7 +102,8 @@ def solve(
     scenario : Scenario
         A validated scenario.
     integrator : object, optional
-        An integrator object (default ``ScipyIntegrator("BDF")``). One with a
+        An integrator object (default :class:`~barrierflow.engine.integrators.AutoIntegrator`: the
+        exact solution for a linear model, the compiled RODAS4 integrator otherwise). One with a
         ``solve_schedule`` method runs the whole regimen itself.
     grid : Grid, optional
         Default grid of layers without ``cells``.
@@ -118,25 +119,31 @@ def solve(
         The message says where (time, dosing interval) and what to change.
     """
     start_clock = _time.perf_counter()
-    integrator = integrator or ScipyIntegrator()
     grid = grid or Grid()
     model = compile_scenario(scenario, grid)
+    integrator = resolve_integrator(integrator, model)
     events = build_schedule(scenario, model.comp_index)
     duration = scenario.duration
     marks = np.array(sorted({e.time for e in events} | {0.0, duration}))
     times = _snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(duration, 1.0))
     n_t, n_c = len(times), model.n_comp
-    states = np.full((n_t, model.n_state), np.nan)
-    ev_dosed = np.zeros((n_t, n_c))
-    ev_removed = np.zeros((n_t, n_c))
     stats = RunStats()
 
     if hasattr(integrator, "solve_schedule"):
         result = integrator.solve_schedule(model, events, times, duration, stats, progress)
         states, ev_dosed, ev_removed, status, message = result
+        if status != 0:
+            if raise_on_failure:
+                raise SolverError(message, time=float(times[min(len(states), n_t - 1)]),
+                                  part=_busiest_part(model, states[-1] if len(states) else model.y0))
+            times = times[: len(states)]
         return Trajectory(model, times, states, ev_dosed, ev_removed, _present(model, model.y0), tuple(events),
                           stats.as_dict(), status, message, integrator.name, _time.perf_counter() - start_clock, grid,
                           _options(integrator))
+
+    states = np.full((n_t, model.n_state), np.nan)
+    ev_dosed = np.zeros((n_t, n_c))
+    ev_removed = np.zeros((n_t, n_c))
 
     y = model.y0.copy()
     initial = _present(model, y)

@@ -1,0 +1,515 @@
+"""Exact solution of linear networks between events.
+
+Without saturable elimination the compiled model is linear: between two events
+``dy/dt = A y + g`` with A and g constant (g holds infusions and what clamped compartments
+give). The quadratures (cumulative amounts) have empty columns in A, so only the dynamic
+states need a matrix function; the quadratures follow from integrals of the dynamic states.
+
+Symmetric networks (no one-way transfer). Every process conserves the potential u = y / K and
+is reciprocal, so with t = sqrt(V / K) (V the capacity) the matrix ``B = diag(t) A diag(1/t)``
+of the unclamped dynamic states is symmetric negative semi-definite: each barrier network is a
+symmetric generalised eigenproblem. With ``B = Q diag(lam) Q^T`` each mode evolves exactly::
+
+    z(tau) = exp(lam tau) z0 + tau phi1(lam tau) gz,      phi1(x) = (exp(x) - 1) / x
+    int_0^tau z = tau phi1(lam tau) z0 + tau^2 phi2(lam tau) gz,   phi2(x) = (exp(x) - 1 - x) / x^2
+
+(Moler and Van Loan, Nineteen dubious ways to compute the exponential of a matrix, SIAM Review
+45, 2003, method 14: eigenvectors of a symmetric matrix). When the states form one chain (a
+patch, its barrier cells, the body compartments in a row), B is tridiagonal in chain order and
+the decomposition costs O(n^2) (LAPACK's MRRR); otherwise a dense symmetric decomposition is
+used. Modes so fast that exp(lam tau) < 1e-26 at every requested time contribute only their
+constant (and, in the integrals, linear) part, so the outputs need only the slow modes.
+
+Other linear networks (with transfers). The augmented matrix ``[[A, g], [0, 0]]`` is
+exponentiated once per distinct step length (scipy's scaling and squaring with Pade
+approximants, Al-Mohy and Higham, SIAM J. Matrix Anal. Appl. 31, 2009) and the state is
+propagated from output time to output time.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg as sla
+from numba import njit
+
+from ..errors import ScenarioError
+from .compiled import CompiledModel
+from .kernels import jacobian_coo, jacobian_size, rates
+from .rosenbrock import apply_events, encode_events, rows_until
+
+__all__ = ["ExactIntegrator", "exact_supported", "phi1", "phi2"]
+
+_FAST = -60.0  # exp(-60) ~ 9e-27: a mode below this at every output time has decayed to nothing
+
+
+def phi1(x: np.ndarray) -> np.ndarray:
+    """(exp(x) - 1) / x, accurate near 0 (1 at 0)."""
+    x = np.asarray(x, dtype=float)
+    out = np.empty_like(x)
+    small = np.abs(x) < 1e-5
+    xs = x[small]
+    out[small] = 1.0 + xs / 2.0 + xs * xs / 6.0
+    xl = x[~small]
+    out[~small] = np.expm1(xl) / xl
+    return out
+
+
+def phi2(x: np.ndarray) -> np.ndarray:
+    """(exp(x) - 1 - x) / x^2, accurate near 0 (1/2 at 0)."""
+    x = np.asarray(x, dtype=float)
+    out = np.empty_like(x)
+    small = np.abs(x) < 0.1
+    xs = x[small]
+    # Taylor series to x^7: truncation below 1e-17 for |x| < 0.1
+    out[small] = 0.5 + xs * (1 / 6 + xs * (1 / 24 + xs * (1 / 120 + xs * (1 / 720 + xs * (1 / 5040 + xs * (
+        1 / 40320 + xs / 362880))))))
+    xl = x[~small]
+    out[~small] = (np.expm1(xl) - xl) / (xl * xl)
+    return out
+
+
+def _margs(m: CompiledModel) -> tuple:
+    return (m.n_comp, m.n_dyn, m.capacity, m.inv_partition, m.link_p, m.link_q, m.link_a, m.link_b, m.link_c,
+            m.link_d, m.link_loss, m.link_track, m.loss_rate, m.loss_to, m.mm_state, m.mm_vmax, m.mm_km,
+            m.tr_from, m.tr_to, m.tr_rate)
+
+
+def _jacobian(model: CompiledModel, clamp: np.ndarray) -> np.ndarray:
+    """Dense Jacobian (n_state x n_state) of the linear model with ``clamp``."""
+    m = model
+    size = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+    rows = np.zeros(size, dtype=np.int64)
+    cols = np.zeros(size, dtype=np.int64)
+    vals = np.zeros(size)
+    k = jacobian_coo(np.zeros(m.n_state), rows, cols, vals, *_margs(m), clamp, m.q_supply)
+    a = np.zeros((m.n_state, m.n_state))
+    np.add.at(a, (rows[:k], cols[:k]), vals[:k])
+    return a
+
+
+def _forcing(model: CompiledModel, y: np.ndarray, infusion: np.ndarray, clamp: np.ndarray) -> np.ndarray:
+    """g = f(y with the unclamped dynamic states set to 0): infusions and what clamps give."""
+    m = model
+    y0 = np.zeros(m.n_state)
+    y0[: m.n_comp] = np.where(clamp, y[: m.n_comp], 0.0)
+    out = np.empty(m.n_state)
+    rates(y0, out, *_margs(m), infusion, clamp, m.q_supply, m.q_infused)
+    return out
+
+
+def _chain_order(b: np.ndarray) -> np.ndarray | None:
+    """An order in which symmetric ``b`` is tridiagonal, or None when its graph is not a set of paths."""
+    n = b.shape[0]
+    off = b != 0.0
+    np.fill_diagonal(off, False)
+    deg = off.sum(axis=1)
+    if n == 0 or deg.max(initial=0) > 2 or off.sum() // 2 > n - 1:
+        return None
+    # neighbours as two columns (-1 where none)
+    ii, jj = np.nonzero(off)
+    nb = np.full((n, 2), -1, dtype=np.int64)
+    first = np.ones(len(ii), dtype=bool)
+    first[1:] = ii[1:] != ii[:-1]
+    nb[ii[first], 0] = jj[first]
+    nb[ii[~first], 1] = jj[~first]
+    nbl = nb.tolist()
+    seen = [False] * n
+    order: list[int] = []
+    for start in np.flatnonzero(deg <= 1).tolist():
+        if seen[start]:
+            continue
+        prev, cur = -1, start
+        while cur >= 0 and not seen[cur]:
+            seen[cur] = True
+            order.append(cur)
+            a, c = nbl[cur]
+            nxt = a if a != prev and a >= 0 and not seen[a] else c if c >= 0 and not seen[c] else -1
+            prev, cur = cur, nxt
+    if len(order) != n:  # a cycle
+        return None
+    return np.array(order, dtype=np.int64)
+
+
+@dataclass(eq=False)
+class _Modes:
+    """The decomposition of one clamp pattern (modes slowest first).
+
+    With ``tri`` set (a chain that is not singular) only the modes slower than a cut are
+    computed; the faster ones enter through solves with B (see :func:`_fast_terms`).
+    """
+
+    free: np.ndarray      # indices of the unclamped dynamic states
+    fixed: np.ndarray     # the clamped compartments
+    t: np.ndarray         # symmetrising scale sqrt(V/K) of the free states
+    lam: np.ndarray       # eigenvalues, 1/h
+    qt: np.ndarray        # orthonormal eigenvectors as rows (modes x free)
+    qyt: np.ndarray       # (diag(1/t) q)^T: the states of each mode
+    wt: np.ndarray        # (A_QD diag(1/t) q)^T: the quadrature rates of each mode
+    aqt: np.ndarray       # A_QD diag(1/t): quadrature rates per free state (x-space)
+    tri: tuple | None     # (order, factors of B in chain order) when B^-1 is used
+    complete: bool        # every mode was computed
+
+
+@dataclass(eq=False)
+class _Propagator:
+    """Matrix exponentials of the augmented matrix of one interval setting, by step length."""
+
+    aug: np.ndarray
+    cache: dict = field(default_factory=dict)
+
+    def step(self, dt: float) -> np.ndarray:
+        key = float(f"{dt:.12e}")
+        e = self.cache.get(key)
+        if e is None:
+            e = sla.expm(self.aug * dt)
+            self.cache[key] = e
+        return e
+
+
+def _symmetric_modes(model: CompiledModel, a: np.ndarray, clamp: np.ndarray, cut: float = -np.inf) -> _Modes | None:
+    """Eigen-decomposition of the symmetrised free block, or None when it is not symmetric.
+
+    ``cut`` (1/h, <= 0): on a chain, only the modes with eigenvalue above it are computed.
+    """
+    nd = model.n_dyn
+    free = np.flatnonzero(~np.concatenate([clamp, np.zeros(nd - model.n_comp, dtype=bool)]))
+    add = a[np.ix_(free, free)]
+    t = np.sqrt(model.capacity[free] * model.inv_partition[free])
+    b = add * t[:, None] / t[None, :]
+    scale = np.abs(b).max(initial=0.0)
+    if scale > 0 and np.abs(b - b.T).max() > 1e-10 * scale:
+        return None
+    b = 0.5 * (b + b.T)
+    order = _chain_order(b) if len(free) > 2 else None
+    tri = None
+    complete = True
+    if order is not None:
+        bo = b[np.ix_(order, order)]
+        d, e = np.diag(bo).copy(), np.diag(bo, 1).copy()
+        lam = qo = None
+        if np.isfinite(cut):
+            lo, ipiv, ok = _tri_factor(d, e)
+            if ok:
+                lam, qo = sla.eigh_tridiagonal(d, e, select="v", select_range=(cut, np.inf), lapack_driver="stemr",
+                                               check_finite=False)
+                if len(lam) and abs(lam.max()) <= 1e-13 * scale:  # a conserved mode: B is singular
+                    lam = qo = None
+                else:
+                    tri = (order, d, e, lo, ipiv)
+                    complete = len(lam) == len(free)
+        if lam is None:
+            lam, qo = sla.eigh_tridiagonal(d, e, check_finite=False)
+        q = np.empty_like(qo)
+        q[order] = qo
+    elif len(free):
+        lam, q = np.linalg.eigh(b)
+    else:
+        lam, q = np.zeros(0), np.zeros((0, 0))
+    # slowest first, so that the slow modes of any interval are a leading block
+    lam = np.ascontiguousarray(np.minimum(lam, 0.0)[::-1])  # semi-definite; rounding may leave +1e-12
+    qt = np.ascontiguousarray(q[:, ::-1].T)
+    qyt = qt / t[None, :]
+    aqt = np.ascontiguousarray(a[nd:][:, free] / t[None, :])
+    wt = np.ascontiguousarray(_matmul(aqt, np.ascontiguousarray(qt.T)).T)
+    return _Modes(free, np.flatnonzero(clamp), t, lam, qt, qyt, wt, aqt, tri, complete)
+
+
+@njit(cache=True)
+def _tri_factor(d, e):
+    """LU factors (multipliers, reciprocal pivots) of the symmetric tridiagonal (d, e); ok flag."""
+    n = d.shape[0]
+    lo = np.zeros(n)
+    ipiv = np.zeros(n)
+    big = 0.0
+    for i in range(n):
+        big = max(big, abs(d[i]))
+    piv = d[0]
+    for i in range(n):
+        if i > 0:
+            lo[i] = e[i - 1] * ipiv[i - 1]
+            piv = d[i] - lo[i] * e[i - 1]
+        if not abs(piv) > 1e-13 * big:
+            return lo, ipiv, False
+        ipiv[i] = 1.0 / piv
+    return lo, ipiv, True
+
+
+@njit(cache=True)
+def _tri_solve(lo, ipiv, e, r):
+    """Solve (d, e) x = r with the factors of :func:`_tri_factor` (returns x)."""
+    n = r.shape[0]
+    x = r.copy()
+    for i in range(1, n):
+        x[i] -= lo[i] * x[i - 1]
+    x[n - 1] *= ipiv[n - 1]
+    for i in range(n - 2, -1, -1):
+        x[i] = (x[i] - e[i] * x[i + 1]) * ipiv[i]
+    return x
+
+
+def _fast_terms(md: _Modes, ks: int, x0: np.ndarray, tg: np.ndarray | None):
+    """What the modes from ``ks`` on (decayed at every output time) still contribute.
+
+    Returns ``(yfast, qconst, qslope)``: a constant added to the free states, and the constant
+    and the slope (per h) added to the quadratures. With ``P = sum over those modes of
+    q q^T / lam`` (that is B^-1 minus the slow modes, or the fast eigenvectors directly):
+    ``yfast = -P (t g) / t``, ``qconst = -A_QD diag(1/t) (P x0 + P P (t g))``,
+    ``qslope = -A_QD diag(1/t) P (t g)``.
+    """
+    if ks == len(md.lam) and md.complete:
+        return None
+    if md.tri is not None:
+        order, d, e, lo, ipiv = md.tri
+        qs, ls = md.qt[:ks], md.lam[:ks]
+
+        def p(v):
+            x = np.empty_like(v)
+            x[order] = _tri_solve(lo, ipiv, e, v[order])
+            return x - qs.T @ ((qs @ v) / ls)
+    else:
+        qf, lf = md.qt[ks:], md.lam[ks:]
+
+        def p(v):
+            return qf.T @ ((qf @ v) / lf)
+    px = p(x0)
+    if tg is None:
+        return np.zeros(len(md.free)), -(md.aqt @ px), np.zeros(md.aqt.shape[0])
+    pg = p(tg)
+    return -pg / md.t, -(md.aqt @ (px + p(pg))), -(md.aqt @ pg)
+
+
+def _shortest_time(times: np.ndarray, marks: np.ndarray) -> float:
+    """The shortest positive time from the start of an interval to an output time or its end, h."""
+    k = np.clip(np.searchsorted(marks, times, side="right") - 1, 0, len(marks) - 2)
+    local = times - marks[k]
+    gaps = np.diff(marks)
+    cand = np.concatenate([local[local > 0.0], gaps[gaps > 0.0]])
+    return float(cand.min()) if len(cand) else 1.0
+
+
+def exact_supported(model: CompiledModel) -> bool:
+    """True when the exact path applies to ``model`` quickly: linear, and symmetric or small.
+
+    A linear model with one-way transfers is solved with matrix exponentials of the full state,
+    which costs O(n^3) per distinct step; that path is chosen automatically only up to 400 states.
+    """
+    if not model.is_linear:
+        return False
+    if len(model.tr_from) == 0:
+        return True
+    return model.n_state <= 400
+
+
+@dataclass(frozen=True)
+class ExactIntegrator:
+    """Exact solution between events for linear models (see the module docstring).
+
+    Parameters
+    ----------
+    method : {"auto", "modes", "expm"}
+        ``modes``: eigen-decomposition of the symmetrised network (not for transfers);
+        ``expm``: matrix exponentials of the augmented matrix; ``auto`` (default): modes when
+        the network is symmetric, else expm.
+    """
+
+    method: str = "auto"
+    name: str = field(init=False, default="exact")
+
+    def __post_init__(self) -> None:
+        if self.method not in ("auto", "modes", "expm"):
+            raise ScenarioError.single("integrator method", repr(self.method), "must be one of auto, modes, expm")
+
+    def solve_schedule(self, model: CompiledModel, events, times: np.ndarray, duration: float, stats,
+                       progress=None):
+        """Run the whole regimen exactly; same contract as the compiled integrator's.
+
+        Raises
+        ------
+        ScenarioError
+            If the model is not linear (saturable elimination), or ``method="modes"`` is asked of a
+            network with one-way transfers.
+        """
+        if not model.is_linear:
+            raise ScenarioError.single("integrator", "'exact'",
+                                       "needs a linear model; saturable elimination (vmax, km) makes it nonlinear")
+        m = model
+        marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
+        ev = encode_events(events)
+        n_t, nc = len(times), m.n_comp
+        states = np.empty((n_t, m.n_state))
+        ev_dosed = np.empty((n_t, nc))
+        ev_removed = np.empty((n_t, nc))
+        y = m.y0.copy()
+        infusion = np.zeros(nc)
+        clamp = m.held.copy()
+        holds = np.zeros(nc, dtype=np.int64)
+        dosed = np.zeros(nc)
+        removed = np.zeros(nc)
+        modes: dict[bytes, _Modes | None] = {}
+        jac: dict[bytes, np.ndarray] = {}
+        row, ei = 0, 0
+        n_int = len(marks) - 1
+        tau_min = _shortest_time(times, marks)
+        for k in range(n_int):
+            t0, t1 = marks[k], marks[k + 1]
+            ei = int(apply_events(t0, ei, *ev, y, m.capacity, m.held, infusion, clamp, holds, dosed, removed))
+            end = int(rows_until(times, row, t1, k == n_int - 1))
+            tau = times[row:end] - t0
+            key = clamp.tobytes()
+            if key not in jac:
+                jac[key] = _jacobian(m, clamp)
+                stats.jacobian_evaluations += 1
+            a = jac[key]
+            g = _forcing(m, y, infusion, clamp)
+            md = None
+            if self.method != "expm":
+                if key not in modes:
+                    modes[key] = _symmetric_modes(m, a, clamp, _FAST / tau_min)
+                    stats.lu_decompositions += 1
+                md = modes[key]
+                if md is None and self.method == "modes":
+                    raise ScenarioError.single("integrator method", "'modes'",
+                                               "needs a symmetric network; one-way transfers need method 'expm'")
+            if md is not None:
+                want = np.append(tau, t1 - t0)
+                t_min = want[want > 0.0].min()
+                ks = int(np.searchsorted(-md.lam * t_min, -_FAST))  # modes not yet decayed at t_min
+                x0 = md.t * y[md.free]
+                gd = g[md.free]
+                fast = _fast_terms(md, ks, x0, md.t * gd if np.any(gd != 0.0) else None)
+                if fast is None:
+                    nq = m.n_state - m.n_dyn
+                    fast = (np.zeros(len(md.free)), np.zeros(nq), np.zeros(nq))
+                buf = np.empty((end - row + 1, m.n_state))
+                modal_outputs(md.lam[:ks], md.qt[:ks], md.qyt[:ks], md.wt[:ks], md.t, md.free, md.fixed, y, g, want,
+                              m.n_dyn, *fast, buf)
+                states[row:end] = buf[:-1]
+                last = buf[-1:]
+            else:
+                out = _advance_expm(m, a, g, y, np.append(tau, t1 - t0))
+                states[row:end] = out[:-1]
+                last = out[-1:]
+            y = last[0].copy()
+            ev_dosed[row:end] = dosed
+            ev_removed[row:end] = removed
+            stats.steps += 1
+            stats.intervals += 1
+            row = end
+            if progress is not None:
+                progress(float(t1) / duration if duration > 0 else 1.0)
+        return states, ev_dosed, ev_removed, 0, "the run finished"
+
+
+@njit(cache=True)
+def _phi1(x):
+    if abs(x) < 1e-5:
+        return 1.0 + x / 2.0 + x * x / 6.0
+    return math.expm1(x) / x
+
+
+@njit(cache=True)
+def _phi2(x):
+    if abs(x) < 0.1:
+        return 0.5 + x * (1 / 6 + x * (1 / 24 + x * (1 / 120 + x * (1 / 720 + x * (1 / 5040 + x * (
+            1 / 40320 + x / 362880))))))
+    return (math.expm1(x) - x) / (x * x)
+
+
+@njit(cache=True)
+def modal_outputs(lam, qt, qyt, wt, tvec, free, fixed, y0, g, tau, nd, yfast, qconst, qslope, out):
+    """States at local times ``tau`` (h, non-decreasing) from ``y0`` into ``out``, mode by mode.
+
+    ``lam`` (the modes kept, slowest first), ``qt`` their eigenvectors as rows, ``qyt`` and ``wt``
+    the state and quadrature-rate patterns of each mode, ``tvec`` the symmetrising scale of the
+    free states, ``fixed`` the clamped compartments, ``g`` the forcing of the interval, and the
+    constant parts of the decayed modes (``yfast`` on the free states, ``qconst + qslope * tau``
+    on the quadratures).
+    """
+    nm = lam.shape[0]
+    nf = free.shape[0]
+    nqd = wt.shape[1]
+    n_t = tau.shape[0]
+    j0 = 0
+    while j0 < n_t and tau[j0] <= 0.0:
+        out[j0, :] = y0
+        j0 += 1
+    z0 = np.zeros(nm)
+    gz = np.zeros(nm)
+    has_g = False
+    for r in range(nf):
+        if g[free[r]] != 0.0:
+            has_g = True
+    for i in range(nm):
+        a = 0.0
+        b = 0.0
+        for r in range(nf):
+            a += qt[i, r] * (tvec[r] * y0[free[r]])
+            if has_g:
+                b += qt[i, r] * (tvec[r] * g[free[r]])
+        z0[i] = a
+        gz[i] = b
+    ys = np.empty(nf)
+    qs = np.empty(nqd)
+    for j in range(j0, n_t):
+        tj = tau[j]
+        for r in range(nf):
+            ys[r] = yfast[r]
+        for r in range(nqd):
+            qs[r] = qconst[r] + qslope[r] * tj
+        for i in range(nm):
+            el = lam[i]
+            x = el * tj
+            ex = math.exp(x)
+            if abs(x) > 0.5:
+                p1 = (ex - 1.0) / el
+            else:
+                p1 = tj * _phi1(x)
+            zs = ex * z0[i]
+            zi = p1 * z0[i]
+            if has_g:
+                zs += p1 * gz[i]
+                zi += tj * tj * _phi2(x) * gz[i]
+            for r in range(nf):
+                ys[r] += qyt[i, r] * zs
+            for r in range(nqd):
+                qs[r] += wt[i, r] * zi
+        for r in range(nf):
+            out[j, free[r]] = ys[r]
+        for r in range(fixed.shape[0]):
+            out[j, fixed[r]] = y0[fixed[r]]
+        for r in range(nqd):
+            out[j, nd + r] = y0[nd + r] + qs[r] + g[nd + r] * tj
+
+
+@njit(cache=True)
+def _matmul(a, b):
+    out = np.zeros((a.shape[0], b.shape[1]))
+    for i in range(a.shape[0]):
+        for k in range(a.shape[1]):
+            v = a[i, k]
+            if v != 0.0:
+                for j in range(b.shape[1]):
+                    out[i, j] += v * b[k, j]
+    return out
+
+
+def _advance_expm(m: CompiledModel, a: np.ndarray, g: np.ndarray, y0: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """States at local times ``tau`` (h, non-decreasing, >= 0) by matrix exponentials."""
+    n = m.n_state
+    aug = np.zeros((n + 1, n + 1))
+    aug[:n, :n] = a
+    aug[:n, n] = g
+    prop = _Propagator(aug)
+    out = np.empty((len(tau), n))
+    z = np.append(y0, 1.0)
+    t_prev = 0.0
+    for i, ti in enumerate(tau):
+        if ti > t_prev:
+            z = prop.step(ti - t_prev) @ z
+            z[n] = 1.0
+            t_prev = ti
+        out[i] = z[:n]
+    return out

@@ -1,0 +1,869 @@
+"""A fully compiled stiff integrator: RODAS4 with the network's structure in its linear algebra.
+
+The whole run (event loop, step loop, error control, dose events and dense output) runs in
+numba-compiled code. The method is RODAS4 (Hairer and Wanner, *Solving Ordinary Differential
+Equations II*, 2nd ed., 1996, sec. IV.7; coefficients of their code RODAS, method 1): a
+six-stage Rosenbrock method of order 4 with an embedded order-3 solution, L-stable and stiffly
+accurate, with a continuous (dense) output of order 3 used for the output times.
+
+Every stage needs one solve with ``M = I/(h gamma) - J``. The Jacobian has a fixed shape:
+
+* the cells of each resolved barrier form one tridiagonal block (a chain of links);
+* the compartments form a small dense block (exchanges, steady barriers, transfers);
+* each barrier's first and last cell couple to its ``from`` and ``to`` compartments (the border);
+* the cumulative amounts (quadratures) have empty columns: they never feed back.
+
+``M`` is solved by block elimination: one tridiagonal (Thomas) factorisation of all cells, the
+responses of each barrier to its two end couplings, the Schur complement on the compartments
+(dense, partial pivoting, size n_comp), and back-substitution. Cost O(n) per factorisation and
+per solve, no general sparse LU. The tridiagonal block is ``diag(1/V) P diag(1/K)`` with ``P``
+symmetric and diagonally dominant (V the cell capacities, K the partition coefficients), so the
+Thomas algorithm needs no pivoting.
+
+Every kernel takes arrays and numbers only and is cached on disk (``cache=True``).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numba import njit
+
+from ..errors import ScenarioError
+from .compiled import CompiledModel
+from .kernels import jacobian_coo, jacobian_size
+
+__all__ = ["RosenbrockIntegrator", "Structure", "build_structure", "encode_events", "model_args"]
+
+# ---------------------------------------------------------------- RODAS4 coefficients
+# Hairer and Wanner (1996), sec. IV.7, method RODAS (METH = 1 of their code), in the
+# transformed form: Y_i = y + sum a_ij k_j, (I/(h gamma) - J) k_i = f(Y_i) + sum (c_ij/h) k_j.
+GAMMA = 0.25
+A21 = 1.544
+A31, A32 = 0.9466785280815826, 0.2557011698983284
+A41, A42, A43 = 3.314825187068521, 2.896124015972201, 0.9986419139977817
+A51, A52, A53, A54 = 1.221224509226641, 6.019134481288629, 12.53708332932087, -0.6878860361058950
+C21 = -5.6688
+C31, C32 = -2.430093356833875, -0.2063599157091915
+C41, C42, C43 = -0.1073529058151375, -9.594562251023355, -20.47028614809616
+C51, C52, C53, C54 = 7.496443313967647, -10.24680431464352, -33.99990352819905, 11.70890893206160
+C61, C62, C63, C64, C65 = (8.083246795921522, -7.981132988064893, -31.52159432874371, 16.31930543123136,
+                           -6.058818238834054)
+D21, D22, D23, D24, D25 = (10.12623508344586, -7.487995877610167, -34.80091861555747, -7.992771707568823,
+                           1.025137723295662)
+D31, D32, D33, D34, D35 = (-0.6762803392801253, 6.087714651680015, 16.43084320892478, 24.76722511418386,
+                           -6.594389125716872)
+
+# event kinds, as integers for the compiled loop
+EV_BOLUS, EV_REPLACE, EV_REMOVE, EV_HOLD_START, EV_HOLD_END, EV_INF_START, EV_INF_END = range(7)
+_KIND_CODE = {"bolus": EV_BOLUS, "replace": EV_REPLACE, "remove": EV_REMOVE, "hold_start": EV_HOLD_START,
+              "hold_end": EV_HOLD_END, "infusion_start": EV_INF_START, "infusion_end": EV_INF_END}
+
+# statistics slots
+ST_STEPS, ST_REJECTED, ST_RHS, ST_JAC, ST_LU, ST_INTERVALS = range(6)
+# status codes of the compiled loop
+OK, FAIL_STEP, FAIL_SINGULAR, FAIL_NONFINITE, FAIL_MAXSTEPS = 0, 1, 2, 3, 4
+
+
+# ---------------------------------------------------------------- structure (built once, in Python)
+@dataclass(frozen=True, eq=False)
+class Structure:
+    """Where the blocks of the Jacobian sit (see the module docstring).
+
+    Attributes
+    ----------
+    seg_lo, seg_hi : ndarray of int (n_cells,)
+        Cell range (0-based among the cells) of the barrier each cell belongs to.
+    cell_be : ndarray of int (n_cells, 2)
+        Border entries of each cell (-1 when none).
+    be_cell, be_comp : ndarray of int (n_be,)
+        State index of the cell and of the compartment of each border entry.
+    w_off : ndarray of int (n_be,)
+        Offset of each entry's barrier response in the work array of length ``n_w``.
+    pair_e, pair_f : ndarray of int
+        Pairs of border entries on the same barrier (the Schur complement's terms).
+    n_w : int
+    """
+
+    seg_lo: np.ndarray
+    seg_hi: np.ndarray
+    cell_be: np.ndarray
+    be_cell: np.ndarray
+    be_comp: np.ndarray
+    w_off: np.ndarray
+    pair_e: np.ndarray
+    pair_f: np.ndarray
+    n_w: int
+
+    def args(self) -> tuple:
+        """The arrays in the order the kernels take them."""
+        return (self.seg_lo, self.seg_hi, self.cell_be, self.be_cell, self.be_comp, self.w_off, self.pair_e,
+                self.pair_f)
+
+
+def build_structure(model: CompiledModel) -> Structure:
+    """Check that the links have the shape the block solver needs and index its blocks.
+
+    Raises
+    ------
+    ValueError
+        If a link joins two cells that are not neighbours in one barrier (cannot happen with
+        :func:`~barrierflow.engine.compiled.compile_scenario`).
+    """
+    nc, nx = model.n_comp, model.n_cells
+    seg_lo = np.zeros(nx, dtype=np.int64)
+    seg_hi = np.zeros(nx, dtype=np.int64)
+    for g in model.grids:
+        seg_lo[g.start - nc:g.stop - nc] = g.start - nc
+        seg_hi[g.start - nc:g.stop - nc] = g.stop - nc
+    pairs: dict[tuple[int, int], int] = {}
+    for p, q in zip(model.link_p.tolist(), model.link_q.tolist(), strict=True):
+        pc, qc = p < nc, q < nc
+        if pc and qc:
+            continue
+        if not pc and not qc:
+            if abs(p - q) != 1 or seg_lo[p - nc] != seg_lo[q - nc]:
+                raise ValueError(f"link between states {p} and {q} does not fit the barrier chain structure")
+            continue
+        cell, comp = (q, p) if pc else (p, q)
+        pairs.setdefault((cell, comp), len(pairs))
+    n_be = len(pairs)
+    be_cell = np.zeros(n_be, dtype=np.int64)
+    be_comp = np.zeros(n_be, dtype=np.int64)
+    cell_be = np.full((max(nx, 1), 2), -1, dtype=np.int64)
+    for (cell, comp), e in pairs.items():
+        be_cell[e], be_comp[e] = cell, comp
+        x = cell - nc
+        slot = 0 if cell_be[x, 0] < 0 else 1
+        if cell_be[x, slot] >= 0:
+            raise ValueError(f"cell state {cell} couples to more than two compartments")
+        cell_be[x, slot] = e
+    w_off = np.zeros(n_be, dtype=np.int64)
+    n_w = 0
+    for e in range(n_be):
+        x = be_cell[e] - nc
+        w_off[e] = n_w
+        n_w += int(seg_hi[x] - seg_lo[x])
+    pe, pf = [], []
+    for e in range(n_be):
+        for f in range(n_be):
+            if seg_lo[be_cell[e] - nc] == seg_lo[be_cell[f] - nc]:
+                pe.append(e)
+                pf.append(f)
+    return Structure(seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, np.array(pe, dtype=np.int64),
+                     np.array(pf, dtype=np.int64), max(n_w, 1))
+
+
+def model_args(model: CompiledModel) -> tuple:
+    """The model arrays in the order of :func:`~barrierflow.engine.kernels.rates` (after ``y, out``)."""
+    m = model
+    return (m.n_comp, m.n_dyn, m.capacity, m.inv_partition, m.link_p, m.link_q, m.link_a, m.link_b, m.link_c,
+            m.link_d, m.link_loss, m.link_track, m.loss_rate, m.loss_to, m.mm_state, m.mm_vmax, m.mm_km,
+            m.tr_from, m.tr_to, m.tr_rate)
+
+
+def encode_events(events) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Events as arrays (time h, kind code, compartment index, value) for the compiled loop."""
+    n = len(events)
+    t = np.array([e.time for e in events], dtype=np.float64).reshape(n)
+    k = np.array([_KIND_CODE[e.kind] for e in events], dtype=np.int64).reshape(n)
+    c = np.array([e.comp for e in events], dtype=np.int64).reshape(n)
+    v = np.array([e.value for e in events], dtype=np.float64).reshape(n)
+    return t, k, c, v
+
+
+# ---------------------------------------------------------------- compiled right-hand side
+@njit(cache=True)
+def rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused):
+    """The same balances as :func:`~barrierflow.engine.kernels.rates`, with the cell chains fused.
+
+    ``gch[i]`` is the conductance (mL/h) between cells i and i + 1 (0 where a barrier ends);
+    ``lossy`` lists the states with a first-order loss;
+    ``olinks`` lists the other links, done as in ``rates``. ``u`` is scratch of length
+    ``n_dyn + n_cells``.
+    The results agree with ``rates`` to rounding.
+    """
+    nc = margs[0]
+    nd = margs[1]
+    cap = margs[2]
+    invk = margs[3]
+    lp = margs[4]
+    lq = margs[5]
+    la = margs[6]
+    lb = margs[7]
+    lc = margs[8]
+    ld = margs[9]
+    lloss = margs[10]
+    ltrack = margs[11]
+    loss_rate = margs[12]
+    loss_to = margs[13]
+    mm_s = margs[14]
+    mm_v = margs[15]
+    mm_k = margs[16]
+    tr_f = margs[17]
+    tr_t = margs[18]
+    tr_k = margs[19]
+    n = y.shape[0]
+    nx = nd - nc
+    for i in range(nd):
+        u[i] = y[i] * invk[i]
+    for i in range(nd, n):
+        out[i] = 0.0
+    for i in range(nc):
+        out[i] = 0.0
+    # chain fluxes into the tail of ``u`` (free there), then their differences
+    fl = u[nd:]
+    for i in range(nx - 1):
+        fl[i] = gch[i] * (u[nc + i] - u[nc + i + 1])
+    if nx > 0:
+        out[nc] = -fl[0] if nx > 1 else 0.0
+        for i in range(1, nx - 1):
+            out[nc + i] = fl[i - 1] - fl[i]
+        if nx > 1:
+            out[nd - 1] = fl[nx - 2]
+    for jj in range(olinks.shape[0]):
+        j = olinks[jj]
+        p = lp[j]
+        q = lq[j]
+        r_out = la[j] * u[p] - lb[j] * u[q]
+        r_in = lc[j] * u[p] - ld[j] * u[q]
+        out[p] -= r_out
+        out[q] += r_in
+        if lloss[j] >= 0:
+            out[lloss[j]] += r_out - r_in
+        if ltrack[j] >= 0:
+            out[ltrack[j]] += r_in
+    for jj in range(lossy.shape[0]):
+        p = lossy[jj]
+        r = loss_rate[p] * cap[p] * y[p]
+        out[p] -= r
+        out[loss_to[p]] += r
+    for m in range(mm_s.shape[0]):
+        p = mm_s[m]
+        c = y[p]
+        r = mm_v[m] * c / (mm_k[m] + abs(c))
+        out[p] -= r
+        out[nd + p] += r
+    for m in range(tr_f.shape[0]):
+        p = tr_f[m]
+        r = tr_k[m] * cap[p] * y[p]
+        out[p] -= r
+        out[tr_t[m]] += r
+    for p in range(nc):
+        if infusion[p] != 0.0:
+            out[p] += infusion[p]
+            out[q_infused + p] += infusion[p]
+    for p in range(nc):
+        if clamp[p]:
+            out[q_supply + p] = -out[p]
+            out[p] = 0.0
+    for p in range(nd):
+        out[p] *= inv_cap[p]
+
+
+def chain_args(model: CompiledModel) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """``(gch, olinks, lossy, inv_cap)`` for :func:`rates_chain`.
+
+    Chain conductances, the other links, the states with a first-order loss, 1/capacity.
+    """
+    nc, nx = model.n_comp, model.n_cells
+    gch = np.zeros(max(nx, 1))
+    other = []
+    for j in range(len(model.link_p)):
+        p, q = int(model.link_p[j]), int(model.link_q[j])
+        a, b, c, d = model.link_a[j], model.link_b[j], model.link_c[j], model.link_d[j]
+        plain = a == b == c == d and model.link_loss[j] < 0 and model.link_track[j] < 0
+        if p >= nc and q == p + 1 and plain and gch[p - nc] == 0.0:
+            gch[p - nc] = a
+        else:
+            other.append(j)
+    lossy = np.flatnonzero(model.loss_rate != 0.0).astype(np.int64)
+    return gch, np.array(other, dtype=np.int64), lossy, 1.0 / model.capacity
+
+
+@njit(cache=True)
+def _jac(y, rows, cols, vals, margs, clamp, q_supply):
+    return jacobian_coo(y, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
+                        margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
+                        margs[14], margs[15], margs[16], margs[17], margs[18], margs[19], clamp, q_supply)
+
+
+# ---------------------------------------------------------------- compiled linear algebra
+# tri rows: 0 J diagonal, 1 J sub-diagonal (i, i-1), 2 J super-diagonal (i, i+1), 3 elimination
+# multipliers, 4 reciprocal pivots, 5 super-diagonal of M times the reciprocal pivot
+@njit(cache=True)
+def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, qr, qc, qv):
+    """Sort the COO Jacobian into the blocks; returns the number of quadrature entries."""
+    tri[0:3, :] = 0.0
+    jcc[:, :] = 0.0
+    jxc[:] = 0.0
+    jcx[:] = 0.0
+    nq = 0
+    for i in range(k):
+        r = rows[i]
+        c = cols[i]
+        v = vals[i]
+        if r >= nd:
+            qr[nq] = r
+            qc[nq] = c
+            qv[nq] = v
+            nq += 1
+        elif r < nc:
+            if c < nc:
+                jcc[r, c] += v
+            else:
+                x = c - nc
+                for s in range(2):
+                    e = cell_be[x, s]
+                    if e >= 0 and be_comp[e] == r:
+                        jcx[e] += v
+                        break
+        else:
+            x = r - nc
+            if c < nc:
+                for s in range(2):
+                    e = cell_be[x, s]
+                    if e >= 0 and be_comp[e] == c:
+                        jxc[e] += v
+                        break
+            else:
+                d = c - r
+                if d == 0:
+                    tri[0, x] += v
+                elif d == -1:
+                    tri[1, x] += v
+                else:
+                    tri[2, x] += v
+    return nq
+
+
+@njit(cache=True)
+def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
+    """Factorise M = fac I - J in blocks; False when a pivot vanishes."""
+    seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f = sargs
+    nx = tri.shape[1]
+    jd = tri[0]
+    jl = tri[1]
+    ju = tri[2]
+    lo = tri[3]
+    ipiv = tri[4]
+    uu = tri[5]
+    for i in range(nx):
+        d = fac - jd[i]
+        if i > 0 and jl[i] != 0.0:
+            el = -jl[i] * ipiv[i - 1]
+            lo[i] = el
+            d += el * ju[i - 1]
+        else:
+            lo[i] = 0.0
+        if d == 0.0 or not math.isfinite(d):
+            return False
+        ipiv[i] = 1.0 / d
+        uu[i] = ju[i] * ipiv[i]
+    # response of each barrier to a unit coupling at one end cell: w_e = T^{-1} e_cell
+    for e in range(be_cell.shape[0]):
+        x0 = be_cell[e] - nc
+        a = seg_lo[x0]
+        b = seg_hi[x0]
+        off = w_off[e] - a
+        for i in range(a, x0):
+            w[off + i] = 0.0
+        z = 1.0
+        w[off + x0] = ipiv[x0]
+        for i in range(x0 + 1, b):
+            z = -lo[i] * z
+            w[off + i] = z * ipiv[i]
+        for i in range(b - 2, a - 1, -1):
+            w[off + i] += uu[i] * w[off + i + 1]
+    # Schur complement on the compartments
+    for i in range(nc):
+        for j in range(nc):
+            smat[i, j] = -jcc[i, j]
+        smat[i, i] += fac
+    for p in range(pair_e.shape[0]):
+        e = pair_e[p]
+        f = pair_f[p]
+        xe = be_cell[e] - nc
+        smat[be_comp[e], be_comp[f]] -= jcx[e] * w[w_off[f] + xe - seg_lo[xe]] * jxc[f]
+    # LU with partial pivoting
+    for k in range(nc):
+        big = abs(smat[k, k])
+        ip = k
+        for i in range(k + 1, nc):
+            if abs(smat[i, k]) > big:
+                big = abs(smat[i, k])
+                ip = i
+        perm[k] = ip
+        if big == 0.0 or not math.isfinite(big):
+            return False
+        if ip != k:
+            for j in range(nc):
+                tmp = smat[k, j]
+                smat[k, j] = smat[ip, j]
+                smat[ip, j] = tmp
+        for i in range(k + 1, nc):
+            smat[i, k] /= smat[k, k]
+            m = smat[i, k]
+            if m != 0.0:
+                for j in range(k + 1, nc):
+                    smat[i, j] -= m * smat[k, j]
+    return True
+
+
+@njit(cache=True)
+def _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq):
+    """Overwrite ``r`` with the solution k of M k = r (the factors come from :func:`_factor`)."""
+    seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f = sargs
+    nx = tri.shape[1]
+    nd = nc + nx
+    n = r.shape[0]
+    lo = tri[3]
+    ipiv = tri[4]
+    uu = tri[5]
+    # z = T^{-1} r_x (one multiply-add on each chain)
+    if nx > 0:
+        z = r[nc]
+        r[nc] = z * ipiv[0]
+        for i in range(1, nx):
+            z = r[nc + i] - lo[i] * z
+            r[nc + i] = z * ipiv[i]
+    for i in range(nx - 2, -1, -1):
+        r[nc + i] += uu[i] * r[nc + i + 1]
+    # compartments: S kc = r_c - M_cx z  (M_cx = -J_cx)
+    for e in range(be_cell.shape[0]):
+        r[be_comp[e]] += jcx[e] * r[be_cell[e]]
+    for k in range(nc):
+        ip = perm[k]
+        if ip != k:
+            tmp = r[k]
+            r[k] = r[ip]
+            r[ip] = tmp
+    for i in range(nc):
+        s = r[i]
+        for j in range(i):
+            s -= smat[i, j] * r[j]
+        r[i] = s
+    for i in range(nc - 1, -1, -1):
+        s = r[i]
+        for j in range(i + 1, nc):
+            s -= smat[i, j] * r[j]
+        r[i] = s / smat[i, i]
+    # cells: kx = z - T^{-1} M_xc kc
+    for f in range(be_cell.shape[0]):
+        coef = jxc[f] * r[be_comp[f]]
+        if coef != 0.0:
+            x0 = be_cell[f] - nc
+            a = seg_lo[x0]
+            b = seg_hi[x0]
+            off = w_off[f] - a
+            for i in range(a, b):
+                r[nc + i] += coef * w[off + i]
+    # quadratures: k_q = (r_q + J_qd k_d) / fac
+    for j in range(nq):
+        r[qr[j]] += qv[j] * r[qc[j]]
+    ifac = 1.0 / fac
+    for i in range(nd, n):
+        r[i] *= ifac
+
+
+# ---------------------------------------------------------------- one dosing interval
+_A = np.zeros((6, 6))
+_A[1, 0] = A21
+_A[2, :2] = (A31, A32)
+_A[3, :3] = (A41, A42, A43)
+_A[4, :4] = (A51, A52, A53, A54)
+_A[5, :5] = (A51, A52, A53, A54, 1.0)
+_C = np.zeros((6, 6))
+_C[1, 0] = C21
+_C[2, :2] = (C31, C32)
+_C[3, :3] = (C41, C42, C43)
+_C[4, :4] = (C51, C52, C53, C54)
+_C[5, :5] = (C61, C62, C63, C64, C65)
+_D = np.array([[D21, D22, D23, D24, D25], [D31, D32, D33, D34, D35]])
+COEF = (_A, _C, _D)
+
+
+@njit(cache=True)
+def _workspace(nc, nx, n, n_w, n_jac, n_be):
+    return (np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac),
+            np.zeros((6, nx)), np.zeros((nc, nc)), np.zeros(max(n_be, 1)), np.zeros(max(n_be, 1)),
+            np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac),
+            np.zeros(max(n_w, 1)), np.zeros((nc, nc)), np.zeros(nc, dtype=np.int64),
+            np.zeros((6, n)), np.zeros((5, n)), np.zeros(2 * (nc + nx) + 1))
+
+
+@njit(cache=True)
+def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_infused, sargs, coef, rtol,
+              atol, max_steps, stats, ws, hold):
+    """RODAS4 from local time 0 to ``t_end`` (h); dense output into ``out`` at ``t_out``.
+
+    ``y`` is advanced in place. Returns the status code.
+    """
+    (rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm, kk, vec, u) = ws
+    ca, cc, cd = coef
+    gch, olinks, lossy, inv_cap = cargs
+    f0 = vec[0]
+    yn = vec[1]
+    ya = vec[2]
+    c2 = vec[3]
+    c3 = vec[4]
+    n = y.shape[0]
+    nc = margs[0]
+    nd = margs[1]
+    linear = margs[14].shape[0] == 0
+    n_out = t_out.shape[0]
+    io = 0
+    while io < n_out and t_out[io] <= 0.0:
+        out[io, :] = y
+        io += 1
+    if t_end <= 0.0:
+        return OK
+    nq = 0
+    have_jac = False
+    # starting step (Hairer, Norsett and Wanner, Solving ODEs I, 2nd ed., 1993, sec. II.4)
+    rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+    stats[ST_RHS] += 2
+    d0 = 0.0
+    d1 = 0.0
+    for i in range(n):
+        sk = atol[i] + rtol * abs(y[i])
+        d0 += (y[i] / sk) ** 2
+        d1 += (f0[i] / sk) ** 2
+    d0 = math.sqrt(d0 / n)
+    d1 = math.sqrt(d1 / n)
+    h0 = 0.01 * d0 / d1 if (d0 > 1e-5 and d1 > 1e-5) else 1e-6 * t_end
+    h0 = min(h0, t_end)
+    for i in range(n):
+        ya[i] = y[i] + h0 * f0[i]
+    rates_chain(ya, kk[0], margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+    d2 = 0.0
+    for i in range(n):
+        sk = atol[i] + rtol * abs(y[i])
+        d2 += ((kk[0, i] - f0[i]) / sk) ** 2
+    d2 = math.sqrt(d2 / n) / h0
+    dm = max(d1, d2)
+    h1 = (0.01 / dm) ** 0.25 if dm > 1e-15 else max(1e-6 * t_end, h0 * 1e-3)
+    h = min(100.0 * h0, h1, t_end)
+    t = 0.0
+    reject = False
+    first = True
+    h_acc = 0.0
+    err_acc = 0.0
+    n_steps = 0
+    h_min = 1e-14 * max(t_end, 1.0)
+    fac_done = -1.0
+    while t < t_end:
+        if n_steps >= max_steps:
+            return FAIL_MAXSTEPS
+        if h < h_min:
+            return FAIL_STEP
+        last = False
+        if t + 1.0001 * h >= t_end:
+            h = t_end - t
+            last = True
+        if not first:
+            rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+            stats[ST_RHS] += 1
+        if not have_jac or not linear:
+            k = _jac(y, rows, cols, vals, margs, clamp, q_supply)
+            nq = _scatter(rows, cols, vals, k, nc, nd, sargs[2], sargs[4], tri, jcc, jxc, jcx, qr, qc, qv)
+            stats[ST_JAC] += 1
+            have_jac = True
+        first = False
+        while True:  # attempts of one step
+            fac = 1.0 / (h * GAMMA)
+            if fac != fac_done or not linear:
+                stats[ST_LU] += 1
+                if not _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
+                    h *= 0.5
+                    last = False
+                    fac_done = -1.0
+                    if h < h_min:
+                        return FAIL_SINGULAR
+                    continue
+                fac_done = fac
+            ih = 1.0 / h
+            for s in range(6):
+                ks = kk[s]
+                if s == 0:
+                    for i in range(n):
+                        ks[i] = f0[i]
+                else:
+                    for i in range(n):
+                        ya[i] = y[i]
+                    for j in range(s):
+                        a = ca[s, j]
+                        kj = kk[j]
+                        for i in range(n):
+                            ya[i] += a * kj[i]
+                    rates_chain(ya, ks, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+                    for j in range(s):
+                        a = cc[s, j] * ih
+                        kj = kk[j]
+                        for i in range(n):
+                            ks[i] += a * kj[i]
+                _solve(ks, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq)
+            stats[ST_RHS] += 5
+            # new solution and error estimate (k6 is the difference of the two solutions)
+            err = 0.0
+            k6 = kk[5]
+            for i in range(n):
+                yn[i] = ya[i] + k6[i]
+                sk = atol[i] + rtol * max(abs(y[i]), abs(yn[i]))
+                q = k6[i] / sk
+                err += q * q
+            err = math.sqrt(err / n)
+            if not math.isfinite(err):
+                h *= 0.25
+                last = False
+                reject = True
+                stats[ST_REJECTED] += 1
+                if h < h_min:
+                    return FAIL_NONFINITE
+                continue
+            fac_h = max(1.0 / 6.0, min(5.0, err ** 0.25 / 0.9))
+            h_new = h / fac_h
+            if err <= 1.0:
+                # predictive controller of Gustafsson (as in RODAS)
+                if h_acc > 0.0:
+                    fg = h_acc / h * (err * err / err_acc) ** 0.25 / 0.9
+                    fg = max(1.0 / 6.0, min(5.0, fg))
+                    fac_h = max(fac_h, fg)
+                    h_new = h / fac_h
+                h_acc = h
+                err_acc = max(1e-2, err)
+                break
+            reject = True
+            last = False
+            stats[ST_REJECTED] += 1
+            h = h_new
+            if h < h_min:
+                return FAIL_STEP
+        # accepted: dense output for the output times inside (t, t + h]
+        t_new = t_end if last else t + h
+        if io < n_out and t_out[io] <= t_new:
+            for i in range(n):
+                a2 = 0.0
+                a3 = 0.0
+                for j in range(5):
+                    a2 += cd[0, j] * kk[j, i]
+                    a3 += cd[1, j] * kk[j, i]
+                c2[i] = a2
+                c3[i] = a3
+            while io < n_out and t_out[io] <= t_new:
+                s = (t_out[io] - t) / h
+                if s >= 1.0:
+                    out[io, :] = yn
+                else:
+                    s1 = 1.0 - s
+                    for i in range(n):
+                        out[io, i] = s1 * y[i] + s * (yn[i] + s1 * (c2[i] + s * c3[i]))
+                io += 1
+        for i in range(n):
+            y[i] = yn[i]
+        t = t_new
+        n_steps += 1
+        stats[ST_STEPS] += 1
+        if reject:
+            h_new = min(h_new, h)
+        reject = False
+        if linear and h <= h_new <= hold * h:
+            h_new = h  # keep the factorisation of a linear problem while the step would grow little
+        h = min(h_new, t_end)
+    while io < n_out:
+        out[io, :] = y
+        io += 1
+    return OK
+
+
+@njit(cache=True)
+def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
+                 removed):
+    """Apply every event from index ``ei`` with time <= ``t0``; returns the next event index.
+
+    The rules are those of the event loop of :func:`barrierflow.engine.solve.solve`: a bolus adds
+    its amount; replace and remove count the content as removed (replace then refills); a hold
+    start sets the concentration and clamps it; an infusion adds its rate until its end.
+    """
+    n_ev = ev_time.shape[0]
+    while ei < n_ev and ev_time[ei] <= t0:
+        p = ev_comp[ei]
+        kind = ev_kind[ei]
+        v = ev_value[ei]
+        if kind == EV_BOLUS:
+            y[p] += v / cap[p]
+            dosed[p] += v
+        elif kind == EV_REPLACE:
+            removed[p] += cap[p] * y[p]
+            y[p] = v
+            dosed[p] += cap[p] * v
+        elif kind == EV_REMOVE:
+            removed[p] += cap[p] * y[p]
+            y[p] = 0.0
+        elif kind == EV_HOLD_START:
+            dosed[p] += cap[p] * (v - y[p])
+            y[p] = v
+            holds[p] += 1
+            clamp[p] = True
+        elif kind == EV_HOLD_END:
+            holds[p] -= 1
+            clamp[p] = held[p] or holds[p] > 0
+        elif kind == EV_INF_START:
+            infusion[p] += v
+        elif kind == EV_INF_END:
+            infusion[p] -= v
+            if abs(infusion[p]) < 1e-12 * v:
+                infusion[p] = 0.0
+        ei += 1
+    return ei
+
+
+@njit(cache=True)
+def rows_until(times, row, t1, last):
+    """End of the output rows of the interval that ends at ``t1`` (the last one includes ``t1``)."""
+    n_t = times.shape[0]
+    sel_end = row
+    while sel_end < n_t and (times[sel_end] < t1 or (last and times[sel_end] <= t1)):
+        sel_end += 1
+    return sel_end
+
+
+@njit(cache=True)
+def run_marks(k0, k1, marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, cargs, q_supply, q_infused,
+              sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, y, infusion, clamp, holds, dosed, removed, ptr,
+              states, ev_dosed, ev_removed, stats):
+    """Run the dosing intervals ``k0 .. k1 - 1`` (between ``marks``), applying the events.
+
+    The carried state (``y``, infusion rates, clamps, hold counts, the ledger ``dosed`` and
+    ``removed``, and ``ptr = [next output row, next event]``) is updated in place, so a run can be
+    done in pieces. Returns (status, index of the failed interval or -1).
+    """
+    n = y.shape[0]
+    cap = margs[2]
+    nc = margs[0]
+    ws = _workspace(nc, margs[1] - nc, n, n_w, n_jac, sargs[3].shape[0])
+    n_marks = marks.shape[0]
+    row = ptr[0]
+    ei = ptr[1]
+    for k in range(k0, k1):
+        t0 = marks[k]
+        t1 = marks[k + 1]
+        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
+                          removed)
+        sel_end = rows_until(times, row, t1, k == n_marks - 2)
+        t_local = times[row:sel_end] - t0
+        status = _interval(y, t1 - t0, t_local, states[row:sel_end], margs, cargs, infusion, clamp, q_supply,
+                           q_infused, sargs, coef, rtol, atol, max_steps, stats, ws, hold)
+        if status != OK:
+            ptr[0] = row
+            ptr[1] = ei
+            return status, k
+        for r in range(row, sel_end):
+            for p in range(nc):
+                ev_dosed[r, p] = dosed[p]
+                ev_removed[r, p] = removed[p]
+        stats[ST_INTERVALS] += 1
+        row = sel_end
+    ptr[0] = row
+    ptr[1] = ei
+    return OK, -1
+
+
+# ---------------------------------------------------------------- the integrator object
+_FAILURES = {
+    FAIL_STEP: "the step size became too small",
+    FAIL_SINGULAR: "the linear systems of the method stayed singular",
+    FAIL_NONFINITE: "the solution became non-finite",
+    FAIL_MAXSTEPS: "the step limit was reached",
+}
+
+
+@dataclass(frozen=True)
+class RosenbrockIntegrator:
+    """RODAS4, fully compiled, with the block solver of the network (see the module docstring).
+
+    Parameters
+    ----------
+    rtol : float
+        Relative tolerance of the local error (default 1e-6).
+    atol : float
+        Absolute tolerance relative to each state's magnitude scale (default 1e-9): a state with
+        scale S (``CompiledModel.scale``) gets an absolute tolerance ``atol * S``.
+    max_steps : int
+        Largest number of steps in one dosing interval (default 1,000,000).
+    """
+
+    rtol: float = 1e-6
+    atol: float = 1e-9
+    max_steps: int = 1_000_000
+    hold: float = 1.0
+    name: str = field(init=False, default="rodas4")
+
+    def __post_init__(self) -> None:
+        for label, v in (("rtol", self.rtol), ("atol", self.atol)):
+            if not (isinstance(v, float | int) and not isinstance(v, bool) and 0 < v < 1):
+                raise ScenarioError.single(f"integrator {label}", v, "must be a number between 0 and 1")
+        if not (isinstance(self.max_steps, int) and self.max_steps >= 1):
+            raise ScenarioError.single("integrator max_steps", self.max_steps, "must be a whole number >= 1")
+
+    def tolerances(self, model: CompiledModel) -> tuple[float, np.ndarray]:
+        """The relative tolerance and the vector of absolute tolerances for ``model``."""
+        return float(self.rtol), self.atol * model.scale
+
+    def solve_schedule(self, model: CompiledModel, events, times: np.ndarray, duration: float, stats,
+                       progress=None):
+        """Run the whole regimen in compiled code.
+
+        Returns
+        -------
+        tuple
+            ``(states, event_dosed, event_removed, status, message)``; on failure the arrays end
+            at the last output row reached and ``status`` is -1.
+        """
+        marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
+        ev = encode_events(events)
+        n_t, n_c = len(times), model.n_comp
+        states = np.full((n_t, model.n_state), np.nan)
+        ev_dosed = np.zeros((n_t, n_c))
+        ev_removed = np.zeros((n_t, n_c))
+        struct = build_structure(model)
+        margs = model_args(model)
+        cargs = chain_args(model)
+        rtol, atol = self.tolerances(model)
+        n_jac = jacobian_size(len(model.link_p), model.n_dyn, len(model.mm_state), len(model.tr_from))
+        y = model.y0.copy()
+        infusion = np.zeros(n_c)
+        clamp = model.held.copy()
+        holds = np.zeros(n_c, dtype=np.int64)
+        dosed = np.zeros(n_c)
+        removed = np.zeros(n_c)
+        ptr = np.zeros(2, dtype=np.int64)
+        st = np.zeros(6, dtype=np.int64)
+        n_int = len(marks) - 1
+        chunks = [(0, n_int)] if progress is None else [(k, k + 1) for k in range(n_int)]
+        status, message = 0, "the run finished"
+        for k0, k1 in chunks:
+            code, k_fail = run_marks(k0, k1, marks, times, *ev, model.held, margs, cargs, model.q_supply,
+                                     model.q_infused, struct.args(), COEF, struct.n_w, n_jac, rtol, atol,
+                                     self.max_steps, self.hold, y, infusion, clamp, holds, dosed, removed, ptr,
+                                     states, ev_dosed, ev_removed, st)
+            if code != OK:
+                row = int(ptr[0])
+                t0, t1 = marks[k_fail], marks[k_fail + 1]
+                status = -1
+                message = (f"the solution failed between {t0:.6g} h and {t1:.6g} h (dosing interval {k_fail + 1}): "
+                           f"{_FAILURES.get(int(code), 'unknown failure')}. Try a tighter tolerance, fewer cells "
+                           "in very thin layers, or check for extreme values (diffusivity, clearance, partition).")
+                states, ev_dosed, ev_removed = states[:row], ev_dosed[:row], ev_removed[:row]
+                break
+            if progress is not None:
+                progress(float(marks[k1]) / duration if duration > 0 else 1.0)
+        stats.steps += int(st[ST_STEPS])
+        stats.rejected_steps += int(st[ST_REJECTED])
+        stats.rhs_evaluations += int(st[ST_RHS])
+        stats.jacobian_evaluations += int(st[ST_JAC])
+        stats.lu_decompositions += int(st[ST_LU])
+        stats.intervals += int(st[ST_INTERVALS])
+        return states, ev_dosed, ev_removed, status, message

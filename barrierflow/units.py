@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import cache
+from functools import cache, lru_cache
 from typing import TYPE_CHECKING, Any
 
 from .errors import UnitsError
@@ -198,8 +198,11 @@ def _tidy(value: float) -> float:
     return float(f"{value:.15g}")
 
 
+@lru_cache(maxsize=1024)
 def unit_factor(kind: str, unit: str, molar_mass: float | None = None) -> float:
     """Return the factor f such that ``value_in_unit = f * value_internal``.
+
+    Results are cached (the same few output units are converted for every scenario and result).
 
     Parameters
     ----------

@@ -53,7 +53,7 @@ class Services:
     archive: RunArchive
     manager: Any
     examples: dict[str, str]
-    poll_ms: int = 150
+    poll_ms: int = 100
 
 
 def example_scenarios(folder: str | os.PathLike[str] | None = None) -> dict[str, str]:
@@ -124,7 +124,7 @@ def page(initial: dict[str, Any], examples: dict[str, str]) -> html.Div:
 def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
                examples_dir: str | os.PathLike[str] | None = None,
                cache_dir: str | os.PathLike[str] | None = None,
-               poll_ms: int = 150) -> dash.Dash:
+               poll_ms: int = 100) -> dash.Dash:
     """Build the dashboard.
 
     Parameters

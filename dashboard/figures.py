@@ -30,6 +30,7 @@ __all__ = [
     "profile_figure",
     "stack_figure",
     "steady_profile_figure",
+    "wide_range",
 ]
 
 TIME_UNITS = ("h", "min", "d")
@@ -124,6 +125,24 @@ def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str]
             })
     title = "Amount in each compartment" if kind == "amount" else "Concentration in each compartment"
     return {"data": data, "layout": _layout(title, f"time [{time_unit}]", f"{kind} [{unit}]", log=log)}
+
+
+def wide_range(runs: Sequence[RunData], compartments: Sequence[str] | None = None,
+               quantity: str = "concentration", spread: float = 100.0) -> bool:
+    """True when the compartments' peak values differ by more than ``spread`` times.
+
+    The "auto" axis of the concentration plot is then logarithmic, so that a dilute
+    compartment (plasma) is not drawn flat beside a concentrated one (a patch).
+    """
+    peaks = []
+    for run in runs:
+        traces = run.amount if quantity == "amount" else run.conc
+        for cid in compartments or run.compartments:
+            if cid in traces:
+                top = float(np.nanmax(traces[cid])) if traces[cid].size else 0.0
+                if np.isfinite(top) and top > 0:
+                    peaks.append(top)
+    return bool(peaks) and max(peaks) / min(peaks) > spread
 
 
 def flux_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
@@ -313,7 +332,7 @@ def stack_figure(layers: Sequence[Mapping[str, Any]], height: int = 150) -> dict
     layout["margin"] = {"l": 16, "r": 16, "t": 34, "b": 58 + 20 * rows}
     layout["legend"] = {"orientation": "h", "yref": "container", "y": 0, "yanchor": "bottom", "x": 0,
                         "font": {"size": 11}}
-    layout["yaxis"].update(showticklabels=False, showline=False, ticks="")
+    layout["yaxis"].update(type="category", showticklabels=False, showline=False, ticks="")
     layout["xaxis"]["range"] = [0, total]
     layout["height"] = height + 20 * rows
     return {"data": data, "layout": layout}

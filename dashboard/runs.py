@@ -11,7 +11,6 @@ gives the same numbers (the engine is deterministic).
 from __future__ import annotations
 
 import hashlib
-import json
 import math
 import tempfile
 from collections.abc import Callable, Mapping
@@ -25,7 +24,7 @@ import numpy as np
 import barrierflow
 from barrierflow.errors import BarrierflowError
 
-__all__ = ["MAX_PROFILE_FRAMES", "RunArchive", "RunData", "execute", "pack", "run_key"]
+__all__ = ["MAX_PROFILE_FRAMES", "Exports", "RunArchive", "RunData", "execute", "exports", "pack", "run_key"]
 
 MAX_PROFILE_FRAMES = 241
 """Most output times kept for the profile slider (evenly picked from the output times)."""
@@ -75,17 +74,15 @@ class RunData:
     metrics_csv : str
         The metrics CSV, the text ``barrierflow run --metrics`` writes.
     warnings : tuple of str
-    csv : str
-        The traces CSV, the exact text ``barrierflow run`` writes.
-    sidecar : dict
-        The JSON sidecar (its ``created`` time is when the run was made).
-    sidecar_text : str
-        The sidecar as ``barrierflow run`` writes it.
     status : int
     message : str
     stats : dict
     molar_mass : float or None, mg/mmol
     dose_times : tuple of (float, str, str)
+    toml : str
+        The scenario's TOML text.
+    steady : dict of str to BarrierSteady
+        Steady state of each barrier between its compartments' starting conditions.
     """
 
     name: str
@@ -105,14 +102,13 @@ class RunData:
     metrics: list[dict[str, Any]]
     metrics_csv: str
     warnings: tuple[str, ...]
-    csv: str
-    sidecar: dict[str, Any]
-    sidecar_text: str
     status: int
     message: str
     stats: dict[str, Any]
     molar_mass: float | None
     dose_times: tuple[tuple[float, str, str], ...] = field(default=())
+    toml: str = ""
+    steady: dict[str, Any] = field(default_factory=dict)
 
     def renamed(self, name: str) -> RunData:
         """The same run under another name."""
@@ -179,8 +175,11 @@ def metric_rows(result: Any) -> tuple[list[dict[str, Any]], str]:
     return rows, table.to_csv()
 
 
-def pack(result: Any, name: str) -> RunData:
-    """Pack a :class:`barrierflow.Result` into a :class:`RunData`."""
+def pack(result: Any, name: str, toml_text: str = "") -> RunData:
+    """Pack a :class:`barrierflow.Result` into a :class:`RunData`.
+
+    ``toml_text`` is the scenario's TOML text, kept with the run.
+    """
     s = result.scenario
     times = np.asarray(result.times, dtype=float)
     comps = tuple(result.compartment_ids)
@@ -201,11 +200,13 @@ def pack(result: Any, name: str) -> RunData:
             profile_conc=conc)
     mb = result.mass_balance
     metrics, metrics_csv = metric_rows(result)
-    # the exports are written by the library's own writer, so they are the bytes the CLI writes
-    with tempfile.TemporaryDirectory(prefix="barrierflow-export-") as tmp:
-        csv_path = result.to_csv(Path(tmp) / "run.csv")
-        csv_text = csv_path.read_text(encoding="utf-8")
-        sidecar_json = csv_path.with_suffix(".json").read_text(encoding="utf-8")
+    steady = {}
+    try:
+        from barrierflow.analysis.steady import steady_state
+
+        steady = {b.barrier_id: b for b in steady_state(s).barriers}
+    except (ValueError, ArithmeticError):  # the steady state is an extra; the run stands without it
+        steady = {}
     return RunData(
         name=name, scenario_name=s.name, times=times, compartments=comps,
         held={c.id: c.held for c in s.compartments},
@@ -214,9 +215,9 @@ def pack(result: Any, name: str) -> RunData:
         eliminated={c: result.eliminated(c) for c in comps}, removed={c: result.removed(c) for c in comps},
         dosed={c: result.dosed(c) for c in comps}, barriers=barriers,
         initial_amount=float(mb.initial), mass_balance=mb.as_dict(), metrics=metrics, metrics_csv=metrics_csv,
-        warnings=tuple(result.warnings()), csv=csv_text, sidecar=json.loads(sidecar_json), sidecar_text=sidecar_json,
+        warnings=tuple(result.warnings()),
         status=int(result.status), message=str(result.message), stats=dict(result.stats),
-        molar_mass=s.substance.molar_mass, dose_times=tuple(result.dose_times))
+        molar_mass=s.substance.molar_mass, dose_times=tuple(result.dose_times), toml=toml_text, steady=steady)
 
 
 def execute(toml_text: str, name: str, file: str | None = None,
@@ -232,7 +233,7 @@ def execute(toml_text: str, name: str, file: str | None = None,
     """
     scenario = barrierflow.loads(toml_text, file)
     result = barrierflow.simulate(scenario, progress=progress)
-    return pack(result, name)
+    return pack(result, name, toml_text)
 
 
 class RunArchive:
@@ -259,6 +260,15 @@ class RunArchive:
     def get(self, key: str) -> RunData | None:
         """The run under ``key``, or None when it is not (or no longer) kept."""
         return self.cache.get(key)
+
+    def exports(self, record: Mapping[str, Any]) -> Exports:
+        """The traces CSV and sidecar of a run record (made once, then kept)."""
+        key = f"{record['key']}:exports"
+        found = self.cache.get(key)
+        if found is None:
+            found = exports(record["toml"], record.get("file"))
+            self.cache.set(key, found)
+        return found
 
     def fetch(self, record: Mapping[str, Any]) -> RunData | None:
         """The run of a run record, simulated again from its TOML if the archive dropped it.
@@ -289,3 +299,33 @@ def new_record(run_id: str, name: str, toml_text: str, file: str | None, data: R
         "wall_time_s": float(data.stats.get("wall_time_s", math.nan)) if data is not None else None,
         "error": error,
     }
+
+
+@dataclass(frozen=True)
+class Exports:
+    """The files ``barrierflow run`` writes for a scenario, as text.
+
+    Attributes
+    ----------
+    csv : str
+        The traces CSV.
+    sidecar : str
+        The JSON sidecar (its ``created`` time is when the export was made).
+    """
+
+    csv: str
+    sidecar: str
+
+
+def exports(toml_text: str, file: str | None = None) -> Exports:
+    """Simulate a scenario and write its traces and sidecar with the library's own writer.
+
+    The run is made again (the engine is deterministic, so the numbers are those of the run
+    shown) and written by :meth:`barrierflow.Result.to_csv` into a temporary folder, so the
+    text is byte for byte what ``barrierflow run`` writes for the same scenario.
+    """
+    scenario = barrierflow.loads(toml_text, file)
+    result = barrierflow.simulate(scenario)
+    with tempfile.TemporaryDirectory(prefix="barrierflow-export-") as tmp:
+        path = result.to_csv(Path(tmp) / "run.csv")
+        return Exports(path.read_text(encoding="utf-8"), path.with_suffix(".json").read_text(encoding="utf-8"))

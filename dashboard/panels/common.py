@@ -84,6 +84,7 @@ GRAPH_CONFIG = {
 
 def graph(id: str, figure: dict | None = None, height: int | None = None, **kwargs: Any) -> dcc.Graph:
     """A plotly graph with the dashboard's mode bar (PNG or SVG export, no logo)."""
-    if height:
-        kwargs["style"] = {"height": f"{height}px"}
+    # Dash 4 gives a graph "height: 100%" by default, which inside a grid or flex item takes the
+    # height of the item and lets the plot overflow its card; the figure's own height rules here
+    kwargs["style"] = {"height": f"{height}px"} if height else {"height": "auto"}
     return dcc.Graph(id=id, figure=figure or {"data": [], "layout": {}}, config=dict(GRAPH_CONFIG), **kwargs)

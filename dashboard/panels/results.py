@@ -34,27 +34,41 @@ def fetch(picked: Sequence[str] | None, runs: Sequence[Mapping[str, Any]] | None
     return out
 
 
+def _show(value: Any) -> str:
+    """A table value as text: numbers to four significant digits, the rest as they are."""
+    if value is None:
+        return ""
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return format(value, ".4g")
+    return str(value)
+
+
 def compare_rows(runs: Sequence[RunData], reference: int = 0) -> tuple[list[dict[str, Any]], list[str]]:
     """Rows of the side-by-side metrics table, and the run names.
 
     Each row holds ``part``, ``id``, ``metric`` (the label), ``name`` (the analysis package's
-    name), ``unit``, the value of run i under ``v<i>`` and, for every run but the reference,
-    ``r<i>`` = its value divided by the reference run's (None where that is not a number).
+    name), ``unit``; for run i, ``v<i>`` the value shown (four significant digits) and ``f<i>``
+    the full value; for every run but the reference, ``r<i>`` (shown) and ``q<i>`` (full) its
+    value divided by the reference run's (empty where that is not a number).
     """
     names = [r.name for r in runs]
     table: dict[tuple[str, str, str, str], dict[str, Any]] = {}
+    raw: dict[tuple[str, str, str, str], dict[int, Any]] = {}
     for i, run in enumerate(runs):
         for m in run.metrics:
             k = (m["part"], m["id"], m["name"], m["unit"])
-            row = table.setdefault(k, {"part": m["part"], "id": m["id"], "name": m["name"], "metric": m["metric"],
-                                       "unit": m["unit"]})
-            row[f"v{i}"] = m["value"]
+            table.setdefault(k, {"part": m["part"], "id": m["id"], "name": m["name"], "metric": m["metric"],
+                                 "unit": m["unit"]})
+            raw.setdefault(k, {})[i] = m["value"]
     rows = []
-    for row in table.values():
-        ref = row.get(f"v{reference}")
+    for k, row in table.items():
+        values = raw[k]
         for i in range(len(runs)):
+            v = values.get(i)
+            row[f"v{i}"], row[f"f{i}"] = _show(v), "" if v is None else repr(v)
             if i != reference:
-                row[f"r{i}"] = ratio(row.get(f"v{i}"), ref)
+                r = ratio(v, values.get(reference))
+                row[f"r{i}"], row[f"q{i}"] = _show(r), "" if r is None else repr(r)
         rows.append(row)
     return rows, names
 
@@ -68,10 +82,10 @@ def ratio(value: Any, reference: Any) -> float | None:
 
 
 def compare_columns(names: Sequence[str], reference: int = 0) -> list[dict[str, Any]]:
-    """Columns of the metrics table: the metric, each run's value, the ratios to the reference."""
-    # four significant digits, trailing zeros dropped (2.000 -> 2, 1.0e-7 -> 1e-7)
-    fmt = {"function": "typeof params.value === 'number' ? String(parseFloat(params.value.toPrecision(4))) : "
-                       "(params.value == null ? '' : String(params.value))"}
+    """Columns of the metrics table: the metric, each run's value, the ratios to the reference.
+
+    Values are shown to four significant digits; hovering a value shows it in full.
+    """
     cols: list[dict[str, Any]] = [
         {"field": "part", "headerName": "Part", "width": 120, "pinned": "left"},
         {"field": "id", "headerName": "Id", "width": 120, "pinned": "left"},
@@ -81,12 +95,12 @@ def compare_columns(names: Sequence[str], reference: int = 0) -> list[dict[str, 
     ]
     for i, name in enumerate(names):
         label = f"{name} (reference)" if i == reference and len(names) > 1 else name
-        cols.append({"field": f"v{i}", "headerName": label, "minWidth": 120, "flex": 1,
-                     "valueFormatter": fmt, "type": "rightAligned"})
+        cols.append({"field": f"v{i}", "headerName": label, "minWidth": 120, "flex": 1, "tooltipField": f"f{i}",
+                     "type": "rightAligned"})
     for i, name in enumerate(names):
         if i != reference:
             cols.append({"field": f"r{i}", "headerName": f"{name} ÷ {names[reference]}", "minWidth": 140, "flex": 1,
-                         "valueFormatter": fmt, "type": "rightAligned", "cellClass": "ratio-cell"})
+                         "tooltipField": f"q{i}", "type": "rightAligned", "cellClass": "ratio-cell"})
     return cols
 
 
@@ -124,7 +138,8 @@ def layout() -> html.Div:
                                     "concentration")),
             labelled("Unit", dcc.Dropdown(id=ids.CONC_UNIT, options=list(F.CONCENTRATION_UNITS), value="mg/L",
                                           clearable=False, className="unit-pick")),
-            labelled("Axis", _radio(ids.CONC_SCALE, [("linear", "linear"), ("log", "logarithmic")], "linear")),
+            labelled("Axis", _radio(ids.CONC_SCALE, [("auto", "auto"), ("linear", "linear"), ("log", "logarithmic")],
+                                    "auto")),
             labelled("Compartments", dcc.Dropdown(id=ids.COMPARTMENT_PICK, options=[], value=[], multi=True,
                                                   className="barrier-pick", placeholder="all compartments")),
         ], className="controls"),
@@ -153,8 +168,7 @@ def layout() -> html.Div:
         html.Div([
             html.Label("Time of the profile (saved output time)", htmlFor=ids.PROFILE_SLIDER, className="field-label"),
             html.Div(dcc.Slider(id=ids.PROFILE_SLIDER, min=0, max=1, step=1, value=0, marks=None,
-                                updatemode="drag", tooltip={"always_visible": False, "placement": "bottom"},
-                                allow_direct_input=False), className="slider-box"),
+                                updatemode="drag", allow_direct_input=False), className="slider-box"),
             html.Div(id=ids.PROFILE_TIME, className="profile-time", role="status"),
         ], className="slider-row"),
         graph(ids.PROFILE_FIGURE, F.empty_figure("Run a scenario with a barrier to see its profile.")),
@@ -210,45 +224,34 @@ def register(app: Any, services: Any) -> None:
     """Attach the results panel's callbacks."""
     archive = services.archive
 
+    # Each plot's callback also sets its own pickers (unit, compartments, barrier), so that a
+    # new run reaches every plot in one step after the run list (no chain of callbacks).
     @app.callback(
-        Output(ids.CONC_UNIT, "options"),
-        Output(ids.CONC_UNIT, "value"),
-        Output(ids.COMPARTMENT_PICK, "options"),
         Output(ids.BARRIER_PICK, "options"),
-        Output(ids.PROFILE_BARRIER, "options"),
-        Output(ids.PROFILE_BARRIER, "value"),
         Output(ids.BALANCE_RUN, "options"),
         Output(ids.BALANCE_RUN, "value"),
         Output(ids.EXPORT_RUN, "options"),
         Output(ids.EXPORT_RUN, "value"),
         Input(ids.RUN_PICK, "value"),
-        Input(ids.CONC_QUANTITY, "value"),
-        Input(ids.REFERENCE, "value"),
         State(ids.RUNS, "data"),
-        State(ids.CONC_UNIT, "value"),
-        State(ids.PROFILE_BARRIER, "value"),
+        State(ids.BALANCE_RUN, "value"),
     )
-    def choices(picked, quantity, reference, runs, unit, barrier):
-        data = fetch(picked, runs, archive)
-        molar = any(r.molar_mass for r in data)
-        units = list(F.AMOUNT_UNITS) if quantity == "amount" else concentration_units(molar)
-        unit = unit if unit in units else units[0]
+    def choices(picked, runs, balance_run):
         bids: list[str] = []
-        cids: list[str] = []
-        for r in data:
+        for r in fetch(picked, runs, archive):
             bids += [b for b in r.barriers if b not in bids]
-            cids += [c for c in r.compartments if c not in cids]
-        barrier = barrier if barrier in bids else (bids[0] if bids else None)
-        by_id = {r["id"]: r for r in runs or []}
-        run_opts = [{"label": by_id[v]["name"], "value": v} for v in picked or [] if v in by_id]
+        run_opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if r["id"] in set(picked or [])]
         values = [o["value"] for o in run_opts]
-        chosen = reference if reference in values else (values[0] if values else None)
+        chosen = balance_run if balance_run in values else (values[0] if values else None)
         all_opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if not r.get("error")]
         latest = values[-1] if values else (all_opts[-1]["value"] if all_opts else None)
-        return units, unit, cids, bids, bids, barrier, run_opts, chosen, all_opts, latest
+        return bids, run_opts, chosen, all_opts, latest
 
     @app.callback(
         Output(ids.CONC_FIGURE, "figure"),
+        Output(ids.CONC_UNIT, "options"),
+        Output(ids.CONC_UNIT, "value"),
+        Output(ids.COMPARTMENT_PICK, "options"),
         Input(ids.RUN_PICK, "value"),
         Input(ids.CONC_QUANTITY, "value"),
         Input(ids.CONC_UNIT, "value"),
@@ -259,11 +262,17 @@ def register(app: Any, services: Any) -> None:
     )
     def concentrations(picked, quantity, unit, scale, time_unit, cids, runs):
         data = fetch(picked, runs, archive)
-        kind_units = F.AMOUNT_UNITS if quantity == "amount" else (*F.CONCENTRATION_UNITS, *F.MOLAR_CONCENTRATION_UNITS)
-        if unit not in kind_units:
-            raise PreventUpdate
-        return F.concentration_figure(data, compartments=cids or None, quantity=quantity, unit=unit,
-                                      time_unit=time_unit, log=scale == "log")
+        molar = bool(data) and all(r.molar_mass for r in data)
+        units = list(F.AMOUNT_UNITS) if quantity == "amount" else concentration_units(molar)
+        unit = unit if unit in units else units[0]
+        options: list[str] = []
+        for r in data:
+            options += [c for c in r.compartments if c not in options]
+        cids = [c for c in cids or [] if c in options] or None
+        log = F.wide_range(data, cids, quantity) if scale == "auto" else scale == "log"
+        figure = F.concentration_figure(data, compartments=cids, quantity=quantity, unit=unit,
+                                        time_unit=time_unit, log=log)
+        return figure, units, unit, options
 
     @app.callback(
         Output(ids.FLUX_FIGURE, "figure"),
@@ -281,6 +290,8 @@ def register(app: Any, services: Any) -> None:
                 F.permeated_figure(data, barriers=chosen, amount_unit=unit, time_unit=time_unit))
 
     @app.callback(
+        Output(ids.PROFILE_BARRIER, "options"),
+        Output(ids.PROFILE_BARRIER, "value"),
         Output(ids.PROFILE_SLIDER, "max"),
         Output(ids.PROFILE_SLIDER, "marks"),
         Output(ids.PROFILE_SLIDER, "value"),
@@ -292,9 +303,14 @@ def register(app: Any, services: Any) -> None:
         State(ids.PROFILE_SLIDER, "max"),
     )
     def slider(barrier, picked, time_unit, runs, value, old_max):
-        data = [r for r in fetch(picked, runs, archive) if barrier in r.barriers]
+        runs_data = fetch(picked, runs, archive)
+        bids: list[str] = []
+        for r in runs_data:
+            bids += [b for b in r.barriers if b not in bids]
+        barrier = barrier if barrier in bids else (bids[0] if bids else None)
+        data = [r for r in runs_data if barrier in r.barriers]
         if not data:
-            return 1, None, 0
+            return bids, barrier, 1, None, 0
         from barrierflow.units import unit_factor
 
         times = data[0].barriers[barrier].profile_times
@@ -304,7 +320,7 @@ def register(app: Any, services: Any) -> None:
                  for i in sorted({round(n * f) for f in (0, 0.25, 0.5, 0.75, 1.0)})}
         if value is None or old_max != n:
             value = n // 2 if ctx.triggered_id != ids.TIME_UNIT else value
-        return max(n, 1), marks, min(value or 0, n)
+        return bids, barrier, max(n, 1), marks, min(value or 0, n)
 
     @app.callback(
         Output(ids.PROFILE_FIGURE, "figure"),
@@ -428,13 +444,14 @@ def register(app: Any, services: Any) -> None:
         if data is None:
             raise PreventUpdate
         stem = (record.get("file") or "barrierflow-run").removesuffix(".toml")
-        if trigger == ids.EXPORT_CSV:
-            return dcc.send_string(data.csv, f"{stem}.csv", type="text/csv")
         if trigger == ids.EXPORT_METRICS:
             if not data.metrics_csv:
                 raise PreventUpdate
             return dcc.send_string(data.metrics_csv, f"{stem}-metrics.csv", type="text/csv")
-        return dcc.send_string(data.sidecar_text, f"{stem}.json", type="application/json")
+        files = archive.exports(record)
+        if trigger == ids.EXPORT_CSV:
+            return dcc.send_string(files.csv, f"{stem}.csv", type="text/csv")
+        return dcc.send_string(files.sidecar, f"{stem}.json", type="application/json")
 
     @app.callback(
         [Output(g, "config") for g in RESULT_GRAPHS],
@@ -447,15 +464,5 @@ def register(app: Any, services: Any) -> None:
 
 
 def _steady_of(run: RunData, barrier: str) -> Any:
-    """The steady state of a barrier of a run, from the run's scenario (None when not available)."""
-    import barrierflow
-    from barrierflow.analysis.steady import steady_state
-
-    toml = run.sidecar.get("scenario", {}).get("toml")
-    if not toml:
-        return None
-    try:
-        report = steady_state(barrierflow.loads(toml))
-        return report.barrier(barrier)
-    except (KeyError, ValueError, ArithmeticError):
-        return None
+    """The steady state of a barrier of a run (None when not available)."""
+    return run.steady.get(barrier)

@@ -242,10 +242,13 @@ def register(app: Any, services: Any) -> None:
         Output(ids.RUN_PICK, "value"),
         Output("runs-empty", "style"),
         Output(ids.RUN_NAME, "placeholder"),
+        Output(ids.REFERENCE, "options"),
+        Output(ids.REFERENCE, "value"),
         Input(ids.RUNS, "data"),
-        State(ids.RUN_PICK, "value"),
+        Input(ids.RUN_PICK, "value"),
     )
     def list_runs(runs, picked):
+        # one step from a new run to the ticked runs and the reference, so the plots follow at once
         runs = runs or []
         opts = []
         for r in runs:
@@ -258,20 +261,8 @@ def register(app: Any, services: Any) -> None:
         value = [v for v in (picked or []) if v in existing]
         if ctx.triggered_id == ids.RUNS and runs and runs[-1]["id"] not in value and not runs[-1].get("error"):
             value = [runs[-1]["id"]]
-        return opts, value, ({"display": "none"} if runs else {}), f"run {number}"
-
-    @app.callback(
-        Output(ids.REFERENCE, "options"),
-        Output(ids.REFERENCE, "value"),
-        Input(ids.RUN_PICK, "value"),
-        State(ids.RUNS, "data"),
-        State(ids.REFERENCE, "value"),
-    )
-    def reference(picked, runs, current):
-        # in the order of the session; when the ticked runs change, the earliest becomes the
-        # reference (the baseline), and the researcher may pick another
-        chosen = set(picked or [])
-        opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if r["id"] in chosen]
-        if not opts:
-            return [], None
-        return opts, opts[0]["value"]
+        # the earliest ticked run (the baseline) is the reference; the researcher may pick another
+        chosen = set(value)
+        ref_opts = [{"label": r["name"], "value": r["id"]} for r in runs if r["id"] in chosen]
+        reference = ref_opts[0]["value"] if ref_opts else None
+        return opts, value, ({"display": "none"} if runs else {}), f"run {number}", ref_opts, reference

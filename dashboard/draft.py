@@ -71,7 +71,9 @@ __all__ = [
     "save_text",
     "set_doses",
     "set_layers",
+    "set_output",
     "set_scenario",
+    "set_substance",
     "to_document",
     "tidy_positions",
     "update_compartment",
@@ -127,6 +129,18 @@ DOSE_FIELDS: dict[str, tuple[str, str, str]] = {
 SCENARIO_FIELDS = ("name", "description", "duration", "output_step")
 SUBSTANCE_FIELDS = ("name", "molar_mass", "solubility", "log_kow")
 OUTPUT_FIELDS = ("time", "concentration", "amount", "area")
+SUBSTANCE_LABELS: dict[str, tuple[str, str, str]] = {
+    "name": ("Substance", "text", "compound A"),
+    "molar_mass": ("Molar mass", "molar_mass", "250 g/mol"),
+    "solubility": ("Solubility", "concentration", "2 mg/mL"),
+    "log_kow": ("log Kow", "number", "1.8"),
+}
+OUTPUT_LABELS: dict[str, tuple[str, str, str]] = {
+    "time": ("Time unit", "text", "h"),
+    "concentration": ("Concentration unit", "text", "mg/L"),
+    "amount": ("Amount unit", "text", "mg"),
+    "area": ("Area unit", "text", "cm^2"),
+}
 
 NEW_LAYER = {"name": "", "thickness": "10 um", "diffusivity": "1e-7 cm^2/s", "partition": "1",
              "cells": "", "degradation_rate": ""}
@@ -729,6 +743,28 @@ def set_scenario(draft: Mapping[str, Any], **values: Any) -> dict[str, Any]:
             d["scenario"][k] = "" if v is None else str(v)
             if k == "output_step" and str(v or "").strip():
                 d["output_times"] = None
+    return d
+
+
+def set_substance(draft: Mapping[str, Any], **values: Any) -> dict[str, Any]:
+    """Set fields of the substance (name, molar_mass, solubility, log_kow)."""
+    d = copy.deepcopy(dict(draft))
+    for k, v in values.items():
+        if k in SUBSTANCE_FIELDS:
+            d["substance"][k] = "" if v is None else str(v)
+    return d
+
+
+def set_output(draft: Mapping[str, Any], **values: Any) -> dict[str, Any]:
+    """Set units of the exported traces (time, concentration, amount, area); empty: the default."""
+    d = copy.deepcopy(dict(draft))
+    for k, v in values.items():
+        if k in OUTPUT_FIELDS:
+            text = "" if v is None else str(v).strip()
+            if text:
+                d["output"][k] = text
+            else:
+                d["output"].pop(k, None)
     return d
 
 

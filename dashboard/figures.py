@@ -22,6 +22,7 @@ __all__ = [
     "CONCENTRATION_UNITS",
     "TIME_UNITS",
     "balance_figure",
+    "balance_parts",
     "concentration_figure",
     "dose_timeline_figure",
     "empty_figure",
@@ -338,17 +339,14 @@ def stack_figure(layers: Sequence[Mapping[str, Any]], height: int = 150) -> dict
     return {"data": data, "layout": layout}
 
 
-def balance_figure(run: RunData, *, amount_unit: str = "mg", time_unit: str = "h") -> dict[str, Any]:
-    """Where the substance is at each time: stacked areas, with the total that entered as a line.
+def balance_parts(run: RunData) -> tuple[list[tuple[str, np.ndarray]], np.ndarray]:
+    """Where the substance of a run is at each time (mg), and what entered in all (mg).
 
-    Stacked: the amount in each (non-held) compartment and inside each barrier, what was
-    eliminated, degraded, removed (replace and remove doses) and taken up by held sinks. The
-    line is what entered: the starting amount, the doses and what held sources supplied. The
-    stack meets the line when mass is conserved.
+    The parts are the amount in each (non-held) compartment and inside each resolved barrier,
+    what was eliminated, degraded, removed (replace and remove doses) and taken up by held
+    sinks. What entered is the starting amount, the doses and what held sources supplied.
+    Their sum equals what entered when mass is conserved.
     """
-    ft = unit_factor("time", time_unit)
-    fa = unit_factor("amount", amount_unit)
-    t = (run.times * ft).tolist()
     parts: list[tuple[str, np.ndarray]] = []
     for cid in run.compartments:
         if not run.held.get(cid):
@@ -357,10 +355,9 @@ def balance_figure(run: RunData, *, amount_unit: str = "mg", time_unit: str = "h
         if b.model != "steady":
             parts.append((f"inside barrier {bid}", b.content))
     zeros = np.zeros_like(run.times)
-    elim = sum((run.eliminated[c] for c in run.compartments), zeros)
-    degr = sum((b.degraded for b in run.barriers.values()), zeros)
-    removed = sum((run.removed[c] for c in run.compartments), zeros)
-    parts += [("eliminated", elim), ("degraded in barriers", degr), ("removed (replace, remove)", removed)]
+    parts += [("eliminated", sum((run.eliminated[c] for c in run.compartments), zeros)),
+              ("degraded in barriers", sum((b.degraded for b in run.barriers.values()), zeros)),
+              ("removed (replace, remove)", sum((run.removed[c] for c in run.compartments), zeros))]
     entered = np.full_like(run.times, run.initial_amount)
     for cid in run.compartments:
         dosed = run.dosed[cid]
@@ -369,27 +366,70 @@ def balance_figure(run: RunData, *, amount_unit: str = "mg", time_unit: str = "h
             entered = entered + np.maximum(dosed, 0.0)
         else:
             entered = entered + dosed
-    data = []
-    i = 0
-    for label, values in parts:
-        if not np.any(np.abs(values) > 0):
-            continue
-        data.append({"type": "scatter", "mode": "lines", "x": t, "y": (values * fa).tolist(), "name": label,
-                     "stackgroup": "where", "line": {"width": 1.2, "color": color(i)},
-                     "fillcolor": _rgba(color(i), 0.55),
-                     "fillpattern": {"shape": ("", "/", ".", "x", "\\", "+", "-", "|")[i % 8],
-                                     "bgcolor": _rgba(color(i), 0.55), "fgcolor": _rgba("#1d2733", 0.45),
-                                     "size": 8, "solidity": 0.15},
-                     "hovertemplate": f"{label}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {amount_unit}<extra></extra>"})
-        i += 1
-    data.append({"type": "scatter", "mode": "lines", "x": t, "y": (entered * fa).tolist(),
-                 "name": "entered in all (start + doses + held sources)", "line": {"color": INK, "dash": "dash",
-                                                                                    "width": 2},
-                 "hovertemplate": f"entered<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {amount_unit}<extra></extra>"})
-    err = run.mass_balance.get("relative_error", float("nan"))
-    layout = _layout(f"Where the substance is: {run.name} (mass balance error {err:.1e} relative)",
-                     f"time [{time_unit}]", f"amount [{amount_unit}]", height=400)
+    return parts, entered
+
+
+def balance_figure(runs: RunData | Sequence[RunData], *, amount_unit: str = "mg",
+                   time_unit: str = "h") -> dict[str, Any]:
+    """Where the substance is at each time: stacked areas, with what entered as a dashed line.
+
+    One panel per run, side by side on a shared amount axis (at most four runs). The stack
+    meets the line when mass is conserved (see :func:`balance_parts`).
+    """
+    runs = [runs] if isinstance(runs, RunData) else list(runs)[:4]
+    if not runs:
+        return empty_figure("Run the scenario to see where the dose goes.")
+    ft = unit_factor("time", time_unit)
+    fa = unit_factor("amount", amount_unit)
+    n = len(runs)
+    gap = 0.04
+    width = (1 - gap * (n - 1)) / n
+    data: list[dict[str, Any]] = []
+    colour_of: dict[str, int] = {}
+    shown: set[str] = set()
+    annotations = []
+    for k, run in enumerate(runs):
+        axis = "" if k == 0 else str(k + 1)
+        t = (run.times * ft).tolist()
+        parts, entered = balance_parts(run)
+        for label, values in parts:
+            if not np.any(np.abs(values) > 0):
+                continue
+            i = colour_of.setdefault(label, len(colour_of))
+            data.append({"type": "scatter", "mode": "lines", "x": t, "y": (values * fa).tolist(), "name": label,
+                         "legendgroup": label, "showlegend": label not in shown, "xaxis": f"x{axis}",
+                         "yaxis": f"y{axis}", "stackgroup": f"where{k}", "line": {"width": 1.2, "color": color(i)},
+                         "fillcolor": _rgba(color(i), 0.55),
+                         "fillpattern": {"shape": ("", "/", ".", "x", "\\", "+", "-", "|")[i % 8],
+                                         "bgcolor": _rgba(color(i), 0.55), "fgcolor": _rgba("#1d2733", 0.45),
+                                         "size": 8, "solidity": 0.15},
+                         "hovertemplate": f"{run.name}: {label}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {amount_unit}"
+                                          "<extra></extra>"})
+            shown.add(label)
+        data.append({"type": "scatter", "mode": "lines", "x": t, "y": (entered * fa).tolist(),
+                     "name": "entered in all (start + doses + held sources)", "legendgroup": "entered",
+                     "showlegend": k == 0, "xaxis": f"x{axis}", "yaxis": f"y{axis}",
+                     "line": {"color": INK, "dash": "dash", "width": 2},
+                     "hovertemplate": f"{run.name}: entered<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {amount_unit}"
+                                      "<extra></extra>"})
+        err = run.mass_balance.get("relative_error", float("nan"))
+        annotations.append({"text": f"{run.name} (balance error {err:.1e})", "showarrow": False,
+                            "xref": f"x{axis} domain", "yref": "paper", "x": 0, "y": 1.0, "xanchor": "left",
+                            "yanchor": "bottom", "font": {"size": 13, "color": INK}})
+    title = "Where the substance is" + (f": {runs[0].name}" if n == 1 else ", run by run")
+    layout = _layout(title, f"time [{time_unit}]", f"amount [{amount_unit}]", height=420)
     layout["uirevision"] = "balance"
+    layout["margin"]["t"] = 70
+    base_x, base_y = layout["xaxis"], layout["yaxis"]
+    for k in range(n):
+        axis = "" if k == 0 else str(k + 1)
+        x = dict(base_x, domain=[k * (width + gap), k * (width + gap) + width], anchor=f"y{axis}")
+        y = dict(base_y, anchor=f"x{axis}")
+        if k:
+            y.update(matches="y", showticklabels=False, title={"text": ""})
+        layout[f"xaxis{axis}"] = x
+        layout[f"yaxis{axis}"] = y
+    layout["annotations"] = annotations
     return {"data": data, "layout": layout}
 
 

@@ -73,6 +73,7 @@ PROBLEMS = "run-problems"
 RUN_PICK = "runs-pick"             # which runs are shown (and compared)
 REFERENCE = "runs-reference"
 RUNS_CLEAR = "runs-clear"
+OPEN_RUN = "runs-open"
 
 # ---------------------------------------------------------------- results
 RESULT_TABS = "result-tabs"
@@ -94,7 +95,6 @@ PROFILE_PLAY = "profile-play"
 PROFILE_TICK = "profile-tick"
 PROFILE_STEADY = "profile-steady"
 BALANCE_FIGURE = "fig-balance"
-BALANCE_RUN = "balance-run"
 METRICS_GRID = "metrics-grid"
 METRICS_FILTER = "metrics-filter"
 COMPARE_GRID = "compare-grid"

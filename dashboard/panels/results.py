@@ -175,9 +175,9 @@ def layout() -> html.Div:
     ])
     balance_tab = html.Div([
         html.Div([
-            labelled("Run", dcc.Dropdown(id=ids.BALANCE_RUN, options=[], clearable=False, className="run-one")),
             labelled("Amount unit", dcc.Dropdown(id=BALANCE_UNIT, options=list(F.AMOUNT_UNITS), value="mg",
                                                  clearable=False, className="unit-pick")),
+            html.Div("Each ticked run in its own panel (up to four), on one amount axis.", className="fine-print"),
         ], className="controls"),
         graph(ids.BALANCE_FIGURE, F.empty_figure("Run the scenario to see where the dose goes.")),
     ])
@@ -228,24 +228,19 @@ def register(app: Any, services: Any) -> None:
     # new run reaches every plot in one step after the run list (no chain of callbacks).
     @app.callback(
         Output(ids.BARRIER_PICK, "options"),
-        Output(ids.BALANCE_RUN, "options"),
-        Output(ids.BALANCE_RUN, "value"),
         Output(ids.EXPORT_RUN, "options"),
         Output(ids.EXPORT_RUN, "value"),
         Input(ids.RUN_PICK, "value"),
         State(ids.RUNS, "data"),
-        State(ids.BALANCE_RUN, "value"),
     )
-    def choices(picked, runs, balance_run):
+    def choices(picked, runs):
         bids: list[str] = []
         for r in fetch(picked, runs, archive):
             bids += [b for b in r.barriers if b not in bids]
-        run_opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if r["id"] in set(picked or [])]
-        values = [o["value"] for o in run_opts]
-        chosen = balance_run if balance_run in values else (values[0] if values else None)
+        values = [r["id"] for r in runs or [] if r["id"] in set(picked or [])]
         all_opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if not r.get("error")]
         latest = values[-1] if values else (all_opts[-1]["value"] if all_opts else None)
-        return bids, run_opts, chosen, all_opts, latest
+        return bids, all_opts, latest
 
     @app.callback(
         Output(ids.CONC_FIGURE, "figure"),
@@ -374,16 +369,13 @@ def register(app: Any, services: Any) -> None:
 
     @app.callback(
         Output(ids.BALANCE_FIGURE, "figure"),
-        Input(ids.BALANCE_RUN, "value"),
+        Input(ids.RUN_PICK, "value"),
         Input(BALANCE_UNIT, "value"),
         Input(ids.TIME_UNIT, "value"),
         State(ids.RUNS, "data"),
     )
-    def balance(run_id, unit, time_unit, runs):
-        data = fetch([run_id] if run_id else [], runs, archive)
-        if not data:
-            return F.empty_figure("Run the scenario to see where the dose goes.")
-        return F.balance_figure(data[0], amount_unit=unit, time_unit=time_unit)
+    def balance(picked, unit, time_unit, runs):
+        return F.balance_figure(fetch(picked, runs, archive), amount_unit=unit, time_unit=time_unit)
 
     @app.callback(
         Output(ids.METRICS_GRID, "rowData"),

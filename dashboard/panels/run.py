@@ -38,7 +38,7 @@ def layout(initial: dict[str, Any]) -> html.Div:
             ], className="run-field"),
             html.Div([
                 html.Label("Name of the run", htmlFor=ids.RUN_NAME, className="field-label"),
-                dcc.Input(id=ids.RUN_NAME, type="text", debounce=False, value="", className="field-input",
+                dcc.Input(id=ids.RUN_NAME, type="text", debounce=True, value="", className="field-input",
                           placeholder="run 1"),
                 html.Span("shown in legends and tables", className="field-hint"),
             ], className="run-field"),
@@ -63,7 +63,11 @@ def layout(initial: dict[str, Any]) -> html.Div:
             html.Div([
                 html.Label("Reference run for ratios", htmlFor=ids.REFERENCE, className="field-label"),
                 dcc.Dropdown(id=ids.REFERENCE, options=[], clearable=False, className="reference-pick"),
-                html.Button("Forget all runs", id=ids.RUNS_CLEAR, className="btn danger-outline small"),
+                html.Div([
+                    html.Button("Edit this run's scenario", id=ids.OPEN_RUN, className="btn small",
+                                title="open the scenario of the reference run in the editor"),
+                    html.Button("Forget all runs", id=ids.RUNS_CLEAR, className="btn danger-outline small"),
+                ], className="toolbar"),
             ], className="runs-reference"),
         ], className="runs-row"),
     ])

@@ -6,7 +6,7 @@ import base64
 from pathlib import Path
 from typing import Any
 
-from dash import Input, Output, State, dcc, html, no_update
+from dash import ALL, Input, Output, State, ctx, dcc, html, no_update
 from dash.exceptions import PreventUpdate
 
 import barrierflow
@@ -54,7 +54,45 @@ def layout(examples: dict[str, str], initial: dict[str, Any]) -> html.Div:
         ], className="bar-group"),
         dcc.Download(id=ids.SAVE_DOWNLOAD),
         html.Div(id=ids.OPEN_MESSAGE, className="open-message", role="status"),
+        html.Details([
+            html.Summary("Substance and units of the exported traces"),
+            html.Div([
+                html.Div([compact_field("substance", name, *D.SUBSTANCE_LABELS[name],
+                                        value=initial["substance"].get(name, ""),
+                                        hint=SUBSTANCE_HINTS[name]) for name in D.SUBSTANCE_FIELDS],
+                         className="compact-row"),
+                html.Div([compact_field("output", name, *D.OUTPUT_LABELS[name],
+                                        value=initial["output"].get(name, ""), hint=OUTPUT_HINTS[name])
+                          for name in D.OUTPUT_FIELDS], className="compact-row"),
+            ]),
+        ], className="more-settings", open=bool(initial["substance"].get("molar_mass") or initial["output"])),
     ], className="scenario-bar")
+
+
+SUBSTANCE_HINTS = {
+    "name": "free text",
+    "molar_mass": "enables molar units, e.g. 250 g/mol",
+    "solubility": "in the reference phase; enables the sink warning",
+    "log_kow": "bare number (log10)",
+}
+OUTPUT_HINTS = {
+    "time": "default h",
+    "concentration": "default mg/L",
+    "amount": "default mg",
+    "area": "flux and permeated per this area; default cm^2",
+}
+
+
+def compact_field(scope: str, name: str, label: str, kind: str, example: str, *, value: str = "",
+                  hint: str = "") -> html.Div:
+    """A small labelled input with a hint and its message line (substance and output units)."""
+    return html.Div([
+        html.Label(label, className="field-label"),
+        dcc.Input(id=ids.field(scope, name), type="text", value=value, debounce=True, placeholder=f"e.g. {example}",
+                  className="field-input", spellCheck=False, autoComplete="off"),
+        html.Div(hint, className="field-hint"),
+        html.Div(id=ids.field_message(scope, name), className="field-message", role="alert"),
+    ], className="compact-field")
 
 
 def open_example(path: str) -> dict[str, Any]:
@@ -91,13 +129,14 @@ def register(app: Any, services: Any) -> None:
         Input(ids.OPEN_EXAMPLE, "n_clicks"),
         Input(ids.UPLOAD, "contents"),
         Input(ids.NEW, "n_clicks"),
+        Input(ids.OPEN_RUN, "n_clicks"),
         State(ids.EXAMPLE, "value"),
         State(ids.UPLOAD, "filename"),
+        State(ids.REFERENCE, "value"),
+        State(ids.RUNS, "data"),
         prevent_initial_call=True,
     )
-    def open_scenario(_ex, contents, _new, example, filename):
-        from dash import ctx
-
+    def open_scenario(_ex, contents, _new, _run, example, filename, reference, runs):
         trigger = ctx.triggered_id
         problems: list[str] = []
         if trigger == ids.OPEN_EXAMPLE:
@@ -116,6 +155,14 @@ def register(app: Any, services: Any) -> None:
                 return no_update, message_list(problems), no_update, no_update, no_update
             note = (f"Opened {d['file']}; it has problems, shown at their fields below."
                     if problems else f"Opened {d['file']}.")
+        elif trigger == ids.OPEN_RUN:
+            record = next((r for r in runs or [] if r["id"] == reference), None)
+            if record is None:
+                return no_update, "Tick a run first: its scenario opens in the editor.", no_update, no_update, \
+                    no_update
+            d = D.draft_from_scenario(barrierflow.loads(record["toml"], record.get("file")),
+                                      record.get("file") or "untitled.toml")
+            note = f"Opened the scenario of {record['name']} for editing."
         else:
             d = D.new_draft()
             note = "Started an empty scenario: add compartments on the canvas."
@@ -144,6 +191,44 @@ def register(app: Any, services: Any) -> None:
         if new == d:
             raise PreventUpdate
         return new
+
+    @app.callback(
+        Output(ids.field("substance", ALL), "value"),
+        Output(ids.field("output", ALL), "value"),
+        Input(ids.LOADED, "data"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+    def refresh_units(_loaded, d):
+        sub = [d["substance"].get(o["id"]["name"], "") for o in ctx.outputs_list[0]]
+        out = [d["output"].get(o["id"]["name"], "") for o in ctx.outputs_list[1]]
+        return sub, out
+
+    @app.callback(
+        Output(ids.DRAFT, "data", allow_duplicate=True),
+        Input(ids.field("substance", ALL), "value"),
+        Input(ids.field("output", ALL), "value"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+    def edit_units(sub_values, out_values, d):
+        sub = {i["id"]["name"]: v or "" for i, v in zip(ctx.inputs_list[0], sub_values, strict=True)}
+        out = {i["id"]["name"]: v or "" for i, v in zip(ctx.inputs_list[1], out_values, strict=True)}
+        new = D.set_output(D.set_substance(d, **sub), **out)
+        if new == d:
+            raise PreventUpdate
+        return new
+
+    @app.callback(
+        Output(ids.field_message("substance", ALL), "children"),
+        Output(ids.field_message("output", ALL), "children"),
+        Input(ids.CHECK, "data"),
+    )
+    def unit_messages(found):
+        msgs = (found or {}).get("messages", {})
+        sub = [" ".join(msgs.get(f"sub:{o['id']['name']}", [])) for o in ctx.outputs_list[0]]
+        out = [" ".join(msgs.get(f"o:{o['id']['name']}", [])) for o in ctx.outputs_list[1]]
+        return sub, out
 
     @app.callback(
         Output(ids.SAVE_DOWNLOAD, "data"),

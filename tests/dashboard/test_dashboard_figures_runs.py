@@ -135,6 +135,7 @@ area = "1 cm^2"
 def test_mass_balance_stack_meets_what_entered(patch_run):
     _, run = patch_run
     fig = F.balance_figure(run)
+    go.Figure(F.balance_figure([run, dataclasses.replace(run, name="run 2")]))
     go.Figure(fig)
     stacked = np.sum([t["y"] for t in fig["data"] if t.get("stackgroup")], axis=0)
     entered = np.asarray(fig["data"][-1]["y"])

@@ -125,7 +125,15 @@ def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str]
                 "hovertemplate": f"{cid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {unit}<extra></extra>",
             })
     title = "Amount in each compartment" if kind == "amount" else "Concentration in each compartment"
-    return {"data": data, "layout": _layout(title, f"time [{time_unit}]", f"{kind} [{unit}]", log=log)}
+    layout = _layout(title, f"time [{time_unit}]", f"{kind} [{unit}]", log=log)
+    if log:
+        # six decades below the highest value: the rise from zero at the start would stretch the
+        # axis over many empty decades
+        peak = max((max((v for v in t["y"] if v is not None and v > 0), default=0.0) for t in data), default=0.0)
+        if peak > 0:
+            top = float(np.log10(peak))
+            layout["yaxis"]["range"] = [top - 6.0, top + 0.3]
+    return {"data": data, "layout": layout}
 
 
 def wide_range(runs: Sequence[RunData], compartments: Sequence[str] | None = None,

@@ -21,11 +21,13 @@ from .network import element_options
 def layout(examples: dict[str, str], initial: dict[str, Any]) -> html.Div:
     """The bar above the editor. ``examples`` maps a file path to its label."""
     options = [{"label": label, "value": path} for path, label in examples.items()]
+    opened = next((o["value"] for o in options if Path(o["value"]).name == initial["file"]), None)
+    first = opened or (options[0]["value"] if options else None)
     return html.Div([
         html.Div([
             html.Label("Example scenario", htmlFor=ids.EXAMPLE, className="field-label"),
             html.Div([
-                dcc.Dropdown(id=ids.EXAMPLE, options=options, value=options[0]["value"] if options else None,
+                dcc.Dropdown(id=ids.EXAMPLE, options=options, value=first,
                              clearable=False, className="example-pick", placeholder="pick an example"),
                 html.Button("Open example", id=ids.OPEN_EXAMPLE, className="btn"),
             ], className="field-line"),

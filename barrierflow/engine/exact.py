@@ -37,6 +37,7 @@ from numba import njit
 
 from ..errors import ScenarioError
 from .compiled import CompiledModel
+from .exact_chain import chain_order, chain_schedule
 from .kernels import jacobian_coo, jacobian_size, rates
 from .rosenbrock import apply_events, encode_events, rows_until
 
@@ -309,18 +310,20 @@ class ExactIntegrator:
 
     Parameters
     ----------
-    method : {"auto", "modes", "expm"}
+    method : {"auto", "chain", "modes", "expm"}
+        ``chain``: the compiled solution of chain networks (:mod:`barrierflow.engine.exact_chain`);
         ``modes``: eigen-decomposition of the symmetrised network (not for transfers);
-        ``expm``: matrix exponentials of the augmented matrix; ``auto`` (default): modes when
-        the network is symmetric, else expm.
+        ``expm``: matrix exponentials of the augmented matrix; ``auto`` (default): chain when the
+        network is one, else modes when it is symmetric, else expm.
     """
 
     method: str = "auto"
     name: str = field(init=False, default="exact")
 
     def __post_init__(self) -> None:
-        if self.method not in ("auto", "modes", "expm"):
-            raise ScenarioError.single("integrator method", repr(self.method), "must be one of auto, modes, expm")
+        if self.method not in ("auto", "chain", "modes", "expm"):
+            raise ScenarioError.single("integrator method", repr(self.method),
+                                       "must be one of auto, chain, modes, expm")
 
     def solve_schedule(self, model: CompiledModel, events, times: np.ndarray, duration: float, stats,
                        progress=None):
@@ -339,6 +342,27 @@ class ExactIntegrator:
         marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
         ev = encode_events(events)
         n_t, nc = len(times), m.n_comp
+        order = chain_order(m) if self.method in ("auto", "chain") else None
+        if order is None and self.method == "chain":
+            raise ScenarioError.single("integrator method", "'chain'",
+                                       "needs a network whose states form chains (no transfers, at most two "
+                                       "neighbours per state, no loops)")
+        if order is not None:
+            states = np.empty((n_t, m.n_state))
+            ev_dosed = np.empty((n_t, nc))
+            ev_removed = np.empty((n_t, nc))
+            st = np.zeros(6, dtype=np.int64)
+            n_jac = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+            chain_schedule(marks, times, *ev, m.held, _margs(m), m.q_supply, m.q_infused, order,
+                           _FAST / _shortest_time(times, marks), n_jac, m.y0.copy(), states, ev_dosed, ev_removed, st)
+            stats.steps += int(st[0])
+            stats.rhs_evaluations += int(st[2])
+            stats.jacobian_evaluations += int(st[3])
+            stats.lu_decompositions += int(st[4])
+            stats.intervals += int(st[5])
+            if progress is not None:
+                progress(1.0)
+            return states, ev_dosed, ev_removed, 0, "the run finished"
         states = np.empty((n_t, m.n_state))
         ev_dosed = np.empty((n_t, nc))
         ev_removed = np.empty((n_t, nc))
@@ -433,8 +457,10 @@ def modal_outputs(lam, qt, qyt, wt, tvec, free, fixed, y0, g, tau, nd, yfast, qc
     nqd = wt.shape[1]
     n_t = tau.shape[0]
     j0 = 0
+    n = y0.shape[0]
     while j0 < n_t and tau[j0] <= 0.0:
-        out[j0, :] = y0
+        for r in range(n):
+            out[j0, r] = y0[r]
         j0 += 1
     z0 = np.zeros(nm)
     gz = np.zeros(nm)

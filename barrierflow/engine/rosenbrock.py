@@ -296,10 +296,16 @@ def _jac(y, rows, cols, vals, margs, clamp, q_supply):
 @njit(cache=True)
 def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, qr, qc, qv):
     """Sort the COO Jacobian into the blocks; returns the number of quadrature entries."""
-    tri[0:3, :] = 0.0
-    jcc[:, :] = 0.0
-    jxc[:] = 0.0
-    jcx[:] = 0.0
+    for i in range(tri.shape[1]):
+        tri[0, i] = 0.0
+        tri[1, i] = 0.0
+        tri[2, i] = 0.0
+    for i in range(nc):
+        for j in range(nc):
+            jcc[i, j] = 0.0
+    for e in range(jxc.shape[0]):
+        jxc[e] = 0.0
+        jcx[e] = 0.0
     nq = 0
     for i in range(k):
         r = rows[i]
@@ -516,7 +522,8 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     n_out = t_out.shape[0]
     io = 0
     while io < n_out and t_out[io] <= 0.0:
-        out[io, :] = y
+        for i in range(n):
+            out[io, i] = y[i]
         io += 1
     if t_end <= 0.0:
         return OK
@@ -655,7 +662,8 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
             while io < n_out and t_out[io] <= t_new:
                 s = (t_out[io] - t) / h
                 if s >= 1.0:
-                    out[io, :] = yn
+                    for i in range(n):
+                        out[io, i] = yn[i]
                 else:
                     s1 = 1.0 - s
                     for i in range(n):
@@ -673,7 +681,8 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
             h_new = h  # keep the factorisation of a linear problem while the step would grow little
         h = min(h_new, t_end)
     while io < n_out:
-        out[io, :] = y
+        for i in range(n):
+            out[io, i] = y[i]
         io += 1
     return OK
 

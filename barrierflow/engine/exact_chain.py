@@ -1,0 +1,657 @@
+"""The exact solution of chain networks, fully compiled.
+
+Most networks are chains: a patch or donor, the cells of its barrier, the receptor or body
+compartments in a row. Their unclamped dynamic states, in chain order, evolve under a
+symmetric tridiagonal matrix (see :mod:`barrierflow.engine.exact` for the symmetrisation)::
+
+    T = -M^(-1/2) (L + E) M^(-1/2),   x = M^(1/2) u = sqrt(V / K) y
+
+with M = V K the capacities of the potentials, L the Laplacian of the conductances between
+neighbours and E >= 0 the diagonal of what leaves the chain (clearance, degradation, links to
+clamped compartments). T is built here directly from the link arrays, so its small eigenvalues
+keep their relative accuracy.
+
+Only the modes that have not decayed below exp(-60) at the first output time of an interval
+are computed: eigenvalues by bisection on Sturm counts (all of them in lockstep), eigenvectors
+by inverse iteration with partial pivoting and re-orthogonalisation, and each eigenvalue
+polished as the Rayleigh quotient written as a sum of squares,
+``-(sum_edges G (u_i - u_j)^2 + sum E u_i^2) / |x|^2``, which has no cancellation (Parlett,
+The Symmetric Eigenvalue Problem, 1980, ch. 4-5, for bisection, inverse iteration and the
+Rayleigh quotient). The decayed modes enter through solves with T (O(n)); a closed part of the
+chain without any loss is singular and is solved on the complement of its equilibrium mode,
+which is known exactly (u constant). Everything runs in compiled code, so a population runs
+in parallel threads.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .compiled import CompiledModel
+from .kernels import jacobian_coo, rates
+from .rosenbrock import OK, apply_events, rows_until
+
+__all__ = ["chain_order", "chain_schedule"]
+
+
+def chain_order(model: CompiledModel) -> np.ndarray | None:
+    """The dynamic states (not permanently held) in an order that makes the network a chain.
+
+    Returns None when the model does not qualify: saturable elimination (nonlinear), transfers
+    (not symmetric), a link whose two rates differ (b != c beyond rounding), or a state with
+    more than two neighbours or a loop.
+    """
+    m = model
+    if not m.is_linear or len(m.tr_from):
+        return None
+    nd = m.n_dyn
+    alive = np.ones(nd, dtype=bool)
+    alive[: m.n_comp] = ~m.held
+    nbrs: list[set[int]] = [set() for _ in range(nd)]
+    for j in range(len(m.link_p)):
+        p, q = int(m.link_p[j]), int(m.link_q[j])
+        b, c = m.link_b[j], m.link_c[j]
+        if abs(b - c) > 1e-12 * max(abs(b), abs(c)):
+            return None
+        if alive[p] and alive[q] and p != q:
+            nbrs[p].add(q)
+            nbrs[q].add(p)
+    if any(len(s) > 2 for s in nbrs):
+        return None
+    seen = np.zeros(nd, dtype=bool)
+    order: list[int] = []
+    for start in range(nd):
+        if not alive[start] or seen[start] or len(nbrs[start]) == 2:
+            continue
+        prev, cur = -1, start
+        while cur >= 0 and not seen[cur]:
+            seen[cur] = True
+            order.append(cur)
+            nxt = [k for k in nbrs[cur] if k != prev and not seen[k]]
+            prev, cur = cur, (nxt[0] if nxt else -1)
+    if len(order) != int(alive.sum()):  # a loop
+        return None
+    return np.array(order, dtype=np.int64)
+
+
+# ---------------------------------------------------------------- the chain matrix
+@njit(cache=True)
+def _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
+    """Compact chain of the free states: returns n (their number) and fills the arrays.
+
+    ``idx`` state of each position, ``cmap`` position of each state (-1), ``msq`` sqrt(M),
+    ``tv`` sqrt(V/K), ``dd, ee`` the tridiagonal T, ``gedge`` conductance to the next position,
+    ``ediag`` the loss diagonal E, ``comp_of`` the index of the connected part of each position.
+    """
+    nc = margs[0]
+    cap = margs[2]
+    invk = margs[3]
+    lp = margs[4]
+    lq = margs[5]
+    la = margs[6]
+    lb = margs[7]
+    lc = margs[8]
+    ld = margs[9]
+    loss_rate = margs[12]
+    for i in range(cmap.shape[0]):
+        cmap[i] = -1
+    n = 0
+    for k in range(order.shape[0]):
+        i = order[k]
+        if i < nc and clamp[i]:
+            continue
+        idx[n] = i
+        cmap[i] = n
+        mm = cap[i] / invk[i]
+        msq[n] = math.sqrt(mm)
+        tv[n] = math.sqrt(cap[i] * invk[i])
+        ediag[n] = loss_rate[i] * mm
+        gedge[n] = 0.0
+        dd[n] = 0.0
+        n += 1
+    if n == 0:
+        return 0
+    gsum = np.zeros(n)
+    for j in range(lp.shape[0]):
+        p = lp[j]
+        q = lq[j]
+        a = cmap[p]
+        b = cmap[q]
+        if a >= 0 and b >= 0:
+            w = 0.5 * (lb[j] + lc[j])
+            gsum[a] += w
+            gsum[b] += w
+            gedge[min(a, b)] += w
+            ediag[a] += la[j] - w
+            ediag[b] += ld[j] - w
+        elif a >= 0:
+            ediag[a] += la[j]
+        elif b >= 0:
+            ediag[b] += ld[j]
+    part = 0
+    for a in range(n):
+        mm = msq[a] * msq[a]
+        dd[a] = -(gsum[a] + ediag[a]) / mm
+        if a + 1 < n:
+            ee[a] = gedge[a] / (msq[a] * msq[a + 1])
+        comp_of[a] = part
+        if a + 1 < n and gedge[a] == 0.0:
+            part += 1
+    return n
+
+
+@njit(cache=True)
+def _sturm(dd, ee, n, x, pivmin):
+    """Number of eigenvalues of the tridiagonal (dd, ee) below ``x``."""
+    cnt = 0
+    q = dd[0] - x
+    if abs(q) < pivmin:
+        q = -pivmin
+    if q < 0.0:
+        cnt += 1
+    for i in range(1, n):
+        q = dd[i] - x - ee[i - 1] * ee[i - 1] / q
+        if abs(q) < pivmin:
+            q = -pivmin
+        if q < 0.0:
+            cnt += 1
+    return cnt
+
+
+@njit(cache=True)
+def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
+    """Eigenpairs of T with eigenvalue above ``cut`` (<= 0), slowest first; returns their number.
+
+    ``vec[s, :n]`` holds eigenvector s (unit length).
+    """
+    if n == 0:
+        return 0
+    tnorm = 0.0
+    upper = -np.inf
+    for i in range(n):
+        r = abs(dd[i])
+        g = dd[i]
+        if i > 0:
+            r += abs(ee[i - 1])
+            g += abs(ee[i - 1])
+        if i + 1 < n:
+            r += abs(ee[i])
+            g += abs(ee[i])
+        tnorm = max(tnorm, r)
+        upper = max(upper, g)
+    pivmin = 1e-300 + 2.2e-16 * 2.2e-16 * tnorm
+    upper = max(upper, 0.0) + 1e-14 * tnorm + 1e-300
+    below = _sturm(dd, ee, n, cut, pivmin) if math.isfinite(cut) else 0
+    k = n - below
+    if k == 0:
+        return 0
+    k = min(k, lam.shape[0])
+    lo = np.empty(k)
+    hi = np.empty(k)
+    lower = cut if math.isfinite(cut) else -tnorm - 1.0
+    for s in range(k):
+        lo[s] = lower
+        hi[s] = upper
+    # bisection in lockstep; mode s (slowest first) is eigenvalue number n - 1 - s (ascending)
+    q = np.empty(k)
+    cnt = np.empty(k, dtype=np.int64)
+    mid = np.empty(k)
+    tol = 4e-16 * tnorm
+    for _it in range(200):
+        done = True
+        for s in range(k):
+            mid[s] = 0.5 * (lo[s] + hi[s])
+            if hi[s] - lo[s] > tol + 4e-16 * abs(mid[s]):
+                done = False
+        if done:
+            break
+        for s in range(k):
+            q[s] = dd[0] - mid[s]
+            if abs(q[s]) < pivmin:
+                q[s] = -pivmin
+            cnt[s] = 1 if q[s] < 0.0 else 0
+        for i in range(1, n):
+            e2 = ee[i - 1] * ee[i - 1]
+            di = dd[i]
+            for s in range(k):
+                v = di - mid[s] - e2 / q[s]
+                if abs(v) < pivmin:
+                    v = -pivmin
+                q[s] = v
+                if v < 0.0:
+                    cnt[s] += 1
+        for s in range(k):
+            if cnt[s] > n - 1 - s:
+                hi[s] = mid[s]
+            else:
+                lo[s] = mid[s]
+    # inverse iteration with partial pivoting, re-orthogonalised against the slower modes
+    a0 = np.empty(n)
+    a1 = np.empty(n)
+    a2 = np.empty(n)
+    piv = np.empty(n, dtype=np.bool_)
+    x = np.empty(n)
+    for s in range(k):
+        sig = 0.5 * (lo[s] + hi[s])
+        # factor T - sig I: rows kept as (a0 diag, a1 super, a2 second super)
+        u0 = dd[0] - sig
+        u1 = ee[0] if n > 1 else 0.0
+        for i in range(n - 1):
+            lsub = ee[i]
+            nd_ = dd[i + 1] - sig
+            nsup = ee[i + 1] if i + 2 < n else 0.0
+            if abs(u0) >= abs(lsub):
+                piv[i] = False
+                if u0 == 0.0:
+                    u0 = pivmin
+                mlt = lsub / u0
+                a0[i] = u0
+                a1[i] = u1
+                a2[i] = 0.0
+                x[i] = mlt  # multiplier
+                u0 = nd_ - mlt * u1
+                u1 = nsup
+            else:
+                piv[i] = True
+                mlt = u0 / lsub
+                a0[i] = lsub
+                a1[i] = nd_
+                a2[i] = nsup
+                x[i] = mlt
+                u0 = u1 - mlt * nd_
+                u1 = -mlt * nsup
+        if u0 == 0.0:
+            u0 = pivmin
+        a0[n - 1] = u0
+        mult = x.copy()
+        v = vec[s]
+        for i in range(n):
+            v[i] = 1.0 + 0.01 * ((i * 7919 + s * 104729) % 101) / 101.0
+        for _rep in range(2):
+            # forward: apply the row operations
+            for i in range(n - 1):
+                if piv[i]:
+                    tmp = v[i]
+                    v[i] = v[i + 1]
+                    v[i + 1] = tmp - mult[i] * v[i]
+                else:
+                    v[i + 1] -= mult[i] * v[i]
+            # back substitution
+            v[n - 1] /= a0[n - 1]
+            if n > 1:
+                v[n - 2] = (v[n - 2] - a1[n - 2] * v[n - 1]) / a0[n - 2]
+            for i in range(n - 3, -1, -1):
+                v[i] = (v[i] - a1[i] * v[i + 1] - a2[i] * v[i + 2]) / a0[i]
+            for _gs in range(2):
+                for r in range(s):
+                    dot = 0.0
+                    for i in range(n):
+                        dot += vec[r, i] * v[i]
+                    for i in range(n):
+                        v[i] -= dot * vec[r, i]
+            nrm = 0.0
+            for i in range(n):
+                nrm += v[i] * v[i]
+            nrm = math.sqrt(nrm)
+            if nrm == 0.0 or not math.isfinite(nrm):
+                for i in range(n):
+                    v[i] = 1.0 / math.sqrt(n)
+                nrm = 1.0
+            for i in range(n):
+                v[i] /= nrm
+        # Rayleigh quotient as a sum of squares (no cancellation)
+        acc = 0.0
+        for i in range(n):
+            ui = v[i] / msq[i]
+            acc += ediag[i] * ui * ui
+            if i + 1 < n and gedge[i] != 0.0:
+                du = ui - v[i + 1] / msq[i + 1]
+                acc += gedge[i] * du * du
+        lam[s] = -acc
+    # closed parts without loss: their equilibrium mode is exact (u constant, lam 0)
+    nparts = comp_of[n - 1] + 1
+    for part in range(nparts):
+        closed = True
+        msum = 0.0
+        for i in range(n):
+            if comp_of[i] == part:
+                msum += msq[i] * msq[i]
+                if ediag[i] != 0.0:
+                    closed = False
+        if not closed:
+            continue
+        best = -1
+        bestdot = 0.5
+        for s in range(k):
+            dot = 0.0
+            for i in range(n):
+                if comp_of[i] == part:
+                    dot += vec[s, i] * msq[i]
+            dot = abs(dot) / math.sqrt(msum)
+            if dot > bestdot:
+                bestdot = dot
+                best = s
+        if best >= 0:
+            lam[best] = 0.0
+            for i in range(n):
+                vec[best, i] = msq[i] / math.sqrt(msum) if comp_of[i] == part else 0.0
+    # slowest first (the Rayleigh polish may reorder near-equal values)
+    for s in range(1, k):
+        j = s
+        while j > 0 and lam[j] > lam[j - 1]:
+            tmp = lam[j]
+            lam[j] = lam[j - 1]
+            lam[j - 1] = tmp
+            for i in range(n):
+                tmp = vec[j, i]
+                vec[j, i] = vec[j - 1, i]
+                vec[j - 1, i] = tmp
+            j -= 1
+    return k
+
+
+@njit(cache=True)
+def _solve_t(dd, ee, n, ediag, msq, comp_of, r, x):
+    """x = T^+ r: the solution orthogonal to the equilibrium modes of closed parts."""
+    for i in range(n):
+        x[i] = r[i]
+    start = 0
+    while start < n:
+        stop = start
+        while stop + 1 < n and comp_of[stop + 1] == comp_of[start]:
+            stop += 1
+        closed = True
+        for i in range(start, stop + 1):
+            if ediag[i] != 0.0:
+                closed = False
+        msum = 0.0
+        if closed:
+            dot = 0.0
+            for i in range(start, stop + 1):
+                msum += msq[i] * msq[i]
+                dot += msq[i] * x[i]
+            for i in range(start, stop + 1):
+                x[i] -= dot * msq[i] / msum
+        # LDL^T without pivoting (T is negative semi-definite); the last pivot of a closed part is 0
+        piv = np.empty(stop - start + 1)
+        piv[0] = dd[start]
+        for i in range(start + 1, stop + 1):
+            mlt = ee[i - 1] / piv[i - 1 - start]
+            piv[i - start] = dd[i] - mlt * ee[i - 1]
+            x[i] -= mlt * x[i - 1]
+        last = stop
+        if closed:
+            x[stop] = 0.0
+            last = stop - 1
+        else:
+            x[stop] /= piv[stop - start]
+        for i in range(last if closed else stop - 1, start - 1, -1):
+            nxt = x[i + 1] if i + 1 <= stop else 0.0
+            x[i] = (x[i] - ee[i] * nxt) / piv[i - start]
+        if closed:
+            dot = 0.0
+            for i in range(start, stop + 1):
+                dot += msq[i] * x[i]
+            for i in range(start, stop + 1):
+                x[i] -= dot * msq[i] / msum
+        start = stop + 1
+
+
+@njit(cache=True)
+def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
+    """out = P v, P = T^+ minus the modes 0 .. ks-1 (the decayed modes' q q^T / lam)."""
+    _solve_t(dd, ee, n, ediag, msq, comp_of, v, out)
+    for s in range(ks):
+        if lam[s] == 0.0:
+            continue
+        dot = 0.0
+        for i in range(n):
+            dot += vec[s, i] * v[i]
+        c = dot / lam[s]
+        for i in range(n):
+            out[i] -= c * vec[s, i]
+
+
+# ---------------------------------------------------------------- outputs of one interval
+@njit(cache=True)
+def _phi1(x):
+    if abs(x) < 1e-5:
+        return 1.0 + x / 2.0 + x * x / 6.0
+    return math.expm1(x) / x
+
+
+@njit(cache=True)
+def _phi2(x):
+    if abs(x) < 0.1:
+        return 0.5 + x * (1 / 6 + x * (1 / 24 + x * (1 / 120 + x * (1 / 720 + x * (1 / 5040 + x * (
+            1 / 40320 + x / 362880))))))
+    return (math.expm1(x) - x) / (x * x)
+
+
+@njit(cache=True)
+def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd, clamp,
+              nc, out, work, t_end):
+    """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``.
+
+    The modes kept are those not decayed at the first positive time of the interval, which is
+    the first positive ``tau`` or the interval's length ``t_end``.
+    """
+    n_state = y0.shape[0]
+    n_t = tau.shape[0]
+    j0 = 0
+    while j0 < n_t and tau[j0] <= 0.0:
+        for r in range(n_state):
+            out[j0, r] = y0[r]
+        j0 += 1
+    if j0 == n_t:
+        return
+    t_min = min(tau[j0], t_end)
+    ks = 0
+    while ks < k_all and lam[ks] * t_min > -60.0:
+        ks += 1
+    x0 = work[0]
+    tg = work[1]
+    px = work[2]
+    pg = work[3]
+    ppg = work[4]
+    has_g = False
+    for a in range(n):
+        x0[a] = tv[a] * y0[idx[a]]
+        tg[a] = tv[a] * g[idx[a]]
+        if tg[a] != 0.0:
+            has_g = True
+    z0 = np.zeros(ks)
+    gz = np.zeros(ks)
+    for s in range(ks):
+        a0 = 0.0
+        b0 = 0.0
+        for a in range(n):
+            a0 += vec[s, a] * x0[a]
+            b0 += vec[s, a] * tg[a]
+        z0[s] = a0
+        gz[s] = b0
+    # decayed modes: constants (states) and constant + slope (quadratures), through T^+
+    nqd = n_state - nd
+    yfast = np.zeros(n)
+    qconst = np.zeros(nqd)
+    qslope = np.zeros(nqd)
+    _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, x0, px)
+    if has_g:
+        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, tg, pg)
+        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, pg, ppg)
+        for a in range(n):
+            yfast[a] = -pg[a] / tv[a]
+    # quadrature rates: A_QD (COO entries qr, qc, qv) acting on y = x / t
+    for j in range(nq):
+        a = qc[j]
+        if a < 0:
+            continue
+        r = qr[j] - nd
+        w = qv[j] / tv[a]
+        if has_g:
+            qconst[r] -= w * (px[a] + ppg[a])
+            qslope[r] -= w * pg[a]
+        else:
+            qconst[r] -= w * px[a]
+    # per-mode quadrature patterns of the slow modes
+    wt = np.zeros((ks, nqd))
+    for j in range(nq):
+        a = qc[j]
+        if a < 0:
+            continue
+        r = qr[j] - nd
+        w = qv[j] / tv[a]
+        for s in range(ks):
+            wt[s, r] += w * vec[s, a]
+    # the states of each slow mode (y = x / t)
+    vy = np.empty((ks, n))
+    for s in range(ks):
+        for a in range(n):
+            vy[s, a] = vec[s, a] / tv[a]
+    ys = np.empty(n)
+    qs = np.empty(nqd)
+    for j in range(j0, n_t):
+        tj = tau[j]
+        for a in range(n):
+            ys[a] = yfast[a]
+        for r in range(nqd):
+            qs[r] = qconst[r] + qslope[r] * tj
+        for s in range(ks):
+            el = lam[s]
+            x = el * tj
+            ex = math.exp(x)
+            if abs(x) > 0.5:
+                p1 = (ex - 1.0) / el
+            else:
+                p1 = tj * _phi1(x)
+            zs = ex * z0[s]
+            zi = p1 * z0[s]
+            if has_g:
+                zs += p1 * gz[s]
+                zi += tj * tj * _phi2(x) * gz[s]
+            for a in range(n):
+                ys[a] += vy[s, a] * zs
+            for r in range(nqd):
+                qs[r] += wt[s, r] * zi
+        for r in range(n_state):
+            out[j, r] = y0[r]
+        for a in range(n):
+            out[j, idx[a]] = ys[a]
+        for r in range(nqd):
+            out[j, nd + r] = y0[nd + r] + qs[r] + g[nd + r] * tj
+
+
+# ---------------------------------------------------------------- the whole regimen
+@njit(cache=True)
+def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, q_supply, q_infused, order, cut,
+                   n_jac, y, states, ev_dosed, ev_removed, stats):
+    """Run the regimen exactly on a chain network; returns a status code (0 when done).
+
+    The event rules are those of :func:`~barrierflow.engine.rosenbrock.apply_events`; the states
+    at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``.
+    ``stats`` counts [steps, rejected, rhs evaluations, Jacobians, decompositions, intervals].
+    """
+    nc = margs[0]
+    nd = margs[1]
+    cap = margs[2]
+    n_state = y.shape[0]
+    n_ord = order.shape[0]
+    idx = np.zeros(max(n_ord, 1), dtype=np.int64)
+    cmap = np.zeros(nd, dtype=np.int64)
+    msq = np.zeros(max(n_ord, 1))
+    tv = np.zeros(max(n_ord, 1))
+    dd = np.zeros(max(n_ord, 1))
+    ee = np.zeros(max(n_ord, 1))
+    gedge = np.zeros(max(n_ord, 1))
+    ediag = np.zeros(max(n_ord, 1))
+    comp_of = np.zeros(max(n_ord, 1), dtype=np.int64)
+    lam = np.zeros(max(n_ord, 1))
+    vec = np.zeros((max(n_ord, 1), max(n_ord, 1)))
+    work = np.zeros((5, max(n_ord, 1)))
+    rows = np.zeros(n_jac, dtype=np.int64)
+    cols = np.zeros(n_jac, dtype=np.int64)
+    vals = np.zeros(n_jac)
+    qr = np.zeros(n_jac, dtype=np.int64)
+    qc = np.zeros(n_jac, dtype=np.int64)
+    qv = np.zeros(n_jac)
+    infusion = np.zeros(nc)
+    clamp = held.copy()
+    last_clamp = held.copy()
+    holds = np.zeros(nc, dtype=np.int64)
+    dosed = np.zeros(nc)
+    removed = np.zeros(nc)
+    yz = np.zeros(n_state)
+    g = np.zeros(n_state)
+    last = np.zeros((1, n_state))
+    n_marks = marks.shape[0]
+    n_t = times.shape[0]
+    n = 0
+    k_all = 0
+    nq = 0
+    have = False
+    row = 0
+    ei = 0
+    for k in range(n_marks - 1):
+        t0 = marks[k]
+        t1 = marks[k + 1]
+        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
+                          removed)
+        changed = not have
+        for p in range(nc):
+            if clamp[p] != last_clamp[p]:
+                changed = True
+        if changed:
+            n = _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
+            k_all = _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec)
+            kj = jacobian_coo(yz, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
+                              margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
+                              margs[14], margs[15], margs[16], margs[17], margs[18], margs[19], clamp, q_supply)
+            nq = 0
+            for j in range(kj):
+                if rows[j] >= nd:
+                    qr[nq] = rows[j]
+                    qc[nq] = cmap[cols[j]] if cols[j] < nd else -1
+                    qv[nq] = vals[j]
+                    nq += 1
+            for p in range(nc):
+                last_clamp[p] = clamp[p]
+            have = True
+            stats[3] += 1
+            stats[4] += 1
+        # forcing: the rates with the free dynamic states at zero
+        for r in range(n_state):
+            yz[r] = 0.0
+        for p in range(nc):
+            if clamp[p]:
+                yz[p] = y[p]
+        rates(yz, g, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5], margs[6], margs[7], margs[8],
+              margs[9], margs[10], margs[11], margs[12], margs[13], margs[14], margs[15], margs[16], margs[17],
+              margs[18], margs[19], infusion, clamp, q_supply, q_infused)
+        for r in range(n_state):
+            yz[r] = 0.0
+        stats[2] += 1
+        sel_end = rows_until(times, row, t1, k == n_marks - 2)
+        m_out = sel_end - row
+        tau = np.empty(m_out + 1)
+        for r in range(m_out):
+            tau[r] = times[row + r] - t0
+        tau[m_out] = t1 - t0
+        _interval(y, g, tau[:m_out], n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd,
+                  clamp, nc, states[row:sel_end], work, tau[m_out])
+        _interval(y, g, tau[m_out:], n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd,
+                  clamp, nc, last, work, tau[m_out])
+        for r in range(m_out):
+            for p in range(nc):
+                ev_dosed[row + r, p] = dosed[p]
+                ev_removed[row + r, p] = removed[p]
+        for c in range(n_state):
+            y[c] = last[0, c]
+        row = sel_end
+        stats[0] += 1
+        stats[5] += 1
+    if row < n_t:
+        return 1
+    return OK

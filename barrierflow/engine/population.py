@@ -1,0 +1,542 @@
+"""Populations: many subjects of one network, solved in parallel in compiled code.
+
+A population is a list of scenarios that share one structure (the same compartments, barriers,
+grid, links and dosing schedule) and differ in parameter values: volumes, clearances, layer
+thicknesses, diffusivities, partition coefficients, areas, flows, rates, dose sizes. Every
+subject is compiled to flat arrays, the arrays are stacked, and the subjects run in parallel
+threads (``numba.prange``) of the compiled RODAS4 integrator; the Python interpreter is not
+involved until all are done. One failed subject does not stop the others: it is reported in
+:attr:`Population.status` and its traces end where it failed (NaN after).
+
+:func:`simulate_population` draws the subjects: each varied parameter is the scenario's value
+times a log-normal factor exp(omega z), z standard normal, omega = sqrt(ln(1 + cv^2)), so that
+the median is the scenario's value and the coefficient of variation is ``cv`` (the usual model
+of between-subject variability in pharmacokinetics, for example Mould and Upton, CPT
+Pharmacometrics Syst. Pharmacol. 2, 2013, e38). :func:`simulate_many` runs a list given by the
+caller.
+
+Results are research estimates, not for clinical dosing or regulatory decisions without
+qualified review.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import re
+import time as _time
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+
+import numba
+import numpy as np
+from numba import njit, prange
+
+from ..errors import ScenarioError
+from ..model import Scenario
+from .compiled import CompiledModel, compile_scenario
+from .exact import ExactIntegrator, _shortest_time
+from .exact_chain import chain_order, chain_schedule
+from .grid import Grid
+from .kernels import jacobian_size
+from .rosenbrock import (
+    _FAILURES,
+    COEF,
+    OK,
+    ST_STEPS,
+    RosenbrockIntegrator,
+    build_structure,
+    chain_args,
+    encode_events,
+    run_marks,
+)
+from .schedule import build_schedule
+from .solve import _snap
+
+__all__ = ["Population", "parameter_paths", "sample_scenarios", "simulate_many", "simulate_population"]
+
+_COMP_FIELDS = ("volume", "initial_concentration", "partition", "clearance", "vmax", "km", "held_concentration")
+_LAYER_FIELDS = ("thickness", "diffusivity", "partition", "degradation_rate")
+_DOSE_FIELDS = ("amount", "rate", "concentration")
+
+
+# ---------------------------------------------------------------- parameter paths
+def parameter_paths(scenario: Scenario) -> tuple[str, ...]:
+    """Every parameter of ``scenario`` that a population can vary, as a path.
+
+    The paths read like the field paths of error messages::
+
+        compartment 'central' clearance
+        barrier 'skin' area
+        barrier 'skin' layer 2 diffusivity      (layers counted from 1, from the 'from' side)
+        exchange 'central-peripheral' flow
+        transfer 'gut-plasma' rate
+        dose 1 concentration                    (doses counted from 1, in the file's order)
+    """
+    out = []
+    for c in scenario.compartments:
+        out += [f"compartment '{c.id}' {f}" for f in _COMP_FIELDS if getattr(c, f) not in (None, 0.0)]
+    for b in scenario.barriers:
+        out.append(f"barrier '{b.id}' area")
+        for i, layer in enumerate(b.layers, start=1):
+            out += [f"barrier '{b.id}' layer {i} {f}" for f in _LAYER_FIELDS if getattr(layer, f) not in (None, 0.0)]
+    out += [f"exchange '{e.id}' flow" for e in scenario.exchanges]
+    out += [f"transfer '{t.id}' rate" for t in scenario.transfers]
+    for n, d in enumerate(scenario.doses, start=1):
+        out += [f"dose {n} {f}" for f in _DOSE_FIELDS if getattr(d, f) is not None]
+    return tuple(out)
+
+
+_PATH = re.compile(r"^\s*(compartment|barrier|exchange|transfer|dose)\s+'?([^'\s]+)'?\s+(.+?)\s*$")
+
+
+def _parse_path(scenario: Scenario, path: str) -> tuple[str, int, tuple]:
+    """(kind, index of the item, rest) of a parameter path, or a ScenarioError naming it."""
+    m = _PATH.match(path) if isinstance(path, str) else None
+    if not m:
+        raise ScenarioError.single("population variation", repr(path),
+                                   "must be a parameter path such as \"barrier 'skin' layer 1 diffusivity\"")
+    kind, ident, rest = m.groups()
+    words = rest.split()
+
+    def bad(expected: str):
+        return ScenarioError.single("population variation", repr(path), expected)
+
+    if kind == "compartment":
+        idx = next((i for i, c in enumerate(scenario.compartments) if c.id == ident), None)
+        if idx is None or len(words) != 1 or words[0] not in _COMP_FIELDS:
+            raise bad(f"names no compartment field; fields: {', '.join(_COMP_FIELDS)}")
+        if getattr(scenario.compartments[idx], words[0]) is None:
+            raise bad(f"compartment '{ident}' has no {words[0]} to vary")
+        return kind, idx, (words[0],)
+    if kind == "barrier":
+        idx = next((i for i, b in enumerate(scenario.barriers) if b.id == ident), None)
+        if idx is None:
+            raise bad("names no barrier of the scenario")
+        if words == ["area"]:
+            return kind, idx, ("area",)
+        if len(words) == 3 and words[0] == "layer" and words[1].isdigit() and words[2] in _LAYER_FIELDS:
+            li = int(words[1]) - 1
+            if not 0 <= li < len(scenario.barriers[idx].layers):
+                raise bad(f"barrier '{ident}' has layers 1 to {len(scenario.barriers[idx].layers)}")
+            return kind, idx, ("layer", li, words[2])
+        raise bad(f"must end in 'area' or 'layer <n> <field>' with a field among {', '.join(_LAYER_FIELDS)}")
+    if kind in ("exchange", "transfer"):
+        items = scenario.exchanges if kind == "exchange" else scenario.transfers
+        name = "flow" if kind == "exchange" else "rate"
+        idx = next((i for i, e in enumerate(items) if e.id == ident), None)
+        if idx is None or words != [name]:
+            raise bad(f"must name a {kind} of the scenario and end in '{name}'")
+        return kind, idx, (name,)
+    if not ident.isdigit() or not 1 <= int(ident) <= len(scenario.doses) or len(words) != 1 \
+            or words[0] not in _DOSE_FIELDS:
+        raise bad(f"must be 'dose <n> <field>' with n from 1 to {len(scenario.doses)} and a field among "
+                  f"{', '.join(_DOSE_FIELDS)}")
+    if getattr(scenario.doses[int(ident) - 1], words[0]) is None:
+        raise bad(f"dose {ident} has no {words[0]} to vary")
+    return "dose", int(ident) - 1, (words[0],)
+
+
+def _apply(scenario: Scenario, changes: Sequence[tuple[tuple[str, int, tuple], float]]) -> Scenario:
+    """``scenario`` with each parsed parameter multiplied by its factor (one new scenario)."""
+    comps = list(scenario.compartments)
+    bars = list(scenario.barriers)
+    items = {"exchange": list(scenario.exchanges), "transfer": list(scenario.transfers),
+             "dose": list(scenario.doses)}
+    layer_changes: dict[int, dict[int, dict[str, float]]] = {}
+    for (kind, idx, rest), f in changes:
+        if kind == "compartment":
+            c = comps[idx]
+            comps[idx] = dataclasses.replace(c, **{rest[0]: getattr(c, rest[0]) * f})
+        elif kind == "barrier" and rest[0] == "area":
+            bars[idx] = dataclasses.replace(bars[idx], area=bars[idx].area * f)
+        elif kind == "barrier":
+            lc = layer_changes.setdefault(idx, {}).setdefault(rest[1], {})
+            lc[rest[2]] = lc.get(rest[2], 1.0) * f
+        else:
+            it = items[kind][idx]
+            items[kind][idx] = dataclasses.replace(it, **{rest[0]: getattr(it, rest[0]) * f})
+    for bi, per_layer in layer_changes.items():
+        layers = list(bars[bi].layers)
+        for li, fields in per_layer.items():
+            layers[li] = dataclasses.replace(layers[li], **{k: getattr(layers[li], k) * v for k, v in fields.items()})
+        bars[bi] = dataclasses.replace(bars[bi], layers=tuple(layers))
+    return dataclasses.replace(scenario, compartments=tuple(comps), barriers=tuple(bars),
+                               exchanges=tuple(items["exchange"]), transfers=tuple(items["transfer"]),
+                               doses=tuple(items["dose"]))
+
+
+def sample_scenarios(scenario: Scenario, variations: Mapping[str, float], n: int,
+                     seed: int = 0) -> tuple[tuple[Scenario, ...], dict[str, np.ndarray]]:
+    """Draw ``n`` subjects of ``scenario`` with log-normal between-subject variability.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    variations : mapping of str to float
+        Parameter path (see :func:`parameter_paths`) to coefficient of variation (0.3 for 30 %).
+    n : int
+        Number of subjects.
+    seed : int
+        Seed of the random generator (numpy's PCG64), so that a population can be drawn again.
+
+    Returns
+    -------
+    scenarios : tuple of Scenario
+    factors : dict of str to ndarray (n,)
+        The factor each parameter was multiplied by, per subject.
+    """
+    if not (isinstance(n, int) and not isinstance(n, bool) and n >= 1):
+        raise ScenarioError.single("population size", n, "must be a whole number >= 1")
+    rng = np.random.default_rng(seed)
+    factors: dict[str, np.ndarray] = {}
+    parsed = []
+    for path, cv in variations.items():
+        if not (isinstance(cv, float | int) and not isinstance(cv, bool) and 0 <= cv < 10):
+            raise ScenarioError.single(f"population variation {path!r}", cv,
+                                       "must be a coefficient of variation from 0 to 10 (0.3 for 30 %)")
+        parsed.append(_parse_path(scenario, path))
+        omega = math.sqrt(math.log1p(float(cv) ** 2))
+        factors[path] = np.exp(omega * rng.standard_normal(n))
+    cols = [factors[p].tolist() for p in factors]
+    subjects = tuple(_apply(scenario, list(zip(parsed, [c[i] for c in cols], strict=True))) for i in range(n))
+    return subjects, factors
+
+
+# ---------------------------------------------------------------- the result
+@dataclass(frozen=True, eq=False)
+class Population:
+    """Traces of many subjects, looked up by compartment and barrier id.
+
+    Arrays have one row per subject and one column per output time, in internal units (h, mg,
+    mL, cm). A failed subject (``status`` -1) holds NaN after the time it failed.
+
+    Attributes
+    ----------
+    times : ndarray (n_t,), h
+    comp_ids, barrier_ids : tuple of str
+    factors : dict of str to ndarray (n_subjects,)
+        The parameter factors of each subject (empty for :func:`simulate_many`).
+    status : ndarray of int (n_subjects,)
+        0 when the subject's run finished, -1 when it failed.
+    messages : tuple of str
+    steps : ndarray of int (n_subjects,)
+        Integration steps per subject.
+    integrator : str
+    wall_time : float, s
+    """
+
+    times: np.ndarray
+    comp_ids: tuple[str, ...]
+    barrier_ids: tuple[str, ...]
+    factors: dict
+    status: np.ndarray
+    messages: tuple[str, ...]
+    steps: np.ndarray
+    integrator: str
+    wall_time: float
+    _conc: np.ndarray = field(repr=False)      # (n_sub, n_t, n_comp) mg/mL
+    _quad: np.ndarray = field(repr=False)      # (n_sub, n_t, n_quad) mg (layout of CompiledModel)
+    _flux: np.ndarray = field(repr=False)      # (n_sub, n_t, n_bar) mg/(cm^2 h)
+    _area: np.ndarray = field(repr=False)      # (n_sub, n_bar) cm^2
+    _volume: np.ndarray = field(repr=False)    # (n_sub, n_comp) mL (NaN without volume)
+    _n_comp: int = 0
+    _n_bar: int = 0
+
+    @property
+    def n_subjects(self) -> int:
+        """Number of subjects."""
+        return len(self.status)
+
+    def _c(self, cid: str) -> int:
+        try:
+            return self.comp_ids.index(cid)
+        except ValueError:
+            raise KeyError(f"no compartment {cid!r}; known: {', '.join(self.comp_ids)}") from None
+
+    def _b(self, bid: str) -> int:
+        try:
+            return self.barrier_ids.index(bid)
+        except ValueError:
+            raise KeyError(f"no barrier {bid!r}; known: {', '.join(self.barrier_ids)}") from None
+
+    def concentration(self, cid: str) -> np.ndarray:
+        """Concentration in ``cid``, mg/mL, (n_subjects, n_t), clipped at 0."""
+        return np.maximum(self._conc[:, :, self._c(cid)], 0.0)
+
+    def amount(self, cid: str) -> np.ndarray:
+        """Amount in ``cid``, mg (NaN for a held compartment without volume)."""
+        i = self._c(cid)
+        return self.concentration(cid) * self._volume[:, i][:, None]
+
+    def eliminated(self, cid: str) -> np.ndarray:
+        """Cumulative amount eliminated from ``cid``, mg."""
+        return self._quad[:, :, self._c(cid)].copy()
+
+    def permeated(self, bid: str) -> np.ndarray:
+        """Cumulative amount per area that entered the ``to`` compartment through ``bid``, mg/cm^2."""
+        b = self._b(bid)
+        return self._quad[:, :, self._n_comp + self._n_bar + b] / self._area[:, b][:, None]
+
+    def flux(self, bid: str) -> np.ndarray:
+        """Flux per area from ``bid`` into its ``to`` compartment, mg/(cm^2 h)."""
+        return self._flux[:, :, self._b(bid)].copy()
+
+    def cmax(self, cid: str) -> np.ndarray:
+        """Highest concentration of each subject in ``cid`` over the output times, mg/mL."""
+        return np.nanmax(self.concentration(cid), axis=1)
+
+    def tmax(self, cid: str) -> np.ndarray:
+        """Output time of each subject's highest concentration in ``cid``, h."""
+        c = np.where(np.isnan(self.concentration(cid)), -np.inf, self.concentration(cid))
+        return self.times[np.argmax(c, axis=1)]
+
+    def auc(self, cid: str) -> np.ndarray:
+        """Area under each subject's concentration curve in ``cid`` (trapezoidal rule), mg h/mL."""
+        c = self.concentration(cid)
+        return np.sum(0.5 * (c[:, 1:] + c[:, :-1]) * np.diff(self.times)[None, :], axis=1)
+
+    def percentiles(self, cid: str, q: Sequence[float] = (5, 50, 95)) -> np.ndarray:
+        """Percentiles over the subjects of the concentration in ``cid``, mg/mL, (len(q), n_t)."""
+        return np.nanpercentile(self.concentration(cid), q, axis=0)
+
+
+# ---------------------------------------------------------------- the compiled population run
+@njit(parallel=True, cache=True)
+def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
+                    lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, gch, olinks, lossy,
+                    inv_cap, y0, q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, keep,
+                    out, out_dosed, out_removed, status, fail_k, stats):
+    n_sub = y0.shape[0]
+    n = y0.shape[1]
+    n_t = times.shape[0]
+    n_int = marks.shape[0] - 1
+    for i in prange(n_sub):
+        margs = (nc, nd, cap[i], invk[i], lp, lq, la[i], lb[i], lc[i], ld[i], lloss, ltrack, loss_rate[i], loss_to,
+                 mm_s, mm_v[i], mm_k[i], tr_f, tr_t, tr_k[i])
+        cargs = (gch[i], olinks, lossy, inv_cap[i])
+        states = np.empty((n_t, n))
+        for r in range(n_t):
+            for j in range(n):
+                states[r, j] = np.nan
+        evd = np.zeros((n_t, nc))
+        evr = np.zeros((n_t, nc))
+        y = y0[i].copy()
+        infusion = np.zeros(nc)
+        clamp = held.copy()
+        holds = np.zeros(nc, dtype=np.int64)
+        dosed = np.zeros(nc)
+        removed = np.zeros(nc)
+        ptr = np.zeros(2, dtype=np.int64)
+        st = np.zeros(6, dtype=np.int64)
+        code, k = run_marks(0, n_int, marks, times, ev_time, ev_kind, ev_comp, ev_value[i], held, margs, cargs,
+                            q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol[i], max_steps, hold, y,
+                            infusion, clamp, holds, dosed, removed, ptr, states, evd, evr, st)
+        status[i] = code
+        fail_k[i] = k
+        for j in range(6):
+            stats[i, j] = st[j]
+        for r in range(n_t):
+            for j in range(keep.shape[0]):
+                out[i, r, j] = states[r, keep[j]]
+            for p in range(nc):
+                out_dosed[i, r, p] = evd[r, p]
+                out_removed[i, r, p] = evr[r, p]
+
+
+@njit(parallel=True, cache=True)
+def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
+                          lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, y0, q_supply,
+                          q_infused, order, cut, n_jac, keep, out, out_dosed, out_removed, status, stats):
+    n_sub = y0.shape[0]
+    n = y0.shape[1]
+    n_t = times.shape[0]
+    for i in prange(n_sub):
+        margs = (nc, nd, cap[i], invk[i], lp, lq, la[i], lb[i], lc[i], ld[i], lloss, ltrack, loss_rate[i], loss_to,
+                 mm_s, mm_v[i], mm_k[i], tr_f, tr_t, tr_k[i])
+        states = np.empty((n_t, n))
+        evd = np.zeros((n_t, nc))
+        evr = np.zeros((n_t, nc))
+        st = np.zeros(6, dtype=np.int64)
+        status[i] = chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value[i], held, margs, q_supply,
+                                   q_infused, order, cut, n_jac, y0[i].copy(), states, evd, evr, st)
+        for j in range(6):
+            stats[i, j] = st[j]
+        for r in range(n_t):
+            for j in range(keep.shape[0]):
+                out[i, r, j] = states[r, keep[j]]
+            for p in range(nc):
+                out_dosed[i, r, p] = evd[r, p]
+                out_removed[i, r, p] = evr[r, p]
+
+
+def _same_structure(models: Sequence[CompiledModel], schedules, grids_times) -> None:
+    first = models[0]
+    ints = ("link_p", "link_q", "link_loss", "link_track", "loss_to", "mm_state", "tr_from", "tr_to", "held")
+    for k, m in enumerate(models[1:], start=2):
+        same = (m.n_state == first.n_state and m.comp_ids == first.comp_ids and m.barrier_ids == first.barrier_ids
+                and all(np.array_equal(getattr(m, a), getattr(first, a)) for a in ints)
+                and [(e.time, e.kind, e.comp) for e in schedules[k - 1]] == [(e.time, e.kind, e.comp)
+                                                                             for e in schedules[0]]
+                and np.array_equal(grids_times[k - 1], grids_times[0])
+                and np.array_equal(m.loss_rate != 0, first.loss_rate != 0))
+        if not same:
+            raise ScenarioError.single(f"population subject {k}", "a different structure",
+                                       "every subject must have the structure of subject 1 (the same compartments, "
+                                       "barriers, cells, links, dosing times and output times); only values may differ")
+
+
+def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegrator | ExactIntegrator | None = None,
+                  grid: Grid | None = None, threads: int | None = None,
+                  factors: Mapping[str, np.ndarray] | None = None) -> Population:
+    """Simulate subjects that share one structure, in parallel compiled threads.
+
+    Parameters
+    ----------
+    scenarios : sequence of Scenario
+        The subjects; all must have the structure of the first (only values may differ).
+    integrator : ExactIntegrator or RosenbrockIntegrator, optional
+        Default: the exact solution when the network is a linear chain (see
+        :mod:`barrierflow.engine.exact_chain`), the compiled RODAS4 integrator otherwise.
+    grid : Grid, optional
+        Default grid of layers without ``cells``.
+    threads : int, optional
+        Number of threads (default: numba's, one per core).
+    factors : mapping, optional
+        Parameter factors to record in the result.
+
+    Returns
+    -------
+    Population
+
+    Raises
+    ------
+    ScenarioError
+        If the subjects do not share one structure.
+    """
+    start = _time.perf_counter()
+    if not scenarios:
+        raise ScenarioError.single("population", "no subjects", "give at least one scenario")
+    if integrator is not None and not isinstance(integrator, RosenbrockIntegrator | ExactIntegrator):
+        raise ScenarioError.single("population integrator", getattr(integrator, "name", repr(integrator)),
+                                   "populations run on the compiled paths: ExactIntegrator or RosenbrockIntegrator "
+                                   "(default: exact for a linear chain network, RODAS4 otherwise)")
+    grid = grid or Grid()
+    models = [compile_scenario(s, grid) for s in scenarios]
+    m0 = models[0]
+    order = chain_order(m0) if not isinstance(integrator, RosenbrockIntegrator) else None
+    if order is None and isinstance(integrator, ExactIntegrator):
+        raise ScenarioError.single("population integrator", "'exact'",
+                                   "needs a linear chain network (no transfers, no saturable elimination, at most "
+                                   "two neighbours per state); use the compiled RODAS4 integrator")
+    integ = integrator if isinstance(integrator, RosenbrockIntegrator) else RosenbrockIntegrator()
+    schedules = [build_schedule(s, m.comp_index) for s, m in zip(scenarios, models, strict=True)]
+    s0 = scenarios[0]
+    marks = np.array(sorted({e.time for e in schedules[0]} | {0.0, s0.duration}), dtype=np.float64)
+    times_all = [_snap(np.array(s.output_grid(), dtype=float), marks, 1e-9 * max(s0.duration, 1.0))
+                 for s in scenarios]
+    _same_structure(models, schedules, times_all)
+    times = times_all[0]
+    ev_t, ev_k, ev_c, _ = encode_events(schedules[0])
+    ev_v = np.array([[e.value for e in sch] for sch in schedules], dtype=np.float64).reshape(len(models), -1)
+
+    def stack(name):
+        return np.ascontiguousarray(np.stack([getattr(m, name) for m in models]))
+
+    nc, nd, n = m0.n_comp, m0.n_dyn, m0.n_state
+    out_cells = [int(m0.link_p[g.out_link]) for g in m0.grids]
+    keep = np.array(list(range(nc)) + out_cells + list(range(nd, n)), dtype=np.int64)
+    n_sub, n_t = len(models), len(times)
+    out = np.empty((n_sub, n_t, len(keep)))
+    out_dosed = np.zeros((n_sub, n_t, nc))
+    out_removed = np.zeros((n_sub, n_t, nc))
+    status = np.zeros(n_sub, dtype=np.int64)
+    fail_k = np.zeros(n_sub, dtype=np.int64)
+    stats = np.zeros((n_sub, 6), dtype=np.int64)
+    n_jac = jacobian_size(len(m0.link_p), nd, len(m0.mm_state), len(m0.tr_from))
+    common = (marks, times, ev_t, ev_k, ev_c, ev_v, m0.held, nc, nd, stack("capacity"), stack("inv_partition"),
+              m0.link_p, m0.link_q, stack("link_a"), stack("link_b"), stack("link_c"), stack("link_d"), m0.link_loss,
+              m0.link_track, stack("loss_rate"), m0.loss_to, m0.mm_state, stack("mm_vmax"), stack("mm_km"),
+              m0.tr_from, m0.tr_to, stack("tr_rate"))
+    old_threads = numba.get_num_threads()
+    if threads is not None:
+        numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
+    try:
+        if order is not None:
+            name = "exact (population)"
+            _run_population_exact(*common, stack("y0"), m0.q_supply, m0.q_infused, order,
+                                  -60.0 / _shortest_time(times, marks), n_jac, keep, out, out_dosed, out_removed,
+                                  status, stats)
+        else:
+            name = f"{integ.name} (population)"
+            struct = build_structure(m0)
+            chains = [chain_args(m) for m in models]
+            _run_population(*common, np.stack([c[0] for c in chains]), chains[0][1], chains[0][2],
+                            np.stack([c[3] for c in chains]), stack("y0"), m0.q_supply, m0.q_infused, struct.args(),
+                            COEF, struct.n_w, n_jac, float(integ.rtol), integ.atol * stack("scale"), integ.max_steps,
+                            float(integ.hold), keep, out, out_dosed, out_removed, status, fail_k, stats)
+    finally:
+        numba.set_num_threads(old_threads)
+    messages = []
+    st = np.where(status == OK, 0, -1)
+    for i in range(n_sub):
+        if status[i] == OK:
+            messages.append("the run finished")
+        else:
+            k = int(fail_k[i])
+            messages.append(f"the solution failed between {marks[k]:.6g} h and {marks[k + 1]:.6g} h "
+                            f"(dosing interval {k + 1}): {_FAILURES.get(int(status[i]), 'unknown failure')}")
+    # flux into the 'to' compartment of each barrier: c u_p - d u_q over the out link, per area
+    area = stack("area")
+    flux = np.empty((n_sub, n_t, m0.n_bar))
+    col = {int(s): j for j, s in enumerate(keep)}
+    inv_k = stack("inv_partition")
+    for b, g in enumerate(m0.grids):
+        j = g.out_link
+        p, q = int(m0.link_p[j]), int(m0.link_q[j])
+        c = stack("link_c")[:, j][:, None]
+        d = stack("link_d")[:, j][:, None]
+        up = out[:, :, col[p]] * inv_k[:, p][:, None]
+        uq = out[:, :, col[q]] * inv_k[:, q][:, None]
+        flux[:, :, b] = (c * up - d * uq) / area[:, b][:, None]
+    volume = np.where(stack("has_volume"), stack("capacity")[:, :nc], np.nan)
+    return Population(
+        times=times, comp_ids=m0.comp_ids, barrier_ids=m0.barrier_ids, factors=dict(factors or {}), status=st,
+        messages=tuple(messages), steps=stats[:, ST_STEPS].copy(), integrator=name,
+        wall_time=_time.perf_counter() - start, _conc=out[:, :, :nc], _quad=out[:, :, nc + len(out_cells):],
+        _flux=flux, _area=area, _volume=volume, _n_comp=nc, _n_bar=m0.n_bar)
+
+
+def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: int, seed: int = 0, *,
+                        integrator: RosenbrockIntegrator | ExactIntegrator | None = None,
+                        grid: Grid | None = None, threads: int | None = None) -> Population:
+    """Draw ``n`` subjects of ``scenario`` (see :func:`sample_scenarios`) and simulate them in parallel.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    variations : mapping of str to float
+        Parameter path to coefficient of variation, for example
+        ``{"barrier 'skin' layer 1 diffusivity": 0.3, "compartment 'central' clearance": 0.3}``.
+    n : int
+        Number of subjects.
+    seed : int
+        Seed of the random draws.
+    integrator, grid, threads
+        As for :func:`simulate_many`.
+
+    Returns
+    -------
+    Population
+
+    Examples
+    --------
+    >>> import barrierflow as bf                                        # doctest: +SKIP
+    >>> s = bf.load("scenarios/benchmark_patch.toml")                   # doctest: +SKIP
+    >>> pop = bf.simulate_population(s, {"compartment 'central' clearance": 0.3}, n=100)  # doctest: +SKIP
+    >>> pop.percentiles("central").shape                                # doctest: +SKIP
+    (3, 1009)
+    """
+    subjects, factors = sample_scenarios(scenario, variations, n, seed)
+    return simulate_many(subjects, integrator=integrator, grid=grid, threads=threads, factors=factors)
+

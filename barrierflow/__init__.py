@@ -40,6 +40,8 @@ _LAZY = {
     "Result": "barrierflow.analysis",
     "steady_state": "barrierflow.analysis.steady",
     "metrics": "barrierflow.analysis.metrics:compute_metrics",
+    "simulate_population": "barrierflow.engine.population",
+    "simulate_many": "barrierflow.engine.population",
 }
 
 __all__ = [
@@ -64,6 +66,8 @@ __all__ = [
     "metrics",
     "save",
     "simulate",
+    "simulate_many",
+    "simulate_population",
     "steady_state",
 ]
 

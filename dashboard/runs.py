@@ -24,7 +24,8 @@ import numpy as np
 import barrierflow
 from barrierflow.errors import BarrierflowError
 
-__all__ = ["MAX_PROFILE_FRAMES", "Exports", "RunArchive", "RunData", "execute", "exports", "pack", "run_key"]
+__all__ = ["MAX_PROFILE_FRAMES", "MAX_PROFILE_POINTS", "Exports", "RunArchive", "RunData", "execute", "exports",
+           "pack", "profile_cells", "run_key"]
 
 MAX_PROFILE_FRAMES = 241
 """Most output times kept for the profile slider (evenly picked from the output times)."""
@@ -122,6 +123,28 @@ def run_key(toml_text: str) -> str:
     return hashlib.sha256(f"{barrierflow.__version__}\n{toml_text}".encode()).hexdigest()
 
 
+MAX_PROFILE_POINTS = 480
+"""Most cells of a barrier kept for the profile plot (evenly picked within each layer, the cells
+next to every interface always kept, so the jumps show)."""
+
+
+def profile_cells(layer_of_cell: np.ndarray, most: int = MAX_PROFILE_POINTS) -> np.ndarray:
+    """Indices of the cells kept for the profile plot (all of them for a small grid)."""
+    n = len(layer_of_cell)
+    if n <= most:
+        return np.arange(n)
+    keep = []
+    layers = np.unique(layer_of_cell)
+    per_layer = max(2, most // max(len(layers), 1))
+    for layer in layers:
+        idx = np.flatnonzero(layer_of_cell == layer)
+        if len(idx) <= per_layer:
+            keep.append(idx)
+        else:
+            keep.append(idx[np.unique(np.round(np.linspace(0, len(idx) - 1, per_layer)).astype(int))])
+    return np.concatenate(keep)
+
+
 def _frames(n: int, most: int = MAX_PROFILE_FRAMES) -> np.ndarray:
     if n <= most:
         return np.arange(n)
@@ -188,15 +211,17 @@ def pack(result: Any, name: str, toml_text: str = "") -> RunData:
     for bid in result.barrier_ids:
         b = s.barrier(bid)
         first = result.profile(bid, float(times[0]))
-        conc = np.empty((len(frames), len(first.x)))
+        cells = profile_cells(np.asarray(first.layer))
+        conc = np.empty((len(frames), len(cells)))
         for j, k in enumerate(frames):
-            conc[j] = result.profile(bid, float(times[k])).conc
+            conc[j] = result.profile(bid, float(times[k])).conc[cells]
         barriers[bid] = BarrierTrace(
             id=bid, from_id=b.from_id, to_id=b.to_id, area=b.area, model=b.model,
             layer_names=tuple(layer.name or f"layer {i + 1}" for i, layer in enumerate(b.layers)),
             interfaces=tuple(first.interfaces), flux=result.flux(bid), permeated=result.permeated(bid),
             content=result.content(bid), degraded=result.degraded(bid), uptake_flux=result.uptake_flux(bid),
-            profile_times=times[frames], profile_x=np.asarray(first.x), profile_layer=np.asarray(first.layer),
+            profile_times=times[frames], profile_x=np.asarray(first.x)[cells],
+            profile_layer=np.asarray(first.layer)[cells],
             profile_conc=conc)
     mb = result.mass_balance
     metrics, metrics_csv = metric_rows(result)

@@ -233,6 +233,14 @@ def register(app: Any, services: Any) -> None:
         return new_runs, status, ""
 
     @app.callback(
+        Output(ids.RUN_STATUS, "children", allow_duplicate=True),
+        Input(ids.CANCEL, "n_clicks"),
+        prevent_initial_call=True,
+    )
+    def cancelled(_n):
+        return html.Span("The run was cancelled; the runs list is unchanged.", className="warn")
+
+    @app.callback(
         Output(ids.RUNS, "data", allow_duplicate=True),
         Output(ids.RUN_STATUS, "children", allow_duplicate=True),
         Input(ids.RUNS_CLEAR, "n_clicks"),

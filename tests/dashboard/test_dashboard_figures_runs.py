@@ -204,3 +204,16 @@ def test_canvas_elements_keep_dragged_positions_and_tell_kinds_apart():
     assert node["data"]["held"] == "yes"
     edge = next(e for e in els if "source" in e["data"])
     assert edge["data"]["kind"] == "barrier" and "1 layer" in edge["data"]["label"]
+
+
+def test_a_large_grid_is_thinned_for_the_profile_keeping_the_cells_at_every_interface():
+    from dashboard.runs import profile_cells
+
+    layer_of_cell = np.repeat([0, 1, 2], [2000, 50, 3000])
+    kept = profile_cells(layer_of_cell, most=300)
+    assert len(kept) <= 300 + 3
+    for layer in (0, 1, 2):
+        idx = np.flatnonzero(layer_of_cell == layer)
+        assert idx[0] in kept and idx[-1] in kept
+    assert np.all(np.diff(kept) > 0)
+    np.testing.assert_array_equal(profile_cells(np.zeros(40, dtype=int)), np.arange(40))

@@ -32,7 +32,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg as sla
 from numba import njit
 
 from ..errors import ScenarioError
@@ -165,6 +164,8 @@ class _Propagator:
         key = float(f"{dt:.12e}")
         e = self.cache.get(key)
         if e is None:
+            import scipy.linalg as sla
+
             e = sla.expm(self.aug * dt)
             self.cache[key] = e
         return e
@@ -184,6 +185,8 @@ def _symmetric_modes(model: CompiledModel, a: np.ndarray, clamp: np.ndarray, cut
     if scale > 0 and np.abs(b - b.T).max() > 1e-10 * scale:
         return None
     b = 0.5 * (b + b.T)
+    import scipy.linalg as sla  # only this fallback needs it (slow to import)
+
     order = _chain_order(b) if len(free) > 2 else None
     tri = None
     complete = True

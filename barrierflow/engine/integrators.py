@@ -11,7 +11,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.integrate import BDF, LSODA, Radau
 
 from ..errors import ScenarioError, SolverError
 from .problem import IntervalProblem
@@ -36,7 +35,7 @@ class RunStats:
         return dict(self.__dict__)
 
 
-_SCIPY = {"BDF": BDF, "Radau": Radau, "LSODA": LSODA}
+_SCIPY = ("BDF", "Radau", "LSODA")  # scipy.integrate is imported when one runs (it is slow to import)
 
 
 @dataclass(frozen=True)
@@ -93,8 +92,11 @@ class ScipyIntegrator:
         scale = problem.model.scale
         atol = self.atol * scale
         jac = problem.jac_dense if self.method == "LSODA" else problem.jac
-        solver = _SCIPY[self.method](problem.fun, 0.0, y0, t_end, rtol=self.rtol, atol=atol, jac=jac,
-                                     max_step=self.max_step, first_step=min(t_end, 1e-6 * max(t_end, 1.0)))
+        import scipy.integrate
+
+        solver = getattr(scipy.integrate, self.method)(
+            problem.fun, 0.0, y0, t_end, rtol=self.rtol, atol=atol, jac=jac, max_step=self.max_step,
+            first_step=min(t_end, 1e-6 * max(t_end, 1.0)))
         while solver.status == "running":
             msg = solver.step()
             stats.steps += 1

@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import scipy.sparse as sp
+
+if TYPE_CHECKING:  # scipy.sparse is imported when a Jacobian is first built (it is slow to import)
+    import scipy.sparse as sp
 
 from .compiled import CompiledModel
 from .kernels import jacobian_coo, jacobian_size, rates
@@ -69,6 +72,8 @@ class IntervalProblem:
         self.njev += 1
         k = jacobian_coo(y, self._rows, self._cols, self._vals, *self._args,
                          self.settings.clamp, self.model.q_supply)
+        import scipy.sparse as sp
+
         mat = sp.csc_matrix((self._vals[:k].copy(), (self._rows[:k].copy(), self._cols[:k].copy())),
                             shape=(self.n, self.n))
         if self.model.is_linear:

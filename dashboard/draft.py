@@ -258,6 +258,7 @@ def draft_from_document(doc: Mapping[str, Any], file: str = "untitled.toml") -> 
         dose = {"key": _next_key(d, "d"), **{k: _text(table.get(k)) for k in DOSE_FIELDS}}
         for k in ("at", "every", "duration"):
             dose[k] = pretty_time(dose[k]) if dose[k] else ""
+        dose["at"] = dose["at"] or "0 h"  # the default, shown
         d["doses"].append(dose)
     d["positions"] = tidy_positions(d)
     return d

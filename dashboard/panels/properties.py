@@ -17,7 +17,15 @@ from .. import ids
 from . import layers
 from .common import field_row
 
-HELD_HELP = "leave empty for a normal compartment; '0 mg/mL' makes a perfect sink"
+COMPARTMENT_HELP = {
+    "volume": "volume, e.g. 5 mL, 15 L; may stay empty for a held compartment",
+    "initial_concentration": "mass per volume, e.g. 20 mg/mL; empty: 0",
+    "partition": "bare number, relative to the reference phase; empty: 1",
+    "clearance": "volume per time, e.g. 10 L/h; empty: none",
+    "vmax": "mass per time, e.g. 2 mg/h; give Km too",
+    "km": "mass per volume, e.g. 0.1 mg/L; give Vmax too",
+    "held_concentration": "empty for a normal compartment; '0 mg/mL' makes a perfect sink",
+}
 COMPARTMENT_ORDER = ("id", "volume", "initial_concentration", "partition", "clearance", "vmax", "km",
                      "held_concentration", "description")
 LINK_ORDER = ("id", "area", "flow", "rate")
@@ -28,9 +36,7 @@ def _compartment_form() -> html.Div:
     rows = []
     for name in COMPARTMENT_ORDER:
         label, kind, example = D.COMPARTMENT_FIELDS[name]
-        help_text = HELD_HELP if name == "held_concentration" else None
-        if name == "partition":
-            help_text = "bare number, relative to the reference phase (default 1)"
+        help_text = COMPARTMENT_HELP.get(name)
         rows.append(field_row("compartment", name, label, kind, example, help_text=help_text))
     return html.Div(rows, id="form-compartment", className="form", style={"display": "none"})
 

@@ -10,8 +10,10 @@ gives the same numbers (the engine is deterministic).
 
 from __future__ import annotations
 
+import atexit
 import hashlib
 import math
+import shutil
 import tempfile
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
@@ -267,7 +269,7 @@ class RunArchive:
     Parameters
     ----------
     directory : path-like or None
-        Where the cache lives (default: a new temporary folder).
+        Where the cache lives (default: a new temporary folder, removed when the process ends).
     size_limit : int, bytes
         The oldest runs are dropped beyond this size (they are simulated again when asked for).
     """
@@ -275,7 +277,13 @@ class RunArchive:
     def __init__(self, directory: str | Path | None = None, size_limit: int = 2**30):
         import diskcache
 
-        self.directory = Path(directory) if directory else Path(tempfile.mkdtemp(prefix="barrierflow-runs-"))
+        if directory:
+            self.directory = Path(directory)
+        else:
+            # a folder of our own: removed when the server process ends (not by its workers,
+            # which leave with os._exit)
+            self.directory = Path(tempfile.mkdtemp(prefix="barrierflow-runs-"))
+            atexit.register(shutil.rmtree, self.directory, ignore_errors=True)
         self.cache = diskcache.Cache(str(self.directory / "runs"), size_limit=size_limit)
 
     def put(self, key: str, data: RunData) -> None:

@@ -181,3 +181,18 @@ def test_a_toml_syntax_error_is_reported_and_gives_an_empty_draft():
     d, problems = D.draft_from_toml("[scenario\nname = 1", "broken.toml")
     assert d["compartments"] == []
     assert len(problems) == 1 and problems[0].field == "TOML syntax"
+
+
+def test_an_uploaded_file_with_problems_is_kept_as_typed_and_its_problems_listed():
+    import base64
+
+    from dashboard.panels.scenario import open_upload
+
+    text = (ROOT / "scenarios" / "diffusion_cell.toml").read_text().replace('thickness = "20 um"',
+                                                                             'thickness = "-20 um"')
+    contents = "data:application/octet-stream;base64," + base64.b64encode(text.encode()).decode()
+    d, problems = open_upload(contents, "mine.toml")
+    assert problems == ["mine.toml: barrier 'membrane' layer 1 thickness: got -20 um; must be > 0"]
+    assert d["links"][0]["layers"][0]["thickness"] == "-20 um"
+    assert d["file"] == "mine.toml"
+    assert open_upload("garbage", "x.toml")[0] is None

@@ -354,11 +354,10 @@ def exports(toml_text: str, file: str | None = None) -> Exports:
     """Simulate a scenario and write its traces and sidecar with the library's own writer.
 
     The run is made again (the engine is deterministic, so the numbers are those of the run
-    shown) and written by :meth:`barrierflow.Result.to_csv` into a temporary folder, so the
-    text is byte for byte what ``barrierflow run`` writes for the same scenario.
+    shown) and written by the library's own writers (:meth:`barrierflow.Result.csv_text` and
+    :meth:`~barrierflow.Result.sidecar_text`, which :meth:`~barrierflow.Result.to_csv` uses), so
+    the text is byte for byte what ``barrierflow run`` writes for the same scenario.
     """
     scenario = barrierflow.loads(toml_text, file)
     result = barrierflow.simulate(scenario)
-    with tempfile.TemporaryDirectory(prefix="barrierflow-export-") as tmp:
-        path = result.to_csv(Path(tmp) / "run.csv")
-        return Exports(path.read_text(encoding="utf-8"), path.with_suffix(".json").read_text(encoding="utf-8"))
+    return Exports(result.csv_text(), result.sidecar_text())

@@ -405,9 +405,12 @@ class Result:
             path = Path(f"{stem}.csv")
         path = Path(path)
         atomic_write(path, self.csv_text())
-        side = json.dumps(_clean(self.sidecar()), indent=2, default=_json_default, allow_nan=False)
-        atomic_write(path.with_suffix(".json"), side + "\n")
+        atomic_write(path.with_suffix(".json"), self.sidecar_text())
         return path
+
+    def sidecar_text(self) -> str:
+        """The JSON sidecar as text, exactly as :meth:`to_csv` writes it."""
+        return json.dumps(_clean(self.sidecar()), indent=2, default=_json_default, allow_nan=False) + "\n"
 
 
 def _clean(x: Any) -> Any:

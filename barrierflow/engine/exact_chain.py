@@ -78,7 +78,7 @@ def chain_order(model: CompiledModel) -> np.ndarray | None:
 
 
 # ---------------------------------------------------------------- the chain matrix
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
     """Compact chain of the free states: returns n (their number) and fills the arrays.
 
@@ -143,7 +143,7 @@ def _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_o
     return n
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _sturm(dd, ee, n, x, pivmin):
     """Number of eigenvalues of the tridiagonal (dd, ee) below ``x``."""
     cnt = 0
@@ -161,7 +161,7 @@ def _sturm(dd, ee, n, x, pivmin):
     return cnt
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
     """Eigenpairs of T with eigenvalue above ``cut`` (<= 0), slowest first; returns their number.
 
@@ -353,7 +353,7 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
     return k
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _solve_t(dd, ee, n, ediag, msq, comp_of, r, x):
     """x = T^+ r: the solution orthogonal to the equilibrium modes of closed parts."""
     for i in range(n):
@@ -400,7 +400,7 @@ def _solve_t(dd, ee, n, ediag, msq, comp_of, r, x):
         start = stop + 1
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
     """out = P v, P = T^+ minus the modes 0 .. ks-1 (the decayed modes' q q^T / lam)."""
     _solve_t(dd, ee, n, ediag, msq, comp_of, v, out)
@@ -416,14 +416,14 @@ def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
 
 
 # ---------------------------------------------------------------- outputs of one interval
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _phi1(x):
     if abs(x) < 1e-5:
         return 1.0 + x / 2.0 + x * x / 6.0
     return math.expm1(x) / x
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _phi2(x):
     if abs(x) < 0.1:
         return 0.5 + x * (1 / 6 + x * (1 / 24 + x * (1 / 120 + x * (1 / 720 + x * (1 / 5040 + x * (
@@ -431,7 +431,7 @@ def _phi2(x):
     return (math.expm1(x) - x) / (x * x)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd, clamp,
               nc, out, work, t_end):
     """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``.
@@ -545,7 +545,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
 
 
 # ---------------------------------------------------------------- the whole regimen
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, q_supply, q_infused, order, cut,
                    n_jac, y, states, ev_dosed, ev_removed, stats):
     """Run the regimen exactly on a chain network; returns a status code (0 when done).
@@ -588,12 +588,13 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
     last = np.zeros((1, n_state))
     n_marks = marks.shape[0]
     n_t = times.shape[0]
-    n = 0
-    k_all = 0
-    nq = 0
+    # counters start as int64 values, not literal zeros (a literal would compile the callees twice)
+    n = np.int64(0)
+    k_all = np.int64(0)
+    nq = np.int64(0)
     have = False
-    row = 0
-    ei = 0
+    row = np.int64(0)
+    ei = np.int64(0)
     for k in range(n_marks - 1):
         t0 = marks[k]
         t1 = marks[k + 1]

@@ -175,7 +175,7 @@ def encode_events(events) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarra
 
 
 # ---------------------------------------------------------------- compiled right-hand side
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused):
     """The same balances as :func:`~barrierflow.engine.kernels.rates`, with the cell chains fused.
 
@@ -283,7 +283,7 @@ def chain_args(model: CompiledModel) -> tuple[np.ndarray, np.ndarray, np.ndarray
     return gch, np.array(other, dtype=np.int64), lossy, 1.0 / model.capacity
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _jac(y, rows, cols, vals, margs, clamp, q_supply):
     return jacobian_coo(y, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
                         margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
@@ -293,7 +293,7 @@ def _jac(y, rows, cols, vals, margs, clamp, q_supply):
 # ---------------------------------------------------------------- compiled linear algebra
 # tri rows: 0 J diagonal, 1 J sub-diagonal (i, i-1), 2 J super-diagonal (i, i+1), 3 elimination
 # multipliers, 4 reciprocal pivots, 5 super-diagonal of M times the reciprocal pivot
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, qr, qc, qv):
     """Sort the COO Jacobian into the blocks; returns the number of quadrature entries."""
     for i in range(tri.shape[1]):
@@ -345,7 +345,7 @@ def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, 
     return nq
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
     """Factorise M = fac I - J in blocks; False when a pivot vanishes."""
     seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f = sargs
@@ -418,7 +418,7 @@ def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
     return True
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq):
     """Overwrite ``r`` with the solution k of M k = r (the factors come from :func:`_factor`)."""
     seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f = sargs
@@ -491,7 +491,7 @@ _D = np.array([[D21, D22, D23, D24, D25], [D31, D32, D33, D34, D35]])
 COEF = (_A, _C, _D)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _workspace(nc, nx, n, n_w, n_jac, n_be):
     return (np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac),
             np.zeros((6, nx)), np.zeros((nc, nc)), np.zeros(max(n_be, 1)), np.zeros(max(n_be, 1)),
@@ -500,7 +500,7 @@ def _workspace(nc, nx, n, n_w, n_jac, n_be):
             np.zeros((6, n)), np.zeros((5, n)), np.zeros(2 * (nc + nx) + 1))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_infused, sargs, coef, rtol,
               atol, max_steps, stats, ws, hold):
     """RODAS4 from local time 0 to ``t_end`` (h); dense output into ``out`` at ``t_out``.
@@ -527,7 +527,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
         io += 1
     if t_end <= 0.0:
         return OK
-    nq = 0
+    nq = np.int64(0)  # not a literal zero: a literal would compile _solve twice
     have_jac = False
     # starting step (Hairer, Norsett and Wanner, Solving ODEs I, 2nd ed., 1993, sec. II.4)
     rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
@@ -687,7 +687,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     return OK
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
                  removed):
     """Apply every event from index ``ei`` with time <= ``t0``; returns the next event index.
@@ -729,7 +729,7 @@ def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infu
     return ei
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def rows_until(times, row, t1, last):
     """End of the output rows of the interval that ends at ``t1`` (the last one includes ``t1``)."""
     n_t = times.shape[0]
@@ -739,7 +739,7 @@ def rows_until(times, row, t1, last):
     return sel_end
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def run_marks(k0, k1, marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, cargs, q_supply, q_infused,
               sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, y, infusion, clamp, holds, dosed, removed, ptr,
               states, ev_dosed, ev_removed, stats):

@@ -1,0 +1,465 @@
+"""Every engine path against the same references: the compiled RODAS4 integrator, the exact
+solutions (compiled chain, eigenmodes, matrix exponentials), the scipy integrators, the
+populations; and every compiled kernel against a NumPy/scipy version or its own pure-Python run
+(``NUMBA_DISABLE_JIT=1``).
+
+The physics references (published closed forms, each with its source) live in
+``test_engine_reference.py``; here each of its cases runs again on each path. The other checks
+compare with independent references named beside them: scipy's Radau integrator (Hairer and
+Wanner, Solving ODEs II, 1996, sec. IV.8), scipy.linalg.expm (Al-Mohy and Higham, SIAM J.
+Matrix Anal. Appl. 31, 2009), numpy.linalg.solve (LAPACK gesv) and numpy.linalg.eigh (LAPACK
+syevd). Errors are scaled as atol + rtol |y| (scipy's convention).
+"""
+
+from __future__ import annotations
+
+import importlib
+import inspect
+import json
+import os
+import subprocess
+import sys
+import textwrap
+
+import numpy as np
+import pytest
+import test_engine_reference as ref_cases
+from scipy.integrate import solve_ivp
+
+import barrierflow as bf
+from barrierflow import Barrier, Compartment, Dose, Exchange, Layer, Scenario, ScenarioError, SolverError, Transfer
+from barrierflow.engine import ScipyIntegrator, compile_scenario, solve
+from barrierflow.engine.exact import ExactIntegrator, exact_supported
+from barrierflow.engine.exact_chain import chain_order
+from barrierflow.engine.kernels import jacobian_coo, jacobian_size, rates
+from barrierflow.engine.population import parameter_paths, sample_scenarios, simulate_many, simulate_population
+from barrierflow.engine.problem import IntervalProblem, IntervalSettings
+from barrierflow.engine.rosenbrock import (
+    RosenbrockIntegrator,
+    _factor,
+    _scatter,
+    _solve,
+    _workspace,
+    build_structure,
+    chain_args,
+    model_args,
+    rates_chain,
+)
+
+H = 3600.0
+engine_solve = importlib.import_module("barrierflow.engine.solve")  # the module (the package exports a function)
+
+PATHS = {
+    "rodas": RosenbrockIntegrator(),
+    "exact-chain": ExactIntegrator("chain"),
+    "exact-modes": ExactIntegrator("modes"),
+    "exact-expm": ExactIntegrator("expm"),
+    "bdf": ScipyIntegrator("BDF"),
+}
+
+
+def _reference_cases():
+    cases = []
+    for name, fn in inspect.getmembers(ref_cases, inspect.isfunction):
+        if not name.startswith("test_"):
+            continue
+        marks = [m for m in getattr(fn, "pytestmark", []) if m.name == "parametrize"]
+        if not marks:
+            cases.append(pytest.param(fn, {}, id=name[5:]))
+            continue
+        names = [a.strip() for a in marks[0].args[0].split(",")]
+        for values in marks[0].args[1]:
+            values = values if isinstance(values, tuple) else (values,)
+            cases.append(pytest.param(fn, dict(zip(names, values, strict=True)), id=f"{name[5:]}-{values}"))
+    return cases
+
+
+@pytest.mark.parametrize("path", list(PATHS))
+@pytest.mark.parametrize("case,kwargs", _reference_cases())
+def test_reference_case_on_every_path(case, kwargs, path, monkeypatch):
+    # Each reference of test_engine_reference.py (its sources are named there), with the
+    # engine's default integrator replaced by this path.
+    integrator = PATHS[path]
+    original = engine_solve.resolve_integrator
+
+    def pick(given, model):
+        if given is not None:
+            return original(given, model)
+        if isinstance(integrator, ExactIntegrator):
+            if not model.is_linear:
+                pytest.skip("exact paths need a linear model")
+            if integrator.method == "chain" and chain_order(model) is None:
+                pytest.skip("not a chain network")
+            if integrator.method == "modes" and len(model.tr_from):
+                pytest.skip("eigenmodes need a symmetric network (no transfers)")
+            if integrator.method == "expm" and not len(model.tr_from):
+                # matrix exponentials are the exact path of networks with transfers; on very stiff
+                # networks over long steps their rounding reaches ~1e-9 (scaling and squaring), which
+                # the symmetric paths avoid; test_exact_paths_agree_with_radau covers them there
+                pytest.skip("matrix exponentials are the exact path of networks with transfers")
+        return integrator
+
+    monkeypatch.setattr(engine_solve, "resolve_integrator", pick)
+    case(**kwargs)
+
+
+# ---------------------------------------------------------------- networks for cross-checks
+def patch_body(cells=6, saturable=False, extra_doses=(), hold=False):
+    """An invented patch-to-body network (the benchmark's shape, few cells)."""
+    layers = (Layer(15e-4, 1e-9 * H, partition=10.0, cells=cells), Layer(100e-4, 1e-6 * H, cells=cells),
+              Layer(1000e-4, 1e-6 * H, cells=cells))
+    central = Compartment("central", volume=5000.0, clearance=10000.0,
+                          **({"vmax": 0.1, "km": 2e-5} if saturable else {}))
+    doses = [Dose("patch", "replace", at=24.0, every=24.0, count=2, concentration=10.0), *extra_doses]
+    if hold:
+        doses.append(Dose("patch", "hold", at=6.0, duration=5.0, concentration=3.0))
+    return Scenario(name="patch to body (invented)", duration=72.0, output_step=0.5,
+                    compartments=(Compartment("patch", volume=1.0, initial_concentration=10.0), central,
+                                  Compartment("peripheral", volume=20000.0)),
+                    barriers=(Barrier("skin", "patch", "central", 10.0, layers),),
+                    exchanges=(Exchange("blood", "central", "peripheral", flow=5000.0),),
+                    doses=tuple(doses))
+
+
+def two_barriers():
+    """An invented donor feeding two receptors through two membranes (not a chain: donor has 2 links)."""
+    lay = (Layer(30e-4, 5e-8 * H, partition=3.0, cells=5),)
+    lay2 = (Layer(50e-4, 2e-7 * H, partition=0.5, cells=4), Layer(10e-4, 1e-7 * H, partition=2.0, cells=3))
+    return Scenario(name="two membranes (invented)", duration=30.0, output_step=0.5,
+                    compartments=(Compartment("donor", volume=2.0, initial_concentration=5.0),
+                                  Compartment("left", volume=3.0, clearance=0.2), Compartment("right", volume=1.0)),
+                    barriers=(Barrier("a", "donor", "left", 1.0, lay), Barrier("b", "donor", "right", 0.5, lay2)),
+                    doses=(Dose("donor", "infusion", at=3.0, rate=0.5, duration=6.0),
+                           Dose("left", "bolus", at=10.0, amount=0.3)))
+
+
+def closed_cell():
+    """An invented closed diffusion cell (no loss anywhere: the chain matrix is singular)."""
+    lay = (Layer(20e-4, 1e-7 * H, partition=8.0, cells=6), Layer(80e-4, 1e-6 * H, partition=1.5, cells=6))
+    return Scenario(name="closed cell (invented)", duration=50.0, output_step=1.0,
+                    compartments=(Compartment("donor", volume=2.0, initial_concentration=5.0),
+                                  Compartment("receiver", volume=3.0, partition=0.5)),
+                    barriers=(Barrier("film", "donor", "receiver", 1.0, lay),),
+                    doses=(Dose("receiver", "bolus", at=20.0, amount=1.0),))
+
+
+def with_transfer():
+    """An invented depot-and-skin network with a one-way transfer (not symmetric)."""
+    lay = (Layer(20e-4, 1e-7 * H, partition=2.0, cells=5),)
+    return Scenario(name="depot (invented)", duration=24.0, output_step=0.5,
+                    compartments=(Compartment("patch", volume=1.0, initial_concentration=2.0),
+                                  Compartment("depot", volume=50.0), Compartment("plasma", volume=5000.0,
+                                                                                 clearance=1000.0)),
+                    barriers=(Barrier("skin", "patch", "depot", 4.0, lay),),
+                    transfers=(Transfer("absorption", "depot", "plasma", rate=0.7),))
+
+
+def held_donor_degrading():
+    """An invented held donor over a degrading two-layer film into a held sink."""
+    lay = (Layer(30e-4, 2e-7 * H, partition=2.0, cells=6, degradation_rate=0.5),
+           Layer(60e-4, 1e-6 * H, partition=1.0, cells=6))
+    return Scenario(name="degrading film (invented)", duration=20.0, output_step=0.5,
+                    compartments=(Compartment("donor", held_concentration=1.0),
+                                  Compartment("sink", held_concentration=0.0)),
+                    barriers=(Barrier("film", "donor", "sink", 1.0, lay),))
+
+
+NETWORKS = {"patch-body": patch_body, "patch-body-hold": lambda: patch_body(hold=True),
+            "two-barriers": two_barriers, "closed-cell": closed_cell, "transfer": with_transfer,
+            "held-degrading": held_donor_degrading}
+
+
+def radau(scenario):
+    # independent reference integrator: scipy Radau (Hairer & Wanner 1996, IV.8), tight tolerances
+    return solve(scenario, ScipyIntegrator("Radau", rtol=1e-11, atol=1e-14))
+
+
+def scaled_error(a, b, model):
+    """Largest |a - b| over all states and times, each state scaled by its magnitude scale."""
+    return float(np.max(np.abs(a - b) / model.scale))
+
+
+@pytest.mark.parametrize("net", list(NETWORKS))
+def test_exact_paths_agree_with_radau(net):
+    s = NETWORKS[net]()
+    ref = radau(s)
+    m = ref.model
+    methods = ["expm", "auto"]
+    if len(m.tr_from) == 0:
+        methods.append("modes")
+    if chain_order(m) is not None:
+        methods.append("chain")
+    for method in methods:
+        tr = solve(s, ExactIntegrator(method))
+        assert scaled_error(tr.states, ref.states, m) < 1e-8, method
+        assert np.allclose(tr.event_dosed, ref.event_dosed, rtol=1e-12, atol=1e-12)
+    # the exact paths agree with one another to rounding
+    a = solve(s, ExactIntegrator("expm")).states
+    for method in methods[1:]:
+        assert scaled_error(solve(s, ExactIntegrator(method)).states, a, m) < 1e-10, method
+
+
+@pytest.mark.parametrize("net", list(NETWORKS))
+def test_rodas_agrees_with_radau(net):
+    s = NETWORKS[net]()
+    ref = radau(s)
+    tr = solve(s, RosenbrockIntegrator(rtol=1e-8, atol=1e-11))
+    assert scaled_error(tr.states, ref.states, ref.model) < 1e-7
+    tr = solve(s, RosenbrockIntegrator())  # the default tolerances
+    assert scaled_error(tr.states, ref.states, ref.model) < 1e-5
+
+
+def test_rodas_saturable_against_radau_and_converges():
+    # nonlinear (Michaelis-Menten elimination); reference scipy Radau at rtol 1e-11
+    s = patch_body(saturable=True)
+    ref = radau(s)
+    c = ref.model.comp_index["central"]
+    peak = ref.states[:, c].max()
+    errs = []
+    for rtol in (1e-5, 1e-7, 1e-9):
+        tr = solve(s, RosenbrockIntegrator(rtol=rtol, atol=rtol * 1e-3))
+        errs.append(np.max(np.abs(tr.states[:, c] - ref.states[:, c])) / peak)
+    assert errs[0] < 1e-4 and errs[2] < 1e-8
+    assert errs[2] < errs[1] < errs[0]  # tighter tolerance, smaller error (order 4 method)
+
+
+def test_auto_choice():
+    assert solve(patch_body()).integrator == "exact"
+    assert solve(patch_body(saturable=True)).integrator == "rodas4"
+    assert solve(with_transfer()).integrator == "exact"  # small: matrix exponentials
+    assert exact_supported(compile_scenario(two_barriers()))
+
+
+def test_rodas_failure_is_reported():
+    s = patch_body()
+    with pytest.raises(SolverError, match="step limit"):
+        solve(s, RosenbrockIntegrator(max_steps=3))
+    tr = solve(s, RosenbrockIntegrator(max_steps=3), raise_on_failure=False)
+    assert tr.status == -1 and len(tr.times) == len(tr.states) < 145
+    assert "dosing interval 1" in tr.message
+
+
+def test_integrator_options_are_checked():
+    with pytest.raises(ScenarioError, match="integrator rtol: got 2; must be a number between 0 and 1"):
+        RosenbrockIntegrator(rtol=2)
+    with pytest.raises(ScenarioError, match="integrator method"):
+        ExactIntegrator("magic")
+    with pytest.raises(ScenarioError, match="needs a linear model"):
+        solve(patch_body(saturable=True), ExactIntegrator())
+
+
+# ---------------------------------------------------------------- kernels against numpy
+def test_rates_chain_equals_rates():
+    # the fused kernel against the engine's reference kernel, every process switched on
+    s = patch_body(saturable=True)
+    layers = (Layer(30e-4, 2e-7 * H, partition=2.0, degradation_rate=0.3),)
+    s = Scenario(name="all processes (invented)", duration=5.0, output_step=1.0,
+                 compartments=(*s.compartments, Compartment("gut", volume=10.0),
+                               Compartment("bath", held_concentration=2.0)),
+                 barriers=(*s.barriers, Barrier("film", "bath", "gut", 2.0, layers),
+                           Barrier("quick", "gut", "central", 1.0, layers, model="steady")),
+                 exchanges=s.exchanges, transfers=(Transfer("absorption", "gut", "central", rate=0.4),))
+    m = compile_scenario(s)
+    rng = np.random.default_rng(3)
+    gch, ol, lossy, icap = chain_args(m)
+    for _ in range(5):
+        y = rng.random(m.n_state)
+        infusion = rng.random(m.n_comp) * (rng.random(m.n_comp) > 0.5)
+        clamp = m.held | (rng.random(m.n_comp) > 0.7)
+        a, b = np.empty(m.n_state), np.empty(m.n_state)
+        rates(y, a, *model_args(m), infusion, clamp, m.q_supply, m.q_infused)
+        rates_chain(y, b, model_args(m), gch, ol, lossy, icap, np.zeros(2 * m.n_dyn + 1), infusion, clamp,
+                    m.q_supply, m.q_infused)
+        assert np.allclose(a, b, rtol=1e-13, atol=1e-13 * np.abs(a).max())
+
+
+@pytest.mark.parametrize("net", ["patch-body", "two-barriers", "held-degrading"])
+def test_block_solver_equals_dense_solve(net):
+    # the bordered tridiagonal solver against numpy.linalg.solve (LAPACK gesv) on M = fac I - J
+    m = compile_scenario(NETWORKS[net]())
+    st = build_structure(m)
+    margs = model_args(m)
+    n = m.n_state
+    nj = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+    rng = np.random.default_rng(5)
+    for clamp in (m.held.copy(), m.held | np.eye(m.n_comp, dtype=bool)[0]):
+        ws = _workspace(m.n_comp, m.n_cells, n, st.n_w, nj, len(st.be_cell))
+        rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm = ws[:13]
+        y = rng.random(n)
+        k = jacobian_coo(y, rows, cols, vals, *margs, clamp, m.q_supply)
+        nq = _scatter(rows, cols, vals, k, m.n_comp, m.n_dyn, st.cell_be, st.be_comp, tri, jcc, jxc, jcx, qr, qc, qv)
+        dense = IntervalProblem(m, IntervalSettings(np.zeros(m.n_comp), clamp)).jac_dense(0.0, y)
+        for fac in (1e-3, 1.0, 1e4):
+            assert _factor(fac, m.n_comp, tri, jcc, jxc, jcx, st.args(), w, smat, perm)
+            r = rng.standard_normal(n)
+            x = r.copy()
+            _solve(x, fac, m.n_comp, tri, jxc, jcx, st.args(), w, smat, perm, qr, qc, qv, nq)
+            want = np.linalg.solve(fac * np.eye(n) - dense, r)
+            assert np.allclose(x, want, rtol=1e-9, atol=1e-12 * np.abs(want).max())
+
+
+def test_chain_modes_against_dense_eigh():
+    # slow eigenpairs of the chain matrix against numpy.linalg.eigh (LAPACK syevd) of B built
+    # from the Jacobian (an independent construction)
+    from barrierflow.engine import exact_chain as ec
+    from barrierflow.engine.exact import _jacobian, _margs
+
+    m = compile_scenario(patch_body(cells=10))
+    order = chain_order(m)
+    nd, L = m.n_dyn, len(order)
+    arrs = dict(idx=np.zeros(L, dtype=np.int64), cmap=np.zeros(nd, dtype=np.int64), msq=np.zeros(L),
+                tv=np.zeros(L), dd=np.zeros(L), ee=np.zeros(L), gedge=np.zeros(L), ediag=np.zeros(L),
+                comp_of=np.zeros(L, dtype=np.int64))
+    n = ec._build(order, m.held.copy(), _margs(m), *arrs.values())
+    lam, vec = np.zeros(L), np.zeros((L, L))
+    k = ec._slow_modes(arrs["dd"], arrs["ee"], n, -500.0, arrs["gedge"], arrs["ediag"], arrs["msq"], arrs["comp_of"],
+                       lam, vec)
+    a = _jacobian(m, m.held.copy())[:nd, :nd]
+    t = np.sqrt(m.capacity[:nd] * m.inv_partition[:nd])
+    b = a * t[:, None] / t[None, :]
+    w, v = np.linalg.eigh(0.5 * (b + b.T))
+    want = w[w > -500.0][::-1]
+    assert k == len(want)
+    assert np.allclose(lam[:k], want, rtol=1e-9)
+    for s in range(k):  # the same eigenvectors (up to sign), mapped back to state order
+        q = np.zeros(nd)
+        q[arrs["idx"][:n]] = vec[s, :n]
+        vs = v[:, np.argmin(np.abs(w - lam[s]))]
+        assert abs(abs(q @ vs) - 1.0) < 1e-9
+
+
+def test_phi_functions_near_zero():
+    # phi1(x) = (e^x - 1)/x and phi2(x) = (e^x - 1 - x)/x^2 against their Taylor series
+    # sum x^j / (j+1)! and sum x^j / (j+2)! (30 terms) where those converge fast, and math.expm1
+    # beyond (where there is no cancellation)
+    import math
+
+    from barrierflow.engine.exact import phi1, phi2
+
+    x = np.array([-1e-12, -1e-6, -0.05, -0.09999, -0.1, -0.5, -3.0, -50.0])
+    small = np.abs(x) < 1
+    want1 = np.array([sum(v**j / math.factorial(j + 1) for j in range(30)) if a else math.expm1(v) / v
+                      for v, a in zip(x, small, strict=True)])
+    want2 = np.array([sum(v**j / math.factorial(j + 2) for j in range(30)) if a else (math.expm1(v) - v) / v**2
+                      for v, a in zip(x, small, strict=True)])
+    assert np.allclose(phi1(x), want1, rtol=1e-14)
+    assert np.allclose(phi2(x), want2, rtol=1e-13)
+
+
+# ---------------------------------------------------------------- populations
+def test_population_subjects_equal_single_runs():
+    s = patch_body()
+    var = {"barrier 'skin' layer 1 diffusivity": 0.3, "compartment 'central' clearance": 0.3,
+           "exchange 'blood' flow": 0.2, "dose 1 concentration": 0.1}
+    pop = simulate_population(s, var, 6, seed=11)
+    subjects, factors = sample_scenarios(s, var, 6, seed=11)
+    assert pop.integrator.startswith("exact")
+    for i in (0, 3, 5):
+        r = bf.simulate(subjects[i])
+        assert np.array_equal(pop.concentration("central")[i], r.concentration("central"))
+        assert np.allclose(pop.permeated("skin")[i], r.permeated("skin"), rtol=1e-12, atol=1e-15)
+        assert np.allclose(pop.flux("skin")[i], r.flux("skin"), rtol=1e-9, atol=1e-15)
+        assert np.allclose(pop.eliminated("central")[i], r.eliminated("central"), rtol=1e-12)
+    assert np.allclose(pop.factors["compartment 'central' clearance"], factors["compartment 'central' clearance"])
+    rod = simulate_many(subjects, integrator=RosenbrockIntegrator(rtol=1e-8, atol=1e-11))
+    c = pop.concentration("central")
+    assert np.max(np.abs(rod.concentration("central") - c)) < 1e-6 * c.max()
+    assert pop.cmax("central").shape == (6,) and pop.percentiles("central").shape == (3, len(pop.times))
+
+
+def test_population_nonlinear_runs_rodas_and_matches():
+    s = patch_body(saturable=True)
+    pop = simulate_population(s, {"compartment 'central' vmax": 0.3}, 3, seed=2)
+    assert pop.integrator.startswith("rodas4")
+    subjects, _ = sample_scenarios(s, {"compartment 'central' vmax": 0.3}, 3, seed=2)
+    r = bf.simulate(subjects[1], integrator=RosenbrockIntegrator())
+    assert np.array_equal(pop.concentration("central")[1], r.concentration("central"))
+
+
+def test_population_sampling_is_log_normal():
+    # log-normal between-subject variability (Mould & Upton 2013): median = the scenario's value,
+    # CV = cv; checked on 4000 draws (standard errors well inside the bounds below)
+    s = patch_body()
+    _, f = sample_scenarios(s, {"compartment 'central' volume": 0.3}, 4000, seed=1)
+    x = f["compartment 'central' volume"]
+    assert abs(np.median(x) - 1.0) < 0.03
+    assert abs(np.std(x) / np.mean(x) - 0.3) < 0.02
+    assert np.all(x > 0)
+
+
+def test_population_refuses_bad_input():
+    s = patch_body()
+    with pytest.raises(ScenarioError, match="population variation: got \"barrier 'nope' area\""):
+        simulate_population(s, {"barrier 'nope' area": 0.3}, 2)
+    with pytest.raises(ScenarioError, match="coefficient of variation"):
+        simulate_population(s, {"barrier 'skin' area": -1}, 2)
+    with pytest.raises(ScenarioError, match="population size: got 0"):
+        simulate_population(s, {}, 0)
+    other = patch_body(cells=7)
+    with pytest.raises(ScenarioError, match="population subject 2"):
+        simulate_many([s, other])
+    assert "barrier 'skin' layer 2 diffusivity" in parameter_paths(s)
+
+
+# ---------------------------------------------------------------- compiled code in pure Python
+_PURE = textwrap.dedent("""
+    import json, sys
+    import numpy as np
+    sys.path.insert(0, {tests!r})
+    from test_engine_paths import patch_body, closed_cell
+    from barrierflow.engine import solve
+    from barrierflow.engine.exact import ExactIntegrator
+    from barrierflow.engine.rosenbrock import RosenbrockIntegrator
+    from barrierflow.engine.population import simulate_population
+    out = {{}}
+    s = patch_body(cells=2, hold=True)
+    out["rodas"] = solve(s, RosenbrockIntegrator(rtol=1e-4, atol=1e-6)).states.tolist()
+    out["chain"] = solve(s, ExactIntegrator("chain")).states.tolist()
+    out["closed"] = solve(closed_cell(), ExactIntegrator("chain")).states.tolist()
+    pop = simulate_population(s, {{"compartment 'central' clearance": 0.3}}, 2, seed=4)
+    out["pop"] = pop.concentration("central").tolist()
+    json.dump(out, sys.stdout)
+""")
+
+
+def test_compiled_kernels_also_run_as_plain_python():
+    # NUMBA_DISABLE_JIT=1 runs the same kernels as Python; they must give the compiled results
+    here = os.path.dirname(__file__)
+    env = dict(os.environ, NUMBA_DISABLE_JIT="1")
+    proc = subprocess.run([sys.executable, "-c", _PURE.format(tests=here)], capture_output=True, text=True, env=env,
+                          timeout=900)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    pure = json.loads(proc.stdout)
+    s = patch_body(cells=2, hold=True)
+    assert np.allclose(pure["rodas"], solve(s, RosenbrockIntegrator(rtol=1e-4, atol=1e-6)).states, rtol=1e-10,
+                       atol=1e-14)
+    assert np.allclose(pure["chain"], solve(s, ExactIntegrator("chain")).states, rtol=1e-10, atol=1e-14)
+    assert np.allclose(pure["closed"], solve(closed_cell(), ExactIntegrator("chain")).states, rtol=1e-10, atol=1e-14)
+    pop = simulate_population(s, {"compartment 'central' clearance": 0.3}, 2, seed=4)
+    assert np.allclose(pure["pop"], pop.concentration("central"), rtol=1e-10, atol=1e-16)
+
+
+def test_independent_radau_on_the_benchmark_shape():
+    # the patch-to-body network against a discretisation written here (scipy Radau, rtol 1e-10)
+    n = 4
+    s = patch_body(cells=n)
+    area, k = 10.0, np.r_[np.full(n, 10.0), np.ones(2 * n)]
+    w = np.r_[np.full(n, 15e-4 / n), np.full(n, 100e-4 / n), np.full(n, 1000e-4 / n)]
+    d = np.r_[np.full(n, 1e-9 * H), np.full(2 * n, 1e-6 * H)]
+    half = w / (2 * d * k)
+    g_in, g, g_out = area / half[0], area / (half[:-1] + half[1:]), area / half[-1]
+
+    def f(t, y):
+        u = y[1:-2] / k
+        j = np.r_[g_in * (y[0] - u[0]), g * (u[:-1] - u[1:]), g_out * (u[-1] - y[-2])]
+        ex = 5000.0 * (y[-2] - y[-1])
+        return np.r_[-j[0] / 1.0, (j[:-1] - j[1:]) / (area * w), (j[-1] - 10000.0 * y[-2] - ex) / 5000.0, ex / 20000.0]
+
+    t_out = np.arange(0, 24.0, 0.5)
+    y0 = np.zeros(3 * n + 3)
+    y0[0] = 10.0
+    ref = solve_ivp(f, (0, 24.0), y0, method="Radau", t_eval=t_out, rtol=1e-10, atol=1e-16).y
+    for path in ("rodas", "exact-chain", "exact-modes"):
+        r = bf.simulate(s, integrator=PATHS[path])
+        got = r.concentration("central")[: len(t_out)]
+        assert np.max(np.abs(got - ref[-2])) < 1e-5 * ref[-2].max(), path

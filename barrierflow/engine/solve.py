@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import SolverError
+from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
 from .compiled import CompiledModel, compile_scenario
 from .grid import Grid
@@ -122,11 +122,15 @@ def solve(
     grid = grid or Grid()
     model = compile_scenario(scenario, grid)
     integrator = resolve_integrator(integrator, model)
-    events = build_schedule(scenario, model.comp_index)
+    all_events = build_schedule(scenario, model.comp_index)
     duration = scenario.duration
+    # events at the very end act on nothing but the last row, which shows their after-state
+    events = [e for e in all_events if e.time < duration]
+    at_end = [e for e in all_events if e.time >= duration]
     marks = np.array(sorted({e.time for e in events} | {0.0, duration}))
-    times = _snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(duration, 1.0))
+    times = np.unique(_snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(duration, 1.0)))
     n_t, n_c = len(times), model.n_comp
+    _check_memory(scenario, model, n_t)
     stats = RunStats()
 
     if hasattr(integrator, "solve_schedule"):
@@ -137,7 +141,9 @@ def solve(
                 raise SolverError(message, time=float(times[min(len(states), n_t - 1)]),
                                   part=_busiest_part(model, states[-1] if len(states) else model.y0))
             times = times[: len(states)]
-        return Trajectory(model, times, states, ev_dosed, ev_removed, _present(model, model.y0), tuple(events),
+        else:
+            _apply_at_end(model, at_end, states, ev_dosed, ev_removed)
+        return Trajectory(model, times, states, ev_dosed, ev_removed, _present(model, model.y0), tuple(all_events),
                           stats.as_dict(), status, message, integrator.name, _time.perf_counter() - start_clock, grid,
                           _options(integrator))
 
@@ -152,39 +158,13 @@ def solve(
     holds = np.zeros(n_c, dtype=np.int64)
     dosed = np.zeros(n_c)
     removed = np.zeros(n_c)
-    cap = model.capacity
     status, message = 0, "the run finished"
     row = 0
     ei = 0
     for k in range(len(marks) - 1):
         t0, t1 = marks[k], marks[k + 1]
         while ei < len(events) and events[ei].time <= t0:
-            e = events[ei]
-            p = e.comp
-            if e.kind == "bolus":
-                y[p] += e.value / cap[p]
-                dosed[p] += e.value
-            elif e.kind == "replace":
-                removed[p] += cap[p] * y[p]
-                y[p] = e.value
-                dosed[p] += cap[p] * e.value
-            elif e.kind == "remove":
-                removed[p] += cap[p] * y[p]
-                y[p] = 0.0
-            elif e.kind == "hold_start":
-                dosed[p] += cap[p] * (e.value - y[p])
-                y[p] = e.value
-                holds[p] += 1
-                clamp[p] = True
-            elif e.kind == "hold_end":
-                holds[p] -= 1
-                clamp[p] = model.held[p] or holds[p] > 0
-            elif e.kind == "infusion_start":
-                infusion[p] += e.value
-            elif e.kind == "infusion_end":
-                infusion[p] -= e.value
-                if abs(infusion[p]) < 1e-12 * e.value:
-                    infusion[p] = 0.0
+            apply_event(events[ei], model, y, dosed, removed, clamp, holds, infusion)
             ei += 1
         last = k == len(marks) - 2
         sel_end = row
@@ -223,8 +203,90 @@ def solve(
             progress(t1 / duration)
     if status != 0:
         times, states, ev_dosed, ev_removed = times[:row], states[:row], ev_dosed[:row], ev_removed[:row]
-    return Trajectory(model, times, states, ev_dosed, ev_removed, initial, tuple(events), stats.as_dict(),
+    else:
+        _apply_at_end(model, at_end, states, ev_dosed, ev_removed)
+    return Trajectory(model, times, states, ev_dosed, ev_removed, initial, tuple(all_events), stats.as_dict(),
                       status, message, integrator.name, _time.perf_counter() - start_clock, grid, _options(integrator))
+
+
+def apply_event(e: Event, model: CompiledModel, y: np.ndarray, dosed: np.ndarray, removed: np.ndarray,
+                clamp: np.ndarray, holds: np.ndarray, infusion: np.ndarray) -> None:
+    """Apply one instantaneous change to the state ``y`` and the ledger, in place.
+
+    Parameters
+    ----------
+    e : Event
+    model : CompiledModel
+    y : ndarray
+        The full state (concentrations in mg/mL).
+    dosed, removed : ndarray, mg
+        Cumulative amounts added and taken out by events, per compartment.
+    clamp : ndarray of bool
+        Compartments held constant in the coming interval.
+    holds : ndarray of int
+        Number of running hold doses per compartment.
+    infusion : ndarray, mg/h
+        Running infusion rate per compartment.
+    """
+    p = e.comp
+    cap = model.capacity
+    if e.kind == "bolus":
+        y[p] += e.value / cap[p]
+        dosed[p] += e.value
+    elif e.kind == "replace":
+        removed[p] += cap[p] * y[p]
+        y[p] = e.value
+        dosed[p] += cap[p] * e.value
+    elif e.kind == "remove":
+        removed[p] += cap[p] * y[p]
+        y[p] = 0.0
+    elif e.kind == "hold_start":
+        dosed[p] += cap[p] * (e.value - y[p])
+        y[p] = e.value
+        holds[p] += 1
+        clamp[p] = True
+    elif e.kind == "hold_end":
+        holds[p] -= 1
+        clamp[p] = model.held[p] or holds[p] > 0
+    elif e.kind == "infusion_start":
+        infusion[p] += e.value
+    elif e.kind == "infusion_end":
+        infusion[p] -= e.value
+        if abs(infusion[p]) < 1e-12 * e.value:
+            infusion[p] = 0.0
+    else:  # pragma: no cover - the schedule makes only the kinds above
+        raise ValueError(f"unknown event kind {e.kind!r}")
+
+
+def _apply_at_end(model: CompiledModel, events: list[Event], states: np.ndarray, ev_dosed: np.ndarray,
+                  ev_removed: np.ndarray) -> None:
+    """Apply the events that fall exactly at the end of the run to the last row (its after-state)."""
+    if not events or not len(states):
+        return
+    n_c = model.n_comp
+    y = states[-1].copy()
+    dosed, removed = ev_dosed[-1].copy(), ev_removed[-1].copy()
+    clamp, holds, infusion = model.held.copy(), np.zeros(n_c, dtype=np.int64), np.zeros(n_c)
+    for e in events:
+        apply_event(e, model, y, dosed, removed, clamp, holds, infusion)
+    states[-1], ev_dosed[-1], ev_removed[-1] = y, dosed, removed
+
+
+MEMORY_BUDGET_BYTES = 2 * 1024**3
+"""Largest trajectory (output rows x states x 8 bytes) a run may hold in memory."""
+
+
+def _check_memory(scenario: Scenario, model: CompiledModel, n_rows: int) -> None:
+    need = n_rows * model.n_state * 8
+    if need > MEMORY_BUDGET_BYTES:
+        field = "scenario output_times" if scenario.output_times is not None else "scenario output_step"
+        value = (f"{n_rows} output times" if scenario.output_times is not None or scenario.output_step is None
+                 else f"{scenario.output_step:g} h")
+        raise ScenarioError([Problem(
+            field, value,
+            f"{n_rows} rows x {model.n_state} states need {need / 1e9:.3g} GB of memory, more than the "
+            f"{MEMORY_BUDGET_BYTES / 1e9:.3g} GB allowed (a grid too large for memory); choose a coarser "
+            "output step or fewer cells", scenario.source)])
 
 
 def _options(integrator) -> dict:

@@ -133,6 +133,8 @@ class Scenario:
                 out.append(Problem(f"dose {i} target", repr(d.target), "a dosed compartment needs a volume"))
             if finite(self.duration) and d.at > self.duration:
                 out.append(Problem(f"dose {i} at", _h(d.at), f"must be within the run (duration {_h(self.duration)})"))
+        if finite(self.duration):
+            out.extend(self._hold_conflicts())
         if self.output_step is not None and self.output_times is not None:
             out.append(Problem("scenario output_times", "both output_step and output_times",
                                "give one of them"))
@@ -157,6 +159,39 @@ class Scenario:
             out.append(Problem("barrier layer cells", f"{total} cells in all",
                                f"must be at most {MAX_TOTAL_CELLS} (a grid too large for memory)"))
         out.extend(p.within("output") for p in self.output_units.check(self.substance.molar_mass))
+        return out
+
+    def _hold_conflicts(self) -> list[Problem]:
+        """A bolus, replace, remove or another hold while a hold clamps the same compartment.
+
+        The clamp would either undo the change or take the new level as held, so such a
+        regimen is refused rather than given a meaning of our own. An event at the hold's own
+        start time that comes before it in the file is allowed (it is applied first, then the hold
+        sets the level); one at the end time is allowed too (the hold has ended).
+        """
+        out: list[Problem] = []
+        holds = [(i, d) for i, d in enumerate(self.doses, start=1) if d.kind == "hold"]
+        if not holds:
+            return out
+        for j, other in enumerate(self.doses, start=1):
+            if other.kind == "infusion":
+                continue
+            for i, hold in holds:
+                if i == j or hold.target != other.target:
+                    continue
+                spans = [(t, t + hold.duration) for t in hold.start_times(self.duration)]
+                for u in other.start_times(self.duration):
+                    hit = next((sp for sp in spans if sp[0] <= u < sp[1] and not (u == sp[0] and j < i)), None)
+                    if hit is not None:
+                        out.append(Problem(
+                            f"dose {j} at", _h(u),
+                            f"compartment '{other.target}' is held by dose {i} from {_h(hit[0])} to "
+                            f"{_h(hit[1])}; a {other.kind} cannot act on a held compartment "
+                            "(move it outside the hold, or end the hold earlier)"))
+                        break
+                else:
+                    continue
+                break
         return out
 
     # ------------------------------------------------------------------ derived views

@@ -26,21 +26,25 @@ import sys
 import traceback
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 import barrierflow
 from barrierflow import ScenarioError, SolverError, UnitsError
+from barrierflow.caution import CAUTION
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
 PROG = "barrierflow"
+
+INTEGRATOR_NAMES = ("auto", "exact", "rodas", "bdf", "radau", "lsoda")
+"""The names of ``barrierflow.engine.INTEGRATORS`` (listed here so that --help needs no numba;
+a test holds the two equal)."""
 
 EXIT_OK = 0
 EXIT_INTERNAL = 1
 EXIT_REFUSED = 2
 EXIT_SOLVER = 3
 
-CAUTION = ("Results are research estimates, not for clinical dosing or regulatory decisions "
-           "without qualified review.")
 
 
 # ---------------------------------------------------------------------------- option types
@@ -99,7 +103,8 @@ def _add_run(p: argparse.ArgumentParser) -> None:
                    help="traces CSV to write, with its JSON sidecar OUT.json beside it "
                         "(default: the scenario's file name with .csv, in the current folder)")
     p.add_argument("--integrator", metavar="NAME", default=None,
-                   help="time integrator (default: the engine's choice for the problem)")
+                   help=f"time integrator, one of {', '.join(INTEGRATOR_NAMES)} (default: auto, the exact "
+                        "solution for a linear network and the compiled RODAS4 integrator otherwise)")
     p.add_argument("--cells", metavar="N", type=_positive_int, default=None,
                    help="grid cells per layer for layers that do not set 'cells' "
                         "(a whole number; default: the engine's grid, refined toward interfaces)")
@@ -115,12 +120,15 @@ def _add_run(p: argparse.ArgumentParser) -> None:
 
 def _cmd_run(args: argparse.Namespace) -> int:
     """Simulate the scenario, write the traces CSV and sidecar, print the summary table."""
-    from pathlib import Path
 
     from barrierflow.analysis import simulate
     from barrierflow.engine import Grid, integrator_from_name
 
     scenario = barrierflow.load(args.scenario)
+    out = Path(args.output) if args.output else Path(Path(args.scenario).stem + ".csv")
+    _check_output_path(out, "-o/--output", sidecar=True)
+    if args.metrics:
+        _check_output_path(Path(args.metrics), "--metrics")
     threshold = None
     if args.threshold is not None:
         from barrierflow.units import parse_quantity
@@ -139,7 +147,6 @@ def _cmd_run(args: argparse.Namespace) -> int:
             result = simulate(scenario, integrator=integrator, grid=grid, progress=progress)
     else:
         result = simulate(scenario, integrator=integrator, grid=grid)
-    out = Path(args.output) if args.output else Path(Path(args.scenario).stem + ".csv")
     result.to_csv(out)
     print(run_summary(result, threshold))
     print(f"wrote {out} and {out.with_suffix('.json')}")
@@ -150,6 +157,25 @@ def _cmd_run(args: argparse.Namespace) -> int:
         print(f"wrote {args.metrics}")
     print(CAUTION)
     return EXIT_OK
+
+
+def _check_output_path(path, option: str, sidecar: bool = False) -> None:
+    """Refuse an output file that cannot be written, before any computation.
+
+    Raises
+    ------
+    ScenarioError
+        When the folder does not exist or is not writable, or (for the traces) when the name
+        ends in .json, which the sidecar would overwrite.
+    """
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise ScenarioError.single(option, str(path), f"the folder {folder} does not exist")
+    if not os.access(folder, os.W_OK):
+        raise ScenarioError.single(option, str(path), f"the folder {folder} cannot be written")
+    if sidecar and path.suffix.lower() == ".json":
+        raise ScenarioError.single(option, str(path), "the traces need a name that does not end in .json, "
+                                   "which the JSON sidecar beside them takes (such as out.csv)")
 
 
 def run_summary(result, threshold: float | None = None) -> str:
@@ -321,13 +347,18 @@ def _report_refusal(err: ScenarioError | UnitsError) -> None:
 
 
 def _report_solver_failure(err: SolverError) -> None:
+    """Print a numerical failure once: where (time, part) unless the message already says it."""
+    text = str(err)
     where = []
-    if err.time is not None:
+    if err.time is not None and "t = " not in text:
         where.append(f"at t = {err.time:.6g} h")
-    if err.part:
-        where.append(f"near '{err.part}'")
+    if err.part and err.part not in text:
+        where.append(f"near {err.part if chr(39) in err.part else repr(err.part)}")
+    if not where and text.startswith("the solution failed"):
+        print(text, file=sys.stderr)
+        return
     head = "the numerical solution failed" + (f" ({', '.join(where)})" if where else "")
-    print(f"{head}: {err}", file=sys.stderr)
+    print(f"{head}: {text}", file=sys.stderr)
 
 
 def _exit_code(code: object) -> int:

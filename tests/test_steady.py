@@ -480,7 +480,7 @@ area = "1 cm^2"
     out = tmp_path / "profile.csv"
     assert main(["steady", str(scen), "--profile", str(out)]) == 0
     text = capsys.readouterr().out
-    assert "permeability" in text and "0.018 mg/(cm^2*h)" in text and "research estimates" in text
+    assert "permeability" in text and "0.018 mg/(cm^2*h)" in text and "research estimates" in text.lower()
     rows = list(csv.reader(io.StringIO(out.read_text())))
     assert tuple(rows[0]) == PROFILE_COLUMNS
     at15 = [r for r in rows[1:] if float(r[2]) == 15.0]

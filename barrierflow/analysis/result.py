@@ -17,6 +17,7 @@ from typing import Any
 
 import numpy as np
 
+from ..caution import CAUTION
 from ..engine import Trajectory
 from ..io import atomic_write
 from ..model import Scenario
@@ -24,8 +25,6 @@ from ..units import unit_factor
 
 __all__ = ["CAUTION", "BarrierProfile", "MassBalance", "Result"]
 
-CAUTION = ("Research estimates only: not for clinical dosing or regulatory decisions without qualified "
-           "review. Local regulations and licensed practice take precedence.")
 
 
 @dataclass(frozen=True)

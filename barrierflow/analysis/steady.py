@@ -57,6 +57,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from ..caution import CAUTION
 from ..model import Barrier, Layer, Scenario
 
 __all__ = [
@@ -264,7 +265,7 @@ class SteadyReport:
                 "held source at the 'from' compartment's starting (or held) concentration, "
                 "perfect sink on the 'to' side; lag time for an initially empty barrier"
             ),
-            "disclaimer": DISCLAIMER,
+            "caution": CAUTION,
         }
 
     def to_text(self) -> str:
@@ -321,8 +322,6 @@ class SteadyReport:
         return buf.getvalue()
 
 
-DISCLAIMER = ("Research estimates, not for clinical dosing or regulatory decisions without qualified review; "
-              "local regulations and licensed practice take precedence.")
 
 
 # ----------------------------------------------------------------------------- layer algebra

@@ -28,17 +28,37 @@ def atomic_write(path: str | os.PathLike[str], data: str | bytes, *, encoding: s
     """
     target = Path(path)
     raw = data.encode(encoding) if isinstance(data, str) else data
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent or ".")
     try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent or ".")
+    except OSError as err:  # name the file the user asked for, not the temporary one
+        raise type(err)(err.errno, err.strerror or str(err), str(target)) from None
+    try:
+        # mkstemp makes the file private (0600); give it the mode a new file normally gets
+        # (the user's umask), or the mode of the file it replaces
+        try:
+            mode = os.stat(target).st_mode & 0o7777
+        except FileNotFoundError:
+            mode = 0o666 & ~_umask()
+        os.chmod(tmp, mode)
         with os.fdopen(fd, "wb") as fh:
             fh.write(raw)
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, target)
-    except BaseException:
+    except BaseException as err:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
+        if isinstance(err, OSError) and err.filename != str(target):
+            # the same kind of error, naming the file the user asked for
+            raise type(err)(err.errno, err.strerror or str(err), str(target)) from None
         raise
     return target
+
+
+def _umask() -> int:
+    """The process's umask (read by setting it and putting it back)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask

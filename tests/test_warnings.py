@@ -114,3 +114,16 @@ def test_warnings_reach_the_result_and_the_sidecar():
     ws = res.warnings()
     assert any("no longer a sink" in w for w in ws) and any("output step" in w for w in ws)
     assert list(ws) == res.sidecar()["warnings"]
+
+
+def test_output_times_that_miss_part_of_the_run_are_flagged():
+    # common practice: metrics read off sampled rows only see the rows; say so when rows miss the run
+    from barrierflow import Compartment, Scenario
+
+    s = Scenario(name="sparse rows (invented)", duration=4.0, output_times=(1.0, 2.0),
+                 compartments=(Compartment("p", volume=1000.0, initial_concentration=1.0, clearance=1000.0),))
+    found = [w for w in barrierflow.simulate(s).warnings() if "output times cover only" in w]
+    assert found == ["the output times cover only 1 h to 2 h of the run (0 h to 4 h); Cmax, AUC and the "
+                     "other metrics see only those rows"]
+    full = Scenario(name="full rows (invented)", duration=4.0, output_step=1.0, compartments=s.compartments)
+    assert not [w for w in barrierflow.simulate(full).warnings() if "output times cover only" in w]

@@ -168,11 +168,33 @@ class Result:
         return self.trajectory.model.barrier_ids
 
     def concentration(self, cid: str) -> np.ndarray:
-        """Concentration in compartment ``cid``, mg/mL."""
+        """Concentration in compartment ``cid``, clipped at 0.
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mg/mL
+            One value per output time.
+        """
         return np.maximum(self.trajectory.states[:, self._c(cid)], 0.0)
 
     def amount(self, cid: str) -> np.ndarray:
-        """Amount in compartment ``cid``, mg (NaN for a held compartment without volume)."""
+        """Amount in compartment ``cid`` (NaN for a held compartment without volume).
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
         i = self._c(cid)
         m = self.trajectory.model
         if not m.has_volume[i]:
@@ -180,12 +202,34 @@ class Result:
         return self.concentration(cid) * m.capacity[i]
 
     def eliminated(self, cid: str) -> np.ndarray:
-        """Cumulative amount eliminated from ``cid`` (clearance and saturable), mg."""
+        """Cumulative amount eliminated from ``cid`` (clearance and saturable).
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
         m = self.trajectory.model
         return self.trajectory.states[:, m.q_elim + self._c(cid)].copy()
 
     def removed(self, cid: str) -> np.ndarray:
-        """Cumulative amount taken out of ``cid`` by replace and remove doses, mg."""
+        """Cumulative amount taken out of ``cid`` by replace and remove doses.
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
         return self.trajectory.event_removed[:, self._c(cid)].copy()
 
     def dosed(self, cid: str) -> np.ndarray:
@@ -210,36 +254,104 @@ class Result:
         return m.link_a[link] * up - m.link_b[link] * uq
 
     def flux(self, bid: str) -> np.ndarray:
-        """Flux per area from barrier ``bid`` into its ``to`` compartment, mg/(cm^2 h)."""
+        """Flux per area from barrier ``bid`` into its ``to`` compartment.
+
+        Parameters
+        ----------
+        bid : str
+            Barrier id.
+
+        Returns
+        -------
+        ndarray, mg/(cm^2 h)
+            One value per output time.
+        """
         b = self._b(bid)
         m = self.trajectory.model
         return self._link_rate(m.grids[b].out_link, True) / m.area[b]
 
     def uptake_flux(self, bid: str) -> np.ndarray:
-        """Flux per area from the ``from`` compartment into barrier ``bid``, mg/(cm^2 h)."""
+        """Flux per area from the ``from`` compartment into barrier ``bid``.
+
+        Parameters
+        ----------
+        bid : str
+            Barrier id.
+
+        Returns
+        -------
+        ndarray, mg/(cm^2 h)
+            One value per output time.
+        """
         b = self._b(bid)
         m = self.trajectory.model
         return self._link_rate(m.grids[b].in_link, False) / m.area[b]
 
     def permeated(self, bid: str) -> np.ndarray:
-        """Cumulative amount per area that entered the ``to`` compartment through ``bid``, mg/cm^2."""
+        """Cumulative amount per area that entered the ``to`` compartment through ``bid`` (net).
+
+        Parameters
+        ----------
+        bid : str
+            Barrier id.
+
+        Returns
+        -------
+        ndarray, mg/cm^2
+            One value per output time.
+        """
         b = self._b(bid)
         m = self.trajectory.model
         return self.trajectory.states[:, m.q_perm + b] / m.area[b]
 
     def content(self, bid: str) -> np.ndarray:
-        """Amount held inside the layers of ``bid``, mg (0 for a steady barrier)."""
+        """Amount held inside the layers of ``bid`` (0 for a steady barrier).
+
+        Parameters
+        ----------
+        bid : str
+            Barrier id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
         g = self.trajectory.model.grids[self._b(bid)]
         cells = np.maximum(self.trajectory.states[:, g.start:g.stop], 0.0)
         return cells @ self.trajectory.model.capacity[g.start:g.stop]
 
     def degraded(self, bid: str) -> np.ndarray:
-        """Cumulative amount degraded inside ``bid``, mg."""
+        """Cumulative amount degraded inside ``bid``.
+
+        Parameters
+        ----------
+        bid : str
+            Barrier id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
         m = self.trajectory.model
         return self.trajectory.states[:, m.q_degr + self._b(bid)].copy()
 
     def profile(self, bid: str, time: float) -> BarrierProfile:
-        """Concentration profile through ``bid`` at the output time nearest to ``time`` (h)."""
+        """Concentration profile through ``bid`` at the output time nearest to ``time``.
+
+        Parameters
+        ----------
+        bid : str
+            Barrier id.
+        time : float, h
+            The time wanted; the nearest output time is used (``BarrierProfile.time`` says which).
+
+        Returns
+        -------
+        BarrierProfile
+            Cell centres (cm) and concentrations (mg/mL), layer of each cell, interfaces (cm).
+        """
         g = self.trajectory.model.grids[self._b(bid)]
         k = int(np.argmin(np.abs(self.times - time)))
         conc = np.maximum(self.trajectory.states[k, g.start:g.stop], 0.0)
@@ -305,10 +417,8 @@ class Result:
         if self.most_negative < -1e-9 * float(np.max(self.trajectory.model.scale[: self.trajectory.model.n_dyn])):
             out.append(f"the solver produced negative concentrations down to {self.most_negative:.3g} mg/mL; "
                        "they are clipped to 0 in the output (tighten the tolerance if this matters)")
-        try:
-            from .warnings import find_warnings
-        except ImportError:  # the warnings module is optional while it is being built
-            return tuple(out)
+        from .warnings import find_warnings
+
         return tuple(out) + tuple(find_warnings(self))
 
     # ----------------------------------------------------------------- export
@@ -380,10 +490,7 @@ class Result:
             "most_negative_concentration_mg_per_mL": self.most_negative,
             "warnings": list(self.warnings()),
         }
-        try:
-            doc["metrics"] = self.metrics().as_dict()
-        except ImportError:  # the metrics module is optional while it is being built
-            pass
+        doc["metrics"] = self.metrics().as_dict()
         return doc
 
     def to_csv(self, path: str | os.PathLike[str] | None = None) -> Path:

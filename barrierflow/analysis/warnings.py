@@ -115,6 +115,9 @@ def scenario_warnings(scenario: Scenario, *, solubility: bool = True,
                        f"({_h(scenario.duration)}); the run never sees steady state, so flux and permeated "
                        "amounts are still rising at the end")
     grid = np.asarray(scenario.output_grid() if times is None else times, dtype=float)
+    if len(grid) and (grid[0] > 0.0 or grid[-1] < scenario.duration * (1 - 1e-12)):
+        out.append(f"the output times cover only {_h(float(grid[0]))} to {_h(float(grid[-1]))} of the run "
+                   f"(0 h to {_h(scenario.duration)}); Cmax, AUC and the other metrics see only those rows")
     if len(grid) > 1:
         step = float(np.max(np.diff(grid)))
         lag, who = _shortest_lag(scenario)

@@ -13,7 +13,7 @@ import json
 from collections.abc import Mapping
 from typing import Any
 
-from ..errors import Problem, ScenarioError
+from ..errors import Problem, ScenarioError, UnitsError
 from ..units import KINDS, format_quantity
 from ._fields import FieldSpec, build, parse_value, suggest
 from .components import Barrier, Compartment, Dose, Exchange, Layer, OutputUnits, Substance, Transfer
@@ -98,7 +98,7 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
                 continue
             try:
                 head[spec.attr] = parse_value(value, spec, mm)
-            except Exception as err:  # UnitsError
+            except UnitsError as err:
                 problems.append(Problem(f"scenario {err.field}", err.value, err.expected))
         if "duration" not in head and not any(p.field == "scenario duration" for p in problems):
             problems.append(Problem("scenario duration", "nothing", "this key is required, such as duration = \"7 d\""))

@@ -128,8 +128,8 @@ class AutoIntegrator:
         RosenbrockIntegrator`); the exact path needs none.
     """
 
-    rtol: float = 1e-5
-    atol: float = 1e-8
+    rtol: float = 3e-6
+    atol: float = 3e-9
     name: str = field(init=False, default="auto")
 
     def resolve(self, model):

@@ -467,8 +467,8 @@ def print_table(rows: list[Row]) -> None:
     by_variant: dict[str, list[Row]] = {}
     for r in rows:
         by_variant.setdefault(r.variant, []).append(r)
-    head = (f"| variant | path | engine median ms | engine min ms | file-to-traces median ms | steps | central err "
-            f"| absorbed err | accurate | BDF / this | LSODA / this |")
+    head = ("| variant | path | engine median ms | engine min ms | file-to-traces median ms | steps | central err "
+            "| absorbed err | accurate | BDF / this | LSODA / this |")
     print(head)
     print("|" + "---|" * 11)
     for variant, rs in by_variant.items():

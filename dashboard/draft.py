@@ -44,7 +44,7 @@ from typing import Any
 
 from barrierflow.errors import Problem, ScenarioError, UnitsError
 from barrierflow.io import loads
-from barrierflow.model import DOSE_KINDS, Scenario, from_document
+from barrierflow.model import Scenario, from_document
 from barrierflow.units import convert, parse_quantity
 
 __all__ = [
@@ -767,11 +767,6 @@ def set_output(draft: Mapping[str, Any], **values: Any) -> dict[str, Any]:
             else:
                 d["output"].pop(k, None)
     return d
-
-
-def dose_kinds() -> tuple[str, ...]:
-    """The dose kinds, in the order of the scenario format."""
-    return tuple(DOSE_KINDS)
 
 
 # ================================================================ layout of the canvas

@@ -637,16 +637,6 @@ class BarrierMetrics:
     content_fraction: float
 
 
-    @property
-    def total_permeated(self) -> float:
-        """Alias of :attr:`permeated`, mg/cm^2."""
-        return self.permeated
-
-    @property
-    def time_of_peak_flux(self) -> float:
-        """Alias of :attr:`peak_flux_time`, h."""
-        return self.peak_flux_time
-
 
 # unit kinds of every field, for the rows in output units
 _C_UNITS = {

@@ -466,3 +466,21 @@ def test_independent_radau_on_the_benchmark_shape():
         r = bf.simulate(s, integrator=PATHS[path])
         got = r.concentration("central")[: len(t_out)]
         assert np.max(np.abs(got - ref[-2])) < 1e-5 * ref[-2].max(), path
+
+
+def test_csv_text_equals_the_row_by_row_writer():
+    # the one-call formatting of Result.csv_text gives the text of csv.writer with _fmt per value
+    import csv
+    import io
+
+    from barrierflow.analysis.result import _fmt
+
+    for s in (patch_body(), held_donor_degrading()):
+        r = bf.simulate(s)
+        cols = r.columns()
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow([name for name, _ in cols])
+        for row in np.column_stack([v for _, v in cols]):
+            w.writerow([_fmt(x) for x in row])
+        assert r.csv_text() == buf.getvalue()

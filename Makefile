@@ -23,9 +23,9 @@ run: $(STAMP)
 
 # Debian's chromium and chromium-driver for the browser tests (installed when missing).
 browser:
-	@if ! command -v chromium >/dev/null 2>&1 || ! command -v chromedriver >/dev/null 2>&1; then \
+	@if [ ! -x /usr/bin/chromium ] || [ ! -x /usr/bin/chromedriver ]; then \
 		echo "installing Debian chromium and chromium-driver for the browser tests"; \
-		SUDO=$$( [ "$$(id -u)" = 0 ] || echo sudo ); \
+		SUDO=$$( [ "$$(id -u)" = 0 ] || echo "sudo -n" ); \
 		$$SUDO apt-get update -qq && DEBIAN_FRONTEND=noninteractive $$SUDO apt-get install -y -qq chromium chromium-driver; \
 	fi
 

@@ -274,6 +274,10 @@ def _cmd_serve(args: argparse.Namespace) -> int:
     opened = f" with {args.scenario}" if args.scenario else ""
     print(f"barrierflow dashboard{opened}: open http://{args.host}:{args.port}/ in a browser (Ctrl+C stops it)")
     print(CAUTION)
+    import signal
+
+    # a plain 'kill' (SIGTERM) ends the server as Ctrl+C does, so the run archive is cleaned up
+    signal.signal(signal.SIGTERM, lambda signum, frame: sys.exit(EXIT_OK))
     app.run(host=args.host, port=args.port, debug=False)
     return EXIT_OK
 

@@ -48,30 +48,38 @@ def chain_order(model: CompiledModel) -> np.ndarray | None:
     if not m.is_linear or len(m.tr_from):
         return None
     nd = m.n_dyn
+    b, c = m.link_b, m.link_c
+    if np.any(np.abs(b - c) > 1e-12 * np.maximum(np.abs(b), np.abs(c))):
+        return None
     alive = np.ones(nd, dtype=bool)
     alive[: m.n_comp] = ~m.held
-    nbrs: list[set[int]] = [set() for _ in range(nd)]
-    for j in range(len(m.link_p)):
-        p, q = int(m.link_p[j]), int(m.link_q[j])
-        b, c = m.link_b[j], m.link_c[j]
-        if abs(b - c) > 1e-12 * max(abs(b), abs(c)):
-            return None
-        if alive[p] and alive[q] and p != q:
-            nbrs[p].add(q)
-            nbrs[q].add(p)
-    if any(len(s) > 2 for s in nbrs):
+    p, q = m.link_p, m.link_q
+    use = alive[p] & alive[q] & (p != q)
+    pairs = np.unique(np.sort(np.stack([p[use], q[use]], axis=1), axis=1), axis=0) if use.any() \
+        else np.zeros((0, 2), dtype=np.int64)
+    deg = np.bincount(pairs.ravel(), minlength=nd)
+    if deg.max(initial=0) > 2:
         return None
-    seen = np.zeros(nd, dtype=bool)
+    nb = np.full((nd, 2), -1, dtype=np.int64)
+    fill = np.zeros(nd, dtype=np.int64)
+    for a, z in pairs.tolist():
+        nb[a, fill[a]] = z
+        fill[a] += 1
+        nb[z, fill[z]] = a
+        fill[z] += 1
+    nbl = nb.tolist()
+    seen = [False] * nd
     order: list[int] = []
-    for start in range(nd):
-        if not alive[start] or seen[start] or len(nbrs[start]) == 2:
+    for start in np.flatnonzero(alive & (deg < 2)).tolist():
+        if seen[start]:
             continue
         prev, cur = -1, start
         while cur >= 0 and not seen[cur]:
             seen[cur] = True
             order.append(cur)
-            nxt = [k for k in nbrs[cur] if k != prev and not seen[k]]
-            prev, cur = cur, (nxt[0] if nxt else -1)
+            n1, n2 = nbl[cur]
+            nxt = n1 if (n1 >= 0 and n1 != prev and not seen[n1]) else n2 if (n2 >= 0 and not seen[n2]) else -1
+            prev, cur = cur, nxt
     if len(order) != int(alive.sum()):  # a loop
         return None
     return np.array(order, dtype=np.int64)

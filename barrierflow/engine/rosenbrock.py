@@ -19,9 +19,8 @@ responses of each barrier to its two end couplings, the Schur complement on the 
 per solve, no general sparse LU. The tridiagonal block is ``diag(1/V) P diag(1/K)`` with ``P``
 symmetric and diagonally dominant (V the cell capacities, K the partition coefficients), so
 elimination needs no pivoting. It is *twisted*: eliminated from both ends of a barrier toward
-its middle cell (Meurant, SIAM J. Matrix Anal. Appl. 13, 1992, on the "BABE" factorisation),
-so that the two dependent chains of multiply-adds run side by side and a solve takes about
-half the latency of the one-way (Thomas) sweep.
+its middle cell, so that the two dependent chains of multiply-adds run side by side and a
+solve takes about half the latency of the one-way (Thomas) sweep.
 
 Every kernel takes arrays and numbers only and is cached on disk (``cache=True``). Two habits
 keep them fast and their compile short: hot loops index views with the loop variable

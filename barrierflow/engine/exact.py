@@ -13,8 +13,9 @@ symmetric generalised eigenproblem. With ``B = Q diag(lam) Q^T`` each mode evolv
     z(tau) = exp(lam tau) z0 + tau phi1(lam tau) gz,      phi1(x) = (exp(x) - 1) / x
     int_0^tau z = tau phi1(lam tau) z0 + tau^2 phi2(lam tau) gz,   phi2(x) = (exp(x) - 1 - x) / x^2
 
-(Moler and Van Loan, Nineteen dubious ways to compute the exponential of a matrix, SIAM Review
-45, 2003, method 14: eigenvectors of a symmetric matrix). When the states form one chain (a
+(the eigenvector method of Moler and Van Loan, Nineteen dubious ways to compute the exponential
+of a matrix, twenty-five years later, SIAM Review 45, 2003, which is well conditioned for a
+symmetric matrix). When the states form one chain (a
 patch, its barrier cells, the body compartments in a row), B is tridiagonal in chain order and
 the decomposition costs O(n^2) (LAPACK's MRRR); otherwise a dense symmetric decomposition is
 used. Modes so fast that exp(lam tau) < 1e-26 at every requested time contribute only their

@@ -16,8 +16,8 @@ are computed: eigenvalues by bisection on Sturm counts (all of them in lockstep)
 by inverse iteration with partial pivoting and re-orthogonalisation, and each eigenvalue
 polished as the Rayleigh quotient written as a sum of squares,
 ``-(sum_edges G (u_i - u_j)^2 + sum E u_i^2) / |x|^2``, which has no cancellation (Parlett,
-The Symmetric Eigenvalue Problem, 1980, ch. 4-5, for bisection, inverse iteration and the
-Rayleigh quotient). The decayed modes enter through solves with T (O(n)); a closed part of the
+The Symmetric Eigenvalue Problem, 1980, for bisection, inverse iteration and the Rayleigh
+quotient). The decayed modes enter through solves with T (O(n)); a closed part of the
 chain without any loss is singular and is solved on the complement of its equilibrium mode,
 which is known exactly (u constant). Everything runs in compiled code, so a population runs
 in parallel threads.

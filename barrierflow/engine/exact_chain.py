@@ -55,8 +55,9 @@ def chain_order(model: CompiledModel) -> np.ndarray | None:
     alive[: m.n_comp] = ~m.held
     p, q = m.link_p, m.link_q
     use = alive[p] & alive[q] & (p != q)
-    pairs = np.unique(np.sort(np.stack([p[use], q[use]], axis=1), axis=1), axis=0) if use.any() \
-        else np.zeros((0, 2), dtype=np.int64)
+    lo_, hi_ = np.minimum(p[use], q[use]), np.maximum(p[use], q[use])
+    code = np.unique(lo_ * nd + hi_)
+    pairs = np.stack([code // nd, code % nd], axis=1)
     deg = np.bincount(pairs.ravel(), minlength=nd)
     if deg.max(initial=0) > 2:
         return None
@@ -441,11 +442,12 @@ def _phi2(x):
 
 @njit(cache=True, error_model="numpy")
 def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd, clamp,
-              nc, out, work, t_end):
-    """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``.
+              nc, out, work, t_end, last):
+    """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``, and the
+    state at the interval's end ``t_end`` (> 0) into ``last``.
 
     The modes kept are those not decayed at the first positive time of the interval, which is
-    the first positive ``tau`` or the interval's length ``t_end``.
+    the first positive ``tau`` or ``t_end``.
     """
     n_state = y0.shape[0]
     n_t = tau.shape[0]
@@ -454,9 +456,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         for r in range(n_state):
             out[j0, r] = y0[r]
         j0 += 1
-    if j0 == n_t:
-        return
-    t_min = min(tau[j0], t_end)
+    t_min = min(tau[j0], t_end) if j0 < n_t else t_end
     ks = 0
     while ks < k_all and lam[ks] * t_min > -60.0:
         ks += 1
@@ -521,8 +521,9 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
             vy[s, a] = vec[s, a] / tv[a]
     ys = np.empty(n)
     qs = np.empty(nqd)
-    for j in range(j0, n_t):
-        tj = tau[j]
+    for j in range(j0, n_t + 1):  # the output times, then the end of the interval
+        tj = tau[j] if j < n_t else t_end
+        dst = out[j] if j < n_t else last
         for a in range(n):
             ys[a] = yfast[a]
         for r in range(nqd):
@@ -544,12 +545,12 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
                 ys[a] += vy[s, a] * zs
             for r in range(nqd):
                 qs[r] += wt[s, r] * zi
-        for r in range(n_state):
-            out[j, r] = y0[r]
+        for r in range(nd):
+            dst[r] = y0[r]
         for a in range(n):
-            out[j, idx[a]] = ys[a]
+            dst[idx[a]] = ys[a]
         for r in range(nqd):
-            out[j, nd + r] = y0[nd + r] + qs[r] + g[nd + r] * tj
+            dst[nd + r] = y0[nd + r] + qs[r] + g[nd + r] * tj
 
 
 # ---------------------------------------------------------------- the whole regimen
@@ -593,7 +594,7 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
     removed = np.zeros(nc)
     yz = np.zeros(n_state)
     g = np.zeros(n_state)
-    last = np.zeros((1, n_state))
+    last = np.zeros(n_state)
     n_marks = marks.shape[0]
     n_t = times.shape[0]
     # counters start as int64 values, not literal zeros (a literal would compile the callees twice)
@@ -649,15 +650,13 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
             tau[r] = times[row + r] - t0
         tau[m_out] = t1 - t0
         _interval(y, g, tau[:m_out], n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd,
-                  clamp, nc, states[row:sel_end], work, tau[m_out])
-        _interval(y, g, tau[m_out:], n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd,
-                  clamp, nc, last, work, tau[m_out])
+                  clamp, nc, states[row:sel_end], work, tau[m_out], last)
         for r in range(m_out):
             for p in range(nc):
                 ev_dosed[row + r, p] = dosed[p]
                 ev_removed[row + r, p] = removed[p]
         for c in range(n_state):
-            y[c] = last[0, c]
+            y[c] = last[c]
         row = sel_end
         stats[0] += 1
         stats[5] += 1

@@ -356,7 +356,8 @@ def test_population_subjects_equal_single_runs():
     assert pop.integrator.startswith("exact")
     for i in (0, 3, 5):
         r = bf.simulate(subjects[i])
-        assert np.array_equal(pop.concentration("central")[i], r.concentration("central"))
+        # the same kernel compiled inside the parallel loop: equal up to rounding
+        assert np.allclose(pop.concentration("central")[i], r.concentration("central"), rtol=1e-12, atol=1e-18)
         assert np.allclose(pop.permeated("skin")[i], r.permeated("skin"), rtol=1e-12, atol=1e-15)
         assert np.allclose(pop.flux("skin")[i], r.flux("skin"), rtol=1e-9, atol=1e-15)
         assert np.allclose(pop.eliminated("central")[i], r.eliminated("central"), rtol=1e-12)
@@ -373,7 +374,7 @@ def test_population_nonlinear_runs_rodas_and_matches():
     assert pop.integrator.startswith("rodas4")
     subjects, _ = sample_scenarios(s, {"compartment 'central' vmax": 0.3}, 3, seed=2)
     r = bf.simulate(subjects[1], integrator=RosenbrockIntegrator())
-    assert np.array_equal(pop.concentration("central")[1], r.concentration("central"))
+    assert np.allclose(pop.concentration("central")[1], r.concentration("central"), rtol=1e-12, atol=1e-18)
 
 
 def test_population_sampling_is_log_normal():

@@ -51,37 +51,32 @@ def chain_order(model: CompiledModel) -> np.ndarray | None:
     b, c = m.link_b, m.link_c
     if np.any(np.abs(b - c) > 1e-12 * np.maximum(np.abs(b), np.abs(c))):
         return None
-    alive = np.ones(nd, dtype=bool)
-    alive[: m.n_comp] = ~m.held
-    p, q = m.link_p, m.link_q
-    use = alive[p] & alive[q] & (p != q)
-    lo_, hi_ = np.minimum(p[use], q[use]), np.maximum(p[use], q[use])
-    code = np.unique(lo_ * nd + hi_)
-    pairs = np.stack([code // nd, code % nd], axis=1)
-    deg = np.bincount(pairs.ravel(), minlength=nd)
-    if deg.max(initial=0) > 2:
-        return None
-    nb = np.full((nd, 2), -1, dtype=np.int64)
-    fill = np.zeros(nd, dtype=np.int64)
-    for a, z in pairs.tolist():
-        nb[a, fill[a]] = z
-        fill[a] += 1
-        nb[z, fill[z]] = a
-        fill[z] += 1
-    nbl = nb.tolist()
+    alive = [True] * nd
+    for i, h in enumerate(m.held.tolist()):
+        alive[i] = not h
+    nbrs: list[list[int]] = [[] for _ in range(nd)]
+    for a, z in zip(m.link_p.tolist(), m.link_q.tolist(), strict=True):
+        if a != z and alive[a] and alive[z] and z not in nbrs[a]:
+            if len(nbrs[a]) == 2 or len(nbrs[z]) == 2:
+                return None  # a third neighbour: not a chain
+            nbrs[a].append(z)
+            nbrs[z].append(a)
     seen = [False] * nd
     order: list[int] = []
-    for start in np.flatnonzero(alive & (deg < 2)).tolist():
-        if seen[start]:
+    for start in range(nd):
+        if not alive[start] or seen[start] or len(nbrs[start]) == 2:
             continue
         prev, cur = -1, start
         while cur >= 0 and not seen[cur]:
             seen[cur] = True
             order.append(cur)
-            n1, n2 = nbl[cur]
-            nxt = n1 if (n1 >= 0 and n1 != prev and not seen[n1]) else n2 if (n2 >= 0 and not seen[n2]) else -1
+            nxt = -1
+            for k in nbrs[cur]:
+                if k != prev and not seen[k]:
+                    nxt = k
+                    break
             prev, cur = cur, nxt
-    if len(order) != int(alive.sum()):  # a loop
+    if len(order) != sum(alive):  # a loop
         return None
     return np.array(order, dtype=np.int64)
 

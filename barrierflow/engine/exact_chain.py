@@ -220,13 +220,11 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
         for i in range(1, n):
             e2 = ee[i - 1] * ee[i - 1]
             di = dd[i]
-            for s in range(k):
+            for s in range(k):  # branch-free, so that the shifts run in vector lanes
                 v = di - mid[s] - e2 / q[s]
-                if abs(v) < pivmin:
-                    v = -pivmin
+                v = v if abs(v) >= pivmin else -pivmin
                 q[s] = v
-                if v < 0.0:
-                    cnt[s] += 1
+                cnt[s] += v < 0.0
         for s in range(k):
             if cnt[s] > n - 1 - s:
                 hi[s] = mid[s]
@@ -534,15 +532,21 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         for s in range(ks):
             rec[s] = math.exp(lam[s] * tau[j0])
             fac[s] = math.exp(lam[s] * step)
+    zs = np.empty(ks + 3)  # mode amplitudes at one time (padded for the blocks of four below)
+    zi = np.empty(ks + 3)
+    for s in range(ks, ks + 3):
+        zs[s] = 0.0
+        zi[s] = 0.0
+    ks4 = (ks + 3) // 4 * 4
+    vyp = np.zeros((ks4, n))  # the mode patterns, padded to a multiple of four modes
+    for s in range(ks):
+        for a in range(n):
+            vyp[s, a] = vy[s, a]
     for j in range(j0, n_t + 1):  # the output times, then the end of the interval
         tj = tau[j] if j < n_t else t_end
         dst = out[j] if j < n_t else last
         use_rec = even and j < n_t
         dev = tj - (tau[j0] + (j - j0) * step) if use_rec else 0.0
-        for a in range(n):
-            ys[a] = yfast[a]
-        for r in range(nqd):
-            qs[r] = qconst[r] + qslope[r] * tj
         for s in range(ks):
             el = lam[s]
             x = el * tj
@@ -558,21 +562,36 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
                 p1 = (ex - 1.0) / el
             else:
                 p1 = tj * _phi1(x)
-            zs = ex * z0[s]
-            zi = p1 * z0[s]
+            zs[s] = ex * z0[s]
+            zi[s] = p1 * z0[s]
             if has_g:
-                zs += p1 * gz[s]
-                zi += tj * tj * _phi2(x) * gz[s]
+                zs[s] += p1 * gz[s]
+                zi[s] += tj * tj * _phi2(x) * gz[s]
+        for a in range(n):
+            ys[a] = yfast[a]
+        for s in range(0, ks4, 4):  # four modes per pass over the states
+            z_0 = zs[s]
+            z_1 = zs[s + 1]
+            z_2 = zs[s + 2]
+            z_3 = zs[s + 3]
+            v0 = vyp[s]
+            v1 = vyp[s + 1]
+            v2 = vyp[s + 2]
+            v3 = vyp[s + 3]
             for a in range(n):
-                ys[a] += vy[s, a] * zs
-            for r in range(nqd):
-                qs[r] += wt[s, r] * zi
+                ys[a] += v0[a] * z_0 + v1[a] * z_1 + v2[a] * z_2 + v3[a] * z_3
+        for r in range(nqd):
+            acc = qconst[r] + qslope[r] * tj
+            for s in range(ks):
+                acc += wt[s, r] * zi[s]
+            qs[r] = acc
         for r in range(nd):
             dst[r] = y0[r]
         for a in range(n):
             dst[idx[a]] = ys[a]
+        dq = dst[nd:]
         for r in range(nqd):
-            dst[nd + r] = y0[nd + r] + qs[r] + g[nd + r] * tj
+            dq[r] = y0[nd + r] + qs[r] + g[nd + r] * tj
 
 
 # ---------------------------------------------------------------- the whole regimen

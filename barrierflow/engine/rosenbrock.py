@@ -303,9 +303,48 @@ def chain_args(model: CompiledModel) -> tuple[np.ndarray, np.ndarray, np.ndarray
 
 @njit(cache=True, error_model="numpy")
 def _jac(y, rows, cols, vals, margs, clamp, q_supply):
+    """The Jacobian without the saturable elimination (the linear part; see :func:`_add_saturable`)."""
+    no_i = margs[14][:0]
+    no_f = margs[15][:0]
     return jacobian_coo(y, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
                         margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
-                        margs[14], margs[15], margs[16], margs[17], margs[18], margs[19], clamp, q_supply)
+                        no_i, no_f, no_f, margs[17], margs[18], margs[19], clamp, q_supply)
+
+
+@njit(cache=True, error_model="numpy")
+def _add_saturable(y, margs, clamp, q_supply, jcc, jcc_lin, qr, qc, qv, nq_lin):
+    """Jacobian of the saturable elimination at ``y`` added to the linear part; returns the entry count.
+
+    Only these entries change from step to step: d/dc [Vmax c / (Km + |c|)] = Vmax Km / (Km + |c|)^2
+    on the compartment's diagonal (per volume), or on its supply when it is clamped, and on its
+    eliminated amount (as in :func:`~barrierflow.engine.kernels.jacobian_coo`).
+    """
+    nc = margs[0]
+    nd = margs[1]
+    cap = margs[2]
+    mm_s = margs[14]
+    mm_v = margs[15]
+    mm_k = margs[16]
+    for i in range(nc):
+        for j in range(nc):
+            jcc[i, j] = jcc_lin[i, j]
+    nq = nq_lin
+    for m in range(mm_s.shape[0]):
+        p = mm_s[m]
+        den = mm_k[m] + abs(y[p])
+        d = mm_v[m] * mm_k[m] / (den * den)
+        if clamp[p]:
+            qr[nq] = q_supply + p
+            qc[nq] = p
+            qv[nq] = d
+            nq += 1
+        else:
+            jcc[p, p] -= d / cap[p]
+        qr[nq] = nd + p
+        qc[nq] = p
+        qv[nq] = d
+        nq += 1
+    return nq
 
 
 # ---------------------------------------------------------------- compiled linear algebra
@@ -666,6 +705,8 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     if t_end <= 0.0:
         return OK
     nq = np.int64(0)  # not a literal zero: a literal would compile _solve twice
+    nq_lin = np.int64(0)
+    jcc_lin = np.zeros((nc, nc))
     have_jac = False
     # starting step (Hairer, Norsett and Wanner, Solving ODEs I, 2nd ed., 1993, sec. II.4)
     rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
@@ -711,11 +752,20 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
         if not first:
             rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
             stats[ST_RHS] += 1
-        if not have_jac or not linear:
+        if not have_jac:
+            # the linear part once per interval; the saturable entries (compartment diagonals)
+            # are refreshed at every step below
             k = _jac(y, rows, cols, vals, margs, clamp, q_supply)
             nq = _scatter(rows, cols, vals, k, nc, nd, sargs[2], sargs[4], tri, jcc, jxc, jcx, qr, qc, qv)
+            nq_lin = nq
+            for i in range(nc):
+                for j in range(nc):
+                    jcc_lin[i, j] = jcc[i, j]
             stats[ST_JAC] += 1
             have_jac = True
+        if not linear:
+            nq = _add_saturable(y, margs, clamp, q_supply, jcc, jcc_lin, qr, qc, qv, nq_lin)
+            stats[ST_JAC] += 1
         first = False
         while True:  # attempts of one step
             fac = 1.0 / (h * GAMMA)

@@ -40,7 +40,7 @@ from numba import njit
 
 from ..errors import ScenarioError
 from .compiled import CompiledModel
-from .exact_chain import chain_order, chain_schedule
+from .exact_chain import _phi1, _phi2, chain_order, chain_schedule
 from .kernels import jacobian_coo, jacobian_size, rates
 from .rosenbrock import apply_events, encode_events, rows_until
 
@@ -432,21 +432,6 @@ class ExactIntegrator:
             if progress is not None:
                 progress(float(t1) / duration if duration > 0 else 1.0)
         return states, ev_dosed, ev_removed, 0, "the run finished"
-
-
-@njit(cache=True, error_model="numpy")
-def _phi1(x):
-    if abs(x) < 1e-5:
-        return 1.0 + x / 2.0 + x * x / 6.0
-    return math.expm1(x) / x
-
-
-@njit(cache=True, error_model="numpy")
-def _phi2(x):
-    if abs(x) < 0.1:
-        return 0.5 + x * (1 / 6 + x * (1 / 24 + x * (1 / 120 + x * (1 / 720 + x * (1 / 5040 + x * (
-            1 / 40320 + x / 362880))))))
-    return (math.expm1(x) - x) / (x * x)
 
 
 @njit(cache=True, error_model="numpy")

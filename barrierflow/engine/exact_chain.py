@@ -420,6 +420,7 @@ def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
 # ---------------------------------------------------------------- outputs of one interval
 @njit(cache=True, error_model="numpy")
 def _phi1(x):
+    """(e^x - 1) / x without cancellation near 0 (shared with :mod:`.exact`)."""
     if abs(x) < 1e-5:
         return 1.0 + x / 2.0 + x * x / 6.0
     return math.expm1(x) / x
@@ -427,6 +428,7 @@ def _phi1(x):
 
 @njit(cache=True, error_model="numpy")
 def _phi2(x):
+    """(e^x - 1 - x) / x^2 without cancellation near 0 (shared with :mod:`.exact`)."""
     if abs(x) < 0.1:
         return 0.5 + x * (1 / 6 + x * (1 / 24 + x * (1 / 120 + x * (1 / 720 + x * (1 / 5040 + x * (
             1 / 40320 + x / 362880))))))

@@ -157,35 +157,24 @@ def wide_range(runs: Sequence[RunData], compartments: Sequence[str] | None = Non
 def flux_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
                 time_unit: str = "h") -> dict[str, Any]:
     """Flux into each barrier's ``to`` compartment against time, mass per cm^2 per hour."""
-    if not runs:
-        return empty_figure("Run the scenario to see the flux through each barrier.")
-    ft = unit_factor("time", time_unit)
-    fa = unit_factor("amount", amount_unit)
-    order = list(barriers) if barriers is not None else list(runs[0].barriers)
-    many = len(runs) > 1
-    data = []
-    for r_i, run in enumerate(runs):
-        for b_i, bid in enumerate(order):
-            b = run.barriers.get(bid)
-            if b is None:
-                continue
-            data.append({
-                "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(), "y": (b.flux * fa).tolist(),
-                "name": _label(f"{bid} → {b.to_id}", run, many), "legendgroup": bid,
-                "line": {"color": color(b_i), "dash": dash(r_i), "width": 2.2},
-                "hovertemplate": f"{bid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} "
-                                 f"{amount_unit}/(cm² h)<extra></extra>"})
-    if not data:
-        return empty_figure("This scenario has no barrier.")
-    return {"data": data, "layout": _layout("Flux into the receiving compartment", f"time [{time_unit}]",
-                                            f"flux [{amount_unit}/(cm² h)]")}
+    return _barrier_figure(runs, barriers, amount_unit, time_unit, "flux", f"{amount_unit}/(cm² h)",
+                           "Run the scenario to see the flux through each barrier.",
+                           "Flux into the receiving compartment", "flux")
 
 
 def permeated_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
                      time_unit: str = "h") -> dict[str, Any]:
     """Cumulative amount per area that has crossed each barrier (net), against time."""
+    return _barrier_figure(runs, barriers, amount_unit, time_unit, "permeated", f"{amount_unit}/cm²",
+                           "Run the scenario to see the cumulative amount permeated.",
+                           "Cumulative amount permeated (net)", "permeated")
+
+
+def _barrier_figure(runs: Sequence[RunData], barriers: Sequence[str] | None, amount_unit: str, time_unit: str,
+                    attr: str, unit: str, empty_text: str, title: str, y_name: str) -> dict[str, Any]:
+    """One line per barrier and run of the per-area trace ``attr`` (``flux`` or ``permeated``)."""
     if not runs:
-        return empty_figure("Run the scenario to see the cumulative amount permeated.")
+        return empty_figure(empty_text)
     ft = unit_factor("time", time_unit)
     fa = unit_factor("amount", amount_unit)
     order = list(barriers) if barriers is not None else list(runs[0].barriers)
@@ -198,14 +187,13 @@ def permeated_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None 
                 continue
             data.append({
                 "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(),
-                "y": (b.permeated * fa).tolist(), "name": _label(f"{bid} → {b.to_id}", run, many),
+                "y": (getattr(b, attr) * fa).tolist(), "name": _label(f"{bid} → {b.to_id}", run, many),
                 "legendgroup": bid, "line": {"color": color(b_i), "dash": dash(r_i), "width": 2.2},
                 "hovertemplate": f"{bid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} "
-                                 f"{amount_unit}/cm²<extra></extra>"})
+                                 f"{unit}<extra></extra>"})
     if not data:
         return empty_figure("This scenario has no barrier.")
-    return {"data": data, "layout": _layout("Cumulative amount permeated (net)", f"time [{time_unit}]",
-                                            f"permeated [{amount_unit}/cm²]")}
+    return {"data": data, "layout": _layout(title, f"time [{time_unit}]", f"{y_name} [{unit}]")}
 
 
 def _layer_shapes(interfaces: Sequence[float], names: Sequence[str]) -> tuple[list[dict], list[dict]]:

@@ -24,11 +24,12 @@ import textwrap
 import numpy as np
 import pytest
 import test_engine_reference as ref_cases
+from numba import njit
 from scipy.integrate import solve_ivp
 
 import barrierflow as bf
 from barrierflow import Barrier, Compartment, Dose, Exchange, Layer, Scenario, ScenarioError, SolverError, Transfer
-from barrierflow.engine import ScipyIntegrator, compile_scenario, solve
+from barrierflow.engine import ScipyIntegrator, compile_scenario, exact_chain, solve
 from barrierflow.engine.exact import ExactIntegrator, exact_supported
 from barrierflow.engine.exact_chain import chain_order
 from barrierflow.engine.kernels import jacobian_coo, jacobian_size, rates
@@ -249,6 +250,43 @@ def test_integrator_options_are_checked():
 
 
 # ---------------------------------------------------------------- kernels against numpy
+# The engine's inner kernels carry no Python wrapper (compiled callers only); these entries call
+# them from compiled code, as the engine does.
+@njit
+def _call_rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused):
+    rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+
+
+@njit
+def _call_workspace(nc, nx, n, n_w, n_jac, n_be):
+    return _workspace(nc, nx, n, n_w, n_jac, n_be)
+
+
+@njit
+def _call_scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, qr, qc, qv):
+    return _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, qr, qc, qv)
+
+
+@njit
+def _call_factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
+    return _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm)
+
+
+@njit
+def _call_build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
+    return exact_chain._build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
+
+
+@njit
+def _call_slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
+    return exact_chain._slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec)
+
+
+@njit
+def _call_solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq):
+    _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq)
+
+
 def test_rates_chain_equals_rates():
     # the fused kernel against the engine's reference kernel, every process switched on
     s = patch_body(saturable=True)
@@ -268,7 +306,7 @@ def test_rates_chain_equals_rates():
         clamp = m.held | (rng.random(m.n_comp) > 0.7)
         a, b = np.empty(m.n_state), np.empty(m.n_state)
         rates(y, a, *model_args(m), infusion, clamp, m.q_supply, m.q_infused)
-        rates_chain(y, b, model_args(m), gch, ol, lossy, icap, np.zeros(2 * m.n_dyn + 1), infusion, clamp,
+        _call_rates_chain(y, b, model_args(m), gch, ol, lossy, icap, np.zeros(2 * m.n_dyn + 1), infusion, clamp,
                     m.q_supply, m.q_infused)
         assert np.allclose(a, b, rtol=1e-13, atol=1e-13 * np.abs(a).max())
 
@@ -283,17 +321,18 @@ def test_block_solver_equals_dense_solve(net):
     nj = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
     rng = np.random.default_rng(5)
     for clamp in (m.held.copy(), m.held | np.eye(m.n_comp, dtype=bool)[0]):
-        ws = _workspace(m.n_comp, m.n_cells, n, st.n_w, nj, len(st.be_cell))
+        ws = _call_workspace(m.n_comp, m.n_cells, n, st.n_w, nj, len(st.be_cell))
         rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm = ws[:13]
         y = rng.random(n)
         k = jacobian_coo(y, rows, cols, vals, *margs, clamp, m.q_supply)
-        nq = _scatter(rows, cols, vals, k, m.n_comp, m.n_dyn, st.cell_be, st.be_comp, tri, jcc, jxc, jcx, qr, qc, qv)
+        nq = _call_scatter(rows, cols, vals, k, m.n_comp, m.n_dyn, st.cell_be, st.be_comp, tri, jcc, jxc, jcx, qr, qc,
+                           qv)
         dense = IntervalProblem(m, IntervalSettings(np.zeros(m.n_comp), clamp)).jac_dense(0.0, y)
         for fac in (1e-3, 1.0, 1e4):
-            assert _factor(fac, m.n_comp, tri, jcc, jxc, jcx, st.args(), w, smat, perm)
+            assert _call_factor(fac, m.n_comp, tri, jcc, jxc, jcx, st.args(), w, smat, perm)
             r = rng.standard_normal(n)
             x = r.copy()
-            _solve(x, fac, m.n_comp, tri, jxc, jcx, st.args(), w, smat, perm, qr, qc, qv, nq)
+            _call_solve(x, fac, m.n_comp, tri, jxc, jcx, st.args(), w, smat, perm, qr, qc, qv, nq)
             want = np.linalg.solve(fac * np.eye(n) - dense, r)
             assert np.allclose(x, want, rtol=1e-9, atol=1e-12 * np.abs(want).max())
 
@@ -301,7 +340,6 @@ def test_block_solver_equals_dense_solve(net):
 def test_chain_modes_against_dense_eigh():
     # slow eigenpairs of the chain matrix against numpy.linalg.eigh (LAPACK syevd) of B built
     # from the Jacobian (an independent construction)
-    from barrierflow.engine import exact_chain as ec
     from barrierflow.engine.exact import _jacobian, _margs
 
     m = compile_scenario(patch_body(cells=10))
@@ -310,9 +348,9 @@ def test_chain_modes_against_dense_eigh():
     arrs = dict(idx=np.zeros(L, dtype=np.int64), cmap=np.zeros(nd, dtype=np.int64), msq=np.zeros(L),
                 tv=np.zeros(L), dd=np.zeros(L), ee=np.zeros(L), gedge=np.zeros(L), ediag=np.zeros(L),
                 comp_of=np.zeros(L, dtype=np.int64))
-    n = ec._build(order, m.held.copy(), _margs(m), *arrs.values())
+    n = _call_build(order, m.held.copy(), _margs(m), *arrs.values())
     lam, vec = np.zeros(L), np.zeros((L, L))
-    k = ec._slow_modes(arrs["dd"], arrs["ee"], n, -500.0, arrs["gedge"], arrs["ediag"], arrs["msq"], arrs["comp_of"],
+    k = _call_slow_modes(arrs["dd"], arrs["ee"], n, -500.0, arrs["gedge"], arrs["ediag"], arrs["msq"], arrs["comp_of"],
                        lam, vec)
     a = _jacobian(m, m.held.copy())[:nd, :nd]
     t = np.sqrt(m.capacity[:nd] * m.inv_partition[:nd])

@@ -225,7 +225,7 @@ def _symmetric_modes(model: CompiledModel, a: np.ndarray, clamp: np.ndarray, cut
     return _Modes(free, np.flatnonzero(clamp), t, lam, qt, qyt, wt, aqt, tri, complete)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _tri_factor(d, e):
     """LU factors (multipliers, reciprocal pivots) of the symmetric tridiagonal (d, e); ok flag."""
     n = d.shape[0]
@@ -245,7 +245,7 @@ def _tri_factor(d, e):
     return lo, ipiv, True
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _tri_solve(lo, ipiv, e, r):
     """Solve (d, e) x = r with the factors of :func:`_tri_factor` (returns x)."""
     n = r.shape[0]
@@ -434,7 +434,7 @@ class ExactIntegrator:
         return states, ev_dosed, ev_removed, 0, "the run finished"
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def modal_outputs(lam, qt, qyt, wt, tvec, free, fixed, y0, g, tau, nd, yfast, qconst, qslope, out):
     """States at local times ``tau`` (h, non-decreasing) from ``y0`` into ``out``, mode by mode.
 
@@ -502,7 +502,7 @@ def modal_outputs(lam, qt, qyt, wt, tvec, free, fixed, y0, g, tau, nd, yfast, qc
             out[j, nd + r] = y0[nd + r] + qs[r] + g[nd + r] * tj
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _matmul(a, b):
     out = np.zeros((a.shape[0], b.shape[1]))
     for i in range(a.shape[0]):

@@ -31,7 +31,7 @@ import numpy as np
 from numba import njit
 
 from .compiled import CompiledModel
-from .kernels import jacobian_coo, rates
+from .kernels import INNER, jacobian_kernel, rates_kernel
 from .rosenbrock import OK, apply_events, rows_until
 
 __all__ = ["chain_order", "chain_schedule"]
@@ -82,7 +82,7 @@ def chain_order(model: CompiledModel) -> np.ndarray | None:
 
 
 # ---------------------------------------------------------------- the chain matrix
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
     """Compact chain of the free states: returns n (their number) and fills the arrays.
 
@@ -147,7 +147,7 @@ def _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_o
     return n
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _sturm(dd, ee, n, x, pivmin):
     """Number of eigenvalues of the tridiagonal (dd, ee) below ``x``."""
     cnt = 0
@@ -165,7 +165,7 @@ def _sturm(dd, ee, n, x, pivmin):
     return cnt
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
     """Eigenpairs of T with eigenvalue above ``cut`` (<= 0), slowest first; returns their number.
 
@@ -355,7 +355,7 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
     return k
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _solve_t(dd, ee, n, ediag, msq, comp_of, r, x):
     """x = T^+ r: the solution orthogonal to the equilibrium modes of closed parts."""
     for i in range(n):
@@ -402,7 +402,7 @@ def _solve_t(dd, ee, n, ediag, msq, comp_of, r, x):
         start = stop + 1
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
     """out = P v, P = T^+ minus the modes 0 .. ks-1 (the decayed modes' q q^T / lam)."""
     _solve_t(dd, ee, n, ediag, msq, comp_of, v, out)
@@ -418,7 +418,7 @@ def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
 
 
 # ---------------------------------------------------------------- outputs of one interval
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _phi1(x):
     """(e^x - 1) / x without cancellation near 0 (shared with :mod:`.exact`)."""
     if abs(x) < 1e-5:
@@ -426,7 +426,7 @@ def _phi1(x):
     return math.expm1(x) / x
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _phi2(x):
     """(e^x - 1 - x) / x^2 without cancellation near 0 (shared with :mod:`.exact`)."""
     if abs(x) < 0.1:
@@ -435,7 +435,7 @@ def _phi2(x):
     return (math.expm1(x) - x) / (x * x)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd, clamp,
               nc, out, work, t_end, last):
     """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``, and the
@@ -597,7 +597,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
 
 
 # ---------------------------------------------------------------- the whole regimen
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, q_supply, q_infused, order, cut,
                    n_jac, y, states, ev_dosed, ev_removed, stats):
     """Run the regimen exactly on a chain network; returns a status code (0 when done).
@@ -659,7 +659,7 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
         if changed:
             n = _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
             k_all = _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec)
-            kj = jacobian_coo(yz, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
+            kj = jacobian_kernel(yz, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
                               margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
                               margs[14], margs[15], margs[16], margs[17], margs[18], margs[19], clamp, q_supply)
             nq = 0
@@ -680,7 +680,7 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
         for p in range(nc):
             if clamp[p]:
                 yz[p] = y[p]
-        rates(yz, g, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5], margs[6], margs[7], margs[8],
+        rates_kernel(yz, g, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5], margs[6], margs[7], margs[8],
               margs[9], margs[10], margs[11], margs[12], margs[13], margs[14], margs[15], margs[16], margs[17],
               margs[18], margs[19], infusion, clamp, q_supply, q_infused)
         for r in range(n_state):

@@ -9,11 +9,16 @@ from __future__ import annotations
 
 from numba import njit
 
-__all__ = ["jacobian_coo", "jacobian_size", "rates"]
+__all__ = ["INNER", "jacobian_coo", "jacobian_kernel", "jacobian_size", "rates", "rates_kernel"]
+
+#: Options of the kernels that only compiled code calls: no Python or C-callable wrappers. Each
+#: compiled caller links in (and LLVM optimises and emits again) the whole code library of every
+#: callee, wrappers included; leaving the unused wrappers out shortens the first-ever compile.
+INNER = dict(cache=True, error_model="numpy", no_cpython_wrapper=True, no_cfunc_wrapper=True)
 
 
-@njit(cache=True)
-def rates(y, out, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack,
+@njit(**INNER)
+def rates_kernel(y, out, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack,
           loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, infusion, clamp, q_supply, q_infused):
     """Time derivative of the full state ``y`` into ``out`` (concentrations per h, mg per h).
 
@@ -65,14 +70,14 @@ def rates(y, out, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrac
 
 
 def jacobian_size(n_link: int, n_dyn: int, n_mm: int, n_tr: int) -> int:
-    """Upper bound on the number of COO entries that :func:`jacobian_coo` writes."""
+    """Upper bound on the number of COO entries that :func:`jacobian_kernel` writes."""
     return 8 * n_link + 2 * n_dyn + 2 * n_mm + 2 * n_tr
 
 
-@njit(cache=True)
-def jacobian_coo(y, rows, cols, vals, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack,
+@njit(**INNER)
+def jacobian_kernel(y, rows, cols, vals, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack,
                  loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, clamp, q_supply):
-    """Jacobian of :func:`rates` as COO triplets (duplicates are to be summed); returns the count."""
+    """Jacobian of :func:`rates_kernel` as COO triplets (duplicates are to be summed); returns the count."""
     k = 0
     for j in range(lp.shape[0]):
         p = lp[j]
@@ -154,3 +159,19 @@ def jacobian_coo(y, rows, cols, vals, n_comp, n_dyn, cap, invk, lp, lq, la, lb, 
         elif r < n_dyn:
             vals[i] /= cap[r]
     return k
+
+
+@njit(cache=True, no_cfunc_wrapper=True)
+def rates(y, out, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack,
+          loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, infusion, clamp, q_supply, q_infused):
+    """:func:`rates_kernel`, callable from Python (the scipy path); same arguments and units."""
+    rates_kernel(y, out, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s,
+                 mm_v, mm_k, tr_f, tr_t, tr_k, infusion, clamp, q_supply, q_infused)
+
+
+@njit(cache=True, no_cfunc_wrapper=True)
+def jacobian_coo(y, rows, cols, vals, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack,
+                 loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, clamp, q_supply):
+    """:func:`jacobian_kernel`, callable from Python; returns the number of COO entries."""
+    return jacobian_kernel(y, rows, cols, vals, n_comp, n_dyn, cap, invk, lp, lq, la, lb, lc, ld, lloss, ltrack,
+                           loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, clamp, q_supply)

@@ -302,7 +302,7 @@ class Population:
 
 
 # ---------------------------------------------------------------- the compiled population run
-@njit(parallel=True, cache=True, error_model="numpy")
+@njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                     lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, gch, olinks, lossy,
                     inv_cap, y0, q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, keep,
@@ -344,7 +344,7 @@ def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc,
                 out_removed[i, r, p] = evr[r, p]
 
 
-@njit(parallel=True, cache=True, error_model="numpy")
+@njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                           lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, y0, q_supply,
                           q_infused, order, cut, n_jac, keep, out, out_dosed, out_removed, status, stats):

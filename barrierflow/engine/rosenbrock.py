@@ -39,7 +39,7 @@ from numba import njit
 
 from ..errors import ScenarioError
 from .compiled import CompiledModel
-from .kernels import jacobian_coo, jacobian_size
+from .kernels import INNER, jacobian_kernel, jacobian_size
 
 __all__ = ["RosenbrockIntegrator", "Structure", "build_structure", "encode_events", "model_args"]
 
@@ -193,7 +193,7 @@ def encode_events(events) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarra
 
 
 # ---------------------------------------------------------------- compiled right-hand side
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused):
     """The same balances as :func:`~barrierflow.engine.kernels.rates`, with the cell chains fused.
 
@@ -301,23 +301,13 @@ def chain_args(model: CompiledModel) -> tuple[np.ndarray, np.ndarray, np.ndarray
     return gch, np.array(other, dtype=np.int64), lossy, 1.0 / model.capacity
 
 
-@njit(cache=True, error_model="numpy")
-def _jac(y, rows, cols, vals, margs, clamp, q_supply):
-    """The Jacobian without the saturable elimination (the linear part; see :func:`_add_saturable`)."""
-    no_i = margs[14][:0]
-    no_f = margs[15][:0]
-    return jacobian_coo(y, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
-                        margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
-                        no_i, no_f, no_f, margs[17], margs[18], margs[19], clamp, q_supply)
-
-
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _add_saturable(y, margs, clamp, q_supply, jcc, jcc_lin, qr, qc, qv, nq_lin):
     """Jacobian of the saturable elimination at ``y`` added to the linear part; returns the entry count.
 
     Only these entries change from step to step: d/dc [Vmax c / (Km + |c|)] = Vmax Km / (Km + |c|)^2
     on the compartment's diagonal (per volume), or on its supply when it is clamped, and on its
-    eliminated amount (as in :func:`~barrierflow.engine.kernels.jacobian_coo`).
+    eliminated amount (as in :func:`~barrierflow.engine.kernels.jacobian_kernel`).
     """
     nc = margs[0]
     nd = margs[1]
@@ -353,7 +343,7 @@ def _add_saturable(y, margs, clamp, q_supply, jcc, jcc_lin, qr, qc, qv, nq_lin):
 # dependent chains run side by side): 3 multipliers from the top, 4 reciprocal pivots, 5 the
 # off-diagonal of M times the reciprocal pivot (toward k), 6 the products J(i, i-1) J(i-1, i)
 # (independent of the step), 7 multipliers from the bottom
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, qr, qc, qv):
     """Sort the COO Jacobian into the blocks; returns the number of quadrature entries."""
     for i in range(tri.shape[1]):
@@ -410,7 +400,7 @@ def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, 
     return nq
 
 
-@njit(cache=True, error_model="numpy")
+@njit(inline="always", error_model="numpy")
 def _tw_factor(fac, a, b, tri):
     """Twisted factorisation of fac I - J on the cells a .. b-1 of one barrier; False on a zero pivot."""
     jd = tri[0]
@@ -458,7 +448,7 @@ def _tw_factor(fac, a, b, tri):
     return ok
 
 
-@njit(cache=True, error_model="numpy")
+@njit(inline="always", error_model="numpy")
 def _tw_solve(r, off, a, b, tri):
     """Solve with the twisted factors of cells a .. b-1, in place in r[off + a .. off + b]."""
     lt = tri[3]
@@ -499,7 +489,7 @@ def _tw_solve(r, off, a, b, tri):
             r[off + i] = xd
 
 
-@njit(cache=True, error_model="numpy")
+@njit(inline="always", error_model="numpy")
 def _tw_responses(w, nx, a, b, tri):
     """w[a..b) = T^{-1} e_a (first cell) and w[nx + a..nx + b) = T^{-1} e_(b-1) (last cell).
 
@@ -557,7 +547,7 @@ def _tw_responses(w, nx, a, b, tri):
             w[nx + i] = td
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
     """Factorise M = fac I - J in blocks; False when a pivot vanishes."""
     seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f, segs = sargs
@@ -603,7 +593,7 @@ def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
     return True
 
 
-@njit(cache=True, error_model="numpy")
+@njit(**INNER)
 def _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq):
     """Overwrite ``r`` with the solution k of M k = r (the factors come from :func:`_factor`)."""
     seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f, segs = sargs
@@ -668,7 +658,7 @@ _D = np.array([[D21, D22, D23, D24, D25], [D31, D32, D33, D34, D35]])
 COEF = (_A, _C, _D)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(inline="always", error_model="numpy")
 def _workspace(nc, nx, n, n_w, n_jac, n_be):
     return (np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac),
             np.zeros((8, nx)), np.zeros((nc, nc)), np.zeros(max(n_be, 1)), np.zeros(max(n_be, 1)),
@@ -677,7 +667,7 @@ def _workspace(nc, nx, n, n_w, n_jac, n_be):
             np.zeros((6, n)), np.zeros((5, n)), np.zeros(2 * (nc + nx) + 1))
 
 
-@njit(cache=True, error_model="numpy")
+@njit(inline="always", error_model="numpy")
 def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_infused, sargs, coef, rtol,
               atol, max_steps, stats, ws, hold):
     """RODAS4 from local time 0 to ``t_end`` (h); dense output into ``out`` at ``t_out``.
@@ -696,6 +686,8 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     nc = margs[0]
     nd = margs[1]
     linear = margs[14].shape[0] == 0
+    no_i = margs[14][:0]  # the Jacobian's linear part: no saturable terms (see _add_saturable)
+    no_f = margs[15][:0]
     n_out = t_out.shape[0]
     io = 0
     while io < n_out and t_out[io] <= 0.0:
@@ -755,7 +747,9 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
         if not have_jac:
             # the linear part once per interval; the saturable entries (compartment diagonals)
             # are refreshed at every step below
-            k = _jac(y, rows, cols, vals, margs, clamp, q_supply)
+            k = jacobian_kernel(y, rows, cols, vals, nc, nd, margs[2], margs[3], margs[4], margs[5], margs[6],
+                                margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13], no_i, no_f,
+                                no_f, margs[17], margs[18], margs[19], clamp, q_supply)
             nq = _scatter(rows, cols, vals, k, nc, nd, sargs[2], sargs[4], tri, jcc, jxc, jcx, qr, qc, qv)
             nq_lin = nq
             for i in range(nc):
@@ -875,7 +869,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     return OK
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python
 def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
                  removed):
     """Apply every event from index ``ei`` with time <= ``t0``; returns the next event index.
@@ -917,7 +911,7 @@ def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infu
     return ei
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python
 def rows_until(times, row, t1, last):
     """End of the output rows of the interval that ends at ``t1`` (the last one includes ``t1``)."""
     n_t = times.shape[0]
@@ -927,7 +921,7 @@ def rows_until(times, row, t1, last):
     return sel_end
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def run_marks(k0, k1, marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, cargs, q_supply, q_infused,
               sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, y, infusion, clamp, holds, dosed, removed, ptr,
               states, ev_dosed, ev_removed, stats):

@@ -217,33 +217,24 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
     bars = scenario.barriers
     n_bar = len(bars)
 
-    capacity = [c.volume if c.volume else 1.0 for c in comps]
-    inv_k = [1.0 / c.partition for c in comps]
-    loss_rate = [c.clearance / c.volume if c.volume and c.clearance else 0.0 for c in comps]
-    q_elim0 = None  # offsets are known only once n_cells is
-    link: list[tuple[int, int, float, float, float, float, int, int]] = []
-    grids_tmp = []
-    cell_layers = []  # (barrier index, widths, layer index per cell)
+    # per-state pieces (compartments first, then each resolved barrier's cells), joined at the end
+    cap_parts = [np.array([c.volume if c.volume else 1.0 for c in comps], dtype=np.float64)]
+    invk_parts = [np.array([1.0 / c.partition for c in comps], dtype=np.float64)]
+    loss_parts = [np.array([c.clearance / c.volume if c.volume and c.clearance else 0.0 for c in comps],
+                           dtype=np.float64)]
+    grids_tmp = []  # (barrier index, first cell state, one past the last, widths, layer of each cell)
     offset = n_comp
     for bi, b in enumerate(bars):
         if b.model == "steady":
             grids_tmp.append((bi, offset, offset, np.zeros(0), np.zeros(0, dtype=np.int64)))
             continue
-        widths = []
-        lay = []
-        for li, layer in enumerate(b.layers):
-            w = grid.widths(layer)
-            widths.append(w)
-            lay.append(np.full(len(w), li, dtype=np.int64))
+        widths = [grid.widths(layer) for layer in b.layers]
         w = np.concatenate(widths)
-        lay_idx = np.concatenate(lay)
+        lay_idx = np.repeat(np.arange(len(widths), dtype=np.int64), [len(x) for x in widths])
         grids_tmp.append((bi, offset, offset + len(w), w, lay_idx))
-        cell_layers.append((bi, w, lay_idx))
-        for i in range(len(w)):
-            layer = b.layers[lay_idx[i]]
-            capacity.append(b.area * w[i])
-            inv_k.append(1.0 / layer.partition)
-            loss_rate.append(layer.degradation_rate)
+        cap_parts.append(b.area * w)
+        invk_parts.append(1.0 / np.array([x.partition for x in b.layers])[lay_idx])
+        loss_parts.append(np.array([x.degradation_rate for x in b.layers], dtype=np.float64)[lay_idx])
         offset += len(w)
     n_cells = offset - n_comp
     n_dyn = n_comp + n_cells
@@ -253,66 +244,75 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
     q_supply0 = q_perm0 + n_bar
     n_state = q_supply0 + 2 * n_comp
 
-    loss_to = [q_elim0 + i for i in range(n_comp)]
+    # links as blocks of columns (p, q, a, b, c, d, loss, track), in order: each barrier's links
+    # (one for a steady barrier; the from face, the cell faces, the to face for a resolved one),
+    # then the exchanges
+    link_blocks: list[np.ndarray] = []
+    n_link = 0
+    loss_to_parts = [np.arange(q_elim0, q_elim0 + n_comp, dtype=np.int64)]
     grids = []
     for bi, start, stop, w, lay_idx in grids_tmp:
         b = bars[bi]
         p_from = comp_index[b.from_id]
         p_to = comp_index[b.to_id]
+        interfaces = (0.0, *[float(x) for x in np.cumsum([x.thickness for x in b.layers])])
         if b.model == "steady":
             a, bb, c, d = (v * b.area for v in _two_port(b))
-            in_link = out_link = len(link)
-            link.append((p_from, p_to, a, bb, c, d, q_degr0 + bi if a != c else -1, q_perm0 + bi))
-            faces = (0.0, *[float(x) for x in np.cumsum([x.thickness for x in b.layers])])
-            grids.append(BarrierGrid(b.id, start, stop, w, w, lay_idx, faces, in_link, out_link))
+            link_blocks.append(np.array([[p_from, p_to, a, bb, c, d, q_degr0 + bi if a != c else -1, q_perm0 + bi]]))
+            grids.append(BarrierGrid(b.id, start, stop, w, w, lay_idx, interfaces, n_link, n_link))
+            n_link += 1
             continue
-        half_res = np.array([w[i] / (2 * b.layers[lay_idx[i]].diffusivity * b.layers[lay_idx[i]].partition)
-                             for i in range(len(w))])  # h/cm
-        in_link = len(link)
-        g = b.area / half_res[0]
-        link.append((p_from, start, g, g, g, g, -1, -1))
-        for i in range(len(w) - 1):
-            g = b.area / (half_res[i] + half_res[i + 1])
-            link.append((start + i, start + i + 1, g, g, g, g, -1, -1))
-        out_link = len(link)
-        g = b.area / half_res[-1]
-        link.append((stop - 1, p_to, g, g, g, g, -1, q_perm0 + bi))
-        loss_to.extend([q_degr0 + bi] * len(w))
+        dif = np.array([x.diffusivity for x in b.layers])[lay_idx]
+        part = np.array([x.partition for x in b.layers])[lay_idx]
+        half_res = w / (2 * dif * part)  # h/cm
+        nb = len(w)
+        blk = np.empty((nb + 1, 8))
+        g = np.empty(nb + 1)
+        g[0] = b.area / half_res[0]
+        g[1:nb] = b.area / (half_res[:-1] + half_res[1:])
+        g[nb] = b.area / half_res[-1]
+        blk[:, 0] = np.arange(start - 1, stop)
+        blk[0, 0] = p_from
+        blk[:, 1] = np.arange(start, stop + 1)
+        blk[nb, 1] = p_to
+        blk[:, 2:6] = g[:, None]
+        blk[:, 6:8] = -1
+        blk[nb, 7] = q_perm0 + bi
+        link_blocks.append(blk)
+        loss_to_parts.append(np.full(nb, q_degr0 + bi, dtype=np.int64))
         centres = np.cumsum(w) - w / 2
-        interfaces = (0.0, *[float(x) for x in np.cumsum([x.thickness for x in b.layers])])
-        grids.append(BarrierGrid(b.id, start, stop, w, centres, lay_idx, interfaces, in_link, out_link))
-
+        grids.append(BarrierGrid(b.id, start, stop, w, centres, lay_idx, interfaces, n_link, n_link + nb))
+        n_link += nb + 1
     for e in scenario.exchanges:
         p, q = comp_index[e.from_id], comp_index[e.to_id]
-        link.append((p, q, e.flow, e.flow, e.flow, e.flow, -1, -1))
-    lk = np.array(link, dtype=np.float64).reshape(-1, 8)
+        link_blocks.append(np.array([[p, q, e.flow, e.flow, e.flow, e.flow, -1, -1]]))
+    lk = np.concatenate(link_blocks) if link_blocks else np.zeros((0, 8))
 
     mm = [(i, c.vmax, c.km) for i, c in enumerate(comps) if c.vmax]
     tr = [(comp_index[t.from_id], comp_index[t.to_id], t.rate) for t in scenario.transfers]
 
     y0 = np.zeros(n_state)
-    for i, c in enumerate(comps):
-        y0[i] = c.starting_concentration
+    y0[:n_comp] = [c.starting_concentration for c in comps]
     m_ref = _mass_scale(scenario)
-    cap = np.array(capacity)
+    cap = np.concatenate(cap_parts)
+    inv_k = np.concatenate(invk_parts)
     scale = np.empty(n_state)
     scale[:n_comp] = m_ref / cap[:n_comp]
     for (bi, start, stop, _, lay_idx) in grids_tmp:
         b = bars[bi]
         kc = max(comps[comp_index[b.from_id]].partition, comps[comp_index[b.to_id]].partition)
         side = max(scale[comp_index[b.from_id]], scale[comp_index[b.to_id]])
-        for i in range(start, stop):
-            scale[i] = side * b.layers[lay_idx[i - start]].partition / kc
+        scale[start:stop] = side * np.array([x.partition for x in b.layers])[lay_idx] / kc
     scale[:n_comp] = np.maximum(scale[:n_comp], [c.starting_concentration for c in comps])
     scale[n_dyn:] = m_ref
 
     return CompiledModel(
         n_comp=n_comp, n_cells=n_cells, n_bar=n_bar,
-        capacity=cap, inv_partition=np.array(inv_k),
+        capacity=cap, inv_partition=inv_k,
         link_p=lk[:, 0].astype(np.int64), link_q=lk[:, 1].astype(np.int64),
         link_a=lk[:, 2].copy(), link_b=lk[:, 3].copy(), link_c=lk[:, 4].copy(), link_d=lk[:, 5].copy(),
         link_loss=lk[:, 6].astype(np.int64), link_track=lk[:, 7].astype(np.int64),
-        loss_rate=np.array(loss_rate), loss_to=np.array(loss_to, dtype=np.int64),
+        loss_rate=np.concatenate(loss_parts), loss_to=np.concatenate(loss_to_parts),
         mm_state=np.array([m[0] for m in mm], dtype=np.int64),
         mm_vmax=np.array([m[1] for m in mm], dtype=np.float64),
         mm_km=np.array([m[2] for m in mm], dtype=np.float64),

@@ -590,6 +590,8 @@ def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
             if m != 0.0:
                 for j in range(k + 1, nc):
                     smat[i, j] -= m * smat[k, j]
+    for k in range(nc):
+        smat[k, k] = 1.0 / smat[k, k]  # U's diagonal kept as reciprocals: no division in the solves
     return True
 
 
@@ -621,7 +623,7 @@ def _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq):
         s = r[i]
         for j in range(i + 1, nc):
             s -= smat[i, j] * r[j]
-        r[i] = s / smat[i, i]
+        r[i] = s * smat[i, i]
     # cells: kx = z - T^{-1} M_xc kc
     for f in range(be_cell.shape[0]):
         coef = jxc[f] * r[be_comp[f]]
@@ -664,7 +666,7 @@ def _workspace(nc, nx, n, n_w, n_jac, n_be):
             np.zeros((8, nx)), np.zeros((nc, nc)), np.zeros(max(n_be, 1)), np.zeros(max(n_be, 1)),
             np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac, dtype=np.int64), np.zeros(n_jac),
             np.zeros(max(n_w, 1)), np.zeros((nc, nc)), np.zeros(nc, dtype=np.int64),
-            np.zeros((6, n)), np.zeros((5, n)), np.zeros(2 * (nc + nx) + 1))
+            np.zeros((6, n)), np.zeros((5, n)), np.zeros(2 * (nc + nx) + 1), np.zeros((6, n)))
 
 
 @njit(inline="always", error_model="numpy")
@@ -674,7 +676,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
 
     ``y`` is advanced in place. Returns the status code.
     """
-    (rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm, kk, vec, u) = ws
+    (rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm, kk, vec, u, rr) = ws
     ca, cc, cd = coef
     gch, olinks, lossy, inv_cap = cargs
     f0 = vec[0]
@@ -779,6 +781,19 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                 if s == 0:
                     for i in range(n):
                         ks[i] = f0[i]
+                elif linear:
+                    # f is affine, f(Y) = f(y) + J (Y - y), and each earlier stage solved
+                    # M k_j = r_j with M = fac I - J, so J k_j = fac k_j - r_j: the stage's
+                    # right-hand side needs no evaluation of the rates
+                    for i in range(n):
+                        ks[i] = f0[i]
+                    for j in range(s):
+                        a = ca[s, j]
+                        b = a * fac + cc[s, j] * ih
+                        kj = kk[j]
+                        rj = rr[j]
+                        for i in range(n):
+                            ks[i] += b * kj[i] - a * rj[i]
                 else:
                     for i in range(n):
                         ya[i] = y[i]
@@ -793,8 +808,22 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                         kj = kk[j]
                         for i in range(n):
                             ks[i] += a * kj[i]
+                if linear and s < 5:
+                    rs = rr[s]
+                    for i in range(n):
+                        rs[i] = ks[i]
                 _solve(ks, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq)
-            stats[ST_RHS] += 5
+            if linear:
+                # the last stage's point (y + sum a_6j k_j), which the new solution builds on
+                for i in range(n):
+                    ya[i] = y[i]
+                for j in range(5):
+                    a = ca[5, j]
+                    kj = kk[j]
+                    for i in range(n):
+                        ya[i] += a * kj[i]
+            else:
+                stats[ST_RHS] += 5
             # new solution and error estimate (k6 is the difference of the two solutions)
             err = 0.0
             k6 = kk[5]

@@ -22,6 +22,11 @@ elimination needs no pivoting. It is *twisted*: eliminated from both ends of a b
 its middle cell, so that the two dependent chains of multiply-adds run side by side and a
 solve takes about half the latency of the one-way (Thomas) sweep.
 
+For a linear model (no saturable elimination) the rates are affine, f(Y) = f(y) + J (Y - y),
+and each solved stage gives J k_j = fac k_j - r_j (r_j its right-hand side): the stages after
+the first need no evaluation of the rates, only vector sums; nor does the next step's first
+stage, f(y_new) = fac k_6 - sum_j (c_6j / h) k_j. The rates are evaluated once per interval.
+
 Every kernel takes arrays and numbers only and is cached on disk (``cache=True``). Two habits
 keep them fast and their compile short: hot loops index views with the loop variable
 (``v = a[lo:hi]; v[i]``; numba then knows the index is not negative and the loop vectorises,
@@ -128,16 +133,18 @@ def build_structure(model: CompiledModel) -> Structure:
     for g in model.grids:
         seg_lo[g.start - nc:g.stop - nc] = g.start - nc
         seg_hi[g.start - nc:g.stop - nc] = g.stop - nc
+    lp, lq = model.link_p, model.link_q
+    cells = (lp >= nc) & (lq >= nc)
+    if cells.any():  # links between two cells: neighbours in one barrier
+        cp, cq = lp[cells], lq[cells]
+        bad = (np.abs(cp - cq) != 1) | (seg_lo[cp - nc] != seg_lo[cq - nc])
+        if bad.any():
+            j = int(np.flatnonzero(bad)[0])
+            raise ValueError(f"link between states {cp[j]} and {cq[j]} does not fit the barrier chain structure")
     pairs: dict[tuple[int, int], int] = {}
-    for p, q in zip(model.link_p.tolist(), model.link_q.tolist(), strict=True):
-        pc, qc = p < nc, q < nc
-        if pc and qc:
-            continue
-        if not pc and not qc:
-            if abs(p - q) != 1 or seg_lo[p - nc] != seg_lo[q - nc]:
-                raise ValueError(f"link between states {p} and {q} does not fit the barrier chain structure")
-            continue
-        cell, comp = (q, p) if pc else (p, q)
+    for j in np.flatnonzero((lp < nc) != (lq < nc)).tolist():  # a compartment and a cell
+        p, q = int(lp[j]), int(lq[j])
+        cell, comp = (q, p) if p < nc else (p, q)
         pairs.setdefault((cell, comp), len(pairs))
     n_be = len(pairs)
     be_cell = np.zeros(n_be, dtype=np.int64)
@@ -286,19 +293,22 @@ def chain_args(model: CompiledModel) -> tuple[np.ndarray, np.ndarray, np.ndarray
 
     Chain conductances, the other links, the states with a first-order loss, 1/capacity.
     """
-    nc, nx = model.n_comp, model.n_cells
+    m = model
+    nc, nx = m.n_comp, m.n_cells
     gch = np.zeros(max(nx, 1))
-    other = []
-    for j in range(len(model.link_p)):
-        p, q = int(model.link_p[j]), int(model.link_q[j])
-        a, b, c, d = model.link_a[j], model.link_b[j], model.link_c[j], model.link_d[j]
-        plain = a == b == c == d and model.link_loss[j] < 0 and model.link_track[j] < 0
-        if p >= nc and q == p + 1 and plain and gch[p - nc] == 0.0:
-            gch[p - nc] = a
-        else:
-            other.append(j)
-    lossy = np.flatnonzero(model.loss_rate != 0.0).astype(np.int64)
-    return gch, np.array(other, dtype=np.int64), lossy, 1.0 / model.capacity
+    p, q, a = m.link_p, m.link_q, m.link_a
+    plain = ((a == m.link_b) & (a == m.link_c) & (a == m.link_d) & (m.link_loss < 0) & (m.link_track < 0)
+             & (p >= nc) & (q == p + 1) & (a != 0.0))
+    cand = np.flatnonzero(plain)
+    # the first plain link of each cell carries the chain; any other goes with the other links
+    _, first = np.unique(p[cand], return_index=True)
+    chain = cand[first]
+    gch[p[chain] - nc] = a[chain]
+    is_chain = np.zeros(len(p), dtype=bool)
+    is_chain[chain] = True
+    other = np.flatnonzero(~is_chain).astype(np.int64)
+    lossy = np.flatnonzero(m.loss_rate != 0.0).astype(np.int64)
+    return gch, other, lossy, 1.0 / m.capacity
 
 
 @njit(**INNER)
@@ -743,7 +753,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
         if t + 1.0001 * h >= t_end:
             h = t_end - t
             last = True
-        if not first:
+        if not first and not linear:
             rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
             stats[ST_RHS] += 1
         if not have_jac:
@@ -880,6 +890,17 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                     for i in range(n):
                         out[io, i] = s1 * y[i] + s * (yn[i] + s1 * (c2[i] + s * c3[i]))
                 io += 1
+        if linear:
+            # the rates at the new solution, f(y) + J (y_new - y), which the stage equations
+            # reduce to fac k_6 - sum_j (c_6j / h) k_j: no evaluation of the rates
+            k6 = kk[5]
+            for i in range(n):
+                f0[i] = fac * k6[i]
+            for j in range(5):
+                a = cc[5, j] * ih
+                kj = kk[j]
+                for i in range(n):
+                    f0[i] -= a * kj[i]
         for i in range(n):
             y[i] = yn[i]
         t = t_new

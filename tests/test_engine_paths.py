@@ -210,6 +210,19 @@ def test_rodas_agrees_with_radau(net):
     assert scaled_error(tr.states, ref.states, ref.model) < 1e-5
 
 
+@pytest.mark.parametrize("rtol", [3e-6, 1e-12])
+def test_rodas_mass_balance_closes_over_one_long_interval(rtol):
+    # one dosing interval of 5000 h, thousands of steps: the ledger must close to round-off
+    # (a conservation identity of the model, common practice for a mass-conserving scheme).
+    # Rates carried from step to step through the stage equations let rounding build up here.
+    s = patch_body(cells=30)
+    s = Scenario(name=s.name, duration=5000.0, output_step=50.0, compartments=s.compartments, barriers=s.barriers,
+                 exchanges=s.exchanges)
+    r = bf.simulate(s, integrator=RosenbrockIntegrator(rtol=rtol, atol=rtol * 1e-3))
+    assert r.stats["intervals"] == 1 and r.stats["steps"] > 100
+    assert r.mass_balance.relative_error < 1e-12, r.mass_balance
+
+
 def test_rodas_saturable_against_radau_and_converges():
     # nonlinear (Michaelis-Menten elimination); reference scipy Radau at rtol 1e-11
     s = patch_body(saturable=True)
@@ -285,6 +298,19 @@ def _call_slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
 @njit
 def _call_solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq):
     _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq)
+
+
+def test_compiled_arrays_are_float_for_whole_number_inputs():
+    # whole numbers from the Python API must not change the kernels' argument types (each new
+    # type compiles every kernel again)
+    s = Scenario(name="whole numbers (invented)", duration=10, output_step=1,
+                 compartments=(Compartment("a", volume=2, initial_concentration=1), Compartment("b", volume=3)),
+                 exchanges=(Exchange("x", "a", "b", flow=5),))
+    m = compile_scenario(s)
+    for name in ("capacity", "inv_partition", "link_a", "link_b", "link_c", "link_d", "loss_rate", "y0", "scale"):
+        assert getattr(m, name).dtype == np.float64, name
+    for name in ("link_p", "link_q", "link_loss", "link_track", "loss_to"):
+        assert getattr(m, name).dtype == np.int64, name
 
 
 def test_rates_chain_equals_rates():

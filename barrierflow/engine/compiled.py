@@ -258,7 +258,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
         interfaces = (0.0, *[float(x) for x in np.cumsum([x.thickness for x in b.layers])])
         if b.model == "steady":
             a, bb, c, d = (v * b.area for v in _two_port(b))
-            link_blocks.append(np.array([[p_from, p_to, a, bb, c, d, q_degr0 + bi if a != c else -1, q_perm0 + bi]]))
+            link_blocks.append(np.array([[p_from, p_to, a, bb, c, d, q_degr0 + bi if a != c else -1, q_perm0 + bi]],
+                                        dtype=np.float64))
             grids.append(BarrierGrid(b.id, start, stop, w, w, lay_idx, interfaces, n_link, n_link))
             n_link += 1
             continue
@@ -285,7 +286,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
         n_link += nb + 1
     for e in scenario.exchanges:
         p, q = comp_index[e.from_id], comp_index[e.to_id]
-        link_blocks.append(np.array([[p, q, e.flow, e.flow, e.flow, e.flow, -1, -1]]))
+        link_blocks.append(np.array([[p, q, e.flow, e.flow, e.flow, e.flow, -1, -1]], dtype=np.float64))
     lk = np.concatenate(link_blocks) if link_blocks else np.zeros((0, 8))
 
     mm = [(i, c.vmax, c.km) for i, c in enumerate(comps) if c.vmax]

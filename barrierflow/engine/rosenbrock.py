@@ -24,8 +24,10 @@ solve takes about half the latency of the one-way (Thomas) sweep.
 
 For a linear model (no saturable elimination) the rates are affine, f(Y) = f(y) + J (Y - y),
 and each solved stage gives J k_j = fac k_j - r_j (r_j its right-hand side): the stages after
-the first need no evaluation of the rates, only vector sums; nor does the next step's first
-stage, f(y_new) = fac k_6 - sum_j (c_6j / h) k_j. The rates are evaluated once per interval.
+the first need no evaluation of the rates, only vector sums: one evaluation per step, at y.
+(The next step's rates could come from the stage equations too, f(y_new) = fac k_6 -
+sum_j (c_6j / h) k_j, but carried from step to step their rounding builds up over a long
+interval and shows in the mass balance; they are evaluated afresh.)
 
 Every kernel takes arrays and numbers only and is cached on disk (``cache=True``). Two habits
 keep them fast and their compile short: hot loops index views with the loop variable
@@ -753,7 +755,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
         if t + 1.0001 * h >= t_end:
             h = t_end - t
             last = True
-        if not first and not linear:
+        if not first:
             rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
             stats[ST_RHS] += 1
         if not have_jac:
@@ -890,17 +892,6 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                     for i in range(n):
                         out[io, i] = s1 * y[i] + s * (yn[i] + s1 * (c2[i] + s * c3[i]))
                 io += 1
-        if linear:
-            # the rates at the new solution, f(y) + J (y_new - y), which the stage equations
-            # reduce to fac k_6 - sum_j (c_6j / h) k_j: no evaluation of the rates
-            k6 = kk[5]
-            for i in range(n):
-                f0[i] = fac * k6[i]
-            for j in range(5):
-                a = cc[5, j] * ih
-                kj = kk[j]
-                for i in range(n):
-                    f0[i] -= a * kj[i]
         for i in range(n):
             y[i] = yn[i]
         t = t_new

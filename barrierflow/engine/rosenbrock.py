@@ -814,15 +814,13 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                         ya[i] = y[i]
                     for j in range(s):
                         a = ca[s, j]
-                        kj = kk[j]
                         for i in range(n):
-                            ya[i] += a * kj[i]
+                            ya[i] += a * kk[j, i]
                     rates_chain(ya, ks, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
                     for j in range(s):
                         a = cc[s, j] * ih
-                        kj = kk[j]
                         for i in range(n):
-                            ks[i] += a * kj[i]
+                            ks[i] += a * kk[j, i]
                 if linear and s < 5:
                     for i in range(n):
                         rr[s, i] = ks[i]

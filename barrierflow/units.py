@@ -161,6 +161,28 @@ def parse_quantity(text: object, kind: str, field: str = "", molar_mass: float |
     >>> parse_quantity("1 L/h", "flow")
     1000.0
     """
+    key = (text, kind, molar_mass) if isinstance(text, str) else None
+    if key is not None:
+        hit = _PARSED.get(key)
+        if hit is not None:
+            return hit
+    value = _parse(text, kind, field, molar_mass)
+    if key is not None:
+        if len(_PARSED) >= _PARSED_MAX:
+            _PARSED.clear()
+        _PARSED[key] = value
+    return value
+
+
+#: Values already parsed, by (text, kind, molar mass): pint takes about 0.1-0.25 ms a string, and
+#: the dashboard checks the whole draft on every edit. Only successful parses are kept (a
+#: failure raises before it is stored), so every error message still names its own field.
+_PARSED: dict[tuple[str, str, float | None], float] = {}
+_PARSED_MAX = 20_000
+
+
+def _parse(text: object, kind: str, field: str, molar_mass: float | None) -> float:
+    """:func:`parse_quantity` without the memo."""
     q = _quantity(text, kind, field)
     dim = q.dimensionality
     plain, molar = _dims()

@@ -110,6 +110,20 @@ def test_molar_units_use_the_molar_mass(text, kind, molar_mass, expected):
     assert parse_quantity(text, kind, molar_mass=molar_mass) == pytest.approx(expected, rel=EXACT)
 
 
+def test_remembered_values_keep_kind_molar_mass_and_field_apart():
+    # parse_quantity remembers what it read; a value read for one kind or molar mass must not
+    # answer for another, and a refusal still names its own field (common practice for a memo)
+    assert parse_quantity("2 mmol/L", "concentration", molar_mass=250.0) == pytest.approx(0.5, rel=EXACT)
+    assert parse_quantity("2 mmol/L", "concentration", molar_mass=100.0) == pytest.approx(0.2, rel=EXACT)
+    assert parse_quantity("3 mL", "volume") == 3.0
+    assert parse_quantity("3 mL", "volume") == 3.0  # the remembered value
+    with pytest.raises(UnitsError) as info:
+        parse_quantity("3 mL", "length", field="layer 1 thickness")
+    assert str(info.value).startswith("layer 1 thickness: got 3 mL; wrong kind of unit")
+    with pytest.raises(UnitsError, match="molar_mass"):
+        parse_quantity("2 mmol/L", "concentration", field="km")
+
+
 def test_molar_unit_without_molar_mass_is_refused():
     with pytest.raises(UnitsError, match="molar_mass"):
         parse_quantity("1 mmol/L", "concentration", field="km")

@@ -121,9 +121,13 @@ def _quantity(text: object, kind: str, field: str) -> pint.Quantity:
         q = get_registry().Quantity(stripped.replace("µ", "u").replace("μ", "u"))
     except Exception:  # pint raises several types for unparsable text
         raise UnitsError(text, f"cannot read this unit; expected {_expected(kind)}", field) from None
-    if not isinstance(q, get_registry().Quantity) or q.dimensionless:
-        raise UnitsError(text, f"the unit is missing; expected {_expected(kind)}", field)
-    if not isinstance(q.magnitude, (int, float)) or not math.isfinite(float(q.magnitude)):
+    try:
+        if not isinstance(q, get_registry().Quantity) or q.dimensionless:
+            raise UnitsError(text, f"the unit is missing; expected {_expected(kind)}", field)
+        finite = isinstance(q.magnitude, (int, float)) and math.isfinite(float(q.magnitude))
+    except OverflowError:  # a whole number too large for a float
+        finite = False
+    if not finite:
         raise UnitsError(text, "must be a finite number with its unit", field)
     return q
 
@@ -196,6 +200,9 @@ def _parse(text: object, kind: str, field: str, molar_mass: float | None) -> flo
         value = float(q.to(KINDS[kind].molar).magnitude) * molar_mass
     else:
         raise UnitsError(text, f"wrong kind of unit ({q.units:~}); expected {_expected(kind)}", field)
+    if not math.isfinite(value):
+        raise UnitsError(text, f"is too large: it does not fit a floating-point number in {KINDS[kind].internal}",
+                         field)
     if kind == "length" and abs(value) < 1e-300 and value != 0:
         value = 0.0
     if _digits(float(q.magnitude)) > 15:

@@ -256,6 +256,10 @@ def test_rodas_failure_is_reported():
 def test_integrator_options_are_checked():
     with pytest.raises(ScenarioError, match="integrator rtol: got 2; must be a number between 0 and 1"):
         RosenbrockIntegrator(rtol=2)
+    # the controller grows a step at most 6 times: a larger hold froze the step (step limit)
+    with pytest.raises(ScenarioError, match="integrator hold: got 6; must be a number from 1 to 2"):
+        RosenbrockIntegrator(hold=6)
+    assert solve(patch_body(), RosenbrockIntegrator(hold=2)).stats["steps"] < 2000
     with pytest.raises(ScenarioError, match="integrator method"):
         ExactIntegrator("magic")
     with pytest.raises(ScenarioError, match="needs a linear model"):

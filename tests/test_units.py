@@ -169,6 +169,16 @@ def test_wrong_dimension_is_refused_with_the_expected_wording():
                                "expected a volume with its unit, such as '5 mL'")
 
 
+@pytest.mark.parametrize("text, message", [("1" + "0" * 400 + " mg", "must be a finite number"),
+                                           ("1e308 km", "is too large")])
+def test_numbers_beyond_floating_point_are_refused(text, message):
+    # IEEE 754 binary64 (the float of numpy and Python) ends near 1.8e308
+    kind = "amount" if text.endswith("mg") else "length"
+    with pytest.raises(UnitsError, match=message) as info:
+        parse_quantity(text, kind, field="dose 1 amount")
+    assert str(info.value).startswith("dose 1 amount: got ")
+
+
 @pytest.mark.parametrize("text", ["nan cm", "inf cm", "-inf cm"])
 def test_non_finite_number_is_refused(text):
     with pytest.raises(UnitsError, match="must be a finite number"):

@@ -46,6 +46,7 @@ from numba import njit
 from scipy.integrate import BDF, LSODA, Radau, solve_ivp
 
 import barrierflow as bf
+from barrierflow import units
 from barrierflow.engine import integrator_from_name
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -329,6 +330,8 @@ def run_variant(v: Variant, paths: list[str], quick: bool, tmp: Path) -> list[Ro
     lsoda_kw = dict(rhs=f_nb, jac=hand.jac_banded, lband=HandModel.LBAND, uband=HandModel.UBAND)
 
     def product(integ):
+        # a first load, as in a new process: parse_quantity's memo of unit strings is emptied
+        units._PARSED.clear()
         t_a = time.perf_counter()
         s = bf.load(path)
         t_b = time.perf_counter()

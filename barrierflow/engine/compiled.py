@@ -222,18 +222,21 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
     invk_parts = [np.array([1.0 / c.partition for c in comps], dtype=np.float64)]
     loss_parts = [np.array([c.clearance / c.volume if c.volume and c.clearance else 0.0 for c in comps],
                            dtype=np.float64)]
-    grids_tmp = []  # (barrier index, first cell state, one past the last, widths, layer of each cell)
+    # (barrier index, first cell state, one past the last, widths, layer of each cell, partition
+    # coefficient of each cell)
+    grids_tmp = []
     offset = n_comp
     for bi, b in enumerate(bars):
         if b.model == "steady":
-            grids_tmp.append((bi, offset, offset, np.zeros(0), np.zeros(0, dtype=np.int64)))
+            grids_tmp.append((bi, offset, offset, np.zeros(0), np.zeros(0, dtype=np.int64), np.zeros(0)))
             continue
         widths = [grid.widths(layer) for layer in b.layers]
         w = np.concatenate(widths)
         lay_idx = np.repeat(np.arange(len(widths), dtype=np.int64), [len(x) for x in widths])
-        grids_tmp.append((bi, offset, offset + len(w), w, lay_idx))
+        part = np.array([x.partition for x in b.layers], dtype=np.float64)[lay_idx]
+        grids_tmp.append((bi, offset, offset + len(w), w, lay_idx, part))
         cap_parts.append(b.area * w)
-        invk_parts.append(1.0 / np.array([x.partition for x in b.layers])[lay_idx])
+        invk_parts.append(1.0 / part)
         loss_parts.append(np.array([x.degradation_rate for x in b.layers], dtype=np.float64)[lay_idx])
         offset += len(w)
     n_cells = offset - n_comp
@@ -251,7 +254,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
     n_link = 0
     loss_to_parts = [np.arange(q_elim0, q_elim0 + n_comp, dtype=np.int64)]
     grids = []
-    for bi, start, stop, w, lay_idx in grids_tmp:
+    for bi, start, stop, w, lay_idx, part in grids_tmp:
         b = bars[bi]
         p_from = comp_index[b.from_id]
         p_to = comp_index[b.to_id]
@@ -264,7 +267,6 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
             n_link += 1
             continue
         dif = np.array([x.diffusivity for x in b.layers])[lay_idx]
-        part = np.array([x.partition for x in b.layers])[lay_idx]
         half_res = w / (2 * dif * part)  # h/cm
         nb = len(w)
         blk = np.empty((nb + 1, 8))
@@ -299,11 +301,11 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
     inv_k = np.concatenate(invk_parts)
     scale = np.empty(n_state)
     scale[:n_comp] = m_ref / cap[:n_comp]
-    for (bi, start, stop, _, lay_idx) in grids_tmp:
+    for (bi, start, stop, _, _, part) in grids_tmp:
         b = bars[bi]
         kc = max(comps[comp_index[b.from_id]].partition, comps[comp_index[b.to_id]].partition)
         side = max(scale[comp_index[b.from_id]], scale[comp_index[b.to_id]])
-        scale[start:stop] = side * np.array([x.partition for x in b.layers])[lay_idx] / kc
+        scale[start:stop] = side * part / kc
     scale[:n_comp] = np.maximum(scale[:n_comp], [c.starting_concentration for c in comps])
     scale[n_dyn:] = m_ref
 

@@ -891,9 +891,10 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                     for i in range(n):
                         out[io, i] = s1 * y[i] + s * (yn[i] + s1 * (c2[i] + s * c3[i]))
                 io += 1
-        if linear:
+        if linear and (n_steps + 1) % REFRESH != 0:
             # the rates at the new solution from the stage equations, f(y) + J (y_new - y) =
-            # fac k_6 - sum_j (c_6j / h) k_j; evaluated afresh every REFRESH steps (above)
+            # fac k_6 - sum_j (c_6j / h) k_j; the next step evaluates them afresh instead when
+            # it is a multiple of REFRESH (above)
             for i in range(n):
                 f0[i] = fac * kk[5, i]
             for j in range(5):

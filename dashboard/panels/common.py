@@ -88,3 +88,24 @@ def graph(id: str, figure: dict | None = None, height: int | None = None, **kwar
     # height of the item and lets the plot overflow its card; the figure's own height rules here
     kwargs["style"] = {"height": f"{height}px"} if height else {"height": "auto"}
     return dcc.Graph(id=id, figure=figure or {"data": [], "layout": {}}, config=dict(GRAPH_CONFIG), **kwargs)
+
+
+def edited_rows(changed: Any, rows: list[dict[str, Any]], fields: Any) -> list[dict[str, Any]] | None:
+    """Apply a grid's cell edits to copies of ``rows`` (each with a ``key``); None when none applies.
+
+    ``changed`` is dash-ag-grid's ``cellValueChanged`` (one event or a list); only columns in
+    ``fields`` are taken, and every value is kept as text (the draft holds what was typed).
+    """
+    events = changed if isinstance(changed, list) else [changed] if changed else []
+    out = [dict(row) for row in rows]
+    keys = [row["key"] for row in rows]
+    touched = False
+    for ev in events:
+        row_key = ev.get("rowId") or (ev.get("data") or {}).get("key")
+        col = ev.get("colId")
+        if row_key in keys and col in fields:
+            # dash-ag-grid reports the new value as "value" (older versions: "newValue")
+            value = ev["value"] if "value" in ev else ev.get("newValue")
+            out[keys.index(row_key)][col] = "" if value is None else str(value)
+            touched = True
+    return out if touched else None

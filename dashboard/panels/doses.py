@@ -15,7 +15,7 @@ from barrierflow.units import parse_quantity
 from .. import draft as D
 from .. import ids
 from ..figures import dose_timeline_figure
-from .common import graph, message_list
+from .common import edited_rows, graph, message_list
 
 VALUE_COLUMNS = [
     ("amount", "Amount", "bolus: mass, e.g. 2 mg"),
@@ -168,18 +168,8 @@ def register(app: Any, services: Any) -> None:
         keys = [x["key"] for x in d["doses"]]
         trigger = ctx.triggered_id
         if trigger == ids.DOSE_GRID:
-            events = changed if isinstance(changed, list) else [changed] if changed else []
-            rows = [dict(x) for x in d["doses"]]
-            touched = False
-            for ev in events:
-                row_key = ev.get("rowId") or (ev.get("data") or {}).get("key")
-                col = ev.get("colId")
-                if row_key in keys and col in D.DOSE_FIELDS:
-                    # dash-ag-grid reports the new value as "value" (older versions: "newValue")
-                    value = ev["value"] if "value" in ev else ev.get("newValue")
-                    rows[keys.index(row_key)][col] = "" if value is None else str(value)
-                    touched = True
-            if not touched:
+            rows = edited_rows(changed, d["doses"], D.DOSE_FIELDS)
+            if rows is None:
                 raise PreventUpdate
             return D.set_doses(d, rows), no_update
         if trigger == ids.DOSE_ADD:

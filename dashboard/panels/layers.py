@@ -16,7 +16,7 @@ from barrierflow.units import format_quantity
 from .. import draft as D
 from .. import ids
 from ..figures import stack_figure, steady_profile_figure
-from .common import graph, message_list
+from .common import edited_rows, graph, message_list
 
 COLUMNS = [
     ("name", "Name", "free text", 118),
@@ -235,18 +235,8 @@ def register(app: Any, services: Any) -> None:
         index = keys.index(picked[0]["key"]) if picked and picked[0].get("key") in keys else None
         trigger = ctx.triggered_id
         if trigger == ids.LAYER_GRID:
-            events = changed if isinstance(changed, list) else [changed] if changed else []
-            rows = [dict(layer) for layer in link["layers"]]
-            touched = False
-            for ev in events:
-                row_key = ev.get("rowId") or (ev.get("data") or {}).get("key")
-                col = ev.get("colId")
-                if row_key in keys and col in D.LAYER_FIELDS:
-                    # dash-ag-grid reports the new value as "value" (older versions: "newValue")
-                    value = ev["value"] if "value" in ev else ev.get("newValue")
-                    rows[keys.index(row_key)][col] = "" if value is None else str(value)
-                    touched = True
-            if not touched:
+            rows = edited_rows(changed, link["layers"], D.LAYER_FIELDS)
+            if rows is None:
                 raise PreventUpdate
             return D.set_layers(d, key, rows), no_update
         if trigger == ids.LAYER_ADD:

@@ -88,6 +88,16 @@ def _field_names(outputs_list: list[dict[str, Any]]) -> list[str]:
     return [o["id"]["name"] for o in outputs_list]
 
 
+def _selected_item(selected: str | None, prefix: str, d: dict[str, Any]) -> tuple[str, dict[str, Any]]:
+    """The key and draft item of the selection if it is of the kind ``prefix`` ("c:" or "l:")."""
+    if not selected or not selected.startswith(prefix):
+        raise PreventUpdate
+    item = D.find(d, selected[2:])
+    if item is None:
+        raise PreventUpdate
+    return selected[2:], item
+
+
 def register(app: Any, services: Any) -> None:
     """Attach the properties panel's callbacks (and the layer grid's)."""
 
@@ -142,12 +152,7 @@ def register(app: Any, services: Any) -> None:
         prevent_initial_call=True,
     )
     def write_compartment(values, selected, d):
-        if not selected or not selected.startswith("c:"):
-            raise PreventUpdate
-        key = selected[2:]
-        item = D.find(d, key)
-        if item is None:
-            raise PreventUpdate
+        key, item = _selected_item(selected, "c:", d)
         names = [i["id"]["name"] for i in ctx.inputs_list[0]]
         changes = {n: (v or "") for n, v in zip(names, values, strict=True) if (v or "") != item.get(n, "")}
         if not changes:
@@ -162,12 +167,7 @@ def register(app: Any, services: Any) -> None:
         prevent_initial_call=True,
     )
     def write_link(values, selected, d):
-        if not selected or not selected.startswith("l:"):
-            raise PreventUpdate
-        key = selected[2:]
-        item = D.find(d, key)
-        if item is None:
-            raise PreventUpdate
+        key, item = _selected_item(selected, "l:", d)
         names = [i["id"]["name"] for i in ctx.inputs_list[0]]
         allowed = set(D.LINK_FIELDS[item["kind"]]) | {"from", "to"}
         changes = {}

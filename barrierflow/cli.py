@@ -147,13 +147,17 @@ def _cmd_run(args: argparse.Namespace) -> int:
             result = simulate(scenario, integrator=integrator, grid=grid, progress=progress)
     else:
         result = simulate(scenario, integrator=integrator, grid=grid)
+    # everything shown or written is made before the first file is written, so that a failure
+    # leaves no output at all; the traces and their sidecar are then written as a pair
+    summary = run_summary(result, threshold)
+    metrics_csv = result.metrics(threshold=threshold).to_csv() if args.metrics else None
     result.to_csv(out)
-    print(run_summary(result, threshold))
+    print(summary)
     print(f"wrote {out} and {out.with_suffix('.json')}")
-    if args.metrics:
+    if metrics_csv is not None:
         from barrierflow.io import atomic_write
 
-        atomic_write(args.metrics, result.metrics(threshold=threshold).to_csv())
+        atomic_write(args.metrics, metrics_csv)
         print(f"wrote {args.metrics}")
     print(CAUTION)
     return EXIT_OK

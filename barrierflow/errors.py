@@ -28,6 +28,10 @@ __all__ = [
 ]
 
 
+MAX_SHOWN = 200
+"""Longest value shown in a message (characters); a longer one is cut, with its length."""
+
+
 class BarrierflowError(Exception):
     """Base class of every error that barrierflow raises on purpose."""
 
@@ -52,6 +56,13 @@ class Problem:
     value: str
     expected: str
     file: str | None = None
+
+    def __post_init__(self) -> None:
+        # a value of thousands of characters (a pasted table, a long number) is shown by its start
+        value = self.value if isinstance(self.value, str) else str(self.value)
+        if len(value) > MAX_SHOWN:
+            value = f"{value[:MAX_SHOWN - 40]}... ({len(value)} characters)"
+        object.__setattr__(self, "value", value)
 
     def __str__(self) -> str:
         head = f"{self.file}: " if self.file else ""

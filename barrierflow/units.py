@@ -29,6 +29,7 @@ Guide for the Use of the International System of Units, 2008), Appendix B.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from functools import cache, lru_cache
 from typing import TYPE_CHECKING, Any
@@ -110,26 +111,277 @@ def _expected(kind: str) -> str:
 
 
 def _quantity(text: object, kind: str, field: str) -> pint.Quantity:
+    """Read ``text`` as a number and a unit (see :func:`read_quantity`) and make a pint quantity."""
     if kind not in KINDS:
         raise KeyError(f"unknown kind of quantity {kind!r}; known: {', '.join(KINDS)}")
     if isinstance(text, bool) or not isinstance(text, str):
         if isinstance(text, (int, float)):
             raise UnitsError(text, f"a bare number is not accepted here; expected {_expected(kind)}", field)
         raise UnitsError(text, f"expected {_expected(kind)}", field)
-    stripped = text.strip()
     try:
-        q = get_registry().Quantity(stripped.replace("µ", "u").replace("μ", "u"))
-    except Exception:  # pint raises several types for unparsable text
-        raise UnitsError(text, f"cannot read this unit; expected {_expected(kind)}", field) from None
-    try:
-        if not isinstance(q, get_registry().Quantity) or q.dimensionless:
-            raise UnitsError(text, f"the unit is missing; expected {_expected(kind)}", field)
-        finite = isinstance(q.magnitude, (int, float)) and math.isfinite(float(q.magnitude))
-    except OverflowError:  # a whole number too large for a float
-        finite = False
-    if not finite:
+        number, unit = read_quantity(text)
+    except _Unreadable as err:
+        raise UnitsError(text, f"{err.reason}; expected {_expected(kind)}", field) from None
+    if not math.isfinite(number):
         raise UnitsError(text, "must be a finite number with its unit", field)
-    return q
+    if unit.dimensionless:
+        raise UnitsError(text, f"the unit is missing; expected {_expected(kind)}", field)
+    try:
+        return get_registry().Quantity(number, unit)
+    except Exception:  # pint refuses some units in a quantity (offset units such as degC/h)
+        raise UnitsError(text, f"cannot read this unit; expected {_expected(kind)}", field) from None
+
+
+# ---------------------------------------------------------------------------- the unit grammar
+#
+#   quantity := number unit?                      (spaces allowed around and between)
+#   number   := [+-]? (digits [. digits?] | . digits) ([eE] [+-]? digits)?
+#   unit     := term ((* | / | · | space | per) term)*
+#   term     := (square | cubic)? factor ((^ | **) exponent | superscript | squared | cubed)?
+#   factor   := name | 1 | ( unit )
+#   exponent := [+-]? digits | ( [+-]? digits )          (a whole number from -12 to 12)
+#
+# A name is looked up in the pint registry and nothing is ever evaluated: the number is read by
+# float(), the unit is built from the looked-up names with whole powers, products and
+# quotients. So "9**9**9 um" is refused at once, where handing the text to pint would compute
+# the power.
+
+MAX_TEXT = 1000
+"""Longest value text read (characters)."""
+MAX_EXPONENT = 12
+"""Largest power of a unit (in absolute value)."""
+MAX_DEPTH = 8
+"""Deepest nesting of parentheses in a unit."""
+MAX_TERMS = 32
+"""Most units in one unit expression."""
+
+_SPACE = " \t\u00a0\u202f"
+_NUMBER = re.compile(r"[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
+_NON_FINITE = re.compile(r"[+-]?(?:nan|inf|infinity)(?![A-Za-z0-9_])", re.IGNORECASE)
+_NAME = re.compile(r"[A-Za-z_\u00b5\u03bc\u00b0][A-Za-z0-9_\u00b5\u03bc]*")
+_SUPERSCRIPT = re.compile("[\u207a\u207b]?[\u2070\u00b9\u00b2\u00b3\u2074-\u2079]+")
+_SUPER_DIGITS = str.maketrans("\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079\u207a\u207b",
+                              "0123456789+-")
+_LONE_ONE = re.compile(r"1(?![0-9.eE])")  # the 1 of "1/h", a unit rather than a number
+_WORDS_BEFORE = {"square": 2, "sq": 2, "cubic": 3}
+_WORDS_AFTER = {"squared": 2, "cubed": 3}
+
+
+class _Unreadable(Exception):
+    """The text is not a number with a unit; ``reason`` says why, in a user's words."""
+
+    def __init__(self, reason: str):
+        super().__init__(reason)
+        self.reason = reason
+
+
+def read_quantity(text: str) -> tuple[float, pint.Unit]:
+    """Read a value written as a number and a unit, by the strict grammar of this module.
+
+    The number is read as a float; the unit is built from unit names looked up in the pint
+    registry, joined by ``*`` (or a space, or ``·``), ``/`` (or ``per``) and whole powers
+    (``^2``, ``**2``, ``²``, ``^-1``) from -12 to 12, with parentheses. Nothing is evaluated:
+    a number inside the unit (other than a lone ``1``, as in ``1/h``), a power of a power or a
+    fractional power is refused. ``µ`` (micro sign) and ``μ`` (Greek mu) read as ``u``.
+
+    Parameters
+    ----------
+    text : str
+        For example ``"15 um"``, ``"1e-9 cm^2/s"``, ``"4 uL/(cm^2*h)"``.
+
+    Returns
+    -------
+    number : float
+        The number as written (may be infinite when it overflows a float).
+    unit : pint.Unit
+        The unit (dimensionless when none is written).
+
+    Raises
+    ------
+    _Unreadable
+        With the reason, in words a user understands (callers turn it into a UnitsError that
+        names the field).
+
+    Examples
+    --------
+    >>> number, unit = read_quantity("4 uL/(cm^2*h)")
+    >>> number, str(unit)
+    (4.0, 'microliter / centimeter ** 2 / hour')
+    """
+    if len(text) > MAX_TEXT:
+        raise _Unreadable(f"too long ({len(text)} characters; at most {MAX_TEXT})")
+    body = text.strip(_SPACE)
+    if not body:
+        raise _Unreadable("nothing is written")
+    if _NON_FINITE.match(body):
+        return math.nan, get_registry().Unit("")
+    m = _NUMBER.match(body)
+    if m is None:
+        if _NAME.match(body):
+            raise _Unreadable("the number is missing (write the number, then the unit)")
+        raise _Unreadable("cannot read this as a number followed by a unit")
+    number = float(m.group()) + 0.0  # + 0.0: "-0 um" reads as 0, as it did before
+    rest = body[m.end():]
+    if not rest.strip(_SPACE):
+        return number, get_registry().Unit("")
+    if rest.startswith(("**", "^")):
+        raise _Unreadable("a calculation is not read; write one number (digits, with an exponent such as "
+                          "1e-9 if needed), then the unit")
+    if rest[0] not in _SPACE and not _NAME.match(rest) and rest[0] not in "(/":
+        raise _Unreadable(f"cannot read this unit ({_near(rest, 0)}; write the number once, then the unit)")
+    parser = _UnitParser(rest.strip(_SPACE))
+    return number, parser.parse()
+
+
+def _near(text: str, pos: int) -> str:
+    """Where a unit stops being readable, for a message."""
+    return f"unexpected '{text[pos]}'" if pos < len(text) else "it ends too early"
+
+
+class _UnitParser:
+    """A recursive-descent reader of the unit grammar above, building a pint unit."""
+
+    def __init__(self, text: str):
+        self.text = text
+        self.pos = 0
+        self.terms = 0
+
+    # -- lexing helpers
+    def _skip(self) -> None:
+        while self.pos < len(self.text) and self.text[self.pos] in _SPACE:
+            self.pos += 1
+
+    def _fail(self, why: str | None = None) -> _Unreadable:
+        hint = ("a unit is unit names joined by *, / and whole powers such as ^2 or ^-1 "
+                "(for example 'cm^2/s' or 'uL/(cm^2*h)')")
+        return _Unreadable(f"cannot read this unit ({why or _near(self.text, self.pos)}); {hint}")
+
+    def _op(self) -> str | None:
+        """The operator at the current position (consumed), or None."""
+        t = self.text
+        if t.startswith("**", self.pos) or t.startswith("^", self.pos):
+            return None
+        if self.pos < len(t) and t[self.pos] in "*/\u00b7\u22c5":
+            op = "/" if t[self.pos] == "/" else "*"
+            self.pos += 1
+            return op
+        m = _NAME.match(t, self.pos)
+        if m and m.group() == "per":
+            self.pos = m.end()
+            return "/"
+        return None
+
+    # -- grammar
+    def parse(self) -> pint.Unit:
+        unit = self._unit(0)
+        self._skip()
+        if self.pos != len(self.text):
+            raise self._fail()
+        return unit
+
+    def _unit(self, depth: int) -> pint.Unit:
+        if self._op() == "/":  # "0.5/h" or "0.5 per hour": one over what follows
+            self._skip()
+            unit = get_registry().Unit("") / self._term(depth)
+        else:
+            unit = self._term(depth)
+        while True:
+            start = self.pos
+            self._skip()
+            if self.pos >= len(self.text) or self.text[self.pos] == ")":
+                return unit
+            op = self._op()
+            if op is None:
+                if self.pos == start:  # two names with nothing between them
+                    raise self._fail()
+                op = "*"  # a space between two units multiplies them
+            self._skip()
+            term = self._term(depth)
+            unit = unit / term if op == "/" else unit * term
+
+    def _term(self, depth: int) -> pint.Unit:
+        self.terms += 1
+        if self.terms > MAX_TERMS:
+            raise self._fail(f"more than {MAX_TERMS} units")
+        power = 1
+        m = _NAME.match(self.text, self.pos)
+        if m and m.group() in _WORDS_BEFORE:
+            power = _WORDS_BEFORE[m.group()]
+            self.pos = m.end()
+            self._skip()
+        unit = self._factor(depth)
+        t = self.text
+        if t.startswith("**", self.pos) or t.startswith("^", self.pos):
+            self.pos += 2 if t.startswith("**", self.pos) else 1
+            power *= self._exponent()
+        elif (s := _SUPERSCRIPT.match(t, self.pos)) is not None:
+            self.pos = s.end()
+            power *= self._whole(s.group().translate(_SUPER_DIGITS))
+        else:
+            save = self.pos
+            self._skip()
+            w = _NAME.match(t, self.pos)
+            if w and w.group() in _WORDS_AFTER:
+                power *= _WORDS_AFTER[w.group()]
+                self.pos = w.end()
+            else:
+                self.pos = save
+        if t.startswith("**", self.pos) or t.startswith("^", self.pos) or _SUPERSCRIPT.match(t, self.pos):
+            raise self._fail("a power of a power; write one whole power such as ^2")
+        return unit if power == 1 else unit**power
+
+    def _factor(self, depth: int) -> pint.Unit:
+        t = self.text
+        if self.pos >= len(t):
+            raise self._fail()
+        if t[self.pos] == "(":
+            if depth >= MAX_DEPTH:
+                raise self._fail(f"parentheses nested more than {MAX_DEPTH} deep")
+            self.pos += 1
+            self._skip()
+            unit = self._unit(depth + 1)
+            self._skip()
+            if self.pos >= len(t) or t[self.pos] != ")":
+                raise self._fail("a parenthesis is not closed")
+            self.pos += 1
+            return unit
+        m = _NAME.match(t, self.pos)
+        if m:
+            self.pos = m.end()
+            return _unit_named(m.group())
+        if t[self.pos] == "1" and not t[self.pos + 1:self.pos + 2].isdigit() and t[self.pos + 1:self.pos + 2] != ".":
+            self.pos += 1
+            return get_registry().Unit("")
+        if t[self.pos].isdigit() or t[self.pos] == ".":
+            raise self._fail("a number inside the unit; write the number once, before the unit")
+        raise self._fail()
+
+    def _exponent(self) -> int:
+        t = self.text
+        m = re.compile(r"\(?[+-]?[0-9]+\)?").match(t, self.pos)
+        if m is None or m.group().count("(") != m.group().count(")"):
+            raise self._fail("a power must be a whole number such as ^2 or ^-1")
+        self.pos = m.end()
+        if self.pos < len(t) and t[self.pos] == ".":
+            raise self._fail("a power must be a whole number such as ^2 or ^-1")
+        return self._whole(m.group().strip("()"))
+
+    def _whole(self, digits: str) -> int:
+        value = int(digits) if len(digits) <= 4 else MAX_EXPONENT + 1
+        if abs(value) > MAX_EXPONENT or value == 0:
+            raise self._fail(f"a power must be a whole number from -{MAX_EXPONENT} to {MAX_EXPONENT}, not 0")
+        return value
+
+
+@lru_cache(maxsize=4096)
+def _unit_named(name: str) -> pint.Unit:
+    """The pint unit of one name (``µ`` and ``μ`` read as ``u``)."""
+    reg = get_registry()
+    try:
+        unit = reg.Unit(name.replace("\u00b5", "u").replace("\u03bc", "u"))
+    except Exception:  # pint's UndefinedUnitError, or anything it cannot take as a unit name
+        raise _Unreadable(f"cannot read this unit (unknown unit '{name}')") from None
+    return unit
 
 
 def parse_quantity(text: object, kind: str, field: str = "", molar_mass: float | None = None) -> float:
@@ -251,11 +503,12 @@ def unit_factor(kind: str, unit: str, molar_mass: float | None = None) -> float:
         If the unit is not of that kind.
     """
     field = f"unit {unit!r}"
-    q = _quantity(f"1 {unit}", kind, field)
-    if q.magnitude != 1:  # "2 mg" or "0 mg" is a quantity, not a unit
-        k = KINDS[kind]
+    k = KINDS[kind]
+    if isinstance(unit, str) and _NUMBER.match(unit.strip(_SPACE)) and not _LONE_ONE.match(unit.strip(_SPACE)):
+        # "2 mg" or "0 mg" is a quantity, not a unit
         raise UnitsError(unit, f"a unit without a number is expected; {k.description} unit, such as '{k.internal}'",
                          field)
+    _quantity(f"1 {unit}", kind, field)
     per_internal = parse_quantity(f"1 {unit}", kind, field=field, molar_mass=molar_mass)
     return 1.0 / per_internal
 

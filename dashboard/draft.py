@@ -38,12 +38,11 @@ import hashlib
 import math
 import re
 import secrets
-import tomllib
 from collections.abc import Iterable, Mapping
 from typing import Any
 
 from barrierflow.errors import Problem, ScenarioError, UnitsError
-from barrierflow.io import loads
+from barrierflow.io import loads, read_toml
 from barrierflow.model import Scenario, from_document
 from barrierflow.units import convert, parse_quantity
 
@@ -290,13 +289,9 @@ def draft_from_toml(text: str, file: str = "untitled.toml") -> tuple[dict[str, A
         A syntax error (the draft is then empty) or the scenario's problems.
     """
     try:
-        doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError:
-        try:
-            loads(text, file)
-        except ScenarioError as err:
-            return new_draft(file), list(err.problems)
-        raise AssertionError("unreachable: tomllib and barrierflow disagree") from None
+        doc = read_toml(text, file)  # never anything but a ScenarioError (deep nesting included)
+    except ScenarioError as err:
+        return new_draft(file), list(err.problems)
     d = draft_from_document(doc, file)
     try:
         loads(text, file)

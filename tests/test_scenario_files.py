@@ -508,3 +508,108 @@ def test_odd_values_anywhere_give_a_scenario_error_and_never_a_crash():
             assert all(str(p).startswith("odd.toml: ") for p in err.problems), str(err)
         else:
             assert barrierflow.loads(s.to_toml()) == s
+
+
+# ----------------------------------------------------------------------------- every problem at once
+def test_every_problem_of_one_layer_is_reported():
+    # issue 16: a wrong diffusivity used to hide the negative thickness of the same layer
+    text = edit('thickness = "15 um"\n  diffusivity = "1e-9 cm^2/s"\n  partition = 10',
+                'thickness = "-15 um"\n  diffusivity = "1e-9 cm"\n  partition = -10\n  cells = 0')
+    assert lines(refusal(text)) == [
+        "patch.toml: barrier 'skin' layer 1 thickness: got -15 um; must be > 0",
+        "patch.toml: barrier 'skin' layer 1 diffusivity: got 1e-9 cm; wrong kind of unit (cm); "
+        "expected a diffusivity (area per time) with its unit, such as '1e-9 cm^2/s'",
+        "patch.toml: barrier 'skin' layer 1 partition: got -10; must be > 0",
+        "patch.toml: barrier 'skin' layer 1 cells: got 0; must be a whole number >= 1",
+    ]
+
+
+def test_a_missing_required_key_does_not_hide_the_others():
+    text = edit('  thickness = "100 um"\n  diffusivity = "1e-6 cm^2/s"\n', '  thickness = "0 um"\n  partition = 0\n')
+    assert lines(refusal(text)) == [
+        "patch.toml: barrier 'skin' layer 2 thickness: got 0 um; must be > 0",
+        "patch.toml: barrier 'skin' layer 2 partition: got 0; must be > 0",
+        "patch.toml: barrier 'skin' layer 2 diffusivity: got nothing; this key is required, such as '1e-9 cm^2/s'",
+    ]
+
+
+def test_every_problem_of_a_compartment_and_a_dose_is_reported():
+    text = edit('volume = "5 L"\nclearance = "10 L/h"', 'volume = "5 kg"\nclearance = "-10 L/h"\npartition = 0')
+    text = edit('amount = "1 mg"\nat = "12 h"', 'amount = "1 mg/mL"\nat = "-12 h"\nevery = "0 h"', text)
+    assert [p.field for p in refusal(text).problems] == [
+        "compartment 'body' volume", "compartment 'body' clearance", "compartment 'body' partition",
+        "dose 1 amount", "dose 1 at", "dose 1 every"]
+
+
+def test_an_unreadable_field_causes_no_follow_on_message():
+    # an unreadable held_concentration must not make "clearance" look wrong, nor an unreadable
+    # "from" make the barrier look like a loop onto one compartment
+    text = edit('volume = "5 L"', 'held_concentration = "5 kg"')
+    assert [p.field for p in refusal(text).problems] == ["compartment 'body' held_concentration"]
+    text = edit('from = "donor"', 'from = 7')
+    assert [p.field for p in refusal(text).problems] == ["barrier 'skin' from"]
+    text = edit('kind = "bolus"', 'kind = 3')
+    assert lines(refusal(text)) == ["patch.toml: dose 1 kind: got 3; expected text in quotes"]
+
+
+def test_check_on_the_command_line_shows_every_problem_of_a_layer(tmp_path, capsys):
+    from barrierflow.cli import main
+
+    path = tmp_path / "cell.toml"
+    path.write_text(edit('thickness = "15 um"\n  diffusivity = "1e-9 cm^2/s"',
+                         'thickness = "-15 um"\n  diffusivity = "1e-9 cm"'), encoding="utf-8")
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "layer 1 thickness: got -15 um; must be > 0" in err
+    assert "layer 1 diffusivity: got 1e-9 cm; wrong kind of unit" in err
+    assert "2 problems; the scenario was refused" in err
+
+
+# ----------------------------------------------------------------------------- files that are not scenarios
+def test_values_nested_thousands_deep_are_refused():
+    # issue 10: 5,000 nested arrays made the TOML parser exceed Python's recursion limit
+    err = refusal(BASE + "\n[output]\ntime = " + "[" * 5000 + "]" * 5000 + "\n")
+    assert lines(err) == ["patch.toml: TOML syntax: got arrays or inline tables nested hundreds of levels deep; "
+                          "a scenario file (its values are nested a few levels at most)"]
+    err = refusal(BASE.replace('name = "test cell"', 'name = ' + "[" * 40 + "]" * 40))
+    assert lines(err) == ["patch.toml: scenario name: got values nested more than 16 levels deep; "
+                          "a scenario value is a number, a text or a short list of them"]
+
+
+def test_a_utf8_byte_order_mark_is_ignored_and_utf16_is_refused(tmp_path):
+    path = tmp_path / "bom.toml"
+    path.write_bytes(b"\xef\xbb\xbf" + BASE.encode())
+    assert barrierflow.load(path) == barrierflow.loads(BASE)
+    path.write_bytes(BASE.encode("utf-16"))
+    assert lines(refusal_from_file(path)) == [
+        "bom.toml: file: got a byte that is not UTF-8 at position 0; a scenario file is UTF-8 text "
+        "(it is UTF-16 text; save it as UTF-8)"]
+
+
+def test_long_values_are_shown_by_their_start():
+    err = refusal(edit('volume = "5 L"', 'volume = "' + "5" * 600 + ' kg"'))
+    (line,) = lines(err)
+    assert line.startswith("patch.toml: compartment 'body' volume: got 5555") and "... (603 characters)" in line
+    assert len(line) < 400
+
+
+def test_a_fault_of_the_reader_is_still_a_refusal(monkeypatch):
+    # the last line of defence: an exception the reader did not mean to raise becomes a
+    # ScenarioError that says it is the reader's fault (the fuzzing tests make sure none occurs)
+    import barrierflow.io.scenario_files as files
+
+    def broken(doc, file=None):
+        raise TypeError("injected")
+
+    monkeypatch.setattr(files, "from_document", broken)
+    err = refusal(BASE)
+    assert files.READER_FAULT in str(err) and "TypeError: injected" in str(err)
+
+
+def test_a_regimen_of_too_many_events_is_refused_before_it_is_listed():
+    text = edit('at = "12 h"', 'at = "12 h"\nevery = "1e-9 h"')
+    assert lines(refusal(text)) == [
+        "patch.toml: dose: got 1.2e+10 dosing events in the run; at most 1,000,000 (a longer 'every' or a "
+        "'count' keeps the regimen in bounds)"]
+    text = edit('at = "12 h"', 'at = "12 h"\nevery = "1e-300 h"\ncount = 3')
+    barrierflow.loads(text)  # three events: fine

@@ -232,3 +232,102 @@ def test_one_registry_in_the_package():
     assert makers == ["units.py"]
     assert all(math.isfinite(parse_quantity(f"1 {k.internal}", name)) for name, k in KINDS.items())
     assert registry.Quantity("1 cm").to("um").magnitude == pytest.approx(1e4)
+
+
+# ----------------------------------------------------------------------------- the strict grammar
+# A value is a number and a unit, never an expression: the grammar in barrierflow/units.py reads
+# the number with float() and builds the unit from names looked up in the registry. Every form
+# the scenario format and the README promise reads as before (the conversion factors are those of
+# NIST SP 811, as in DEFINITIONS above).
+PROMISED = [
+    ("15 um", "length", 0.0015), ("15 \u00b5m", "length", 0.0015), ("15um", "length", 0.0015),
+    ("0.1 mm", "length", 0.01), (".5 mm", "length", 0.05), ("5. mm", "length", 0.5),
+    ("1e-9 cm^2/s", "diffusivity", 3.6e-6), ("1E-9 cm**2/s", "diffusivity", 3.6e-6),
+    ("1e-9 cm^2 / s", "diffusivity", 3.6e-6), ("1e-9 cm\u00b2/s", "diffusivity", 3.6e-6),
+    ("1e-9 cm^2 s^-1", "diffusivity", 3.6e-6), ("1e-9 cm^2*s^(-1)", "diffusivity", 3.6e-6),
+    ("10 cm^2", "area", 10.0), ("5 L", "volume", 5000.0), ("10 L/h", "flow", 10000.0),
+    ("2 mg", "amount", 2.0), ("20 mg/mL", "concentration", 20.0), ("24 h", "time", 24.0),
+    ("7 d", "time", 168.0), ("0.8 1/h", "rate", 0.8), ("0.8/h", "rate", 0.8), ("0.8 per hour", "rate", 0.8),
+    ("1 mg/(cm^2*h)*cm^2", "amount_rate", 1.0), ("2 mg/L*L/h", "amount_rate", 2.0),
+    ("250 g/mol", "molar_mass", 250.0), ("+3 mL", "volume", 3.0), ("-0 um", "length", 0.0),
+    ("1 mg\u00b7mL\u207b\u00b9", "concentration", 1.0), ("3 square centimeters", "area", 3.0),
+    (" 15 um ", "length", 0.0015), ("15\u00a0um", "length", 0.0015),
+]
+
+
+@pytest.mark.parametrize(("text", "kind", "expected"), PROMISED, ids=[p[0] for p in PROMISED])
+def test_every_promised_form_still_reads(text, kind, expected):
+    assert parse_quantity(text, kind) == pytest.approx(expected, rel=EXACT, abs=0.0)
+
+
+def test_molar_and_per_area_forms_read():
+    # IUPAC Green Book (2007) 2.10 as above; 4 uL/(cm^2*h) is a volume per area and time (a
+    # per-area rate of application): 4e-3 mL/(cm^2 h), read here as a pint unit
+    from barrierflow.units import read_quantity
+
+    assert parse_quantity("1 mmol/L", "concentration", molar_mass=250.0) == pytest.approx(0.25, rel=EXACT)
+    number, unit = read_quantity("4 uL/(cm^2*h)")
+    assert number == 4.0
+    assert registry.Quantity(number, unit).to("mL/(cm^2*h)").magnitude == pytest.approx(4e-3, rel=EXACT)
+
+
+REFUSED = [
+    ("um", "the number is missing"),                      # issue 10: was read as 1 um
+    ("cm^2/s", "the number is missing"),
+    ("9**9**9 um", "a calculation is not read"),          # issue 10: hung the process
+    ("9^9 um", "a calculation is not read"),
+    ("2 um^9^9", "a power of a power"),
+    ("2 um**2**3", "a power of a power"),
+    ("2 um^99", "a power must be a whole number from -12 to 12"),
+    ("2 um^0.5", "a power must be a whole number"),
+    ("2 um^x", "a power must be a whole number"),
+    ("2 100 um", "a number inside the unit"),
+    ("2 um*3", "a number inside the unit"),
+    ("1,5 um", "unexpected ','"),
+    ("15 um um um (", "it ends too early"),
+    ("15 (um", "a parenthesis is not closed"),
+    ("15 um)", "unexpected ')'"),
+    ("15 " + "(" * 9 + "um" + ")" * 9, "parentheses nested more than 8 deep"),
+    ("15 " + "*".join(["um"] * 40), "more than 32 units"),
+    ("15 blorbs", "unknown unit 'blorbs'"),
+    ("15 __import__", "unknown unit '__import__'"),
+    ("15 um; 3 mm", "unexpected ';'"),
+    ("", "nothing is written"),
+    ("   ", "nothing is written"),
+    ("x" * 1001, "too long"),
+    ("fifteen um", "the number is missing"),
+    ("0x10 um", "unknown unit 'x10'"),
+    ("1_000 um", "unknown unit '_000'"),
+    ("1e um", "wrong kind of unit"),
+]
+
+
+@pytest.mark.parametrize(("text", "reason"), REFUSED, ids=[r[0][:30] for r in REFUSED])
+def test_what_is_not_a_number_and_a_unit_is_refused_with_the_reason(text, reason):
+    with pytest.raises(UnitsError) as info:
+        parse_quantity(text, "length", field="barrier 'skin' layer 1 thickness")
+    message = str(info.value)
+    assert reason in message, message
+    assert message.startswith("barrier 'skin' layer 1 thickness: got ")
+    assert message.endswith("expected a length with its unit, such as '15 um'")
+
+
+def test_a_power_tower_is_refused_at_once_in_a_new_process():
+    # the text that made pint compute 9**(9**9) (a number of 370 million digits): a new process
+    # must answer well within the limit (it takes a few tenths of a second to start)
+    import subprocess
+    import sys
+
+    code = ("from barrierflow.units import parse_quantity\n"
+            "try:\n    parse_quantity('9**9**9 um', 'length')\nexcept Exception as e:\n    print(type(e).__name__)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert out.stdout.strip() == "UnitsError", out.stderr
+
+
+def test_unit_without_number_is_refused_for_output_units_too():
+    with pytest.raises(UnitsError, match="a unit without a number is expected"):
+        unit_factor("amount", "2 mg")
+    with pytest.raises(UnitsError, match="a calculation is not read|cannot read this unit"):
+        unit_factor("amount", "mg**9**9")
+    assert unit_factor("rate", "1/min") == pytest.approx(1 / 60, rel=EXACT)
+    assert unit_factor("concentration", "ug/L") == pytest.approx(1e6, rel=EXACT)

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..caution import CAUTION
 from ..engine import Trajectory
-from ..io import atomic_write
+from ..io import traces_digest, write_traces
 from ..model import Scenario
 from ..units import unit_factor
 
@@ -463,8 +463,15 @@ class Result:
             w.writerow([_fmt(x) for x in row])
         return buf.getvalue()
 
-    def sidecar(self) -> dict[str, Any]:
-        """The JSON sidecar: scenario, software version, solver settings, grid, mass balance."""
+    def sidecar(self, csv_text: str | None = None) -> dict[str, Any]:
+        """The JSON sidecar: scenario, software version, solver settings, grid, mass balance, and
+        the SHA-256 of the traces CSV it belongs with (key ``traces``).
+
+        Parameters
+        ----------
+        csv_text : str, optional
+            The CSV text (:meth:`csv_text`), when already made.
+        """
         from .. import __version__
 
         tr = self.trajectory
@@ -494,12 +501,18 @@ class Result:
             "mass_balance_mg": self.mass_balance.as_dict(),
             "most_negative_concentration_mg_per_mL": self.most_negative,
             "warnings": list(self.warnings()),
+            "traces": traces_digest(self.csv_text() if csv_text is None else csv_text),
         }
         doc["metrics"] = self.metrics().as_dict()
         return doc
 
     def to_csv(self, path: str | os.PathLike[str] | None = None) -> Path:
-        """Write the traces CSV and its JSON sidecar ``<name>.json`` beside it, atomically.
+        """Write the traces CSV and its JSON sidecar ``<name>.json`` beside it, atomically, as a pair.
+
+        Both texts are made first (a failure leaves no file); then both are written to
+        temporary files and renamed into place, the CSV first and the sidecar last. The sidecar
+        records the CSV's SHA-256 (``traces``), so :func:`barrierflow.io.traces_match` tells
+        whether the two belong together, even after a run killed between the renames.
 
         Parameters
         ----------
@@ -514,14 +527,12 @@ class Result:
         if path is None:
             stem = Path(self.scenario.source).stem if self.scenario.source else "barrierflow-run"
             path = Path(f"{stem}.csv")
-        path = Path(path)
-        atomic_write(path, self.csv_text())
-        atomic_write(path.with_suffix(".json"), self.sidecar_text())
-        return path
+        csv_text = self.csv_text()
+        return write_traces(path, csv_text, self.sidecar_text(csv_text))
 
-    def sidecar_text(self) -> str:
-        """The JSON sidecar as text, exactly as :meth:`to_csv` writes it."""
-        return json.dumps(_clean(self.sidecar()), indent=2, default=_json_default, allow_nan=False) + "\n"
+    def sidecar_text(self, csv_text: str | None = None) -> str:
+        """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""
+        return json.dumps(_clean(self.sidecar(csv_text)), indent=2, default=_json_default, allow_nan=False) + "\n"
 
 
 def _clean(x: Any) -> Any:

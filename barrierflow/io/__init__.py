@@ -4,7 +4,20 @@ This package is the only place that opens a scenario file. It returns validated 
 (:class:`barrierflow.Scenario`); the engine, the analysis and the dashboard never parse text.
 """
 
-from .atomic import atomic_write
-from .scenario_files import load, loads, save
+from .atomic import atomic_write, atomic_write_together, remove_stale_temporaries
+from .scenario_files import load, loads, read_toml, save
+from .traces import sidecar_path, traces_digest, traces_match, write_traces
 
-__all__ = ["atomic_write", "load", "loads", "save"]
+__all__ = [
+    "atomic_write",
+    "atomic_write_together",
+    "load",
+    "loads",
+    "read_toml",
+    "remove_stale_temporaries",
+    "save",
+    "sidecar_path",
+    "traces_digest",
+    "traces_match",
+    "write_traces",
+]

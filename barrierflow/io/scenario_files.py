@@ -5,12 +5,47 @@ from __future__ import annotations
 import os
 import tomllib
 from pathlib import Path
+from typing import Any
 
-from ..errors import Problem, ScenarioError
+from ..errors import BarrierflowError, Problem, ScenarioError
 from ..model import Scenario, from_document
 from .atomic import atomic_write
 
-__all__ = ["load", "loads", "save"]
+__all__ = ["load", "loads", "read_toml", "save"]
+
+
+def read_toml(text: str, file: str | None = None) -> dict[str, Any]:
+    """Parse TOML text into a document (nested dicts), refusing anything that is not TOML.
+
+    A leading UTF-8 byte-order mark (which some editors write) is ignored.
+
+    Parameters
+    ----------
+    text : str
+        The TOML document.
+    file : str or None
+        Name shown in error messages.
+
+    Raises
+    ------
+    ScenarioError
+        For a TOML syntax error (with its line), values nested too deeply for the parser, or
+        anything else the parser cannot take; never another exception.
+    """
+    if not isinstance(text, str):
+        raise ScenarioError([Problem("file", type(text).__name__, "TOML text (str)", file)])
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ScenarioError([Problem("TOML syntax", str(err), "a valid TOML document", file)]) from None
+    except RecursionError:
+        raise ScenarioError([Problem("TOML syntax", "arrays or inline tables nested hundreds of levels deep",
+                                     "a scenario file (its values are nested a few levels at most)", file)]) from None
+    except Exception as err:  # the parser failed in a way it does not document: still a refusal
+        raise ScenarioError([Problem("TOML syntax", f"text the TOML parser cannot read ({type(err).__name__}: "
+                                     f"{err})", "a valid TOML document", file)]) from None
 
 
 def loads(text: str, file: str | None = None) -> Scenario:
@@ -26,13 +61,26 @@ def loads(text: str, file: str | None = None) -> Scenario:
     Raises
     ------
     ScenarioError
-        For a TOML syntax error (with its line) or any problem of the scenario.
+        For a TOML syntax error (with its line) or any problem of the scenario. Nothing else
+        escapes: a failure of the reader itself is reported as a ScenarioError too (naming it an
+        internal fault, so that it can be reported).
     """
+    doc = read_toml(text, file)
     try:
-        doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise ScenarioError([Problem("TOML syntax", str(err), "a valid TOML document", file)]) from None
-    return from_document(doc, file)
+        return from_document(doc, file)
+    except BarrierflowError:
+        raise
+    except RecursionError:
+        raise ScenarioError([Problem("file", "values nested too deeply to read",
+                                     "a scenario file (its values are nested a few levels at most)", file)]) from None
+    except Exception as err:
+        raise ScenarioError([Problem("file", f"a file the reader failed on ({type(err).__name__}: {err})",
+                                     f"{READER_FAULT}; please report it with the file", file)]) from err
+
+
+READER_FAULT = "an internal fault of the scenario reader"
+"""Words that mark a refusal caused by a fault of the reader rather than by the file (the
+fuzzing tests look for them)."""
 
 
 def load(path: str | os.PathLike[str]) -> Scenario:
@@ -41,7 +89,7 @@ def load(path: str | os.PathLike[str]) -> Scenario:
     Parameters
     ----------
     path : path-like
-        A ``.toml`` scenario file (see the scenario format in DEVELOPERS.md).
+        A ``.toml`` scenario file (see the scenario format in DEVELOPERS.md), UTF-8 text.
 
     Returns
     -------
@@ -56,11 +104,18 @@ def load(path: str | os.PathLike[str]) -> Scenario:
     """
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        raw = p.read_bytes()
     except FileNotFoundError:
         raise ScenarioError([Problem("file", str(p), "no such file", p.name)]) from None
-    except (OSError, UnicodeDecodeError) as err:
-        raise ScenarioError([Problem("file", str(p), f"cannot be read ({err})", p.name)]) from None
+    except OSError as err:
+        raise ScenarioError([Problem("file", str(p), f"cannot be read ({err.strerror or err})", p.name)]) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        hint = ("it is UTF-16 text; save it as UTF-8" if raw[:2] in (b"\xff\xfe", b"\xfe\xff")
+                else "save it as UTF-8 text")
+        raise ScenarioError([Problem("file", f"a byte that is not UTF-8 at position {err.start}",
+                                     f"a scenario file is UTF-8 text ({hint})", p.name)]) from None
     return loads(text, p.name)
 
 

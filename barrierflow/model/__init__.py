@@ -12,10 +12,11 @@ from .components import (
     Transfer,
 )
 from .document import from_document, to_document, to_toml
-from .scenario import MAX_TOTAL_CELLS, Scenario
+from .scenario import MAX_EVENTS, MAX_TOTAL_CELLS, Scenario
 
 __all__ = [
     "DOSE_KINDS",
+    "MAX_EVENTS",
     "MAX_TOTAL_CELLS",
     "Barrier",
     "Compartment",

@@ -7,6 +7,7 @@ the same objects and the same error messages.
 
 from __future__ import annotations
 
+import contextvars
 import dataclasses
 import difflib
 import math
@@ -150,11 +151,17 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
         if (f.init and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
                 and f.name not in values and key_of_attr.get(f.name, f.name) not in failed):
             problems.append(Problem(key_of_attr.get(f.name, f.name), "nothing", "this key is required"))
-    if problems and any(f.init and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
-                        and f.name not in values for f in dataclasses.fields(cls)):
-        raise ScenarioError(problems)
-    if problems and any(s.required and s.attr not in values for s in specs):
-        raise ScenarioError(problems)
+    failed = {p.field for p in problems}
+    # Fields that could not be read, or are missing, stand in as placeholders so that the
+    # object's own checks still run on every other field: all the problems of a layer are
+    # reported at once. The checks leave the placeholders alone (see Checker and UNREAD).
+    unread = {s.attr for s in specs if s.key in failed}
+    unread |= {f.name for f in dataclasses.fields(cls) if f.name in failed}
+    spec_of = {s.attr: s for s in specs}
+    for f in dataclasses.fields(cls):
+        if f.init and f.name in unread:
+            values[f.name] = _placeholder(spec_of.get(f.name), f.name)
+    token = UNREAD.set(frozenset(unread))
     try:
         built = cls(**values)
     except ScenarioError as err:
@@ -168,10 +175,37 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
                 p = Problem(key_of[attr], p.value, p.expected, p.file)
             if p.field not in failed:
                 fixed.append(p)
-        raise ScenarioError(problems + fixed) from None
+        raise ScenarioError(_in_file_order(problems + fixed, raw)) from None
+    finally:
+        UNREAD.reset(token)
     if problems:
-        raise ScenarioError(problems)
+        raise ScenarioError(_in_file_order(problems, raw))
     return built
+
+
+def _in_file_order(problems: list[Problem], raw: Mapping[str, Any]) -> list[Problem]:
+    """The problems in the order of their keys in the table (missing keys last)."""
+    position = {key: i for i, key in enumerate(raw)}
+    return sorted(problems, key=lambda p: position.get(p.field, len(position)))
+
+
+UNREAD: contextvars.ContextVar[frozenset[str]] = contextvars.ContextVar("UNREAD", default=frozenset())
+"""Attributes that :func:`build` could not read and filled with placeholders while an object
+checks itself; :class:`Checker` skips them (their problem is already reported)."""
+
+
+def _placeholder(spec: FieldSpec | None, attr: str) -> Any:
+    """A value of the right type that stands in for a field that could not be read."""
+    kind = spec.kind if spec is not None else "number"
+    if kind == "id":
+        return f"unread-{attr}"  # distinct per field: from and to never look equal
+    if kind == "text":
+        return ""
+    if kind == "count":
+        return 1
+    if kind == "times":
+        return ()
+    return 1.0
 
 
 class Checker:
@@ -180,9 +214,25 @@ class Checker:
     def __init__(self, specs: tuple[FieldSpec, ...] = ()):
         self.problems: list[Problem] = []
         self._specs = {s.attr: s for s in specs}
+        self._unread = UNREAD.get()
+        self._skipped = False
+
+    def read(self, *attrs: str) -> bool:
+        """True when every one of ``attrs`` was read (none is a placeholder for an unreadable value).
+
+        A check that compares two fields asks this first, so that a field that could not be read
+        causes no second, misleading message about another field.
+        """
+        return not self._unread.intersection(attrs)
 
     def add(self, attr: str, value: Any, expected: str) -> None:
-        """Record that ``attr`` holds ``value`` where ``expected`` was wanted."""
+        """Record that ``attr`` holds ``value`` where ``expected`` was wanted.
+
+        Nothing is recorded for a field that could not be read (its problem is already known).
+        """
+        if attr in self._unread:
+            self._skipped = True
+            return
         spec = self._specs.get(attr)
         key = spec.key if spec else attr
         self.problems.append(Problem(key, show(value, spec), expected))
@@ -206,6 +256,6 @@ class Checker:
             self.add(attr, value, "must be >= 0")
 
     def done(self) -> None:
-        """Raise a :class:`ScenarioError` if anything was recorded."""
-        if self.problems:
+        """Raise a :class:`ScenarioError` if anything was recorded (or skipped on an unread field)."""
+        if self.problems or self._skipped:
             raise ScenarioError(self.problems)

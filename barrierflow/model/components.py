@@ -143,11 +143,11 @@ class Compartment:
         else:
             chk.nonnegative("vmax", self.vmax, optional=True)
             chk.positive("km", self.km, optional=True)
-        if (self.held_concentration is not None and self.initial_concentration
+        if (self.held_concentration is not None and self.initial_concentration and chk.read("held_concentration")
                 and self.initial_concentration != self.held_concentration):
             chk.add("initial_concentration", self.initial_concentration,
                     "a held compartment stays at its held_concentration; leave initial_concentration out")
-        if self.held_concentration is not None and (self.clearance or self.vmax):
+        if self.held_concentration is not None and (self.clearance or self.vmax) and chk.read("held_concentration"):
             chk.add("clearance" if self.clearance else "vmax", self.clearance or self.vmax,
                     "a held compartment does not change, so it cannot eliminate; remove the elimination")
         chk.done()
@@ -469,16 +469,17 @@ class Dose:
 
     def __post_init__(self) -> None:
         chk = Checker(self.SPECS)
-        if self.kind not in DOSE_KINDS:
+        known = isinstance(self.kind, str) and self.kind in DOSE_KINDS
+        if not known:
             chk.add("kind", repr(self.kind), f"must be one of {', '.join(DOSE_KINDS)}")
-            chk.done()
-        needed = DOSE_KINDS[self.kind]
-        for name in _DOSE_OPTIONAL:
-            value = getattr(self, name)
-            if name in needed and value is None:
-                chk.add(name, "nothing", f"a {self.kind} dose needs {name}")
-            elif name not in needed and value is not None:
-                chk.add(name, value, f"a {self.kind} dose does not use {name}; remove it")
+        else:  # which fields the kind needs; without a known kind, only the fields' own checks
+            needed = DOSE_KINDS[self.kind]
+            for name in _DOSE_OPTIONAL:
+                value = getattr(self, name)
+                if name in needed and value is None:
+                    chk.add(name, "nothing", f"a {self.kind} dose needs {name}")
+                elif name not in needed and value is not None:
+                    chk.add(name, value, f"a {self.kind} dose does not use {name}; remove it")
         chk.nonnegative("at", self.at)
         chk.positive("amount", self.amount, optional=True)
         chk.positive("rate", self.rate, optional=True)
@@ -491,7 +492,8 @@ class Dose:
             elif self.count > 1 and self.every is None:
                 chk.add("count", self.count, "a repeated dose needs 'every' (the interval)")
         if (self.kind == "hold" and self.every is not None and self.duration is not None
-                and finite(self.every) and finite(self.duration) and self.duration > self.every):
+                and chk.read("every", "duration") and finite(self.every) and finite(self.duration)
+                and self.duration > self.every):
             chk.add("duration", self.duration, "a repeated hold must end before the next one starts "
                     "(duration <= every)")
         chk.done()

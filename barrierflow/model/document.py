@@ -67,6 +67,12 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
         With every problem of the document, each naming the file, the field path, the value and
         what was expected.
     """
+    if not isinstance(doc, Mapping):
+        raise ScenarioError([Problem("file", type(doc).__name__, "a document of TOML tables", file)])
+    deep = _nesting(doc)
+    if deep is not None:
+        raise ScenarioError([Problem(deep, f"values nested more than {MAX_NESTING} levels deep",
+                                     "a scenario value is a number, a text or a short list of them", file)])
     problems: list[Problem] = []
     failed_ids: set[str] = set()
     for key in doc:
@@ -149,6 +155,28 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
         # also report the network's problems, except those caused by a part that failed above
         problems = network_problems(problems, make, failed_ids, built_at["dose"])
     raise ScenarioError([p.within(file=file) for p in problems])
+
+
+MAX_NESTING = 16
+"""Deepest nesting of tables and lists read from a document (a scenario file needs five)."""
+
+
+def _nesting(doc: Mapping[str, Any]) -> str | None:
+    """The key path of the first value nested deeper than :data:`MAX_NESTING`, or None.
+
+    Walks the document without recursion, so that no depth of nesting can exhaust the stack
+    (and no message later prints such a value).
+    """
+    stack: list[tuple[Any, int, str]] = [(doc, 0, "")]
+    while stack:
+        value, depth, path = stack.pop()
+        if depth > MAX_NESTING:
+            return path or "file"
+        if isinstance(value, Mapping):
+            stack.extend((v, depth + 1, f"{path} {k}".strip() if depth < 3 else path) for k, v in value.items())
+        elif isinstance(value, (list, tuple)):
+            stack.extend((v, depth + 1, path) for v in value)
+    return None
 
 
 def _default(cls: type, attr: str) -> Any:

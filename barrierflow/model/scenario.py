@@ -19,13 +19,16 @@ from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Subst
 if TYPE_CHECKING:
     import networkx as nx
 
-__all__ = ["MAX_TOTAL_CELLS", "Scenario", "network_problems"]
+__all__ = ["MAX_EVENTS", "MAX_TOTAL_CELLS", "Scenario", "network_problems"]
 
 MAX_TOTAL_CELLS = 1_000_000
 """Largest grid accepted in one scenario (cells over all layers); larger grids do not fit in
 memory with the Jacobian and the saved profiles."""
 
 DEFAULT_OUTPUT_POINTS = 500
+
+MAX_EVENTS = 1_000_000
+"""Most dosing events in one run (repeated doses counted one by one)."""
 
 
 @dataclass(frozen=True)
@@ -133,7 +136,11 @@ class Scenario:
                 out.append(Problem(f"dose {i} target", repr(d.target), "a dosed compartment needs a volume"))
             if finite(self.duration) and d.at > self.duration:
                 out.append(Problem(f"dose {i} at", _h(d.at), f"must be within the run (duration {_h(self.duration)})"))
-        if finite(self.duration):
+        events = self._event_count()
+        if events > MAX_EVENTS:
+            out.append(Problem("dose", f"{events:.3g} dosing events in the run",
+                               f"at most {MAX_EVENTS:,} (a longer 'every' or a 'count' keeps the regimen in bounds)"))
+        elif finite(self.duration):
             out.extend(self._hold_conflicts())
         if self.output_step is not None and self.output_times is not None:
             out.append(Problem("scenario output_times", "both output_step and output_times",
@@ -160,6 +167,18 @@ class Scenario:
                                f"must be at most {MAX_TOTAL_CELLS} (a grid too large for memory)"))
         out.extend(p.within("output") for p in self.output_units.check(self.substance.molar_mass))
         return out
+
+    def _event_count(self) -> float:
+        """How many dosing events the regimen holds within the run (counted, not listed)."""
+        total = 0.0
+        for d in self.doses:
+            if d.every is None or not finite(d.every) or d.every <= 0 or not finite(self.duration):
+                total += 1
+                continue
+            ratio = max(self.duration - d.at, 0.0) / d.every * (1 + 1e-12)
+            within = math.floor(ratio) + 1.0 if ratio < 1e18 else math.inf
+            total += float(min(within, d.count)) if isinstance(d.count, int) and d.count < 1e18 else within
+        return total
 
     def _hold_conflicts(self) -> list[Problem]:
         """A bolus, replace, remove or another hold while a hold clamps the same compartment.

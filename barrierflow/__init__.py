@@ -26,9 +26,13 @@ from .model import (
     Exchange,
     Layer,
     OutputUnits,
+    ParamPath,
     Scenario,
     Substance,
+    Tied,
     Transfer,
+    parameter_paths,
+    with_values,
 )
 
 __version__ = "0.1.0"
@@ -52,23 +56,27 @@ __all__ = [
     "Exchange",
     "Layer",
     "OutputUnits",
+    "ParamPath",
     "Problem",
     "Result",
     "Scenario",
     "ScenarioError",
     "SolverError",
     "Substance",
+    "Tied",
     "Transfer",
     "UnitsError",
     "__version__",
     "load",
     "loads",
     "metrics",
+    "parameter_paths",
     "save",
     "simulate",
     "simulate_many",
     "simulate_population",
     "steady_state",
+    "with_values",
 ]
 
 

@@ -13,6 +13,11 @@ Every message follows one pattern, so that a scientist reads at once what is wro
 
 for example ``patch.toml: barrier 'skin' layer 1 thickness: got -15 um; must be > 0``.
 A :class:`ScenarioError` carries *all* the problems found in one file, not only the first.
+Each :class:`Problem` also carries its place as a parameter path (``barrier.skin.layer.1.thickness``,
+see :mod:`barrierflow.model.paths`), so that a program finds the field without reading the message.
+
+Every error pickles and unpickles to an equal error (the same type, message and attributes), so
+that a worker process or a cluster can send it back intact.
 """
 
 from __future__ import annotations
@@ -32,8 +37,20 @@ MAX_SHOWN = 200
 """Longest value shown in a message (characters); a longer one is cut, with its length."""
 
 
+def _rebuild(cls: type, args: tuple) -> BaseException:
+    """Recreate an error without calling its ``__init__`` (pickle then restores its attributes)."""
+    return cls.__new__(cls, *args)
+
+
 class BarrierflowError(Exception):
-    """Base class of every error that barrierflow raises on purpose."""
+    """Base class of every error that barrierflow raises on purpose.
+
+    Subclasses may take any constructor arguments: pickling stores the message arguments and the
+    instance attributes, not the constructor call, so a new subclass travels intact too.
+    """
+
+    def __reduce__(self):
+        return _rebuild, (type(self), self.args), self.__dict__
 
 
 @dataclass(frozen=True)
@@ -50,12 +67,20 @@ class Problem:
         What would have been accepted, for example ``"must be > 0"``.
     file : str or None
         The scenario file the value came from, if any.
+    path : str
+        The same place as a parameter path (the text of a
+        :class:`barrierflow.model.paths.ParamPath`), for example
+        ``"barrier.skin.layer.1.thickness"``; a table without a usable id is named by its
+        position from 1 (``"compartment.3.volume"``); a table alone by its name
+        (``"compartment"``); ``""`` when the problem has no single place (a syntax error, the
+        size of the whole grid, an option outside the scenario).
     """
 
     field: str
     value: str
     expected: str
     file: str | None = None
+    path: str = ""
 
     def __post_init__(self) -> None:
         # a value of thousands of characters (a pasted table, a long number) is shown by its start
@@ -69,10 +94,21 @@ class Problem:
         field = f"{self.field}: " if self.field else ""
         return f"{head}{field}got {self.value}; {self.expected}"
 
-    def within(self, prefix: str = "", file: str | None = None) -> Problem:
-        """Return this problem with ``prefix`` put in front of its field path and ``file`` set."""
+    def within(self, prefix: str = "", file: str | None = None, at: str = "") -> Problem:
+        """Return this problem placed inside a table.
+
+        Parameters
+        ----------
+        prefix : str
+            Put in front of the field path of the message (``"barrier 'skin'"``).
+        file : str or None
+            The file, when given.
+        at : str
+            Put in front of :attr:`path` (``"barrier.skin"``), the same place as ``prefix``.
+        """
         field = f"{prefix} {self.field}".strip() if prefix else self.field
-        return replace(self, field=field, file=file if file is not None else self.file)
+        path = ".".join(x for x in (at, self.path) if x)
+        return replace(self, field=field, file=file if file is not None else self.file, path=path)
 
 
 class ScenarioError(BarrierflowError, ValueError):
@@ -89,13 +125,14 @@ class ScenarioError(BarrierflowError, ValueError):
         super().__init__("\n".join(str(p) for p in self.problems))
 
     @classmethod
-    def single(cls, field: str, value: object, expected: str, file: str | None = None) -> ScenarioError:
+    def single(cls, field: str, value: object, expected: str, file: str | None = None,
+               path: str = "") -> ScenarioError:
         """Build an error that holds one problem."""
-        return cls([Problem(field, str(value), expected, file)])
+        return cls([Problem(field, str(value), expected, file, path)])
 
-    def within(self, prefix: str = "", file: str | None = None) -> ScenarioError:
-        """Return the same error with every field path prefixed and the file set."""
-        return type(self)([p.within(prefix, file) for p in self.problems])
+    def within(self, prefix: str = "", file: str | None = None, at: str = "") -> ScenarioError:
+        """Return the same error with every field path prefixed and the file set (see :meth:`Problem.within`)."""
+        return type(self)([p.within(prefix, file, at) for p in self.problems])
 
 
 class UnitsError(BarrierflowError, ValueError):

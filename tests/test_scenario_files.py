@@ -405,7 +405,8 @@ def test_a_failed_compartment_does_not_cause_follow_on_messages():
 
 def test_problem_objects_carry_their_fields():
     err = refusal(edit('thickness = "15 um"', 'thickness = "-15 um"'))
-    assert err.problems == (Problem("barrier 'skin' layer 1 thickness", "-15 um", "must be > 0", "patch.toml"),)
+    assert err.problems == (Problem("barrier 'skin' layer 1 thickness", "-15 um", "must be > 0", "patch.toml",
+                                    path="barrier.skin.layer.1.thickness"),)
     assert isinstance(err, ValueError) and isinstance(err, barrierflow.BarrierflowError)
 
 

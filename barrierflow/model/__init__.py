@@ -12,6 +12,7 @@ from .components import (
     Transfer,
 )
 from .document import from_document, to_document, to_toml
+from .paths import Param, ParamPath, Tied, parameter_paths, parse_param, with_values
 from .scenario import MAX_EVENTS, MAX_TOTAL_CELLS, Scenario
 
 __all__ = [
@@ -24,10 +25,16 @@ __all__ = [
     "Exchange",
     "Layer",
     "OutputUnits",
+    "Param",
+    "ParamPath",
     "Scenario",
     "Substance",
+    "Tied",
     "Transfer",
     "from_document",
+    "parameter_paths",
+    "parse_param",
     "to_document",
     "to_toml",
+    "with_values",
 ]

@@ -23,16 +23,44 @@ from ..units import KINDS, format_quantity, parse_quantity
 class FieldSpec:
     """How one key of a table is read.
 
-    ``kind`` is a kind of quantity from :data:`barrierflow.units.KINDS` (the value is a string
-    with a unit), or one of ``"number"`` (a bare float), ``"count"`` (a whole number),
-    ``"text"``, ``"id"``, ``"times"`` (a list of times).
+    This table is the one description of a field: the reader, the writer
+    (:mod:`barrierflow.model.document`), the parameter paths (:mod:`barrierflow.model.paths`)
+    and the range checks of the model (:meth:`Checker.bound`) all read it.
+
+    Attributes
+    ----------
+    attr : str
+        The attribute of the model object.
+    key : str
+        The key in the scenario file (and the last word of the field's parameter path).
+    kind : str
+        A kind of quantity from :data:`barrierflow.units.KINDS` (the value is a string with a
+        unit), or one of ``"number"`` (a bare float), ``"count"`` (a whole number), ``"text"``,
+        ``"id"``, ``"times"`` (a list of times).
+    required : bool
+        The key must be given.
+    unit : str or None
+        The unit preferred when writing the value back.
+    bound : {None, "> 0", ">= 0"}
+        The range the model accepts for a number: ``"> 0"`` (a study may then work on the
+        logarithm of the value), ``">= 0"``, or None (any finite number, or not a number).
+    structural : bool
+        True when the value shapes the run rather than setting a rate or an amount: the grid
+        (``cells``) or the timeline (dose times, the run's duration, output times). Subjects of
+        one population share these.
     """
 
     attr: str
     key: str
     kind: str
     required: bool = False
-    unit: str | None = None  # the unit preferred when writing the value back
+    unit: str | None = None
+    bound: str | None = None
+    structural: bool = False
+
+    def __post_init__(self) -> None:
+        if self.bound not in (None, "> 0", ">= 0"):
+            raise ValueError(f"FieldSpec {self.key}: bound must be None, '> 0' or '>= 0', not {self.bound!r}")
 
 
 def finite(x: float) -> bool:
@@ -124,7 +152,7 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
     for key, value in raw.items():
         spec = by_key.get(key)
         if spec is None:
-            problems.append(Problem(key, "an unknown key", suggest(key, [s.key for s in specs])))
+            problems.append(Problem(key, "an unknown key", suggest(key, [s.key for s in specs]), path=key))
             continue
         if spec.kind in ("id", "text"):
             raw_text[spec.attr] = repr(value)  # quoted in messages, as the model's own checks show them
@@ -139,18 +167,19 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
         try:
             values[spec.attr] = parse_value(value, spec, molar_mass)
         except UnitsError as err:
-            problems.append(Problem(spec.key, err.value, err.expected))
+            problems.append(Problem(spec.key, err.value, err.expected, path=spec.key))
     for spec in specs:
         if spec.required and spec.attr not in values and not any(p.field == spec.key for p in problems):
             example = f", such as '{KINDS[spec.kind].example}'" if spec.kind in KINDS else ""
-            problems.append(Problem(spec.key, "nothing", f"this key is required{example}"))
+            problems.append(Problem(spec.key, "nothing", f"this key is required{example}", path=spec.key))
     failed = {p.field for p in problems}
     # constructor arguments without a default (an exchange's id, say) that are still missing
     key_of_attr = {s.attr: s.key for s in specs}
     for f in dataclasses.fields(cls):
         if (f.init and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
                 and f.name not in values and key_of_attr.get(f.name, f.name) not in failed):
-            problems.append(Problem(key_of_attr.get(f.name, f.name), "nothing", "this key is required"))
+            key = key_of_attr.get(f.name, f.name)
+            problems.append(Problem(key, "nothing", "this key is required", path=key))
     failed = {p.field for p in problems}
     # Fields that could not be read, or are missing, stand in as placeholders so that the
     # object's own checks still run on every other field: all the problems of a layer are
@@ -170,9 +199,9 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
         for p in err.problems:
             attr = next((a for a, k in key_of.items() if k == p.field or a == p.field), None)
             if attr is not None and attr in raw_text:
-                p = Problem(key_of[attr], raw_text[attr], p.expected, p.file)
+                p = Problem(key_of[attr], raw_text[attr], p.expected, p.file, key_of[attr])
             elif attr is not None:
-                p = Problem(key_of[attr], p.value, p.expected, p.file)
+                p = Problem(key_of[attr], p.value, p.expected, p.file, key_of[attr])
             if p.field not in failed:
                 fixed.append(p)
         raise ScenarioError(_in_file_order(problems + fixed, raw)) from None
@@ -235,7 +264,22 @@ class Checker:
             return
         spec = self._specs.get(attr)
         key = spec.key if spec else attr
-        self.problems.append(Problem(key, show(value, spec), expected))
+        self.problems.append(Problem(key, show(value, spec), expected, path=key))
+
+    def bound(self, attr: str, value: Any, *, optional: bool = False) -> None:
+        """``value`` must be a finite number in the range of its field's :attr:`FieldSpec.bound`.
+
+        None is accepted when ``optional``. The bound is read from the field table, so that the
+        range a study works in (:attr:`barrierflow.model.paths.ParamPath.positive`) is the range
+        the model checks.
+        """
+        bound = self._specs[attr].bound
+        if bound == "> 0":
+            self.positive(attr, value, optional=optional)
+        elif bound == ">= 0":
+            self.nonnegative(attr, value, optional=optional)
+        else:
+            raise AssertionError(f"field {attr!r} has no bound in its FieldSpec")
 
     def positive(self, attr: str, value: Any, *, optional: bool = False) -> None:
         """``value`` must be a finite number > 0 (or None when optional)."""

@@ -61,15 +61,15 @@ class Substance:
 
     SPECS: ClassVar[tuple[FieldSpec, ...]] = (
         FieldSpec("name", "name", "text"),
-        FieldSpec("molar_mass", "molar_mass", "molar_mass", unit="g/mol"),
-        FieldSpec("solubility", "solubility", "concentration", unit="mg/mL"),
+        FieldSpec("molar_mass", "molar_mass", "molar_mass", unit="g/mol", bound="> 0"),
+        FieldSpec("solubility", "solubility", "concentration", unit="mg/mL", bound="> 0"),
         FieldSpec("log_kow", "log_kow", "number"),
     )
 
     def __post_init__(self) -> None:
         chk = Checker(self.SPECS)
-        chk.positive("molar_mass", self.molar_mass, optional=True)
-        chk.positive("solubility", self.solubility, optional=True)
+        chk.bound("molar_mass", self.molar_mass, optional=True)
+        chk.bound("solubility", self.solubility, optional=True)
         if self.log_kow is not None and not finite(self.log_kow):
             chk.add("log_kow", self.log_kow, "must be a finite number")
         chk.done()
@@ -113,13 +113,14 @@ class Compartment:
 
     SPECS: ClassVar[tuple[FieldSpec, ...]] = (
         FieldSpec("id", "id", "id", required=True),
-        FieldSpec("volume", "volume", "volume", unit="mL"),
-        FieldSpec("initial_concentration", "initial_concentration", "concentration", unit="mg/mL"),
-        FieldSpec("partition", "partition", "number"),
-        FieldSpec("clearance", "clearance", "flow", unit="mL/h"),
-        FieldSpec("vmax", "vmax", "amount_rate", unit="mg/h"),
-        FieldSpec("km", "km", "concentration", unit="mg/mL"),
-        FieldSpec("held_concentration", "held_concentration", "concentration", unit="mg/mL"),
+        FieldSpec("volume", "volume", "volume", unit="mL", bound="> 0"),
+        FieldSpec("initial_concentration", "initial_concentration", "concentration", unit="mg/mL",
+                  bound=">= 0"),
+        FieldSpec("partition", "partition", "number", bound="> 0"),
+        FieldSpec("clearance", "clearance", "flow", unit="mL/h", bound=">= 0"),
+        FieldSpec("vmax", "vmax", "amount_rate", unit="mg/h", bound=">= 0"),
+        FieldSpec("km", "km", "concentration", unit="mg/mL", bound="> 0"),
+        FieldSpec("held_concentration", "held_concentration", "concentration", unit="mg/mL", bound=">= 0"),
         FieldSpec("description", "description", "text"),
     )
 
@@ -131,18 +132,18 @@ class Compartment:
                 chk.add("volume", "nothing", "a volume such as '5 mL' is required unless the "
                         "compartment is held (held_concentration)")
         else:
-            chk.positive("volume", self.volume)
-        chk.nonnegative("initial_concentration", self.initial_concentration)
-        chk.positive("partition", self.partition)
-        chk.nonnegative("clearance", self.clearance)
-        chk.nonnegative("held_concentration", self.held_concentration, optional=True)
+            chk.bound("volume", self.volume)
+        chk.bound("initial_concentration", self.initial_concentration)
+        chk.bound("partition", self.partition)
+        chk.bound("clearance", self.clearance)
+        chk.bound("held_concentration", self.held_concentration, optional=True)
         if (self.vmax is None) != (self.km is None):
             missing = "km" if self.km is None else "vmax"
             given = "vmax" if self.km is None else "km"
             chk.add(given, getattr(self, given), f"{given} needs {missing} too (Michaelis-Menten elimination)")
         else:
-            chk.nonnegative("vmax", self.vmax, optional=True)
-            chk.positive("km", self.km, optional=True)
+            chk.bound("vmax", self.vmax, optional=True)
+            chk.bound("km", self.km, optional=True)
         if (self.held_concentration is not None and self.initial_concentration and chk.read("held_concentration")
                 and self.initial_concentration != self.held_concentration):
             chk.add("initial_concentration", self.initial_concentration,
@@ -196,19 +197,19 @@ class Layer:
 
     SPECS: ClassVar[tuple[FieldSpec, ...]] = (
         FieldSpec("name", "name", "text"),
-        FieldSpec("thickness", "thickness", "length", required=True, unit="um"),
-        FieldSpec("diffusivity", "diffusivity", "diffusivity", required=True, unit="cm^2/s"),
-        FieldSpec("partition", "partition", "number"),
-        FieldSpec("cells", "cells", "count"),
-        FieldSpec("degradation_rate", "degradation_rate", "rate", unit="1/h"),
+        FieldSpec("thickness", "thickness", "length", required=True, unit="um", bound="> 0"),
+        FieldSpec("diffusivity", "diffusivity", "diffusivity", required=True, unit="cm^2/s", bound="> 0"),
+        FieldSpec("partition", "partition", "number", bound="> 0"),
+        FieldSpec("cells", "cells", "count", bound="> 0", structural=True),
+        FieldSpec("degradation_rate", "degradation_rate", "rate", unit="1/h", bound=">= 0"),
     )
 
     def __post_init__(self) -> None:
         chk = Checker(self.SPECS)
-        chk.positive("thickness", self.thickness)
-        chk.positive("diffusivity", self.diffusivity)
-        chk.positive("partition", self.partition)
-        chk.nonnegative("degradation_rate", self.degradation_rate)
+        chk.bound("thickness", self.thickness)
+        chk.bound("diffusivity", self.diffusivity)
+        chk.bound("partition", self.partition)
+        chk.bound("degradation_rate", self.degradation_rate)
         if self.cells is not None:
             if isinstance(self.cells, bool) or not isinstance(self.cells, int) or self.cells < 1:
                 chk.add("cells", self.cells, "must be a whole number >= 1")
@@ -259,7 +260,7 @@ class Barrier:
         FieldSpec("id", "id", "id", required=True),
         FieldSpec("from_id", "from", "id", required=True),
         FieldSpec("to_id", "to", "id", required=True),
-        FieldSpec("area", "area", "area", required=True, unit="cm^2"),
+        FieldSpec("area", "area", "area", required=True, unit="cm^2", bound="> 0"),
         FieldSpec("model", "model", "text"),
     )
 
@@ -268,7 +269,7 @@ class Barrier:
             object.__setattr__(self, "layers", tuple(self.layers))
         chk = Checker(self.SPECS)
         _check_id(chk, self.id)
-        chk.positive("area", self.area)
+        chk.bound("area", self.area)
         if self.model not in BARRIER_MODELS:
             chk.add("model", repr(self.model), "must be 'resolved' or 'steady'")
         if not self.layers:
@@ -304,7 +305,7 @@ class Barrier:
         problems: list[Problem] = []
         layers = []
         if not isinstance(layer_raw, (list, tuple)):
-            problems.append(Problem("layer", str(layer_raw), "expected a list of layer tables"))
+            problems.append(Problem("layer", str(layer_raw), "expected a list of layer tables", path="layer"))
             layer_raw = []
         for i, item in enumerate(layer_raw, start=1):
             try:
@@ -313,9 +314,10 @@ class Barrier:
                 elif isinstance(item, Mapping):
                     layers.append(Layer.from_mapping(item, python=python))
                 else:
-                    problems.append(Problem(f"layer {i}", str(item), "expected a table of layer fields"))
+                    problems.append(Problem(f"layer {i}", str(item), "expected a table of layer fields",
+                                            path=f"layer.{i}"))
             except ScenarioError as err:
-                problems.extend(err.within(f"layer {i}").problems)
+                problems.extend(err.within(f"layer {i}", at=f"layer.{i}").problems)
         try:
             if problems:
                 # still check the barrier's own fields, so every problem is reported
@@ -347,13 +349,13 @@ class Exchange:
         FieldSpec("id", "id", "id"),
         FieldSpec("from_id", "from", "id", required=True),
         FieldSpec("to_id", "to", "id", required=True),
-        FieldSpec("flow", "flow", "flow", required=True, unit="mL/h"),
+        FieldSpec("flow", "flow", "flow", required=True, unit="mL/h", bound="> 0"),
     )
 
     def __post_init__(self) -> None:
         chk = Checker(self.SPECS)
         _check_id(chk, self.id)
-        chk.positive("flow", self.flow)
+        chk.bound("flow", self.flow)
         if self.from_id == self.to_id:
             chk.add("to_id", repr(self.to_id), "an exchange must join two different compartments")
         chk.done()
@@ -387,13 +389,13 @@ class Transfer:
         FieldSpec("id", "id", "id"),
         FieldSpec("from_id", "from", "id", required=True),
         FieldSpec("to_id", "to", "id", required=True),
-        FieldSpec("rate", "rate", "rate", required=True, unit="1/h"),
+        FieldSpec("rate", "rate", "rate", required=True, unit="1/h", bound="> 0"),
     )
 
     def __post_init__(self) -> None:
         chk = Checker(self.SPECS)
         _check_id(chk, self.id)
-        chk.positive("rate", self.rate)
+        chk.bound("rate", self.rate)
         if self.from_id == self.to_id:
             chk.add("to_id", repr(self.to_id), "a transfer must join two different compartments")
         chk.done()
@@ -458,13 +460,13 @@ class Dose:
     SPECS: ClassVar[tuple[FieldSpec, ...]] = (
         FieldSpec("target", "target", "id", required=True),
         FieldSpec("kind", "kind", "text", required=True),
-        FieldSpec("amount", "amount", "amount", unit="mg"),
-        FieldSpec("rate", "rate", "amount_rate", unit="mg/h"),
-        FieldSpec("duration", "duration", "time", unit="h"),
-        FieldSpec("concentration", "concentration", "concentration", unit="mg/mL"),
-        FieldSpec("at", "at", "time", unit="h"),
-        FieldSpec("every", "every", "time", unit="h"),
-        FieldSpec("count", "count", "count"),
+        FieldSpec("amount", "amount", "amount", unit="mg", bound="> 0"),
+        FieldSpec("rate", "rate", "amount_rate", unit="mg/h", bound="> 0"),
+        FieldSpec("duration", "duration", "time", unit="h", bound="> 0", structural=True),
+        FieldSpec("concentration", "concentration", "concentration", unit="mg/mL", bound=">= 0"),
+        FieldSpec("at", "at", "time", unit="h", bound=">= 0", structural=True),
+        FieldSpec("every", "every", "time", unit="h", bound="> 0", structural=True),
+        FieldSpec("count", "count", "count", bound="> 0", structural=True),
     )
 
     def __post_init__(self) -> None:
@@ -480,12 +482,12 @@ class Dose:
                     chk.add(name, "nothing", f"a {self.kind} dose needs {name}")
                 elif name not in needed and value is not None:
                     chk.add(name, value, f"a {self.kind} dose does not use {name}; remove it")
-        chk.nonnegative("at", self.at)
-        chk.positive("amount", self.amount, optional=True)
-        chk.positive("rate", self.rate, optional=True)
-        chk.positive("duration", self.duration, optional=True)
-        chk.nonnegative("concentration", self.concentration, optional=True)
-        chk.positive("every", self.every, optional=True)
+        chk.bound("at", self.at)
+        chk.bound("amount", self.amount, optional=True)
+        chk.bound("rate", self.rate, optional=True)
+        chk.bound("duration", self.duration, optional=True)
+        chk.bound("concentration", self.concentration, optional=True)
+        chk.bound("every", self.every, optional=True)
         if self.count is not None:
             if isinstance(self.count, bool) or not isinstance(self.count, int) or self.count < 1:
                 chk.add("count", self.count, "must be a whole number >= 1")
@@ -556,7 +558,7 @@ class OutputUnits:
             except UnitsError as err:
                 k = KINDS[kind]
                 expected = err.expected.replace("with its unit, such as", "unit, such as")
-                problems.append(Problem(attr, unit, expected.replace(f"'{k.example}'", f"'{k.internal}'")))
+                problems.append(Problem(attr, unit, expected.replace(f"'{k.example}'", f"'{k.internal}'"), path=attr))
         return problems
 
     @classmethod

@@ -17,34 +17,32 @@ from ..errors import Problem, ScenarioError, UnitsError
 from ..units import KINDS, format_quantity
 from ._fields import FieldSpec, build, parse_value, suggest
 from .components import Barrier, Compartment, Dose, Exchange, Layer, OutputUnits, Substance, Transfer
+from .paths import units_written
 from .scenario import Scenario, network_problems
 
 __all__ = ["from_document", "to_document", "to_toml"]
 
 TOP_KEYS = ("scenario", "substance", "compartment", "barrier", "exchange", "transfer", "dose", "output")
-SCENARIO_SPECS = (
-    FieldSpec("name", "name", "text"),
-    FieldSpec("description", "description", "text"),
-    FieldSpec("duration", "duration", "time", required=True, unit="h"),
-    FieldSpec("output_step", "output_step", "time", unit="h"),
-    FieldSpec("output_times", "output_times", "times"),
-)
+SCENARIO_SPECS = Scenario.SPECS
 
 
 def _tables(doc: Mapping[str, Any], key: str, problems: list[Problem]) -> list[Mapping[str, Any]]:
     value = doc.get(key, [])
     if isinstance(value, Mapping):
-        problems.append(Problem(key, f"[{key}]", f"write [[{key}]] (a list of tables), one per {key}"))
+        problems.append(Problem(key, f"[{key}]", f"write [[{key}]] (a list of tables), one per {key}", path=key))
         return []
     if not isinstance(value, list) or not all(isinstance(v, Mapping) for v in value):
-        problems.append(Problem(key, str(value), f"expected [[{key}]] tables"))
+        problems.append(Problem(key, str(value), f"expected [[{key}]] tables", path=key))
         return []
     return value
 
 
-def _label(kind: str, table: Mapping[str, Any], index: int) -> str:
+def _place(kind: str, table: Mapping[str, Any], index: int) -> tuple[str, str]:
+    """The field-path prefix of a table in messages and as a parameter path (by id, else by position)."""
     ident = table.get("id")
-    return f"{kind} '{ident}'" if isinstance(ident, str) and ident else f"{kind} {index}"
+    if isinstance(ident, str) and ident:
+        return f"{kind} '{ident}'", f"{kind}.{ident}"
+    return f"{kind} {index}", f"{kind}.{index}"
 
 
 def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
@@ -82,32 +80,35 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
     substance = Substance()
     sub_raw = doc.get("substance", {})
     if not isinstance(sub_raw, Mapping):
-        problems.append(Problem("substance", str(sub_raw), "expected a [substance] table"))
+        problems.append(Problem("substance", str(sub_raw), "expected a [substance] table", path="substance"))
     elif sub_raw:
         try:
             substance = build(Substance, Substance.SPECS, sub_raw)
         except ScenarioError as err:
-            problems.extend(err.within("substance").problems)
+            problems.extend(err.within("substance", at="substance").problems)
     mm = substance.molar_mass
 
     head: dict[str, Any] = {}
     scen_raw = doc.get("scenario")
     if not isinstance(scen_raw, Mapping):
         problems.append(Problem("[scenario]", "nothing" if scen_raw is None else str(scen_raw),
-                                "a [scenario] table with at least duration, such as duration = \"7 d\""))
+                                "a [scenario] table with at least duration, such as duration = \"7 d\"",
+                                path="scenario"))
     else:
         by_key = {s.key: s for s in SCENARIO_SPECS}
         for key, value in scen_raw.items():
             spec = by_key.get(key)
             if spec is None:
-                problems.append(Problem(f"scenario {key}", "an unknown key", suggest(key, list(by_key))))
+                problems.append(Problem(f"scenario {key}", "an unknown key", suggest(key, list(by_key)),
+                                        path=f"scenario.{key}"))
                 continue
             try:
                 head[spec.attr] = parse_value(value, spec, mm)
             except UnitsError as err:
-                problems.append(Problem(f"scenario {err.field}", err.value, err.expected))
+                problems.append(Problem(f"scenario {err.field}", err.value, err.expected, path=f"scenario.{key}"))
         if "duration" not in head and not any(p.field == "scenario duration" for p in problems):
-            problems.append(Problem("scenario duration", "nothing", "this key is required, such as duration = \"7 d\""))
+            problems.append(Problem("scenario duration", "nothing", "this key is required, such as duration = \"7 d\"",
+                                    path="scenario.duration"))
 
     built_at: dict[str, list[int]] = {}  # kind -> position in the file of each part built
 
@@ -115,12 +116,12 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
         out = []
         built_at[kind] = []
         for i, table in enumerate(_tables(doc, kind, problems), start=1):
-            label = _label(kind, table, i)
+            label, at = _place(kind, table, i)
             try:
                 out.append(maker(table, i))
                 built_at[kind].append(i)
             except ScenarioError as err:
-                problems.extend(err.within(label).problems)
+                problems.extend(err.within(label, at=at).problems)
                 if isinstance(table.get("id"), str):
                     failed_ids.add(table["id"])
         return out
@@ -134,23 +135,26 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
     output = OutputUnits()
     out_raw = doc.get("output", {})
     if not isinstance(out_raw, Mapping):
-        problems.append(Problem("output", str(out_raw), "expected an [output] table"))
+        problems.append(Problem("output", str(out_raw), "expected an [output] table", path="output"))
     elif out_raw:
         try:
             output = OutputUnits.from_mapping(out_raw)
         except ScenarioError as err:
-            problems.extend(err.within("output").problems)
+            problems.extend(err.within("output", at="output").problems)
 
-    def make() -> Scenario:
+    def make(file_units: tuple[tuple[str, str], ...] = ()) -> Scenario:
         return Scenario(
             name=head.get("name", ""), description=head.get("description", ""),
             duration=head["duration"], output_step=head.get("output_step"),
             output_times=head.get("output_times"), substance=substance,
             compartments=tuple(compartments), barriers=tuple(barriers), exchanges=tuple(exchanges),
-            transfers=tuple(transfers), doses=tuple(doses), output_units=output, source=file)
+            transfers=tuple(transfers), doses=tuple(doses), output_units=output, source=file,
+            file_units=file_units)
 
     if not problems:
-        return make()  # raises its own ScenarioError, with the file, for network problems
+        # raises its own ScenarioError, with the file, for network problems
+        return make(units_written(doc, {"compartment": compartments, "barrier": barriers,
+                                        "exchange": exchanges, "transfer": transfers}))
     if "duration" in head:
         # also report the network's problems, except those caused by a part that failed above
         problems = network_problems(problems, make, failed_ids, built_at["dose"])
@@ -234,9 +238,16 @@ def to_document(scenario: Scenario) -> dict[str, Any]:
     return doc
 
 
-def to_toml(scenario: Scenario) -> str:
-    """The scenario as TOML text (see :func:`to_document`), tables in the order of the format."""
-    doc = to_document(scenario)
+def to_toml(scenario: Scenario | Mapping[str, Any]) -> str:
+    """The scenario as TOML text (see :func:`to_document`), tables in the order of the format.
+
+    This is the one TOML writer of barrierflow. It also writes a scenario *document* as it
+    stands (nested tables of unit strings and numbers, valid or not, such as the dashboard's
+    draft of a scenario being typed), so that a file saved with problems shows them to
+    ``barrierflow check`` exactly as typed. Numbers that are not finite are written as TOML's
+    ``nan`` and ``inf``, which the reader then refuses with its usual message.
+    """
+    doc = to_document(scenario) if isinstance(scenario, Scenario) else scenario
     lines: list[str] = []
     for key in TOP_KEYS:
         if key not in doc:

@@ -9,11 +9,11 @@ import re
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from functools import cached_property
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, ClassVar
 
 from ..errors import Problem, ScenarioError, UnitsError
 from ..units import parse_quantity
-from ._fields import finite
+from ._fields import FieldSpec, finite
 from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Substance, Transfer
 
 if TYPE_CHECKING:
@@ -62,6 +62,11 @@ class Scenario:
         Free text.
     source : str or None
         The file the scenario came from (not part of equality).
+    file_units : tuple of (str, str)
+        The unit each dimensional value was written in, by parameter path
+        (``("barrier.skin.layer.1.diffusivity", "cm^2/s")``), as read from the file; empty for a
+        scenario built in Python. Not part of equality; a study reports values back in these
+        units (:meth:`barrierflow.model.paths.ParamPath.file_unit`).
 
     Raises
     ------
@@ -83,6 +88,16 @@ class Scenario:
     output_units: OutputUnits = field(default_factory=OutputUnits)
     description: str = ""
     source: str | None = field(default=None, compare=False, repr=False)
+    file_units: tuple[tuple[str, str], ...] = field(default=(), compare=False, repr=False)
+
+    SPECS: ClassVar[tuple[FieldSpec, ...]] = (
+        FieldSpec("name", "name", "text"),
+        FieldSpec("description", "description", "text"),
+        FieldSpec("duration", "duration", "time", required=True, unit="h", bound="> 0", structural=True),
+        FieldSpec("output_step", "output_step", "time", unit="h", bound="> 0", structural=True),
+        FieldSpec("output_times", "output_times", "times", structural=True),
+    )
+    """The keys of the ``[scenario]`` table."""
 
     def __post_init__(self) -> None:
         for name in ("compartments", "barriers", "exchanges", "transfers", "doses"):
@@ -99,18 +114,21 @@ class Scenario:
     def _problems(self) -> list[Problem]:
         out: list[Problem] = []
         if not finite(self.duration) or self.duration <= 0:
-            out.append(Problem("scenario duration", _h(self.duration), "must be a time > 0 such as '7 d'"))
+            out.append(Problem("scenario duration", _h(self.duration), "must be a time > 0 such as '7 d'",
+                               path="scenario.duration"))
         seen: dict[str, str] = {}
         for what, items in (("compartment", self.compartments), ("barrier", self.barriers),
                             ("exchange", self.exchanges), ("transfer", self.transfers)):
             for item in items:
                 if item.id in seen:
                     out.append(Problem(f"{what} '{item.id}' id", repr(item.id),
-                                       f"ids must be unique across the file; already used by a {seen[item.id]}"))
+                                       f"ids must be unique across the file; already used by a {seen[item.id]}",
+                                       path=f"{what}.{item.id}.id"))
                 else:
                     seen[item.id] = what
         if not self.compartments:
-            out.append(Problem("compartment", "no compartments", "a scenario needs at least one [[compartment]]"))
+            out.append(Problem("compartment", "no compartments", "a scenario needs at least one [[compartment]]",
+                               path="compartment"))
         comps = {c.id: c for c in self.compartments}
         known = ", ".join(comps) or "none"
         for what, items in (("barrier", self.barriers), ("exchange", self.exchanges), ("transfer", self.transfers)):
@@ -118,54 +136,64 @@ class Scenario:
                 for end, cid in (("from", item.from_id), ("to", item.to_id)):
                     if cid not in comps:
                         out.append(Problem(f"{what} '{item.id}' {end}", repr(cid),
-                                           f"names no compartment (known: {known})"))
+                                           f"names no compartment (known: {known})", path=f"{what}.{item.id}.{end}"))
         for t in self.transfers:
             c = comps.get(t.from_id)
             if c is not None and c.volume is None:
                 out.append(Problem(f"transfer '{t.id}' from", repr(t.from_id),
-                                   "a transfer moves a fraction of the amount in 'from', which needs a volume"))
+                                   "a transfer moves a fraction of the amount in 'from', which needs a volume",
+                                   path=f"transfer.{t.id}.from"))
         for i, d in enumerate(self.doses, start=1):
             c = comps.get(d.target)
             if c is None:
-                out.append(Problem(f"dose {i} target", repr(d.target), f"names no compartment (known: {known})"))
+                out.append(Problem(f"dose {i} target", repr(d.target), f"names no compartment (known: {known})",
+                                   path=f"dose.{i}.target"))
             elif c.held:
                 out.append(Problem(f"dose {i} target", repr(d.target),
                                    "a held compartment never changes, so it cannot be dosed; "
-                                   "dose another compartment or drop held_concentration"))
+                                   "dose another compartment or drop held_concentration", path=f"dose.{i}.target"))
             elif c.volume is None:
-                out.append(Problem(f"dose {i} target", repr(d.target), "a dosed compartment needs a volume"))
+                out.append(Problem(f"dose {i} target", repr(d.target), "a dosed compartment needs a volume",
+                                   path=f"dose.{i}.target"))
             if finite(self.duration) and d.at > self.duration:
-                out.append(Problem(f"dose {i} at", _h(d.at), f"must be within the run (duration {_h(self.duration)})"))
+                out.append(Problem(f"dose {i} at", _h(d.at), f"must be within the run (duration {_h(self.duration)})",
+                                   path=f"dose.{i}.at"))
         events = self._event_count()
         if events > MAX_EVENTS:
             out.append(Problem("dose", f"{events:.3g} dosing events in the run",
-                               f"at most {MAX_EVENTS:,} (a longer 'every' or a 'count' keeps the regimen in bounds)"))
+                               f"at most {MAX_EVENTS:,} (a longer 'every' or a 'count' keeps the regimen in bounds)",
+                               path="dose"))
         elif finite(self.duration):
             out.extend(self._hold_conflicts())
         if self.output_step is not None and self.output_times is not None:
             out.append(Problem("scenario output_times", "both output_step and output_times",
-                               "give one of them"))
+                               "give one of them", path="scenario.output_times"))
         if self.output_step is not None:
             if not finite(self.output_step) or self.output_step <= 0:
-                out.append(Problem("scenario output_step", _h(self.output_step), "must be a time > 0"))
+                out.append(Problem("scenario output_step", _h(self.output_step), "must be a time > 0",
+                                   path="scenario.output_step"))
             elif finite(self.duration) and self.duration / self.output_step > 10_000_000:
                 out.append(Problem("scenario output_step", _h(self.output_step),
-                                   "gives more than 10 million output rows; choose a coarser step"))
+                                   "gives more than 10 million output rows; choose a coarser step",
+                                   path="scenario.output_step"))
         if self.output_times is not None:
             ts = self.output_times
             if not ts:
-                out.append(Problem("scenario output_times", "an empty list", "give at least one time"))
+                out.append(Problem("scenario output_times", "an empty list", "give at least one time",
+                                   path="scenario.output_times"))
             for j, t in enumerate(ts):
                 if not finite(t) or t < 0 or (finite(self.duration) and t > self.duration):
                     out.append(Problem(f"scenario output_times[{j}]", _h(t),
-                                       f"must lie between 0 h and the duration ({_h(self.duration)})"))
+                                       f"must lie between 0 h and the duration ({_h(self.duration)})",
+                                       path="scenario.output_times"))
                 elif j and t <= ts[j - 1]:
-                    out.append(Problem(f"scenario output_times[{j}]", _h(t), "times must increase"))
+                    out.append(Problem(f"scenario output_times[{j}]", _h(t), "times must increase",
+                                       path="scenario.output_times"))
         total = sum(layer.cells or 0 for b in self.barriers for layer in b.layers)
         if total > MAX_TOTAL_CELLS:
             out.append(Problem("barrier layer cells", f"{total} cells in all",
                                f"must be at most {MAX_TOTAL_CELLS} (a grid too large for memory)"))
-        out.extend(p.within("output") for p in self.output_units.check(self.substance.molar_mass))
+        out.extend(p.within("output", at="output") for p in self.output_units.check(self.substance.molar_mass))
         return out
 
     def _event_count(self) -> float:
@@ -206,7 +234,7 @@ class Scenario:
                             f"dose {j} at", _h(u),
                             f"compartment '{other.target}' is held by dose {i} from {_h(hit[0])} to "
                             f"{_h(hit[1])}; a {other.kind} cannot act on a held compartment "
-                            "(move it outside the hold, or end the hold earlier)"))
+                            "(move it outside the hold, or end the hold earlier)", path=f"dose.{j}.at"))
                         break
                 else:
                     continue
@@ -366,7 +394,7 @@ class Scenario:
             try:
                 sub = Substance(**{}) if not sub else _build_substance(sub)
             except ScenarioError as err:
-                problems.extend(err.within("substance").problems)
+                problems.extend(err.within("substance", at="substance").problems)
                 sub = Substance()
         molar_mass = sub.molar_mass
         comps = []
@@ -377,12 +405,12 @@ class Scenario:
                     if not isinstance(c, Compartment):
                         raise ScenarioError.single("compartment", repr(c), "must be a Compartment object")
                     if c.id != node:
-                        raise ScenarioError.single("id", repr(c.id), f"must equal the node key {node!r}")
+                        raise ScenarioError.single("id", repr(c.id), f"must equal the node key {node!r}", path="id")
                     comps.append(c)
                 else:
                     comps.append(Compartment.from_mapping({"id": node, **attrs}, molar_mass, python=True))
             except ScenarioError as err:
-                problems.extend(err.within(f"compartment '{node}'").problems)
+                problems.extend(err.within(f"compartment '{node}'", at=f"compartment.{node}").problems)
         links: dict[str, list[Any]] = {"barrier": [], "exchange": [], "transfer": []}
         multi = g.is_multigraph()
         edges = g.edges(keys=True, data=True) if multi else ((u, v, None, d) for u, v, d in g.edges(data=True))
@@ -405,13 +433,13 @@ class Scenario:
                         raise ScenarioError.single(kind, repr(obj), f"must be a {cls_.__name__} object")
                     if (obj.from_id, obj.to_id) != (u, v):
                         raise ScenarioError.single("from", f"{obj.from_id} -> {obj.to_id}",
-                                                   f"must match the edge {u} -> {v}")
+                                                   f"must match the edge {u} -> {v}", path="from")
                     links[kind].append(obj)
                 else:
                     raw = {"id": lid, "from": u, "to": v, **attrs}
                     links[kind].append(cls_.from_mapping(raw, python=True))
             except ScenarioError as err:
-                problems.extend(err.within(f"{kind} '{lid}'").problems)
+                problems.extend(err.within(f"{kind} '{lid}'", at=f"{kind}.{lid}").problems)
         dose_objs = []
         dose_numbers = []  # the position of each built dose in the regimen given
         for i, d in enumerate(doses, start=1):
@@ -419,13 +447,13 @@ class Scenario:
                 dose_objs.append(d if isinstance(d, Dose) else Dose.from_mapping(d, molar_mass, python=True))
                 dose_numbers.append(i)
             except ScenarioError as err:
-                problems.extend(err.within(f"dose {i}").problems)
+                problems.extend(err.within(f"dose {i}", at=f"dose.{i}").problems)
         out_units = output if output is not None else OutputUnits()
         if isinstance(out_units, Mapping):
             try:
                 out_units = OutputUnits.from_mapping(out_units)
             except ScenarioError as err:
-                problems.extend(err.within("output").problems)
+                problems.extend(err.within("output", at="output").problems)
                 out_units = OutputUnits()
         times = {}
         for label, value in (("duration", duration), ("output_step", output_step)):
@@ -437,7 +465,7 @@ class Scenario:
                 try:
                     times[label] = parse_quantity(value, "time", f"scenario {label}")
                 except UnitsError as err:
-                    problems.append(err.problem)
+                    problems.append(dataclasses.replace(err.problem, path=f"scenario.{label}"))
                     times[label] = None
         otimes = None
         if output_times is not None:
@@ -446,7 +474,7 @@ class Scenario:
                 try:
                     otimes.append(float(t) if finite(t) else parse_quantity(t, "time", f"scenario output_times[{j}]"))
                 except UnitsError as err:
-                    problems.append(err.problem)
+                    problems.append(dataclasses.replace(err.problem, path="scenario.output_times"))
             otimes = tuple(otimes)
 
         def make() -> Scenario:
@@ -494,9 +522,11 @@ def network_problems(problems: list[Problem], make: Callable[[], Scenario], fail
         make()
     except ScenarioError as err:
         for p in err.problems:
-            m = re.match(r"dose (\d+)(\b.*)", p.field)
+            m = re.match(r"dose\.(\d+)(\..*)?\Z", p.path)
             if m and 0 < int(m.group(1)) <= len(dose_numbers):
-                p = dataclasses.replace(p, field=f"dose {dose_numbers[int(m.group(1)) - 1]}{m.group(2)}")
+                n = dose_numbers[int(m.group(1)) - 1]
+                p = dataclasses.replace(p, field=re.sub(r"\Adose \d+", f"dose {n}", p.field),
+                                        path=f"dose.{n}{m.group(2) or ''}")
             if p.field in seen or any(repr(f) in p.value for f in failed_ids):
                 continue
             out.append(p)

@@ -428,7 +428,8 @@ time = "kg"
     assert got == [
         ("substance.solubility", "substance solubility"),
         ("scenario.bogus", "scenario bogus"),
-        ("compartment.2.id", "compartment 2 id"),             # no id: its position in the file
+        ("compartment.2.volume", "compartment 2 volume"),     # no id: its position in the file
+        ("compartment.2.id", "compartment 2 id"),
         ("barrier.m.layer.2.thickness", "barrier 'm' layer 2 thickness"),
         ("exchange.1.flow", "exchange 1 flow"),
         ("dose.1.amount", "dose 1 amount"),

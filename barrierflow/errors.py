@@ -22,6 +22,7 @@ that a worker process or a cluster can send it back intact.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, replace
 
 __all__ = [
@@ -83,11 +84,14 @@ class Problem:
     path: str = ""
 
     def __post_init__(self) -> None:
-        # a value of thousands of characters (a pasted table, a long number) is shown by its start
-        value = self.value if isinstance(self.value, str) else str(self.value)
+        # one problem, one line: control characters (a line break inside a value or an id) are
+        # shown as escapes, and a value of thousands of characters by its start and its length
+        value = _visible(self.value if isinstance(self.value, str) else str(self.value))
         if len(value) > MAX_SHOWN:
             value = f"{value[:MAX_SHOWN - 40]}... ({len(value)} characters)"
         object.__setattr__(self, "value", value)
+        object.__setattr__(self, "field", _visible(str(self.field)))
+        object.__setattr__(self, "expected", _visible(str(self.expected)))
 
     def __str__(self) -> str:
         head = f"{self.file}: " if self.file else ""
@@ -109,6 +113,14 @@ class Problem:
         field = f"{prefix} {self.field}".strip() if prefix else self.field
         path = ".".join(x for x in (at, self.path) if x)
         return replace(self, field=field, file=file if file is not None else self.file, path=path)
+
+
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def _visible(text: str) -> str:
+    """``text`` with control characters written as escapes (``\\n``, ``\\x00``)."""
+    return _CONTROL.sub(lambda m: repr(m.group())[1:-1], text)
 
 
 class ScenarioError(BarrierflowError, ValueError):

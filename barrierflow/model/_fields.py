@@ -64,8 +64,13 @@ class FieldSpec:
 
 
 def finite(x: float) -> bool:
-    """True for a finite float."""
-    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+    """True for a finite number that a float can hold (not a bool, not a whole number beyond 1.8e308)."""
+    if not isinstance(x, (int, float)) or isinstance(x, bool):
+        return False
+    try:
+        return math.isfinite(x)
+    except OverflowError:  # an int too large for a float
+        return False
 
 
 def show(value: Any, spec: FieldSpec | None) -> str:
@@ -99,7 +104,7 @@ def parse_value(raw: Any, spec: FieldSpec, molar_mass: float | None) -> Any:
     if kind == "number":
         if isinstance(raw, bool) or not isinstance(raw, (int, float)):
             raise UnitsError(_quoted(raw), "expected a bare number such as 10 (no unit, no quotes)", spec.key)
-        if not math.isfinite(raw):
+        if not finite(raw):
             raise UnitsError(raw, "must be a finite number", spec.key)
         return float(raw)
     if kind == "count":

@@ -281,7 +281,8 @@ def _scalar(value: Any) -> str:
     if isinstance(value, (int, float)):
         return repr(value)
     if isinstance(value, str):
-        return json.dumps(value, ensure_ascii=False)
+        # JSON escapes what TOML forbids in a basic string, except DEL (U+007F), which TOML also forbids
+        return json.dumps(value, ensure_ascii=False).replace("\x7f", "\\u007f")
     if isinstance(value, (list, tuple)):
         return "[" + ", ".join(_scalar(v) for v in value) + "]"
     raise TypeError(f"cannot write {value!r} to TOML")

@@ -29,11 +29,13 @@ from scipy.integrate import solve_ivp
 
 import barrierflow as bf
 from barrierflow import Barrier, Compartment, Dose, Exchange, Layer, Scenario, ScenarioError, SolverError, Transfer
+from barrierflow.analysis.metrics import compute_metrics
+from barrierflow.analysis.population import percentile_bands, population_exposure
 from barrierflow.engine import ScipyIntegrator, compile_scenario, exact_chain, solve
 from barrierflow.engine.exact import ExactIntegrator, exact_supported
 from barrierflow.engine.exact_chain import chain_order
 from barrierflow.engine.kernels import jacobian_coo, jacobian_size, rates
-from barrierflow.engine.population import parameter_paths, sample_scenarios, simulate_many, simulate_population
+from barrierflow.engine.population import sample_scenarios, simulate_many, simulate_population
 from barrierflow.engine.problem import IntervalProblem, IntervalSettings
 from barrierflow.engine.rosenbrock import (
     RosenbrockIntegrator,
@@ -46,6 +48,7 @@ from barrierflow.engine.rosenbrock import (
     model_args,
     rates_chain,
 )
+from barrierflow.model.paths import ParamPath, parameter_paths
 
 H = 3600.0
 engine_solve = importlib.import_module("barrierflow.engine.solve")  # the module (the package exports a function)
@@ -433,7 +436,8 @@ def test_population_subjects_equal_single_runs():
     rod = simulate_many(subjects, integrator=RosenbrockIntegrator(rtol=1e-8, atol=1e-11))
     c = pop.concentration("central")
     assert np.max(np.abs(rod.concentration("central") - c)) < 1e-6 * c.max()
-    assert pop.cmax("central").shape == (6,) and pop.percentiles("central").shape == (3, len(pop.times))
+    exposure = population_exposure(pop, "central")
+    assert exposure.cmax.shape == (6,) and percentile_bands(pop.concentration("central")).shape == (3, len(pop.times))
 
 
 def test_population_nonlinear_runs_rodas_and_matches():
@@ -467,7 +471,47 @@ def test_population_refuses_bad_input():
     other = patch_body(cells=7)
     with pytest.raises(ScenarioError, match="population subject 2"):
         simulate_many([s, other])
-    assert "barrier 'skin' layer 2 diffusivity" in parameter_paths(s)
+    assert ParamPath.parse("barrier 'skin' layer 2 diffusivity") in parameter_paths(s, structural=False)
+
+
+def test_population_varies_paths_by_the_contract_syntax_and_tied_groups():
+    s = patch_body()
+    dotted = {"barrier.skin.layer.1.diffusivity": 0.3, "compartment.central.clearance": 0.3}
+    quoted = {"barrier 'skin' layer 1 diffusivity": 0.3, "compartment 'central' clearance": 0.3}
+    a, fa = sample_scenarios(s, dotted, 5, seed=3)
+    b, fb = sample_scenarios(s, quoted, 5, seed=3)
+    assert a == b and list(fa) == list(dotted) and list(fb) == list(quoted)
+    # a tied group: one factor for both members (layers 2 and 3 share their diffusivity)
+    tied = {"barrier.skin.layer.2.diffusivity,barrier.skin.layer.3.diffusivity": 0.3}
+    subjects, f = sample_scenarios(s, tied, 4, seed=5)
+    for subject, factor in zip(subjects, f[next(iter(tied))], strict=True):
+        d2, d3 = (layer.diffusivity for layer in subject.barrier("skin").layers[1:])
+        assert d2 == d3 == s.barrier("skin").layers[1].diffusivity * factor
+    # what a population may not vary, said plainly
+    with pytest.raises(ScenarioError, match="shapes the run"):
+        sample_scenarios(s, {"dose.1.every": 0.3}, 2)
+    with pytest.raises(ScenarioError, match="is not a quantity"):
+        sample_scenarios(s, {"barrier.skin.layer.1.cells": 0.3}, 2)
+    with pytest.raises(ScenarioError, match="not set in the scenario"):
+        sample_scenarios(s, {"compartment.central.km": 0.3}, 2)
+    with pytest.raises(ScenarioError, match="did you mean 'barrier.skin.layer.1.diffusivity'"):
+        sample_scenarios(s, {"barrier.skin.layer.1.difusivity": 0.3}, 2)
+
+
+def test_population_exposure_uses_the_rules_of_a_single_run():
+    # each subject's Cmax, tmax and AUC equal the metrics of the same scenario run alone: the
+    # patch is refilled (replace doses), so its AUC needs the jump rule of a single run
+    s = patch_body()
+    var = {"barrier.skin.layer.1.diffusivity": 0.3, "compartment.patch.volume": 0.2}
+    pop = simulate_population(s, var, 4, seed=7)
+    subjects, _ = sample_scenarios(s, var, 4, seed=7)
+    for cid in ("patch", "central"):
+        exposure = population_exposure(pop, cid)
+        for i, subject in enumerate(subjects):
+            single = compute_metrics(bf.simulate(subject)).compartment(cid)
+            assert exposure.auc[i] == pytest.approx(single.auc, rel=1e-9)
+            assert exposure.cmax[i] == pytest.approx(single.cmax, rel=1e-9)
+            assert exposure.tmax[i] == single.tmax
 
 
 # ---------------------------------------------------------------- compiled code in pure Python

@@ -1,6 +1,7 @@
 """Analysis of scenarios and results: simulation results, steady states, metrics, warnings."""
 
 from .metrics import BarrierMetrics, CompartmentMetrics, Metrics, compute_metrics
+from .population import PopulationExposure, percentile_bands, population_exposure
 from .result import CAUTION, BarrierProfile, MassBalance, Result
 from .simulate import simulate
 from .steady import BarrierSteady, SteadyReport, barrier_steady, burst_time, lag_time, steady_state
@@ -14,6 +15,7 @@ __all__ = [
     "CompartmentMetrics",
     "MassBalance",
     "Metrics",
+    "PopulationExposure",
     "Result",
     "SteadyReport",
     "barrier_steady",
@@ -21,6 +23,8 @@ __all__ = [
     "compute_metrics",
     "find_warnings",
     "lag_time",
+    "percentile_bands",
+    "population_exposure",
     "scenario_warnings",
     "simulate",
     "steady_state",

@@ -21,9 +21,7 @@ qualified review.
 
 from __future__ import annotations
 
-import dataclasses
 import math
-import re
 import time as _time
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -34,6 +32,7 @@ from numba import njit, prange
 
 from ..errors import ScenarioError
 from ..model import Scenario
+from ..model.paths import Param, parse_param, with_values
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _shortest_time
 from .exact_chain import chain_order, chain_schedule
@@ -53,117 +52,28 @@ from .rosenbrock import (
 from .schedule import build_schedule
 from .solve import _snap
 
-__all__ = ["Population", "parameter_paths", "sample_scenarios", "simulate_many", "simulate_population"]
-
-_COMP_FIELDS = ("volume", "initial_concentration", "partition", "clearance", "vmax", "km", "held_concentration")
-_LAYER_FIELDS = ("thickness", "diffusivity", "partition", "degradation_rate")
-_DOSE_FIELDS = ("amount", "rate", "concentration")
+__all__ = ["Population", "sample_scenarios", "simulate_many", "simulate_population"]
 
 
-# ---------------------------------------------------------------- parameter paths
-def parameter_paths(scenario: Scenario) -> tuple[str, ...]:
-    """Every parameter of ``scenario`` that a population can vary, as a path.
-
-    The paths read like the field paths of error messages::
-
-        compartment 'central' clearance
-        barrier 'skin' area
-        barrier 'skin' layer 2 diffusivity      (layers counted from 1, from the 'from' side)
-        exchange 'central-peripheral' flow
-        transfer 'gut-plasma' rate
-        dose 1 concentration                    (doses counted from 1, in the file's order)
-    """
-    out = []
-    for c in scenario.compartments:
-        out += [f"compartment '{c.id}' {f}" for f in _COMP_FIELDS if getattr(c, f) not in (None, 0.0)]
-    for b in scenario.barriers:
-        out.append(f"barrier '{b.id}' area")
-        for i, layer in enumerate(b.layers, start=1):
-            out += [f"barrier '{b.id}' layer {i} {f}" for f in _LAYER_FIELDS if getattr(layer, f) not in (None, 0.0)]
-    out += [f"exchange '{e.id}' flow" for e in scenario.exchanges]
-    out += [f"transfer '{t.id}' rate" for t in scenario.transfers]
-    for n, d in enumerate(scenario.doses, start=1):
-        out += [f"dose {n} {f}" for f in _DOSE_FIELDS if getattr(d, f) is not None]
-    return tuple(out)
-
-
-_PATH = re.compile(r"^\s*(compartment|barrier|exchange|transfer|dose)\s+'?([^'\s]+)'?\s+(.+?)\s*$")
-
-
-def _parse_path(scenario: Scenario, path: str) -> tuple[str, int, tuple]:
-    """(kind, index of the item, rest) of a parameter path, or a ScenarioError naming it."""
-    m = _PATH.match(path) if isinstance(path, str) else None
-    if not m:
-        raise ScenarioError.single("population variation", repr(path),
-                                   "must be a parameter path such as \"barrier 'skin' layer 1 diffusivity\"")
-    kind, ident, rest = m.groups()
-    words = rest.split()
-
-    def bad(expected: str):
-        return ScenarioError.single("population variation", repr(path), expected)
-
-    if kind == "compartment":
-        idx = next((i for i, c in enumerate(scenario.compartments) if c.id == ident), None)
-        if idx is None or len(words) != 1 or words[0] not in _COMP_FIELDS:
-            raise bad(f"names no compartment field; fields: {', '.join(_COMP_FIELDS)}")
-        if getattr(scenario.compartments[idx], words[0]) is None:
-            raise bad(f"compartment '{ident}' has no {words[0]} to vary")
-        return kind, idx, (words[0],)
-    if kind == "barrier":
-        idx = next((i for i, b in enumerate(scenario.barriers) if b.id == ident), None)
-        if idx is None:
-            raise bad("names no barrier of the scenario")
-        if words == ["area"]:
-            return kind, idx, ("area",)
-        if len(words) == 3 and words[0] == "layer" and words[1].isdigit() and words[2] in _LAYER_FIELDS:
-            li = int(words[1]) - 1
-            if not 0 <= li < len(scenario.barriers[idx].layers):
-                raise bad(f"barrier '{ident}' has layers 1 to {len(scenario.barriers[idx].layers)}")
-            return kind, idx, ("layer", li, words[2])
-        raise bad(f"must end in 'area' or 'layer <n> <field>' with a field among {', '.join(_LAYER_FIELDS)}")
-    if kind in ("exchange", "transfer"):
-        items = scenario.exchanges if kind == "exchange" else scenario.transfers
-        name = "flow" if kind == "exchange" else "rate"
-        idx = next((i for i, e in enumerate(items) if e.id == ident), None)
-        if idx is None or words != [name]:
-            raise bad(f"must name a {kind} of the scenario and end in '{name}'")
-        return kind, idx, (name,)
-    if not ident.isdigit() or not 1 <= int(ident) <= len(scenario.doses) or len(words) != 1 \
-            or words[0] not in _DOSE_FIELDS:
-        raise bad(f"must be 'dose <n> <field>' with n from 1 to {len(scenario.doses)} and a field among "
-                  f"{', '.join(_DOSE_FIELDS)}")
-    if getattr(scenario.doses[int(ident) - 1], words[0]) is None:
-        raise bad(f"dose {ident} has no {words[0]} to vary")
-    return "dose", int(ident) - 1, (words[0],)
-
-
-def _apply(scenario: Scenario, changes: Sequence[tuple[tuple[str, int, tuple], float]]) -> Scenario:
-    """``scenario`` with each parsed parameter multiplied by its factor (one new scenario)."""
-    comps = list(scenario.compartments)
-    bars = list(scenario.barriers)
-    items = {"exchange": list(scenario.exchanges), "transfer": list(scenario.transfers),
-             "dose": list(scenario.doses)}
-    layer_changes: dict[int, dict[int, dict[str, float]]] = {}
-    for (kind, idx, rest), f in changes:
-        if kind == "compartment":
-            c = comps[idx]
-            comps[idx] = dataclasses.replace(c, **{rest[0]: getattr(c, rest[0]) * f})
-        elif kind == "barrier" and rest[0] == "area":
-            bars[idx] = dataclasses.replace(bars[idx], area=bars[idx].area * f)
-        elif kind == "barrier":
-            lc = layer_changes.setdefault(idx, {}).setdefault(rest[1], {})
-            lc[rest[2]] = lc.get(rest[2], 1.0) * f
-        else:
-            it = items[kind][idx]
-            items[kind][idx] = dataclasses.replace(it, **{rest[0]: getattr(it, rest[0]) * f})
-    for bi, per_layer in layer_changes.items():
-        layers = list(bars[bi].layers)
-        for li, fields in per_layer.items():
-            layers[li] = dataclasses.replace(layers[li], **{k: getattr(layers[li], k) * v for k, v in fields.items()})
-        bars[bi] = dataclasses.replace(bars[bi], layers=tuple(layers))
-    return dataclasses.replace(scenario, compartments=tuple(comps), barriers=tuple(bars),
-                               exchanges=tuple(items["exchange"]), transfers=tuple(items["transfer"]),
-                               doses=tuple(items["dose"]))
+# ---------------------------------------------------------------- the varied parameters
+def _varied(scenario: Scenario, key: str | Param) -> tuple[Param, float]:
+    """The parameter a population varies, and its value in ``scenario``, or a ScenarioError naming it."""
+    param = parse_param(key, scenario, what="population variation")
+    label = repr(str(key)) if isinstance(key, str) else repr(param.text)
+    if not param.numeric or param.kind == "count":
+        raise ScenarioError.single("population variation", label,
+                                   f"{param.label} is not a quantity; vary a rate, an amount, a volume or a "
+                                   "property of a layer")
+    if param.structural:
+        raise ScenarioError.single("population variation", label,
+                                   f"{param.label} shapes the run (the dosing or output times, the grid), which every "
+                                   "subject of a population shares; vary a rate, an amount, a volume or a property "
+                                   "of a layer")
+    value = param.get(scenario)
+    if value is None:
+        raise ScenarioError.single("population variation", label,
+                                   f"{param.label} is not set in the scenario, so there is nothing to vary")
+    return param, value
 
 
 def sample_scenarios(scenario: Scenario, variations: Mapping[str, float], n: int,
@@ -173,8 +83,11 @@ def sample_scenarios(scenario: Scenario, variations: Mapping[str, float], n: int
     Parameters
     ----------
     scenario : Scenario
-    variations : mapping of str to float
-        Parameter path (see :func:`parameter_paths`) to coefficient of variation (0.3 for 30 %).
+    variations : mapping of str (or ParamPath, Tied) to float
+        Parameter path (:class:`barrierflow.model.paths.ParamPath`, in its dotted form or the form
+        of the messages; a :class:`~barrierflow.model.paths.Tied` group varies its members by one
+        factor) to coefficient of variation (0.3 for 30 %). Every quantity of
+        :func:`barrierflow.model.paths.parameter_paths` with ``structural=False`` may vary.
     n : int
         Number of subjects.
     seed : int
@@ -184,22 +97,24 @@ def sample_scenarios(scenario: Scenario, variations: Mapping[str, float], n: int
     -------
     scenarios : tuple of Scenario
     factors : dict of str to ndarray (n,)
-        The factor each parameter was multiplied by, per subject.
+        The factor each parameter was multiplied by, per subject, under the key given.
     """
     if not (isinstance(n, int) and not isinstance(n, bool) and n >= 1):
         raise ScenarioError.single("population size", n, "must be a whole number >= 1")
     rng = np.random.default_rng(seed)
     factors: dict[str, np.ndarray] = {}
-    parsed = []
+    varied = []
     for path, cv in variations.items():
         if not (isinstance(cv, float | int) and not isinstance(cv, bool) and 0 <= cv < 10):
-            raise ScenarioError.single(f"population variation {path!r}", cv,
+            raise ScenarioError.single(f"population variation {str(path)!r}", cv,
                                        "must be a coefficient of variation from 0 to 10 (0.3 for 30 %)")
-        parsed.append(_parse_path(scenario, path))
+        varied.append(_varied(scenario, path))
         omega = math.sqrt(math.log1p(float(cv) ** 2))
-        factors[path] = np.exp(omega * rng.standard_normal(n))
-    cols = [factors[p].tolist() for p in factors]
-    subjects = tuple(_apply(scenario, list(zip(parsed, [c[i] for c in cols], strict=True))) for i in range(n))
+        factors[str(path)] = np.exp(omega * rng.standard_normal(n))
+    cols = [f.tolist() for f in factors.values()]
+    subjects = tuple(
+        with_values(scenario, {param: value * col[i] for (param, value), col in zip(varied, cols, strict=True)})
+        for i in range(n))
     return subjects, factors
 
 
@@ -224,6 +139,12 @@ class Population:
         Integration steps per subject.
     integrator : str
     wall_time : float, s
+    scenario : Scenario or None
+        The first subject: every subject shares its structure and dosing times, which the
+        statistics of :mod:`barrierflow.analysis.population` need (the times of the doses).
+
+    Exposure statistics (Cmax, tmax, AUC, percentile bands) are computed in the analysis layer,
+    by the rules of a single run: :func:`barrierflow.analysis.population.population_exposure`.
     """
 
     times: np.ndarray
@@ -242,6 +163,7 @@ class Population:
     _volume: np.ndarray = field(repr=False)    # (n_sub, n_comp) mL (NaN without volume)
     _n_comp: int = 0
     _n_bar: int = 0
+    scenario: Scenario | None = field(default=None, repr=False)
 
     @property
     def n_subjects(self) -> int:
@@ -281,24 +203,6 @@ class Population:
     def flux(self, bid: str) -> np.ndarray:
         """Flux per area from ``bid`` into its ``to`` compartment, mg/(cm^2 h)."""
         return self._flux[:, :, self._b(bid)].copy()
-
-    def cmax(self, cid: str) -> np.ndarray:
-        """Highest concentration of each subject in ``cid`` over the output times, mg/mL."""
-        return np.nanmax(self.concentration(cid), axis=1)
-
-    def tmax(self, cid: str) -> np.ndarray:
-        """Output time of each subject's highest concentration in ``cid``, h."""
-        c = np.where(np.isnan(self.concentration(cid)), -np.inf, self.concentration(cid))
-        return self.times[np.argmax(c, axis=1)]
-
-    def auc(self, cid: str) -> np.ndarray:
-        """Area under each subject's concentration curve in ``cid`` (trapezoidal rule), mg h/mL."""
-        c = self.concentration(cid)
-        return np.sum(0.5 * (c[:, 1:] + c[:, :-1]) * np.diff(self.times)[None, :], axis=1)
-
-    def percentiles(self, cid: str, q: Sequence[float] = (5, 50, 95)) -> np.ndarray:
-        """Percentiles over the subjects of the concentration in ``cid``, mg/mL, (len(q), n_t)."""
-        return np.nanpercentile(self.concentration(cid), q, axis=0)
 
 
 # ---------------------------------------------------------------- the compiled population run
@@ -504,7 +408,7 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         times=times, comp_ids=m0.comp_ids, barrier_ids=m0.barrier_ids, factors=dict(factors or {}), status=st,
         messages=tuple(messages), steps=stats[:, ST_STEPS].copy(), integrator=name,
         wall_time=_time.perf_counter() - start, _conc=out[:, :, :nc], _quad=out[:, :, nc + len(out_cells):],
-        _flux=flux, _area=area, _volume=volume, _n_comp=nc, _n_bar=m0.n_bar)
+        _flux=flux, _area=area, _volume=volume, _n_comp=nc, _n_bar=m0.n_bar, scenario=s0)
 
 
 def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: int, seed: int = 0, *,
@@ -515,9 +419,10 @@ def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: 
     Parameters
     ----------
     scenario : Scenario
-    variations : mapping of str to float
+    variations : mapping of str (or ParamPath, Tied) to float
         Parameter path to coefficient of variation, for example
-        ``{"barrier 'skin' layer 1 diffusivity": 0.3, "compartment 'central' clearance": 0.3}``.
+        ``{"barrier.skin.layer.1.diffusivity": 0.3, "compartment.central.clearance": 0.3}``
+        (see :func:`sample_scenarios`).
     n : int
         Number of subjects.
     seed : int
@@ -533,7 +438,7 @@ def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: 
     --------
     >>> import barrierflow as bf                                        # doctest: +SKIP
     >>> s = bf.load("scenarios/benchmark_patch.toml")                   # doctest: +SKIP
-    >>> pop = bf.simulate_population(s, {"compartment 'central' clearance": 0.3}, n=100)  # doctest: +SKIP
+    >>> pop = bf.simulate_population(s, {"compartment.central.clearance": 0.3}, n=100)  # doctest: +SKIP
     >>> pop.percentiles("central").shape                                # doctest: +SKIP
     (3, 1009)
     """

@@ -53,6 +53,7 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+import functools
 import math
 import numbers
 import re
@@ -112,6 +113,7 @@ def _class_of(table: str, layer: int | None) -> type:
     return _SINGLE[table][1] if table in _SINGLE else _MANY[table][1]
 
 
+@functools.cache
 def _specs(cls: type) -> dict[str, FieldSpec]:
     return {s.key: s for s in cls.SPECS}
 
@@ -676,7 +678,7 @@ def with_values(scenario: Scenario, values: Mapping[Param | str, Any]) -> Scenar
     changes: dict[ParamPath, Any] = {}
     problems: list[Problem] = []
     for key, value in values.items():
-        param = parse_param(key, scenario)
+        param = key if isinstance(key, ParamPath | Tied) else parse_param(key, scenario)
         for p in param.paths:
             if p in changes:
                 problems.append(Problem("parameter path", repr(p.text), "is set twice; give each path once"))
@@ -687,7 +689,10 @@ def with_values(scenario: Scenario, values: Mapping[Param | str, Any]) -> Scenar
     many: dict[tuple[str, int], dict[str, Any]] = {}
     layers: dict[int, dict[int, dict[str, Any]]] = {}
     for p, value in changes.items():
-        i, j = p._index(scenario)
+        try:
+            i, j = p._index(scenario)
+        except ScenarioError as err:
+            raise _retitle(err, "parameter path", p.text, scenario) from None
         if p.table in _SINGLE:
             single.setdefault(p.table, {})[p.spec.attr] = value
             continue
@@ -741,19 +746,25 @@ def with_values(scenario: Scenario, values: Mapping[Param | str, Any]) -> Scenar
 def _coerce(path: ParamPath, value: Any) -> Any:
     """A value as the model holds it: numbers as float (counts as int); anything else as given,
     for the model to refuse with its own message."""
+    if type(value) is float:
+        return value if path.spec.kind != "count" else _coerce_count(value)
     kind = path.spec.kind
     if isinstance(value, bool):
         return value
     if kind == "count":
-        if isinstance(value, numbers.Integral):
-            return int(value)
-        if isinstance(value, numbers.Real) and float(value).is_integer():
-            return int(value)
-        return value
+        return _coerce_count(value)
     if kind in KINDS or kind == "number":
         return float(value) if isinstance(value, numbers.Real) else value
     if kind == "times" and isinstance(value, Sequence) and not isinstance(value, str):
         return tuple(float(v) if isinstance(v, numbers.Real) and not isinstance(v, bool) else v for v in value)
+    return value
+
+
+def _coerce_count(value: Any) -> Any:
+    if isinstance(value, numbers.Integral) and not isinstance(value, bool):
+        return int(value)
+    if isinstance(value, numbers.Real) and not isinstance(value, bool) and float(value).is_integer():
+        return int(value)
     return value
 
 

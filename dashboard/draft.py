@@ -36,14 +36,25 @@ from __future__ import annotations
 import copy
 import hashlib
 import math
-import re
 import secrets
 from collections.abc import Iterable, Mapping
 from typing import Any
 
 from barrierflow.errors import Problem, ScenarioError, UnitsError
 from barrierflow.io import loads, read_toml
-from barrierflow.model import Scenario, from_document
+from barrierflow.model import (
+    Barrier,
+    Compartment,
+    Dose,
+    Exchange,
+    Layer,
+    OutputUnits,
+    Scenario,
+    Substance,
+    Transfer,
+    from_document,
+    to_toml,
+)
 from barrierflow.units import convert, parse_quantity
 
 __all__ = [
@@ -79,75 +90,84 @@ __all__ = [
     "update_link",
 ]
 
-# field name -> (label, kind of quantity or "number"/"count"/"text", example)
-COMPARTMENT_FIELDS: dict[str, tuple[str, str, str]] = {
-    "id": ("Id", "id", "donor"),
-    "volume": ("Volume", "volume", "1 mL"),
-    "initial_concentration": ("Initial concentration", "concentration", "20 mg/mL"),
-    "partition": ("Partition coefficient", "number", "1"),
-    "clearance": ("Clearance", "flow", "10 L/h"),
-    "vmax": ("Saturable elimination, Vmax", "amount_rate", "2 mg/h"),
-    "km": ("Saturable elimination, Km", "concentration", "0.1 mg/L"),
-    "held_concentration": ("Held concentration", "concentration", "0 mg/mL"),
-    "description": ("Description", "text", "receptor fluid"),
-}
+
+def _fields(cls: type, shown: Mapping[str, tuple[str, str]]) -> dict[str, tuple[str, str, str]]:
+    """field key -> (label, kind, example): the dashboard's label and example for each field of a
+    model class, and the field's kind of quantity from the model's own field table."""
+    kinds = {spec.key: spec.kind for spec in cls.SPECS}
+    return {key: (label, kinds[key], example) for key, (label, example) in shown.items()}
+
+
+# field key -> (label, kind of quantity or "number"/"count"/"text"/"id", example)
+COMPARTMENT_FIELDS: dict[str, tuple[str, str, str]] = _fields(Compartment, {
+    "id": ("Id", "donor"),
+    "volume": ("Volume", "1 mL"),
+    "initial_concentration": ("Initial concentration", "20 mg/mL"),
+    "partition": ("Partition coefficient", "1"),
+    "clearance": ("Clearance", "10 L/h"),
+    "vmax": ("Saturable elimination, Vmax", "2 mg/h"),
+    "km": ("Saturable elimination, Km", "0.1 mg/L"),
+    "held_concentration": ("Held concentration", "0 mg/mL"),
+    "description": ("Description", "receptor fluid"),
+})
 LINK_FIELDS: dict[str, dict[str, tuple[str, str, str]]] = {
-    "barrier": {
-        "id": ("Id", "id", "skin"),
-        "area": ("Area", "area", "10 cm^2"),
-        "model": ("Model", "text", "resolved"),
-    },
-    "exchange": {
-        "id": ("Id", "id", "blood_flow"),
-        "flow": ("Flow", "flow", "5 L/h"),
-    },
-    "transfer": {
-        "id": ("Id", "id", "absorption"),
-        "rate": ("Rate constant", "rate", "0.8 1/h"),
-    },
+    "barrier": _fields(Barrier, {
+        "id": ("Id", "skin"),
+        "area": ("Area", "10 cm^2"),
+        "model": ("Model", "resolved"),
+    }),
+    "exchange": _fields(Exchange, {
+        "id": ("Id", "blood_flow"),
+        "flow": ("Flow", "5 L/h"),
+    }),
+    "transfer": _fields(Transfer, {
+        "id": ("Id", "absorption"),
+        "rate": ("Rate constant", "0.8 1/h"),
+    }),
 }
-LAYER_FIELDS: dict[str, tuple[str, str, str]] = {
-    "name": ("Name", "text", "stratum corneum"),
-    "thickness": ("Thickness", "length", "15 um"),
-    "diffusivity": ("Diffusivity", "diffusivity", "1e-9 cm^2/s"),
-    "partition": ("Partition coefficient", "number", "10"),
-    "cells": ("Cells", "count", "40"),
-    "degradation_rate": ("Degradation rate", "rate", "0 1/h"),
-}
-DOSE_FIELDS: dict[str, tuple[str, str, str]] = {
-    "target": ("Target", "id", "donor"),
-    "kind": ("Kind", "text", "bolus"),
-    "amount": ("Amount", "amount", "2 mg"),
-    "concentration": ("Concentration", "concentration", "20 mg/mL"),
-    "rate": ("Rate", "amount_rate", "0.1 mg/h"),
-    "at": ("At", "time", "0 h"),
-    "every": ("Every", "time", "24 h"),
-    "count": ("Count", "count", "6"),
-    "duration": ("Duration", "time", "8 h"),
-}
+LAYER_FIELDS: dict[str, tuple[str, str, str]] = _fields(Layer, {
+    "name": ("Name", "stratum corneum"),
+    "thickness": ("Thickness", "15 um"),
+    "diffusivity": ("Diffusivity", "1e-9 cm^2/s"),
+    "partition": ("Partition coefficient", "10"),
+    "cells": ("Cells", "40"),
+    "degradation_rate": ("Degradation rate", "0 1/h"),
+})
+DOSE_FIELDS: dict[str, tuple[str, str, str]] = _fields(Dose, {
+    "target": ("Target", "donor"),
+    "kind": ("Kind", "bolus"),
+    "amount": ("Amount", "2 mg"),
+    "concentration": ("Concentration", "20 mg/mL"),
+    "rate": ("Rate", "0.1 mg/h"),
+    "at": ("At", "0 h"),
+    "every": ("Every", "24 h"),
+    "count": ("Count", "6"),
+    "duration": ("Duration", "8 h"),
+})
 SCENARIO_FIELDS = ("name", "description", "duration", "output_step")
 SUBSTANCE_FIELDS = ("name", "molar_mass", "solubility", "log_kow")
 OUTPUT_FIELDS = ("time", "concentration", "amount", "area")
-SUBSTANCE_LABELS: dict[str, tuple[str, str, str]] = {
-    "name": ("Substance", "text", "compound A"),
-    "molar_mass": ("Molar mass", "molar_mass", "250 g/mol"),
-    "solubility": ("Solubility", "concentration", "2 mg/mL"),
-    "log_kow": ("log Kow", "number", "1.8"),
-}
-OUTPUT_LABELS: dict[str, tuple[str, str, str]] = {
-    "time": ("Time unit", "text", "h"),
-    "concentration": ("Concentration unit", "text", "mg/L"),
-    "amount": ("Amount unit", "text", "mg"),
-    "area": ("Area unit", "text", "cm^2"),
-}
+SUBSTANCE_LABELS: dict[str, tuple[str, str, str]] = _fields(Substance, {
+    "name": ("Substance", "compound A"),
+    "molar_mass": ("Molar mass", "250 g/mol"),
+    "solubility": ("Solubility", "2 mg/mL"),
+    "log_kow": ("log Kow", "1.8"),
+})
+OUTPUT_LABELS: dict[str, tuple[str, str, str]] = _fields(OutputUnits, {
+    "time": ("Time unit", "h"),
+    "concentration": ("Concentration unit", "mg/L"),
+    "amount": ("Amount unit", "mg"),
+    "area": ("Area unit", "cm^2"),
+})
 
 NEW_LAYER = {"name": "", "thickness": "10 um", "diffusivity": "1e-7 cm^2/s", "partition": "1",
              "cells": "", "degradation_rate": ""}
 NEW_LINK = {"barrier": {"area": "1 cm^2"}, "exchange": {"flow": "1 mL/h"}, "transfer": {"rate": "0.1 1/h"}}
 NEW_DOSE = {"kind": "bolus", "amount": "1 mg", "at": "0 h"}
 
-_NUMBER_FIELDS = {"partition", "log_kow"}
-_COUNT_FIELDS = {"cells", "count"}
+_ALL_FIELDS = (COMPARTMENT_FIELDS, *LINK_FIELDS.values(), LAYER_FIELDS, DOSE_FIELDS, SUBSTANCE_LABELS)
+_NUMBER_FIELDS = {k for table in _ALL_FIELDS for k, (_, kind, _) in table.items() if kind == "number"}
+_COUNT_FIELDS = {k for table in _ALL_FIELDS for k, (_, kind, _) in table.items() if kind == "count"}
 
 
 # ================================================================ building drafts
@@ -392,14 +412,12 @@ def check(draft: Mapping[str, Any]) -> tuple[Scenario | None, dict[str, Any]]:
     return scenario, dict(ok=True, toml=text, name=scenario.name, digest=digest, messages={}, all=[])
 
 
-_ELEMENT = re.compile(r"^(compartment|barrier|exchange|transfer) (?:'([^']*)'|(\d+))(?: (.*))?$")
-_LAYER = re.compile(r"^layer (\d+)(?: (.*))?$")
-_DOSE = re.compile(r"^dose (\d+)(?: (.*))?$")
-_HEAD = re.compile(r"^(scenario|substance|output) (\w+)")
+_ELEMENTS = ("compartment", "barrier", "exchange", "transfer")
+_HEADS = {"scenario": "s", "substance": "sub", "output": "o"}
 
 
 def locate(problems: Iterable[Problem], draft: Mapping[str, Any]) -> dict[str, list[str]]:
-    """Attach each problem to the field of the draft it is about.
+    """Attach each problem to the field of the draft it is about, found from :attr:`Problem.path`.
 
     Targets are strings:
 
@@ -409,8 +427,9 @@ def locate(problems: Iterable[Problem], draft: Mapping[str, Any]) -> dict[str, l
     - ``"s:<field>"``, ``"sub:<field>"``, ``"o:<field>"`` scenario, substance, output fields;
     - ``"general"`` anything else (a syntax error, a network without compartments, ...).
 
-    Each target maps to the full messages (``<file>: <field path>: got <value>; <expected>``),
-    the same text the command line prints.
+    A problem's path names a compartment or link by its id, or by its position among those of
+    its kind (counted from 1) when it has no id. Each target maps to the full messages
+    (``<file>: <field path>: got <value>; <expected>``), the same text the command line prints.
     """
     out: dict[str, list[str]] = {}
 
@@ -420,39 +439,31 @@ def locate(problems: Iterable[Problem], draft: Mapping[str, Any]) -> dict[str, l
     comps = draft.get("compartments", [])
     links = draft.get("links", [])
     for p in problems:
-        m = _ELEMENT.match(p.field)
-        if m:
-            kind, ident, index, rest = m.group(1), m.group(2), m.group(3), m.group(4) or ""
-            items = comps if kind == "compartment" else [x for x in links if x["kind"] == kind]
-            if ident is not None:
-                matches = [x for x in items if x.get("id", "") == ident]
-            else:
-                i = int(index) - 1
-                matches = [items[i]] if 0 <= i < len(items) else []
+        parts = p.path.split(".") if p.path else []
+        table = parts[0] if parts else ""
+        if table in _ELEMENTS and len(parts) >= 2:
+            ident, rest = parts[1], parts[2:]
+            items = comps if table == "compartment" else [x for x in links if x["kind"] == table]
+            matches = [x for x in items if x.get("id", "") == ident]
+            if not matches and ident.isdigit() and 0 < int(ident) <= len(items):
+                matches = [items[int(ident) - 1]]
             if not matches:
                 add("general", p)
                 continue
             item = matches[0]
-            if kind == "barrier":
-                lm = _LAYER.match(rest)
-                if lm:
-                    add(f"y:{item['key']}:{int(lm.group(1)) - 1}:{(lm.group(2) or 'layer').split(' ')[0]}", p)
-                    continue
-            name = rest.split(" ")[0] if rest else "id"
+            if table == "barrier" and len(rest) >= 2 and rest[0] == "layer" and rest[1].isdigit():
+                add(f"y:{item['key']}:{int(rest[1]) - 1}:{rest[2] if len(rest) > 2 else 'layer'}", p)
+                continue
+            name = rest[0] if rest else "id"
             if name == "layer":
                 name = "layers"
-            add(f"{'c' if kind == 'compartment' else 'l'}:{item['key']}:{name}", p)
-            continue
-        m = _DOSE.match(p.field)
-        if m:
-            add(f"d:{int(m.group(1)) - 1}:{(m.group(2) or 'kind').split(' ')[0]}", p)
-            continue
-        m = _HEAD.match(p.field)
-        if m:
-            prefix = {"scenario": "s", "substance": "sub", "output": "o"}[m.group(1)]
-            add(f"{prefix}:{m.group(2)}", p)
-            continue
-        add("general", p)
+            add(f"{'c' if table == 'compartment' else 'l'}:{item['key']}:{name}", p)
+        elif table == "dose" and len(parts) >= 2 and parts[1].isdigit():
+            add(f"d:{int(parts[1]) - 1}:{parts[2] if len(parts) > 2 else 'kind'}", p)
+        elif table in _HEADS and len(parts) >= 2:
+            add(f"{_HEADS[table]}:{parts[1]}", p)
+        else:
+            add("general", p)
     return out
 
 
@@ -472,49 +483,7 @@ def save_text(draft: Mapping[str, Any]) -> tuple[str, bool]:
         return scenario.to_toml(), True
     lines = ["# This scenario has problems; barrierflow refuses to run it until they are fixed:"]
     lines += [f"#   {m}" for m in found["all"]]
-    return "\n".join(lines) + "\n" + _emit(to_document(draft)), False
-
-
-def _emit(doc: Mapping[str, Any]) -> str:
-    """TOML text of a document of tables, lists of tables and scalars (written for drafts)."""
-    import json
-
-    def scalar(v: Any) -> str:
-        if isinstance(v, bool):
-            return "true" if v else "false"
-        if isinstance(v, (int, float)):
-            return repr(v) if math.isfinite(v) else json.dumps(str(v))
-        if isinstance(v, (list, tuple)):
-            return "[" + ", ".join(scalar(x) for x in v) + "]"
-        return json.dumps(str(v), ensure_ascii=False)
-
-    lines: list[str] = []
-
-    def table(name: str, t: Mapping[str, Any], array: bool) -> None:
-        lines.append("")
-        lines.append(f"[[{name}]]" if array else f"[{name}]")
-        nested = []
-        for k, v in t.items():
-            if isinstance(v, list) and v and isinstance(v[0], Mapping):
-                nested.append((k, v))
-            elif isinstance(v, list) and not v and k == "layer":
-                continue
-            else:
-                lines.append(f"{k} = {scalar(v)}")
-        for k, subs in nested:
-            for s in subs:
-                table(f"{name}.{k}", s, True)
-
-    for key in ("scenario", "substance", "compartment", "barrier", "exchange", "transfer", "dose", "output"):
-        if key not in doc:
-            continue
-        value = doc[key]
-        if isinstance(value, list):
-            for t in value:
-                table(key, t, True)
-        else:
-            table(key, value, False)
-    return "\n".join(lines).strip() + "\n"
+    return "\n".join(lines) + "\n" + to_toml(to_document(draft)), False
 
 
 # ================================================================ lookups

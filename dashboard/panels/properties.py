@@ -43,7 +43,7 @@ def _compartment_form() -> html.Div:
 
 def _link_form() -> html.Div:
     rows = []
-    labels = {"id": ("Id", "id", "skin"), "area": D.LINK_FIELDS["barrier"]["area"],
+    labels = {"id": D.LINK_FIELDS["barrier"]["id"], "area": D.LINK_FIELDS["barrier"]["area"],
               "flow": D.LINK_FIELDS["exchange"]["flow"], "rate": D.LINK_FIELDS["transfer"]["rate"]}
     for name in LINK_ORDER:
         label, kind, example = labels[name]

@@ -418,7 +418,8 @@ DOSE_KINDS: dict[str, tuple[str, ...]] = {
 }
 """Each dose kind and the fields it needs (besides ``target``, ``at``, ``every``, ``count``)."""
 
-_DOSE_OPTIONAL = ("amount", "rate", "duration", "concentration")
+_DOSE_OPTIONAL = tuple(dict.fromkeys(name for needed in DOSE_KINDS.values() for name in needed))
+"""The fields some kind needs: each is refused on a dose whose kind does not use it."""
 
 
 @dataclass(frozen=True)

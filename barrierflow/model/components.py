@@ -480,9 +480,11 @@ class Dose:
             for name in _DOSE_OPTIONAL:
                 value = getattr(self, name)
                 if name in needed and value is None:
-                    chk.add(name, "nothing", f"a {self.kind} dose needs {name}")
+                    article = "an" if self.kind[0] in "aeiou" else "a"
+                    chk.add(name, "nothing", f"{article} {self.kind} dose needs {name}")
                 elif name not in needed and value is not None:
-                    chk.add(name, value, f"a {self.kind} dose does not use {name}; remove it")
+                    article = "an" if self.kind[0] in "aeiou" else "a"
+                    chk.add(name, value, f"{article} {self.kind} dose does not use {name}; remove it")
         chk.bound("at", self.at)
         chk.bound("amount", self.amount, optional=True)
         chk.bound("rate", self.rate, optional=True)

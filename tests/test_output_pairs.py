@@ -139,3 +139,150 @@ def _dead_pid() -> int:
     child = subprocess.Popen([sys.executable, "-c", "pass"])
     child.wait()
     return child.pid
+
+
+# ----------------------------------------------------------------------------- kill trials
+# A child process writes traces pairs in a loop (the library's write_traces, with the texts of real
+# runs); the test kills it with SIGKILL at a random moment, then reads what is on disk. Half the
+# trials slow each rename down by 5 ms (a slow file system), which makes a kill between the CSV's
+# rename and the sidecar's likely; on a fast disk that window is a few microseconds wide.
+CHILD = '''
+import os, sys, time
+from pathlib import Path
+from barrierflow.io import write_traces
+data, out, mode, start = Path(sys.argv[1]), Path(sys.argv[2]), sys.argv[3], int(sys.argv[4])
+pairs = [((data / f"{i}.csv").read_text(encoding="utf-8"), (data / f"{i}.json").read_text(encoding="utf-8"))
+         for i in range(int(sys.argv[5]))]
+if mode == "slow":
+    real = os.replace
+    def replace(a, b):
+        real(a, b)
+        time.sleep(0.005)
+    os.replace = replace
+print("ready", flush=True)
+i = start
+while True:
+    write_traces(out, *pairs[i % len(pairs)])
+    i += 1
+'''
+PLAIN_TRIALS = 30
+SLOW_TRIALS = 30
+CLI_TRIALS = 3
+
+
+def _pairs(folder: Path) -> list[tuple[str, str]]:
+    """Traces and sidecars of three real runs of the diffusion cell (different output steps)."""
+    import dataclasses
+
+    base = barrierflow.load(CELL)
+    out = []
+    for i, step in enumerate((1.0, 0.25, 1 / 12)):
+        result = barrierflow.simulate(dataclasses.replace(base, output_step=step))
+        csv_text = result.csv_text()
+        pair = (csv_text, result.sidecar_text(csv_text))
+        (folder / f"{i}.csv").write_text(pair[0], encoding="utf-8")
+        (folder / f"{i}.json").write_text(pair[1], encoding="utf-8")
+        out.append(pair)
+    return out
+
+
+def _which(path: Path, texts: list[str]) -> str:
+    """'absent', the index of the complete text the file holds, or 'torn'."""
+    if not path.exists():
+        return "absent"
+    raw = path.read_bytes()
+    for i, t in enumerate(texts):
+        if raw == t.encode("utf-8"):
+            return str(i)
+    return "torn"
+
+
+def _inspect(out: Path, pairs: list[tuple[str, str]], outcomes: dict[str, int]) -> None:
+    """Check the files a killed writer left, count the outcome, then write again (the next run)."""
+    csv_state = _which(out, [p[0] for p in pairs])
+    side_state = _which(out.with_suffix(".json"), [p[1] for p in pairs])
+    assert "torn" not in (csv_state, side_state), (csv_state, side_state)
+    match = traces_match(out)
+    if side_state != "absent":
+        assert csv_state != "absent"  # the sidecar is renamed last: never alone
+    if match:
+        assert csv_state == side_state  # a pair that says it matches does
+        outcome = "matching pair"
+    elif csv_state == "absent":
+        outcome = "no file yet"
+    else:
+        assert csv_state != side_state
+        outcome = "CSV beside the previous sidecar, told apart by the hash" if side_state != "absent" \
+            else "CSV without sidecar yet"
+    outcomes[outcome] = outcomes.get(outcome, 0) + 1
+    temporaries = [p for p in out.parent.iterdir() if p.name.startswith(".")]
+    if temporaries:
+        outcomes["temporary files left (removed by the next write)"] = (
+            outcomes.get("temporary files left (removed by the next write)", 0) + 1)
+    write_traces(out, *pairs[0])  # the next run
+    assert traces_match(out)
+    assert sorted(p.name for p in out.parent.iterdir()) == [out.name, out.with_suffix(".json").name]
+
+
+def test_kill_trials_never_leave_a_torn_file_or_an_undetected_mismatch(tmp_path):
+    import random
+    import signal
+    import subprocess
+    import sys
+
+    data = tmp_path / "data"
+    data.mkdir()
+    pairs = _pairs(data)
+    assert len({traces_digest(p[0])["sha256"] for p in pairs}) == len(pairs)
+    script = tmp_path / "writer.py"
+    script.write_text(CHILD, encoding="utf-8")
+    folder = tmp_path / "out"
+    folder.mkdir()
+    out = folder / "cell.csv"
+    rng = random.Random(20261204)
+    outcomes: dict[str, dict[str, int]] = {"plain": {}, "slow": {}}
+    started = time.monotonic()
+    for trial in range(PLAIN_TRIALS + SLOW_TRIALS):
+        mode = "plain" if trial % 2 else "slow"
+        child = subprocess.Popen([sys.executable, str(script), str(data), str(out), mode, str(trial % 3 + 1),
+                                  str(len(pairs))], stdout=subprocess.PIPE, text=True)
+        try:
+            assert child.stdout.readline().strip() == "ready"
+            time.sleep(rng.uniform(0.0, 0.06))
+        finally:
+            child.send_signal(signal.SIGKILL)
+            child.wait(timeout=30)
+            child.stdout.close()
+        _inspect(out, pairs, outcomes[mode])
+    elapsed = time.monotonic() - started
+    print(f"kill trials in {elapsed:.1f} s: {outcomes}")
+    assert sum(outcomes["plain"].values()) >= PLAIN_TRIALS and sum(outcomes["slow"].values()) >= SLOW_TRIALS
+
+
+def test_a_killed_command_line_run_leaves_no_partial_output(tmp_path):
+    # the real `barrierflow run`, killed at a random moment of its run: the folder then holds
+    # nothing, or a complete pair that matches; whatever temporaries remain, the next run removes
+    import random
+    import signal
+    import subprocess
+    import sys
+
+    rng = random.Random(4)
+    out = tmp_path / "cell.csv"
+    seen = []
+    for _ in range(CLI_TRIALS):
+        child = subprocess.Popen([sys.executable, "-m", "barrierflow", "run", str(CELL), "-o", str(out),
+                                  "--no-progress"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        time.sleep(rng.uniform(0.3, 1.5))
+        child.send_signal(signal.SIGKILL)
+        child.wait(timeout=30)
+        names = sorted(p.name for p in tmp_path.iterdir() if not p.name.startswith("."))
+        assert names in ([], ["cell.csv", "cell.json"]), names
+        if names:
+            assert traces_match(out)
+        seen.append(names)
+    done = subprocess.run([sys.executable, "-m", "barrierflow", "run", str(CELL), "-o", str(out), "--no-progress"],
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cell.csv", "cell.json"] and traces_match(out)
+    print(f"killed command-line runs left: {seen}")

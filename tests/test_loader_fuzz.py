@@ -34,6 +34,7 @@ from typing import Any
 
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from limits import time_limit
 
 import barrierflow
 from barrierflow import BarrierflowError, Scenario, ScenarioError, UnitsError
@@ -56,7 +57,7 @@ LIMIT_S = 5.0
 _MESSAGE = re.compile(r"fuzz\.toml: [^\n]+: got [^\n]*; [^\n]+")
 
 
-def judge(read: Callable[[], Scenario], time_limit, file: str | None = "fuzz.toml") -> str:
+def judge(read: Callable[[], Scenario], file: str | None = "fuzz.toml") -> str:
     """Run one read and return "valid" or "refused"; fail on anything else."""
     try:
         with time_limit(LIMIT_S):
@@ -112,7 +113,7 @@ def mutate_bytes(rng: random.Random, raw: bytearray) -> None:
             raw[k:k] = char
 
 
-def test_byte_mutations_of_the_examples(tmp_path, time_limit):
+def test_byte_mutations_of_the_examples(tmp_path):
     rng = random.Random(20261204)
     outcomes: Counter[str] = Counter()
     path = tmp_path / "fuzz.toml"
@@ -121,7 +122,7 @@ def test_byte_mutations_of_the_examples(tmp_path, time_limit):
         for _ in range(rng.randint(1, 4)):
             mutate_bytes(rng, raw)
         path.write_bytes(bytes(raw))
-        outcomes[judge(lambda: barrierflow.load(path), time_limit)] += 1
+        outcomes[judge(lambda: barrierflow.load(path))] += 1
     assert sum(outcomes.values()) == N_BYTES
     assert outcomes["refused"] > 0 and outcomes["valid"] > 0, outcomes  # both kinds of answer occur
     print(f"byte mutations: {dict(outcomes)}")
@@ -167,7 +168,7 @@ def mutate_lines(rng: random.Random, lines: list[str]) -> None:
         lines.insert(rng.randint(0, len(lines)), rng.choice(HEADERS))
 
 
-def test_line_mutations_of_the_examples(time_limit):
+def test_line_mutations_of_the_examples():
     rng = random.Random(7_200_513)
     outcomes: Counter[str] = Counter()
     for _ in range(N_LINES):
@@ -175,7 +176,7 @@ def test_line_mutations_of_the_examples(time_limit):
         for _ in range(rng.randint(1, 3)):
             mutate_lines(rng, lines)
         text = "\n".join(lines) + "\n"
-        outcomes[judge(lambda text=text: barrierflow.loads(text, "fuzz.toml"), time_limit)] += 1
+        outcomes[judge(lambda text=text: barrierflow.loads(text, "fuzz.toml"))] += 1
     assert sum(outcomes.values()) == N_LINES
     assert outcomes["refused"] > 0 and outcomes["valid"] > 0, outcomes
     print(f"line mutations: {dict(outcomes)}")
@@ -223,10 +224,9 @@ def _parent(doc: Any, path: tuple) -> Any:
 
 
 @settings(max_examples=N_DOCUMENTS, derandomize=True, deadline=None, database=None,
-          suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
-                                 HealthCheck.function_scoped_fixture])
+          suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 @given(data=st.data())
-def test_documents_with_arbitrary_values(data, time_limit):
+def test_documents_with_arbitrary_values(data):
     doc = copy.deepcopy(data.draw(st.sampled_from(DOCS), label="example"))
     for _ in range(data.draw(st.integers(1, 4), label="changes")):
         places = _places(doc)
@@ -256,7 +256,7 @@ def test_documents_with_arbitrary_values(data, time_limit):
             parent[last] = data.draw(unit_texts, label="unit text")
         else:
             parent[last] = data.draw(toml_values, label="value")
-    judge(lambda: from_document(doc, "fuzz.toml"), time_limit)
+    judge(lambda: from_document(doc, "fuzz.toml"))
 
 
 # ------------------------------------------------------------------------------------- unit text
@@ -265,11 +265,10 @@ _PIECES = ["1", "15", "0", "-", "+", ".", "e", "E", "9", "**", "^", "*", "/", "(
            "__import__", "pi", "degC", "%", "\t", "\u00a0"]
 
 
-@settings(max_examples=N_UNIT_TEXTS, derandomize=True, deadline=None, database=None,
-          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=N_UNIT_TEXTS, derandomize=True, deadline=None, database=None)
 @given(text=st.one_of(st.text(max_size=40), st.lists(st.sampled_from(_PIECES), max_size=14).map("".join)),
        kind=st.sampled_from(sorted(KINDS)), molar=st.sampled_from([None, 250.0]))
-def test_unit_text_is_a_value_or_a_units_error(text, kind, molar, time_limit):
+def test_unit_text_is_a_value_or_a_units_error(text, kind, molar):
     try:
         with time_limit(LIMIT_S):
             value = parse_quantity(text, kind, field="f", molar_mass=molar)

@@ -19,6 +19,7 @@ import tomllib
 from pathlib import Path
 
 import pytest
+from limits import time_limit
 
 from barrierflow.cli import main
 
@@ -36,7 +37,7 @@ def test_the_corpus_is_on_disk_and_large_enough():
 
 
 @pytest.mark.parametrize("name", NAMES)
-def test_check_and_run_refuse_with_the_field_named(name, tmp_path, capsys, monkeypatch, time_limit):
+def test_check_and_run_refuse_with_the_field_named(name, tmp_path, capsys, monkeypatch):
     entry = INDEX[name]
     src = CORPUS / name
     monkeypatch.chdir(tmp_path)  # run writes <name>.csv here by default: nothing may appear
@@ -71,7 +72,7 @@ def test_real_processes_refuse_in_time(name, tmp_path):
         assert list(tmp_path.iterdir()) == []
 
 
-def test_every_file_of_the_corpus_is_refused_by_the_dashboard_upload(time_limit):
+def test_every_file_of_the_corpus_is_refused_by_the_dashboard_upload():
     # the upload path of the dashboard (issue 10: a 461-byte upload froze it; 5,000 levels of
     # nesting gave HTTP 500): a draft and the problems, never an exception
     from dashboard.panels.scenario import open_upload

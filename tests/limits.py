@@ -1,13 +1,15 @@
-"""Shared test helpers: a time limit for code that must never hang."""
+"""A time limit for code that must never hang (shared by the reliability tests).
+
+Imported as ``from limits import time_limit`` (pytest puts tests/ on the import path); not a
+conftest.py, whose name tests/browser/conftest.py already takes.
+"""
 
 from __future__ import annotations
 
 import signal
 import threading
-from collections.abc import Callable, Iterator
-from contextlib import AbstractContextManager, contextmanager
-
-import pytest
+from collections.abc import Iterator
+from contextlib import contextmanager
 
 
 class TimeLimitExceeded(Exception):
@@ -15,7 +17,7 @@ class TimeLimitExceeded(Exception):
 
 
 @contextmanager
-def _time_limit(seconds: float) -> Iterator[None]:
+def time_limit(seconds: float) -> Iterator[None]:
     """Interrupt the block with TimeLimitExceeded after ``seconds`` (POSIX, main thread).
 
     A Python-level loop is interrupted; a single long call into C code is interrupted only when
@@ -35,9 +37,3 @@ def _time_limit(seconds: float) -> Iterator[None]:
     finally:
         signal.setitimer(signal.ITIMER_REAL, 0)
         signal.signal(signal.SIGALRM, previous)
-
-
-@pytest.fixture
-def time_limit() -> Callable[[float], AbstractContextManager[None]]:
-    """``with time_limit(5): ...`` fails the test if the block runs longer than 5 s."""
-    return _time_limit

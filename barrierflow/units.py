@@ -162,6 +162,7 @@ _NAME = re.compile(r"[A-Za-z_\u00b5\u03bc\u00b0][A-Za-z0-9_\u00b5\u03bc]*")
 _SUPERSCRIPT = re.compile("[\u207a\u207b]?[\u2070\u00b9\u00b2\u00b3\u2074-\u2079]+")
 _SUPER_DIGITS = str.maketrans("\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079\u207a\u207b",
                               "0123456789+-")
+_EXPONENT = re.compile(r"\(?[+-]?[0-9]+\)?")
 _LONE_ONE = re.compile(r"1(?![0-9.eE])")  # the 1 of "1/h", a unit rather than a number
 _WORDS_BEFORE = {"square": 2, "sq": 2, "cubic": 3}
 _WORDS_AFTER = {"squared": 2, "cubed": 3}
@@ -358,7 +359,7 @@ class _UnitParser:
 
     def _exponent(self) -> int:
         t = self.text
-        m = re.compile(r"\(?[+-]?[0-9]+\)?").match(t, self.pos)
+        m = _EXPONENT.match(t, self.pos)
         if m is None or m.group().count("(") != m.group().count(")"):
             raise self._fail("a power must be a whole number such as ^2 or ^-1")
         self.pos = m.end()

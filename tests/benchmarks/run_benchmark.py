@@ -330,8 +330,10 @@ def run_variant(v: Variant, paths: list[str], quick: bool, tmp: Path) -> list[Ro
     lsoda_kw = dict(rhs=f_nb, jac=hand.jac_banded, lband=HandModel.LBAND, uband=HandModel.UBAND)
 
     def product(integ):
-        # a first load, as in a new process: parse_quantity's memo of unit strings is emptied
+        # a first load, as in a new process: parse_quantity's memo of unit strings and the
+        # grammar's memo of unit names are emptied
         units._PARSED.clear()
+        units._unit_named.cache_clear()
         t_a = time.perf_counter()
         s = bf.load(path)
         t_b = time.perf_counter()

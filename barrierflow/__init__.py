@@ -17,13 +17,14 @@ from __future__ import annotations
 
 from typing import Any
 
-from .errors import BarrierflowError, Problem, ScenarioError, SolverError, UnitsError
-from .io import load, loads, save
+from .errors import BarrierflowError, DataError, Problem, ScenarioError, SolverError, UnitsError
+from .io import load, load_experiment, loads, loads_experiment, save
 from .model import (
     Barrier,
     Compartment,
     Dose,
     Exchange,
+    Experiment,
     Layer,
     OutputUnits,
     ParamPath,
@@ -46,14 +47,17 @@ _LAZY = {
     "metrics": "barrierflow.analysis.metrics:compute_metrics",
     "simulate_population": "barrierflow.engine.population",
     "simulate_many": "barrierflow.engine.population",
+    "cumulative_from_samples": "barrierflow.analysis.sampling",
 }
 
 __all__ = [
     "Barrier",
     "BarrierflowError",
     "Compartment",
+    "DataError",
     "Dose",
     "Exchange",
+    "Experiment",
     "Layer",
     "OutputUnits",
     "ParamPath",
@@ -67,8 +71,11 @@ __all__ = [
     "Transfer",
     "UnitsError",
     "__version__",
+    "cumulative_from_samples",
     "load",
+    "load_experiment",
     "loads",
+    "loads_experiment",
     "metrics",
     "parameter_paths",
     "save",

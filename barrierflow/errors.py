@@ -4,6 +4,7 @@ The hierarchy is small on purpose::
 
     BarrierflowError
     ├── ScenarioError   a scenario (file, graph or object) cannot be run as given
+    │   └── DataError   an experiment data file cannot be used as given
     ├── UnitsError      a value has no unit, an unknown unit or a unit of the wrong dimension
     └── SolverError     the numerical solution failed
 
@@ -27,6 +28,7 @@ from dataclasses import dataclass, replace
 
 __all__ = [
     "BarrierflowError",
+    "DataError",
     "Problem",
     "ScenarioError",
     "SolverError",
@@ -145,6 +147,16 @@ class ScenarioError(BarrierflowError, ValueError):
     def within(self, prefix: str = "", file: str | None = None, at: str = "") -> ScenarioError:
         """Return the same error with every field path prefixed and the file set (see :meth:`Problem.within`)."""
         return type(self)([p.within(prefix, file, at) for p in self.problems])
+
+
+class DataError(ScenarioError):
+    """An experiment data file (measured values against time) cannot be used as given.
+
+    Carries every :class:`Problem` found, each naming the row and the column
+    (``field = "row 7, column 'permeated:skin#2 [ug/cm^2]'"``), the value and what was expected.
+    A subclass of :class:`ScenarioError`, so that whatever refuses a bad input refuses a bad data
+    file the same way (the command line exits with status 2).
+    """
 
 
 class UnitsError(BarrierflowError, ValueError):

@@ -4,21 +4,23 @@ Every dimensional value a user writes is a string with its unit (``"15 um"``, ``
 It is parsed here, once, by a single :mod:`pint` registry and converted to the internal
 system; everything past the model sees plain ``float`` values in these units:
 
-============== ============ ==========================================
-kind           internal     examples accepted
-============== ============ ==========================================
-length         cm           ``"15 um"``, ``"15 µm"``, ``"0.1 mm"``
-time           h            ``"30 min"``, ``"7 d"``, ``"3600 s"``
-area           cm^2         ``"10 cm^2"``, ``"1 mm^2"``
-volume         mL           ``"5 L"``, ``"1 cm^3"``
-diffusivity    cm^2/h       ``"1e-9 cm^2/s"``, ``"1e-6 cm**2/s"``
-concentration  mg/mL        ``"20 mg/mL"``, ``"1 ug/L"``, ``"1 mmol/L"`` *
-amount         mg           ``"2 mg"``, ``"500 ug"``, ``"1 umol"`` *
-amount_rate    mg/h         ``"0.1 mg/h"``, ``"1 umol/min"`` *
-flow           mL/h         ``"10 L/h"``, ``"1 mL/min"``
-rate           1/h          ``"0.8 1/h"``, ``"0.01 1/min"``
-molar_mass     mg/mmol      ``"250 g/mol"`` (numerically g/mol)
-============== ============ ==========================================
+================ ============ ==========================================
+kind             internal     examples accepted
+================ ============ ==========================================
+length           cm           ``"15 um"``, ``"15 µm"``, ``"0.1 mm"``
+time             h            ``"30 min"``, ``"7 d"``, ``"3600 s"``
+area             cm^2         ``"10 cm^2"``, ``"1 mm^2"``
+volume           mL           ``"5 L"``, ``"1 cm^3"``
+diffusivity      cm^2/h       ``"1e-9 cm^2/s"``, ``"1e-6 cm**2/s"``
+concentration    mg/mL        ``"20 mg/mL"``, ``"1 ug/L"``, ``"1 mmol/L"`` *
+amount           mg           ``"2 mg"``, ``"500 ug"``, ``"1 umol"`` *
+amount_rate      mg/h         ``"0.1 mg/h"``, ``"1 umol/min"`` *
+flow             mL/h         ``"10 L/h"``, ``"1 mL/min"``
+rate             1/h          ``"0.8 1/h"``, ``"0.01 1/min"``
+molar_mass       mg/mmol      ``"250 g/mol"`` (numerically g/mol)
+amount_per_area  mg/cm^2      ``"12 ug/cm^2"`` * (measured cumulative amounts permeated)
+flux             mg/(cm^2*h)  ``"0.5 ug/(cm^2*h)"`` * (measured fluxes)
+================ ============ ==========================================
 
 \\* molar quantities need the substance's molar mass.
 
@@ -46,6 +48,7 @@ __all__ = [
     "format_quantity",
     "parse_quantity",
     "get_registry",
+    "internal_per_unit",
     "unit_factor",
 ]
 
@@ -91,6 +94,9 @@ KINDS: dict[str, _Kind] = {
     "flow": _Kind("mL/h", "10 L/h", "a flow or clearance (volume per time)"),
     "rate": _Kind("1/h", "0.8 1/h", "a rate constant (per time)"),
     "molar_mass": _Kind("mg/mmol", "250 g/mol", "a molar mass (mass per amount of substance)"),
+    # kinds of measured quantities (experiment data files, the traces CSV); no scenario field uses them
+    "amount_per_area": _Kind("mg/cm^2", "12 ug/cm^2", "an amount per area", "mmol/cm^2"),
+    "flux": _Kind("mg/(cm^2*h)", "0.5 ug/(cm^2*h)", "a flux (amount per area and time)", "mmol/(cm^2*h)"),
 }
 
 INTERNAL_UNITS: dict[str, str] = {k: v.internal for k, v in KINDS.items()}
@@ -440,6 +446,18 @@ _PARSED_MAX = 20_000
 
 def _parse(text: object, kind: str, field: str, molar_mass: float | None) -> float:
     """:func:`parse_quantity` without the memo."""
+    value, q = _convert(text, kind, field, molar_mass)
+    if kind == "length" and abs(value) < 1e-300 and value != 0:
+        value = 0.0
+    if _digits(float(q.magnitude)) > 15:
+        # the number was written with full double precision (as format_quantity writes a value
+        # that has no shorter exact form): keep every digit, do not round
+        return value
+    return _tidy(value)
+
+
+def _convert(text: object, kind: str, field: str, molar_mass: float | None) -> tuple[float, pint.Quantity]:
+    """The value of ``text`` in the internal unit of ``kind``, not rounded, and the quantity read."""
     q = _quantity(text, kind, field)
     dim = q.dimensionality
     plain, molar = _dims()
@@ -456,13 +474,7 @@ def _parse(text: object, kind: str, field: str, molar_mass: float | None) -> flo
     if not math.isfinite(value):
         raise UnitsError(text, f"is too large: it does not fit a floating-point number in {KINDS[kind].internal}",
                          field)
-    if kind == "length" and abs(value) < 1e-300 and value != 0:
-        value = 0.0
-    if _digits(float(q.magnitude)) > 15:
-        # the number was written with full double precision (as format_quantity writes a value
-        # that has no shorter exact form): keep every digit, do not round
-        return value
-    return _tidy(value)
+    return value, q
 
 
 def _digits(x: float) -> int:
@@ -512,6 +524,28 @@ def unit_factor(kind: str, unit: str, molar_mass: float | None = None) -> float:
     _quantity(f"1 {unit}", kind, field)
     per_internal = parse_quantity(f"1 {unit}", kind, field=field, molar_mass=molar_mass)
     return 1.0 / per_internal
+
+
+@lru_cache(maxsize=1024)
+def internal_per_unit(kind: str, unit: str, molar_mass: float | None = None) -> float:
+    """The value of one ``unit`` in the internal unit of ``kind``, exactly as pint converts it (not rounded).
+
+    Multiply numbers written in ``unit`` by it to read a column of numbers in one unit (an
+    experiment data file) without parsing each number with its unit; round the products as the
+    reader rounds (15 significant digits) to get the values a scenario file would give.
+
+    Raises
+    ------
+    UnitsError
+        As :func:`unit_factor`.
+
+    Examples
+    --------
+    >>> internal_per_unit("time", "min") * 30
+    0.5
+    """
+    unit_factor(kind, unit, molar_mass)  # the checks and messages of a unit alone
+    return _convert(f"1 {unit}", kind, f"unit {unit!r}", molar_mass)[0]
 
 
 def convert(value: float, kind: str, unit: str, molar_mass: float | None = None) -> float:

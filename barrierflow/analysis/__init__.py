@@ -3,6 +3,7 @@
 from .metrics import BarrierMetrics, CompartmentMetrics, Metrics, compute_metrics
 from .population import PopulationExposure, percentile_bands, population_exposure
 from .result import CAUTION, BarrierProfile, MassBalance, Result
+from .sampling import cumulative_from_samples
 from .simulate import simulate
 from .steady import BarrierSteady, SteadyReport, barrier_steady, burst_time, lag_time, steady_state
 from .warnings import find_warnings, scenario_warnings
@@ -21,6 +22,7 @@ __all__ = [
     "barrier_steady",
     "burst_time",
     "compute_metrics",
+    "cumulative_from_samples",
     "find_warnings",
     "lag_time",
     "percentile_bands",

@@ -1,10 +1,12 @@
 """Files: reading scenario files and writing files atomically.
 
-This package is the only place that opens a scenario file. It returns validated models
-(:class:`barrierflow.Scenario`); the engine, the analysis and the dashboard never parse text.
+This package is the only place that opens a scenario file or an experiment data file. It returns
+validated models (:class:`barrierflow.Scenario`, :class:`barrierflow.model.experiment.Experiment`);
+the engine, the analysis, the studies and the dashboard never parse text.
 """
 
 from .atomic import atomic_write, atomic_write_together, remove_stale_temporaries
+from .experiment import load_experiment, loads_experiment
 from .scenario_files import load, loads, read_toml, save
 from .traces import sidecar_path, traces_digest, traces_match, write_traces
 
@@ -12,7 +14,9 @@ __all__ = [
     "atomic_write",
     "atomic_write_together",
     "load",
+    "load_experiment",
     "loads",
+    "loads_experiment",
     "read_toml",
     "remove_stale_temporaries",
     "save",

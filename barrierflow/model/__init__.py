@@ -12,6 +12,7 @@ from .components import (
     Transfer,
 )
 from .document import from_document, to_document, to_toml
+from .experiment import OBSERVABLES, Experiment, Series
 from .paths import Param, ParamPath, Tied, parameter_paths, parse_param, with_values
 from .scenario import MAX_EVENTS, MAX_TOTAL_CELLS, Scenario
 
@@ -19,15 +20,18 @@ __all__ = [
     "DOSE_KINDS",
     "MAX_EVENTS",
     "MAX_TOTAL_CELLS",
+    "OBSERVABLES",
     "Barrier",
     "Compartment",
     "Dose",
     "Exchange",
+    "Experiment",
     "Layer",
     "OutputUnits",
     "Param",
     "ParamPath",
     "Scenario",
+    "Series",
     "Substance",
     "Tied",
     "Transfer",

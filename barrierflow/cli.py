@@ -59,6 +59,17 @@ def _port(text: str) -> int:
     return value
 
 
+def _positive_number(text: str) -> float:
+    """A finite number > 0 (an argparse type)."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"got {text!r}; expected a number > 0") from None
+    if not (value > 0 and value < float("inf")):
+        raise argparse.ArgumentTypeError(f"got {text}; expected a number > 0")
+    return value
+
+
 def _positive_int(text: str) -> int:
     """A whole number >= 1 (an argparse type)."""
     try:
@@ -250,14 +261,21 @@ def _add_serve(p: argparse.ArgumentParser) -> None:
                    help="address to listen on (default: 127.0.0.1, this machine only)")
     p.add_argument("--port", type=_port, default=8050,
                    help="TCP port to listen on, 1 to 65535 (default: 8050)")
+    p.add_argument("--max-upload", metavar="MB", type=_positive_number, default=5.0,
+                   help="largest file the dashboard accepts for upload, in MB (default: 5)")
+    p.add_argument("--allow-host", metavar="NAME", action="append", default=[],
+                   help="another host name the browser may use to reach the dashboard (repeatable; "
+                        "default: only the names of the bound address, a guard against DNS rebinding; "
+                        "with --host 0.0.0.0 every name is accepted unless some are given here)")
 
 
 def _cmd_serve(args: argparse.Namespace) -> int:
     """Start the dashboard, with the scenario opened if one is named.
 
-    The dashboard package sits above the CLI in the import layers, so it is imported here with
-    :func:`importlib.import_module`, never by a module-level import. A scenario file that cannot
-    be loaded is refused (status 2) before the server starts.
+    The app is served by waitress (threads); ``--debug`` serves it with Flask's development
+    server instead. The dashboard package sits above the CLI in the import layers, so it is
+    imported here with :func:`importlib.import_module`, never by a module-level import. A
+    scenario file that cannot be loaded is refused (status 2) before the server starts.
     """
     import importlib
 
@@ -270,19 +288,25 @@ def _cmd_serve(args: argparse.Namespace) -> int:
             return EXIT_REFUSED
     try:
         dashboard = importlib.import_module("dashboard")
+        server = importlib.import_module("dashboard.server")
     except ImportError as err:
         print(f"barrierflow serve: the dashboard needs its extras ({err}); install them with "
               "pip install 'barrierflow[dashboard]'", file=sys.stderr)
         return EXIT_INTERNAL
-    app = dashboard.create_app(scenario)
+    app = dashboard.create_app(scenario, max_upload=int(args.max_upload * 1024 * 1024))
     opened = f" with {args.scenario}" if args.scenario else ""
-    print(f"barrierflow dashboard{opened}: open http://{args.host}:{args.port}/ in a browser (Ctrl+C stops it)")
+    shown = f"[{args.host}]" if ":" in args.host else args.host
+    print(f"barrierflow dashboard{opened}: open http://{shown}:{args.port}/ in a browser (Ctrl+C stops it)")
+    if server.allowed_hosts(args.host, args.port, args.allow_host) is None:
+        print(f"note: bound to {args.host}, so every Host name is accepted (no DNS-rebinding guard); "
+              "name the ones to accept with --allow-host", file=sys.stderr)
     print(CAUTION)
     import signal
 
     # a plain 'kill' (SIGTERM) ends the server as Ctrl+C does, so the run archive is cleaned up
     signal.signal(signal.SIGTERM, lambda signum, frame: sys.exit(EXIT_OK))
-    app.run(host=args.host, port=args.port, debug=False)
+    server.serve(app, args.host, args.port, debug=bool(getattr(args, "debug", False)),
+                 allow_hosts=args.allow_host)
     return EXIT_OK
 
 

@@ -9,13 +9,13 @@ runs in a disk cache keyed by a hash of the scenario (see :mod:`dashboard.runs`)
 from __future__ import annotations
 
 import os
+import secrets
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import dash
-import diskcache
-from dash import DiskcacheManager, dcc, html
+from dash import dcc, html
 
 import barrierflow
 from barrierflow.analysis import CAUTION as _CAUTION
@@ -23,10 +23,12 @@ from barrierflow.model import Scenario
 
 from . import draft as D
 from . import ids
+from .jobs import JobManager, Workers
 from .panels import doses, network, properties, results, run
 from .panels import scenario as scenario_bar
 from .panels.common import card
 from .runs import RunArchive
+from .server import DEFAULT_MAX_UPLOAD, install_guards
 
 __all__ = ["CAUTION", "Services", "create_app", "example_scenarios"]
 
@@ -38,22 +40,29 @@ ASSETS = Path(__file__).parent / "assets"
 
 @dataclass(frozen=True)
 class Services:
-    """What the panels share on the server: the run archive and the background-job manager.
+    """What the panels share on the server: the run archive, the background jobs and the workers.
 
     Attributes
     ----------
     archive : RunArchive
-    manager : dash.DiskcacheManager
+    manager : JobManager
+        Runs Dash's background callbacks (in threads of the server).
+    workers : Workers
+        The worker processes that simulate.
     examples : dict of str to str
         Example file path -> label.
     poll_ms : int, ms
         How often the page asks whether a background run has finished.
+    max_upload : int, bytes
+        Largest file accepted for upload.
     """
 
     archive: RunArchive
     manager: Any
+    workers: Workers
     examples: dict[str, str]
     poll_ms: int = 100
+    max_upload: int = DEFAULT_MAX_UPLOAD
 
 
 def example_scenarios(folder: str | os.PathLike[str] | None = None) -> dict[str, str]:
@@ -86,8 +95,13 @@ def _initial_draft(opened: Scenario | str | os.PathLike[str] | None) -> dict[str
     return D.draft_from_scenario(barrierflow.load(path), path.name)
 
 
-def page(initial: dict[str, Any], examples: dict[str, str]) -> html.Div:
-    """The whole page for an initial draft."""
+def page(initial: dict[str, Any], examples: dict[str, str], *, token: str = "",
+         max_upload: int = DEFAULT_MAX_UPLOAD) -> html.Div:
+    """The whole page for an initial draft.
+
+    ``token`` names this page load: it is part of every background run's job key, so two pages
+    that run the same scenario at the same moment never collect each other's result.
+    """
     header = html.Header([
         html.Div([
             html.H1("barrierflow"),
@@ -118,13 +132,16 @@ def page(initial: dict[str, Any], examples: dict[str, str]) -> html.Div:
         dcc.Store(id=ids.VALID),
         dcc.Store(id=ids.RUNS, data=[]),
         dcc.Store(id=ids.LOADED, data={"gen": initial["gen"]}),
+        dcc.Store(id=ids.PAGE, data={"token": token or secrets.token_hex(16), "max_upload": int(max_upload)}),
+        dcc.Store(id=ids.UPLOADED),
     ], className="page")
 
 
 def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
                examples_dir: str | os.PathLike[str] | None = None,
                cache_dir: str | os.PathLike[str] | None = None,
-               poll_ms: int = 100) -> dash.Dash:
+               poll_ms: int = 100, max_upload: int = DEFAULT_MAX_UPLOAD, workers_count: int = 2,
+               allowed_hosts: frozenset[str] | None = None) -> dash.Dash:
     """Build the dashboard.
 
     Parameters
@@ -134,14 +151,21 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
     examples_dir : path, optional
         Folder of example scenarios (default: the project's ``scenarios/``).
     cache_dir : path, optional
-        Where runs and background jobs are kept on disk (default: a new temporary folder).
+        Where runs are kept on disk (default: a new temporary folder).
     poll_ms : int, ms
         How often the page polls a background run.
+    max_upload : int, bytes
+        Largest file accepted for upload (default 5 MiB, :data:`dashboard.server.DEFAULT_MAX_UPLOAD`).
+    workers_count : int
+        Worker processes that simulate (runs beyond this many at once wait for a free one).
+    allowed_hosts : frozenset of str, optional
+        ``Host`` header values accepted (see :func:`dashboard.server.allowed_hosts`); default:
+        no check until :func:`dashboard.server.serve` sets them for the address it binds.
 
     Returns
     -------
     dash.Dash
-        Serve it with ``app.run(host="127.0.0.1", port=8050)``.
+        Serve it with :func:`dashboard.server.serve` (waitress), or ``app.run(...)`` while developing.
 
     Raises
     ------
@@ -150,7 +174,8 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
     """
     initial = _initial_draft(scenario)
     archive = RunArchive(cache_dir)
-    manager = DiskcacheManager(diskcache.Cache(str(archive.directory / "jobs")))
+    manager = JobManager()
+    workers = Workers(processes=workers_count)
     examples = example_scenarios(examples_dir)
     app = dash.Dash(
         __name__,
@@ -161,8 +186,15 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
         background_callback_manager=manager,
         suppress_callback_exceptions=False,
     )
-    app.layout = page(initial, examples)
-    services = Services(archive=archive, manager=manager, examples=examples, poll_ms=poll_ms)
+    install_guards(app.server, max_upload=max_upload, hosts=allowed_hosts)
+
+    def layout() -> html.Div:
+        # a function, so that every page load gets its own token
+        return page(initial, examples, token=secrets.token_hex(16), max_upload=max_upload)
+
+    app.layout = layout
+    services = Services(archive=archive, manager=manager, workers=workers, examples=examples, poll_ms=poll_ms,
+                        max_upload=max_upload)
     for panel in (scenario_bar, network, properties, doses, run, results):
         panel.register(app, services)
     return app

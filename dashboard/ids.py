@@ -13,6 +13,8 @@ CHECK = "store-check"              # problems of the draft, located at their fie
 RUNS = "store-runs"                # the runs of the session (names, scenario TOML, archive keys)
 LOADED = "store-loaded"            # changes when a new scenario is opened (panels refresh their inputs)
 PENDING = "store-pending"          # the 'from' compartment of a link being drawn by clicking
+PAGE = "store-page"                # this page load: a random token (run job keys) and the upload limit
+UPLOADED = "store-uploaded"        # a file the page accepted for upload (contents, name), see the scenario bar
 
 # ---------------------------------------------------------------- header and scenario bar
 CAUTION = "caution"

@@ -12,6 +12,7 @@ from barrierflow.errors import BarrierflowError, SolverError
 
 from .. import draft as D
 from .. import ids
+from ..jobs import WorkerFailed
 from ..runs import RunArchive, execute, new_record, run_key
 from .common import message_list
 
@@ -75,8 +76,11 @@ def layout(initial: dict[str, Any]) -> html.Div:
 
 def make_run(valid: dict[str, Any] | None, found: dict[str, Any] | None, name: str | None,
              runs: list[dict[str, Any]] | None, archive: RunArchive,
-             progress: Any = None) -> tuple[list[dict[str, Any]], Any]:
+             progress: Any = None, compute: Any = None) -> tuple[list[dict[str, Any]], Any]:
     """Simulate the last valid scenario, keep it in the archive and add it to the runs.
+
+    ``compute(toml, name, file, progress)`` makes the run (default: :func:`dashboard.runs.execute`
+    in this process; the app passes one that runs it in a worker process).
 
     Returns
     -------
@@ -99,10 +103,10 @@ def make_run(valid: dict[str, Any] | None, found: dict[str, Any] | None, name: s
     error = ""
     if data is None:
         try:
-            data = execute(toml, name, valid.get("file"), progress=progress)
+            data = (compute or execute)(toml, name, valid.get("file"), progress)
         except SolverError as err:
             error = f"The numerical solution failed: {err}"
-        except BarrierflowError as err:
+        except (BarrierflowError, WorkerFailed) as err:
             error = str(err)
         else:
             archive.put(key, data)
@@ -207,6 +211,11 @@ def register(app: Any, services: Any) -> None:
         State(ids.CHECK, "data"),
         State(ids.RUN_NAME, "value"),
         State(ids.RUNS, "data"),
+        # The page's token is part of the background job's key (a hash of the callback's
+        # arguments): without it, two pages that run the same scenario under the same name at
+        # the same moment share one job key, and the first to collect the result takes the
+        # other's too.
+        State(ids.PAGE, "data"),
         background=True,
         manager=services.manager,
         progress=[Output(ids.PROGRESS, "value"), Output(ids.PROGRESS_TEXT, "children")],
@@ -220,7 +229,7 @@ def register(app: Any, services: Any) -> None:
         interval=services.poll_ms,
         prevent_initial_call=True,
     )
-    def run(set_progress, _n, valid, found, name, runs):
+    def run(set_progress, _n, valid, found, name, runs, _page):
         last = [0.0]
 
         def progress(fraction: float) -> None:
@@ -229,7 +238,10 @@ def register(app: Any, services: Any) -> None:
                 last[0] = now
                 set_progress([f"{100 * fraction:.0f}", f"{100 * fraction:.0f} % of the simulated time"])
 
-        new_runs, status = make_run(valid, found, name, runs, archive, progress)
+        def compute(toml, name, file, progress):
+            return services.workers.call(execute, toml, name, file, progress=progress)
+
+        new_runs, status = make_run(valid, found, name, runs, archive, progress, compute)
         return new_runs, status, ""
 
     @app.callback(

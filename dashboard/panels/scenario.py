@@ -14,6 +14,7 @@ from barrierflow.errors import ScenarioError
 
 from .. import draft as D
 from .. import ids
+from ..server import DEFAULT_MAX_UPLOAD, format_size
 from .common import message_list
 from .network import element_options
 
@@ -103,13 +104,49 @@ def open_example(path: str) -> dict[str, Any]:
     return D.draft_from_scenario(scenario, Path(path).name)
 
 
-def open_upload(contents: str, filename: str | None) -> tuple[dict[str, Any] | None, list[str]]:
-    """A draft of an uploaded file, and its problems (the draft keeps whatever the file holds)."""
+def too_large(name: str, size: int, limit: int) -> str:
+    """The message refusing an upload of ``size`` bytes above ``limit``."""
+    return (f"{name}: file: got {format_size(size)}; the dashboard accepts files up to {format_size(limit)} "
+            "(start it with --max-upload MB to accept larger ones)")
+
+
+def decode_upload(contents: str, filename: str | None, limit: int = DEFAULT_MAX_UPLOAD) -> tuple[str, bytes]:
+    """The name and bytes of an uploaded file (a ``data:...;base64,`` URL from ``dcc.Upload``).
+
+    Raises
+    ------
+    ValueError
+        With the message to show: contents that are not base64, or a file above ``limit`` bytes.
+    """
     name = Path(filename or "uploaded.toml").name
     try:
         _kind, data = contents.split(",", 1)
-        text = base64.b64decode(data).decode("utf-8")
-    except (ValueError, UnicodeDecodeError):
+    except ValueError:
+        raise ValueError(f"{name}: file: got unreadable contents; expected a file read by the browser") from None
+    if len(data) * 3 // 4 > limit + 3:
+        raise ValueError(too_large(name, len(data) * 3 // 4, limit))
+    try:
+        raw = base64.b64decode(data, validate=True)
+    except ValueError:
+        raise ValueError(f"{name}: file: got unreadable contents; expected a file read by the browser") from None
+    if len(raw) > limit:
+        raise ValueError(too_large(name, len(raw), limit))
+    return name, raw
+
+
+def open_upload(contents: str, filename: str | None,
+                limit: int = DEFAULT_MAX_UPLOAD) -> tuple[dict[str, Any] | None, list[str]]:
+    """A draft of an uploaded file, and its problems (the draft keeps whatever the file holds).
+
+    A file above ``limit`` bytes is refused (None and the message), whatever its contents.
+    """
+    try:
+        name, raw = decode_upload(contents, filename, limit)
+    except ValueError as err:
+        return None, [str(err)]
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
         return None, [f"{name}: file: got unreadable contents; expected a UTF-8 TOML scenario file"]
     try:
         scenario = barrierflow.loads(text, name)
@@ -121,6 +158,38 @@ def open_upload(contents: str, filename: str | None) -> tuple[dict[str, Any] | N
 
 def register(app: Any, services: Any) -> None:
     """Attach the scenario bar's callbacks."""
+    limit = services.max_upload
+
+    # The page weighs a file before sending it: one above the limit never leaves the browser.
+    # The upload's contents are cleared, so that choosing the same file again is seen.
+    app.clientside_callback(
+        """
+        function(contents, filename, page) {
+            const no = window.dash_clientside.no_update;
+            if (!contents) { return [no, no, no]; }
+            const limit = page.max_upload;
+            const comma = contents.indexOf(',');
+            const size = Math.floor((contents.length - comma - 1) * 3 / 4);
+            const name = (filename || 'uploaded.toml').split('/').pop().split('\\\\').pop();
+            if (size > limit + 3) {
+                const g = (x) => parseFloat(x.toPrecision(3)).toString();
+                const mb = (n) => n >= 1048576 ? g(n / 1048576) + ' MB' : n >= 1024 ? g(n / 1024) + ' kB'
+                                 : n + ' bytes';
+                const text = name + ': file: got ' + mb(size) + '; the dashboard accepts files up to ' + mb(limit) +
+                    ' (start it with --max-upload MB to accept larger ones)';
+                return [no, text, null];
+            }
+            return [{contents: contents, filename: name, at: Date.now()}, no, null];
+        }
+        """,
+        Output(ids.UPLOADED, "data"),
+        Output(ids.OPEN_MESSAGE, "children", allow_duplicate=True),
+        Output(ids.UPLOAD, "contents"),
+        Input(ids.UPLOAD, "contents"),
+        State(ids.UPLOAD, "filename"),
+        State(ids.PAGE, "data"),
+        prevent_initial_call=True,
+    )
 
     @app.callback(
         Output(ids.DRAFT, "data", allow_duplicate=True),
@@ -129,16 +198,15 @@ def register(app: Any, services: Any) -> None:
         Output(ids.SELECT, "value", allow_duplicate=True),
         Output(ids.LOADED, "data"),
         Input(ids.OPEN_EXAMPLE, "n_clicks"),
-        Input(ids.UPLOAD, "contents"),
+        Input(ids.UPLOADED, "data"),
         Input(ids.NEW, "n_clicks"),
         Input(ids.OPEN_RUN, "n_clicks"),
         State(ids.EXAMPLE, "value"),
-        State(ids.UPLOAD, "filename"),
         State(ids.REFERENCE, "value"),
         State(ids.RUNS, "data"),
         prevent_initial_call=True,
     )
-    def open_scenario(_ex, contents, _new, _run, example, filename, reference, runs):
+    def open_scenario(_ex, uploaded, _new, _run, example, reference, runs):
         trigger = ctx.triggered_id
         problems: list[str] = []
         if trigger == ids.OPEN_EXAMPLE:
@@ -149,10 +217,10 @@ def register(app: Any, services: Any) -> None:
             except ScenarioError as err:
                 return no_update, message_list([str(p) for p in err.problems]), no_update, no_update, no_update
             note = f"Opened the example {Path(example).name}."
-        elif trigger == ids.UPLOAD:
-            if not contents:
+        elif trigger == ids.UPLOADED:
+            if not uploaded or not uploaded.get("contents"):
                 raise PreventUpdate
-            d, problems = open_upload(contents, filename)
+            d, problems = open_upload(uploaded["contents"], uploaded.get("filename"), limit)
             if d is None:
                 return no_update, message_list(problems), no_update, no_update, no_update
             note = (f"Opened {d['file']}; it has problems, shown at their fields below."

@@ -1,6 +1,7 @@
 """Browser-test harness: the dashboard served in-process, driven by headless Debian chromium.
 
-The app runs in a thread of the test process (werkzeug's server, on a free loopback port);
+The app runs in a thread of the test process (waitress, as ``barrierflow serve`` serves it, on a
+free loopback port);
 Playwright drives ``/usr/bin/chromium`` (installed by ``make browser``, never by
 ``playwright install``). Each test gets a fresh browser context, so its page starts with empty
 stores. A test fails if the page raises a JavaScript error or a callback fails.
@@ -30,20 +31,19 @@ TIMEOUT_MS = 20_000
 @pytest.fixture(scope="session")
 def live_url(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
     """URL of the dashboard, started empty, served from a thread for the whole session."""
-    from werkzeug.serving import make_server
-
     from dashboard import create_app
+    from dashboard.server import make_server
 
-    logging.getLogger("werkzeug").setLevel(logging.ERROR)
+    logging.getLogger("waitress.queue").setLevel(logging.ERROR)
     app = create_app(None, examples_dir=ROOT / "scenarios", cache_dir=tmp_path_factory.mktemp("dash-cache"),
                      poll_ms=100)
-    server = make_server("127.0.0.1", 0, app.server, threaded=True)
-    thread = threading.Thread(target=server.serve_forever, name="dashboard-server", daemon=True)
+    server = make_server(app, "127.0.0.1", 0)
+    thread = threading.Thread(target=server.run, name="dashboard-server", daemon=True)
     thread.start()
     try:
-        yield f"http://127.0.0.1:{server.server_port}/"
+        yield f"http://127.0.0.1:{server.effective_port}/"
     finally:
-        server.shutdown()
+        server.close()
         thread.join(timeout=10)
 
 

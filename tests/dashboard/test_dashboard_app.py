@@ -45,7 +45,7 @@ def test_two_apps_in_one_process_have_their_own_callbacks(tmp_path, app):
 
 
 def test_component_ids_are_unique_and_named_in_the_ids_module(app):
-    found = _ids(app.layout, [])
+    found = _ids(app.layout() if callable(app.layout) else app.layout, [])
     assert len(found) == len(set(found)), [i for i in found if found.count(i) > 1]
     known = {v for k, v in vars(ids).items() if k.isupper() and isinstance(v, str)}
     for must in (ids.DRAFT, ids.CANVAS, ids.LAYER_GRID, ids.DOSE_GRID, ids.RUN, ids.CONC_FIGURE, ids.PROFILE_SLIDER):

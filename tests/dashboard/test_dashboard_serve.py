@@ -6,6 +6,7 @@ import socket
 import subprocess
 import sys
 import time
+import urllib.error
 import urllib.request
 from pathlib import Path
 
@@ -28,23 +29,59 @@ def test_serve_refuses_a_bad_scenario_file_with_status_2(tmp_path):
     assert "Traceback" not in done.stderr
 
 
-def test_serve_starts_the_dashboard_with_the_scenario_opened():
+def _start(*extra: str) -> tuple[subprocess.Popen, int, str, dict]:
+    """Start `barrierflow serve` with the demo; wait for the layout; return it and its headers."""
     port = _free_port()
     proc = subprocess.Popen([sys.executable, "-m", "barrierflow", "serve", str(ROOT / "scenarios" / "daily_patch.toml"),
-                             "--host", "127.0.0.1", "--port", str(port)],
+                             "--host", "127.0.0.1", "--port", str(port), *extra],
                             stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
-    try:
-        layout = None
-        deadline = time.monotonic() + 60
-        while time.monotonic() < deadline and proc.poll() is None:
-            try:
-                with urllib.request.urlopen(f"http://127.0.0.1:{port}/_dash-layout", timeout=5) as r:
-                    layout = r.read().decode()
-                break
-            except OSError:
-                time.sleep(0.3)
-        assert layout is not None, proc.stdout.read() if proc.poll() is not None else "no answer"
-        assert "daily_patch.toml" in layout and "Research estimates" in layout
-    finally:
+    layout, headers = None, {}
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and proc.poll() is None:
+        try:
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}/_dash-layout", timeout=5) as r:
+                layout, headers = r.read().decode(), dict(r.headers)
+            break
+        except OSError:
+            time.sleep(0.3)
+    if layout is None:
+        out = proc.stdout.read() if proc.poll() is not None else "no answer"
         proc.terminate()
         proc.wait(timeout=20)
+        raise AssertionError(out)
+    return proc, port, layout, headers
+
+
+def _stop(proc: subprocess.Popen) -> str:
+    proc.terminate()
+    out, _ = proc.communicate(timeout=20)
+    return out
+
+
+def test_serve_starts_the_dashboard_with_the_scenario_opened_on_waitress():
+    proc, port, layout, headers = _start()
+    try:
+        assert "daily_patch.toml" in layout and "Research estimates" in layout
+        assert headers.get("Server") == "barrierflow"  # waitress, with the server name set
+        # the Host header is checked against the bound address (a DNS-rebinding guard)
+        request = urllib.request.Request(f"http://127.0.0.1:{port}/_dash-layout",
+                                         headers={"Host": f"rebound.example:{port}"})
+        try:
+            urllib.request.urlopen(request, timeout=10)
+            status = 200
+        except urllib.error.HTTPError as err:
+            status, text = err.code, err.read().decode()
+        assert status == 403 and f"Host header: got rebound.example:{port}" in text
+    finally:
+        out = _stop(proc)
+    assert "development server" not in out.lower()
+    assert f"Serving on http://127.0.0.1:{port}" in out
+
+
+def test_serve_with_debug_keeps_the_development_server():
+    proc, _port, layout, headers = _start("--debug")
+    try:
+        assert "Research estimates" in layout
+        assert "Werkzeug" in headers.get("Server", "")
+    finally:
+        _stop(proc)

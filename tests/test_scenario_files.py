@@ -278,7 +278,7 @@ PINNED = {
     "unknown scenario key with a hint": (
         ('output_step = "1 h"', 'output_stepp = "1 h"'),
         "patch.toml: scenario output_stepp: got an unknown key; did you mean 'output_step'? known keys here: "
-        "name, description, duration, output_step, output_times"),
+        "name, description, duration, output_step, output_times, check_ranges"),
     "molar unit without molar mass": (
         ('initial_concentration = "10 mg/mL"', 'initial_concentration = "1 mmol/L"'),
         "patch.toml: compartment 'donor' initial_concentration: got 1 mmol/L; a molar unit needs the "

@@ -19,6 +19,7 @@ import numpy as np
 
 from ..caution import CAUTION
 from ..engine import Trajectory
+from ..engine.ledger import ledger
 from ..io import traces_digest, write_traces
 from ..model import Scenario
 from ..units import unit_factor
@@ -368,35 +369,18 @@ class Result:
     # ----------------------------------------------------------------- mass balance
     @cached_property
     def mass_balance(self) -> MassBalance:
-        """The ledger of the run (see :class:`MassBalance`)."""
+        """The ledger of the run (see :class:`MassBalance`; computed by :func:`barrierflow.engine.ledger`,
+        the same ledger the engine checks every run against)."""
         tr = self.trajectory
-        m = tr.model
-        s = tr.states
-        nc = m.n_comp
-        vol = np.where(m.has_volume, m.capacity[:nc], 0.0)
-        present = s[:, :nc] @ vol + s[:, nc:m.n_dyn] @ m.capacity[nc:m.n_dyn]
-        supply = s[:, m.q_supply:m.q_supply + nc]
-        held = m.held
-        dosed = (tr.event_dosed.sum(axis=1) + s[:, m.q_infused:m.q_infused + nc].sum(axis=1)
-                 + supply[:, ~held].sum(axis=1))
-        held_supply = supply[:, held].sum(axis=1)
-        elim = s[:, m.q_elim:m.q_elim + nc].sum(axis=1)
-        degr = s[:, m.q_degr:m.q_degr + m.n_bar].sum(axis=1)
-        removed = tr.event_removed.sum(axis=1)
-        left = tr.initial_amount + dosed + held_supply
-        right = present + elim + degr + removed
-        err = np.abs(left - right)
-        through = max(float(np.max(np.abs(tr.initial_amount + dosed) + np.abs(held_supply), initial=0.0)),
-                      float(np.max(right, initial=0.0)), 1e-300)
-        last = -1
+        led = ledger(tr.model, tr.states, tr.event_dosed, tr.event_removed, tr.initial_amount)
+
+        def last(x: np.ndarray) -> float:
+            return float(x[-1]) if len(x) else 0.0
+
         return MassBalance(
-            initial=float(tr.initial_amount), dosed=float(dosed[last]) if len(dosed) else 0.0,
-            held_supply=float(held_supply[last]) if len(dosed) else 0.0,
-            present=float(present[last]) if len(dosed) else 0.0,
-            eliminated=float(elim[last]) if len(dosed) else 0.0,
-            degraded=float(degr[last]) if len(dosed) else 0.0,
-            removed=float(removed[last]) if len(dosed) else 0.0,
-            absolute_error=float(err.max(initial=0.0)), relative_error=float(err.max(initial=0.0) / through))
+            initial=float(led.initial), dosed=last(led.dosed), held_supply=last(led.held_supply),
+            present=last(led.present), eliminated=last(led.eliminated), degraded=last(led.degraded),
+            removed=last(led.removed), absolute_error=led.absolute_error, relative_error=led.relative_error)
 
     # ----------------------------------------------------------------- analysis hooks
     def metrics(self, threshold: float | None = None):

@@ -18,6 +18,7 @@ def simulate(
     grid: Grid | None = None,
     raise_on_failure: bool = True,
     progress: Callable[[float], None] | None = None,
+    fallback: bool = True,
 ) -> Result:
     """Simulate a scenario and return its :class:`Result`.
 
@@ -35,10 +36,14 @@ def simulate(
         subject).
     progress : callable, optional
         Called with the fraction of the run done, 0 to 1.
+    fallback : bool
+        Compute a run that failed its check (mass balance, finite and non-negative values) or
+        whose integrator failed again on the robust integrator (default True); see
+        :func:`barrierflow.engine.solve`.
 
     Returns
     -------
     Result
     """
-    traj = solve(scenario, integrator, grid, raise_on_failure=raise_on_failure, progress=progress)
+    traj = solve(scenario, integrator, grid, raise_on_failure=raise_on_failure, progress=progress, fallback=fallback)
     return Result(scenario, traj)

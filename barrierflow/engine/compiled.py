@@ -23,6 +23,7 @@ a quasi-steady barrier with degradation in a layer has a != c, the difference de
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -145,60 +146,123 @@ class CompiledModel:
 def _two_port(barrier: Barrier) -> tuple[float, float, float, float]:
     """Quasi-steady amount-rate coefficients (per area) of a barrier, with degradation exact.
 
-    Per layer, the steady potential obeys u'' = (k/D) u; its transfer matrix from the ``from``
-    face (u, J) to the far face is [[cosh sl, -sinh sl/(DKs)], [-DKs sinh sl, cosh sl]],
-    s = sqrt(k/D) (Crank, The Mathematics of Diffusion, 2nd ed., 1975, ch. 14 for one layer).
-    Returns (a, b, c, d) with J_in = a u_from - b u_to and J_out = c u_from - d u_to, cm/h.
+    Each layer at steady state is a reciprocal two-port, written as a pi network: a series
+    conductance g between its faces and a shunt conductance h at each face, to zero potential
+    (what degradation takes). For a layer of thickness l, diffusivity D, partition K and
+    degradation rate k, with s = sqrt(k/D): g = D K s / sinh(s l) and h = D K s tanh(s l / 2)
+    (from the steady transfer matrix of the layer, Crank, The Mathematics of Diffusion, 2nd ed.,
+    1975, ch. 14 for one layer); without degradation g = D K / l, h = 0. Layers in series are
+    joined by eliminating the potential at their interface (star-mesh reduction), in which every
+    term is a sum or product of positive numbers: no cancellation, and no overflow for any s l
+    (1/sinh is taken as 2 e^(-sl) / (1 - e^(-2sl))).
+    Returns (a, b, c, d) with J_in = a u_from - b u_to and J_out = c u_from - d u_to, cm/h;
+    b = c = g, a = g + h_from, d = g + h_to.
     """
-    t = np.eye(2)
-    for layer in barrier.layers:
+    g = math.inf
+    h1 = 0.0
+    h2 = 0.0
+    for i, layer in enumerate(barrier.layers):
         dk = layer.diffusivity * layer.partition
         if layer.degradation_rate > 0:
-            s = np.sqrt(layer.degradation_rate / layer.diffusivity)
-            sl = s * layer.thickness
-            m = np.array([[np.cosh(sl), -np.sinh(sl) / (dk * s)], [-dk * s * np.sinh(sl), np.cosh(sl)]])
+            s = math.sqrt(layer.degradation_rate / layer.diffusivity)
+            x = s * layer.thickness
+            if x < 1e-4:  # series to x^2: the relative truncation is below 1e-17
+                gl = dk / layer.thickness * (1.0 - x * x / 6.0)
+                hl = dk / layer.thickness * (x * x / 2.0)
+            else:
+                e = math.exp(-x)
+                gl = dk * s * 2.0 * e / -math.expm1(-2.0 * x)
+                hl = dk * s * math.tanh(0.5 * x)
         else:
-            m = np.array([[1.0, -layer.thickness / dk], [0.0, 1.0]])
-        t = m @ t
-    a = t[0, 0] / -t[0, 1]
-    b = 1.0 / -t[0, 1]
-    c = t[1, 0] + t[1, 1] * a
-    d = t[1, 1] * b
-    return float(a), float(b), float(c), float(d)
+            gl = dk / layer.thickness
+            hl = 0.0
+        if i == 0:
+            g, h1, h2 = gl, hl, hl
+            continue
+        # the interface node joins (g, h2) of the stack so far to (gl, hl) of this layer
+        tot = g + gl + h2 + hl
+        shunt = h2 + hl
+        g, h1, h2 = g * gl / tot, h1 + g * shunt / tot, hl + gl * shunt / tot
+    return float(g + h1), float(g), float(g), float(g + h2)
 
 
-def _mass_scale(s: Scenario) -> float:
-    """An amount, mg, that bounds what the run can move: present at start plus every dose.
+def _part_of_compartments(s: Scenario) -> list[int]:
+    """The connected part of each compartment (through barriers, exchanges and transfers)."""
+    index = {c.id: i for i, c in enumerate(s.compartments)}
+    parent = list(range(len(s.compartments)))
 
-    Held reservoirs add what their barriers could pass at the steady flux over the run.
+    def find(a: int) -> int:
+        while parent[a] != a:
+            parent[a] = parent[parent[a]]
+            a = parent[a]
+        return a
+
+    for link in (*s.barriers, *s.exchanges, *s.transfers):
+        a, b = find(index[link.from_id]), find(index[link.to_id])
+        if a != b:
+            parent[max(a, b)] = min(a, b)
+    return [find(i) for i in range(len(s.compartments))]
+
+
+def _mass_scale(s: Scenario) -> list[float]:
+    """An amount per compartment, mg, that bounds what its connected part of the network can move.
+
+    Present at start plus every dose; each clamped level (a held compartment over the run, a hold
+    dose over its duration) adds what it could give: its potential times the steady uptake of
+    every link it touches over that time, the storage of the barriers it touches, and what
+    transfers, clearance and saturable elimination could take from it meanwhile. A part that
+    moves nothing gets 1 mg.
     """
-    total = 0.0
+    comps = {c.id: c for c in s.compartments}
+    part = _part_of_compartments(s)
+    pos = {c.id: i for i, c in enumerate(s.compartments)}
+    total = [0.0] * len(s.compartments)
+
+    def add(cid: str, amount: float) -> None:
+        total[part[pos[cid]]] += amount
+
     for c in s.compartments:
         if not c.held and c.volume:
-            total += c.initial_concentration * c.volume
-    vol = {c.id: c.volume or 0.0 for c in s.compartments}
+            add(c.id, c.initial_concentration * c.volume)
+    clamps: list[tuple[str, float, float]] = []  # (compartment, concentration, time held)
+    for c in s.compartments:
+        if c.held:
+            clamps.append((c.id, c.held_concentration, s.duration))
     for d in s.doses:
         n = len(d.start_times(s.duration))
+        vol = comps[d.target].volume or 0.0
         if d.kind == "bolus":
-            total += n * d.amount
+            add(d.target, n * d.amount)
         elif d.kind == "infusion":
-            total += n * d.rate * d.duration
-        elif d.kind in ("replace", "hold"):
-            total += n * d.concentration * vol[d.target]
-    comps = {c.id: c for c in s.compartments}
+            add(d.target, n * d.rate * d.duration)
+        elif d.kind == "replace":
+            add(d.target, n * d.concentration * vol)
+        elif d.kind == "hold":
+            add(d.target, n * d.concentration * vol)
+            clamps.extend([(d.target, d.concentration, min(d.duration, s.duration))] * n)
+    uptake: dict[str, float] = {c.id: 0.0 for c in s.compartments}   # mL/h per unit potential
+    storage: dict[str, float] = {c.id: 0.0 for c in s.compartments}  # mL per unit potential
     for b in s.barriers:
-        src = comps[b.from_id]
-        if src.held:
-            total += src.held_concentration / src.partition / b.resistance * b.area * s.duration
-        dst = comps[b.to_id]
-        if dst.held:
-            total += dst.held_concentration / dst.partition / b.resistance * b.area * s.duration
+        a, _, _, d = _two_port(b)
+        uptake[b.from_id] += a * b.area
+        uptake[b.to_id] += d * b.area
+        if b.model != "steady":
+            cap = b.area * math.fsum(x.partition * x.thickness for x in b.layers)
+            storage[b.from_id] += cap
+            storage[b.to_id] += cap
     for e in s.exchanges:
-        for cid in (e.from_id, e.to_id):
-            c = comps[cid]
-            if c.held:
-                total += c.held_concentration / c.partition * e.flow * s.duration
-    return total if total > 0 else 1.0
+        uptake[e.from_id] += e.flow
+        uptake[e.to_id] += e.flow
+    for cid, conc, span in clamps:
+        c = comps[cid]
+        u = conc / c.partition
+        amount = u * (uptake[cid] * span + storage[cid])
+        amount += conc * (c.clearance * span + sum(t.rate for t in s.transfers if t.from_id == cid)
+                          * (c.volume or 0.0) * span)
+        if c.vmax:
+            amount += c.vmax * span
+        add(cid, amount)
+    return [total[part[i]] if total[part[i]] > 0 else 1.0 for i in range(len(s.compartments))]
 
 
 def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledModel:
@@ -296,18 +360,27 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
 
     y0 = np.zeros(n_state)
     y0[:n_comp] = [c.starting_concentration for c in comps]
-    m_ref = _mass_scale(scenario)
+    m_ref = np.array(_mass_scale(scenario), dtype=np.float64)  # per compartment: its part's bound
     cap = np.concatenate(cap_parts)
     inv_k = np.concatenate(invk_parts)
     scale = np.empty(n_state)
     scale[:n_comp] = m_ref / cap[:n_comp]
-    for (bi, start, stop, _, _, part) in grids_tmp:
-        b = bars[bi]
-        kc = max(comps[comp_index[b.from_id]].partition, comps[comp_index[b.to_id]].partition)
-        side = max(scale[comp_index[b.from_id]], scale[comp_index[b.to_id]])
-        scale[start:stop] = side * part / kc
     scale[:n_comp] = np.maximum(scale[:n_comp], [c.starting_concentration for c in comps])
-    scale[n_dyn:] = m_ref
+    for (bi, start, stop, _, _, part) in grids_tmp:
+        # the potential u = C/K inside a layer lies between its two sides' (a maximum principle):
+        # a cell's concentration is bounded by the larger side potential times its own K
+        b = bars[bi]
+        p_from, p_to = comp_index[b.from_id], comp_index[b.to_id]
+        side_u = max(scale[p_from] * inv_k[p_from], scale[p_to] * inv_k[p_to])
+        scale[start:stop] = side_u * part
+    # each cumulative amount takes its part's bound: per compartment (eliminated, supplied,
+    # infused) or the part of the barrier's 'from' compartment (degraded, permeated)
+    bar_ref = np.array([m_ref[comp_index[b.from_id]] for b in bars], dtype=np.float64)
+    scale[q_elim0:q_degr0] = m_ref
+    scale[q_degr0:q_perm0] = bar_ref
+    scale[q_perm0:q_supply0] = bar_ref
+    scale[q_supply0:q_supply0 + n_comp] = m_ref
+    scale[q_supply0 + n_comp:] = m_ref
 
     return CompiledModel(
         n_comp=n_comp, n_cells=n_cells, n_bar=n_bar,

@@ -176,53 +176,87 @@ class _Propagator:
 
 
 def _symmetric_modes(model: CompiledModel, a: np.ndarray, clamp: np.ndarray, cut: float = -np.inf) -> _Modes | None:
-    """Eigen-decomposition of the symmetrised free block, or None when it is not symmetric.
+    """Eigen-decomposition of the symmetrised free block, or None when the modes cannot be trusted.
 
-    ``cut`` (1/h, <= 0): on a chain, only the modes with eigenvalue above it are computed.
+    Each connected part of the free states is decomposed on its own (numpy.linalg.eigh, LAPACK
+    syevd), so that modes of parts that do not touch never mix; each eigenvalue is then polished
+    as its Rayleigh quotient written as a sum of squares (relative accuracy for the slow modes,
+    as on the chain path). eigh is backward stable, so the modes are those of a network whose
+    rates are off by rounding times the largest rate; :data:`STIFFNESS_LIMIT` bounds what that
+    does. ``cut`` is not used (every mode is computed).
     """
     nd = model.n_dyn
     free = np.flatnonzero(~np.concatenate([clamp, np.zeros(nd - model.n_comp, dtype=bool)]))
+    nf = len(free)
     add = a[np.ix_(free, free)]
     t = np.sqrt(model.capacity[free] * model.inv_partition[free])
     b = add * t[:, None] / t[None, :]
-    scale = np.abs(b).max(initial=0.0)
-    if scale > 0 and np.abs(b - b.T).max() > 1e-10 * scale:
-        return None
     b = 0.5 * (b + b.T)
-    import scipy.linalg as sla  # only this fallback needs it (slow to import)
-
-    order = _chain_order(b) if len(free) > 2 else None
-    tri = None
-    complete = True
-    if order is not None:
-        bo = b[np.ix_(order, order)]
-        d, e = np.diag(bo).copy(), np.diag(bo, 1).copy()
-        lam = qo = None
-        if np.isfinite(cut):
-            lo, ipiv, ok = _tri_factor(d, e)
-            if ok:
-                lam, qo = sla.eigh_tridiagonal(d, e, select="v", select_range=(cut, np.inf), lapack_driver="stemr",
-                                               check_finite=False)
-                if len(lam) and abs(lam.max()) <= 1e-13 * scale:  # a conserved mode: B is singular
-                    lam = qo = None
-                else:
-                    tri = (order, d, e, lo, ipiv)
-                    complete = len(lam) == len(free)
-        if lam is None:
-            lam, qo = sla.eigh_tridiagonal(d, e, check_finite=False)
-        q = np.empty_like(qo)
-        q[order] = qo
-    elif len(free):
-        lam, q = np.linalg.eigh(b)
-    else:
-        lam, q = np.zeros(0), np.zeros((0, 0))
+    ep, eq, gw, ediag, msq = _conductances(model, free)
+    lam = np.zeros(nf)
+    q = np.zeros((nf, nf))
+    label = _block_labels(b)
+    col = 0
+    for part in np.unique(label):
+        idx = np.flatnonzero(label == part)
+        blk = b[np.ix_(idx, idx)]
+        w, v = np.linalg.eigh(blk)
+        vv = np.zeros((nf, len(idx)))
+        vv[idx] = v
+        u = vv / msq[:, None]
+        rq = -(gw @ (u[ep] - u[eq]) ** 2 + ediag @ u ** 2) / np.einsum("ij,ij->j", vv, vv)
+        w = np.minimum(rq, 0.0)
+        order = np.argsort(w)
+        w, v = w[order], v[:, order]
+        lam[col:col + len(idx)] = w
+        q[idx, col:col + len(idx)] = v
+        col += len(idx)
+    order = np.argsort(lam)
+    lam, q = lam[order], q[:, order]
     # slowest first, so that the slow modes of any interval are a leading block
-    lam = np.ascontiguousarray(np.minimum(lam, 0.0)[::-1])  # semi-definite; rounding may leave +1e-12
+    lam = np.ascontiguousarray(lam[::-1])
     qt = np.ascontiguousarray(q[:, ::-1].T)
     qyt = qt / t[None, :]
     aqt = np.ascontiguousarray(a[nd:][:, free] / t[None, :])
     wt = np.ascontiguousarray(_matmul(aqt, np.ascontiguousarray(qt.T)).T)
-    return _Modes(free, np.flatnonzero(clamp), t, lam, qt, qyt, wt, aqt, tri, complete)
+    return _Modes(free, np.flatnonzero(clamp), t, lam, qt, qyt, wt, aqt, None, True)
+
+
+def _block_labels(b: np.ndarray) -> np.ndarray:
+    """The connected part of each row of the symmetric matrix ``b`` (through nonzero entries)."""
+    n = b.shape[0]
+    label = np.arange(n)
+    rows, cols = np.nonzero(b)
+    changed = True
+    while changed:  # label propagation: each part ends with its smallest index
+        new = label.copy()
+        np.minimum.at(new, rows, label[cols])
+        changed = bool(np.any(new != label))
+        label = new
+    return label
+
+
+def _conductances(model: CompiledModel, free: np.ndarray):
+    """The free states' network in potential form: edges (p, q, conductance G, mL/h), the loss
+    diagonal E (mL/h) and sqrt(M), M = V K (the capacity of each potential), indexed within ``free``.
+
+    B = -M^(-1/2) (L + E) M^(-1/2), L the Laplacian of G: the same split as on the chain path.
+    """
+    m = model
+    pos = np.full(m.n_dyn, -1, dtype=np.int64)
+    pos[free] = np.arange(len(free))
+    mm = m.capacity[free] / m.inv_partition[free]
+    ediag = m.loss_rate[free] * mm
+    a_, b_ = pos[m.link_p], pos[m.link_q]
+    both = (a_ >= 0) & (b_ >= 0)
+    w = 0.5 * (m.link_b + m.link_c)
+    np.add.at(ediag, a_[both], (m.link_a - w)[both])
+    np.add.at(ediag, b_[both], (m.link_d - w)[both])
+    only_p = (a_ >= 0) & (b_ < 0)
+    only_q = (a_ < 0) & (b_ >= 0)
+    np.add.at(ediag, a_[only_p], m.link_a[only_p])
+    np.add.at(ediag, b_[only_q], m.link_d[only_q])
+    return a_[both], b_[both], w[both], ediag, np.sqrt(mm)
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
@@ -298,17 +332,77 @@ def _shortest_time(times: np.ndarray, marks: np.ndarray) -> float:
     return float(cand.min()) if len(cand) else 1.0
 
 
-def exact_supported(model: CompiledModel) -> bool:
-    """True when the exact path applies to ``model`` quickly: linear, and symmetric or small.
+def structurally_symmetric(model: CompiledModel) -> bool:
+    """True when every link is reciprocal and no one-way transfer exists (the modes path applies).
 
-    A linear model with one-way transfers is solved with matrix exponentials of the full state,
-    which costs O(n^3) per distinct step; that path is chosen automatically only up to 400 states.
+    Decided from the structure, not from the numbers of the assembled matrix (a transfer of 1/h
+    beside cells of 1e9/h would hide below any threshold taken relative to the largest entry).
+    """
+    b, c = model.link_b, model.link_c
+    return (len(model.tr_from) == 0
+            and not np.any(np.abs(b - c) > 1e-12 * np.maximum(np.abs(b), np.abs(c))))
+
+
+def exact_plan(model: CompiledModel, method: str = "auto") -> tuple[str, int]:
+    """Which exact method runs ``model`` (``"chain"``, ``"modes"`` or ``"expm"``) and its size.
+
+    The size is the number of unclamped states of the chain (``chain``), of dynamic states
+    (``modes``) or of all states (``expm``).
+    """
+    if method in ("auto", "chain"):
+        order = chain_order(model)
+        if order is not None:
+            return "chain", len(order)
+    if method in ("auto", "modes") and structurally_symmetric(model):
+        return "modes", model.n_dyn
+    return "expm", model.n_state
+
+
+CHAIN_STATES = 1000
+"""The default takes the exact chain path up to this many states (its cost grows with the number
+of slow modes times the states; a long row of compartments has as many slow modes as states)."""
+
+STIFFNESS_LIMIT = 1e7
+"""The modes and matrix-exponential paths apply while rho * T stays below this, with rho a bound
+on the rates of the network (Gershgorin, on states scaled by their magnitude) and T the longest
+dosing interval: each path is backward stable, its result the exact solution of a network whose
+rates are off by about rounding (1.1e-16) times rho, so rho * T * 1.1e-16 bounds what that does
+over a dosing interval (1e-9 here). The chain path polishes its modes to relative accuracy and
+checks each a posteriori instead."""
+
+
+def stiffness(model: CompiledModel) -> float:
+    """A bound on the rates of ``model``, 1/h: the largest absolute row sum of its Jacobian with
+    every state divided by its magnitude scale (Gershgorin's bound on the eigenvalues)."""
+    m = model
+    size = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+    rows = np.zeros(size, dtype=np.int64)
+    cols = np.zeros(size, dtype=np.int64)
+    vals = np.zeros(size)
+    k = jacobian_coo(np.zeros(m.n_state), rows, cols, vals, *_margs(m), m.held.copy(), m.q_supply)
+    rows, cols, vals = rows[:k], cols[:k], vals[:k]
+    dyn = rows < m.n_dyn
+    sums = np.zeros(m.n_dyn)
+    np.add.at(sums, rows[dyn], np.abs(vals[dyn]) * m.scale[cols[dyn]] / m.scale[rows[dyn]])
+    return float(sums.max(initial=0.0))
+
+
+def exact_supported(model: CompiledModel, longest: float | None = None) -> bool:
+    """True when the default may take the exact path for ``model``.
+
+    Linear models only. Chains up to :data:`CHAIN_STATES` states (their modes are checked as they
+    are computed; a failed check hands the run to the robust integrator); the modes and matrix-exponential paths while
+    the network is not too stiff for the longest dosing interval ``longest`` (h; see
+    :data:`STIFFNESS_LIMIT`), the latter (O(n^3) per distinct step) up to 400 states.
     """
     if not model.is_linear:
         return False
-    if len(model.tr_from) == 0:
-        return True
-    return model.n_state <= 400
+    plan, size = exact_plan(model)
+    if plan == "chain":
+        return size <= CHAIN_STATES
+    if plan == "expm" and model.n_state > 400:
+        return False
+    return longest is None or stiffness(model) * longest <= STIFFNESS_LIMIT
 
 
 @dataclass(frozen=True)
@@ -360,16 +454,31 @@ class ExactIntegrator:
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
             n_jac = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
-            chain_schedule(marks, times, *ev, m.held, _margs(m), m.q_supply, m.q_infused, order,
-                           _FAST / _shortest_time(times, marks), n_jac, m.y0.copy(), states, ev_dosed, ev_removed, st)
+            code = chain_schedule(marks, times, *ev, m.held, _margs(m), m.q_supply, m.q_infused, order,
+                                  _FAST / _shortest_time(times, marks), n_jac, m.y0.copy(), states, ev_dosed,
+                                  ev_removed, st)
             stats.steps += int(st[0])
             stats.rhs_evaluations += int(st[2])
             stats.jacobian_evaluations += int(st[3])
             stats.lu_decompositions += int(st[4])
             stats.intervals += int(st[5])
+            if code != 0:
+                return (states[:0], ev_dosed[:0], ev_removed[:0], -1,
+                        "the exact path does not apply: the network's modes are too ill-conditioned to separate "
+                        "(time scales too far apart within one connected part)")
             if progress is not None:
                 progress(1.0)
             return states, ev_dosed, ev_removed, 0, "the run finished"
+        use_modes = self.method in ("auto", "modes") and structurally_symmetric(m)
+        if self.method == "modes" and not use_modes:
+            raise ScenarioError.single("integrator method", "'modes'",
+                                       "needs a symmetric network; one-way transfers need method 'expm'")
+        rho = stiffness(m)
+        longest = float(np.diff(marks).max(initial=0.0))
+        if rho * longest > STIFFNESS_LIMIT:
+            return (np.empty((0, m.n_state)), np.empty((0, nc)), np.empty((0, nc)), -1,
+                    f"the exact path does not apply: the network is too stiff for it (rates up to {rho:.3g} 1/h "
+                    f"over dosing intervals of up to {longest:.3g} h)")
         states = np.empty((n_t, m.n_state))
         ev_dosed = np.empty((n_t, nc))
         ev_removed = np.empty((n_t, nc))
@@ -396,14 +505,15 @@ class ExactIntegrator:
             a = jac[key]
             g = _forcing(m, y, infusion, clamp)
             md = None
-            if self.method != "expm":
+            if use_modes:
                 if key not in modes:
                     modes[key] = _symmetric_modes(m, a, clamp, _FAST / tau_min)
                     stats.lu_decompositions += 1
                 md = modes[key]
-                if md is None and self.method == "modes":
-                    raise ScenarioError.single("integrator method", "'modes'",
-                                               "needs a symmetric network; one-way transfers need method 'expm'")
+                if md is None:
+                    return (states[:row], ev_dosed[:row], ev_removed[:row], -1,
+                            "the exact path does not apply: the network's modes are too ill-conditioned to "
+                            "separate (time scales too far apart within one connected part)")
             if md is not None:
                 want = np.append(tau, t1 - t0)
                 t_min = want[want > 0.0].min()
@@ -518,19 +628,22 @@ def _advance_expm(m: CompiledModel, a: np.ndarray, g: np.ndarray, y0: np.ndarray
                   clamp: np.ndarray) -> np.ndarray:
     """States at local times ``tau`` (h, non-decreasing, >= 0) by matrix exponentials."""
     n = m.n_state
+    sc = m.scale
     aug = np.zeros((n + 1, n + 1))
-    aug[:n, :n] = a
+    # on states divided by their magnitude scale, so that the rounding of the exponential, which
+    # is relative to its norm, is relative to each state's own magnitude
+    aug[:n, :n] = a * sc[None, :] / sc[:, None]
     # a clamped compartment stays at its value: its couplings are already in g (the rates at it)
     aug[:n, : m.n_comp][:, np.flatnonzero(clamp)] = 0.0
-    aug[:n, n] = g
+    aug[:n, n] = g / sc
     prop = _Propagator(aug)
     out = np.empty((len(tau), n))
-    z = np.append(y0, 1.0)
+    z = np.append(y0 / sc, 1.0)
     t_prev = 0.0
     for i, ti in enumerate(tau):
         if ti > t_prev:
             z = prop.step(ti - t_prev) @ z
             z[n] = 1.0
             t_prev = ti
-        out[i] = z[:n]
+        out[i] = z[:n] * sc
     return out

@@ -34,7 +34,10 @@ from .compiled import CompiledModel
 from .kernels import INNER, jacobian_kernel, rates_kernel
 from .rosenbrock import OK, apply_events, rows_until
 
-__all__ = ["chain_order", "chain_schedule"]
+FAIL_CONDITION = 5
+"""Status of a chain run whose modes failed their a posteriori check (the path is not exact there)."""
+
+__all__ = ["FAIL_CONDITION", "MODE_ANGLE_LIMIT", "chain_order", "chain_schedule"]
 
 
 def chain_order(model: CompiledModel) -> np.ndarray | None:
@@ -165,14 +168,69 @@ def _sturm(dd, ee, n, x, pivmin):
     return cnt
 
 
+#: Largest accepted sine of the angle between a computed mode and the true one, bounded a
+#: posteriori by residual / gap (Parlett 1980, theorem 11.7.1 (Davis-Kahan)); above it the
+#: chain is too ill-conditioned for the exact path and the run is handed to the robust integrator.
+MODE_ANGLE_LIMIT = 1e-6
+
+
 @njit(**INNER)
 def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
     """Eigenpairs of T with eigenvalue above ``cut`` (<= 0), slowest first; returns their number.
 
-    ``vec[s, :n]`` holds eigenvector s (unit length).
+    Each connected part of the chain (``comp_of``) is decomposed on its own, so that modes of
+    parts that do not touch never mix (their eigenvalues may agree to rounding). ``vec[s, :n]``
+    holds eigenvector s (unit length, zero outside its part). Returns -1 when a mode fails its
+    a posteriori check (residual / gap above :data:`MODE_ANGLE_LIMIT`): the modes cannot be
+    trusted and the exact path does not apply.
     """
     if n == 0:
         return 0
+    k = 0
+    start = 0
+    while start < n:
+        stop = start
+        while stop + 1 < n and comp_of[stop + 1] == comp_of[start]:
+            stop += 1
+        got = _part_modes(dd, ee, start, stop + 1, cut, gedge, ediag, msq, lam, vec, k)
+        if got < 0:
+            return -1
+        k += got
+        start = stop + 1
+    # slowest first over all parts (insertion sort: the parts' lists are each sorted)
+    for s in range(1, k):
+        j = s
+        while j > 0 and lam[j] > lam[j - 1]:
+            tmp = lam[j]
+            lam[j] = lam[j - 1]
+            lam[j - 1] = tmp
+            for i in range(n):
+                tmp = vec[j, i]
+                vec[j, i] = vec[j - 1, i]
+                vec[j - 1, i] = tmp
+            j -= 1
+    return k
+
+
+@njit(**INNER)
+def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, lam_all, vec_all, k0):
+    """The modes above ``cut`` of one connected part (positions lo_i .. hi_i - 1) into
+    ``lam_all[k0:]`` and ``vec_all[k0:]``; returns their number, or -1 when one fails its check."""
+    n = hi_i - lo_i
+    nn = vec_all.shape[1]
+    dd = dd_all[lo_i:hi_i]
+    ee = ee_all[lo_i:hi_i]
+    gedge = gedge_all[lo_i:hi_i]
+    ediag = ediag_all[lo_i:hi_i]
+    msq = msq_all[lo_i:hi_i]
+    if n == 1:
+        if dd[0] <= cut:
+            return 0
+        lam_all[k0] = dd[0]
+        for i in range(nn):
+            vec_all[k0, i] = 0.0
+        vec_all[k0, lo_i] = 1.0
+        return 1
     tnorm = 0.0
     upper = -np.inf
     for i in range(n):
@@ -192,27 +250,29 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
     k = n - below
     if k == 0:
         return 0
-    k = min(k, lam.shape[0])
-    lo = np.empty(k)
-    hi = np.empty(k)
-    lower = cut if math.isfinite(cut) else -tnorm - 1.0
-    for s in range(k):
+    k = min(k, lam_all.shape[0] - k0)
+    # one more eigenvalue than the modes kept (the next faster one), for the gap of the last
+    kb = min(k + 1, n)
+    lo = np.empty(kb)
+    hi = np.empty(kb)
+    lower = -tnorm - 1.0
+    for s in range(kb):
         lo[s] = lower
         hi[s] = upper
     # bisection in lockstep; mode s (slowest first) is eigenvalue number n - 1 - s (ascending)
-    q = np.empty(k)
-    cnt = np.empty(k, dtype=np.int64)
-    mid = np.empty(k)
+    q = np.empty(kb)
+    cnt = np.empty(kb, dtype=np.int64)
+    mid = np.empty(kb)
     tol = 4e-16 * tnorm
     for _it in range(200):
         done = True
-        for s in range(k):
+        for s in range(kb):
             mid[s] = 0.5 * (lo[s] + hi[s])
             if hi[s] - lo[s] > tol + 4e-16 * abs(mid[s]):
                 done = False
         if done:
             break
-        for s in range(k):
+        for s in range(kb):
             q[s] = dd[0] - mid[s]
             if abs(q[s]) < pivmin:
                 q[s] = -pivmin
@@ -220,16 +280,18 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
         for i in range(1, n):
             e2 = ee[i - 1] * ee[i - 1]
             di = dd[i]
-            for s in range(k):  # branch-free, so that the shifts run in vector lanes
+            for s in range(kb):  # branch-free, so that the shifts run in vector lanes
                 v = di - mid[s] - e2 / q[s]
                 v = v if abs(v) >= pivmin else -pivmin
                 q[s] = v
                 cnt[s] += v < 0.0
-        for s in range(k):
+        for s in range(kb):
             if cnt[s] > n - 1 - s:
                 hi[s] = mid[s]
             else:
                 lo[s] = mid[s]
+    lam = lam_all[k0:k0 + k]
+    vec = np.zeros((k, n))
     # inverse iteration with partial pivoting, re-orthogonalised against the slower modes
     a0 = np.empty(n)
     a1 = np.empty(n)
@@ -313,25 +375,20 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
                 du = ui - v[i + 1] / msq[i + 1]
                 acc += gedge[i] * du * du
         lam[s] = -acc
-    # closed parts without loss: their equilibrium mode is exact (u constant, lam 0)
-    nparts = comp_of[n - 1] + 1
-    for part in range(nparts):
-        closed = True
-        msum = 0.0
-        for i in range(n):
-            if comp_of[i] == part:
-                msum += msq[i] * msq[i]
-                if ediag[i] != 0.0:
-                    closed = False
-        if not closed:
-            continue
+    # a closed part without loss: its equilibrium mode is exact (u constant, lam 0)
+    closed = True
+    msum = 0.0
+    for i in range(n):
+        msum += msq[i] * msq[i]
+        if ediag[i] != 0.0:
+            closed = False
+    if closed:
         best = -1
         bestdot = 0.5
         for s in range(k):
             dot = 0.0
             for i in range(n):
-                if comp_of[i] == part:
-                    dot += vec[s, i] * msq[i]
+                dot += vec[s, i] * msq[i]
             dot = abs(dot) / math.sqrt(msum)
             if dot > bestdot:
                 bestdot = dot
@@ -339,7 +396,7 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
         if best >= 0:
             lam[best] = 0.0
             for i in range(n):
-                vec[best, i] = msq[i] / math.sqrt(msum) if comp_of[i] == part else 0.0
+                vec[best, i] = msq[i] / math.sqrt(msum)
     # slowest first (the Rayleigh polish may reorder near-equal values)
     for s in range(1, k):
         j = s
@@ -352,6 +409,28 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
                 vec[j, i] = vec[j - 1, i]
                 vec[j - 1, i] = tmp
             j -= 1
+    # a posteriori check: the angle to the true mode is at most residual / gap
+    nxt = 0.5 * (lo[k] + hi[k]) if kb > k else -np.inf
+    for s in range(k):
+        res = 0.0
+        for i in range(n):
+            t = dd[i] * vec[s, i] - lam[s] * vec[s, i]
+            if i > 0:
+                t += ee[i - 1] * vec[s, i - 1]
+            if i + 1 < n:
+                t += ee[i] * vec[s, i + 1]
+            res += t * t
+        res = math.sqrt(res)
+        gap = lam[s] - nxt if s == k - 1 else lam[s] - lam[s + 1]
+        if s > 0:
+            gap = min(gap, lam[s - 1] - lam[s])
+        if res > MODE_ANGLE_LIMIT * gap:
+            return -1
+    for s in range(k):
+        for i in range(nn):
+            vec_all[k0 + s, i] = 0.0
+        for i in range(n):
+            vec_all[k0 + s, lo_i + i] = vec[s, i]
     return k
 
 
@@ -404,17 +483,31 @@ def _solve_t(dd, ee, n, ediag, msq, comp_of, r, x):
 
 @njit(**INNER)
 def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
-    """out = P v, P = T^+ minus the modes 0 .. ks-1 (the decayed modes' q q^T / lam)."""
-    _solve_t(dd, ee, n, ediag, msq, comp_of, v, out)
-    for s in range(ks):
-        if lam[s] == 0.0:
-            continue
-        dot = 0.0
-        for i in range(n):
-            dot += vec[s, i] * v[i]
-        c = dot / lam[s]
-        for i in range(n):
-            out[i] -= c * vec[s, i]
+    """out = P v, P = T^+ restricted to the decayed modes (those from ``ks`` on).
+
+    Computed as Q T^+ Q v with Q = I - (the modes 0 .. ks-1) q q^T, not as T^+ v minus the slow
+    modes' q q^T v / lam: the solve with T has an error of rounding times its condition number
+    (up to |T| / |slowest eigenvalue|) along the slowest modes, which the subtraction would keep
+    and the projection removes; what is left is bounded by rounding times |T| / |lam_ks|.
+    """
+    w = np.empty(n)
+    for i in range(n):
+        w[i] = v[i]
+    for _rep in range(2):
+        for s in range(ks):
+            dot = 0.0
+            for i in range(n):
+                dot += vec[s, i] * w[i]
+            for i in range(n):
+                w[i] -= dot * vec[s, i]
+    _solve_t(dd, ee, n, ediag, msq, comp_of, w, out)
+    for _rep in range(2):
+        for s in range(ks):
+            dot = 0.0
+            for i in range(n):
+                dot += vec[s, i] * out[i]
+            for i in range(n):
+                out[i] -= dot * vec[s, i]
 
 
 # ---------------------------------------------------------------- outputs of one interval
@@ -659,6 +752,8 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
         if changed:
             n = _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
             k_all = _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec)
+            if k_all < 0:
+                return FAIL_CONDITION
             kj = jacobian_kernel(yz, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
                               margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
                               margs[14], margs[15], margs[16], margs[17], margs[18], margs[19], clamp, q_supply)

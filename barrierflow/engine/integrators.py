@@ -16,7 +16,7 @@ from ..errors import ScenarioError, SolverError
 from .problem import IntervalProblem
 
 __all__ = ["INTEGRATORS", "AutoIntegrator", "RunStats", "ScipyIntegrator", "integrator_from_name",
-           "resolve_integrator"]
+           "resolve_integrator", "working_memory"]
 
 
 @dataclass
@@ -132,20 +132,52 @@ class AutoIntegrator:
     atol: float = 3e-9
     name: str = field(init=False, default="auto")
 
-    def resolve(self, model):
-        """The integrator that runs ``model``."""
+    def resolve(self, model, longest: float | None = None):
+        """The integrator that runs ``model``; ``longest`` (h) is the longest dosing interval."""
         from .exact import ExactIntegrator, exact_supported
         from .rosenbrock import RosenbrockIntegrator
 
-        if exact_supported(model):
-            return ExactIntegrator()
+        if exact_supported(model, longest):
+            exact = ExactIntegrator()
+            if working_memory(exact, model) <= EXACT_MEMORY:
+                return exact
         return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
 
 
-def resolve_integrator(integrator, model):
-    """``integrator`` itself, or what an :class:`AutoIntegrator` (the default, for None) picks for ``model``."""
+EXACT_MEMORY = 256 * 1024**2
+"""The default takes an exact path only when its working arrays fit in this many bytes (larger
+networks go to the compiled RODAS4 integrator, whose memory grows in proportion to the states)."""
+
+
+def working_memory(integrator, model) -> int:
+    """Bytes of working arrays that ``integrator`` needs for ``model`` (an estimate, besides the trajectory)."""
+    from .exact import ExactIntegrator, exact_plan
+
+    n = model.n_state
+    nc = model.n_comp
+    n_link = len(model.link_p)
+    if isinstance(integrator, ExactIntegrator):
+        plan, size = exact_plan(model, integrator.method)
+        if plan == "chain":
+            return 8 * size * size + 8 * 40 * n + 8 * 12 * n_link
+        if plan == "modes":
+            return 8 * (2 * n * n + 4 * size * size)
+        return 8 * 10 * (n + 1) * (n + 1)
+    if isinstance(integrator, ScipyIntegrator):
+        if integrator.method == "LSODA":
+            return 8 * 4 * n * n
+        return 8 * (60 * n + 40 * n_link) + 8 * nc * nc * 4
+    # the compiled RODAS4 integrator: O(n) vectors, the dense compartment block
+    return 8 * (40 * n + 30 * n_link + 4 * nc * nc)
+
+
+def resolve_integrator(integrator, model, longest: float | None = None):
+    """``integrator`` itself, or what an :class:`AutoIntegrator` (the default, for None) picks for ``model``.
+
+    ``longest`` (h) is the longest dosing interval of the run (the exact paths' conditions use it).
+    """
     integrator = AutoIntegrator() if integrator is None else integrator
-    return integrator.resolve(model) if hasattr(integrator, "resolve") else integrator
+    return integrator.resolve(model, longest) if hasattr(integrator, "resolve") else integrator
 
 
 def _rodas(**kw):

@@ -30,14 +30,15 @@ import numba
 import numpy as np
 from numba import njit, prange
 
-from ..errors import ScenarioError
+from ..errors import ScenarioError, SolverError
 from ..model import Scenario
 from ..model.paths import Param, parse_param, with_values
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _shortest_time
 from .exact_chain import chain_order, chain_schedule
 from .grid import Grid
-from .kernels import jacobian_size
+from .kernels import INNER, jacobian_size
+from .ledger import ledger_rows, verdict
 from .rosenbrock import (
     _FAILURES,
     COEF,
@@ -50,7 +51,7 @@ from .rosenbrock import (
     run_marks,
 )
 from .schedule import build_schedule
-from .solve import _snap
+from .solve import _present, _snap, solve
 
 __all__ = ["Population", "sample_scenarios", "simulate_many", "simulate_population"]
 
@@ -210,7 +211,7 @@ class Population:
 def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                     lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, gch, olinks, lossy,
                     inv_cap, y0, q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, keep,
-                    out, out_dosed, out_removed, status, fail_k, stats):
+                    scale, out, out_dosed, out_removed, cell_amount, low, status, fail_k, stats):
     n_sub = y0.shape[0]
     n = y0.shape[1]
     n_t = times.shape[0]
@@ -240,18 +241,15 @@ def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc,
         fail_k[i] = k
         for j in range(6):
             stats[i, j] = st[j]
-        for r in range(n_t):
-            for j in range(keep.shape[0]):
-                out[i, r, j] = states[r, keep[j]]
-            for p in range(nc):
-                out_dosed[i, r, p] = evd[r, p]
-                out_removed[i, r, p] = evr[r, p]
+        _keep_rows(states, evd, evr, keep, nc, nd, cap[i], scale[i], out[i], out_dosed[i], out_removed[i],
+                   cell_amount[i], low, i)
 
 
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                           lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, y0, q_supply,
-                          q_infused, order, cut, n_jac, keep, out, out_dosed, out_removed, status, stats):
+                          q_infused, order, cut, n_jac, keep, scale, out, out_dosed, out_removed, cell_amount, low,
+                          status, stats):
     n_sub = y0.shape[0]
     n = y0.shape[1]
     n_t = times.shape[0]
@@ -266,12 +264,31 @@ def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, hel
                                    q_infused, order, cut, n_jac, y0[i].copy(), states, evd, evr, st)
         for j in range(6):
             stats[i, j] = st[j]
-        for r in range(n_t):
-            for j in range(keep.shape[0]):
-                out[i, r, j] = states[r, keep[j]]
-            for p in range(nc):
-                out_dosed[i, r, p] = evd[r, p]
-                out_removed[i, r, p] = evr[r, p]
+        _keep_rows(states, evd, evr, keep, nc, nd, cap[i], scale[i], out[i], out_dosed[i], out_removed[i],
+                   cell_amount[i], low, i)
+
+
+@njit(**INNER)
+def _keep_rows(states, evd, evr, keep, nc, nd, cap, scale, out, out_dosed, out_removed, cell_amount, low, i):
+    """Copy the kept columns of one subject, with what its check needs: the amount in the cells at
+    each row, and the lowest concentration relative to its state's scale (into ``low[i]``)."""
+    lo = 0.0
+    for r in range(states.shape[0]):
+        for j in range(keep.shape[0]):
+            out[r, j] = states[r, keep[j]]
+        for p in range(nc):
+            out_dosed[r, p] = evd[r, p]
+            out_removed[r, p] = evr[r, p]
+        acc = 0.0
+        for j in range(nd):
+            v = states[r, j]
+            if j >= nc:
+                acc += v * cap[j]
+            z = v / scale[j]
+            if z < lo:
+                lo = z
+        cell_amount[r] = acc
+    low[i] = lo
 
 
 def _same_structure(models: Sequence[CompiledModel], schedules, grids_times) -> None:
@@ -354,6 +371,9 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
     out = np.empty((n_sub, n_t, len(keep)))
     out_dosed = np.zeros((n_sub, n_t, nc))
     out_removed = np.zeros((n_sub, n_t, nc))
+    cell_amount = np.zeros((n_sub, n_t))
+    low = np.zeros(n_sub)
+    scale = stack("scale")
     status = np.zeros(n_sub, dtype=np.int64)
     fail_k = np.zeros(n_sub, dtype=np.int64)
     stats = np.zeros((n_sub, 6), dtype=np.int64)
@@ -369,8 +389,8 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         if order is not None:
             name = "exact (population)"
             _run_population_exact(*common, stack("y0"), m0.q_supply, m0.q_infused, order,
-                                  -60.0 / _shortest_time(times, marks), n_jac, keep, out, out_dosed, out_removed,
-                                  status, stats)
+                                  -60.0 / _shortest_time(times, marks), n_jac, keep, scale, out, out_dosed,
+                                  out_removed, cell_amount, low, status, stats)
         else:
             name = f"{integ.name} (population)"
             struct = build_structure(m0)
@@ -378,18 +398,43 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
             _run_population(*common, np.stack([c[0] for c in chains]), chains[0][1], chains[0][2],
                             np.stack([c[3] for c in chains]), stack("y0"), m0.q_supply, m0.q_infused, struct.args(),
                             COEF, struct.n_w, n_jac, float(integ.rtol), integ.atol * stack("scale"), integ.max_steps,
-                            float(integ.hold), keep, out, out_dosed, out_removed, status, fail_k, stats)
+                            float(integ.hold), keep, scale, out, out_dosed, out_removed, cell_amount, low, status,
+                            fail_k, stats)
     finally:
         numba.set_num_threads(old_threads)
     messages = []
     st = np.where(status == OK, 0, -1)
     for i in range(n_sub):
         if status[i] == OK:
-            messages.append("the run finished")
+            # the guard of every run (barrierflow.engine.ledger.verdict), per subject
+            mi = models[i]
+            led = ledger_rows(mi, out[i, :, :nc], cell_amount[i], out[i, :, nc + len(out_cells):], out_dosed[i],
+                              out_removed[i], _present(mi, mi.y0))
+            found = verdict(led, float(low[i]), bool(np.all(np.isfinite(out[i]))))
+            if not found:
+                messages.append("the run finished")
+                continue
+            note = f"the {name} result failed its check ({'; '.join(found)})"
+        elif order is not None:
+            note = "the exact path does not apply to this subject (its modes are too ill-conditioned)"
         else:
             k = int(fail_k[i])
-            messages.append(f"the solution failed between {marks[k]:.6g} h and {marks[k + 1]:.6g} h "
-                            f"(dosing interval {k + 1}): {_FAILURES.get(int(status[i]), 'unknown failure')}")
+            note = (f"the solution failed between {marks[k]:.6g} h and {marks[k + 1]:.6g} h "
+                    f"(dosing interval {k + 1}): {_FAILURES.get(int(status[i]), 'unknown failure')}")
+        # computed again on its own, through the guarded single run (robust integrator on failure)
+        try:
+            tr = solve(scenarios[i], integ if isinstance(integrator, RosenbrockIntegrator) else None, grid)
+        except SolverError as err:
+            st[i] = -1
+            out[i] = np.nan
+            messages.append(f"{note}; computed again on its own it failed too: {err}")
+            continue
+        out[i] = tr.states[:, keep]
+        out_dosed[i] = tr.event_dosed
+        out_removed[i] = tr.event_removed
+        stats[i, ST_STEPS] = tr.stats.get("steps", 0)
+        st[i] = 0
+        messages.append(f"{note}; computed again on its own with {tr.integrator}")
     # flux into the 'to' compartment of each barrier: c u_p - d u_q over the out link, per area
     area = stack("area")
     flux = np.empty((n_sub, n_t, m0.n_bar))

@@ -13,11 +13,13 @@ from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
 from .compiled import CompiledModel, compile_scenario
 from .grid import Grid
-from .integrators import RunStats, resolve_integrator
+from .integrators import RunStats, resolve_integrator, working_memory
+from .ledger import check
 from .problem import IntervalProblem, IntervalSettings
+from .rosenbrock import RosenbrockIntegrator
 from .schedule import Event, build_schedule
 
-__all__ = ["Trajectory", "solve"]
+__all__ = ["ROBUST", "Trajectory", "check_memory", "solve"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -49,6 +51,8 @@ class Trajectory:
     grid : Grid
     integrator_options : dict
         The integrator's settings (its dataclass fields), for the record.
+    failed_at : float or None, h
+        Where a failed run stopped (None when it did not fail).
     """
 
     model: CompiledModel
@@ -65,6 +69,7 @@ class Trajectory:
     wall_time: float
     grid: Grid
     integrator_options: dict = field(default_factory=dict)
+    failed_at: float | None = None
 
 
 def _snap(times: np.ndarray, marks: np.ndarray, tol: float) -> np.ndarray:
@@ -87,6 +92,12 @@ def _present(model: CompiledModel, y: np.ndarray) -> float:
     return float(comp.sum() + (y[model.n_comp: model.n_dyn] * model.capacity[model.n_comp: model.n_dyn]).sum())
 
 
+
+
+ROBUST = RosenbrockIntegrator(rtol=1e-8, atol=1e-11)
+"""The integrator a run that failed its check (or whose integrator failed) is computed again with."""
+
+
 def solve(
     scenario: Scenario,
     integrator=None,
@@ -94,8 +105,16 @@ def solve(
     *,
     raise_on_failure: bool = True,
     progress: Callable[[float], None] | None = None,
+    fallback: bool = True,
 ) -> Trajectory:
-    """Simulate ``scenario`` and return the raw :class:`Trajectory`.
+    """Simulate ``scenario`` and return the raw :class:`Trajectory`, checked.
+
+    Every run passes :func:`~barrierflow.engine.ledger.check` (finite values, a mass balance
+    closed to 1e-6, no concentration below zero beyond round-off) before it is returned. A run
+    that fails the check, or whose integrator fails, is computed again on the robust integrator
+    (:data:`ROBUST`: compiled RODAS4 at rtol 1e-8, atol 1e-11 of each state's scale); the
+    trajectory's ``message`` and ``stats["fallbacks"]`` say so. If that run fails too, the
+    failure is reported (``SolverError``, or a trajectory with status -1).
 
     Parameters
     ----------
@@ -103,49 +122,94 @@ def solve(
         A validated scenario.
     integrator : object, optional
         An integrator object (default :class:`~barrierflow.engine.integrators.AutoIntegrator`: the
-        exact solution for a linear model, the compiled RODAS4 integrator otherwise). One with a
-        ``solve_schedule`` method runs the whole regimen itself.
+        exact solution for a linear model where it is exact, the compiled RODAS4 integrator
+        otherwise). One with a ``solve_schedule`` method runs the whole regimen itself.
     grid : Grid, optional
         Default grid of layers without ``cells``.
     raise_on_failure : bool
-        Raise :class:`SolverError` when the integration fails (default); otherwise return the
-        partial trajectory with ``status = -1``.
+        Raise :class:`SolverError` when the solution fails (default); otherwise return the
+        failed trajectory with ``status = -1`` (partial when the integrator stopped early).
     progress : callable, optional
         Called with the fraction of the run done (0 to 1).
+    fallback : bool
+        Recompute a failed run on the robust integrator (default True).
 
     Raises
     ------
     SolverError
-        The message says where (time, dosing interval) and what to change.
+        The message says where (time, dosing interval, part of the network) and what to change.
     """
     start_clock = _time.perf_counter()
     grid = grid or Grid()
     model = compile_scenario(scenario, grid)
-    integrator = resolve_integrator(integrator, model)
     all_events = build_schedule(scenario, model.comp_index)
     duration = scenario.duration
     # events at the very end act on nothing but the last row, which shows their after-state
     events = [e for e in all_events if e.time < duration]
     at_end = [e for e in all_events if e.time >= duration]
     marks = np.array(sorted({e.time for e in events} | {0.0, duration}))
+    chosen = resolve_integrator(integrator, model, float(np.diff(marks).max()))
     times = np.unique(_snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(duration, 1.0)))
-    n_t, n_c = len(times), model.n_comp
-    _check_memory(scenario, model, n_t)
-    stats = RunStats()
+    check_memory(scenario, model, len(times), chosen)
+    attempts = [chosen]
+    if fallback and not _same_integrator(chosen, ROBUST):
+        attempts.append(ROBUST)
+    notes: list[str] = []
+    traj = None
+    for k, integ in enumerate(attempts):
+        if k:
+            check_memory(scenario, model, len(times), integ)
+        traj = _run(model, integ, events, at_end, all_events, marks, times, duration, grid,
+                    progress if k == 0 else None)
+        if traj.status == 0:
+            found = check(model, traj.states, traj.event_dosed, traj.event_removed, traj.initial_amount)
+            if not found:
+                stats = {**traj.stats, "fallbacks": k}
+                message = traj.message if not notes else f"{traj.message}; " + "; ".join(notes)
+                return dataclasses.replace(traj, stats=stats, message=message,
+                                           wall_time=_time.perf_counter() - start_clock)
+            note = f"the {traj.integrator} result failed its check ({'; '.join(found)})"
+        else:
+            note = f"the {traj.integrator} run failed ({traj.message})"
+        notes.append(note + (f", so it was computed again with {attempts[k + 1].name} at tighter tolerances"
+                             if k + 1 < len(attempts) else ""))
+    assert traj is not None
+    part = _busiest_part(model, traj.states[-1] if len(traj.states) else model.y0)
+    message = ("the solution could not be trusted: " + "; ".join(notes) + ". "
+               "Check the network for extreme values near that part (a very thin or very fast layer beside a very "
+               "slow one, a huge clearance or flow, a partition far from the others); give its layers fewer cells, "
+               "or a coarser output step; or run it with another integrator (--integrator radau) to compare.")
+    if raise_on_failure:
+        when = traj.failed_at if traj.failed_at is not None else float(traj.times[-1]) if len(traj.times) else 0.0
+        raise SolverError(message, time=when, part=part)
+    stats = {**traj.stats, "fallbacks": len(attempts) - 1}
+    return dataclasses.replace(traj, status=-1, message=message, stats=stats,
+                               wall_time=_time.perf_counter() - start_clock)
 
+
+def _same_integrator(a, b) -> bool:
+    return type(a) is type(b) and _options(a) == _options(b)
+
+
+def _run(model: CompiledModel, integrator, events: list[Event], at_end: list[Event], all_events: list[Event],
+         marks: np.ndarray, times: np.ndarray, duration: float, grid: Grid,
+         progress: Callable[[float], None] | None) -> Trajectory:
+    """One run on one integrator: the whole regimen; status -1 (and the rows reached) on failure."""
+    start_clock = _time.perf_counter()
+    n_t, n_c = len(times), model.n_comp
+    stats = RunStats()
     if hasattr(integrator, "solve_schedule"):
-        result = integrator.solve_schedule(model, events, times, duration, stats, progress)
-        states, ev_dosed, ev_removed, status, message = result
+        states, ev_dosed, ev_removed, status, message = integrator.solve_schedule(
+            model, events, times, duration, stats, progress)
+        failed_at = None
         if status != 0:
-            if raise_on_failure:
-                raise SolverError(message, time=float(times[min(len(states), n_t - 1)]),
-                                  part=_busiest_part(model, states[-1] if len(states) else model.y0))
+            failed_at = float(times[min(len(states), n_t - 1)])
             times = times[: len(states)]
         else:
             _apply_at_end(model, at_end, states, ev_dosed, ev_removed)
         return Trajectory(model, times, states, ev_dosed, ev_removed, _present(model, model.y0), tuple(all_events),
                           stats.as_dict(), status, message, integrator.name, _time.perf_counter() - start_clock, grid,
-                          _options(integrator))
+                          _options(integrator), failed_at)
 
     states = np.full((n_t, model.n_state), np.nan)
     ev_dosed = np.zeros((n_t, n_c))
@@ -159,6 +223,7 @@ def solve(
     dosed = np.zeros(n_c)
     removed = np.zeros(n_c)
     status, message = 0, "the run finished"
+    failed_at = None
     row = 0
     ei = 0
     for k in range(len(marks) - 1):
@@ -177,20 +242,18 @@ def solve(
             ys = integrator.integrate(problem, y, t1 - t0, want, stats)
         except SolverError as err:
             status = -1
+            failed_at = float(t0 + (err.time or 0.0))
             part = _busiest_part(model, y)
             message = (f"the solution failed at t = {t0 + (err.time or 0.0):.6g} h (dosing interval "
                        f"{k + 1}, from {t0:.6g} h to {t1:.6g} h), near {part}: {err}. Try a tighter "
                        "tolerance, fewer cells in very thin layers, or check for extreme values "
                        "(diffusivity, clearance, partition) in that part of the network.")
-            if raise_on_failure:
-                raise SolverError(message, time=t0 + (err.time or 0.0), part=part) from None
             break
         if not np.all(np.isfinite(ys)):
             status = -1
+            failed_at = float(t0)
             message = (f"the solution became non-finite between {t0:.6g} h and {t1:.6g} h; "
                        "check for extreme parameter values")
-            if raise_on_failure:
-                raise SolverError(message, time=t0)
             break
         ys[:, : model.n_comp][:, clamp] = y[: model.n_comp][clamp]  # clamped exactly, free of round-off
         stats.intervals += 1
@@ -206,7 +269,8 @@ def solve(
     else:
         _apply_at_end(model, at_end, states, ev_dosed, ev_removed)
     return Trajectory(model, times, states, ev_dosed, ev_removed, initial, tuple(all_events), stats.as_dict(),
-                      status, message, integrator.name, _time.perf_counter() - start_clock, grid, _options(integrator))
+                      status, message, integrator.name, _time.perf_counter() - start_clock, grid, _options(integrator),
+                      failed_at)
 
 
 def apply_event(e: Event, model: CompiledModel, y: np.ndarray, dosed: np.ndarray, removed: np.ndarray,
@@ -273,20 +337,36 @@ def _apply_at_end(model: CompiledModel, events: list[Event], states: np.ndarray,
 
 
 MEMORY_BUDGET_BYTES = 2 * 1024**3
-"""Largest trajectory (output rows x states x 8 bytes) a run may hold in memory."""
+"""Largest memory a run may take: the trajectory (output rows x states x 8 bytes) and the chosen
+integrator's working arrays (:func:`~barrierflow.engine.integrators.working_memory`)."""
 
 
-def _check_memory(scenario: Scenario, model: CompiledModel, n_rows: int) -> None:
-    need = n_rows * model.n_state * 8
-    if need > MEMORY_BUDGET_BYTES:
+def check_memory(scenario: Scenario, model: CompiledModel, n_rows: int, integrator) -> None:
+    """Refuse, before computing, a run whose memory would exceed :data:`MEMORY_BUDGET_BYTES`.
+
+    Raises
+    ------
+    ScenarioError
+        Naming the output times or the grid, what they need and the limit.
+    """
+    traj = n_rows * (model.n_state + 2 * model.n_comp) * 8
+    work = working_memory(integrator, model)
+    if traj + work <= MEMORY_BUDGET_BYTES:
+        return
+    limit = f"more than the {MEMORY_BUDGET_BYTES / 1e9:.3g} GB allowed"
+    if traj >= work:
         field = "scenario output_times" if scenario.output_times is not None else "scenario output_step"
         value = (f"{n_rows} output times" if scenario.output_times is not None or scenario.output_step is None
                  else f"{scenario.output_step:g} h")
         raise ScenarioError([Problem(
             field, value,
-            f"{n_rows} rows x {model.n_state} states need {need / 1e9:.3g} GB of memory, more than the "
-            f"{MEMORY_BUDGET_BYTES / 1e9:.3g} GB allowed (a grid too large for memory); choose a coarser "
-            "output step or fewer cells", scenario.source)])
+            f"{n_rows} rows x {model.n_state} states need {(traj + work) / 1e9:.3g} GB of memory, {limit} "
+            "(a grid too large for memory); choose a coarser output step or fewer cells", scenario.source)])
+    raise ScenarioError([Problem(
+        "barrier layer cells", f"{model.n_cells} cells in all",
+        f"the {integrator.name} integrator needs {work / 1e9:.3g} GB of memory for {model.n_state} states, {limit} "
+        "(a grid too large for memory); give the layers fewer cells, or use the rodas integrator, whose memory "
+        "grows only in proportion to the cells", scenario.source)])
 
 
 def _options(integrator) -> dict:

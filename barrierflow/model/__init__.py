@@ -1,5 +1,6 @@
 """The validated, immutable model: compartments, barriers, links, doses and the scenario."""
 
+from ._fields import PLAUSIBLE
 from .components import (
     DOSE_KINDS,
     Barrier,
@@ -14,13 +15,15 @@ from .components import (
 from .document import from_document, to_document, to_toml
 from .experiment import OBSERVABLES, Experiment, Series
 from .paths import Param, ParamPath, Tied, parameter_paths, parse_param, with_values
-from .scenario import MAX_EVENTS, MAX_TOTAL_CELLS, Scenario
+from .scenario import MAX_COMPARTMENTS, MAX_EVENTS, MAX_TOTAL_CELLS, Scenario
 
 __all__ = [
     "DOSE_KINDS",
+    "MAX_COMPARTMENTS",
     "MAX_EVENTS",
     "MAX_TOTAL_CELLS",
     "OBSERVABLES",
+    "PLAUSIBLE",
     "Barrier",
     "Compartment",
     "Dose",

@@ -36,7 +36,7 @@ class FieldSpec:
     kind : str
         A kind of quantity from :data:`barrierflow.units.KINDS` (the value is a string with a
         unit), or one of ``"number"`` (a bare float), ``"count"`` (a whole number), ``"text"``,
-        ``"id"``, ``"times"`` (a list of times).
+        ``"id"``, ``"times"`` (a list of times), ``"flag"`` (true or false).
     required : bool
         The key must be given.
     unit : str or None
@@ -61,6 +61,58 @@ class FieldSpec:
     def __post_init__(self) -> None:
         if self.bound not in (None, "> 0", ">= 0"):
             raise ValueError(f"FieldSpec {self.key}: bound must be None, '> 0' or '>= 0', not {self.bound!r}")
+
+
+@dataclass(frozen=True)
+class Plausible:
+    """The range of values a field takes in practice (internal units), and how a message shows it."""
+
+    low: float
+    high: float
+    text: str
+
+
+PLAUSIBLE: dict[str, Plausible] = {
+    # by kind of quantity (the FieldSpec kind), in the internal units cm, h, mg, mL
+    "length": Plausible(1e-6, 10.0, "10 nm to 10 cm"),
+    "diffusivity": Plausible(1e-16 * 3600, 1e-2 * 3600, "1e-16 to 0.01 cm^2/s"),
+    "area": Plausible(1e-4, 1e5, "1e-4 to 1e5 cm^2"),
+    "volume": Plausible(1e-6, 1e8, "1 nL to 100,000 L"),
+    "flow": Plausible(1e-9, 1e7, "1e-9 mL/h to 10,000 L/h"),
+    "rate": Plausible(1e-9, 1e4, "1e-9 to 1e4 1/h"),
+    "concentration": Plausible(1e-18, 1e4, "1e-18 to 1e4 mg/mL"),
+    "amount": Plausible(1e-15, 1e7, "1e-15 mg to 10 kg"),
+    "amount_rate": Plausible(1e-15, 1e7, "1e-15 mg/h to 10 kg/h"),
+    "time": Plausible(1e-9, 1e6, "1e-9 h to 1e6 h (114 years)"),
+    "molar_mass": Plausible(1.0, 1e7, "1 to 1e7 g/mol"),
+    # the one dimensionless field with a range, by its key
+    "partition": Plausible(1e-6, 1e6, "1e-6 to 1e6"),
+}
+"""Plausible values of the fields, by kind of quantity (and ``partition`` by key): a value outside
+is refused unless the scenario sets ``check_ranges = false`` in ``[scenario]``. Zero is not
+checked (where a field allows it, it means "none"). The ranges hold tissue barriers, membranes,
+films and bodies with wide margins (common practice; from the handbook magnitudes of diffusivity
+in solids and liquids and of physiological volumes and flows, from memory); inside them the engine
+computes or refuses with a SolverError, outside them arithmetic meets the limits of floating
+point (a clearance of 1e34 L/h empties an unrelated compartment by rounding)."""
+
+RANGES_OFF = "set check_ranges = false in [scenario] if the value is meant"
+
+
+def range_problems(obj: Any, specs: tuple[FieldSpec, ...]) -> list[Problem]:
+    """A problem for each field of ``obj`` outside its :data:`PLAUSIBLE` range (relative paths)."""
+    out = []
+    for spec in specs:
+        rng = PLAUSIBLE.get(spec.key) if spec.kind == "number" else PLAUSIBLE.get(spec.kind)
+        if rng is None:
+            continue
+        value = getattr(obj, spec.attr)
+        if not finite(value) or value == 0:
+            continue
+        if not rng.low <= abs(value) <= rng.high:
+            out.append(Problem(spec.key, show(value, spec), f"outside the plausible range {rng.text}; {RANGES_OFF}",
+                               path=spec.key))
+    return out
 
 
 def finite(x: float) -> bool:
@@ -107,6 +159,10 @@ def parse_value(raw: Any, spec: FieldSpec, molar_mass: float | None) -> Any:
         if not finite(raw):
             raise UnitsError(raw, "must be a finite number", spec.key)
         return float(raw)
+    if kind == "flag":
+        if not isinstance(raw, bool):
+            raise UnitsError(_quoted(raw), "expected true or false (no quotes)", spec.key)
+        return raw
     if kind == "count":
         if isinstance(raw, bool) or not isinstance(raw, int):
             raise UnitsError(_quoted(raw), "expected a whole number such as 40 (no quotes)", spec.key)

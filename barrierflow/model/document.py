@@ -146,7 +146,7 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
         return Scenario(
             name=head.get("name", ""), description=head.get("description", ""),
             duration=head["duration"], output_step=head.get("output_step"),
-            output_times=head.get("output_times"), substance=substance,
+            output_times=head.get("output_times"), check_ranges=head.get("check_ranges", True), substance=substance,
             compartments=tuple(compartments), barriers=tuple(barriers), exchanges=tuple(exchanges),
             transfers=tuple(transfers), doses=tuple(doses), output_units=output, source=file,
             file_units=file_units)
@@ -214,6 +214,8 @@ def to_document(scenario: Scenario) -> dict[str, Any]:
     head = _put({}, scenario, SCENARIO_SPECS[:4])
     if scenario.output_times is not None:
         head["output_times"] = [format_quantity(t, "time", "h") for t in scenario.output_times]
+    if scenario.check_ranges is False:
+        head["check_ranges"] = False
     doc: dict[str, Any] = {"scenario": head}
     if scenario.substance != Substance():
         doc["substance"] = _put({}, scenario.substance, Substance.SPECS)

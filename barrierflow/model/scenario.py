@@ -19,16 +19,23 @@ from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Subst
 if TYPE_CHECKING:
     import networkx as nx
 
-__all__ = ["MAX_EVENTS", "MAX_TOTAL_CELLS", "Scenario", "network_problems"]
+__all__ = ["MAX_COMPARTMENTS", "MAX_EVENTS", "MAX_TOTAL_CELLS", "Scenario", "network_problems"]
 
 MAX_TOTAL_CELLS = 1_000_000
 """Largest grid accepted in one scenario (cells over all layers); larger grids do not fit in
 memory with the Jacobian and the saved profiles."""
 
+MAX_COMPARTMENTS = 2000
+"""Most compartments in one scenario: the integrators solve the compartments as one dense block,
+whose cost grows as the cube of their number (2000 take about a second per run)."""
+
 DEFAULT_OUTPUT_POINTS = 500
 
 MAX_EVENTS = 1_000_000
 """Most dosing events in one run (repeated doses counted one by one)."""
+
+_SCENARIO_RANGE_SPECS = (FieldSpec("duration", "duration", "time", unit="h"),
+                         FieldSpec("output_step", "output_step", "time", unit="h"))
 
 
 @dataclass(frozen=True)
@@ -60,6 +67,9 @@ class Scenario:
         Units of the exported traces.
     description : str
         Free text.
+    check_ranges : bool
+        Refuse values outside the plausible range of their field (default True; see
+        :data:`barrierflow.model.PLAUSIBLE`). False accepts them, for a scenario that means them.
     source : str or None
         The file the scenario came from (not part of equality).
     file_units : tuple of (str, str)
@@ -87,6 +97,7 @@ class Scenario:
     output_times: tuple[float, ...] | None = None
     output_units: OutputUnits = field(default_factory=OutputUnits)
     description: str = ""
+    check_ranges: bool = True
     source: str | None = field(default=None, compare=False, repr=False)
     file_units: tuple[tuple[str, str], ...] = field(default=(), compare=False, repr=False)
 
@@ -96,6 +107,7 @@ class Scenario:
         FieldSpec("duration", "duration", "time", required=True, unit="h", bound="> 0", structural=True),
         FieldSpec("output_step", "output_step", "time", unit="h", bound="> 0", structural=True),
         FieldSpec("output_times", "output_times", "times", structural=True),
+        FieldSpec("check_ranges", "check_ranges", "flag"),
     )
     """The keys of the ``[scenario]`` table."""
 
@@ -129,6 +141,11 @@ class Scenario:
         if not self.compartments:
             out.append(Problem("compartment", "no compartments", "a scenario needs at least one [[compartment]]",
                                path="compartment"))
+        elif len(self.compartments) > MAX_COMPARTMENTS:
+            out.append(Problem("compartment", f"{len(self.compartments)} compartments",
+                               f"must be at most {MAX_COMPARTMENTS} (the solvers treat the compartments as one dense "
+                               "block whose cost grows as the cube of their number); lump compartments, or model a "
+                               "long row of them as a barrier layer", path="compartment"))
         comps = {c.id: c for c in self.compartments}
         known = ", ".join(comps) or "none"
         for what, items in (("barrier", self.barriers), ("exchange", self.exchanges), ("transfer", self.transfers)):
@@ -194,6 +211,29 @@ class Scenario:
             out.append(Problem("barrier layer cells", f"{total} cells in all",
                                f"must be at most {MAX_TOTAL_CELLS} (a grid too large for memory)"))
         out.extend(p.within("output", at="output") for p in self.output_units.check(self.substance.molar_mass))
+        if self.check_ranges is not False:
+            out.extend(self._range_problems())
+        return out
+
+    def _range_problems(self) -> list[Problem]:
+        """Values outside the plausible range of their field (see :data:`~barrierflow.model.PLAUSIBLE`)."""
+        from ._fields import range_problems
+
+        out = [p.within("scenario", at="scenario") for p in range_problems(self, _SCENARIO_RANGE_SPECS)]
+        out += [p.within("substance", at="substance") for p in range_problems(self.substance, self.substance.SPECS)]
+        for c in self.compartments:
+            out += [p.within(f"compartment '{c.id}'", at=f"compartment.{c.id}") for p in range_problems(c, c.SPECS)]
+        for b in self.barriers:
+            out += [p.within(f"barrier '{b.id}'", at=f"barrier.{b.id}") for p in range_problems(b, b.SPECS)]
+            for i, layer in enumerate(b.layers, start=1):
+                out += [p.within(f"barrier '{b.id}' layer {i}", at=f"barrier.{b.id}.layer.{i}")
+                        for p in range_problems(layer, layer.SPECS)]
+        for e in self.exchanges:
+            out += [p.within(f"exchange '{e.id}'", at=f"exchange.{e.id}") for p in range_problems(e, e.SPECS)]
+        for t in self.transfers:
+            out += [p.within(f"transfer '{t.id}'", at=f"transfer.{t.id}") for p in range_problems(t, t.SPECS)]
+        for i, d in enumerate(self.doses, start=1):
+            out += [p.within(f"dose {i}", at=f"dose.{i}") for p in range_problems(d, d.SPECS)]
         return out
 
     def _event_count(self) -> float:
@@ -349,6 +389,7 @@ class Scenario:
         name: str | None = None,
         substance: Substance | Mapping[str, Any] | None = None,
         description: str = "",
+        check_ranges: bool = True,
     ) -> Scenario:
         """Build a scenario from a networkx graph of compartments and links.
 
@@ -377,6 +418,8 @@ class Scenario:
         substance : Substance or mapping, optional
             Defaults to ``graph.graph["substance"]``.
         description : str
+        check_ranges : bool
+            As for the scenario (default True).
 
         Returns
         -------
@@ -491,6 +534,7 @@ class Scenario:
                 output_times=otimes,
                 output_units=out_units,
                 description=description,
+                check_ranges=check_ranges,
             )
 
         if not problems:

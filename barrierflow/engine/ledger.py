@@ -1,0 +1,245 @@
+"""The ledger of a run and the check every result passes before it is reported.
+
+The ledger (the mass balance) reads, at every output time::
+
+    initial + dosed + held_supply = present + eliminated + degraded + removed
+
+``dosed`` holds what events added (boluses, refills, hold starts), what infusions gave and what
+hold doses supplied to keep their level; ``held_supply`` is what permanently held compartments
+gave (negative when a sink took substance). Every path integrates the cumulative amounts with
+the states, so the ledger closes to round-off when the solution is right; a ledger that does not
+close, a non-finite value or a concentration below zero beyond round-off shows a wrong solution.
+
+:func:`check` is the one test of a result: :func:`barrierflow.engine.solve` applies it to every
+run (and recomputes a failed one on the robust integrator), the population runs apply it to
+every subject, and :class:`barrierflow.Result` reports the same ledger.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .compiled import CompiledModel
+
+__all__ = ["MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT", "Ledger", "check", "ledger", "ledger_rows", "parts", "verdict"]
+
+MASS_BALANCE_LIMIT = 1e-6
+"""Largest relative mass-balance error of a result reported as a success."""
+
+NEGATIVE_LIMIT = 1e-8
+"""Most negative concentration accepted, as a fraction of the state's magnitude scale
+(``CompiledModel.scale``): round-off and the integrators' own tolerances stay far inside it."""
+
+
+@dataclass(frozen=True)
+class Ledger:
+    """The terms of the mass balance at each output time (mg; arrays of one value per row).
+
+    Attributes
+    ----------
+    initial : float, mg
+    dosed, held_supply, present, eliminated, degraded, removed : ndarray, mg
+    """
+
+    initial: float
+    dosed: np.ndarray
+    held_supply: np.ndarray
+    present: np.ndarray
+    eliminated: np.ndarray
+    degraded: np.ndarray
+    removed: np.ndarray
+
+    @property
+    def absolute_errors(self) -> np.ndarray:
+        """|left - right| at each row, mg (NaN where a term is not finite)."""
+        left = self.initial + self.dosed + self.held_supply
+        right = self.present + self.eliminated + self.degraded + self.removed
+        return np.abs(left - right)
+
+    @property
+    def throughput(self) -> float:
+        """The largest amount that entered the ledger on either side, mg (the error's yardstick)."""
+        left = np.abs(self.initial + self.dosed) + np.abs(self.held_supply)
+        right = self.present + self.eliminated + self.degraded + self.removed
+        with np.errstate(invalid="ignore"):
+            big = max(float(np.nanmax(left, initial=0.0)), float(np.nanmax(right, initial=0.0)))
+        return max(big, 1e-300)
+
+    @property
+    def absolute_error(self) -> float:
+        """Largest |left - right| over the rows, mg (NaN when a term is not finite)."""
+        err = self.absolute_errors
+        if not np.all(np.isfinite(err)):
+            return float("nan")
+        return float(err.max(initial=0.0))
+
+    @property
+    def relative_error(self) -> float:
+        """:attr:`absolute_error` divided by :attr:`throughput` (NaN when a term is not finite)."""
+        return self.absolute_error / self.throughput
+
+
+def ledger_rows(model: CompiledModel, comp_conc: np.ndarray, cell_amount: np.ndarray, quad: np.ndarray,
+                event_dosed: np.ndarray, event_removed: np.ndarray, initial: float) -> Ledger:
+    """The ledger from the per-row pieces a run keeps (also those of a population subject).
+
+    Parameters
+    ----------
+    model : CompiledModel
+    comp_conc : ndarray (n_t, n_comp), mg/mL
+    cell_amount : ndarray (n_t,), mg
+        Amount in every barrier cell together.
+    quad : ndarray (n_t, n_state - n_dyn), mg
+        The cumulative amounts, in the layout of the compiled model.
+    event_dosed, event_removed : ndarray (n_t, n_comp), mg
+    initial : float, mg
+    """
+    m = model
+    nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
+    vol = np.where(m.has_volume, m.capacity[:nc], 0.0)
+    supply = quad[:, m.q_supply - nd:m.q_supply - nd + nc]
+    held = m.held
+    dosed = (event_dosed.sum(axis=1) + quad[:, m.q_infused - nd:m.q_infused - nd + nc].sum(axis=1)
+             + supply[:, ~held].sum(axis=1))
+    return Ledger(
+        initial=float(initial), dosed=dosed, held_supply=supply[:, held].sum(axis=1),
+        present=comp_conc @ vol + cell_amount, eliminated=quad[:, :nc].sum(axis=1),
+        degraded=quad[:, nc:nc + nb].sum(axis=1), removed=event_removed.sum(axis=1))
+
+
+def ledger(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
+           initial: float) -> Ledger:
+    """The ledger of a run's full states (n_t, n_state)."""
+    nc, nd = model.n_comp, model.n_dyn
+    cells = states[:, nc:nd] @ model.capacity[nc:nd]
+    return ledger_rows(model, states[:, :nc], cells, states[:, nd:], event_dosed, event_removed, initial)
+
+
+def check(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
+          initial: float) -> list[str]:
+    """What is wrong with a computed run, in words (an empty list when nothing is).
+
+    A run fails when a value is not finite, when its mass balance is off by more than
+    :data:`MASS_BALANCE_LIMIT` (relative), or when a concentration lies below zero by more than
+    :data:`NEGATIVE_LIMIT` of its state's magnitude scale. Each finding names the part of the
+    network where it is worst.
+    """
+    m = model
+    if states.size == 0:
+        return []
+    finite = np.isfinite(states)
+    nd = m.n_dyn
+    rel = states[:, :nd] / m.scale[:nd]
+    low = float(np.nanmin(rel, initial=0.0)) if finite.all() else 0.0
+    found = verdict(ledger(m, states, event_dosed, event_removed, initial) if finite.all() else None, low,
+                    bool(finite.all()))
+    # name where each finding is worst
+    named = []
+    for f in found:
+        if f.startswith("non-finite"):
+            col = int(np.flatnonzero(~finite.all(axis=0))[0])
+            f += f" in {describe_state(m, col)}"
+        elif f.startswith("a negative"):
+            row, col = np.unravel_index(int(np.argmin(rel)), rel.shape)
+            f += f" ({states[row, col]:.3g} mg/mL) in {describe_state(m, int(col))}"
+        else:
+            worst = _worst_part(m, states, event_dosed, event_removed, initial)
+            f += f", worst in {worst}" if worst else ""
+        named.append(f)
+    return named
+
+
+def verdict(led: Ledger | None, low: float, finite: bool) -> list[str]:
+    """The rule every result passes, from its ledger, its lowest concentration relative to its
+    state's scale and whether every value is finite; what fails, in words (empty when none does).
+
+    :func:`check` applies it to a run and names the parts; the population runs apply it to each
+    subject.
+    """
+    if not finite or led is None:
+        return ["non-finite values"]
+    found = []
+    if low < -NEGATIVE_LIMIT:
+        found.append(f"a negative concentration, {-low:.2g} of its scale below zero")
+    err = led.relative_error
+    if not err <= MASS_BALANCE_LIMIT:
+        found.append(f"the mass balance is off by {err:.2g} of the amount moved (more than {MASS_BALANCE_LIMIT:g})")
+    return found
+
+
+def describe_state(model: CompiledModel, i: int) -> str:
+    """The compartment or barrier that state ``i`` belongs to (for messages)."""
+    m = model
+    if i < m.n_comp:
+        return f"compartment '{m.comp_ids[i]}'"
+    if i < m.n_dyn:
+        for g in m.grids:
+            if g.start <= i < g.stop:
+                return f"barrier '{g.barrier_id}'"
+        return "a barrier"
+    q = i - m.n_dyn
+    nc, nb = m.n_comp, m.n_bar
+    if q < nc:
+        return f"what compartment '{m.comp_ids[q]}' eliminated"
+    if q < nc + nb:
+        return f"what barrier '{m.barrier_ids[q - nc]}' degraded"
+    if q < nc + 2 * nb:
+        return f"what barrier '{m.barrier_ids[q - nc - nb]}' passed"
+    return f"the supply of compartment '{m.comp_ids[(q - nc - 2 * nb) % nc]}'"
+
+
+def parts(model: CompiledModel) -> np.ndarray:
+    """The connected part (an integer label) of every dynamic state, through links and transfers."""
+    nd = model.n_dyn
+    parent = np.arange(nd)
+
+    def find(a: int) -> int:
+        while parent[a] != a:
+            parent[a] = parent[parent[a]]
+            a = parent[a]
+        return a
+
+    pairs = list(zip(model.link_p.tolist(), model.link_q.tolist(), strict=True))
+    pairs += list(zip(model.tr_from.tolist(), model.tr_to.tolist(), strict=True))
+    for a, b in pairs:
+        ra, rb = find(a), find(b)
+        if ra != rb:
+            parent[max(ra, rb)] = min(ra, rb)
+    return np.array([find(i) for i in range(nd)], dtype=np.int64)
+
+
+def _worst_part(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
+                initial: float) -> str:
+    """The connected part of the network whose own ledger is furthest off, named by its members."""
+    m = model
+    nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
+    label = parts(m)
+    comp_part = label[:nc]
+    bar_part = np.array([label[int(m.link_p[g.in_link])] for g in m.grids], dtype=np.int64)
+    amount = states[:, :nd] * m.capacity[:nd]
+    amount[:, :nc] = np.where(m.has_volume, amount[:, :nc], 0.0)
+    y0 = m.y0[:nd] * m.capacity[:nd]
+    y0[:nc] = np.where(m.has_volume, y0[:nc], 0.0)
+    q = states[:, nd:]
+    best, best_err = "", -1.0
+    for p in np.unique(label):
+        cs = comp_part == p
+        bs = bar_part == p
+        present = amount[:, label == p].sum(axis=1)
+        infused = q[:, m.q_infused - nd:][:, :nc][:, cs].sum(axis=1)
+        supplied = q[:, m.q_supply - nd:][:, :nc][:, cs].sum(axis=1)
+        left = y0[label == p].sum() + event_dosed[:, cs].sum(axis=1) + infused + supplied
+        right = (present + q[:, :nc][:, cs].sum(axis=1) + q[:, nc:nc + nb][:, bs].sum(axis=1)
+                 + event_removed[:, cs].sum(axis=1))
+        scale = max(float(np.max(np.abs(left))), float(np.max(np.abs(right))), 1e-300)
+        err = float(np.max(np.abs(left - right))) / scale
+        if err > best_err:
+            names = [f"'{m.comp_ids[i]}'" for i in np.flatnonzero(cs)]
+            bars = [f"'{m.barrier_ids[i]}'" for i in np.flatnonzero(bs)]
+            best = "the part with compartment" + ("s " if len(names) > 1 else " ") + ", ".join(names)
+            if bars:
+                best += " and barrier" + ("s " if len(bars) > 1 else " ") + ", ".join(bars)
+            best_err = err
+    return best

@@ -1,0 +1,261 @@
+"""Every answer right or refused: regression cases of wrong results that once exited 0.
+
+Each case is an invented scenario checked against a closed form (named beside it) or against
+scipy's Radau at rtol 1e-10 on the same grid (Hairer and Wanner, Solving Ordinary Differential
+Equations II, 2nd ed., 1996, sec. IV.8). The guard itself (engine.ledger, the fallback to the
+robust integrator) is exercised at the end.
+"""
+
+from __future__ import annotations
+
+import importlib
+import math
+
+import numpy as np
+import pytest
+
+import barrierflow as bf
+from barrierflow import Barrier, Compartment, Dose, Exchange, Layer, Scenario, ScenarioError, SolverError, Transfer
+from barrierflow.engine import ScipyIntegrator, compile_scenario, solve
+from barrierflow.engine.exact import ExactIntegrator
+from barrierflow.engine.integrators import resolve_integrator
+from barrierflow.engine.ledger import MASS_BALANCE_LIMIT, NEGATIVE_LIMIT, check
+from barrierflow.engine.population import simulate_many
+from barrierflow.engine.solve import check_memory
+
+H = 3600.0  # s per h
+
+
+def radau(s: Scenario, grid=None):
+    return solve(s, ScipyIntegrator("Radau", rtol=1e-10, atol=1e-13), grid)
+
+
+def scaled_error(tr, ref) -> float:
+    return float(np.max(np.abs(tr.states - ref.states) / tr.model.scale))
+
+
+def assert_trusted(tr):
+    assert tr.status == 0
+    assert check(tr.model, tr.states, tr.event_dosed, tr.event_removed, tr.initial_amount) == []
+
+
+# ---------------------------------------------------------------- wrong results that exited 0
+def infusion_cell(extra: bool) -> Scenario:
+    """A donor infused through a slow and a fast layer into a held sink; two unlinked compartments."""
+    comps = [Compartment("donor", volume=0.002), Compartment("sink", held_concentration=0.0)]
+    if extra:
+        comps = [Compartment("c0", volume=0.002), Compartment("c1", volume=20000.0), *comps]
+    layers = (Layer(2000e-4, 3e-12 * H), Layer(200e-4, 1e-7 * H))
+    return Scenario(name="infusion beside unlinked compartments (invented)", duration=1.0, compartments=tuple(comps),
+                    barriers=(Barrier("b", "donor", "sink", 0.01, layers),),
+                    doses=(Dose("donor", "infusion", at=0.5, rate=20.0, duration=0.36),))
+
+
+def test_unlinked_compartments_beside_an_infusion_never_change():
+    tr = solve(infusion_cell(extra=True))
+    assert_trusted(tr)
+    m = tr.model
+    for cid in ("c0", "c1"):
+        assert np.all(tr.states[:, m.comp_index[cid]] == 0.0)
+    ref = radau(infusion_cell(extra=True))
+    assert scaled_error(tr, ref) < 1e-6
+    # the rest is what it is without them (the infusion: 20 mg/h x 0.36 h = 7.2 mg dosed)
+    alone = solve(infusion_cell(extra=False))
+    d, d2 = m.comp_index["donor"], alone.model.comp_index["donor"]
+    assert np.allclose(tr.states[:, d], alone.states[:, d2], rtol=1e-9, atol=1e-12 * alone.model.scale[d2])
+    assert bf.Result(infusion_cell(True), tr).mass_balance.dosed == pytest.approx(7.2, rel=1e-12)
+
+
+def oral_with_film(film_on_plasma: bool) -> Scenario:
+    """An oral dose (gut -> plasma, ka 1.5 1/h, CL 8 L/h, V 40 L, 200 mg) beside a thin, fast film."""
+    film = (Layer(15e-4, 1e-6 * H),)
+    comps = [Compartment("gut", volume=250.0), Compartment("plasma", volume=40000.0, clearance=8000.0)]
+    if film_on_plasma:
+        comps.append(Compartment("outside", held_concentration=0.0))
+        barrier = Barrier("film", "plasma", "outside", 1.0, film)
+    else:
+        comps += [Compartment("donor", volume=1.0, initial_concentration=1.0), Compartment("receptor", volume=5.0)]
+        barrier = Barrier("film", "donor", "receptor", 1.0, film)
+    return Scenario(name="oral dose beside a film (invented)", duration=24.0, output_step=0.25,
+                    compartments=tuple(comps), barriers=(barrier,),
+                    transfers=(Transfer("absorption", "gut", "plasma", rate=1.5),),
+                    doses=(Dose("gut", "bolus", amount=200.0),))
+
+
+def test_oral_dose_beside_a_thin_fast_film_matches_bateman():
+    s = oral_with_film(film_on_plasma=False)
+    tr = solve(s)
+    assert_trusted(tr)
+    # one-compartment model with first-order absorption (the Bateman function; Gibaldi and
+    # Perrier, Pharmacokinetics, 2nd ed., 1982, ch. 1, oral dose with F = 1):
+    # C = D ka / (V (ka - ke)) (e^(-ke t) - e^(-ka t)), ke = CL / V
+    t = tr.times
+    ka, ke, dose, vol = 1.5, 8000.0 / 40000.0, 200.0, 40000.0
+    expected = dose * ka / (vol * (ka - ke)) * (np.exp(-ke * t) - np.exp(-ka * t))
+    c = tr.states[:, tr.model.comp_index["plasma"]]
+    # within the default's documented accuracy (1e-4 of each state's scale; the default takes
+    # RODAS4 here, the film being too stiff for the matrix exponential over 24 h)
+    assert tr.integrator == "rodas4"
+    assert np.max(np.abs(c - expected)) < 2e-5 * expected.max()
+    gut = tr.states[:, tr.model.comp_index["gut"]] * 250.0
+    assert np.max(np.abs(gut - dose * np.exp(-ka * t))) < 2e-5 * dose
+
+
+def test_plasma_losing_drug_through_a_thin_film_matches_radau():
+    s = oral_with_film(film_on_plasma=True)
+    tr = solve(s)
+    assert_trusted(tr)
+    assert scaled_error(tr, radau(s)) < 1e-5
+
+
+def test_a_thin_layer_beside_a_transfer():
+    # donor -> receptor through one 3 um layer (D 8e-6 cm^2/s), and beside it a 0.1 1/h transfer
+    s = Scenario(name="thin layer beside a transfer (invented)", duration=24.0, output_step=0.5,
+                 compartments=(Compartment("donor", volume=1.0, initial_concentration=1.0),
+                               Compartment("receptor", volume=5.0),
+                               Compartment("a", volume=1.0, initial_concentration=1.0), Compartment("b", volume=1.0)),
+                 barriers=(Barrier("film", "donor", "receptor", 1.0, (Layer(3e-4, 8e-6 * H),)),),
+                 transfers=(Transfer("move", "a", "b", rate=0.1),))
+    r = bf.simulate(s)
+    assert r.mass_balance.relative_error < MASS_BALANCE_LIMIT
+    # the film equilibrates donor and receptor within seconds: 1 mg ends split at one potential
+    # over the donor, the receptor and the film itself (1 + 5 + 3e-4 mL; conservation, common
+    # practice); the transfer moves 1 - e^(-0.1 t) mg (first-order kinetics, Gibaldi and
+    # Perrier 1982, ch. 1)
+    assert r.amount("receptor")[-1] == pytest.approx(5.0 / (6.0 + 3e-4), rel=1e-6)
+    assert np.max(np.abs(r.amount("b") - (1.0 - np.exp(-0.1 * r.times)))) < 2e-5
+    assert scaled_error(r.trajectory, radau(s)) < 1e-5
+
+
+def extreme(check_ranges: bool, clearance=1e34 * 1000, diffusivity=1e-9 * H) -> Scenario:
+    return Scenario(name="absurd magnitudes (invented)", duration=10.0, check_ranges=check_ranges,
+                    compartments=(Compartment("a", volume=1000.0, initial_concentration=1.0, clearance=clearance),
+                                  Compartment("b", volume=1000.0, initial_concentration=1.0),
+                                  Compartment("c", volume=1.0, initial_concentration=1e-31)),
+                    barriers=(Barrier("m", "b", "c", 1.0, (Layer(10e-4, diffusivity),)),))
+
+
+def test_absurd_magnitudes_are_refused_with_the_field_the_range_and_the_override():
+    with pytest.raises(ScenarioError) as info:
+        extreme(True, diffusivity=1e-30 * H)
+    text = str(info.value)
+    assert ("compartment 'a' clearance: got 1e+37 mL/h; outside the plausible range 1e-9 mL/h to 10,000 L/h; "
+            "set check_ranges = false in [scenario] if the value is meant") in text
+    assert "barrier 'm' layer 1 diffusivity: got " in text
+    assert "outside the plausible range 1e-16 to 0.01 cm^2/s" in text
+    # the override is part of the file format and reads back
+    s = extreme(False, diffusivity=1e-30 * H)
+    assert "check_ranges = false" in s.to_toml()
+    assert bf.loads(s.to_toml()) == s
+
+
+@pytest.mark.parametrize("kw", [{"clearance": 1e34 * 1000}, {"clearance": 0.0, "diffusivity": 1e50 * H},
+                                {"clearance": 0.0, "diffusivity": 1e-30 * H}])
+def test_absurd_magnitudes_with_the_override_compute_right_or_fail_loudly(kw):
+    s = extreme(False, **kw)
+    try:
+        tr = solve(s)
+    except SolverError as err:
+        assert "could not be trusted" in str(err)
+        return
+    assert_trusted(tr)
+    m = tr.model
+    b = tr.states[:, m.comp_index["b"]]
+    c = tr.states[:, m.comp_index["c"]]
+    # b and c, which a touches by no link, keep their content between them, whatever a does,
+    # and nothing is eliminated from them (they have no clearance)
+    content = bf.Result(s, tr).content("m")
+    assert np.allclose(c * 1.0 + b * 1000.0 + content, 1000.0 + 1e-31, rtol=1e-12)
+    assert np.all(tr.states[:, m.q_elim + m.comp_index["b"]] == 0.0)
+    assert np.all(tr.states[:, m.q_elim + m.comp_index["c"]] == 0.0)
+
+
+def test_a_steady_barrier_with_a_deep_degrading_layer_stays_finite():
+    # a 2 mm layer, D 4e-12 cm^2/s, k 3 1/h: L sqrt(k/D) = 2887, cosh overflows in double
+    layer = Layer(0.2, 4e-12 * H, degradation_rate=3.0)
+    s = Scenario(name="deep degrading layer (invented)", duration=10.0,
+                 compartments=(Compartment("donor", held_concentration=1.0), Compartment("sink", volume=1.0)),
+                 barriers=(Barrier("skin", "donor", "sink", 1.0, (layer,), model="steady"),))
+    r = bf.simulate(s)
+    assert_trusted(r.trajectory)
+    # Crank, The Mathematics of Diffusion, 2nd ed., 1975, ch. 14: for one layer between a held
+    # source u0 and a sink the steady flux in is D K s coth(s L) u0 (-> D K s here) and out
+    # D K s / sinh(s L) u0 (-> 0); what enters is degraded
+    d = 4e-12 * H
+    flux_in = d * math.sqrt(3.0 / d)
+    assert np.all(r.flux("skin") == 0.0) and np.all(r.amount("sink") == 0.0)
+    assert r.degraded("skin")[-1] == pytest.approx(flux_in * 10.0, rel=1e-12)
+    assert np.isfinite(np.array(r.columns()[1][1])).all()
+
+
+def test_grids_too_large_for_memory_take_rodas_or_are_refused_before_computing():
+    layers = tuple(Layer(10e-4, 1e-7 * H, cells=10_000) for _ in range(10))
+    s = Scenario(name="fine grid (invented)", duration=1.0,
+                 compartments=(Compartment("donor", volume=1.0, initial_concentration=1.0),
+                               Compartment("receptor", volume=1.0)),
+                 barriers=(Barrier("b", "donor", "receptor", 1.0, layers),))
+    m = compile_scenario(s)
+    assert resolve_integrator(None, m, 1.0).name == "rodas4"  # the default: memory in proportion to the cells
+    with pytest.raises(ScenarioError, match=r"barrier layer cells: got 100000 cells in all; the exact integrator "
+                                            r"needs .* GB of memory .* more than the 2.15 GB allowed"):
+        check_memory(s, m, 501, ExactIntegrator("chain"))
+
+
+def test_too_many_compartments_are_refused_up_front():
+    comps = tuple(Compartment(f"c{i}", volume=1.0) for i in range(2001))
+    with pytest.raises(ScenarioError, match="compartment: got 2001 compartments; must be at most 2000"):
+        Scenario(name="long row (invented)", duration=1.0, compartments=comps,
+                 exchanges=tuple(Exchange(f"x{i}", f"c{i}", f"c{i + 1}", 1.0) for i in range(2000)))
+
+
+# ---------------------------------------------------------------- the guard
+def test_a_result_that_fails_its_check_is_recomputed(monkeypatch):
+    # a wrong exact result (its ledger broken on purpose) is never returned as a success
+    engine_solve = importlib.import_module("barrierflow.engine.solve")
+
+    s = infusion_cell(extra=True)
+    original = engine_solve._run
+
+    def broken(model, integrator, *args):
+        tr = original(model, integrator, *args)
+        if integrator.name == "exact":
+            tr.states[-1, model.comp_index["c1"]] = 1e-3  # substance from nothing
+        return tr
+
+    monkeypatch.setattr(engine_solve, "_run", broken)
+    tr = solve(s)
+    assert tr.integrator == "rodas4" and tr.stats["fallbacks"] == 1
+    assert "failed its check (the mass balance is off by" in tr.message and "compartment 'c1'" in tr.message
+    with pytest.raises(SolverError, match="could not be trusted"):
+        solve(s, fallback=False)
+    failed = solve(s, fallback=False, raise_on_failure=False)
+    assert failed.status == -1
+
+
+def test_negative_concentrations_beyond_round_off_fail_the_check():
+    tr = solve(infusion_cell(extra=False))
+    states = tr.states.copy()
+    d = tr.model.comp_index["donor"]
+    states[3, d] = -10 * NEGATIVE_LIMIT * tr.model.scale[d]
+    found = check(tr.model, states, tr.event_dosed, tr.event_removed, tr.initial_amount)
+    assert any("negative concentration" in f and "compartment 'donor'" in f for f in found)
+    states[3, d] = np.nan
+    assert check(tr.model, states, tr.event_dosed, tr.event_removed, tr.initial_amount)[0].startswith("non-finite")
+
+
+def test_population_subjects_pass_the_same_check(monkeypatch):
+    pop = importlib.import_module("barrierflow.engine.population")
+
+    subjects = [infusion_cell(extra=True)] * 3
+    calls = []
+    original = pop.verdict
+
+    def second_fails(led, low, finite):
+        calls.append(1)
+        return ["the mass balance is off (injected)"] if len(calls) == 2 else original(led, low, finite)
+
+    monkeypatch.setattr(pop, "verdict", second_fails)
+    p = simulate_many(subjects)
+    assert list(p.status) == [0, 0, 0] and len(calls) == 3
+    assert "injected" in p.messages[1] and "computed again on its own" in p.messages[1]
+    assert np.allclose(p.concentration("donor")[1], p.concentration("donor")[0], rtol=1e-6)

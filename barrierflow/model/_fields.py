@@ -83,7 +83,6 @@ PLAUSIBLE: dict[str, Plausible] = {
     "concentration": Plausible(1e-18, 1e4, "1e-18 to 1e4 mg/mL"),
     "amount": Plausible(1e-15, 1e7, "1e-15 mg to 10 kg"),
     "amount_rate": Plausible(1e-15, 1e7, "1e-15 mg/h to 10 kg/h"),
-    "time": Plausible(1e-9, 1e6, "1e-9 h to 1e6 h (114 years)"),
     "molar_mass": Plausible(1.0, 1e7, "1 to 1e7 g/mol"),
     # the one dimensionless field with a range, by its key
     "partition": Plausible(1e-6, 1e6, "1e-6 to 1e6"),

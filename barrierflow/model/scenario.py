@@ -34,9 +34,6 @@ DEFAULT_OUTPUT_POINTS = 500
 MAX_EVENTS = 1_000_000
 """Most dosing events in one run (repeated doses counted one by one)."""
 
-_SCENARIO_RANGE_SPECS = (FieldSpec("duration", "duration", "time", unit="h"),
-                         FieldSpec("output_step", "output_step", "time", unit="h"))
-
 
 @dataclass(frozen=True)
 class Scenario:
@@ -219,8 +216,7 @@ class Scenario:
         """Values outside the plausible range of their field (see :data:`~barrierflow.model.PLAUSIBLE`)."""
         from ._fields import range_problems
 
-        out = [p.within("scenario", at="scenario") for p in range_problems(self, _SCENARIO_RANGE_SPECS)]
-        out += [p.within("substance", at="substance") for p in range_problems(self.substance, self.substance.SPECS)]
+        out = [p.within("substance", at="substance") for p in range_problems(self.substance, self.substance.SPECS)]
         for c in self.compartments:
             out += [p.within(f"compartment '{c.id}'", at=f"compartment.{c.id}") for p in range_problems(c, c.SPECS)]
         for b in self.barriers:

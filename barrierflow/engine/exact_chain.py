@@ -47,6 +47,15 @@ def chain_order(model: CompiledModel) -> np.ndarray | None:
     (not symmetric), a link whose two rates differ (b != c beyond rounding), or a state with
     more than two neighbours or a loop.
     """
+    memo = model.__dict__.get("_chain_order", False)  # the model is immutable: decide once
+    if memo is not False:
+        return memo
+    order = _chain_order(model)
+    model.__dict__["_chain_order"] = order
+    return order
+
+
+def _chain_order(model: CompiledModel) -> np.ndarray | None:
     m = model
     if not m.is_linear or len(m.tr_from):
         return None

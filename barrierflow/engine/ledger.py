@@ -20,6 +20,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numba import njit
 
 from .compiled import CompiledModel
 
@@ -97,16 +98,32 @@ def ledger_rows(model: CompiledModel, comp_conc: np.ndarray, cell_amount: np.nda
     initial : float, mg
     """
     m = model
-    nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
-    vol = np.where(m.has_volume, m.capacity[:nc], 0.0)
-    supply = quad[:, m.q_supply - nd:m.q_supply - nd + nc]
-    held = m.held
-    dosed = (event_dosed.sum(axis=1) + quad[:, m.q_infused - nd:m.q_infused - nd + nc].sum(axis=1)
-             + supply[:, ~held].sum(axis=1))
+    w, vol = _weights(m)
+    terms = quad @ w  # (n_t, 4): dosed by infusions and holds, held supply, eliminated, degraded
     return Ledger(
-        initial=float(initial), dosed=dosed, held_supply=supply[:, held].sum(axis=1),
-        present=comp_conc @ vol + cell_amount, eliminated=quad[:, :nc].sum(axis=1),
-        degraded=quad[:, nc:nc + nb].sum(axis=1), removed=event_removed.sum(axis=1))
+        initial=float(initial), dosed=event_dosed.sum(axis=1) + terms[:, 0], held_supply=terms[:, 1],
+        present=comp_conc @ vol + cell_amount, eliminated=terms[:, 2], degraded=terms[:, 3],
+        removed=event_removed.sum(axis=1))
+
+
+def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
+    """Which cumulative amounts make each ledger term (a 0/1 matrix, quadratures x 4) and the
+    volumes that count as present (0 for a held compartment without one), built once per model."""
+    memo = model.__dict__.get("_ledger_weights")
+    if memo is not None:
+        return memo
+    m = model
+    nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
+    w = np.zeros((m.n_state - nd, 4))
+    held = m.held
+    w[m.q_infused - nd:m.q_infused - nd + nc, 0] = 1.0
+    w[m.q_supply - nd:m.q_supply - nd + nc, 0] = np.where(held, 0.0, 1.0)
+    w[m.q_supply - nd:m.q_supply - nd + nc, 1] = np.where(held, 1.0, 0.0)
+    w[:nc, 2] = 1.0
+    w[nc:nc + nb, 3] = 1.0
+    out = (w, np.where(m.has_volume, m.capacity[:nc], 0.0))
+    model.__dict__["_ledger_weights"] = out
+    return out
 
 
 def ledger(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
@@ -115,6 +132,34 @@ def ledger(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, ev
     nc, nd = model.n_comp, model.n_dyn
     cells = states[:, nc:nd] @ model.capacity[nc:nd]
     return ledger_rows(model, states[:, :nc], cells, states[:, nd:], event_dosed, event_removed, initial)
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True, fastmath={"reassoc", "nsz", "arcp", "contract"})
+def _scan(states, nc, nd, cap, inv_scale):
+    """One pass over a run's states: every value finite?, the lowest dynamic state relative to its
+    scale, and the amount in the cells at each row. (Sums may be reordered, which lets the loops
+    run in vector lanes; NaN and infinity keep their meaning.)"""
+    n_t, n = states.shape
+    low = 0.0
+    total = 0.0
+    cells = np.zeros(n_t)
+    capc = cap[nc:nd]
+    invs = inv_scale[:nd]
+    for r in range(n_t):
+        row = states[r]
+        rc = row[nc:nd]
+        acc = 0.0
+        for j in range(nd - nc):
+            acc += rc[j] * capc[j]
+        cells[r] = acc
+        rd = row[:nd]
+        mn = 0.0
+        for j in range(nd):
+            mn = min(mn, rd[j] * invs[j])
+        low = min(low, mn)
+        for j in range(n):
+            total += row[j] * 0.0  # NaN for a NaN or an infinity, 0 otherwise
+    return total == 0.0, low, cells
 
 
 def check(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
@@ -129,19 +174,18 @@ def check(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, eve
     m = model
     if states.size == 0:
         return []
-    finite = np.isfinite(states)
-    nd = m.n_dyn
-    rel = states[:, :nd] / m.scale[:nd]
-    low = float(np.nanmin(rel, initial=0.0)) if finite.all() else 0.0
-    found = verdict(ledger(m, states, event_dosed, event_removed, initial) if finite.all() else None, low,
-                    bool(finite.all()))
+    nc, nd = m.n_comp, m.n_dyn
+    all_finite, low, cells = _scan(np.ascontiguousarray(states), nc, nd, m.capacity, 1.0 / m.scale)
+    led = ledger_rows(m, states[:, :nc], cells, states[:, nd:], event_dosed, event_removed, initial)
+    found = verdict(led if all_finite else None, float(low), bool(all_finite))
     # name where each finding is worst
     named = []
     for f in found:
         if f.startswith("non-finite"):
-            col = int(np.flatnonzero(~finite.all(axis=0))[0])
+            col = int(np.flatnonzero(~np.isfinite(states).all(axis=0))[0])
             f += f" in {describe_state(m, col)}"
         elif f.startswith("a negative"):
+            rel = states[:, :nd] / m.scale[:nd]
             row, col = np.unravel_index(int(np.argmin(rel)), rel.shape)
             f += f" ({states[row, col]:.3g} mg/mL) in {describe_state(m, int(col))}"
         else:

@@ -9,6 +9,7 @@ The public API::
     scenario = barrierflow.load("scenarios/patch.toml")
     result = barrierflow.simulate(scenario)
     result.to_csv("patch.csv")
+    fitted = barrierflow.fit(scenario, "cells.csv", ["barrier.skin.layer.1.diffusivity"])
 
 ``simulate`` and the engine are imported on first use, so ``import barrierflow`` stays fast.
 """
@@ -48,6 +49,9 @@ _LAZY = {
     "simulate_population": "barrierflow.engine.population",
     "simulate_many": "barrierflow.engine.population",
     "cumulative_from_samples": "barrierflow.analysis.sampling",
+    "time_lag": "barrierflow.analysis.timelag",
+    "fit": "barrierflow.studies.fit",
+    "FitResult": "barrierflow.studies.fit",
 }
 
 __all__ = [
@@ -58,6 +62,7 @@ __all__ = [
     "Dose",
     "Exchange",
     "Experiment",
+    "FitResult",
     "Layer",
     "OutputUnits",
     "ParamPath",
@@ -72,6 +77,7 @@ __all__ = [
     "UnitsError",
     "__version__",
     "cumulative_from_samples",
+    "fit",
     "load",
     "load_experiment",
     "loads",
@@ -83,6 +89,7 @@ __all__ = [
     "simulate_many",
     "simulate_population",
     "steady_state",
+    "time_lag",
     "with_values",
 ]
 

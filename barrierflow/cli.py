@@ -1,4 +1,4 @@
-"""The command line: ``barrierflow check | run | steady | serve``.
+"""The command line: ``barrierflow check | run | steady | fit | serve``.
 
 One entry point, :func:`main`, installed as the ``barrierflow`` console script. Every
 sub-command is registered in one table, :data:`COMMANDS`: its name, its one-line help, the
@@ -253,6 +253,109 @@ def _cmd_steady(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+# ---------------------------------------------------------------------------- stage progress
+class _StageBars:
+    """A tqdm bar per stage of a study (``progress(stage, fraction)``), on stderr, when it is a terminal."""
+
+    WORDS = {"fit": "fitting", "profile": "profile intervals", "replicates": "replicates one by one",
+             "posterior": "posterior (MCMC)", "sensitivities": "sensitivities", "design": "choosing times"}
+
+    def __init__(self, show: bool) -> None:
+        self.show = show
+        self.stage: str | None = None
+        self.bar = None
+
+    def __call__(self, stage: str, fraction: float) -> None:
+        if not self.show:
+            return
+        from tqdm import tqdm
+
+        if stage != self.stage:
+            self.close()
+            self.stage = stage
+            self.bar = tqdm(total=1000, desc=self.WORDS.get(stage, stage), unit="‰", file=sys.stderr, leave=False)
+        self.bar.update(max(0, int(fraction * 1000) - self.bar.n))
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+# ---------------------------------------------------------------------------- fit
+WEIGHT_NAMES = ("none", "1/y", "1/y^2", "replicate")
+"""The weighting schemes of ``barrierflow fit`` (``barrierflow.studies.fit.WEIGHTS``; a test holds the two equal)."""
+
+
+def _add_fit(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml", help="the scenario whose parameters are estimated")
+    p.add_argument("data", metavar="DATA.csv",
+                   help="the experiment data file: a 'time [unit]' column, then replicate columns named like the "
+                        "traces, such as 'permeated:skin#1 [ug/cm^2]' or 'conc:receptor#2 [ug/mL]'")
+    p.add_argument("--free", metavar="PATH[=LO:HI]", action="append", required=True,
+                   help="a parameter to estimate, by its path (barrier.<id>.layer.<n>.<field>, compartment.<id>."
+                        "<field>, ...), with optional bounds in the scenario file's unit or with their own unit "
+                        "('barrier.skin.layer.1.partition=1:100'); paths joined by commas are one tied parameter; "
+                        "repeat the option for each parameter")
+    p.add_argument("-o", "--output", metavar="FITTED.toml", default=None,
+                   help="the fitted scenario, ready to simulate other regimens (default: the scenario's file name "
+                        "with '-fitted.toml', in the current folder)")
+    p.add_argument("--json", metavar="REPORT.json", default=None,
+                   help="also write the report as JSON (values in the units the scenario file used; default: not "
+                        "written)")
+    p.add_argument("--residuals", metavar="OBS.csv", default=None,
+                   help="also write the observed-vs-predicted table, one row per measured value, in the data file's "
+                        "units (default: not written)")
+    p.add_argument("--weights", default="none", choices=WEIGHT_NAMES, metavar="SCHEME",
+                   help="weighting of the residuals: none, 1/y, 1/y^2 (a constant relative error) or replicate (the "
+                        "variance of the replicates at each time) (default: none)")
+    p.add_argument("--start", default="time-lag", choices=("time-lag", "scenario"),
+                   help="starting values: from the time-lag method on the data (default) or the scenario's values")
+    p.add_argument("--no-profile", action="store_true",
+                   help="skip the profile-likelihood intervals (default: computed)")
+    p.add_argument("--no-replicates", action="store_true",
+                   help="skip the fits of each replicate alone (default: done with two replicates or more)")
+    p.add_argument("--mcmc", metavar="STEPS", type=_positive_int, default=None,
+                   help="also sample the posterior by ensemble MCMC (emcee) for this many steps, with a posterior-"
+                        "predictive band (default: not sampled; 2000 steps is a reasonable start)")
+    p.add_argument("--walkers", metavar="N", type=_positive_int, default=None,
+                   help="MCMC walkers (default: 4 per parameter, at least 8)")
+    p.add_argument("--seed", metavar="S", type=int, default=0, help="seed of the MCMC draws (default: 0)")
+    p.add_argument("--time-unit", metavar="UNIT", default=None,
+                   help="unit of the data's time column when its header gives none, such as 'h' or 'min'")
+    p.add_argument("--unit", metavar="UNIT", default=None,
+                   help="unit of the data's value columns whose headers give none, such as 'ug/cm^2'")
+    p.add_argument("--no-progress", action="store_true",
+                   help="do not show the progress bars (default: shown on a terminal)")
+
+
+def _cmd_fit(args: argparse.Namespace) -> int:
+    """Estimate the freed parameters; print the report; write the fitted scenario (and the JSON and CSV asked)."""
+    from barrierflow.io import load_experiment
+    from barrierflow.studies.fit import fit
+
+    scenario = barrierflow.load(args.scenario)
+    out = Path(args.output) if args.output else Path(Path(args.scenario).stem + "-fitted.toml")
+    _check_output_path(out, "-o/--output")
+    for option, value in (("--json", args.json), ("--residuals", args.residuals)):
+        if value:
+            _check_output_path(Path(value), option)
+    data = load_experiment(args.data, time_unit=args.time_unit, unit=args.unit,
+                           molar_mass=scenario.substance.molar_mass)
+    bars = _StageBars(not args.no_progress and sys.stderr.isatty())
+    try:
+        result = fit(scenario, data, args.free, weights=args.weights, start=args.start,
+                     profile=not args.no_profile, replicates=not args.no_replicates, mcmc=args.mcmc or 0,
+                     walkers=args.walkers, seed=args.seed, progress=bars)
+    finally:
+        bars.close()
+    text = result.to_text()
+    written = result.write(scenario=out, report=args.json, residuals=args.residuals)
+    print(text)
+    print("wrote " + ", ".join(str(p) for p in written))
+    return EXIT_OK
+
+
 # ---------------------------------------------------------------------------- serve
 def _add_serve(p: argparse.ArgumentParser) -> None:
     p.add_argument("scenario", metavar="SCENARIO.toml", nargs="?", default=None,
@@ -327,6 +430,8 @@ COMMANDS: dict[str, Command] = {
                      _add_check, lambda a: _cmd_check(a)),
     "steady": Command("steady state of every barrier: permeability, steady flux, resistance per layer, "
                       "lag time, profile", _add_steady, lambda a: _cmd_steady(a)),
+    "fit": Command("estimate parameters (diffusivity, partition, ...) from replicate permeation data, with "
+                   "intervals; write the fitted scenario", _add_fit, lambda a: _cmd_fit(a)),
     "serve": Command("start the dashboard in a web browser, with the scenario opened if one is named",
                      _add_serve, lambda a: _cmd_serve(a)),
 }

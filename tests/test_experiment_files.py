@@ -197,3 +197,14 @@ def test_sampling_correction_refuses_bad_arguments():
         cumulative_from_samples([0.1, 0.2, 0.3], 5.0, [0.5, 0.5], 1.0)
     with pytest.raises(ValueError, match="receptor_volume: got"):
         cumulative_from_samples([0.1], -5.0, 0.5, 1.0)
+
+
+def test_every_data_file_of_the_project_reads_and_says_it_is_invented():
+    from pathlib import Path
+
+    files = sorted((Path(__file__).resolve().parents[1] / "data").glob("*.csv"))
+    assert files
+    for path in files:
+        first = path.read_text(encoding="utf-8").splitlines()[0]
+        assert first.startswith("#") and "invented" in first.lower(), path.name
+        assert load_experiment(path).n_observations > 0

@@ -296,7 +296,7 @@ def _add_fit(p: argparse.ArgumentParser) -> None:
                    help="a parameter to estimate, by its path (barrier.<id>.layer.<n>.<field>, compartment.<id>."
                         "<field>, ...), with optional bounds in the scenario file's unit or with their own unit "
                         "('barrier.skin.layer.1.partition=1:100'); paths joined by commas are one tied parameter; "
-                        "repeat the option for each parameter")
+                        "repeat the option for each parameter (required; no default)")
     p.add_argument("-o", "--output", metavar="FITTED.toml", default=None,
                    help="the fitted scenario, ready to simulate other regimens (default: the scenario's file name "
                         "with '-fitted.toml', in the current folder)")
@@ -322,9 +322,11 @@ def _add_fit(p: argparse.ArgumentParser) -> None:
                    help="MCMC walkers (default: 4 per parameter, at least 8)")
     p.add_argument("--seed", metavar="S", type=int, default=0, help="seed of the MCMC draws (default: 0)")
     p.add_argument("--time-unit", metavar="UNIT", default=None,
-                   help="unit of the data's time column when its header gives none, such as 'h' or 'min'")
+                   help="unit of the data's time column when its header gives none, such as 'h' or 'min' (default: "
+                        "none; a unit in the header always wins)")
     p.add_argument("--unit", metavar="UNIT", default=None,
-                   help="unit of the data's value columns whose headers give none, such as 'ug/cm^2'")
+                   help="unit of the data's value columns whose headers give none, such as 'ug/cm^2' (default: "
+                        "none; a unit in the header always wins)")
     p.add_argument("--no-progress", action="store_true",
                    help="do not show the progress bars (default: shown on a terminal)")
 

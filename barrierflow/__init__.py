@@ -52,6 +52,8 @@ _LAZY = {
     "time_lag": "barrierflow.analysis.timelag",
     "fit": "barrierflow.studies.fit",
     "FitResult": "barrierflow.studies.fit",
+    "design": "barrierflow.studies.design",
+    "DesignResult": "barrierflow.studies.design",
 }
 
 __all__ = [
@@ -59,6 +61,7 @@ __all__ = [
     "BarrierflowError",
     "Compartment",
     "DataError",
+    "DesignResult",
     "Dose",
     "Exchange",
     "Experiment",
@@ -77,6 +80,7 @@ __all__ = [
     "UnitsError",
     "__version__",
     "cumulative_from_samples",
+    "design",
     "fit",
     "load",
     "load_experiment",

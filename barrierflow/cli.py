@@ -1,4 +1,4 @@
-"""The command line: ``barrierflow check | run | steady | fit | serve``.
+"""The command line: ``barrierflow check | run | steady | fit | design | screen | serve``.
 
 One entry point, :func:`main`, installed as the ``barrierflow`` console script. Every
 sub-command is registered in one table, :data:`COMMANDS`: its name, its one-line help, the
@@ -358,6 +358,88 @@ def _cmd_fit(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+# ---------------------------------------------------------------------------- design
+def _fraction(text: str) -> float:
+    """A relative error: '5%' or '0.05' (an argparse type)."""
+    t = text.strip()
+    try:
+        value = float(t[:-1]) / 100.0 if t.endswith("%") else float(t)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"got {text!r}; expected a relative error such as 5% or 0.05") from None
+    if not 0 < value < 10:
+        raise argparse.ArgumentTypeError(f"got {text!r}; expected a relative error above 0, such as 5% or 0.05")
+    return value
+
+
+def _add_design(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml",
+                   help="the scenario whose values are taken as the truth (a fitted scenario, or the best guess)")
+    p.add_argument("--free", metavar="PATH", action="append", required=True,
+                   help="a parameter the experiment is to estimate, by its path; paths joined by commas are one tied "
+                        "parameter; repeat the option for each parameter (required; no default)")
+    p.add_argument("--samples", metavar="N", type=_positive_int, default=8,
+                   help="number of sampling times to propose (default: 8)")
+    p.add_argument("--window", metavar="START:END", default=None,
+                   help="where the times may lie, such as '0:24h' (default: 0 to the scenario's duration)")
+    p.add_argument("--observe", metavar="QUANTITY:ID", default=None,
+                   help="what is measured, named like a trace: 'permeated:<barrier>' or 'conc:<compartment>' "
+                        "(default: the permeated amount of the scenario's one barrier)")
+    p.add_argument("--schedule", metavar="TIMES", default=None,
+                   help="your own sampling times, compared side by side, such as '0.5,1,2,4,8,24 h' (default: none)")
+    p.add_argument("--noise", metavar="CV", type=_fraction, default=0.05,
+                   help="relative error of one measurement, such as 5%% or 0.05 (default: 5%%)")
+    p.add_argument("--noise-floor", metavar="VALUE", default=None,
+                   help="absolute error floor with its unit, such as '0.05 ug/cm^2' (default: 1 %% of the largest "
+                        "predicted value in the window, as the fit's 1/y^2 weights assume)")
+    p.add_argument("--replicates", metavar="N", type=_positive_int, default=1,
+                   help="cells sampled at every time (default: 1)")
+    p.add_argument("--min-gap", metavar="TIME", default=None,
+                   help="least time between two proposed samples, such as '30 min' (default: 0, the pure D-optimal "
+                        "choice, which may gather samples in clusters)")
+    p.add_argument("--json", metavar="REPORT.json", default=None,
+                   help="also write the design as JSON (times in the scenario's output time unit; default: not "
+                        "written)")
+    p.add_argument("--no-progress", action="store_true",
+                   help="do not show the progress bars (default: shown on a terminal)")
+
+
+def _cmd_design(args: argparse.Namespace) -> int:
+    """Propose D-optimal sampling times; print the expected CVs for them and for the user's schedule."""
+    from barrierflow.model.experiment import OBSERVABLES
+    from barrierflow.studies.design import design, read_times, read_window
+    from barrierflow.units import parse_quantity
+
+    scenario = barrierflow.load(args.scenario)
+    if args.json:
+        _check_output_path(Path(args.json), "--json")
+    window = read_window(args.window) if args.window else None
+    schedule = read_times(args.schedule) if args.schedule else None
+    floor = None
+    if args.noise_floor is not None:
+        observable = args.observe or (f"permeated:{scenario.barriers[0].id}" if len(scenario.barriers) == 1 else "")
+        quantity = observable.split(":")[0]
+        if quantity not in OBSERVABLES:
+            raise ScenarioError.single("--noise-floor", repr(args.noise_floor), "name what is measured with --observe "
+                                       "first")
+        floor = parse_quantity(args.noise_floor, OBSERVABLES[quantity].kind, "--noise-floor",
+                               scenario.substance.molar_mass)
+    gap = parse_quantity(args.min_gap, "time", "--min-gap") if args.min_gap else 0.0
+    bars = _StageBars(not args.no_progress and sys.stderr.isatty())
+    try:
+        result = design(scenario, args.free, observable=args.observe, samples=args.samples, window=window,
+                        schedule=schedule, noise=args.noise, floor=floor, replicates=args.replicates, min_gap=gap,
+                        progress=bars)
+    finally:
+        bars.close()
+    print(result.to_text())
+    if args.json:
+        from barrierflow.io import atomic_write
+
+        atomic_write(args.json, result.to_json())
+        print(f"wrote {args.json}")
+    return EXIT_OK
+
+
 # ---------------------------------------------------------------------------- serve
 def _add_serve(p: argparse.ArgumentParser) -> None:
     p.add_argument("scenario", metavar="SCENARIO.toml", nargs="?", default=None,
@@ -434,6 +516,8 @@ COMMANDS: dict[str, Command] = {
                       "lag time, profile", _add_steady, lambda a: _cmd_steady(a)),
     "fit": Command("estimate parameters (diffusivity, partition, ...) from replicate permeation data, with "
                    "intervals; write the fitted scenario", _add_fit, lambda a: _cmd_fit(a)),
+    "design": Command("propose sampling times that estimate the freed parameters best (D-optimal); expected CVs "
+                      "for them and for your own schedule", _add_design, lambda a: _cmd_design(a)),
     "serve": Command("start the dashboard in a web browser, with the scenario opened if one is named",
                      _add_serve, lambda a: _cmd_serve(a)),
 }

@@ -558,11 +558,26 @@ def fit(scenario: Scenario, data: Experiment | str | os.PathLike[str], free: Seq
                                    "than parameters")
     # ---- time-lag estimates and starting values
     lags = time_lags_of(scenario, experiment)
-    starts = start_values(scenario, frees, lags if start == "time-lag" else {})
     problem = LeastSquares(scenario, frees, experiment, obs, integrator)
-    x0 = np.array([to_x(v, f.log) for v, f in zip(starts, frees, strict=True)])
-    x0 = inside(x0, problem.lo, problem.hi)
     notes: list[str] = []
+    starts = start_values(scenario, frees, {})
+    if start == "time-lag" and lags:
+        # the time-lag start, unless the scenario's values fit the data better (a few late points
+        # clustered in time give a poor line)
+        from_lag = start_values(scenario, frees, lags)
+        if from_lag != starts:
+            def misfit(values: list[float]) -> float:
+                x = inside(np.array([to_x(v, f.log) for v, f in zip(values, frees, strict=True)]), problem.lo,
+                           problem.hi)
+                r = problem.residuals(x, obs.all)
+                return float(r @ r)
+
+            if misfit(from_lag) <= misfit(starts):
+                starts = from_lag
+            else:
+                notes.append("the scenario's values fit the data better than the time-lag estimates, so the search "
+                             "started from them")
+    x0 = inside(np.array([to_x(v, f.log) for v, f in zip(starts, frees, strict=True)]), problem.lo, problem.hi)
     # ---- the fit
     if progress:
         progress("fit", 0.0)

@@ -54,6 +54,7 @@ _LAZY = {
     "FitResult": "barrierflow.studies.fit",
     "design": "barrierflow.studies.design",
     "DesignResult": "barrierflow.studies.design",
+    "screening_estimate": "barrierflow.analysis.screening",
 }
 
 __all__ = [
@@ -89,6 +90,7 @@ __all__ = [
     "metrics",
     "parameter_paths",
     "save",
+    "screening_estimate",
     "simulate",
     "simulate_many",
     "simulate_population",

@@ -440,6 +440,41 @@ def _cmd_design(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+# ---------------------------------------------------------------------------- screen
+def _add_screen(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml",
+                   help="the scenario; its [substance] needs log_kow and molar_mass")
+    p.add_argument("--layer", metavar="PATH", default=None,
+                   help="the stratum-corneum-like layer, such as 'barrier.skin.layer.1' (default: the first layer of "
+                        "the scenario's one barrier)")
+    p.add_argument("-o", "--output", metavar="SCREENED.toml", default=None,
+                   help="write the scenario with the layer's diffusivity and partition set to the screening "
+                        "estimate, flagged in its description (default: not written)")
+    p.add_argument("--json", action="store_true",
+                   help="print the estimate as JSON instead of a table (default: a table)")
+
+
+def _cmd_screen(args: argparse.Namespace) -> int:
+    """The Potts and Guy screening estimate of a layer's D and K from log Kow and molar mass, flagged as such."""
+    import json
+
+    from barrierflow.analysis.screening import screen_layer
+
+    scenario = barrierflow.load(args.scenario)
+    if args.output:
+        _check_output_path(Path(args.output), "-o/--output")
+    est, screened = screen_layer(scenario, args.layer)
+    if args.output:
+        barrierflow.save(screened, args.output)
+    if args.json:
+        print(json.dumps(est.as_dict(), indent=2, allow_nan=False))
+    else:
+        print(est.to_text())
+        if args.output:
+            print(f"wrote {args.output}")
+    return EXIT_OK
+
+
 # ---------------------------------------------------------------------------- serve
 def _add_serve(p: argparse.ArgumentParser) -> None:
     p.add_argument("scenario", metavar="SCENARIO.toml", nargs="?", default=None,
@@ -518,6 +553,8 @@ COMMANDS: dict[str, Command] = {
                    "intervals; write the fitted scenario", _add_fit, lambda a: _cmd_fit(a)),
     "design": Command("propose sampling times that estimate the freed parameters best (D-optimal); expected CVs "
                       "for them and for your own schedule", _add_design, lambda a: _cmd_design(a)),
+    "screen": Command("screening estimate of a skin-like layer's diffusivity and partition from log Kow and molar "
+                      "mass (Potts and Guy 1992), flagged as such", _add_screen, lambda a: _cmd_screen(a)),
     "serve": Command("start the dashboard in a web browser, with the scenario opened if one is named",
                      _add_serve, lambda a: _cmd_serve(a)),
 }

@@ -515,7 +515,7 @@ def _cmd_serve(args: argparse.Namespace) -> int:
         print(f"barrierflow serve: the dashboard needs its extras ({err}); install them with "
               "pip install 'barrierflow[dashboard]'", file=sys.stderr)
         return EXIT_INTERNAL
-    app = dashboard.create_app(scenario, max_upload=int(args.max_upload * 1024 * 1024))
+    app = dashboard.create_app(scenario, max_upload=int(args.max_upload * 1024 * 1024), warm=True)
     opened = f" with {args.scenario}" if args.scenario else ""
     shown = f"[{args.host}]" if ":" in args.host else args.host
     print(f"barrierflow dashboard{opened}: open http://{shown}:{args.port}/ in a browser (Ctrl+C stops it)")

@@ -23,12 +23,15 @@ from barrierflow.model import Scenario
 
 from . import draft as D
 from . import ids
+from . import view as V
 from .jobs import JobManager, Workers
-from .panels import doses, network, properties, results, run
+from .panels import doses, network, properties, results, run, session
 from .panels import scenario as scenario_bar
 from .panels.common import card
-from .runs import RunArchive
+from .runs import RunArchive, warm_up
 from .server import DEFAULT_MAX_UPLOAD, install_guards
+from .sessions import SessionStore, current_id, default_directory
+from .sessions import install as install_sessions
 
 __all__ = ["CAUTION", "Services", "create_app", "example_scenarios"]
 
@@ -49,6 +52,8 @@ class Services:
         Runs Dash's background callbacks (in threads of the server).
     workers : Workers
         The worker processes that simulate.
+    sessions : SessionStore
+        Each browser's work, kept across reloads.
     examples : dict of str to str
         Example file path -> label.
     poll_ms : int, ms
@@ -60,6 +65,7 @@ class Services:
     archive: RunArchive
     manager: Any
     workers: Workers
+    sessions: SessionStore
     examples: dict[str, str]
     poll_ms: int = 100
     max_upload: int = DEFAULT_MAX_UPLOAD
@@ -95,13 +101,24 @@ def _initial_draft(opened: Scenario | str | os.PathLike[str] | None) -> dict[str
     return D.draft_from_scenario(barrierflow.load(path), path.name)
 
 
-def page(initial: dict[str, Any], examples: dict[str, str], *, token: str = "",
+def fresh_state(initial: dict[str, Any]) -> dict[str, Any]:
+    """The state of a session that starts with the draft ``initial`` (no runs, default view)."""
+    return {"draft": initial, "valid": None, "runs": [], "view": {}, "revision": 0}
+
+
+def page(state: dict[str, Any], examples: dict[str, str], *, token: str = "",
          max_upload: int = DEFAULT_MAX_UPLOAD) -> html.Div:
-    """The whole page for an initial draft.
+    """The whole page for a session's state (see :mod:`dashboard.sessions`; :func:`fresh_state`
+    for a new one): its draft, last valid version, runs and view settings.
 
     ``token`` names this page load: it is part of every background run's job key, so two pages
     that run the same scenario at the same moment never collect each other's result.
     """
+    initial = state["draft"]
+    view = state.get("view") or {}
+    selected = V.get(view, ids.SELECT)
+    if not (selected and D.find(initial, selected[2:]) is not None):
+        selected = D.first_selection(initial)
     header = html.Header([
         html.Div([
             html.H1("barrierflow"),
@@ -113,27 +130,29 @@ def page(initial: dict[str, Any], examples: dict[str, str], *, token: str = "",
     editor = html.Div([
         card("Network", network.layout(initial), id="card-network", class_name="network-card",
              extra=html.Span("drag compartments to move them; click to select", className="fine-print")),
-        card("Properties", properties.layout(D.first_selection(initial), network.element_options(initial)),
+        card("Properties", properties.layout(selected, network.element_options(initial)),
              id="card-properties", class_name="properties-card"),
     ], className="editor-row")
     return html.Div([
         header,
         html.Main([
-            card("Scenario", scenario_bar.layout(examples, initial), id="card-scenario"),
+            card("Scenario", scenario_bar.layout(examples, initial), session.layout(state), id="card-scenario"),
             editor,
             card("Dosing", doses.layout(initial), id="card-dosing"),
-            card("Run", run.layout(initial), id="card-run"),
-            card("Results", results.layout(), id="card-results"),
+            card("Run", run.layout(initial, view), id="card-run"),
+            card("Results", results.layout(view), id="card-results"),
         ]),
         html.Footer([html.Span(CAUTION), html.Span(f" barrierflow {barrierflow.__version__}")],
                     className="page-footer"),
         dcc.Store(id=ids.DRAFT, data=initial),
         dcc.Store(id=ids.CHECK),
-        dcc.Store(id=ids.VALID),
-        dcc.Store(id=ids.RUNS, data=[]),
+        dcc.Store(id=ids.VALID, data=state.get("valid")),
+        dcc.Store(id=ids.RUNS, data=list(state.get("runs") or [])),
         dcc.Store(id=ids.LOADED, data={"gen": initial["gen"]}),
         dcc.Store(id=ids.PAGE, data={"token": token or secrets.token_hex(16), "max_upload": int(max_upload)}),
         dcc.Store(id=ids.UPLOADED),
+        dcc.Store(id=ids.EDITS, data={"n": 0}),
+        dcc.Store(id=ids.SAVED, data={"n": 0, "revision": int(state.get("revision", 0)), "conflict": False}),
     ], className="page")
 
 
@@ -141,7 +160,8 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
                examples_dir: str | os.PathLike[str] | None = None,
                cache_dir: str | os.PathLike[str] | None = None,
                poll_ms: int = 100, max_upload: int = DEFAULT_MAX_UPLOAD, workers_count: int = 2,
-               allowed_hosts: frozenset[str] | None = None) -> dash.Dash:
+               allowed_hosts: frozenset[str] | None = None,
+               session_dir: str | os.PathLike[str] | None = None, warm: bool = False) -> dash.Dash:
     """Build the dashboard.
 
     Parameters
@@ -161,6 +181,13 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
     allowed_hosts : frozenset of str, optional
         ``Host`` header values accepted (see :func:`dashboard.server.allowed_hosts`); default:
         no check until :func:`dashboard.server.serve` sets them for the address it binds.
+    session_dir : path, optional
+        Where each browser's work is kept (see :mod:`dashboard.sessions`); default:
+        ``cache_dir/sessions`` when ``cache_dir`` is given, else
+        :func:`dashboard.sessions.default_directory`.
+    warm : bool
+        Start the worker processes now and load the compiled engine in them (in the background),
+        so that the first run does not wait for it.
 
     Returns
     -------
@@ -176,6 +203,8 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
     archive = RunArchive(cache_dir)
     manager = JobManager()
     workers = Workers(processes=workers_count)
+    if warm:
+        workers.warm(warm_up)
     examples = example_scenarios(examples_dir)
     app = dash.Dash(
         __name__,
@@ -187,15 +216,21 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
         suppress_callback_exceptions=False,
     )
     install_guards(app.server, max_upload=max_upload, hosts=allowed_hosts)
+    install_sessions(app.server)
+    if session_dir is None:
+        session_dir = Path(cache_dir) / "sessions" if cache_dir else default_directory()
+    sessions = SessionStore(session_dir)
 
     def layout() -> html.Div:
-        # a function, so that every page load gets its own token
-        return page(initial, examples, token=secrets.token_hex(16), max_upload=max_upload)
+        # a function: every page load gets its own token, and the page of the browser's session
+        state = sessions.load(current_id()) or fresh_state(initial)
+        return page(state, examples, token=secrets.token_hex(16), max_upload=max_upload)
 
     app.layout = layout
-    services = Services(archive=archive, manager=manager, workers=workers, examples=examples, poll_ms=poll_ms,
-                        max_upload=max_upload)
-    for panel in (scenario_bar, network, properties, doses, run, results):
+    services = Services(archive=archive, manager=manager, workers=workers, sessions=sessions, examples=examples,
+                        poll_ms=poll_ms, max_upload=max_upload)
+    app.server.extensions["barrierflow"] = services  # Flask's registry of extensions (tests reach it there)
+    for panel in (scenario_bar, network, properties, doses, run, results, session):
         panel.register(app, services)
     return app
 

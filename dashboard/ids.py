@@ -15,6 +15,8 @@ LOADED = "store-loaded"            # changes when a new scenario is opened (pane
 PENDING = "store-pending"          # the 'from' compartment of a link being drawn by clicking
 PAGE = "store-page"                # this page load: a random token (run job keys) and the upload limit
 UPLOADED = "store-uploaded"        # a file the page accepted for upload (contents, name), see the scenario bar
+EDITS = "store-edits"              # how many changes the page has made (counted in the page)
+SAVED = "store-saved"              # what the server kept: {"n": edits saved, "revision", "conflict", "saved"}
 
 # ---------------------------------------------------------------- header and scenario bar
 CAUTION = "caution"
@@ -27,6 +29,9 @@ SAVE_DOWNLOAD = "scenario-save-download"
 SCENARIO_NAME = "scenario-name"
 FILE_NAME = "scenario-file"
 OPEN_MESSAGE = "scenario-open-message"
+SESSION_NOTE = "session-note"      # "kept in this browser's session, saved at ..."
+SESSION_CONFLICT = "session-conflict"  # shown when another tab saved this browser's work since
+KEEP_THIS = "session-keep-this"    # keep this page's version over the other tab's
 
 # ---------------------------------------------------------------- network editor
 CANVAS = "network-canvas"
@@ -97,6 +102,7 @@ PROFILE_PLAY = "profile-play"
 PROFILE_TICK = "profile-tick"
 PROFILE_STEADY = "profile-steady"
 BALANCE_FIGURE = "fig-balance"
+BALANCE_UNIT = "balance-unit"
 METRICS_GRID = "metrics-grid"
 METRICS_FILTER = "metrics-filter"
 COMPARE_GRID = "compare-grid"

@@ -200,16 +200,23 @@ class Workers:
                 self._stop(worker)
                 self._give_back(None)
 
-    def warm(self, func: Callable[..., Any], *args: Any) -> None:
+    def warm(self, func: Callable[..., Any], *args: Any, wait: bool = False) -> None:
         """Start every worker and call ``func(*args)`` in it, in the background (for example, to
-        load the compiled engine before the first run)."""
+        load the compiled engine before the first run); with ``wait``, return when all are done."""
+        barrier = threading.Barrier(self.size)
+
         def one() -> None:
             try:
                 self.call(func, *args)
+                barrier.wait(timeout=120)  # hold the worker, so that the next thread starts another
             except Exception:  # noqa: BLE001 - warming is a courtesy; a real run reports its own failure
                 pass
-        for _ in range(self.size):
-            threading.Thread(target=one, name="barrierflow-warm", daemon=True).start()
+        threads = [threading.Thread(target=one, name="barrierflow-warm", daemon=True) for _ in range(self.size)]
+        for t in threads:
+            t.start()
+        if wait:
+            for t in threads:
+                t.join()
 
     def close(self) -> None:
         """Stop the idle workers."""

@@ -86,6 +86,8 @@ class RunData:
         The scenario's TOML text.
     steady : dict of str to BarrierSteady
         Steady state of each barrier between its compartments' starting conditions.
+    metrics_table : barrierflow.analysis.metrics.Metrics or None
+        The metrics in internal units; :func:`metric_rows_in` gives its rows in any units.
     """
 
     name: str
@@ -112,6 +114,7 @@ class RunData:
     dose_times: tuple[tuple[float, str, str], ...] = field(default=())
     toml: str = ""
     steady: dict[str, Any] = field(default_factory=dict)
+    metrics_table: Any = None
 
     def renamed(self, name: str) -> RunData:
         """The same run under another name."""
@@ -178,26 +181,33 @@ def metric_label(name: str) -> str:
     return METRIC_LABELS.get(name, name.replace("_", " "))
 
 
-def metric_rows(result: Any) -> tuple[list[dict[str, Any]], str]:
-    """The metrics of a result as table rows, in the scenario's output units, and their CSV.
+def metric_rows(result: Any) -> tuple[list[dict[str, Any]], str, Any]:
+    """The metrics of a result as table rows, in the scenario's output units, their CSV and the table.
 
     Each row is ``{"part", "id", "name", "metric", "unit", "value"}``; ``name`` is the analysis
     package's name of the metric, ``metric`` the label shown. The CSV is the text that
-    ``barrierflow run --metrics`` writes. Both are empty when the metrics cannot be computed.
+    ``barrierflow run --metrics`` writes. Rows and CSV are empty (and the table None) when the
+    metrics cannot be computed.
     """
     try:
         table = result.metrics()
     except (ImportError, ValueError, ArithmeticError):
-        return [], ""
+        return [], "", None
+    return metric_rows_in(table), table.to_csv(), table
+
+
+def metric_rows_in(table: Any, units: Any = None) -> list[dict[str, Any]]:
+    """Rows of a metrics table (see :func:`metric_rows`) in ``units`` (an
+    :class:`barrierflow.model.OutputUnits`; default: the scenario's output units)."""
     rows = []
-    for kind, ident, name, value, unit in table.to_rows():
+    for kind, ident, name, value, unit in table.to_rows(units):
         if isinstance(value, bool):
             value = "yes" if value else "no"
         elif isinstance(value, (int, float)) and not math.isfinite(float(value)):
             value = None
         rows.append({"part": kind, "id": ident, "name": name, "metric": metric_label(name), "unit": unit,
                      "value": value})
-    return rows, table.to_csv()
+    return rows
 
 
 def pack(result: Any, name: str, toml_text: str = "") -> RunData:
@@ -226,14 +236,7 @@ def pack(result: Any, name: str, toml_text: str = "") -> RunData:
             profile_layer=np.asarray(first.layer)[cells],
             profile_conc=conc)
     mb = result.mass_balance
-    metrics, metrics_csv = metric_rows(result)
-    steady = {}
-    try:
-        from barrierflow.analysis.steady import steady_state
-
-        steady = {b.barrier_id: b for b in steady_state(s).barriers}
-    except (ValueError, ArithmeticError):  # the steady state is an extra; the run stands without it
-        steady = {}
+    metrics, metrics_csv, table = metric_rows(result)
     return RunData(
         name=name, scenario_name=s.name, times=times, compartments=comps,
         held={c.id: c.held for c in s.compartments},
@@ -244,7 +247,48 @@ def pack(result: Any, name: str, toml_text: str = "") -> RunData:
         initial_amount=float(mb.initial), mass_balance=mb.as_dict(), metrics=metrics, metrics_csv=metrics_csv,
         warnings=tuple(result.warnings()),
         status=int(result.status), message=str(result.message), stats=dict(result.stats),
-        molar_mass=s.substance.molar_mass, dose_times=tuple(result.dose_times), toml=toml_text, steady=steady)
+        molar_mass=s.substance.molar_mass, dose_times=tuple(result.dose_times), toml=toml_text,
+        steady=steady_of(s), metrics_table=table)
+
+
+def steady_of(scenario: Any) -> dict[str, Any]:
+    """The steady state of each barrier of a scenario by id (empty when it cannot be computed)."""
+    try:
+        from barrierflow.analysis.steady import steady_state
+
+        return {b.barrier_id: b for b in steady_state(scenario).barriers}
+    except (ValueError, ArithmeticError):  # the steady state is an extra; the run stands without it
+        return {}
+
+
+WARM_UP = """
+[scenario]
+name = "warm-up (invented)"
+duration = "2 h"
+output_step = "30 min"
+[[compartment]]
+id = "donor"
+volume = "1 mL"
+initial_concentration = "1 mg/mL"
+[[compartment]]
+id = "receiver"
+volume = "5 mL"
+clearance = "1 mL/h"
+[[barrier]]
+id = "film"
+from = "donor"
+to = "receiver"
+area = "1 cm^2"
+  [[barrier.layer]]
+  thickness = "10 um"
+  diffusivity = "1e-7 cm^2/s"
+"""
+"""A small invented scenario whose run loads the compiled engine (:func:`warm_up`)."""
+
+
+def warm_up() -> None:
+    """Run :data:`WARM_UP` once, so that the compiled engine is loaded before the first real run."""
+    execute(WARM_UP, "warm-up")
 
 
 def execute(toml_text: str, name: str, file: str | None = None,
@@ -303,12 +347,18 @@ class RunArchive:
             self.cache.set(key, found)
         return found
 
-    def fetch(self, record: Mapping[str, Any]) -> RunData | None:
-        """The run of a run record, simulated again from its TOML if the archive dropped it.
+    def fetch(self, record: Mapping[str, Any],
+              kept: Callable[[Mapping[str, Any]], RunData | None] | None = None) -> RunData | None:
+        """The run of a run record: from the archive, else from ``kept(record)`` (the browser's
+        session), else simulated again from its TOML.
 
         Returns None when the run cannot be made (it failed when it was made, too).
         """
         data = self.get(record["key"])
+        if data is None and kept is not None:
+            data = kept(record)
+            if data is not None:
+                self.put(record["key"], data)
         if data is None:
             try:
                 data = execute(record["toml"], record["name"], record.get("file"))

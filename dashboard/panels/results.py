@@ -14,21 +14,30 @@ from dash.exceptions import PreventUpdate
 
 from .. import figures as F
 from .. import ids
+from .. import view as V
 from ..runs import RunArchive, RunData
+from ..sessions import current_id
 from .common import GRAPH_CONFIG, graph, labelled
 
-BALANCE_UNIT = "balance-unit"
 RESULT_GRAPHS = (ids.CONC_FIGURE, ids.FLUX_FIGURE, ids.PERMEATED_FIGURE, ids.PROFILE_FIGURE, ids.BALANCE_FIGURE)
 
 
-def fetch(picked: Sequence[str] | None, runs: Sequence[Mapping[str, Any]] | None,
-          archive: RunArchive) -> list[RunData]:
-    """The packed runs that are ticked, in the order of the session (failed runs left out)."""
+def fetch_runs(picked: Sequence[str] | None, runs: Sequence[Mapping[str, Any]] | None,
+          archive: RunArchive, sessions: Any = None) -> list[RunData]:
+    """The packed runs that are ticked, in the order of the session (failed runs left out).
+
+    A run the archive no longer holds is taken from the browser's session (``sessions``, a
+    :class:`dashboard.sessions.SessionStore`) when it is kept there, else simulated again.
+    """
     chosen = set(picked or [])
+    kept = None
+    if sessions is not None:
+        sid = current_id()
+        kept = (lambda rec: sessions.get_run(sid, rec["key"], rec["name"])) if sid else None
     out = []
     for r in runs or []:
         if r["id"] in chosen and not r.get("error"):
-            data = archive.fetch(r)
+            data = archive.fetch(r, kept)
             if data is not None:
                 out.append(data)
     return out
@@ -126,30 +135,35 @@ def concentration_units(molar: bool) -> list[str]:
 
 
 def _radio(id: str, options: Sequence[tuple[str, str]], value: str) -> dcc.RadioItems:
+    # ``value`` is the saved view setting (see dashboard.view)
     return dcc.RadioItems(id=id, options=[{"label": f" {lab}", "value": v} for v, lab in options], value=value,
                           inline=True, className="radio")
 
 
-def layout() -> html.Div:
-    """The results card's body."""
+def layout(view: dict[str, Any] | None = None) -> html.Div:
+    """The results card's body, its controls set as in ``view`` (see :mod:`dashboard.view`)."""
     conc_tab = html.Div([
         html.Div([
             labelled("Show", _radio(ids.CONC_QUANTITY, [("concentration", "concentration"), ("amount", "amount")],
-                                    "concentration")),
-            labelled("Unit", dcc.Dropdown(id=ids.CONC_UNIT, options=list(F.CONCENTRATION_UNITS), value="mg/L",
+                                    V.get(view, ids.CONC_QUANTITY))),
+            labelled("Unit", dcc.Dropdown(id=ids.CONC_UNIT, options=list(F.CONCENTRATION_UNITS),
+                                          value=V.get(view, ids.CONC_UNIT),
                                           clearable=False, className="unit-pick")),
             labelled("Axis", _radio(ids.CONC_SCALE, [("auto", "auto"), ("linear", "linear"), ("log", "logarithmic")],
-                                    "auto")),
-            labelled("Compartments", dcc.Dropdown(id=ids.COMPARTMENT_PICK, options=[], value=[], multi=True,
+                                    V.get(view, ids.CONC_SCALE))),
+            labelled("Compartments", dcc.Dropdown(id=ids.COMPARTMENT_PICK, options=[], multi=True,
+                                                  value=V.get(view, ids.COMPARTMENT_PICK),
                                                   className="barrier-pick", placeholder="all compartments")),
         ], className="controls"),
         graph(ids.CONC_FIGURE, F.empty_figure("Run the scenario to see the curves.")),
     ])
     barrier_tab = html.Div([
         html.Div([
-            labelled("Barriers", dcc.Dropdown(id=ids.BARRIER_PICK, options=[], value=[], multi=True,
+            labelled("Barriers", dcc.Dropdown(id=ids.BARRIER_PICK, options=[], multi=True,
+                                              value=V.get(view, ids.BARRIER_PICK),
                                               className="barrier-pick", placeholder="all barriers")),
-            labelled("Amount unit (per cm²)", dcc.Dropdown(id=ids.FLUX_UNIT, options=list(F.AMOUNT_UNITS), value="mg",
+            labelled("Amount unit (per cm²)", dcc.Dropdown(id=ids.FLUX_UNIT, options=list(F.AMOUNT_UNITS),
+                                                           value=V.get(view, ids.FLUX_UNIT),
                                                            clearable=False, className="unit-pick")),
         ], className="controls"),
         html.Div([graph(ids.FLUX_FIGURE, F.empty_figure("Run the scenario to see the flux.")),
@@ -159,8 +173,10 @@ def layout() -> html.Div:
     profile_tab = html.Div([
         html.Div([
             labelled("Barrier", dcc.Dropdown(id=ids.PROFILE_BARRIER, options=[], clearable=False,
+                                             value=V.get(view, ids.PROFILE_BARRIER),
                                              className="barrier-one")),
-            labelled("Steady profile", dcc.Checklist(id=ids.PROFILE_STEADY, value=["on"], className="radio",
+            labelled("Steady profile", dcc.Checklist(id=ids.PROFILE_STEADY, value=V.get(view, ids.PROFILE_STEADY),
+                                                     className="radio",
                                                      options=[{"label": " draw it too (dotted)", "value": "on"}])),
             html.Div([html.Button("▶ Play", id=ids.PROFILE_PLAY, className="btn"),
                       dcc.Interval(id=ids.PROFILE_TICK, interval=180, disabled=True)], className="play-box"),
@@ -175,7 +191,8 @@ def layout() -> html.Div:
     ])
     balance_tab = html.Div([
         html.Div([
-            labelled("Amount unit", dcc.Dropdown(id=BALANCE_UNIT, options=list(F.AMOUNT_UNITS), value="mg",
+            labelled("Amount unit", dcc.Dropdown(id=ids.BALANCE_UNIT, options=list(F.AMOUNT_UNITS),
+                                                 value=V.get(view, ids.BALANCE_UNIT),
                                                  clearable=False, className="unit-pick")),
             html.Div("Each ticked run in its own panel (up to four), on one amount axis.", className="fine-print"),
         ], className="controls"),
@@ -196,9 +213,10 @@ def layout() -> html.Div:
         html.Div(id=ids.WARNINGS, className="warnings", role="status"),
     ])
     time_row = html.Div([
-        labelled("Time axis in", _radio(ids.TIME_UNIT, [("h", "hours"), ("min", "minutes"), ("d", "days")], "h")),
+        labelled("Time axis in", _radio(ids.TIME_UNIT, [("h", "hours"), ("min", "minutes"), ("d", "days")],
+                                       V.get(view, ids.TIME_UNIT))),
     ], className="controls")
-    tabs = dcc.Tabs(id=ids.RESULT_TABS, value="conc", children=[
+    tabs = dcc.Tabs(id=ids.RESULT_TABS, value=V.get(view, ids.RESULT_TABS), children=[
         dcc.Tab(label="Concentrations", value="conc", children=conc_tab),
         dcc.Tab(label="Barriers: flux and permeated", value="barrier", children=barrier_tab),
         dcc.Tab(label="Profile through a barrier", value="profile", children=profile_tab),
@@ -213,7 +231,7 @@ def layout() -> html.Div:
         html.Button("Metrics CSV", id=ids.EXPORT_METRICS, className="btn"),
         html.Button("Comparison CSV (ticked runs)", id=ids.EXPORT_COMPARISON, className="btn"),
         html.Span("Plot images:", className="toolbar-label"),
-        _radio(ids.IMAGE_FORMAT, [("png", "PNG"), ("svg", "SVG")], "png"),
+        _radio(ids.IMAGE_FORMAT, [("png", "PNG"), ("svg", "SVG")], V.get(view, ids.IMAGE_FORMAT)),
         html.Span("(camera button at the top right of each plot)", className="fine-print"),
         dcc.Download(id=ids.EXPORT_DOWNLOAD),
     ], className="toolbar export-bar")
@@ -223,6 +241,9 @@ def layout() -> html.Div:
 def register(app: Any, services: Any) -> None:
     """Attach the results panel's callbacks."""
     archive = services.archive
+
+    def fetch(picked, runs):
+        return fetch_runs(picked, runs, archive, services.sessions)
 
     # Each plot's callback also sets its own pickers (unit, compartments, barrier), so that a
     # new run reaches every plot in one step after the run list (no chain of callbacks).
@@ -235,7 +256,7 @@ def register(app: Any, services: Any) -> None:
     )
     def choices(picked, runs):
         bids: list[str] = []
-        for r in fetch(picked, runs, archive):
+        for r in fetch(picked, runs):
             bids += [b for b in r.barriers if b not in bids]
         values = [r["id"] for r in runs or [] if r["id"] in set(picked or [])]
         all_opts = [{"label": r["name"], "value": r["id"]} for r in runs or [] if not r.get("error")]
@@ -256,7 +277,7 @@ def register(app: Any, services: Any) -> None:
         State(ids.RUNS, "data"),
     )
     def concentrations(picked, quantity, unit, scale, time_unit, cids, runs):
-        data = fetch(picked, runs, archive)
+        data = fetch(picked, runs)
         molar = bool(data) and all(r.molar_mass for r in data)
         units = list(F.AMOUNT_UNITS) if quantity == "amount" else concentration_units(molar)
         unit = unit if unit in units else units[0]
@@ -279,7 +300,7 @@ def register(app: Any, services: Any) -> None:
         State(ids.RUNS, "data"),
     )
     def barriers(picked, bids, unit, time_unit, runs):
-        data = fetch(picked, runs, archive)
+        data = fetch(picked, runs)
         chosen = bids or None
         return (F.flux_figure(data, barriers=chosen, amount_unit=unit, time_unit=time_unit),
                 F.permeated_figure(data, barriers=chosen, amount_unit=unit, time_unit=time_unit))
@@ -298,7 +319,7 @@ def register(app: Any, services: Any) -> None:
         State(ids.PROFILE_SLIDER, "max"),
     )
     def slider(barrier, picked, time_unit, runs, value, old_max):
-        runs_data = fetch(picked, runs, archive)
+        runs_data = fetch(picked, runs)
         bids: list[str] = []
         for r in runs_data:
             bids += [b for b in r.barriers if b not in bids]
@@ -328,7 +349,7 @@ def register(app: Any, services: Any) -> None:
         State(ids.RUNS, "data"),
     )
     def profile(index, barrier, steady_on, time_unit, picked, runs):
-        data = [r for r in fetch(picked, runs, archive) if barrier in r.barriers]
+        data = [r for r in fetch(picked, runs) if barrier in r.barriers]
         if not data:
             return F.empty_figure("Run a scenario with a barrier to see its profile."), ""
         from barrierflow.units import unit_factor
@@ -370,12 +391,12 @@ def register(app: Any, services: Any) -> None:
     @app.callback(
         Output(ids.BALANCE_FIGURE, "figure"),
         Input(ids.RUN_PICK, "value"),
-        Input(BALANCE_UNIT, "value"),
+        Input(ids.BALANCE_UNIT, "value"),
         Input(ids.TIME_UNIT, "value"),
         State(ids.RUNS, "data"),
     )
     def balance(picked, unit, time_unit, runs):
-        return F.balance_figure(fetch(picked, runs, archive), amount_unit=unit, time_unit=time_unit)
+        return F.balance_figure(fetch(picked, runs), amount_unit=unit, time_unit=time_unit)
 
     @app.callback(
         Output(ids.METRICS_GRID, "rowData"),
@@ -386,7 +407,7 @@ def register(app: Any, services: Any) -> None:
         State(ids.RUNS, "data"),
     )
     def metrics(picked, reference, runs):
-        data = fetch(picked, runs, archive)
+        data = fetch(picked, runs)
         order = [r["id"] for r in runs or [] if r["id"] in set(picked or []) and not r.get("error")]
         ref = order.index(reference) if reference in order else 0
         rows, names = compare_rows(data, ref)
@@ -423,7 +444,7 @@ def register(app: Any, services: Any) -> None:
     def export(_csv, _side, _met, _cmp, run_id, picked, reference, runs):
         trigger = ctx.triggered_id
         if trigger == ids.EXPORT_COMPARISON:
-            data = fetch(picked, runs, archive)
+            data = fetch(picked, runs)
             if not data:
                 raise PreventUpdate
             order = [r["id"] for r in runs or [] if r["id"] in set(picked or []) and not r.get("error")]
@@ -432,9 +453,10 @@ def register(app: Any, services: Any) -> None:
         record = next((r for r in runs or [] if r["id"] == run_id), None)
         if record is None:
             raise PreventUpdate
-        data = archive.fetch(record)
-        if data is None:
+        data = fetch_runs([record["id"]], [record], archive, services.sessions)
+        if not data:
             raise PreventUpdate
+        data = data[0]
         stem = (record.get("file") or "barrierflow-run").removesuffix(".toml")
         if trigger == ids.EXPORT_METRICS:
             if not data.metrics_csv:
@@ -448,7 +470,6 @@ def register(app: Any, services: Any) -> None:
     @app.callback(
         [Output(g, "config") for g in RESULT_GRAPHS],
         Input(ids.IMAGE_FORMAT, "value"),
-        prevent_initial_call=True,
     )
     def image_format(fmt):
         config = dict(GRAPH_CONFIG, toImageButtonOptions={"format": fmt, "scale": 2 if fmt == "png" else 1})

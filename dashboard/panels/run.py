@@ -12,13 +12,14 @@ from barrierflow.errors import BarrierflowError, SolverError
 
 from .. import draft as D
 from .. import ids
+from .. import view as V
 from ..jobs import WorkerFailed
 from ..runs import RunArchive, execute, new_record, run_key
 from .common import message_list
 
 
-def layout(initial: dict[str, Any]) -> html.Div:
-    """The run card's body."""
+def layout(initial: dict[str, Any], view: dict[str, Any] | None = None) -> html.Div:
+    """The run card's body (ticked runs and reference as in ``view``, see :mod:`dashboard.view`)."""
     head = initial["scenario"]
     return html.Div([
         html.Div([
@@ -58,12 +59,13 @@ def layout(initial: dict[str, Any]) -> html.Div:
             html.Div([
                 html.Label("Runs of this session: tick two or more to compare them in every plot",
                            className="field-label"),
-                dcc.Checklist(id=ids.RUN_PICK, options=[], value=[], className="run-pick"),
+                dcc.Checklist(id=ids.RUN_PICK, options=[], value=V.get(view, ids.RUN_PICK), className="run-pick"),
                 html.Div("No runs yet.", id="runs-empty", className="empty-note"),
             ], className="runs-list"),
             html.Div([
                 html.Label("Reference run for ratios", htmlFor=ids.REFERENCE, className="field-label"),
-                dcc.Dropdown(id=ids.REFERENCE, options=[], clearable=False, className="reference-pick"),
+                dcc.Dropdown(id=ids.REFERENCE, options=[], value=V.get(view, ids.REFERENCE), clearable=False,
+                             className="reference-pick"),
                 html.Div([
                     html.Button("Edit this run's scenario", id=ids.OPEN_RUN, className="btn small",
                                 title="open the scenario of the reference run in the editor"),
@@ -270,8 +272,9 @@ def register(app: Any, services: Any) -> None:
         Output(ids.REFERENCE, "value"),
         Input(ids.RUNS, "data"),
         Input(ids.RUN_PICK, "value"),
+        State(ids.REFERENCE, "value"),
     )
-    def list_runs(runs, picked):
+    def list_runs(runs, picked, current):
         # one step from a new run to the ticked runs and the reference, so the plots follow at once
         runs = runs or []
         opts = []
@@ -289,4 +292,7 @@ def register(app: Any, services: Any) -> None:
         chosen = set(value)
         ref_opts = [{"label": r["name"], "value": r["id"]} for r in runs if r["id"] in chosen]
         reference = ref_opts[0]["value"] if ref_opts else None
+        if ctx.triggered_id is None and current in chosen:
+            reference = current  # the page was loaded again: the reference it had
+
         return opts, value, ({"display": "none"} if runs else {}), f"run {number}", ref_opts, reference

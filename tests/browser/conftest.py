@@ -232,7 +232,7 @@ def ui(request: pytest.FixtureRequest, browser: Any, live_url: str, screens: Pat
         yield helper
         report = getattr(request.node, "report_call", None)
         if report is not None and report.failed:
-            page.screenshot(path=str(screens / f"FAILED-{request.node.name}.png"), full_page=True)
+            helper.page.screenshot(path=str(screens / f"FAILED-{request.node.name}.png"), full_page=True)
     finally:
         context.close()
     assert not helper.errors, "\n".join(helper.errors)

@@ -318,3 +318,64 @@ def test_profile_slider_shows_the_interface_jump(ui, tmp_path):
     page.keyboard.press("End")
     expect(page.locator("#profile-time")).to_contain_text("t = 3 h")
     ui.shot("journey4-profile")
+
+
+def test_reload_and_a_closed_tab_keep_the_work(ui, browser):
+    """Journey 5: edit, run, set the view; reload and reopen: everything is back; leaving with
+    typing not yet committed asks first."""
+    page = ui.page
+    ui.open()
+    ui.pick("example-pick", "Daily patch over two-layer skin into a two-compartment body (daily_patch.toml)")
+    page.locator("#example-open").click()
+    expect(ui.field("link", "id")).to_have_value("skin")
+    ui.pick("element-select", "Compartment central")
+    ui.type_into(ui.field("compartment", "volume"), "12 L")
+    ui.idle()
+    ui.type_into(page.locator("#run-name"), "smaller body")
+    page.locator("#run-button").click()
+    page.locator("#run-status .good", has_text="smaller body done").wait_for(timeout=60_000)
+    ui.idle()
+    page.locator("#time-unit input[value='d']").check()
+    ui.idle()
+    first = {t["name"]: t["y"][-1] for t in ui.figure("fig-concentration", until=lambda ts: len(ts) >= 3)}
+    page.wait_for_function("() => !window.barrierflowUnsaved()", timeout=20_000)
+
+    def check_restored(p) -> None:
+        p.wait_for_selector("#network-canvas canvas")
+        expect(p.locator(ui.pattern(type="field", scope="compartment", name="volume"))).to_have_value("12 L")
+        expect(p.locator("#runs-pick")).to_contain_text("smaller body")
+        expect(p.locator("#time-unit input[value='d']")).to_be_checked()
+        expect(p.locator("#scenario-file")).to_have_value("daily_patch.toml")
+
+    page.reload()
+    check_restored(page)
+    ui.idle()
+    again = {t["name"]: t["y"][-1] for t in ui.figure("fig-concentration", until=lambda ts: len(ts) >= 3)}
+    assert again == first
+    x_title = page.evaluate(
+        "() => document.querySelector('#fig-concentration .js-plotly-plot').layout.xaxis.title.text")
+    assert x_title == "time [d]"
+
+    # typing that is not committed yet: leaving the page asks first
+    field = ui.field("compartment", "volume")
+    field.click()
+    field.fill("13 L")
+    assert page.evaluate("() => window.barrierflowUnsaved()") == "typing not yet committed"
+    asked = []
+    page.on("dialog", lambda d: (asked.append(d.type), d.dismiss()))
+    page.close(run_before_unload=True)
+    page.wait_for_timeout(500)
+    assert asked == ["beforeunload"]
+    field.press("Enter")
+    ui.idle()
+    page.wait_for_function("() => !window.barrierflowUnsaved()", timeout=20_000)
+
+    # a closed tab: a new page of the same browser finds the work (the committed 13 L too)
+    page.close()
+    other = page.context.new_page()
+    other.goto(ui.url)
+    other.wait_for_selector("#network-canvas canvas")
+    expect(other.locator(ui.pattern(type="field", scope="compartment", name="volume"))).to_have_value("13 L")
+    expect(other.locator("#runs-pick")).to_contain_text("smaller body")
+    ui.page = other
+    ui.shot("journey5-reload")

@@ -30,6 +30,7 @@ import numpy as np
 
 from ..model import Barrier, Scenario
 from .grid import Grid
+from .twoport import stack_two_port
 
 __all__ = ["BarrierGrid", "CompiledModel", "compile_scenario"]
 
@@ -144,46 +145,8 @@ class CompiledModel:
 
 
 def _two_port(barrier: Barrier) -> tuple[float, float, float, float]:
-    """Quasi-steady amount-rate coefficients (per area) of a barrier, with degradation exact.
-
-    Each layer at steady state is a reciprocal two-port, written as a pi network: a series
-    conductance g between its faces and a shunt conductance h at each face, to zero potential
-    (what degradation takes). For a layer of thickness l, diffusivity D, partition K and
-    degradation rate k, with s = sqrt(k/D): g = D K s / sinh(s l) and h = D K s tanh(s l / 2)
-    (from the steady transfer matrix of the layer, Crank, The Mathematics of Diffusion, 2nd ed.,
-    1975, ch. 14 for one layer); without degradation g = D K / l, h = 0. Layers in series are
-    joined by eliminating the potential at their interface (star-mesh reduction), in which every
-    term is a sum or product of positive numbers: no cancellation, and no overflow for any s l
-    (1/sinh is taken as 2 e^(-sl) / (1 - e^(-2sl))).
-    Returns (a, b, c, d) with J_in = a u_from - b u_to and J_out = c u_from - d u_to, cm/h;
-    b = c = g, a = g + h_from, d = g + h_to.
-    """
-    g = math.inf
-    h1 = 0.0
-    h2 = 0.0
-    for i, layer in enumerate(barrier.layers):
-        dk = layer.diffusivity * layer.partition
-        if layer.degradation_rate > 0:
-            s = math.sqrt(layer.degradation_rate / layer.diffusivity)
-            x = s * layer.thickness
-            if x < 1e-4:  # series to x^2: the relative truncation is below 1e-17
-                gl = dk / layer.thickness * (1.0 - x * x / 6.0)
-                hl = dk / layer.thickness * (x * x / 2.0)
-            else:
-                e = math.exp(-x)
-                gl = dk * s * 2.0 * e / -math.expm1(-2.0 * x)
-                hl = dk * s * math.tanh(0.5 * x)
-        else:
-            gl = dk / layer.thickness
-            hl = 0.0
-        if i == 0:
-            g, h1, h2 = gl, hl, hl
-            continue
-        # the interface node joins (g, h2) of the stack so far to (gl, hl) of this layer
-        tot = g + gl + h2 + hl
-        shunt = h2 + hl
-        g, h1, h2 = g * gl / tot, h1 + g * shunt / tot, hl + gl * shunt / tot
-    return float(g + h1), float(g), float(g), float(g + h2)
+    """Quasi-steady amount-rate coefficients (per area) of a barrier (see :mod:`.twoport`), cm/h."""
+    return stack_two_port(barrier.layers)
 
 
 def _part_of_compartments(s: Scenario) -> list[int]:
@@ -265,7 +228,8 @@ def _mass_scale(s: Scenario) -> list[float]:
     return [total[part[i]] if total[part[i]] > 0 else 1.0 for i in range(len(s.compartments))]
 
 
-def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledModel:
+def compile_scenario(scenario: Scenario, grid: Grid | None = None,
+                     layer_widths: dict[tuple[int, int], np.ndarray] | None = None) -> CompiledModel:
     """Turn a validated scenario into the flat arrays of a :class:`CompiledModel`.
 
     Parameters
@@ -273,8 +237,12 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
     scenario : Scenario
     grid : Grid or None
         Default grid of layers without ``cells`` (``Grid()`` when None).
+    layer_widths : dict, optional
+        (barrier index, layer index) to relative cell widths (summing to 1) that replace the
+        grid's for that layer (subjects of a population share one grid this way).
     """
     grid = grid or Grid()
+    layer_widths = layer_widths or {}
     comps = scenario.compartments
     n_comp = len(comps)
     comp_index = {c.id: i for i, c in enumerate(comps)}
@@ -294,7 +262,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None) -> CompiledMo
         if b.model == "steady":
             grids_tmp.append((bi, offset, offset, np.zeros(0), np.zeros(0, dtype=np.int64), np.zeros(0)))
             continue
-        widths = [grid.widths(layer) for layer in b.layers]
+        widths = [layer_widths[(bi, li)] * layer.thickness if (bi, li) in layer_widths else grid.widths(layer)
+                  for li, layer in enumerate(b.layers)]
         w = np.concatenate(widths)
         lay_idx = np.repeat(np.arange(len(widths), dtype=np.int64), [len(x) for x in widths])
         part = np.array([x.partition for x in b.layers], dtype=np.float64)[lay_idx]

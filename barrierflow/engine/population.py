@@ -291,6 +291,39 @@ def _keep_rows(states, evd, evr, keep, nc, nd, cap, scale, out, out_dosed, out_r
     low[i] = lo
 
 
+def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, int], np.ndarray]:
+    """One grid per default-gridded layer for every subject (their structure must agree).
+
+    The default grid of a layer depends on its values (a degrading layer follows its
+    reaction-diffusion length), so subjects may ask for different grids. Each such layer takes
+    the union of the cell faces (relative to the thickness) of the subjects' own grids, which is
+    at least as fine as each of them; subjects whose grids agree add nothing.
+    """
+    out: dict[tuple[int, int], np.ndarray] = {}
+    first = scenarios[0]
+    for bi, b in enumerate(first.barriers):
+        if b.model == "steady":
+            continue
+        for li, layer in enumerate(b.layers):
+            if layer.cells is not None:
+                continue
+            faces: set[float] = set()
+            seen: set[tuple[float, ...]] = set()
+            for s in scenarios:
+                if bi >= len(s.barriers) or li >= len(s.barriers[bi].layers):
+                    continue
+                lay = s.barriers[bi].layers[li]
+                w = grid.widths(lay) / lay.thickness
+                key = tuple(np.round(w, 12))
+                if key in seen:
+                    continue
+                seen.add(key)
+                faces.update(np.round(np.cumsum(w)[:-1], 12).tolist())
+            edges = np.array([0.0, *sorted(faces), 1.0])
+            out[(bi, li)] = np.diff(edges)
+    return out
+
+
 def _same_structure(models: Sequence[CompiledModel], schedules, grids_times) -> None:
     first = models[0]
     ints = ("link_p", "link_q", "link_loss", "link_track", "loss_to", "mm_state", "tr_from", "tr_to", "held")
@@ -343,7 +376,8 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
                                    "populations run on the compiled paths: ExactIntegrator or RosenbrockIntegrator "
                                    "(default: exact for a linear chain network, RODAS4 otherwise)")
     grid = grid or Grid()
-    models = [compile_scenario(s, grid) for s in scenarios]
+    shared = _shared_grid(scenarios, grid)
+    models = [compile_scenario(s, grid, shared) for s in scenarios]
     m0 = models[0]
     order = chain_order(m0) if not isinstance(integrator, RosenbrockIntegrator) else None
     if order is None and isinstance(integrator, ExactIntegrator):

@@ -25,7 +25,7 @@ from . import draft as D
 from . import ids
 from . import view as V
 from .jobs import JobManager, Workers
-from .panels import doses, network, properties, results, run, session
+from .panels import doses, history, network, properties, results, run, session
 from .panels import scenario as scenario_bar
 from .panels.common import card
 from .runs import RunArchive, warm_up
@@ -126,6 +126,7 @@ def page(state: dict[str, Any], examples: dict[str, str], *, token: str = "",
         ], className="brand"),
         html.Div([html.Strong("Caution. "), html.Span(CAUTION)], id=ids.CAUTION, className="caution",
                  role="note"),
+        history.layout(),
     ], className="page-header")
     editor = html.Div([
         card("Network", network.layout(initial), id="card-network", class_name="network-card",
@@ -230,7 +231,7 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
     services = Services(archive=archive, manager=manager, workers=workers, sessions=sessions, examples=examples,
                         poll_ms=poll_ms, max_upload=max_upload)
     app.server.extensions["barrierflow"] = services  # Flask's registry of extensions (tests reach it there)
-    for panel in (scenario_bar, network, properties, doses, run, results, session):
+    for panel in (scenario_bar, network, properties, doses, run, results, session, history):
         panel.register(app, services)
     return app
 

@@ -69,6 +69,7 @@ __all__ = [
     "compartment_by_id",
     "connect",
     "delete",
+    "deleted_with",
     "draft_from_scenario",
     "draft_from_toml",
     "find",
@@ -580,6 +581,42 @@ def delete(draft: Mapping[str, Any], key: str) -> dict[str, Any]:
     else:
         d["links"] = [x for x in d["links"] if x["key"] != key]
     return d
+
+
+def deleted_with(draft: Mapping[str, Any], key: str) -> tuple[str, list[str]]:
+    """What :func:`delete` of ``key`` removes: the element's name and the other elements it takes.
+
+    Returns
+    -------
+    name : str
+        ``"compartment 'central'"`` or ``"barrier 'skin' (2 layers)"``.
+    taken : list of str
+        The links and doses that go with a compartment (``"barrier 'skin'"``, ``"3 doses aimed at
+        'central'"``); empty for a link.
+
+    Examples
+    --------
+    >>> d, a = add_compartment(new_draft(), "a")
+    >>> d, b = add_compartment(d, "b")
+    >>> d, _ = connect(d, "exchange", a, b)
+    >>> deleted_with(d, a)
+    ("compartment 'a'", ["exchange 'exchange_1'"])
+    """
+    comps = draft.get("compartments", [])
+    comp = next((c for c in comps if c["key"] == key), None)
+    if comp is None:
+        link = next((x for x in draft.get("links", []) if x["key"] == key), None)
+        if link is None:
+            return "", []
+        n = len(link.get("layers", []))
+        extra = f" ({n} layer{'s' if n != 1 else ''})" if link["kind"] == "barrier" else ""
+        return f"{link['kind']} '{link.get('id') or ''}'{extra}", []
+    taken = [f"{x['kind']} '{x.get('id') or ''}'" for x in draft.get("links", []) if key in (x["from"], x["to"])]
+    if sum(1 for c in comps if c.get("id") == comp.get("id")) == 1:
+        n = sum(1 for x in draft.get("doses", []) if x.get("target") == comp.get("id"))
+        if n:
+            taken.append(f"{n} dose{'s' if n != 1 else ''} aimed at '{comp.get('id')}'")
+    return f"compartment '{comp.get('id') or ''}'", taken
 
 
 def update_compartment(draft: Mapping[str, Any], key: str, values: Mapping[str, Any]) -> dict[str, Any]:

@@ -33,6 +33,11 @@ SESSION_NOTE = "session-note"      # "kept in this browser's session, saved at .
 SESSION_CONFLICT = "session-conflict"  # shown when another tab saved this browser's work since
 KEEP_THIS = "session-keep-this"    # keep this page's version over the other tab's
 
+# ---------------------------------------------------------------- undo and redo (header)
+UNDO = "edit-undo"
+REDO = "edit-redo"
+HISTORY = "store-history"          # the drafts the page has had (kept in the page only)
+
 # ---------------------------------------------------------------- network editor
 CANVAS = "network-canvas"
 ADD_COMPARTMENT = "network-add-compartment"
@@ -44,6 +49,7 @@ CONNECT = "network-connect"
 CLICK_CONNECT = "network-click-connect"
 TIDY = "network-tidy"
 NETWORK_MESSAGE = "network-message"
+DELETE_NOTE = "delete-note"        # what a delete took with it (with the way back)
 LEGEND = "network-legend"
 
 # ---------------------------------------------------------------- properties

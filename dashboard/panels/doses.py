@@ -157,6 +157,7 @@ def register(app: Any, services: Any) -> None:
     @app.callback(
         Output(ids.DRAFT, "data", allow_duplicate=True),
         Output(ids.DOSE_GRID, "rowData", allow_duplicate=True),
+        Output(ids.DELETE_NOTE, "children", allow_duplicate=True),
         Input(ids.DOSE_GRID, "cellValueChanged"),
         Input(ids.DOSE_ADD, "n_clicks"),
         Input(ids.DOSE_REMOVE, "n_clicks"),
@@ -171,17 +172,22 @@ def register(app: Any, services: Any) -> None:
             rows = edited_rows(changed, d["doses"], D.DOSE_FIELDS)
             if rows is None:
                 raise PreventUpdate
-            return D.set_doses(d, rows), no_update
+            return D.set_doses(d, rows), no_update, no_update
+        note = no_update
         if trigger == ids.DOSE_ADD:
             new = D.add_dose(d)
         elif trigger == ids.DOSE_REMOVE:
             if not picked or picked[0].get("key") not in keys:
                 raise PreventUpdate
-            new = D.remove_dose(d, keys.index(picked[0]["key"]))
+            index = keys.index(picked[0]["key"])
+            new = D.remove_dose(d, index)
+            dose = d["doses"][index]
+            note = (f"Removed dose {index + 1} ({dose.get('kind') or 'dose'} on '{dose.get('target') or ''}'). "
+                    "Undo (↶ at the top, or Ctrl+Z) brings it back.")
         else:
             raise PreventUpdate
         _, found = D.check(new)
-        return new, grid_rows(new, found["messages"])
+        return new, grid_rows(new, found["messages"]), note
 
     @app.callback(
         Output(ids.DOSE_MESSAGES, "children"),

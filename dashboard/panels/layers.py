@@ -216,6 +216,7 @@ def register(app: Any, services: Any) -> None:
     @app.callback(
         Output(ids.DRAFT, "data", allow_duplicate=True),
         Output(ids.LAYER_GRID, "rowData", allow_duplicate=True),
+        Output(ids.DELETE_NOTE, "children", allow_duplicate=True),
         Input(ids.LAYER_GRID, "cellValueChanged"),
         Input(ids.LAYER_ADD, "n_clicks"),
         Input(ids.LAYER_REMOVE, "n_clicks"),
@@ -238,13 +239,17 @@ def register(app: Any, services: Any) -> None:
             rows = edited_rows(changed, link["layers"], D.LAYER_FIELDS)
             if rows is None:
                 raise PreventUpdate
-            return D.set_layers(d, key, rows), no_update
+            return D.set_layers(d, key, rows), no_update, no_update
+        note = no_update
         if trigger == ids.LAYER_ADD:
             new = D.add_layer(d, key, after=index)
         elif trigger == ids.LAYER_REMOVE:
             if index is None:
                 raise PreventUpdate
             new = D.remove_layer(d, key, index)
+            layer = link["layers"][index]
+            note = (f"Removed layer {index + 1}{' (' + layer['name'] + ')' if layer.get('name') else ''} of barrier "
+                    f"'{link.get('id') or ''}'. Undo (↶ at the top, or Ctrl+Z) brings it back.")
         elif trigger in (ids.LAYER_UP, ids.LAYER_DOWN):
             if index is None:
                 raise PreventUpdate
@@ -252,7 +257,7 @@ def register(app: Any, services: Any) -> None:
         else:
             raise PreventUpdate
         _, found = D.check(new)
-        return new, grid_rows(new, key, found["messages"])
+        return new, grid_rows(new, key, found["messages"]), note
 
     @app.callback(
         Output(ids.LAYER_MESSAGES, "children"),

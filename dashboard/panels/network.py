@@ -143,6 +143,16 @@ def layout(initial: dict[str, Any]) -> html.Div:
     ])
 
 
+def delete_note(name: str, taken: list[str]) -> str:
+    """What a delete did, and how to take it back."""
+    if not name:
+        return ""
+    if not taken:
+        return f"Deleted {name}. Undo (↶ at the top, or Ctrl+Z) brings it back."
+    listed = taken[0] if len(taken) == 1 else ", ".join(taken[:-1]) + " and " + taken[-1]
+    return f"Deleted {name} and with it {listed}. Undo (↶ at the top, or Ctrl+Z) brings them all back."
+
+
 def register(app: Any, services: Any) -> None:
     """Attach the network editor's callbacks."""
 
@@ -174,6 +184,7 @@ def register(app: Any, services: Any) -> None:
         Output(ids.CANVAS, "elements", allow_duplicate=True),
         Output(ids.LINK_FROM, "value"),
         Output(ids.LINK_TO, "value"),
+        Output(ids.DELETE_NOTE, "children", allow_duplicate=True),
         Input(ids.ADD_COMPARTMENT, "n_clicks"),
         Input(ids.DELETE, "n_clicks"),
         Input(ids.CONNECT, "n_clicks"),
@@ -194,32 +205,31 @@ def register(app: Any, services: Any) -> None:
             new, key = D.add_compartment(d, position=free_spot(positions))
             name = D.find(new, key)["id"]
             return (new, element_options(new), f"c:{key}", f"Added compartment {name} (1 mL); edit it on the right.",
-                    no_update, no_update, no_update)
+                    no_update, no_update, no_update, no_update)
         if trigger == ids.DELETE:
             if not selected:
                 return (no_update, no_update, no_update, "Select a compartment or a link first (click it).",
-                        no_update, no_update, no_update)
+                        no_update, no_update, no_update, no_update)
             key = selected.split(":", 1)[1]
             item = D.find(d, key)
             if item is None:
                 raise PreventUpdate
-            what = "link" if selected.startswith("l:") else "compartment"
             new = D.delete(d, key)
-            return (new, element_options(new), None, f"Deleted {what} {item.get('id') or ''}.", no_update,
-                    no_update, no_update)
+            note = delete_note(*D.deleted_with(d, key))
+            return (new, element_options(new), None, note, no_update, no_update, no_update, note)
         if trigger == ids.CONNECT:
             try:
                 new, key = D.connect(d, kind, from_key, to_key)
             except ValueError as err:
-                return no_update, no_update, no_update, str(err), no_update, no_update, no_update
+                return no_update, no_update, no_update, str(err), no_update, no_update, no_update, no_update
             link = D.find(new, key)
             return (new, element_options(new), f"l:{key}", f"Connected with {kind} {link['id']}; edit it on the right.",
-                    no_update, None, None)
+                    no_update, None, None, no_update)
         if trigger == ids.TIDY:
             new = dict(d)
             new["positions"] = D.tidy_positions(d)
             return (new, no_update, no_update, "Laid out the network, sources at the left.",
-                    elements(new, None, selected), no_update, no_update)
+                    elements(new, None, selected), no_update, no_update, no_update)
         raise PreventUpdate
 
     @app.callback(

@@ -379,3 +379,65 @@ def test_reload_and_a_closed_tab_keep_the_work(ui, browser):
     expect(other.locator("#runs-pick")).to_contain_text("smaller body")
     ui.page = other
     ui.shot("journey5-reload")
+
+
+def _canvas_labels(page) -> list[str]:
+    return page.evaluate("() => window.cy.nodes().map(n => n.data('label').split('\\n')[0])")
+
+
+def test_undo_brings_back_a_cascade_delete(ui):
+    """Journey 6: deleting a compartment says what went with it; Undo (button or Ctrl+Z) brings it
+    all back; Redo deletes again; a removed layer comes back; 100 steps are kept."""
+    page = ui.page
+    ui.open()
+    ui.pick("example-pick", "Daily patch over two-layer skin into a two-compartment body (daily_patch.toml)")
+    page.locator("#example-open").click()
+    expect(ui.field("link", "id")).to_have_value("skin")
+    ui.idle()
+    ui.pick("element-select", "Compartment central")
+    expect(ui.field("compartment", "id")).to_have_value("central")
+    page.locator("#network-delete").click()
+    note = page.locator("#delete-note")
+    expect(note).to_contain_text("Deleted compartment 'central' and with it barrier 'skin' and exchange "
+                                 "'distribution'")
+    ui.idle()
+    assert sorted(_canvas_labels(page)) == ["patch", "peripheral"]
+
+    page.locator("#edit-undo").click()
+    ui.idle()
+    expect(note).to_contain_text("Undone")
+    page.wait_for_function("() => window.cy.nodes().length === 3 && window.cy.edges().length === 2")
+    assert sorted(_canvas_labels(page)) == ["central", "patch", "peripheral"]
+    expect(page.locator("#run-problems")).to_be_empty()
+    ui.pick("element-select", "Barrier skin: patch → central")
+    expect(ui.cell("layer-grid", 1, "name")).to_have_text("viable epidermis")
+
+    page.locator("#edit-redo").click()
+    ui.idle()
+    page.wait_for_function("() => window.cy.nodes().length === 2 && window.cy.edges().length === 0")
+    page.locator("body").click(position={"x": 5, "y": 5})  # keyboard outside the text fields
+    page.keyboard.press("Control+z")
+    ui.idle()
+    page.wait_for_function("() => window.cy.nodes().length === 3 && window.cy.edges().length === 2")
+
+    # a removed layer comes back too
+    ui.pick("element-select", "Barrier skin: patch → central")
+    ui.cell("layer-grid", 1, "name").click()
+    page.locator("#layer-remove").click()
+    expect(note).to_contain_text("Removed layer 2 (viable epidermis) of barrier 'skin'")
+    expect(ui.cell("layer-grid", 1, "name")).to_have_count(0)
+    page.locator("#edit-undo").click()
+    ui.idle()
+    expect(ui.cell("layer-grid", 1, "name")).to_have_text("viable epidermis")
+
+    # the page keeps at least 50 steps (100): 120 drafts in, 100 steps back, no more
+    kept = page.evaluate("""() => {
+        const h = window.dash_clientside.barrierflow;
+        let history = null;
+        for (let i = 0; i <= 120; i++) { history = h.record({gen: 'x', seq: i}, history); }
+        let back = 0, moved = h.step(history, true);
+        while (moved) { back += 1; history = moved[1]; moved = h.step(history, true); }
+        return [back, history.current.seq];
+    }""")
+    assert kept == [100, 20]
+    ui.shot("journey6-undo")

@@ -24,7 +24,8 @@ Reading a project (:func:`read_project`) executes nothing that is in it: the JSO
 (no code, no pickles), the scenario text is read by :func:`barrierflow.io.loads` (problems are
 kept and shown at their fields, as for any scenario file), and every run is checked: its
 scenario must be valid; its compartments and barriers must be those of that scenario; every
-array must have the right shape and finite values. Every problem is reported at once, in the
+array must have the right shape and finite values (the amount in a held compartment without a
+volume is NaN). Every problem is reported at once, in the
 pattern ``<file>: <field path>: got <value>; <what was expected>``, for example
 ``study.bfproject.json: runs[2] data conc.central: got 672 values; expected 673 (one per output time)``.
 The steady state of each barrier is computed again from the run's scenario.
@@ -107,7 +108,8 @@ class _Reader:
         self.bad(f"{field} {key}".strip(), value if key in obj else "nothing", "expected a finite number")
         return None
 
-    def array(self, obj: Any, field: str, shape: tuple[int, ...] | None = None, what: str = "") -> np.ndarray | None:
+    def array(self, obj: Any, field: str, shape: tuple[int, ...] | None = None, what: str = "",
+              nan: bool = False) -> np.ndarray | None:
         if not isinstance(obj, dict) or obj.get("dtype") != "float64" or not isinstance(obj.get("zlib_base64"), str) \
                 or not isinstance(obj.get("shape"), list):
             self.bad(field, obj, 'expected an array {"dtype": "float64", "shape": [...], "zlib_base64": "..."}')
@@ -136,8 +138,10 @@ class _Reader:
             need = f"{shape[0]} values" if len(shape) == 1 else f"shape {list(shape)}"
             self.bad(field, have, f"expected {need}{what}")
             return None
-        if not np.all(np.isfinite(a)):
-            self.bad(field, f"{int(np.sum(~np.isfinite(a)))} values that are not finite", "expected finite numbers")
+        wrong = np.isinf(a) if nan else ~np.isfinite(a)
+        if np.any(wrong):
+            self.bad(field, f"{int(np.sum(wrong))} values that are not finite", "expected finite numbers"
+                     + (" or NaN" if nan else ""))
             return None
         return a
 
@@ -258,7 +262,7 @@ def decode_run(obj: Any, name: str, field: str, r: _Reader) -> RunData | None:
     obj = r.table(obj, field)
     toml = r.text(obj, "scenario_toml", field)
     try:
-        scenario = barrierflow.loads(toml, f"{r.file} {field} scenario_toml")
+        scenario = barrierflow.loads(toml, f"{r.file}, {field.removesuffix(' data')} scenario")
     except ScenarioError as err:
         for p in err.problems:
             r.problems.append(p)
@@ -276,11 +280,13 @@ def decode_run(obj: Any, name: str, field: str, r: _Reader) -> RunData | None:
         r.bad(f"{field} compartments", obj.get("compartments"), f"expected those of its scenario: {comps}")
         return None
     traces: dict[str, dict[str, np.ndarray]] = {}
+    no_volume = {c.id for c in scenario.compartments if c.volume is None}
     for name_ in _TRACES:
         table = r.table(obj.get(name_), f"{field} {name_}")
         traces[name_] = {}
         for c in comps:
-            a = r.array(table.get(c), f"{field} {name_}.{c}", n, one)
+            # the amount in a held compartment without a volume is not defined (NaN)
+            a = r.array(table.get(c), f"{field} {name_}.{c}", n, one, nan=name_ == "amount" and c in no_volume)
             if a is not None:
                 traces[name_][c] = a
     barriers = {}
@@ -382,7 +388,7 @@ def project_text(draft_toml: str, file: str, positions: Mapping[str, Sequence[fl
         "saved": datetime.now(UTC).isoformat(timespec="seconds"), "caution": CAUTION,
         "scenario": {"file": file, "toml": draft_toml,
                      "positions": {k: [float(v[0]), float(v[1])] for k, v in positions.items()}},
-        "runs": [{"name": rec.get("name", ""), "source": rec.get("source") or "screen",
+        "runs": [{"name": rec.get("name", ""), "source": rec.get("made_as") or rec.get("source") or "screen",
                   "created": rec.get("created", ""), "file": rec.get("file") or "",
                   "wall_time_s": _clean(rec.get("wall_time_s")), "data": encode_run(data)} for rec, data in runs],
         "view": _clean(dict(view or {})),

@@ -370,11 +370,26 @@ class RunArchive:
         return data
 
 
+def imported_key(data: RunData) -> str:
+    """Archive key of a run read from a project file: ``p`` and a hash of its scenario and traces
+    (never the key of a run simulated here, whose numbers may differ)."""
+    h = hashlib.sha256(data.toml.encode())
+    h.update(np.ascontiguousarray(data.times, dtype="<f8").tobytes())
+    for c in data.compartments:
+        h.update(np.ascontiguousarray(data.conc[c], dtype="<f8").tobytes())
+    return "p" + h.hexdigest()[:40]
+
+
 def new_record(run_id: str, name: str, toml_text: str, file: str | None, data: RunData | None,
-               error: str = "") -> dict[str, Any]:
-    """The small record of a run kept in the browser (``dcc.Store``)."""
+               error: str = "", source: str = "screen") -> dict[str, Any]:
+    """The small record of a run kept in the browser (``dcc.Store``).
+
+    ``source`` says what was run: ``"screen"`` (the scenario on the screen), ``"last valid
+    version"`` (the last valid version, chosen while the screen had problems) or ``"project
+    file"`` (read from a project file; ``made_as`` then keeps how it was made).
+    """
     return {
-        "id": run_id, "name": name, "key": run_key(toml_text), "toml": toml_text, "file": file,
+        "id": run_id, "name": name, "key": run_key(toml_text), "toml": toml_text, "file": file, "source": source,
         "scenario": data.scenario_name if data is not None else "",
         "created": datetime.now(UTC).astimezone().strftime("%H:%M:%S"),
         "status": data.status if data is not None else -1,

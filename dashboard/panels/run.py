@@ -286,7 +286,8 @@ def register(app: Any, services: Any) -> None:
         number = 1 + max((int(r["id"][1:]) for r in runs), default=0)
         existing = {r["id"] for r in runs}
         value = [v for v in (picked or []) if v in existing]
-        if ctx.triggered_id == ids.RUNS and runs and runs[-1]["id"] not in value and not runs[-1].get("error"):
+        if (ctx.triggered_id == ids.RUNS and runs and runs[-1]["id"] not in value and not runs[-1].get("error")
+                and runs[-1].get("source") != "project file"):  # a project's runs come ticked as saved
             value = [runs[-1]["id"]]
         # the earliest ticked run (the baseline) is the reference; the researcher may pick another
         chosen = set(value)

@@ -441,3 +441,58 @@ def test_undo_brings_back_a_cascade_delete(ui):
     }""")
     assert kept == [100, 20]
     ui.shot("journey6-undo")
+
+
+def test_a_saved_project_reopens_the_comparison(ui, browser, tmp_path):
+    """Journey 7: two runs compared; the project saved; opened in another browser (no session):
+    the same runs, ticked, the same reference, the same numbers, the same units."""
+    page = ui.page
+    ui.open()
+    ui.pick("example-pick", "Diffusion cell, infinite dose, sink receptor (diffusion_cell.toml)")
+    page.locator("#example-open").click()
+    expect(ui.field("link", "id")).to_have_value("membrane")
+    ui.run(1)
+    ui.edit_cell("layer-grid", 0, "partition", "8")
+    ui.type_into(page.locator("#run-name"), "K doubled")
+    page.locator("#run-button").click()
+    page.locator("#run-status .good", has_text="K doubled done").wait_for()
+    ui.idle()
+    page.locator("#runs-pick input[value='r1']").check()
+    ui.idle()
+    page.locator("#time-unit input[value='min']").check()
+    ui.idle()
+    ui.tab("Barriers: flux and permeated")
+    before = {t["name"]: t["y"] for t in ui.figure("fig-permeated", until=lambda ts: len(ts) == 2)}
+    ui.tab("Metrics and comparison")
+    expect(page.locator("#metrics-grid .ag-header-cell-text", has_text="K doubled ÷ run 1")).to_be_visible()
+    page.wait_for_function("() => !window.barrierflowUnsaved()")
+
+    saved = _download(page, "#project-save", tmp_path)
+    assert saved.name == "diffusion_cell.bfproject.json"
+    doc = json.loads(saved.read_text())
+    assert doc["format"] == "barrierflow project" and [r["name"] for r in doc["runs"]] == ["run 1", "K doubled"]
+    expect(page.locator("#scenario-open-message")).to_contain_text("Saved the project diffusion_cell.bfproject.json")
+
+    # another browser, another session: open the file there
+    context = browser.new_context(viewport={"width": 1440, "height": 900}, accept_downloads=True)
+    try:
+        other = type(ui)(context.new_page(), ui.url, ui.screens)
+        other.open()
+        expect(other.page.locator("#runs-empty")).to_be_visible()
+        other.page.set_input_files("#scenario-upload input[type=file]", str(saved))
+        expect(other.page.locator("#scenario-open-message")).to_contain_text(
+            "Opened the project diffusion_cell.bfproject.json")
+        other.idle()
+        expect(other.page.locator("#runs-pick input[value='r1']")).to_be_checked()
+        expect(other.page.locator("#runs-pick input[value='r2']")).to_be_checked()
+        expect(other.page.locator("#time-unit input[value='min']")).to_be_checked()
+        expect(other.cell("layer-grid", 0, "partition")).to_have_text("8")
+        other.tab("Barriers: flux and permeated")
+        after = {t["name"]: t["y"] for t in other.figure("fig-permeated", until=lambda ts: len(ts) == 2)}
+        assert after == before  # the same numbers, read from the file (nothing simulated again)
+        other.tab("Metrics and comparison")
+        expect(other.page.locator("#metrics-grid .ag-header-cell-text", has_text="K doubled ÷ run 1")).to_be_visible()
+        other.shot("journey7-project-reopened")
+        assert not other.errors, other.errors
+    finally:
+        context.close()

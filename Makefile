@@ -12,7 +12,7 @@ DEMO   ?= scenarios/daily_patch.toml
 $(STAMP): pyproject.toml
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install --quiet --upgrade pip
-	$(PY) -m pip install --quiet -e ".[dashboard,test]"
+	$(PY) -m pip install --quiet -e ".[dashboard,test,cluster]"
 	@touch $(STAMP)
 
 venv: $(STAMP)

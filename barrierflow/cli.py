@@ -1,4 +1,4 @@
-"""The command line: ``barrierflow check | run | steady | fit | design | screen | serve``.
+"""The command line: ``barrierflow check | run | steady | fit | design | screen | population | serve``.
 
 One entry point, :func:`main`, installed as the ``barrierflow`` console script. Every
 sub-command is registered in one table, :data:`COMMANDS`: its name, its one-line help, the
@@ -475,6 +475,106 @@ def _cmd_screen(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+# ---------------------------------------------------------------------------- studies
+def _add_variability(p: argparse.ArgumentParser) -> None:
+    """The options that give parameters a distribution (population and sensitivity)."""
+    p.add_argument("--vary", metavar="PATH=SPEC", action="append", default=[],
+                   help="give a parameter a distribution, as a [[vary]] table does, such as "
+                        "barrier.skin.layer.1.diffusivity=lognormal:cv=0.3 (lognormal with cv or gsd, normal with sd "
+                        "or cv, uniform with low and high; truncate=LO..HI; paths joined by commas vary together); "
+                        "repeatable; replaces the file's [[vary]] table on the same path (default: the file's "
+                        "[[vary]] tables only)")
+    p.add_argument("--correlate", metavar=("PATH", "PATH", "RANK"), nargs=3, action="append", default=[],
+                   help="rank (Spearman) correlation between two varied parameters, through a Gaussian copula, such "
+                        "as --correlate compartment.central.clearance compartment.central.volume 0.5; repeatable "
+                        "(default: the file's [[correlation]] tables only)")
+
+
+def _add_where(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="run on a dask.distributed cluster whose scheduler listens at ADDRESS, such as "
+                        "tcp://10.0.0.5:8786 (identical results; default: here, on every core)")
+    p.add_argument("--no-progress", action="store_true",
+                   help="do not show the progress bar (default: shown on a terminal)")
+
+
+def _progress_bar(args: argparse.Namespace, total: int, what: str):
+    """A tqdm progress bar on stderr (None when not on a terminal or with --no-progress) and its update."""
+    if args.no_progress or not sys.stderr.isatty():
+        return None, None
+    from tqdm import tqdm
+
+    bar = tqdm(total=total, desc=what, unit=" subjects", file=sys.stderr, leave=False)
+
+    def update(done: int, _total: int) -> None:
+        bar.update(done - bar.n)
+
+    return bar, update
+
+
+def _nonnegative_int(text: str) -> int:
+    """A whole number >= 0 (an argparse type)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"got {text!r}; expected a whole number >= 0") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"got {value}; expected a whole number >= 0")
+    return value
+
+
+def _add_population(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml", help="the scenario file, with its [[vary]] tables")
+    p.add_argument("-n", metavar="N", type=_positive_int, required=True,
+                   help="number of subjects (required; no default)")
+    p.add_argument("--seed", metavar="S", type=_nonnegative_int, default=0,
+                   help="seed of the draws; subject k is the same subject for a given seed whatever the number of "
+                        "subjects, chunks or machines (default: 0)")
+    _add_variability(p)
+    p.add_argument("-o", "--output", metavar="BANDS.csv", default=None,
+                   help="percentile bands of every trace at every output time (default: the scenario's file name "
+                        "with -bands.csv, in the current folder)")
+    p.add_argument("--subjects", metavar="SUBJECTS.csv", default=None,
+                   help="every subject's parameter values (in the file's units) and metrics (default: the "
+                        "scenario's file name with -subjects.csv, in the current folder)")
+    p.add_argument("--percentiles", metavar="Q", type=float, nargs="+", default=[5.0, 50.0, 95.0],
+                   help="percentiles of the bands and the metrics, from 0 to 100 (default: 5 50 95)")
+    p.add_argument("--integrator", metavar="NAME", default=None,
+                   help="auto, exact or rodas (default: auto, the exact solution for a linear chain network and "
+                        "the compiled RODAS4 integrator otherwise)")
+    p.add_argument("--chunk", metavar="N", type=_positive_int, default=None,
+                   help="subjects per chunk (default: chosen from the size of the traces; the results do not "
+                        "depend on it)")
+    _add_where(p)
+
+
+def _cmd_population(args: argparse.Namespace) -> int:
+    """Simulate N subjects; write the bands and the subjects CSV; print the summary."""
+    from barrierflow.studies import run_population
+
+    scenario = barrierflow.load(args.scenario)
+    stem = Path(args.scenario).stem
+    bands_path = Path(args.output) if args.output else Path(f"{stem}-bands.csv")
+    subjects_path = Path(args.subjects) if args.subjects else Path(f"{stem}-subjects.csv")
+    _check_output_path(bands_path, "-o/--output")
+    _check_output_path(subjects_path, "--subjects")
+    if bands_path.resolve() == subjects_path.resolve():
+        raise ScenarioError.single("--subjects", str(subjects_path), "must differ from the bands file (-o)")
+    bar, update = _progress_bar(args, args.n, "population")
+    try:
+        result = run_population(scenario, args.n, args.seed, vary=args.vary, correlate=args.correlate,
+                                percentiles=args.percentiles, subjects_csv=subjects_path, scheduler=args.scheduler,
+                                chunk=args.chunk, integrator=args.integrator, progress=update)
+    finally:
+        if bar is not None:
+            bar.close()
+    result.to_csv(bands_path)
+    print(result.summary())
+    print(f"wrote {bands_path} and {subjects_path}")
+    print(CAUTION)
+    return EXIT_OK
+
+
 # ---------------------------------------------------------------------------- serve
 def _add_serve(p: argparse.ArgumentParser) -> None:
     p.add_argument("scenario", metavar="SCENARIO.toml", nargs="?", default=None,
@@ -555,6 +655,9 @@ COMMANDS: dict[str, Command] = {
                       "for them and for your own schedule", _add_design, lambda a: _cmd_design(a)),
     "screen": Command("screening estimate of a skin-like layer's diffusivity and partition from log Kow and molar "
                       "mass (Potts and Guy 1992), flagged as such", _add_screen, lambda a: _cmd_screen(a)),
+    "population": Command("simulate N subjects drawn from the [[vary]] tables; write percentile bands and every "
+                          "subject's values and metrics; print their distribution", _add_population,
+                          lambda a: _cmd_population(a)),
     "serve": Command("start the dashboard in a web browser, with the scenario opened if one is named",
                      _add_serve, lambda a: _cmd_serve(a)),
 }

@@ -274,7 +274,7 @@ PINNED = {
     "unknown table with a hint": (
         ('[[exchange]]', '[[exchanges]]'),
         "patch.toml: [exchanges]: got an unknown table; did you mean 'exchange'? known keys here: "
-        "scenario, substance, compartment, barrier, exchange, transfer, dose, output"),
+        "scenario, substance, compartment, barrier, exchange, transfer, dose, output, vary, correlation"),
     "unknown scenario key with a hint": (
         ('output_step = "1 h"', 'output_stepp = "1 h"'),
         "patch.toml: scenario output_stepp: got an unknown key; did you mean 'output_step'? known keys here: "

@@ -18,16 +18,19 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .metrics import auc, jump_times
+from .metrics import auc, compute_metrics, jump_times
+from .result import trace_columns
 
 if TYPE_CHECKING:
     from ..engine.population import Population
+    from ..model import Scenario
 
-__all__ = ["PopulationExposure", "percentile_bands", "population_exposure", "subject_exposure"]
+__all__ = ["MetricTable", "PopulationExposure", "percentile_bands", "population_columns", "population_exposure",
+           "population_metrics", "subject_exposure"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -130,3 +133,146 @@ def percentile_bands(values: np.ndarray, q: Sequence[float] = (5, 50, 95)) -> np
         In the unit of ``values``.
     """
     return np.nanpercentile(np.asarray(values, dtype=float), q, axis=0)
+
+
+def population_columns(population: Population, scenario: Scenario) -> list[tuple[str, np.ndarray]]:
+    """The trace columns of the CSV export (:func:`barrierflow.analysis.result.trace_columns`), one
+    row per subject: ``(header, array (n_subjects, n_t))`` in the ``[output]`` units, time first
+    (a 1-D array)."""
+    return trace_columns(population, scenario)
+
+
+class _Subject:
+    """One subject of a population, with the trace methods :func:`compute_metrics` reads."""
+
+    def __init__(self, traces: _Traces, row: int, scenario: Scenario):
+        self._t, self._row, self.scenario = traces, row, scenario
+        self.times = traces.population.times
+
+    def concentration(self, cid: str) -> np.ndarray:
+        return self._t.get("concentration", cid)[self._row]
+
+    def flux(self, bid: str) -> np.ndarray:
+        return self._t.get("flux", bid)[self._row]
+
+    def permeated(self, bid: str) -> np.ndarray:
+        return self._t.get("permeated", bid)[self._row]
+
+    def content(self, bid: str) -> np.ndarray:
+        return self._t.get("content", bid)[self._row]
+
+    def dosed(self, cid: str) -> np.ndarray:
+        return self._t.get("dosed", cid)[self._row]
+
+
+class _Traces:
+    """The population's traces, each made once for all subjects."""
+
+    def __init__(self, population: Population):
+        self.population = population
+        self._made: dict[tuple[str, str], np.ndarray] = {}
+
+    def get(self, what: str, ident: str) -> np.ndarray:
+        key = (what, ident)
+        if key not in self._made:
+            self._made[key] = getattr(self.population, what)(ident)
+        return self._made[key]
+
+
+@dataclass(frozen=True, eq=False)
+class MetricTable:
+    """Every metric of a single run, for each subject of a population.
+
+    Attributes
+    ----------
+    names : tuple of str
+        ``"<metric>:<id>"``, such as ``"cmax:central"`` or ``"lag_time:skin"``: the metric names
+        of :meth:`barrierflow.analysis.metrics.Metrics.to_rows` with the compartment or barrier id.
+    units : tuple of str
+        The unit of each, in the scenario's ``[output]`` units (``""`` for a number).
+    values : ndarray (n_subjects, n_metrics)
+        In those units; NaN where a metric has no value (booleans as 1 and 0).
+    """
+
+    names: tuple[str, ...]
+    units: tuple[str, ...]
+    values: np.ndarray
+
+    def column(self, name: str) -> np.ndarray:
+        """The values of one metric, by name."""
+        try:
+            return self.values[:, self.names.index(name)]
+        except ValueError:
+            raise KeyError(f"no metric {name!r}; known: {', '.join(self.names)}") from None
+
+
+def population_metrics(population: Population, scenarios: Sequence[Scenario],
+                       rows: Sequence[int] | None = None) -> MetricTable:
+    """The metrics of each subject, by the rules of a single run (:func:`compute_metrics`).
+
+    Parameters
+    ----------
+    population : Population
+    scenarios : sequence of Scenario
+        Each subject's own scenario (the applied dose reads its volumes and amounts).
+    rows : sequence of int, optional
+        The subjects to take (default all); a failed subject gives NaN.
+
+    Returns
+    -------
+    MetricTable
+        Values in the ``[output]`` units of the first scenario.
+    """
+    traces = _Traces(population)
+    rows = range(population.n_subjects) if rows is None else rows
+    names: tuple[str, ...] | None = None
+    units: tuple[str, ...] = ()
+    out: list[list[float]] = []
+    failed: list[int] = []
+    for i in rows:
+        if population.status[i] != 0:
+            failed.append(len(out))
+            out.append([])
+            continue
+        table = compute_metrics(_Subject(traces, i, scenarios[i])).to_rows()
+        if names is None:
+            names = tuple(f"{metric}:{ident}" for _, ident, metric, _, _ in table)
+            units = tuple(unit for *_, unit in table)
+        out.append([_number(v) for *_, v, _ in table])
+    if names is None:
+        names, units = metric_names(scenarios[0] if scenarios else population.scenario)
+    width = len(names)
+    values = np.full((len(out), width), np.nan)
+    for k, row in enumerate(out):
+        if row:
+            values[k] = row
+    return MetricTable(names, units, values)
+
+
+def metric_names(scenario: Scenario) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The metric names and units of a scenario's runs, without running it (when every subject failed)."""
+    from dataclasses import fields
+
+    from .metrics import BarrierMetrics, CompartmentMetrics, Metrics, application_times, dosing_intervals
+
+    nan = float("nan")
+    times = scenario.output_grid()
+    apps = application_times(scenario, times[-1])
+    n_int = len(dosing_intervals(apps, times[-1]) or ((0.0, times[-1]),))
+    shaped = {"interval": (nan, nan), "interval_aucs": (nan,) * n_int, "lag_window": (nan, nan),
+              "terminal_points": 0, "lag_points": 0, "threshold": None, "time_above": None,
+              "steady_state_reached": None}
+
+    def blank(cls: type, ident: str) -> Any:
+        return cls(**{f.name: ident if f.name == "id" else shaped.get(f.name, nan) for f in fields(cls)})
+
+    table = Metrics(tuple(blank(CompartmentMetrics, c.id) for c in scenario.compartments),
+                    tuple(blank(BarrierMetrics, b.id) for b in scenario.barriers), tuple(apps), (), times[-1],
+                    scenario.output_units, scenario.substance.molar_mass).to_rows()
+    return tuple(f"{m}:{i}" for _, i, m, _, _ in table), tuple(u for *_, u in table)
+
+
+def _number(v: Any) -> float:
+    if v is None:
+        return float("nan")
+    return float(v)

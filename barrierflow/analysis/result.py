@@ -24,7 +24,7 @@ from ..io import traces_digest, write_traces
 from ..model import Scenario
 from ..units import unit_factor
 
-__all__ = ["CAUTION", "BarrierProfile", "MassBalance", "Result"]
+__all__ = ["CAUTION", "BarrierProfile", "MassBalance", "Result", "trace_columns"]
 
 
 
@@ -408,28 +408,7 @@ class Result:
     # ----------------------------------------------------------------- export
     def columns(self) -> list[tuple[str, np.ndarray]]:
         """The export columns (header with unit, values in the ``[output]`` units), in order."""
-        s = self.scenario
-        u = s.output_units
-        mm = s.substance.molar_mass
-        ft = unit_factor("time", u.time)
-        fc = unit_factor("concentration", u.concentration, mm)
-        fa = unit_factor("amount", u.amount, mm)
-        farea = unit_factor("area", u.area)
-        flux_unit = f"{u.amount}/({u.area}*{u.time})"
-        perm_unit = f"{u.amount}/{u.area}"
-        cols: list[tuple[str, np.ndarray]] = [(f"time [{u.time}]", self.times * ft)]
-        cids, bids = self.compartment_ids, self.barrier_ids
-        cols += [(f"conc:{c} [{u.concentration}]", self.concentration(c) * fc) for c in cids]
-        cols += [(f"amount:{c} [{u.amount}]", self.amount(c) * fa) for c in cids]
-        # flux per area: mg/(cm^2 h) -> amount/(area time): amount factor, divided by area and time factors
-        cols += [(f"flux:{b} [{flux_unit}]", self.flux(b) * fa / farea / ft) for b in bids]
-        cols += [(f"permeated:{b} [{perm_unit}]", self.permeated(b) * fa / farea) for b in bids]
-        cols += [(f"eliminated:{c} [{u.amount}]", self.eliminated(c) * fa) for c in cids]
-        cols += [(f"content:{b} [{u.amount}]", self.content(b) * fa) for b in bids]
-        cols += [(f"degraded:{b} [{u.amount}]", self.degraded(b) * fa) for b in bids]
-        cols += [(f"removed:{c} [{u.amount}]", self.removed(c) * fa) for c in cids]
-        cols += [(f"dosed:{c} [{u.amount}]", self.dosed(c) * fa) for c in cids]
-        return cols
+        return trace_columns(self, self.scenario)
 
     def csv_text(self) -> str:
         """The traces as CSV text (header row with units, one row per output time)."""
@@ -517,6 +496,53 @@ class Result:
     def sidecar_text(self, csv_text: str | None = None) -> str:
         """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""
         return json.dumps(_clean(self.sidecar(csv_text)), indent=2, default=_json_default, allow_nan=False) + "\n"
+
+
+def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray]]:
+    """The traces of the CSV export: (header with unit, values in the ``[output]`` units), in order.
+
+    The one list of trace columns, shared by a single run (:meth:`Result.columns`) and a
+    population (one row per subject, :func:`barrierflow.analysis.population.population_columns`).
+
+    Parameters
+    ----------
+    source : Result or Population
+        Anything with ``times`` and the trace methods ``concentration``, ``amount``, ``flux``,
+        ``permeated``, ``eliminated``, ``content``, ``degraded``, ``removed`` and ``dosed`` (by
+        compartment or barrier id), each giving an array whose last axis is time.
+    scenario : Scenario
+        For the ids, the output units and the molar mass.
+
+    Returns
+    -------
+    list of (str, ndarray)
+        The first column is the time, ``time [h]``; then ``conc:<id> [unit]``, ``amount:<id>``,
+        ``flux:<id>``, ``permeated:<id>``, ``eliminated:<id>``, ``content:<id>``,
+        ``degraded:<id>``, ``removed:<id>``, ``dosed:<id>``.
+    """
+    s = scenario
+    u = s.output_units
+    mm = s.substance.molar_mass
+    ft = unit_factor("time", u.time)
+    fc = unit_factor("concentration", u.concentration, mm)
+    fa = unit_factor("amount", u.amount, mm)
+    farea = unit_factor("area", u.area)
+    flux_unit = f"{u.amount}/({u.area}*{u.time})"
+    perm_unit = f"{u.amount}/{u.area}"
+    cols: list[tuple[str, np.ndarray]] = [(f"time [{u.time}]", np.asarray(source.times) * ft)]
+    cids = [c.id for c in s.compartments]
+    bids = [b.id for b in s.barriers]
+    cols += [(f"conc:{c} [{u.concentration}]", source.concentration(c) * fc) for c in cids]
+    cols += [(f"amount:{c} [{u.amount}]", source.amount(c) * fa) for c in cids]
+    # flux per area: mg/(cm^2 h) -> amount/(area time): amount factor, divided by area and time factors
+    cols += [(f"flux:{b} [{flux_unit}]", source.flux(b) * fa / farea / ft) for b in bids]
+    cols += [(f"permeated:{b} [{perm_unit}]", source.permeated(b) * fa / farea) for b in bids]
+    cols += [(f"eliminated:{c} [{u.amount}]", source.eliminated(c) * fa) for c in cids]
+    cols += [(f"content:{b} [{u.amount}]", source.content(b) * fa) for b in bids]
+    cols += [(f"degraded:{b} [{u.amount}]", source.degraded(b) * fa) for b in bids]
+    cols += [(f"removed:{c} [{u.amount}]", source.removed(c) * fa) for c in cids]
+    cols += [(f"dosed:{c} [{u.amount}]", source.dosed(c) * fa) for c in cids]
+    return cols
 
 
 def _clean(x: Any) -> Any:

@@ -162,6 +162,9 @@ class Population:
     _flux: np.ndarray = field(repr=False)      # (n_sub, n_t, n_bar) mg/(cm^2 h)
     _area: np.ndarray = field(repr=False)      # (n_sub, n_bar) cm^2
     _volume: np.ndarray = field(repr=False)    # (n_sub, n_comp) mL (NaN without volume)
+    _dosed: np.ndarray = field(repr=False)     # (n_sub, n_t, n_comp) mg dosed by events (cumulative)
+    _removed: np.ndarray = field(repr=False)   # (n_sub, n_t, n_comp) mg removed by events (cumulative)
+    _content: np.ndarray = field(repr=False)   # (n_sub, n_t, n_bar) mg in each barrier's cells
     _n_comp: int = 0
     _n_bar: int = 0
     scenario: Scenario | None = field(default=None, repr=False)
@@ -205,13 +208,32 @@ class Population:
         """Flux per area from ``bid`` into its ``to`` compartment, mg/(cm^2 h)."""
         return self._flux[:, :, self._b(bid)].copy()
 
+    def content(self, bid: str) -> np.ndarray:
+        """Amount held inside the layers of ``bid``, mg (0 for a steady barrier)."""
+        return self._content[:, :, self._b(bid)].copy()
+
+    def degraded(self, bid: str) -> np.ndarray:
+        """Cumulative amount degraded inside ``bid``, mg."""
+        return self._quad[:, :, self._n_comp + self._b(bid)].copy()
+
+    def removed(self, cid: str) -> np.ndarray:
+        """Cumulative amount taken out of ``cid`` by replace and remove doses, mg."""
+        return self._removed[:, :, self._c(cid)].copy()
+
+    def dosed(self, cid: str) -> np.ndarray:
+        """Cumulative amount dosed into ``cid``, mg: boluses, infusions, refills and holds (as
+        :meth:`barrierflow.analysis.Result.dosed`)."""
+        i = self._c(cid)
+        nc, nb = self._n_comp, self._n_bar
+        return self._dosed[:, :, i] + self._quad[:, :, nc + 2 * nb + nc + i] + self._quad[:, :, nc + 2 * nb + i]
+
 
 # ---------------------------------------------------------------- the compiled population run
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                     lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, gch, olinks, lossy,
                     inv_cap, y0, q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, keep,
-                    scale, out, out_dosed, out_removed, cell_amount, low, status, fail_k, stats):
+                    scale, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k, stats):
     n_sub = y0.shape[0]
     n = y0.shape[1]
     n_t = times.shape[0]
@@ -242,14 +264,14 @@ def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc,
         for j in range(6):
             stats[i, j] = st[j]
         _keep_rows(states, evd, evr, keep, nc, nd, cap[i], scale[i], out[i], out_dosed[i], out_removed[i],
-                   cell_amount[i], low, i)
+                   cell_amount[i], cell_bar, content[i], low, i)
 
 
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                           lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, y0, q_supply,
-                          q_infused, order, cut, n_jac, keep, scale, out, out_dosed, out_removed, cell_amount, low,
-                          status, stats):
+                          q_infused, order, cut, n_jac, keep, scale, out, out_dosed, out_removed, cell_amount,
+                          cell_bar, content, low, status, stats):
     n_sub = y0.shape[0]
     n = y0.shape[1]
     n_t = times.shape[0]
@@ -265,13 +287,16 @@ def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, hel
         for j in range(6):
             stats[i, j] = st[j]
         _keep_rows(states, evd, evr, keep, nc, nd, cap[i], scale[i], out[i], out_dosed[i], out_removed[i],
-                   cell_amount[i], low, i)
+                   cell_amount[i], cell_bar, content[i], low, i)
 
 
 @njit(**INNER)
-def _keep_rows(states, evd, evr, keep, nc, nd, cap, scale, out, out_dosed, out_removed, cell_amount, low, i):
+def _keep_rows(states, evd, evr, keep, nc, nd, cap, scale, out, out_dosed, out_removed, cell_amount, cell_bar,
+               content, low, i):
     """Copy the kept columns of one subject, with what its check needs: the amount in the cells at
-    each row, and the lowest concentration relative to its state's scale (into ``low[i]``)."""
+    each row, and the lowest concentration relative to its state's scale (into ``low[i]``); and
+    the amount in each barrier's cells, negative concentrations counted as 0 (``content``, as
+    :meth:`barrierflow.analysis.Result.content`)."""
     lo = 0.0
     for r in range(states.shape[0]):
         for j in range(keep.shape[0]):
@@ -279,11 +304,15 @@ def _keep_rows(states, evd, evr, keep, nc, nd, cap, scale, out, out_dosed, out_r
         for p in range(nc):
             out_dosed[r, p] = evd[r, p]
             out_removed[r, p] = evr[r, p]
+        for b in range(content.shape[1]):
+            content[r, b] = 0.0
         acc = 0.0
         for j in range(nd):
             v = states[r, j]
             if j >= nc:
                 acc += v * cap[j]
+                if v > 0.0:
+                    content[r, cell_bar[j - nc]] += v * cap[j]
             z = v / scale[j]
             if z < lo:
                 lo = z
@@ -406,6 +435,10 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
     out_dosed = np.zeros((n_sub, n_t, nc))
     out_removed = np.zeros((n_sub, n_t, nc))
     cell_amount = np.zeros((n_sub, n_t))
+    cell_bar = np.zeros(m0.n_cells, dtype=np.int64)  # the barrier of each cell
+    for b, g in enumerate(m0.grids):
+        cell_bar[g.start - nc:g.stop - nc] = b
+    content = np.zeros((n_sub, n_t, m0.n_bar))
     low = np.zeros(n_sub)
     scale = stack("scale")
     status = np.zeros(n_sub, dtype=np.int64)
@@ -424,7 +457,7 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
             name = "exact (population)"
             _run_population_exact(*common, stack("y0"), m0.q_supply, m0.q_infused, order,
                                   -60.0 / _shortest_time(times, marks), n_jac, keep, scale, out, out_dosed,
-                                  out_removed, cell_amount, low, status, stats)
+                                  out_removed, cell_amount, cell_bar, content, low, status, stats)
         else:
             name = f"{integ.name} (population)"
             struct = build_structure(m0)
@@ -432,8 +465,8 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
             _run_population(*common, np.stack([c[0] for c in chains]), chains[0][1], chains[0][2],
                             np.stack([c[3] for c in chains]), stack("y0"), m0.q_supply, m0.q_infused, struct.args(),
                             COEF, struct.n_w, n_jac, float(integ.rtol), integ.atol * stack("scale"), integ.max_steps,
-                            float(integ.hold), keep, scale, out, out_dosed, out_removed, cell_amount, low, status,
-                            fail_k, stats)
+                            float(integ.hold), keep, scale, out, out_dosed, out_removed, cell_amount, cell_bar, content,
+                            low, status, fail_k, stats)
     finally:
         numba.set_num_threads(old_threads)
     messages = []
@@ -461,11 +494,14 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         except SolverError as err:
             st[i] = -1
             out[i] = np.nan
+            content[i] = np.nan
             messages.append(f"{note}; computed again on its own it failed too: {err}")
             continue
         out[i] = tr.states[:, keep]
         out_dosed[i] = tr.event_dosed
         out_removed[i] = tr.event_removed
+        for b, g in enumerate(m0.grids):
+            content[i, :, b] = np.maximum(tr.states[:, g.start:g.stop], 0.0) @ models[i].capacity[g.start:g.stop]
         stats[i, ST_STEPS] = tr.stats.get("steps", 0)
         st[i] = 0
         messages.append(f"{note}; computed again on its own with {tr.integrator}")
@@ -487,7 +523,8 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         times=times, comp_ids=m0.comp_ids, barrier_ids=m0.barrier_ids, factors=dict(factors or {}), status=st,
         messages=tuple(messages), steps=stats[:, ST_STEPS].copy(), integrator=name,
         wall_time=_time.perf_counter() - start, _conc=out[:, :, :nc], _quad=out[:, :, nc + len(out_cells):],
-        _flux=flux, _area=area, _volume=volume, _n_comp=nc, _n_bar=m0.n_bar, scenario=s0)
+        _flux=flux, _area=area, _volume=volume, _dosed=out_dosed, _removed=out_removed, _content=content,
+        _n_comp=nc, _n_bar=m0.n_bar, scenario=s0)
 
 
 def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: int, seed: int = 0, *,

@@ -14,14 +14,16 @@ are.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import tempfile
 import time
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
+from typing import TextIO
 
-__all__ = ["atomic_write", "atomic_write_together", "remove_stale_temporaries"]
+__all__ = ["atomic_stream", "atomic_write", "atomic_write_together", "remove_stale_temporaries"]
 
 STALE_AFTER_S = 24 * 3600.0
 """Age after which a temporary file is removed even if a process of its number is running (the
@@ -97,6 +99,43 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
             raise type(err)(err.errno, err.strerror or str(err), str(current)) from None
         raise
     return targets
+
+
+@contextlib.contextmanager
+def atomic_stream(path: str | os.PathLike[str], *, encoding: str = "utf-8") -> Iterator[TextIO]:
+    """Write a text file piece by piece, atomically: ``with atomic_stream(p) as fh: fh.write(...)``.
+
+    For a file too large to hold in memory first (the rows of 100,000 subjects). The text goes to
+    a temporary file beside ``path``; when the ``with`` block ends without an exception the file
+    is flushed to disk and renamed over ``path``; otherwise it is removed and ``path`` is left as
+    it was.
+    """
+    target = Path(path)
+    remove_stale_temporaries(target)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.{os.getpid()}-", suffix=".tmp",
+                                   dir=target.parent or ".")
+    except OSError as err:
+        raise type(err)(err.errno, err.strerror or str(err), str(target)) from None
+    try:
+        try:
+            mode = os.stat(target).st_mode & 0o7777
+        except FileNotFoundError:
+            mode = 0o666 & ~_umask()
+        os.chmod(tmp, mode)
+        with os.fdopen(fd, "w", encoding=encoding, newline="") as fh:
+            yield fh
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+        tmp = ""
+        _sync_folder(target.parent)
+    finally:
+        if tmp:
+            try:
+                os.unlink(tmp)
+            except FileNotFoundError:
+                pass
 
 
 def _write_temporary(target: Path, raw: bytes) -> str:

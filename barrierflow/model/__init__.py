@@ -16,6 +16,7 @@ from .document import from_document, to_document, to_toml
 from .experiment import OBSERVABLES, Experiment, Series
 from .paths import Param, ParamPath, Tied, parameter_paths, parse_param, with_values
 from .scenario import MAX_COMPARTMENTS, MAX_EVENTS, MAX_TOTAL_CELLS, Scenario
+from .variability import Correlation, Variation
 
 __all__ = [
     "DOSE_KINDS",
@@ -26,6 +27,7 @@ __all__ = [
     "PLAUSIBLE",
     "Barrier",
     "Compartment",
+    "Correlation",
     "Dose",
     "Exchange",
     "Experiment",
@@ -38,6 +40,7 @@ __all__ = [
     "Substance",
     "Tied",
     "Transfer",
+    "Variation",
     "from_document",
     "parameter_paths",
     "parse_param",

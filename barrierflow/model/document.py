@@ -19,10 +19,12 @@ from ._fields import FieldSpec, build, parse_value, suggest
 from .components import Barrier, Compartment, Dose, Exchange, Layer, OutputUnits, Substance, Transfer
 from .paths import units_written
 from .scenario import Scenario, network_problems
+from .variability import Correlation, Variation
 
 __all__ = ["from_document", "to_document", "to_toml"]
 
-TOP_KEYS = ("scenario", "substance", "compartment", "barrier", "exchange", "transfer", "dose", "output")
+TOP_KEYS = ("scenario", "substance", "compartment", "barrier", "exchange", "transfer", "dose", "output", "vary",
+            "correlation")
 SCENARIO_SPECS = Scenario.SPECS
 
 
@@ -132,6 +134,19 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
     transfers = collect("transfer", lambda t, i: Transfer.from_mapping(t, default_id=f"transfer_{i}"))
     doses = collect("dose", lambda t, i: Dose.from_mapping(t, mm))
 
+    variations = []
+    for i, table in enumerate(_tables(doc, "vary", problems), start=1):
+        try:
+            variations.append(Variation.from_mapping(table, mm))
+        except ScenarioError as err:
+            problems.extend(err.within(f"vary {i}", at=f"vary.{i}").problems)
+    correlations = []
+    for i, table in enumerate(_tables(doc, "correlation", problems), start=1):
+        try:
+            correlations.append(Correlation.from_mapping(table))
+        except ScenarioError as err:
+            problems.extend(err.within(f"correlation {i}", at=f"correlation.{i}").problems)
+
     output = OutputUnits()
     out_raw = doc.get("output", {})
     if not isinstance(out_raw, Mapping):
@@ -148,8 +163,8 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
             duration=head["duration"], output_step=head.get("output_step"),
             output_times=head.get("output_times"), check_ranges=head.get("check_ranges", True), substance=substance,
             compartments=tuple(compartments), barriers=tuple(barriers), exchanges=tuple(exchanges),
-            transfers=tuple(transfers), doses=tuple(doses), output_units=output, source=file,
-            file_units=file_units)
+            transfers=tuple(transfers), doses=tuple(doses), output_units=output,
+            vary=tuple(variations), correlations=tuple(correlations), source=file, file_units=file_units)
 
     if not problems:
         # raises its own ScenarioError, with the file, for network problems
@@ -237,6 +252,10 @@ def to_document(scenario: Scenario) -> dict[str, Any]:
         doc["dose"] = [_put({}, d, Dose.SPECS) for d in scenario.doses]
     if scenario.output_units != OutputUnits():
         doc["output"] = {k: getattr(scenario.output_units, k) for k in OutputUnits.KIND_OF}
+    if scenario.vary:
+        doc["vary"] = [v.to_table() for v in scenario.vary]
+    if scenario.correlations:
+        doc["correlation"] = [c.to_table() for c in scenario.correlations]
     return doc
 
 

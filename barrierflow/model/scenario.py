@@ -19,6 +19,8 @@ from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Subst
 if TYPE_CHECKING:
     import networkx as nx
 
+    from .variability import Correlation, Variation
+
 __all__ = ["MAX_COMPARTMENTS", "MAX_EVENTS", "MAX_TOTAL_CELLS", "Scenario", "network_problems"]
 
 MAX_TOTAL_CELLS = 1_000_000
@@ -67,6 +69,11 @@ class Scenario:
     check_ranges : bool
         Refuse values outside the plausible range of their field (default True; see
         :data:`barrierflow.model.PLAUSIBLE`). False accepts them, for a scenario that means them.
+    vary : tuple of Variation
+        The ``[[vary]]`` tables: a distribution on a parameter path for populations and
+        sensitivity studies (:mod:`barrierflow.model.variability`); a single run ignores them.
+    correlations : tuple of Correlation
+        The ``[[correlation]]`` tables: rank correlations between varied parameters.
     source : str or None
         The file the scenario came from (not part of equality).
     file_units : tuple of (str, str)
@@ -95,6 +102,8 @@ class Scenario:
     output_units: OutputUnits = field(default_factory=OutputUnits)
     description: str = ""
     check_ranges: bool = True
+    vary: tuple[Variation, ...] = ()
+    correlations: tuple[Correlation, ...] = ()
     source: str | None = field(default=None, compare=False, repr=False)
     file_units: tuple[tuple[str, str], ...] = field(default=(), compare=False, repr=False)
 
@@ -109,7 +118,7 @@ class Scenario:
     """The keys of the ``[scenario]`` table."""
 
     def __post_init__(self) -> None:
-        for name in ("compartments", "barriers", "exchanges", "transfers", "doses"):
+        for name in ("compartments", "barriers", "exchanges", "transfers", "doses", "vary", "correlations"):
             value = getattr(self, name)
             if not isinstance(value, tuple):
                 object.__setattr__(self, name, tuple(value))
@@ -210,6 +219,10 @@ class Scenario:
         out.extend(p.within("output", at="output") for p in self.output_units.check(self.substance.molar_mass))
         if self.check_ranges is not False:
             out.extend(self._range_problems())
+        if self.vary or self.correlations:
+            from .variability import variability_problems  # the module reads paths, which import this one
+
+            out.extend(variability_problems(self))
         return out
 
     def _range_problems(self) -> list[Problem]:

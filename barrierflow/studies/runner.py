@@ -1,0 +1,393 @@
+"""Where a study runs: chunks of subjects, on all local cores or on a dask.distributed cluster.
+
+Every study (a population, a sweep, a sensitivity analysis) is a table of subjects: the base
+scenario and, for each subject, the values of a few parameters. The table is cut into chunks
+(:class:`ChunkTask`: the first subject's number and the values of each), and each chunk is
+simulated by :func:`run_chunk`, a pure function of its task:
+
+- the subjects are built with :func:`~barrierflow.model.paths.with_values` (a value the model
+  refuses makes that subject fail, with the model's message) and simulated together by the
+  engine's population runner, in parallel compiled threads (:func:`simulate_subjects`, the one
+  place that calls the engine for a study);
+- the traces of the subjects that finished go into the compact histograms of a quantile sketch
+  (:mod:`barrierflow.analysis.sketch`), and each subject's metrics are computed by the rules of a
+  single run (:func:`barrierflow.analysis.population.population_metrics`).
+
+:func:`run_tasks` runs the chunks here, one after the other (each uses every core), or, given
+``scheduler`` (the address of a dask.distributed scheduler, or a ``distributed.Client``), on
+the cluster, with at most a few chunks in flight per worker thread, and gives the outcomes back
+in the order of the tasks. Since a chunk's outcome depends only on its task, and the sketches
+merge exactly (whole-number counts), a study gives bit-identical results whatever the chunk size
+and wherever it runs, on machines of one kind (a different processor may round the last bit of a
+floating-point operation differently).
+
+Results are research estimates, not for clinical dosing or regulatory decisions without
+qualified review.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+import uuid
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..analysis.population import MetricTable, population_columns, population_metrics
+from ..analysis.sketch import ACCURACY, BINS, Counts, count_values
+from ..engine.grid import Grid
+from ..engine.integrators import integrator_from_name
+from ..engine.population import Population, simulate_many
+from ..errors import BarrierflowError, ScenarioError
+from ..model import Scenario
+from ..model.paths import Param, with_values
+from ..units import unit_factor
+
+__all__ = ["ChunkOutcome", "ChunkTask", "chunk_size_for", "run_chunk", "run_tasks", "simulate_subjects"]
+
+CHUNK_BYTES = 48e6
+"""Target size of a chunk's traces in memory (the chunk size is chosen from it)."""
+
+CONNECT_TIMEOUT = "10s"
+"""How long to wait for a dask.distributed scheduler to answer."""
+
+_ENGINE = threading.Lock()
+"""One engine call at a time per process: each call already uses every core, and a worker with
+several threads must not start numba's parallel code from two threads at once."""
+
+
+@dataclass(frozen=True, eq=False)
+class ChunkTask:
+    """A chunk of subjects to simulate: everything a worker needs (it pickles).
+
+    Parameters
+    ----------
+    base : Scenario
+        The scenario every subject starts from (without its variability tables).
+    params : tuple of Param
+        The parameters set per subject.
+    first : int
+        Number of the first subject (from 1).
+    values : ndarray (count, len(params))
+        The parameters' values for each subject, internal units.
+    traces : bool
+        Also count the traces into sketch histograms (a population; sweeps and sensitivity need
+        only the metrics).
+    accuracy, bins
+        Of the sketch (:mod:`barrierflow.analysis.sketch`).
+    integrator : str or None
+        ``"exact"`` or ``"rodas"`` (default: the engine's choice).
+    """
+
+    base: Scenario
+    params: tuple[Param, ...]
+    first: int
+    values: np.ndarray
+    traces: bool = True
+    accuracy: float = ACCURACY
+    bins: int = BINS
+    integrator: str | None = None
+
+    @property
+    def count(self) -> int:
+        """Number of subjects."""
+        return len(self.values)
+
+
+@dataclass(frozen=True, eq=False)
+class ChunkOutcome:
+    """What a worker sends back for a chunk: small whatever the number of output times.
+
+    Attributes
+    ----------
+    first, count : int
+        The subjects (numbers from 1).
+    ok : ndarray of bool (count,)
+        True when the subject's run finished.
+    messages : tuple of str
+        For each subject, ``""`` or why it failed.
+    metrics : MetricTable
+        Every metric of every subject (NaN for a failed one).
+    metric_counts : Counts
+        The metrics of the subjects that finished, as sketch histograms.
+    trace_names : tuple of str
+        Headers of the trace columns (the traces CSV's, without the time).
+    trace_counts : tuple of Counts
+        One histogram per trace column (over the output times), for the subjects that finished.
+    times : ndarray
+        Output times, in the ``[output]`` time unit.
+    time_header : str
+    wall_time : float, s
+    """
+
+    first: int
+    count: int
+    ok: np.ndarray
+    messages: tuple[str, ...]
+    metrics: MetricTable
+    metric_counts: Counts
+    trace_names: tuple[str, ...]
+    trace_counts: tuple[Counts, ...]
+    times: np.ndarray
+    time_header: str
+    wall_time: float
+
+
+def simulate_subjects(base: Scenario, params: Sequence[Param], values: np.ndarray, *,
+                      integrator: str | None = None) -> tuple[Population | None, list[Scenario | None], list[str]]:
+    """Simulate the subjects given by parameter values: the one call of the engine for a study.
+
+    Parameters
+    ----------
+    base : Scenario
+    params : sequence of Param
+    values : ndarray (n, len(params))
+        Internal units.
+    integrator : str or None
+        ``"exact"`` or ``"rodas"``; None: the engine's choice.
+
+    Returns
+    -------
+    population : Population or None
+        The subjects that could be built, in order (None when none could).
+    scenarios : list of Scenario or None
+        Each subject's scenario (None where the model refused its values).
+    messages : list of str
+        ``""`` for a subject that finished, else why it failed (refused values or a failed run).
+    """
+    scenarios: list[Scenario | None] = []
+    messages: list[str] = []
+    for row in np.asarray(values, dtype=float):
+        try:
+            scenarios.append(with_values(base, dict(zip(params, row.tolist(), strict=True))))
+            messages.append("")
+        except BarrierflowError as err:
+            scenarios.append(None)
+            messages.append(f"the model refused its values: {_one_line(err)}")
+    built = [s for s in scenarios if s is not None]
+    if not built:
+        return None, scenarios, messages
+    engine = integrator_from_name(integrator) if integrator else None
+    groups: dict[bytes, list[int]] = {}
+    for k, sc in enumerate(built):
+        groups.setdefault(_grid_key(sc), []).append(k)
+    parts: list[Population | None] = [None] * len(built)
+    with _ENGINE:
+        for members in groups.values():
+            subjects = [built[k] for k in members]
+            try:
+                pop = simulate_many(subjects, integrator=engine)
+                rows = [(pop, j) for j in range(len(members))]
+            except BarrierflowError as err:
+                # the population runner refused the set as a whole: run each subject alone, so
+                # that only the subjects at fault fail
+                rows = [_alone(sc, engine, err) for sc in subjects]
+            for k, row in zip(members, rows, strict=True):
+                parts[k] = row
+    pop = parts[0][0] if len(groups) == 1 and parts[0][0] is not None and all(
+        p[0] is parts[0][0] for p in parts) else _stack(parts)
+    k = 0
+    for i, sc in enumerate(scenarios):
+        if sc is None:
+            continue
+        if pop.status[k] != 0:
+            messages[i] = pop.messages[k]
+        k += 1
+    return pop, scenarios, messages
+
+
+def _grid_key(scenario: Scenario) -> bytes:
+    """The cell faces of every layer that the engine grids by default (relative to its thickness).
+
+    The engine gives subjects run together one grid per layer, the union of their own; a layer's
+    default grid can depend on its values (a degrading layer follows sqrt(D/k)). Subjects are
+    therefore run in groups of equal grids, so that each is computed on its own grid, as it would
+    be alone, whatever chunk it falls in.
+    """
+    out = []
+    for b in scenario.barriers:
+        if b.model == "steady":
+            continue
+        for layer in b.layers:
+            if layer.cells is None:
+                out.append(np.round(_GRID.widths(layer) / layer.thickness, 12).tobytes())
+    return b"|".join(out)
+
+
+_GRID = Grid()
+
+
+def _alone(scenario: Scenario, engine, first_error: BarrierflowError) -> tuple[Population | None, int]:
+    try:
+        return simulate_many([scenario], integrator=engine), 0
+    except BarrierflowError:
+        return None, _one_line(first_error)
+
+
+def _stack(parts: list[tuple[Population | None, int | str]]) -> Population:
+    """One population of the subjects' rows (from several runs), a refused subject a failed NaN row."""
+    good = next((p for p, _ in parts if p is not None), None)
+    if good is None:
+        raise ScenarioError.single("population", "every subject", f"the engine refused them: {parts[0][1]}")
+
+    def stack(name: str) -> np.ndarray:
+        ref = getattr(good, name)[:1]
+        return np.concatenate([getattr(p, name)[j:j + 1] if p is not None else np.full_like(ref, np.nan)
+                               for p, j in parts])
+
+    import dataclasses
+
+    status = np.array([p.status[j] if p is not None else -1 for p, j in parts])
+    messages = tuple(p.messages[j] if p is not None else f"the engine refused it: {j}" for p, j in parts)
+    steps = np.array([p.steps[j] if p is not None else 0 for p, j in parts])
+    return dataclasses.replace(
+        good, status=status, messages=messages, steps=steps, factors={}, _conc=stack("_conc"), _quad=stack("_quad"),
+        _flux=stack("_flux"), _area=stack("_area"), _volume=stack("_volume"), _dosed=stack("_dosed"),
+        _removed=stack("_removed"), _content=stack("_content"))
+
+
+def _one_line(err: BaseException) -> str:
+    return " / ".join(str(err).splitlines())
+
+
+def run_chunk(task: ChunkTask) -> ChunkOutcome:
+    """Simulate one chunk and reduce it to its outcome (see the module docstring). Picklable, pure."""
+    start = time.perf_counter()
+    pop, scenarios, messages = simulate_subjects(task.base, task.params, task.values, integrator=task.integrator)
+    n = task.count
+    ok = np.array([m == "" for m in messages], dtype=bool)
+    first_ok = next((s for s in scenarios if s is not None), task.base)
+    if pop is not None:
+        built = [i for i, s in enumerate(scenarios) if s is not None]
+        table = population_metrics(pop, [s for s in scenarios if s is not None])
+        values = np.full((n, len(table.names)), np.nan)
+        values[built] = table.values
+        metrics = MetricTable(table.names, table.units, values)
+    else:
+        from ..analysis.population import metric_names
+
+        names, units = metric_names(task.base)
+        metrics = MetricTable(names, units, np.full((n, len(names)), np.nan))
+    metrics.values[~ok] = np.nan
+    metric_counts = count_values(metrics.values[ok], task.accuracy, task.bins)
+    names: list[str] = []
+    counts: list[Counts] = []
+    columns = population_columns(pop, first_ok) if pop is not None else None
+    if columns is not None:
+        times, time_header = columns[0][1], columns[0][0]
+    else:
+        unit = first_ok.output_units.time
+        times = np.asarray(first_ok.output_grid(), dtype=float) * unit_factor("time", unit)
+        time_header = f"time [{unit}]"
+    if task.traces and columns is not None:
+        built_ok = ok[[i for i, s in enumerate(scenarios) if s is not None]]
+        for header, block in columns[1:]:
+            names.append(header)
+            counts.append(count_values(block[built_ok], task.accuracy, task.bins))
+    return ChunkOutcome(task.first, n, ok, tuple(messages), metrics, metric_counts, tuple(names), tuple(counts),
+                        np.asarray(times), time_header, time.perf_counter() - start)
+
+
+def chunk_size_for(scenario: Scenario, n: int, traces: bool = True) -> int:
+    """A chunk size that keeps a chunk's traces near :data:`CHUNK_BYTES` (8 to 2,000 subjects)."""
+    n_t = len(scenario.output_grid())
+    cols = 6 * len(scenario.compartments) + 4 * len(scenario.barriers) + 8
+    per_subject = n_t * cols * 8 * (3 if traces else 2)
+    size = int(CHUNK_BYTES // max(per_subject, 1))
+    return max(8, min(2000, size, n))
+
+
+# ---------------------------------------------------------------- running the chunks
+def run_tasks(tasks: Iterable[ChunkTask], *, scheduler: object | None = None,
+              progress: Callable[[int], None] | None = None) -> Iterator[ChunkOutcome]:
+    """Run the chunks, here or on a dask.distributed cluster, giving the outcomes in task order.
+
+    Parameters
+    ----------
+    tasks : iterable of ChunkTask
+        Made lazily if a generator: only the chunks in flight are held.
+    scheduler : str or distributed.Client, optional
+        The address of a dask.distributed scheduler (``tcp://10.0.0.5:8786``) or a client; None
+        runs here, one chunk after another (each on every core).
+    progress : callable, optional
+        Called with the number of subjects of each chunk as it is done.
+
+    Yields
+    ------
+    ChunkOutcome
+    """
+    if scheduler is None:
+        for task in tasks:
+            out = run_chunk(task)
+            if progress is not None:
+                progress(out.count)
+            yield out
+        return
+    yield from _run_on_cluster(tasks, scheduler, progress)
+
+
+def _client(scheduler: object):
+    try:
+        from distributed import Client
+    except ImportError:
+        raise ScenarioError.single("--scheduler", repr(scheduler),
+                                   "running on a cluster needs dask.distributed; install it with "
+                                   "pip install 'barrierflow[cluster]'") from None
+    if isinstance(scheduler, Client):
+        return scheduler, False
+    if not isinstance(scheduler, str) or not scheduler.strip():
+        raise ScenarioError.single("--scheduler", repr(scheduler), "the address of a dask.distributed scheduler, "
+                                   "such as tcp://10.0.0.5:8786")
+    try:
+        return Client(scheduler.strip(), timeout=CONNECT_TIMEOUT, set_as_default=False), True
+    except (OSError, TimeoutError) as err:
+        raise ScenarioError.single("--scheduler", repr(scheduler), f"no dask.distributed scheduler answered there "
+                                   f"({err}); start one with 'dask scheduler' and workers with 'dask worker "
+                                   "ADDRESS'") from None
+
+
+def _run_on_cluster(tasks: Iterable[ChunkTask], scheduler: object,
+                    progress: Callable[[int], None] | None) -> Iterator[ChunkOutcome]:
+    from distributed import as_completed
+
+    client, own = _client(scheduler)
+    try:
+        threads = max(1, sum(client.nthreads().values()))
+        window = 2 * threads
+        tag = uuid.uuid4().hex[:12]
+        finished = as_completed(loop=client.loop)
+        index: dict[str, int] = {}
+        done: dict[int, ChunkOutcome] = {}
+        it = iter(tasks)
+        submitted = 0
+        nxt = 0
+        in_flight = 0
+        exhausted = False
+        while True:
+            while not exhausted and in_flight + len(done) < window:
+                task = next(it, None)
+                if task is None:
+                    exhausted = True
+                    break
+                key = f"barrierflow-chunk-{tag}-{submitted}"
+                index[key] = submitted
+                finished.add(client.submit(run_chunk, task, key=key, pure=False))
+                submitted += 1
+                in_flight += 1
+            if nxt in done:
+                yield done.pop(nxt)
+                nxt += 1
+                continue
+            if in_flight == 0:
+                return
+            fut = next(finished)
+            in_flight -= 1
+            out = fut.result()  # an exception on the worker is raised here
+            if progress is not None:
+                progress(out.count)
+            done[index.pop(fut.key)] = out
+    finally:
+        if own:
+            client.close()

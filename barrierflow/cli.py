@@ -1,4 +1,5 @@
-"""The command line: ``barrierflow check | run | steady | fit | design | screen | population | serve``.
+"""The command line: ``barrierflow check | run | steady | fit | design | screen | population | sweep |
+sensitivity | serve``.
 
 One entry point, :func:`main`, installed as the ``barrierflow`` console script. Every
 sub-command is registered in one table, :data:`COMMANDS`: its name, its one-line help, the
@@ -504,9 +505,11 @@ def _progress_bar(args: argparse.Namespace, total: int, what: str):
         return None, None
     from tqdm import tqdm
 
-    bar = tqdm(total=total, desc=what, unit=" subjects", file=sys.stderr, leave=False)
+    bar = tqdm(total=total, desc=what, unit=" runs", file=sys.stderr, leave=False)
 
-    def update(done: int, _total: int) -> None:
+    def update(done: int, of: int) -> None:
+        if bar.total != of:
+            bar.total = of
         bar.update(done - bar.n)
 
     return bar, update
@@ -571,6 +574,118 @@ def _cmd_population(args: argparse.Namespace) -> int:
     result.to_csv(bands_path)
     print(result.summary())
     print(f"wrote {bands_path} and {subjects_path}")
+    print(CAUTION)
+    return EXIT_OK
+
+
+def _add_sweep(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml", help="the scenario file")
+    p.add_argument("--over", metavar="PATH=LO..HI", action="append", required=True,
+                   help="a parameter and its range, with units, such as 'compartment.central.clearance=5 L/h..40 L/h'; "
+                        "once or twice (a grid over two parameters); required, no default")
+    p.add_argument("--steps", metavar="N", type=_positive_int, nargs="+", default=[11],
+                   help="points per parameter, both ends included: one number for every parameter or one each "
+                        "(default: 11)")
+    p.add_argument("--spacing", metavar="linear|log", nargs="+", default=["linear"],
+                   help="equal steps (linear) or equal ratios (log), one for every parameter or one each "
+                        "(default: linear)")
+    p.add_argument("-o", "--output", metavar="SWEEP.csv", default=None,
+                   help="every metric at every point (default: the scenario's file name with -sweep.csv, in the "
+                        "current folder)")
+    p.add_argument("--metric", metavar="NAME", action="append", default=None,
+                   help="a metric to print, such as auc:central (repeatable; default: Cmax and AUC of each "
+                        "compartment, permeated amount and lag time of each barrier; the CSV has them all)")
+    _add_where(p)
+
+
+def _cmd_sweep(args: argparse.Namespace) -> int:
+    """Simulate every point of the grid; write the CSV; print a table."""
+    from barrierflow.studies import run_sweep
+
+    scenario = barrierflow.load(args.scenario)
+    out = Path(args.output) if args.output else Path(f"{Path(args.scenario).stem}-sweep.csv")
+    _check_output_path(out, "-o/--output")
+    total = 1
+    for k in range(len(args.over)):
+        total *= args.steps[k] if len(args.steps) > k else args.steps[0]
+    bar, update = _progress_bar(args, total, "sweep")
+    try:
+        result = run_sweep(scenario, args.over, steps=args.steps, spacing=args.spacing, scheduler=args.scheduler,
+                           progress=update)
+    finally:
+        if bar is not None:
+            bar.close()
+    text = result.summary(args.metric)
+    result.to_csv(out)
+    print(text)
+    print(f"wrote {out}")
+    print(CAUTION)
+    return EXIT_OK
+
+
+SENSITIVITY_METHODS = ("local", "sobol", "morris")
+"""The methods of ``barrierflow sensitivity`` (``barrierflow.studies.sensitivity.METHODS``; a test holds them equal)."""
+
+
+def _add_sensitivity(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", metavar="SCENARIO.toml", help="the scenario file (with [[vary]] tables for the "
+                                                             "global methods)")
+    p.add_argument("--method", choices=SENSITIVITY_METHODS, default="local",
+                   help="local: d ln(metric) / d ln(parameter) at the scenario's values; sobol: first-order and "
+                        "total Sobol indices over the [[vary]] distributions, with bootstrap intervals; morris: "
+                        "Morris screening over them (default: local)")
+    p.add_argument("-n", metavar="N", type=_positive_int, default=None,
+                   help="sobol: base samples, a power of 2 (n (d + 2) runs; default 1024); morris: trajectories "
+                        "(r (d + 1) runs; default 20); not used by local")
+    p.add_argument("--seed", metavar="S", type=_nonnegative_int, default=0,
+                   help="seed of the sampling and the bootstrap (default: 0)")
+    _add_variability(p)
+    p.add_argument("--param", metavar="PATH", action="append", default=None,
+                   help="local: a parameter to differentiate by, repeatable (default: every quantity of the network "
+                        "and the doses that is > 0 and does not shape the run)")
+    p.add_argument("--metric", metavar="NAME", action="append", default=None,
+                   help="a metric, such as auc:central or lag_time:skin, repeatable (default: Cmax and AUC of each "
+                        "compartment, permeated amount, peak flux and lag time of each barrier)")
+    p.add_argument("--levels", metavar="P", type=_positive_int, default=4,
+                   help="morris: levels of the grid, even (default: 4)")
+    p.add_argument("-o", "--output", metavar="OUT.csv", default=None,
+                   help="the indices, one row per parameter and metric (default: the scenario's file name with "
+                        "-sensitivity.csv, in the current folder)")
+    _add_where(p)
+
+
+def _cmd_sensitivity(args: argparse.Namespace) -> int:
+    """Local or global sensitivity; write the CSV; print the table."""
+    from barrierflow.studies import local_sensitivity, morris_screening, sobol_indices, with_variability
+
+    scenario = barrierflow.load(args.scenario)
+    out = Path(args.output) if args.output else Path(f"{Path(args.scenario).stem}-sensitivity.csv")
+    _check_output_path(out, "-o/--output")
+    if args.method == "local":
+        for option, value in (("-n", args.n), ("--vary", args.vary), ("--correlate", args.correlate)):
+            if value:
+                raise ScenarioError.single(option, str(value), "the local method differentiates at the scenario's "
+                                           "values; choose its parameters with --param")
+    elif args.param:
+        raise ScenarioError.single("--param", " ".join(args.param), f"the {args.method} method varies the parameters "
+                                   "of the [[vary]] tables and --vary options")
+    bar, update = _progress_bar(args, 1, "sensitivity")
+    try:
+        if args.method == "local":
+            result = local_sensitivity(scenario, args.param, args.metric, scheduler=args.scheduler, progress=update)
+        elif args.method == "sobol":
+            result = sobol_indices(with_variability(scenario, args.vary, args.correlate), args.n or 1024, args.metric,
+                                   seed=args.seed, scheduler=args.scheduler, progress=update)
+        else:
+            result = morris_screening(with_variability(scenario, args.vary, args.correlate), args.n or 20,
+                                      args.metric, levels=args.levels, seed=args.seed, scheduler=args.scheduler,
+                                      progress=update)
+    finally:
+        if bar is not None:
+            bar.close()
+    result.to_csv(out)
+    print(result.summary())
+    print(f"wrote {out}")
     print(CAUTION)
     return EXIT_OK
 
@@ -658,6 +773,11 @@ COMMANDS: dict[str, Command] = {
     "population": Command("simulate N subjects drawn from the [[vary]] tables; write percentile bands and every "
                           "subject's values and metrics; print their distribution", _add_population,
                           lambda a: _cmd_population(a)),
+    "sweep": Command("simulate a grid over one or two parameters (linear or log steps); write every metric at every "
+                     "point", _add_sweep, lambda a: _cmd_sweep(a)),
+    "sensitivity": Command("rank the parameters that drive each metric: local coefficients d ln(metric) / "
+                           "d ln(parameter), Sobol indices or Morris screening over the [[vary]] distributions",
+                           _add_sensitivity, lambda a: _cmd_sensitivity(a)),
     "serve": Command("start the dashboard in a web browser, with the scenario opened if one is named",
                      _add_serve, lambda a: _cmd_serve(a)),
 }

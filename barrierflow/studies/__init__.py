@@ -28,15 +28,25 @@ qualified review.
 
 from .distributions import Marginal, Variability, subject_rng, with_variability
 from .population import DEFAULT_PERCENTILES, Failure, PopulationResult, SubjectTable, run_population
+from .sensitivity import SensitivityResult, local_sensitivity, morris_screening, sobol_indices, sobol_of_function
+from .sweep import Axis, SweepResult, run_sweep
 
 __all__ = [
     "DEFAULT_PERCENTILES",
+    "Axis",
     "Failure",
     "Marginal",
     "PopulationResult",
+    "SensitivityResult",
     "SubjectTable",
+    "SweepResult",
     "Variability",
+    "local_sensitivity",
+    "morris_screening",
     "run_population",
+    "run_sweep",
+    "sobol_indices",
+    "sobol_of_function",
     "subject_rng",
     "with_variability",
 ]

@@ -45,7 +45,8 @@ from ..model import Scenario
 from ..model.paths import Param, with_values
 from ..units import unit_factor
 
-__all__ = ["ChunkOutcome", "ChunkTask", "chunk_size_for", "run_chunk", "run_tasks", "simulate_subjects"]
+__all__ = ["ChunkOutcome", "ChunkTask", "Evaluation", "chunk_size_for", "evaluate", "run_chunk", "run_tasks",
+           "simulate_subjects", "solver_accuracy"]
 
 CHUNK_BYTES = 48e6
 """Target size of a chunk's traces in memory (the chunk size is chosen from it)."""
@@ -391,3 +392,71 @@ def _run_on_cluster(tasks: Iterable[ChunkTask], scheduler: object,
     finally:
         if own:
             client.close()
+
+
+# ---------------------------------------------------------------- metrics of given points
+@dataclass(frozen=True, eq=False)
+class Evaluation:
+    """The metrics of given subjects (a sweep's grid, a sensitivity design).
+
+    Attributes
+    ----------
+    metrics : MetricTable
+        One row per subject, in the ``[output]`` units; NaN for a failed subject.
+    ok : ndarray of bool
+    messages : tuple of str
+        ``""`` or why the subject failed.
+    """
+
+    metrics: MetricTable
+    ok: np.ndarray
+    messages: tuple[str, ...]
+
+
+def evaluate(base: Scenario, params: Sequence[Param], values: np.ndarray, *, scheduler: object | None = None,
+             progress: Callable[[int, int], None] | None = None, integrator: str | None = None,
+             chunk: int | None = None) -> Evaluation:
+    """Every metric of each subject given by its parameter values (rows of ``values``, internal units).
+
+    The subjects run in chunks, here or on a cluster (:func:`run_tasks`), without traces.
+    """
+    values = np.asarray(values, dtype=float)
+    n = len(values)
+    size = chunk or chunk_size_for(base, n, traces=False)
+    tasks = (ChunkTask(base, tuple(params), first + 1, values[first:first + size], traces=False,
+                       integrator=integrator) for first in range(0, n, size))
+    rows: list[np.ndarray] = []
+    ok: list[np.ndarray] = []
+    messages: list[str] = []
+    names: tuple[str, ...] = ()
+    units: tuple[str, ...] = ()
+    done = 0
+    for out in run_tasks(tasks, scheduler=scheduler):
+        names, units = out.metrics.names, out.metrics.units
+        rows.append(out.metrics.values)
+        ok.append(out.ok)
+        messages.extend(out.messages)
+        done += out.count
+        if progress is not None:
+            progress(done, n)
+    return Evaluation(MetricTable(names, units, np.concatenate(rows) if rows else np.zeros((0, 0))),
+                      np.concatenate(ok) if ok else np.zeros(0, dtype=bool), tuple(messages))
+
+
+def solver_accuracy(base: Scenario, integrator: str | None = None) -> float:
+    """The relative accuracy of a subject's metrics on the path the engine takes (for difference steps).
+
+    RODAS4: its relative tolerance; the exact paths: 1e-10 (their round-off, with a margin).
+    """
+    from ..engine.compiled import compile_scenario
+    from ..engine.exact_chain import chain_order
+    from ..engine.rosenbrock import RosenbrockIntegrator
+
+    rodas = RosenbrockIntegrator().rtol
+    if integrator == "rodas":
+        return rodas
+    try:
+        exact = chain_order(compile_scenario(base, _GRID)) is not None
+    except BarrierflowError:
+        exact = False
+    return 1e-10 if exact else rodas

@@ -75,6 +75,7 @@ __all__ = [
     "find",
     "first_selection",
     "locate",
+    "missing_to_run",
     "move_layer",
     "new_draft",
     "remove_dose",
@@ -398,7 +399,8 @@ def check(draft: Mapping[str, Any]) -> tuple[Scenario | None, dict[str, Any]]:
     found : dict
         JSON-ready (kept in a ``dcc.Store``): ``ok`` (bool), ``toml`` (canonical TOML text of
         the valid scenario, or None), ``name``, ``digest``, ``messages`` (target -> list of
-        messages, see :func:`locate`) and ``all`` (every message, in the order of the file).
+        messages, see :func:`locate`), ``all`` (every message, in the order of the file) and
+        ``problems`` (the ``field`` and ``path`` of each).
     """
     file = draft.get("file") or "untitled.toml"
     try:
@@ -406,11 +408,32 @@ def check(draft: Mapping[str, Any]) -> tuple[Scenario | None, dict[str, Any]]:
     except ScenarioError as err:
         problems = list(err.problems)
         return None, dict(ok=False, toml=None, name=None, digest=None,
-                           messages=locate(problems, draft), all=[str(p) for p in problems])
+                           messages=locate(problems, draft), all=[str(p) for p in problems],
+                           problems=[{"field": p.field, "path": p.path} for p in problems])
     text = scenario.to_toml()
     # the same hash as Scenario.digest, without writing the TOML text a second time
     digest = hashlib.sha256(text.encode()).hexdigest()
-    return scenario, dict(ok=True, toml=text, name=scenario.name, digest=digest, messages={}, all=[])
+    return scenario, dict(ok=True, toml=text, name=scenario.name, digest=digest, messages={}, all=[], problems=[])
+
+
+def missing_to_run(scenario: Scenario) -> list[str]:
+    """What a valid scenario lacks to be worth running (empty when nothing is missing).
+
+    A run of a scenario in which no substance is anywhere (no compartment starts with any, none
+    is held above 0, no dose) gives zeros everywhere: the dashboard does not run it, and says so.
+
+    Examples
+    --------
+    >>> d, _ = add_compartment(new_draft(), "donor")
+    >>> missing_to_run(check(d)[0])[0].split(":")[0]
+    'No substance anywhere'
+    """
+    held = any(c.held and (c.held_concentration or 0) > 0 for c in scenario.compartments)
+    initial = any((c.initial_concentration or 0) > 0 for c in scenario.compartments)
+    if held or initial or scenario.doses:
+        return []
+    return ["No substance anywhere: give a compartment an initial concentration or a held concentration above 0, "
+            "or add a dose."]
 
 
 _ELEMENTS = ("compartment", "barrier", "exchange", "transfer")

@@ -45,8 +45,14 @@ def layout(initial: dict[str, Any], view: dict[str, Any] | None = None) -> html.
                 html.Span("shown in legends and tables", className="field-hint"),
             ], className="run-field"),
             html.Div([
-                html.Button("Run", id=ids.RUN, className="btn primary big"),
+                html.Button("Run", id=ids.RUN, className="btn primary big",
+                            title="run the scenario as it is on the screen"),
+                html.Button("Run the last valid version instead", id=ids.RUN_LAST, className="btn warn-outline",
+                            style={"display": "none"},
+                            title="the screen has problems: run the version before those edits; the run's name "
+                                  "and the runs list say so"),
                 html.Button("Cancel", id=ids.CANCEL, className="btn", disabled=True),
+                dcc.Store(id=ids.RUN_REQUEST),
             ], className="run-buttons"),
         ], className="run-row"),
         html.Div([
@@ -76,28 +82,62 @@ def layout(initial: dict[str, Any], view: dict[str, Any] | None = None) -> html.
     ])
 
 
-def make_run(valid: dict[str, Any] | None, found: dict[str, Any] | None, name: str | None,
+SCREEN = "screen"
+LAST_VALID = "last valid version"
+
+
+def refusal(found: dict[str, Any], has_valid: bool) -> list[Any]:
+    """Why Run refuses the scenario on the screen: its problems, field by field, or what is missing."""
+    if not found.get("ok"):
+        fields = []
+        for p in found.get("problems", []):
+            place = p.get("field") or p.get("path") or "the file"
+            if place not in fields:
+                fields.append(place)
+        n = len(found.get("all", []))
+        head = (f"Not run: the scenario on the screen has {n} problem{'s' if n != 1 else ''}. "
+                f"Fix {'this field' if len(fields) == 1 else 'these fields'}: {'; '.join(fields)}.")
+        tail = (" Or choose “Run the last valid version instead” to run the version before these edits, under a "
+                "name that says so.") if has_valid else ""
+        return [html.Span(head, className="bad"), html.Span(tail, className="warn")]
+    missing = found.get("missing") or []
+    return [html.Span("Nothing to run yet: " + " ".join(missing), className="bad")]
+
+
+def make_run(mode: str, found: dict[str, Any] | None, valid: dict[str, Any] | None, name: str | None,
              runs: list[dict[str, Any]] | None, archive: RunArchive,
              progress: Any = None, compute: Any = None) -> tuple[list[dict[str, Any]], Any]:
-    """Simulate the last valid scenario, keep it in the archive and add it to the runs.
+    """Run the scenario on the screen (``mode`` "screen") or, on request, its last valid version.
 
+    The scenario on the screen runs only when it is valid and has something to run (``found``,
+    from :func:`dashboard.draft.check` with ``missing``); otherwise nothing runs and the status
+    names the fields to fix. ``mode`` "last valid version" runs ``valid`` (the last valid
+    version of the open scenario) under a name that says so, and its record says so too.
     ``compute(toml, name, file, progress)`` makes the run (default: :func:`dashboard.runs.execute`
     in this process; the app passes one that runs it in a worker process).
 
     Returns
     -------
     runs : list of dict
-        The run records, the new one last.
+        The run records, the new one last (unchanged when nothing ran).
     status : component
         What to tell the researcher.
     """
     runs = list(runs or [])
-    if not valid or not valid.get("toml"):
-        return runs, html.Span("Nothing to run yet: the scenario has never been valid. Fix the problems listed "
-                               "below.", className="bad")
+    found = found or {"ok": False, "all": [], "problems": []}
+    has_valid = bool(valid and valid.get("toml"))
+    if mode == LAST_VALID:
+        if not has_valid:
+            return runs, html.Span("Nothing to run: this scenario has no valid version yet.", className="bad")
+        toml, file = valid["toml"], valid.get("file")
+    else:
+        if not found.get("ok") or found.get("missing"):
+            return runs, refusal(found, has_valid)
+        toml, file = found["toml"], found.get("file")
     number = 1 + max((int(r["id"][1:]) for r in runs), default=0)
     name = (name or "").strip() or f"run {number}"
-    toml = valid["toml"]
+    if mode == LAST_VALID:
+        name = f"{name} ({LAST_VALID})"
     key = run_key(toml)
     started = time.perf_counter()
     data = archive.get(key)
@@ -105,7 +145,7 @@ def make_run(valid: dict[str, Any] | None, found: dict[str, Any] | None, name: s
     error = ""
     if data is None:
         try:
-            data = (compute or execute)(toml, name, valid.get("file"), progress)
+            data = (compute or execute)(toml, name, file, progress)
         except SolverError as err:
             error = f"The numerical solution failed: {err}"
         except (BarrierflowError, WorkerFailed) as err:
@@ -113,9 +153,8 @@ def make_run(valid: dict[str, Any] | None, found: dict[str, Any] | None, name: s
         else:
             archive.put(key, data)
     elapsed = time.perf_counter() - started
-    record = new_record(f"r{number}", name, toml, valid.get("file"), data, error)
+    record = new_record(f"r{number}", name, toml, file, data, error, source=mode)
     runs.append(record)
-    stale = found is not None and not found.get("ok")
     parts = []
     if error:
         parts.append(html.Span(f"{name} failed. {error}", className="bad"))
@@ -126,8 +165,8 @@ def make_run(valid: dict[str, Any] | None, found: dict[str, Any] | None, name: s
                                f"{len(data.times)} output times, {how}.", className="good"))
         if data.status != 0:
             parts.append(html.Span(f" The run stopped early: {data.message}", className="bad"))
-    if stale:
-        parts.append(html.Span(" The edited scenario has problems, so this run used its last valid version.",
+    if mode == LAST_VALID:
+        parts.append(html.Span(" This run is the last valid version of the scenario, not what is on the screen.",
                                className="warn"))
     return runs, parts
 
@@ -142,23 +181,26 @@ def register(app: Any, services: Any) -> None:
         Input(ids.DRAFT, "data"),
     )
     def validate(d):
-        _scenario, found = D.check(d)
+        scenario, found = D.check(d)
+        found["file"] = d.get("file")
+        found["missing"] = D.missing_to_run(scenario) if scenario is not None else []
         valid = {"toml": found["toml"], "name": found["name"], "digest": found["digest"], "file": d["file"]}
         return found, (valid if found["ok"] else no_update)
 
     @app.callback(
         Output(ids.PROBLEMS, "children"),
-        Output(ids.RUN, "children"),
+        Output(ids.RUN_LAST, "style"),
         Output(ids.scenario_message("duration"), "children"),
         Output(ids.scenario_message("output_step"), "children"),
         Output(ids.DURATION, "className"),
         Output(ids.OUTPUT_STEP, "className"),
         Output(ids.OUTPUT_TIMES_NOTE, "children"),
         Input(ids.CHECK, "data"),
-        State(ids.VALID, "data"),
+        Input(ids.VALID, "data"),
         State(ids.DRAFT, "data"),
     )
     def problems(found, valid, d):
+        found = found or {}
         msgs = found.get("messages", {})
         dur = " ".join(msgs.get("s:duration", []))
         step = " ".join(msgs.get("s:output_step", []) + msgs.get("s:output_times", []))
@@ -167,15 +209,18 @@ def register(app: Any, services: Any) -> None:
             note = (f"The file gives {len(d['output_times'])} explicit output times; typing a step here "
                     "replaces them.")
         cls = ("field-input invalid" if dur else "field-input", "field-input invalid" if step else "field-input")
+        hidden = {"display": "none"}
         if found.get("ok"):
-            return "", "Run", dur, step, cls[0], cls[1], note
+            missing = found.get("missing") or []
+            listed = [html.Div("Nothing to run yet: " + " ".join(missing), className="problems-head")] if missing \
+                else ""
+            return listed, hidden, dur, step, cls[0], cls[1], note
         n = len(found.get("all", []))
         has_valid = bool(valid and valid.get("toml"))
-        head = (f"The scenario has {n} problem{'s' if n != 1 else ''}. "
-                + ("The Run button runs its last valid version." if has_valid else
-                   "Fix them to run it."))
+        head = (f"The scenario on the screen has {n} problem{'s' if n != 1 else ''}: Run refuses it until they are "
+                "fixed." + (" Its last valid version can still be run (the button beside Run)." if has_valid else ""))
         return ([html.Div(head, className="problems-head"), message_list(found.get("all", []))],
-                "Run last valid version" if has_valid else "Run", dur, step, cls[0], cls[1], note)
+                {} if has_valid else hidden, dur, step, cls[0], cls[1], note)
 
     @app.callback(
         Output(ids.DURATION, "value"),
@@ -204,19 +249,34 @@ def register(app: Any, services: Any) -> None:
             raise PreventUpdate
         return D.set_scenario(d, **changes)
 
+    # Which button was pressed becomes a request in the page (with a random nonce, so that every
+    # click is a background job of its own); the background run reads what it asks for from it.
+    app.clientside_callback(
+        """
+        function(run, last) {
+            const ctx = window.dash_clientside.callback_context;
+            const mode = ctx.triggered_id === "run-last-valid" ? "last valid version" : "screen";
+            return {mode: mode, nonce: Math.random().toString(36).slice(2) + Date.now().toString(36)};
+        }
+        """,
+        Output(ids.RUN_REQUEST, "data"),
+        Input(ids.RUN, "n_clicks"),
+        Input(ids.RUN_LAST, "n_clicks"),
+        prevent_initial_call=True,
+    )
+
     @app.callback(
         Output(ids.RUNS, "data"),
         Output(ids.RUN_STATUS, "children"),
         Output(ids.RUN_NAME, "value"),
-        Input(ids.RUN, "n_clicks"),
+        Input(ids.RUN_REQUEST, "data"),
+        State(ids.DRAFT, "data"),
         State(ids.VALID, "data"),
-        State(ids.CHECK, "data"),
         State(ids.RUN_NAME, "value"),
         State(ids.RUNS, "data"),
         # The page's token is part of the background job's key (a hash of the callback's
-        # arguments): without it, two pages that run the same scenario under the same name at
-        # the same moment share one job key, and the first to collect the result takes the
-        # other's too.
+        # arguments), with the request's nonce: two pages that run the same scenario under the
+        # same name at the same moment never share a job.
         State(ids.PAGE, "data"),
         background=True,
         manager=services.manager,
@@ -224,6 +284,7 @@ def register(app: Any, services: Any) -> None:
         progress_default=["0", ""],
         running=[
             (Output(ids.RUN, "disabled"), True, False),
+            (Output(ids.RUN_LAST, "disabled"), True, False),
             (Output(ids.CANCEL, "disabled"), False, True),
             (Output(ids.PROGRESS, "className"), "progress running", "progress"),
         ],
@@ -231,7 +292,7 @@ def register(app: Any, services: Any) -> None:
         interval=services.poll_ms,
         prevent_initial_call=True,
     )
-    def run(set_progress, _n, valid, found, name, runs, _page):
+    def run(set_progress, request, d, valid, name, runs, _page):
         last = [0.0]
 
         def progress(fraction: float) -> None:
@@ -243,7 +304,16 @@ def register(app: Any, services: Any) -> None:
         def compute(toml, name, file, progress):
             return services.workers.call(execute, toml, name, file, progress=progress)
 
-        new_runs, status = make_run(valid, found, name, runs, archive, progress, compute)
+        mode = (request or {}).get("mode", SCREEN)
+        found = None
+        if mode == SCREEN:
+            # what is on the screen, checked here (the check of the page may lag one edit behind)
+            scenario, found = D.check(d)
+            found["file"] = d.get("file")
+            found["missing"] = D.missing_to_run(scenario) if scenario is not None else []
+        new_runs, status = make_run(mode, found, valid, name, runs, archive, progress, compute)
+        if len(new_runs) == len(runs or []):
+            return no_update, status, no_update  # refused: the name typed stays
         return new_runs, status, ""
 
     @app.callback(
@@ -281,8 +351,10 @@ def register(app: Any, services: Any) -> None:
         for r in runs:
             took = f", {r['wall_time_s']:.2f} s" if r.get("wall_time_s") is not None else ""
             failed = " (failed)" if r.get("error") or r.get("status") else ""
-            opts.append({"label": f" {r['name']}{failed}: {r.get('scenario') or r.get('file') or ''} "
-                                  f"[{r['created']}{took}]", "value": r["id"], "disabled": bool(r.get("error"))})
+            origin = {LAST_VALID: " — the last valid version, not the edited screen",
+                      "project file": " — from a project file"}.get(r.get("source"), "")
+            label = f" {r['name']}{failed}: {r.get('scenario') or r.get('file') or ''} [{r['created']}{took}]{origin}"
+            opts.append({"label": label, "value": r["id"], "disabled": bool(r.get("error"))})
         number = 1 + max((int(r["id"][1:]) for r in runs), default=0)
         existing = {r["id"] for r in runs}
         value = [v for v in (picked or []) if v in existing]

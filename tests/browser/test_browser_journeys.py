@@ -180,7 +180,9 @@ def test_upload_change_partition_rerun_and_compare(ui, tmp_path):
 
 
 def test_invalid_values_are_flagged_at_the_field_and_nothing_is_lost(ui, tmp_path):
-    """Journey 3: a negative thickness and a wrong unit are flagged with the CLI's messages."""
+    """Journey 3: a negative thickness and a wrong unit are flagged with the CLI's messages; Run
+    refuses them naming the fields; the last valid version runs only when asked for, and its
+    name and the runs list say so."""
     page = ui.page
     ui.open()
     ui.pick("example-pick", "Daily patch over two-layer skin into a two-compartment body (daily_patch.toml)")
@@ -200,7 +202,7 @@ def test_invalid_values_are_flagged_at_the_field_and_nothing_is_lost(ui, tmp_pat
     wrong_unit = "daily_patch.toml: compartment 'central' volume: got 15 kg; wrong kind of unit"
     expect(ui.field_message("compartment", "volume")).to_contain_text(wrong_unit)
     expect(ui.field("compartment", "volume").locator("xpath=..")).to_have_class(re.compile(r"\binvalid\b"))
-    expect(page.locator("#run-problems")).to_contain_text("The scenario has 2 problems")
+    expect(page.locator("#run-problems")).to_contain_text("The scenario on the screen has 2 problems")
 
     # the command line gives the same messages for the saved file
     saved = _download(page, "#scenario-save", tmp_path)
@@ -214,12 +216,29 @@ def test_invalid_values_are_flagged_at_the_field_and_nothing_is_lost(ui, tmp_pat
         assert message in cli_lines, (message, cli_lines)
     assert ui.field_message("compartment", "volume").inner_text() in page_messages
 
-    # the page keeps working: the last valid scenario still runs
-    expect(page.locator("#run-button")).to_have_text("Run last valid version")
+    # Run refuses what is on the screen, naming the fields to fix; nothing is added to the runs
     page.locator("#run-button").click()
-    expect(page.locator("#run-status")).to_contain_text("used its last valid version")
+    expect(page.locator("#run-status")).to_contain_text(
+        "Not run: the scenario on the screen has 2 problems. Fix these fields: compartment 'central' volume; "
+        "barrier 'skin' layer 1 thickness.")
     ui.idle()
+    expect(page.locator("#runs-pick input")).to_have_count(1)
+    # the last valid version runs only when asked for, plainly labelled in its name and in the runs list
+    last = page.locator("#run-last-valid")
+    expect(last).to_be_visible()
+    expect(last).to_have_text("Run the last valid version instead")
+    last.click()
+    page.locator("#run-status .good", has_text="run 2 (last valid version) done").wait_for(timeout=60_000)
+    expect(page.locator("#run-status")).to_contain_text("not what is on the screen")
+    ui.idle()
+    expect(page.locator("#runs-pick label").nth(1)).to_contain_text(
+        "run 2 (last valid version): Daily patch")
+    expect(page.locator("#runs-pick label").nth(1)).to_contain_text("the last valid version, not the edited screen")
     ui.figure("fig-concentration", until=lambda ts: len(ts) == 3)
+    page.locator("#runs-pick input[value='r1']").check()
+    ui.idle()
+    names = [t["name"] for t in ui.figure("fig-concentration", until=lambda ts: len(ts) == 6)]
+    assert sum(n.endswith("· run 2 (last valid version)") for n in names) == 3, names
 
     # nothing was lost: the wrong values are still there to be fixed
     expect(ui.field("compartment", "volume")).to_have_value("15 kg")
@@ -230,8 +249,38 @@ def test_invalid_values_are_flagged_at_the_field_and_nothing_is_lost(ui, tmp_pat
     ui.shot("journey3-invalid-values")
     ui.edit_cell("layer-grid", 0, "thickness", "15 um")
     expect(page.locator("#layer-messages")).to_be_empty()
-    expect(page.locator("#run-button")).to_have_text("Run")
     expect(page.locator("#run-problems")).to_be_empty()
+    expect(page.locator("#run-last-valid")).to_be_hidden()
+
+
+def test_a_new_empty_scenario_cannot_run_and_says_what_is_missing(ui):
+    """Journey 8: after an example ran, "New empty scenario" runs nothing (never the example) and
+    says what is missing, first compartments, then substance."""
+    page = ui.page
+    ui.open()
+    ui.pick("example-pick", "Diffusion cell, infinite dose, sink receptor (diffusion_cell.toml)")
+    page.locator("#example-open").click()
+    expect(ui.field("link", "id")).to_have_value("membrane")
+    ui.run(1)
+    page.locator("#scenario-new").click()
+    expect(page.locator("#scenario-open-message")).to_contain_text("Started an empty scenario")
+    ui.idle()
+    expect(page.locator("#run-last-valid")).to_be_hidden()  # the example is not this scenario's last version
+    page.locator("#run-button").click()
+    expect(page.locator("#run-status")).to_contain_text("Not run: the scenario on the screen has 1 problem. "
+                                                        "Fix this field: compartment.")
+    expect(page.locator("#run-problems")).to_contain_text("a scenario needs at least one [[compartment]]")
+    page.locator("#network-add-compartment").click()
+    ui.idle()
+    expect(page.locator("#run-problems")).to_contain_text("Nothing to run yet: No substance anywhere")
+    page.locator("#run-button").click()
+    expect(page.locator("#run-status")).to_contain_text("Nothing to run yet: No substance anywhere")
+    ui.type_into(ui.field("compartment", "initial_concentration"), "1 mg/mL")
+    ui.idle()
+    expect(page.locator("#run-problems")).to_be_empty()
+    ui.run(2)
+    expect(page.locator("#runs-pick input")).to_have_count(2)
+    ui.shot("journey8-empty-scenario")
 
 
 INTERFACE_SCENARIO = """\

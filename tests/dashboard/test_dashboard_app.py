@@ -14,7 +14,7 @@ import pytest
 import barrierflow
 from dashboard import CAUTION, create_app, ids
 from dashboard import draft as D
-from dashboard.panels.run import make_run
+from dashboard.panels.run import LAST_VALID, SCREEN, make_run
 from dashboard.runs import RunArchive
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -82,23 +82,53 @@ def test_the_validation_callback_answers_over_http(app):
         "daily_patch.toml: compartment 'central' volume: got -15 L; must be > 0"]
 
 
-def test_make_run_adds_a_record_and_reuses_an_identical_run(tmp_path):
+def test_make_run_runs_the_screen_and_reuses_an_identical_run(tmp_path):
     archive = RunArchive(tmp_path)
     text = (ROOT / "scenarios" / "membrane_washoff.toml").read_text()
     scenario = barrierflow.loads(text)
-    valid = {"toml": scenario.to_toml(), "file": "membrane_washoff.toml"}
-    runs, status = make_run(valid, {"ok": True}, "", [], archive)
-    assert [r["name"] for r in runs] == ["run 1"]
+    d = D.draft_from_scenario(scenario, "membrane_washoff.toml")
+    _s, found = D.check(d)
+    found["missing"] = []
+    runs, status = make_run(SCREEN, found, None, "", [], archive)
+    assert [(r["name"], r["source"]) for r in runs] == [("run 1", "screen")]
     assert "run 1 done" in status[0].children and "simulated" in status[0].children
-    runs, status = make_run(valid, {"ok": False}, "again", runs, archive)
+    runs, status = make_run(SCREEN, found, None, "again", runs, archive)
     assert [r["id"] for r in runs] == ["r1", "r2"] and runs[1]["name"] == "again"
     assert "reused" in status[0].children
-    assert "last valid version" in status[1].children
     data = archive.get(runs[1]["key"])
     expected = barrierflow.simulate(scenario)
     assert data.conc["receptor"][-1] == pytest.approx(float(expected.concentration("receptor")[-1]), rel=1e-12)
 
 
-def test_make_run_without_a_valid_scenario_says_so(tmp_path):
-    runs, status = make_run(None, {"ok": False}, "", [], RunArchive(tmp_path))
-    assert runs == [] and "never been valid" in status.children
+def test_run_refuses_a_screen_with_problems_naming_the_fields_and_labels_the_last_valid_version(tmp_path):
+    archive = RunArchive(tmp_path)
+    d = D.draft_from_scenario(barrierflow.load(ROOT / "scenarios" / "membrane_washoff.toml"), "m.toml")
+    _s, good = D.check(d)
+    valid = {"toml": good["toml"], "file": "m.toml"}
+    skin = next(x for x in d["links"] if x["kind"] == "barrier")
+    bad = D.set_layers(d, skin["key"], [dict(layer, thickness="-5 um") for layer in skin["layers"]])
+    _s, found = D.check(bad)
+    runs, status = make_run(SCREEN, found, valid, "", [], archive)
+    assert runs == []
+    text = " ".join(part.children for part in status)
+    assert text.startswith("Not run: the scenario on the screen has 2 problems. Fix these fields: barrier 'silicone' "
+                           "layer 1 thickness; barrier 'silicone' layer 2 thickness.")
+    assert "Run the last valid version instead" in text
+    runs, status = make_run(LAST_VALID, found, valid, "", [], archive)
+    assert [(r["name"], r["source"]) for r in runs] == [("run 1 (last valid version)", "last valid version")]
+    assert "not what is on the screen" in status[-1].children
+
+
+def test_a_new_empty_scenario_cannot_run_and_says_what_is_missing(tmp_path):
+    archive = RunArchive(tmp_path)
+    _s, found = D.check(D.new_draft())
+    runs, status = make_run(SCREEN, found, None, "", [], archive)
+    assert runs == [] and "compartment" in status[0].children
+    d, _ = D.add_compartment(D.new_draft(), "donor")
+    scenario, found = D.check(d)
+    found["missing"] = D.missing_to_run(scenario)
+    runs, status = make_run(SCREEN, found, None, "", [], archive)
+    assert runs == [] and status[0].children.startswith("Nothing to run yet: No substance anywhere")
+    runs, status = make_run(LAST_VALID, found, None, "", [], archive)
+    assert runs == [] and "no valid version" in status.children
+    assert (ids.RUN_LAST, LAST_VALID) == ("run-last-valid", "last valid version")  # as written in the page's script

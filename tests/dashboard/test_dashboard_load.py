@@ -86,7 +86,8 @@ def session(base: str, app, index: int, timing: Timing) -> dict:
     state_ids = _callback_state(app, RUN)
     values = {f"{ids.VALID}.data": valid, f"{ids.CHECK}.data": found, f"{ids.RUN_NAME}.value": "",
               f"{ids.RUNS}.data": [], f"{ids.PAGE}.data": page, f"{ids.DRAFT}.data": draft}
-    answer = client.call(RUN, {f"{ids.RUN}.n_clicks": 1}, {k: values[k] for k in state_ids}, kind="run",
+    request = {"mode": "screen", "nonce": "same" if index < IDENTICAL else f"load-{index}"}
+    answer = client.call(RUN, {f"{ids.RUN_REQUEST}.data": request}, {k: values[k] for k in state_ids}, kind="run",
                          background=True)
     runs = (answer.get(ids.RUNS) or {}).get("data") or []
     if not runs or runs[-1].get("error"):

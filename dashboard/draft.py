@@ -81,6 +81,7 @@ __all__ = [
     "remove_dose",
     "remove_layer",
     "save_text",
+    "set_at_path",
     "set_doses",
     "set_layers",
     "set_output",
@@ -489,6 +490,36 @@ def locate(problems: Iterable[Problem], draft: Mapping[str, Any]) -> dict[str, l
         else:
             add("general", p)
     return out
+
+
+def set_at_path(draft: Mapping[str, Any], path: str, text: str) -> dict[str, Any]:
+    """Set the field a parameter path names (``barrier.skin.layer.1.diffusivity``) to ``text``, as typed.
+
+    The place is found as :func:`locate` finds a problem's field; several paths joined by commas
+    (a tied group) are all set.
+
+    Raises
+    ------
+    KeyError
+        When the draft has no field at that path.
+    """
+    d = copy.deepcopy(dict(draft))
+    for one in (p.strip() for p in path.split(",")):
+        targets = list(locate([Problem("", "", "", path=one)], d))
+        if targets == ["general"] or not targets:
+            raise KeyError(f"the scenario has no field {one!r}")
+        kind, *rest = targets[0].split(":")
+        if kind in ("c", "l"):
+            item = find(d, rest[0])
+            item[rest[1]] = text
+        elif kind == "y":
+            _layers(d, rest[0])[int(rest[1])][rest[2]] = text
+        elif kind == "d":
+            d["doses"][int(rest[0])][rest[1]] = text
+        else:
+            table = {"s": "scenario", "sub": "substance", "o": "output"}[kind]
+            d[table][rest[0]] = text
+    return d
 
 
 # ================================================================ saving

@@ -125,6 +125,36 @@ EXPORT_DOWNLOAD = "export-download"
 IMAGE_FORMAT = "image-format"
 
 
+# ---------------------------------------------------------------- fit to data
+FIT_DATA = "store-fit-data"        # the lab's data file: {"name", "text"}
+FIT_PREVIEW = "store-fit-preview"  # the open scenario's curves over the span of the data
+FIT_RESULT = "store-fit-result"    # the last fit, packed (dashboard.fitting.pack_fit)
+FIT_UPLOAD = "fit-upload"
+FIT_EXAMPLE = "fit-example-pick"
+FIT_OPEN_EXAMPLE = "fit-example-open"
+FIT_DATA_NOTE = "fit-data-note"
+FIT_OBSERVABLE = "fit-observable"
+FIT_FREE = "fit-free"
+FIT_BOUNDS = "fit-bounds"
+FIT_WEIGHTS = "fit-weights"
+FIT_OPTIONS = "fit-options"        # profile intervals, replicates one by one
+FIT_MCMC = "fit-mcmc"
+FIT_RUN = "fit-run"
+FIT_CANCEL = "fit-cancel"
+FIT_PROGRESS = "fit-progress"
+FIT_STATUS = "fit-status"
+FIT_FIGURE = "fig-fit"
+FIT_RESIDUALS = "fig-fit-residuals"
+FIT_TABLE = "fit-table"
+FIT_WARNINGS = "fit-warnings"
+FIT_ADOPT = "fit-adopt"
+FIT_ADOPT_NOTE = "fit-adopt-note"
+FIT_EXPORT_REPORT = "fit-export-report"
+FIT_EXPORT_TOML = "fit-export-toml"
+FIT_EXPORT_RESIDUALS = "fit-export-residuals"
+FIT_DOWNLOAD = "fit-download"
+
+
 # ---------------------------------------------------------------- pattern-matching ids
 def field(scope: str, name: str) -> dict[str, str]:
     """Id of an input of the properties panel: ``scope`` is ``"compartment"`` or ``"link"``."""

@@ -34,6 +34,9 @@ WEIGHTS = ("none", "1/y", "1/y^2", "replicate")
 WEIGHT_FLOOR = 0.01
 """Weights use max(|y|, WEIGHT_FLOOR * the largest |y| of the observable) (see :mod:`barrierflow.studies.fit`)."""
 
+PROFILE_SPAN = 25.0
+"""How far (in the logarithm) a profile searches for the end of an interval before calling it open."""
+
 Progress = Callable[[str, float], None]
 """Called with the stage (``"fit"``, ``"profile"``, ``"replicates"``, ``"posterior"``, ...) and the fraction done."""
 
@@ -167,7 +170,32 @@ class Posterior:
 
 # ============================================================================ data and weights
 class ObservedData:
-    """The measured values as flat arrays, with their weights."""
+    """The measured values of an experiment as flat arrays (blank cells left out), with their weights.
+
+    Parameters
+    ----------
+    experiment : Experiment
+    weights : {"none", "1/y", "1/y^2", "replicate"}
+
+    Attributes
+    ----------
+    t : ndarray, h
+    y : ndarray
+        Internal units of each value's kind.
+    observable, replicate : ndarray of str
+    time_index : ndarray of int
+        Row of the experiment each value comes from.
+    w : ndarray
+        The weights (see :mod:`barrierflow.studies.fit`).
+    n : int
+    all : ndarray of bool
+        A mask selecting every value.
+
+    Raises
+    ------
+    ScenarioError
+        For replicate weights when no time has two differing replicates.
+    """
 
     def __init__(self, experiment: Experiment, weights: str) -> None:
         times = experiment.time_array
@@ -191,6 +219,7 @@ class ObservedData:
         self.w = self._weights(weights)
 
     def replicate_mask(self, tag: str) -> np.ndarray:
+        """A mask selecting one replicate's values."""
         return self.replicate == tag
 
     def _weights(self, scheme: str) -> np.ndarray:
@@ -225,14 +254,17 @@ class ObservedData:
 
 # ============================================================================ transforms
 def to_x(value: float, log: bool) -> float:
+    """The estimated quantity of a parameter value: its logarithm when ``log``, else itself."""
     return math.log(value) if log else float(value)
 
 
 def from_x(x: float, log: bool) -> float:
+    """The parameter value of an estimated quantity (the inverse of :func:`to_x`)."""
     return math.exp(x) if log else float(x)
 
 
 def from_x_all(x: np.ndarray, logs: Sequence[bool]) -> list[float]:
+    """:func:`from_x` for every parameter."""
     return [from_x(v, lg) for v, lg in zip(x, logs, strict=True)]
 
 
@@ -244,12 +276,20 @@ def inside(x: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
 
 
 def clip_interval(a: float, b: float, lo: float, hi: float) -> tuple[float, float]:
+    """The interval (a, b) cut to the bounds (lo, hi)."""
     return max(a, lo), min(b, hi)
 
 
 # ============================================================================ the least-squares problem
 class LeastSquares:
-    """Weighted residuals as a function of the estimated quantities x."""
+    """Weighted residuals r = sqrt(w) (y - f(x)) as a function of the estimated quantities x.
+
+    Holds the :class:`~barrierflow.studies.predict.Predictor` (built once), the bounds in x
+    (``lo``, ``hi``; a quantity that may be 0 is bounded below by 0) and the step of the central
+    differences. Every method takes a mask of the values it works on (all of them, or one
+    replicate's). A value the model cannot run (a failed run, a value the model refuses) gives a
+    large residual, counted in ``failures``, so the search turns back.
+    """
 
     def __init__(self, scenario: Scenario, frees: Sequence[FreeParameter], experiment: Experiment, obs: ObservedData,
                  integrator) -> None:
@@ -272,6 +312,7 @@ class LeastSquares:
         self.failures = 0
 
     def predict(self, x: np.ndarray, mask: np.ndarray) -> np.ndarray:
+        """The predictions at the masked values (the last x's run is kept, as least_squares asks twice)."""
         key = np.asarray(x, dtype=float).tobytes()
         if self._cache is not None and self._cache[0] == key:
             full = self._cache[1]
@@ -286,6 +327,7 @@ class LeastSquares:
         return full[mask]
 
     def residuals(self, x: np.ndarray, mask: np.ndarray) -> np.ndarray:
+        """sqrt(w) (y - f(x)) at the masked values."""
         try:
             f = self.predict(x, mask)
         except (SolverError, ScenarioError):
@@ -346,6 +388,8 @@ class LeastSquares:
                 trial = x_hat[j] + direction * abs(inside_x - x_hat[j]) + direction * step
                 if direction * (trial - bound) >= 0:
                     trial = bound
+                if self.logs[j] and abs(trial - x_hat[j]) > PROFILE_SPAN:
+                    break  # a factor e^25 from the estimate and still inside: open on this side
                 value, others = self._profile_value(j, trial, inside_others, mask)
                 if value > threshold:
                     found = (inside_x, trial, inside_others)

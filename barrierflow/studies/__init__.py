@@ -7,6 +7,16 @@ above the analysis layer and below the command line and the dashboard::
 
     dashboard, cli -> studies -> analysis -> engine -> io -> model -> units, errors
 
+Fitting to a lab's data and planning its next experiment:
+
+=========================================  ====================================================
+:func:`fit`                                estimate parameters from replicate data (time-lag
+                                           start, weighted least squares, Jacobian and profile
+                                           intervals, per-replicate fits, emcee posterior)
+:func:`design`                             D-optimal sampling times and the expected CV of each
+                                           parameter, beside the user's own schedule
+=========================================  ====================================================
+
 The studies on many subjects run here on every core or, given the address of a dask.distributed
 scheduler, on a cluster, with bit-identical results (:mod:`barrierflow.studies.runner`):
 
@@ -26,7 +36,9 @@ Results are research estimates, not for clinical dosing or regulatory decisions 
 qualified review.
 """
 
+from .design import DesignResult, design
 from .distributions import Marginal, Variability, subject_rng, with_variability
+from .fit import FitResult, fit
 from .population import DEFAULT_PERCENTILES, Failure, PopulationResult, SubjectTable, run_population
 from .sensitivity import SensitivityResult, local_sensitivity, morris_screening, sobol_indices, sobol_of_function
 from .sweep import Axis, SweepResult, run_sweep
@@ -34,13 +46,17 @@ from .sweep import Axis, SweepResult, run_sweep
 __all__ = [
     "DEFAULT_PERCENTILES",
     "Axis",
+    "DesignResult",
     "Failure",
+    "FitResult",
     "Marginal",
     "PopulationResult",
     "SensitivityResult",
     "SubjectTable",
     "SweepResult",
     "Variability",
+    "design",
+    "fit",
     "local_sensitivity",
     "morris_screening",
     "run_population",

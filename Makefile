@@ -7,7 +7,7 @@ HOST   ?= 127.0.0.1
 PORT   ?= 8050
 DEMO   ?= scenarios/daily_patch.toml
 
-.PHONY: run test venv browser lint bench clean
+.PHONY: run test venv browser lint bench bench-fit clean
 
 $(STAMP): pyproject.toml
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -40,6 +40,10 @@ lint: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) tests/benchmarks/run_benchmark.py
+
+# Speed of barrierflow fit: a two-parameter fit of 3 replicates, a profile-likelihood interval
+bench-fit: $(STAMP)
+	$(PY) tests/benchmarks/fit_benchmark.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache build *.egg-info

@@ -301,6 +301,9 @@ def test_the_posterior_by_emcee():
     band = po.band["permeated:membrane"]
     assert band.shape == (5, 60) and np.all(band[3] <= band[0] + 1e-15) and np.all(band[2] <= band[4] + 1e-15)
     assert any("MCMC chain is short" in w for w in r.warnings)
+    band_json = r.as_dict()["posterior"]["band"]
+    assert band_json["permeated:membrane"]["unit"] == "mg/cm^2" and len(band_json["times"]) == 60
+    assert band_json["permeated:membrane"]["curve_p50"] == pytest.approx(band[1].tolist())
     again = fit(cell(), e, DK, weights="1/y^2", profile=False, replicates=False, mcmc=200, seed=1)
     np.testing.assert_array_equal(again.posterior.samples, po.samples)
 

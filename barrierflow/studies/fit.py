@@ -369,8 +369,23 @@ class FitResult:
             doc["posterior"] = {"walkers": self.posterior.walkers, "steps": self.posterior.steps,
                                 "samples": int(self.posterior.samples.shape[0]),
                                 "acceptance": self.posterior.acceptance,
-                                "autocorrelation_steps": [_finite(v) for v in self.posterior.autocorrelation]}
+                                "autocorrelation_steps": [_finite(v) for v in self.posterior.autocorrelation],
+                                "band": self._band()}
         return doc
+
+    def _band(self) -> dict[str, Any]:
+        """The posterior-predictive band in the data file's units (times in its time unit)."""
+        po = self.posterior
+        e = self.experiment
+        mm = self.original.substance.molar_mass
+        out: dict[str, Any] = {"time_unit": e.time_unit,
+                               "times": [convert(float(t), "time", e.time_unit) for t in po.times]}
+        for o, band in po.band.items():
+            ser = e.of(o)[0]
+            f = convert(1.0, ser.kind, ser.unit, mm)
+            out[o] = {"unit": ser.unit, **{k: [float(v) * f for v in band[i]] for i, k in enumerate(
+                ("curve_p2.5", "curve_p50", "curve_p97.5", "new_measurement_p2.5", "new_measurement_p97.5"))}}
+        return out
 
     def to_json(self) -> str:
         """:meth:`as_dict` as JSON text."""

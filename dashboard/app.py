@@ -25,7 +25,7 @@ from . import draft as D
 from . import ids
 from . import view as V
 from .jobs import JobManager, Workers
-from .panels import doses, fit, history, network, properties, results, run, session
+from .panels import doses, fit, history, network, properties, results, run, session, variability
 from .panels import scenario as scenario_bar
 from .panels.common import card
 from .runs import RunArchive, warm_up
@@ -143,6 +143,7 @@ def page(state: dict[str, Any], examples: dict[str, str], *, token: str = "",
             card("Run", run.layout(initial, view), id="card-run"),
             card("Results", results.layout(view), id="card-results"),
             card("Fit to data", fit.layout(), id="card-fit"),
+            card("Variability", variability.layout(), id="card-variability"),
         ]),
         html.Footer([html.Span(CAUTION), html.Span(f" barrierflow {barrierflow.__version__}")],
                     className="page-footer"),
@@ -232,7 +233,7 @@ def create_app(scenario: Scenario | str | os.PathLike[str] | None = None, *,
     services = Services(archive=archive, manager=manager, workers=workers, sessions=sessions, examples=examples,
                         poll_ms=poll_ms, max_upload=max_upload)
     app.server.extensions["barrierflow"] = services  # Flask's registry of extensions (tests reach it there)
-    for panel in (scenario_bar, network, properties, doses, run, results, session, history, fit):
+    for panel in (scenario_bar, network, properties, doses, run, results, session, history, fit, variability):
         panel.register(app, services)
     return app
 

@@ -154,6 +154,31 @@ FIT_EXPORT_TOML = "fit-export-toml"
 FIT_EXPORT_RESIDUALS = "fit-export-residuals"
 FIT_DOWNLOAD = "fit-download"
 
+# ---------------------------------------------------------------- variability (populations)
+VARY_PATH = "vary-path"            # the parameter to give a spread (a parameter path)
+VARY_DIST = "vary-distribution"
+VARY_SPREAD = "vary-spread"
+VARY_HINT = "vary-spread-hint"
+VARY_ADD = "vary-add"
+VARY_REMOVE = "vary-remove"        # type of the pattern-matching remove buttons {"type", "index"}
+VARY_MESSAGE = "vary-message"
+VARY_LIST = "vary-list"
+VARY_STORE = "store-vary"          # the spreads, as --vary texts (PATH=SPEC)
+VARY_N = "vary-subjects"
+VARY_SEED = "vary-seed"
+VARY_RUN = "vary-run"
+VARY_CANCEL = "vary-cancel"
+VARY_PROGRESS = "vary-progress"
+VARY_PROGRESS_TEXT = "vary-progress-text"
+VARY_STATUS = "vary-status"
+VARY_RESULT = "store-vary-result"  # the archive key of the last population and its trace and metric names
+VARY_TRACE = "vary-trace"
+VARY_LOG = "vary-log"
+VARY_BANDS = "fig-vary-bands"
+VARY_METRIC = "vary-metric"
+VARY_HISTOGRAM = "fig-vary-histogram"
+VARY_RANKING = "fig-vary-ranking"
+
 
 # ---------------------------------------------------------------- pattern-matching ids
 def field(scope: str, name: str) -> dict[str, str]:

@@ -4,22 +4,23 @@ A population of 100,000 subjects of a week-long patch holds billions of trace va
 percentiles at every output time cannot be computed from all values at once. A
 :class:`QuantileSketch` keeps, for every cell (an output time of one trace, or one metric), a
 histogram of the values on logarithmic bins: a value x > 0 falls in bin
-k = ceil(ln x / ln gamma), gamma = (1 + a) / (1 - a), which holds (gamma^(k-1), gamma^k]; it is
-represented by 2 gamma^k / (gamma + 1), within a relative error a of every value of the bin.
-Negative values go to a second histogram of |x|, zeros to a count of their own; NaN is left
-out. This is the relative-error sketch of Masson, Rim and Lee (DDSketch: a fast and fully-mergeable
-quantile sketch with relative-error guarantees, Proc. VLDB Endow. 12, 2019, 2195-2205), with
-its "collapsing lowest" store: each cell keeps at most ``bins`` bins, the highest ones, and
-counts values further below in the lowest kept bin.
+k = ceil(ln x / ln gamma), gamma = 1 + a, which holds (gamma^(k-1), gamma^k]. Negative values
+go to a second histogram of |x|, zeros to a count of their own; NaN is left out. These are the
+relative-error bins of Masson, Rim and Lee (DDSketch: a fast and fully-mergeable quantile
+sketch with relative-error guarantees, Proc. VLDB Endow. 12, 2019, 2195-2205), with their
+"collapsing lowest" store: each cell keeps at most ``bins`` bins, the highest ones, and counts
+values further below in the lowest kept bin.
 
 **Error.** A percentile is taken as numpy's default (linear interpolation between the order
-statistics at rank h = (n - 1) q / 100) with each order statistic replaced by its bin's
-representative, kept within the cell's smallest and largest values (which are kept exactly, so
-that the 0th and 100th percentiles, and every percentile of equal values, are exact). When the
-two order statistics have one sign and lie within ``bins`` bins of the cell's largest magnitude
-(``bins`` ln(gamma) in ln, 8.9 decades with the defaults), the result is within a relative
-``accuracy`` (default 1 %) of ``numpy.percentile`` over the same values. A percentile further
-below is reported at the floor of the kept range (an upper bound of the true value);
+statistics at rank h = (n - 1) q / 100). An order statistic is placed inside its bin by its
+rank among the bin's m values, at gamma^(k - 1 + (j + 1/2) / m) for the j-th (log-uniform in the
+bin, so that a band moves smoothly rather than in steps of a bin), and kept within the cell's
+smallest and largest values, which are kept exactly (the 0th and 100th percentiles, and every
+percentile of equal values, are exact). Both the estimate and the true value lie in the same bin,
+so when the two order statistics have one sign and lie within ``bins`` bins of the cell's largest
+magnitude (``bins`` ln(gamma) in ln: 6.6 decades with the defaults), the result is within a
+relative ``accuracy`` a (default 1 %) of ``numpy.percentile`` over the same values. A percentile
+further below is reported at the top of the lowest kept bin (an upper bound of the true value);
 :meth:`QuantileSketch.floored` says where that happened.
 
 **Merge.** The histogram of a cell depends only on the multiset of values added: the bin of a
@@ -47,8 +48,8 @@ __all__ = ["ACCURACY", "BINS", "Counts", "QuantileSketch", "count_values"]
 ACCURACY = 0.01
 """Default relative accuracy of a percentile (1 %)."""
 
-BINS = 1024
-"""Default number of bins kept per cell (with 1 % accuracy, values over 8.9 decades)."""
+BINS = 1536
+"""Default number of bins kept per cell (with 1 % accuracy, values over 6.6 decades)."""
 
 _EMPTY = np.iinfo(np.int64).min
 
@@ -93,76 +94,95 @@ class Counts:
 
 
 def _gamma(accuracy: float) -> float:
-    return (1.0 + accuracy) / (1.0 - accuracy)
+    return 1.0 + accuracy
+
+
+_NONE = np.iinfo(np.int64).max  # a bin code for zero or NaN in the scratch row
 
 
 @njit(cache=True)
-def _encode(vt, inv_lg, bins, sign):
-    """Bins of the values of ``sign`` (+1 or -1) per cell of ``vt`` (n_cells, n_rows): lowest bin kept,
-    width, and lowest bin reached."""
-    n_cells, n_rows = vt.shape
-    lo = np.zeros(n_cells, dtype=np.int64)
-    width = np.zeros(n_cells, dtype=np.int64)
-    low = np.full(n_cells, _EMPTY, dtype=np.int64)
+def _count(values, inv_lg, bins):
+    """One pass over ``values`` (n_rows, n_cells): each cell's compact histograms, zeros and extremes.
+
+    The bin of each value is computed once (kept in a scratch row), then the cell's histogram is
+    laid out from its own lowest and highest bins.
+    """
+    n_rows, n_cells = values.shape
+    pos_lo = np.zeros(n_cells, dtype=np.int64)
+    pos_n = np.zeros(n_cells, dtype=np.int64)
+    pos_min = np.full(n_cells, _EMPTY, dtype=np.int64)
+    neg_lo = np.zeros(n_cells, dtype=np.int64)
+    neg_n = np.zeros(n_cells, dtype=np.int64)
+    neg_min = np.full(n_cells, _EMPTY, dtype=np.int64)
+    zeros = np.zeros(n_cells, dtype=np.int64)
+    vmin = np.full(n_cells, np.inf)
+    vmax = np.full(n_cells, -np.inf)
+    codes = np.empty((n_cells, n_rows), dtype=np.int64)  # bin of each value; sign in the parity
+    big = np.int64(1) << 40
     for c in range(n_cells):
-        kmin = np.int64(0)
-        kmax = np.int64(0)
-        seen = False
+        pk0, pk1, nk0, nk1 = big, -big, big, -big
+        row = codes[c]
+        lo_v = np.inf
+        hi_v = -np.inf
         for r in range(n_rows):
-            x = vt[c, r] * sign
+            x = values[r, c]
             if x > 0.0:
                 k = np.int64(math.ceil(math.log(x) * inv_lg))
-                if not seen:
-                    kmin = k
-                    kmax = k
-                    seen = True
-                elif k < kmin:
-                    kmin = k
-                elif k > kmax:
-                    kmax = k
-        if seen:
-            low[c] = kmin
-            if kmin < kmax - bins + 1:
-                kmin = kmax - bins + 1
-            lo[c] = kmin
-            width[c] = kmax - kmin + 1
-    return lo, width, low
-
-
-@njit(cache=True)
-def _fill(vt, inv_lg, sign, lo, width, at, out):
-    n_cells, n_rows = vt.shape
+                row[r] = 2 * k
+                if k < pk0:
+                    pk0 = k
+                if k > pk1:
+                    pk1 = k
+            elif x < 0.0:
+                k = np.int64(math.ceil(math.log(-x) * inv_lg))
+                row[r] = 2 * k + 1
+                if k < nk0:
+                    nk0 = k
+                if k > nk1:
+                    nk1 = k
+            else:
+                row[r] = _NONE
+                if x == 0.0:
+                    zeros[c] += 1
+                continue
+            if x < lo_v:
+                lo_v = x
+            if x > hi_v:
+                hi_v = x
+        if zeros[c] > 0:
+            lo_v = min(lo_v, 0.0)
+            hi_v = max(hi_v, 0.0)
+        vmin[c] = lo_v
+        vmax[c] = hi_v
+        if pk1 >= pk0:
+            pos_min[c] = pk0
+            pos_lo[c] = max(pk0, pk1 - bins + 1)
+            pos_n[c] = pk1 - pos_lo[c] + 1
+        if nk1 >= nk0:
+            neg_min[c] = nk0
+            neg_lo[c] = max(nk0, nk1 - bins + 1)
+            neg_n[c] = nk1 - neg_lo[c] + 1
+    pos_at = np.zeros(n_cells + 1, dtype=np.int64)
+    neg_at = np.zeros(n_cells + 1, dtype=np.int64)
     for c in range(n_cells):
-        if width[c] == 0:
-            continue
-        base = lo[c]
-        o = at[c]
-        for r in range(n_rows):
-            x = vt[c, r] * sign
-            if x > 0.0:
-                j = np.int64(math.ceil(math.log(x) * inv_lg)) - base
-                if j < 0:
-                    j = 0
-                out[o + j] += 1
-
-
-@njit(cache=True)
-def _zeros(vt):
-    """Exact zeros, smallest and largest value of each cell (NaN left out)."""
-    n_cells, n_rows = vt.shape
-    z = np.zeros(n_cells, dtype=np.int64)
-    lo = np.full(n_cells, np.inf)
-    hi = np.full(n_cells, -np.inf)
+        pos_at[c + 1] = pos_at[c] + pos_n[c]
+        neg_at[c + 1] = neg_at[c] + neg_n[c]
+    pos = np.zeros(pos_at[n_cells], dtype=np.int64)
+    neg = np.zeros(neg_at[n_cells], dtype=np.int64)
     for c in range(n_cells):
+        row = codes[c]
         for r in range(n_rows):
-            x = vt[c, r]
-            if x == 0.0:
-                z[c] += 1
-            if x < lo[c]:
-                lo[c] = x
-            if x > hi[c]:
-                hi[c] = x
-    return z, lo, hi
+            code = row[r]
+            if code == _NONE:
+                continue
+            k = code >> 1
+            if code & 1:
+                j = k - neg_lo[c]
+                neg[neg_at[c] + (j if j > 0 else 0)] += 1
+            else:
+                j = k - pos_lo[c]
+                pos[pos_at[c] + (j if j > 0 else 0)] += 1
+    return pos_lo, pos_n, pos, neg_lo, neg_n, neg, zeros, pos_min, neg_min, vmin, vmax
 
 
 def count_values(values: np.ndarray, accuracy: float = ACCURACY, bins: int = BINS) -> Counts:
@@ -182,20 +202,11 @@ def count_values(values: np.ndarray, accuracy: float = ACCURACY, bins: int = BIN
     Counts
     """
     _check(accuracy, bins)
-    vt = np.ascontiguousarray(np.asarray(values, dtype=np.float64).T)
-    inv_lg = 1.0 / math.log(_gamma(accuracy))
-    parts = []
-    for sign in (1.0, -1.0):
-        lo, width, low = _encode(vt, inv_lg, bins, sign)
-        at = np.zeros(len(width), dtype=np.int64)
-        if len(width) > 1:
-            np.cumsum(width[:-1], out=at[1:])
-        flat = np.zeros(int(width.sum()), dtype=np.int64)
-        _fill(vt, inv_lg, sign, lo, width, at, flat)
-        parts.append((lo, width, flat, low))
-    (plo, pn, pc, pmin), (nlo, nn, nc, nmin) = parts
-    zeros, vmin, vmax = _zeros(vt)
-    return Counts(accuracy, bins, plo, pn, pc, nlo, nn, nc, zeros, pmin, nmin, vmin, vmax)
+    values = np.asarray(values, dtype=np.float64)
+    if values.ndim != 2:
+        raise ValueError(f"sketch values: got an array of shape {values.shape}; expected (rows, cells)")
+    parts = _count(values, 1.0 / math.log(_gamma(accuracy)), bins)
+    return Counts(accuracy, bins, *parts)
 
 
 def _check(accuracy: float, bins: int) -> None:
@@ -251,42 +262,53 @@ def _add(top, store, low, lo, width, flat, chunk_low):
 
 @njit(cache=True)
 def _rank_value(r, neg_top, neg, neg_low, zeros, pos_top, pos, pos_low, n_neg, gamma, bins):
-    """The representative value of the order statistic of rank ``r`` (0-based) of one cell.
+    """The estimate of the order statistic of rank ``r`` (0-based) of one cell.
 
-    Returns (value, floored): floored is 1 when the rank fell in a lowest bin that holds collapsed values.
+    Placed log-uniformly inside its bin by its rank among the bin's values. Returns
+    (value, floored): floored is 1 when the rank fell in a lowest bin that holds collapsed
+    values (the value is then the top of that bin, an upper bound of the magnitude).
     """
-    f = 2.0 / (gamma + 1.0)
+    lg = math.log(gamma)
     if r < n_neg:
-        # negatives from the most negative: highest magnitude bin first
+        # negatives from the most negative: highest magnitude bin first, largest magnitude first
         acc = 0
-        for j in range(bins - 1, -1, -1):
-            acc += neg[j]
-            if r < acc:
+        for j in range(neg.shape[0] - 1, -1, -1):
+            m = neg[j]
+            if r < acc + m:
                 k = neg_top - bins + 1 + j
-                return -f * gamma ** k, 1 if (j == 0 and neg_low < k) else 0
+                if j == 0 and neg_low < k:
+                    return -math.exp(k * lg), 1
+                p = 1.0 - (r - acc + 0.5) / m
+                return -math.exp((k - 1 + p) * lg), 0
+            acc += m
         return 0.0, 0
     r -= n_neg
     if r < zeros:
         return 0.0, 0
     r -= zeros
     acc = 0
-    for j in range(bins):
-        acc += pos[j]
-        if r < acc:
+    for j in range(pos.shape[0]):
+        m = pos[j]
+        if r < acc + m:
             k = pos_top - bins + 1 + j
-            return f * gamma ** k, 1 if (j == 0 and pos_low < k) else 0
+            if j == 0 and pos_low < k:
+                return math.exp(k * lg), 1
+            p = (r - acc + 0.5) / m
+            return math.exp((k - 1 + p) * lg), 0
+        acc += m
     return math.nan, 0
 
 
 @njit(cache=True)
 def _quantiles(qs, neg_top, neg, neg_low, zeros, pos_top, pos, pos_low, vmin, vmax, gamma, bins, out, floored):
+    """Percentiles of every cell. A store that was never made is given with no bins (shape (n, 0))."""
     n_cells = zeros.shape[0]
     for c in range(n_cells):
         n_neg = 0
-        for j in range(bins):
+        for j in range(neg.shape[1]):
             n_neg += neg[c, j]
         n_pos = 0
-        for j in range(bins):
+        for j in range(pos.shape[1]):
             n_pos += pos[c, j]
         n = n_neg + zeros[c] + n_pos
         for i in range(qs.shape[0]):
@@ -340,7 +362,7 @@ class QuantileSketch:
     accuracy : float
         Relative accuracy of a percentile (default 1 %).
     bins : int
-        Bins kept per cell (default 1024).
+        Bins kept per cell (default 1536).
 
     Examples
     --------
@@ -367,7 +389,7 @@ class QuantileSketch:
 
     @property
     def gamma(self) -> float:
-        """Ratio of neighbouring bin edges, (1 + accuracy) / (1 - accuracy)."""
+        """Ratio of neighbouring bin edges, 1 + accuracy."""
         return _gamma(self.accuracy)
 
     @property
@@ -432,7 +454,7 @@ class QuantileSketch:
         return total
 
     def _arrays(self) -> tuple[np.ndarray, ...]:
-        empty = (np.full(self.n_cells, _EMPTY, dtype=np.int64), np.zeros((self.n_cells, self.bins), dtype=np.int32),
+        empty = (np.full(self.n_cells, _EMPTY, dtype=np.int64), np.zeros((self.n_cells, 0), dtype=np.int32),
                  np.full(self.n_cells, _EMPTY, dtype=np.int64))
         ntop, neg, nlow = self._neg if self._neg is not None else empty
         ptop, pos, plow = self._pos if self._pos is not None else empty
@@ -455,7 +477,12 @@ class QuantileSketch:
     def floored(self, q: Sequence[float]) -> np.ndarray:
         """True where a percentile fell more than ``bins`` bins below its cell's largest magnitude
         (it is then reported at the floor of the kept range, an upper bound)."""
-        return self._percentiles(q)[1].astype(bool)
+        return self.percentiles_and_floored(q)[1]
+
+    def percentiles_and_floored(self, q: Sequence[float]) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`percentiles` and :meth:`floored` in one pass."""
+        values, floored = self._percentiles(q)
+        return values, floored.astype(bool)
 
     def _percentiles(self, q: Sequence[float]) -> tuple[np.ndarray, np.ndarray]:
         qs = np.asarray(q, dtype=np.float64)

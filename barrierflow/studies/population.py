@@ -375,8 +375,9 @@ def run_population(scenario: Scenario, n: int, seed: int = 0, *, vary: Sequence[
             if progress is not None:
                 progress(done, n)
     assert metric_sketch is not None
-    bands = np.stack([sk.percentiles(qs) for sk in traces]) if traces else np.zeros((0, len(qs), len(times)))
-    floored = np.stack([sk.floored(qs) for sk in traces]) if traces else np.zeros(bands.shape, dtype=bool)
+    both = [sk.percentiles_and_floored(qs) for sk in traces]
+    bands = np.stack([b[0] for b in both]) if traces else np.zeros((0, len(qs), len(times)))
+    floored = np.stack([b[1] for b in both]) if traces else np.zeros(bands.shape, dtype=bool)
     metric_values = metric_sketch.percentiles(qs).T
     subjects = None
     if keep_subjects:

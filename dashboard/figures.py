@@ -56,7 +56,9 @@ def _layout(title: str, xtitle: str, ytitle: str, *, log: bool = False, height: 
                   "linecolor": MUTED, "ticks": "outside", "type": "log" if log else "linear",
                   "exponentformat": "power", "automargin": True},
         "showlegend": legend,
-        "legend": {"orientation": "h", "y": -0.22, "x": 0, "font": {"size": 12}},
+        # outside the plotting area at the right: never over a curve or an axis title
+        "legend": {"orientation": "v", "x": 1.02, "xanchor": "left", "y": 1.0, "yanchor": "top", "font": {"size": 12},
+                   "bgcolor": "rgba(255,255,255,0)"},
         "hovermode": "closest",
         "uirevision": title,
     }
@@ -82,24 +84,82 @@ def _label(item: str, run: RunData, many: bool) -> str:
     return f"{item} · {run.name}" if many else item
 
 
+LOG_DECADES_BELOW = 3.0
+"""A logarithmic axis reaches this many decades below the lowest peak among its curves, so that
+every curve's rise and fall shows (and no curve is drawn below the axis)."""
+LOG_DECADES_MOST = 9.0
+"""... but never spans more decades than this."""
+
+
+def compartment_sides(runs: Sequence[RunData], compartments: Sequence[str]) -> tuple[list[str], list[str]]:
+    """Split compartments into the application side and the receiving side with the body.
+
+    The application side is every compartment that passes substance on through a barrier or a
+    transfer and receives none through one (a patch, a donor chamber, a gut depot); all others
+    (a receptor, plasma, tissues) are on the receiving side. When either side would be empty the
+    first list is empty (one panel).
+    """
+    sends, receives = set(), set()
+    for run in runs:
+        for kind, a, b in run.links:
+            if kind in ("barrier", "transfer"):
+                sends.add(a)
+                receives.add(b)
+    applied = [c for c in compartments if c in sends and c not in receives]
+    others = [c for c in compartments if c not in applied]
+    if not applied or not others:
+        return [], list(compartments)
+    return applied, others
+
+
+def _peak(y: Sequence[float]) -> float:
+    finite = [v for v in y if v is not None and np.isfinite(v) and v > 0]
+    return max(finite, default=0.0)
+
+
+def log_range(traces: Sequence[Mapping[str, Any]]) -> list[float] | None:
+    """The range (log10) of a logarithmic axis that shows every curve: from
+    :data:`LOG_DECADES_BELOW` decades below the lowest peak to a little above the highest
+    (at most :data:`LOG_DECADES_MOST` decades). None when no curve has a value above 0."""
+    peaks = [p for p in (_peak(t["y"]) for t in traces) if p > 0]
+    if not peaks:
+        return None
+    top = float(np.log10(max(peaks)))
+    bottom = max(float(np.log10(min(peaks))) - LOG_DECADES_BELOW, top - LOG_DECADES_MOST)
+    return [bottom, top + 0.3]
+
+
 def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str] | None = None,
                          quantity: str = "concentration", unit: str = "mg/L", time_unit: str = "h",
-                         log: bool = False) -> dict[str, Any]:
+                         scale: str = "auto", split: bool = True, log: bool | None = None) -> dict[str, Any]:
     """Concentration (or amount) against time in each compartment, for one or more runs.
+
+    By default the application side (a patch, a donor) and the receiving side with the body get
+    a panel each, with a shared time axis and an axis of their own (see :func:`compartment_sides`),
+    so that a concentrated patch never flattens or hides plasma. On a logarithmic axis every curve
+    with a value above 0 is drawn within the range (:func:`log_range`); a curve that is 0
+    throughout is named in a note instead (it cannot be drawn on a log axis), never left in the
+    legend alone.
 
     Parameters
     ----------
     runs : sequence of RunData
         Overlaid; the first is drawn solid, the others dashed, dotted, ...
     compartments : sequence of str, optional
-        Which compartments (default: all of the first run).
+        Which compartments (default: all of the runs).
     quantity : {"concentration", "amount"}
     unit : str
         A concentration unit (``"mg/L"``, ``"umol/L"`` with a molar mass) or an amount unit.
     time_unit : str
-    log : bool
-        Logarithmic concentration axis.
+    scale : {"auto", "linear", "log"}
+        "auto": each panel logarithmic when its curves' peaks differ by more than 100 times.
+    split : bool
+        One panel per side (when the network has two sides), else one panel.
+    log : bool, optional
+        Old spelling of ``scale`` (True: "log", False: "linear").
     """
+    if log is not None:
+        scale = "log" if log else "linear"
     if not runs:
         return empty_figure("Run the scenario to see the curves.")
     kind = "amount" if quantity == "amount" else "concentration"
@@ -110,29 +170,61 @@ def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str]
         order = []
         for run in runs:
             order += [c for c in run.compartments if c not in order]
+    applied, others = compartment_sides(runs, order) if split else ([], order)
+    panels = [("application side", applied), ("receiving side and body", others)] if applied else [("", others)]
     many = len(runs) > 1
-    data = []
-    for r_i, run in enumerate(runs):
-        fy = unit_factor(kind, unit, run.molar_mass)
-        for c_i, cid in enumerate(order):
-            if cid not in run.conc:
-                continue
-            y = (run.amount if kind == "amount" else run.conc)[cid] * fy
-            data.append({
-                "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(), "y": y.tolist(),
-                "name": _label(cid, run, many), "legendgroup": cid,
-                "line": {"color": color(c_i), "dash": dash(r_i), "width": 2.2},
-                "hovertemplate": f"{cid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {unit}<extra></extra>",
-            })
-    title = "Amount in each compartment" if kind == "amount" else "Concentration in each compartment"
-    layout = _layout(title, f"time [{time_unit}]", f"{kind} [{unit}]", log=log)
-    if log:
-        # six decades below the highest value: the rise from zero at the start would stretch the
-        # axis over many empty decades
-        peak = max((max((v for v in t["y"] if v is not None and v > 0), default=0.0) for t in data), default=0.0)
-        if peak > 0:
-            top = float(np.log10(peak))
-            layout["yaxis"]["range"] = [top - 6.0, top + 0.3]
+    colour = {cid: color(i) for i, cid in enumerate(order)}
+    data: list[dict[str, Any]] = []
+    layout = _layout("Amount in each compartment" if kind == "amount" else "Concentration in each compartment",
+                     f"time [{time_unit}]", f"{kind} [{unit}]", height=380 if len(panels) == 1 else 520)
+    gap = 0.1
+    height = (1.0 - gap * (len(panels) - 1)) / len(panels)
+    notes = []
+    base_y = layout.pop("yaxis")
+    for p_i, (side, cids) in enumerate(panels):
+        axis = "" if p_i == 0 else str(p_i + 1)
+        traces = []
+        for r_i, run in enumerate(runs):
+            fy = unit_factor(kind, unit, run.molar_mass)
+            for cid in cids:
+                if cid not in run.conc:
+                    continue
+                y = (run.amount if kind == "amount" else run.conc)[cid] * fy
+                traces.append({
+                    "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(),
+                    "y": [None if not np.isfinite(v) else float(v) for v in y],
+                    "name": _label(cid, run, many), "legendgroup": cid, "yaxis": f"y{axis}", "xaxis": "x",
+                    "line": {"color": colour[cid], "dash": dash(r_i), "width": 2.2},
+                    "hovertemplate": f"{cid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {unit}<extra></extra>",
+                })
+        peaks = [_peak(t["y"]) for t in traces]
+        positive = [p for p in peaks if p > 0]
+        log = scale == "log" or (scale == "auto" and len(positive) > 1 and max(positive) / min(positive) > 100)
+        yaxis = dict(base_y, type="log" if log else "linear", anchor="x")
+        if len(panels) > 1:
+            top = 1.0 - p_i * (height + gap)
+            yaxis["domain"] = [max(0.0, round(top - height, 9)), min(1.0, round(top, 9))]
+            notes.append({"text": f"<b>{side.capitalize()}</b>: {', '.join(cids)}", "showarrow": False,
+                          "xref": "paper", "yref": "paper", "x": 0, "y": top, "xanchor": "left",
+                          "yanchor": "bottom", "font": {"size": 12, "color": MUTED}})
+        if log:
+            zero = sorted({t["legendgroup"] for t, pk in zip(traces, peaks, strict=True) if pk <= 0})
+            traces = [t for t, pk in zip(traces, peaks, strict=True) if pk > 0]
+            rng = log_range(traces)
+            if rng is not None:
+                yaxis["range"] = rng
+                yaxis["autorange"] = False
+            if zero:
+                notes.append({"text": f"0 throughout (not drawn on a log axis): {', '.join(zero)}",
+                              "showarrow": False, "xref": "paper", "yref": "paper", "x": 1.0, "xanchor": "right",
+                              "y": (yaxis.get("domain") or [0, 1])[0], "yanchor": "bottom",
+                              "font": {"size": 11, "color": MUTED}})
+        layout[f"yaxis{axis}"] = yaxis
+        data += traces
+    if len(panels) > 1:
+        layout["margin"]["t"] = 64
+        layout["xaxis"]["anchor"] = f"y{len(panels)}"
+    layout["annotations"] = notes
     return {"data": data, "layout": layout}
 
 
@@ -140,7 +232,7 @@ def wide_range(runs: Sequence[RunData], compartments: Sequence[str] | None = Non
                quantity: str = "concentration", spread: float = 100.0) -> bool:
     """True when the compartments' peak values differ by more than ``spread`` times.
 
-    The "auto" axis of the concentration plot is then logarithmic, so that a dilute
+    The "auto" axis of a concentration panel is then logarithmic, so that a dilute
     compartment (plasma) is not drawn flat beside a concentrated one (a patch).
     """
     peaks = []
@@ -156,10 +248,11 @@ def wide_range(runs: Sequence[RunData], compartments: Sequence[str] | None = Non
 
 def flux_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
                 time_unit: str = "h") -> dict[str, Any]:
-    """Flux into each barrier's ``to`` compartment against time, mass per cm^2 per hour."""
-    return _barrier_figure(runs, barriers, amount_unit, time_unit, "flux", f"{amount_unit}/(cm² h)",
+    """Flux into each barrier's ``to`` compartment against time, mass per cm^2 per ``time_unit``."""
+    return _barrier_figure(runs, barriers, amount_unit, time_unit, "flux", f"{amount_unit}/(cm² {time_unit})",
                            "Run the scenario to see the flux through each barrier.",
-                           "Flux into the receiving compartment", "flux")
+                           "Flux into the receiving compartment", "flux",
+                           per_time=1.0 / unit_factor("time", time_unit))
 
 
 def permeated_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
@@ -171,7 +264,8 @@ def permeated_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None 
 
 
 def _barrier_figure(runs: Sequence[RunData], barriers: Sequence[str] | None, amount_unit: str, time_unit: str,
-                    attr: str, unit: str, empty_text: str, title: str, y_name: str) -> dict[str, Any]:
+                    attr: str, unit: str, empty_text: str, title: str, y_name: str,
+                    per_time: float = 1.0) -> dict[str, Any]:
     """One line per barrier and run of the per-area trace ``attr`` (``flux`` or ``permeated``)."""
     if not runs:
         return empty_figure(empty_text)
@@ -187,7 +281,7 @@ def _barrier_figure(runs: Sequence[RunData], barriers: Sequence[str] | None, amo
                 continue
             data.append({
                 "type": "scatter", "mode": "lines", "x": (run.times * ft).tolist(),
-                "y": (getattr(b, attr) * fa).tolist(), "name": _label(f"{bid} → {b.to_id}", run, many),
+                "y": (getattr(b, attr) * fa * per_time).tolist(), "name": _label(f"{bid} → {b.to_id}", run, many),
                 "legendgroup": bid, "line": {"color": color(b_i), "dash": dash(r_i), "width": 2.2},
                 "hovertemplate": f"{bid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} "
                                  f"{unit}<extra></extra>"})

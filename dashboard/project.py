@@ -49,7 +49,7 @@ from barrierflow.analysis.metrics import BarrierMetrics, CompartmentMetrics, Met
 from barrierflow.caution import CAUTION
 from barrierflow.errors import Problem, ScenarioError
 
-from .runs import BarrierTrace, RunData, metric_rows_in, steady_of
+from .runs import BarrierTrace, RunData, links_of, metric_rows_in, steady_of
 
 __all__ = ["FORMAT", "MAX_RUNS", "SUFFIX", "VERSION", "decode_run", "encode_run", "project_text", "read_project"]
 
@@ -352,17 +352,16 @@ def decode_run(obj: Any, name: str, field: str, r: _Reader) -> RunData | None:
         doses = []
     if len(r.problems) > before:
         return None
-    from .runs import metric_rows_in as rows_in
-
     return RunData(
         name=name, scenario_name=scenario.name, times=times, compartments=tuple(comps),
         held={c.id: c.held for c in scenario.compartments}, volume={c.id: c.volume for c in scenario.compartments},
         conc=traces["conc"], amount=traces["amount"], eliminated=traces["eliminated"], removed=traces["removed"],
         dosed=traces["dosed"], barriers=barriers, initial_amount=float(initial), mass_balance=balance,
-        metrics=rows_in(metrics) if metrics is not None else [], metrics_csv=metrics.to_csv() if metrics else "",
+        metrics=metric_rows_in(metrics) if metrics is not None else [], metrics_csv=metrics.to_csv() if metrics else "",
         warnings=tuple(warnings), status=status, message=message, stats=dict(stats),
         molar_mass=scenario.substance.molar_mass, dose_times=tuple((float(t), g, k) for t, g, k in doses),
-        toml=toml, steady=steady_of(scenario), metrics_table=metrics)
+        toml=toml, steady=steady_of(scenario), metrics_table=metrics, output_units=scenario.output_units,
+        links=links_of(scenario))
 
 
 # ============================================================================ project files
@@ -494,8 +493,3 @@ def read_project(text: str | bytes, file: str) -> dict[str, Any]:
     if r.problems:
         raise ScenarioError(r.problems)
     return {"toml": toml, "file": name, "positions": positions, "runs": runs, "view": view}
-
-
-def rows_in(data: RunData, units: Any) -> list[dict[str, Any]]:
-    """The metrics rows of a run in ``units`` (the table's own units when the run has no table)."""
-    return metric_rows_in(data.metrics_table, units) if data.metrics_table is not None else list(data.metrics)

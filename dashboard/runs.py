@@ -88,6 +88,10 @@ class RunData:
         Steady state of each barrier between its compartments' starting conditions.
     metrics_table : barrierflow.analysis.metrics.Metrics or None
         The metrics in internal units; :func:`metric_rows_in` gives its rows in any units.
+    output_units : barrierflow.model.OutputUnits or None
+        The scenario's ``[output]`` units (the plots and tables start in them).
+    links : tuple of (str, str, str)
+        ``(kind, from id, to id)`` of every barrier, exchange and transfer.
     """
 
     name: str
@@ -115,6 +119,8 @@ class RunData:
     toml: str = ""
     steady: dict[str, Any] = field(default_factory=dict)
     metrics_table: Any = None
+    output_units: Any = None
+    links: tuple[tuple[str, str, str], ...] = ()
 
     def renamed(self, name: str) -> RunData:
         """The same run under another name."""
@@ -248,7 +254,14 @@ def pack(result: Any, name: str, toml_text: str = "") -> RunData:
         warnings=tuple(result.warnings()),
         status=int(result.status), message=str(result.message), stats=dict(result.stats),
         molar_mass=s.substance.molar_mass, dose_times=tuple(result.dose_times), toml=toml_text,
-        steady=steady_of(s), metrics_table=table)
+        steady=steady_of(s), metrics_table=table, output_units=s.output_units, links=links_of(s))
+
+
+def links_of(scenario: Any) -> tuple[tuple[str, str, str], ...]:
+    """``(kind, from id, to id)`` of every barrier, exchange and transfer of a scenario."""
+    return tuple((kind, x.from_id, x.to_id) for kind, items in
+                 (("barrier", scenario.barriers), ("exchange", scenario.exchanges), ("transfer", scenario.transfers))
+                 for x in items)
 
 
 def steady_of(scenario: Any) -> dict[str, Any]:

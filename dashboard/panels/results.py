@@ -6,16 +6,19 @@ import csv
 import io
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import dash_ag_grid as dag
 from dash import Input, Output, State, ctx, dcc, html
 from dash.exceptions import PreventUpdate
 
+from barrierflow.model import OutputUnits
+
 from .. import figures as F
 from .. import ids
 from .. import view as V
-from ..runs import RunArchive, RunData
+from ..runs import RunArchive, RunData, metric_rows_in
 from ..sessions import current_id
 from .common import GRAPH_CONFIG, graph, labelled
 
@@ -52,8 +55,10 @@ def _show(value: Any) -> str:
     return str(value)
 
 
-def compare_rows(runs: Sequence[RunData], reference: int = 0) -> tuple[list[dict[str, Any]], list[str]]:
-    """Rows of the side-by-side metrics table, and the run names.
+def compare_rows(runs: Sequence[RunData], reference: int = 0,
+                 units: OutputUnits | None = None) -> tuple[list[dict[str, Any]], list[str]]:
+    """Rows of the side-by-side metrics table, and the run names, in ``units`` (default: each
+    run's scenario units).
 
     Each row holds ``part``, ``id``, ``metric`` (the label), ``name`` (the analysis package's
     name), ``unit``; for run i, ``v<i>`` the value shown (four significant digits) and ``f<i>``
@@ -64,7 +69,7 @@ def compare_rows(runs: Sequence[RunData], reference: int = 0) -> tuple[list[dict
     table: dict[tuple[str, str, str, str], dict[str, Any]] = {}
     raw: dict[tuple[str, str, str, str], dict[int, Any]] = {}
     for i, run in enumerate(runs):
-        for m in run.metrics:
+        for m in rows_in(run, units):
             k = (m["part"], m["id"], m["name"], m["unit"])
             table.setdefault(k, {"part": m["part"], "id": m["id"], "name": m["name"], "metric": m["metric"],
                                  "unit": m["unit"]})
@@ -113,14 +118,15 @@ def compare_columns(names: Sequence[str], reference: int = 0) -> list[dict[str, 
     return cols
 
 
-def comparison_csv(runs: Sequence[RunData], reference: int = 0) -> str:
-    """The metrics of the runs as CSV, one row per run and metric, with the ratio to the reference run."""
+def comparison_csv(runs: Sequence[RunData], reference: int = 0, units: OutputUnits | None = None) -> str:
+    """The metrics of the runs as CSV, one row per run and metric, with the ratio to the reference
+    run, in ``units`` (default: each run's scenario units)."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(["run", "scenario", "kind", "id", "metric", "unit", "value", "ratio_to_reference"])
-    ref = {(m["part"], m["id"], m["name"]): m["value"] for m in runs[reference].metrics} if runs else {}
+    ref = {(m["part"], m["id"], m["name"]): m["value"] for m in rows_in(runs[reference], units)} if runs else {}
     for run in runs:
-        for m in run.metrics:
+        for m in rows_in(run, units):
             v = m["value"]
             r = ratio(v, ref.get((m["part"], m["id"], m["name"])))
             text = "" if v is None else (v if isinstance(v, str) else format(float(v), ".10g"))
@@ -132,6 +138,46 @@ def comparison_csv(runs: Sequence[RunData], reference: int = 0) -> str:
 def concentration_units(molar: bool) -> list[str]:
     """Concentration units offered (molar ones when the substance has a molar mass)."""
     return list(F.CONCENTRATION_UNITS) + (list(F.MOLAR_CONCENTRATION_UNITS) if molar else [])
+
+
+@dataclass(frozen=True)
+class Units:
+    """The units every plot and the metrics table use, and the choices offered."""
+
+    time: str
+    concentration: str
+    amount: str
+    concentration_options: list[str]
+    amount_options: list[str]
+
+    @property
+    def output(self) -> OutputUnits:
+        """As the model's output units (areas in cm², as in the plots)."""
+        return OutputUnits(time=self.time, concentration=self.concentration, amount=self.amount, area="cm^2")
+
+
+def units_of(runs: Sequence[RunData], concentration: str | None, amount: str | None, time: str | None) -> Units:
+    """The units chosen, or where none is chosen (or it does not apply to these runs) those of the
+    first run's scenario (its ``[output]`` table), for the plots and the metrics table alike."""
+    first = next((r.output_units for r in runs if r.output_units is not None), None) or OutputUnits()
+    molar = bool(runs) and all(r.molar_mass for r in runs)
+    conc_options = concentration_units(molar)
+    if first.concentration not in conc_options and (molar or "mol" not in first.concentration):
+        conc_options.append(first.concentration)
+    amount_options = list(F.AMOUNT_UNITS)
+    if first.amount not in amount_options and (molar or "mol" not in first.amount):
+        amount_options.append(first.amount)
+    conc = concentration if concentration in conc_options else (
+        first.concentration if first.concentration in conc_options else "mg/L")
+    amt = amount if amount in amount_options else (first.amount if first.amount in amount_options else "mg")
+    return Units(time or "h", conc, amt, conc_options, amount_options)
+
+
+def rows_in(run: RunData, units: OutputUnits | None) -> list[dict[str, Any]]:
+    """A run's metrics rows in ``units`` (the scenario's own when None or when the run has no table)."""
+    if units is None or run.metrics_table is None:
+        return list(run.metrics)
+    return metric_rows_in(run.metrics_table, units)
 
 
 def _radio(id: str, options: Sequence[tuple[str, str]], value: str) -> dcc.RadioItems:
@@ -146,9 +192,8 @@ def layout(view: dict[str, Any] | None = None) -> html.Div:
         html.Div([
             labelled("Show", _radio(ids.CONC_QUANTITY, [("concentration", "concentration"), ("amount", "amount")],
                                     V.get(view, ids.CONC_QUANTITY))),
-            labelled("Unit", dcc.Dropdown(id=ids.CONC_UNIT, options=list(F.CONCENTRATION_UNITS),
-                                          value=V.get(view, ids.CONC_UNIT),
-                                          clearable=False, className="unit-pick")),
+            labelled("Panels", _radio(ids.CONC_SPLIT, [("side", "application side and body apart"),
+                                                       ("one", "one plot")], V.get(view, ids.CONC_SPLIT))),
             labelled("Axis", _radio(ids.CONC_SCALE, [("auto", "auto"), ("linear", "linear"), ("log", "logarithmic")],
                                     V.get(view, ids.CONC_SCALE))),
             labelled("Compartments", dcc.Dropdown(id=ids.COMPARTMENT_PICK, options=[], multi=True,
@@ -162,9 +207,7 @@ def layout(view: dict[str, Any] | None = None) -> html.Div:
             labelled("Barriers", dcc.Dropdown(id=ids.BARRIER_PICK, options=[], multi=True,
                                               value=V.get(view, ids.BARRIER_PICK),
                                               className="barrier-pick", placeholder="all barriers")),
-            labelled("Amount unit (per cm²)", dcc.Dropdown(id=ids.FLUX_UNIT, options=list(F.AMOUNT_UNITS),
-                                                           value=V.get(view, ids.FLUX_UNIT),
-                                                           clearable=False, className="unit-pick")),
+            html.Div("Amounts per cm² of barrier, in the amount unit chosen above.", className="fine-print"),
         ], className="controls"),
         html.Div([graph(ids.FLUX_FIGURE, F.empty_figure("Run the scenario to see the flux.")),
                   graph(ids.PERMEATED_FIGURE, F.empty_figure("Run the scenario to see the permeated amount."))],
@@ -191,10 +234,8 @@ def layout(view: dict[str, Any] | None = None) -> html.Div:
     ])
     balance_tab = html.Div([
         html.Div([
-            labelled("Amount unit", dcc.Dropdown(id=ids.BALANCE_UNIT, options=list(F.AMOUNT_UNITS),
-                                                 value=V.get(view, ids.BALANCE_UNIT),
-                                                 clearable=False, className="unit-pick")),
-            html.Div("Each ticked run in its own panel (up to four), on one amount axis.", className="fine-print"),
+            html.Div("Each ticked run in its own panel (up to four), on one amount axis, in the amount unit chosen "
+                     "above.", className="fine-print"),
         ], className="controls"),
         graph(ids.BALANCE_FIGURE, F.empty_figure("Run the scenario to see where the dose goes.")),
     ])
@@ -202,9 +243,9 @@ def layout(view: dict[str, Any] | None = None) -> html.Div:
         html.Div([
             labelled("Find a metric", dcc.Input(id=ids.METRICS_FILTER, type="search", debounce=False,
                                                 placeholder="e.g. Cmax, lag, skin", className="field-input")),
-            html.Div("Metrics of each ticked run, side by side, in the scenario's output units; with two or more "
-                     "runs, the ratio of each to the reference run (chosen in the run panel).",
-                     className="fine-print"),
+            html.Div("Metrics of each ticked run, side by side, in the units chosen above (the same as the "
+                     "plots); with two or more runs, the ratio of each to the reference run (chosen in the run "
+                     "panel).", className="fine-print"),
         ], className="controls"),
         dag.AgGrid(id=ids.METRICS_GRID, columnDefs=compare_columns([]), rowData=[],
                    defaultColDef={"resizable": True, "sortable": True, "filter": True},
@@ -213,9 +254,16 @@ def layout(view: dict[str, Any] | None = None) -> html.Div:
         html.Div(id=ids.WARNINGS, className="warnings", role="status"),
     ])
     time_row = html.Div([
-        labelled("Time axis in", _radio(ids.TIME_UNIT, [("h", "hours"), ("min", "minutes"), ("d", "days")],
-                                       V.get(view, ids.TIME_UNIT))),
-    ], className="controls")
+        html.Span("Units of every plot and of the metrics table:", className="toolbar-label strong"),
+        labelled("Time", _radio(ids.TIME_UNIT, [("h", "hours"), ("min", "minutes"), ("d", "days")],
+                                V.get(view, ids.TIME_UNIT))),
+        labelled("Concentration", dcc.Dropdown(id=ids.CONC_UNIT, options=list(F.CONCENTRATION_UNITS),
+                                               value=V.get(view, ids.CONC_UNIT), clearable=False,
+                                               placeholder="as the scenario", className="unit-pick")),
+        labelled("Amount", dcc.Dropdown(id=ids.AMOUNT_UNIT, options=list(F.AMOUNT_UNITS),
+                                        value=V.get(view, ids.AMOUNT_UNIT), clearable=False,
+                                        placeholder="as the scenario", className="unit-pick")),
+    ], className="controls units-row")
     tabs = dcc.Tabs(id=ids.RESULT_TABS, value=V.get(view, ids.RESULT_TABS), children=[
         dcc.Tab(label="Concentrations", value="conc", children=conc_tab),
         dcc.Tab(label="Barriers: flux and permeated", value="barrier", children=barrier_tab),
@@ -267,43 +315,47 @@ def register(app: Any, services: Any) -> None:
         Output(ids.CONC_FIGURE, "figure"),
         Output(ids.CONC_UNIT, "options"),
         Output(ids.CONC_UNIT, "value"),
+        Output(ids.AMOUNT_UNIT, "options"),
+        Output(ids.AMOUNT_UNIT, "value"),
         Output(ids.COMPARTMENT_PICK, "options"),
         Input(ids.RUN_PICK, "value"),
         Input(ids.CONC_QUANTITY, "value"),
         Input(ids.CONC_UNIT, "value"),
+        Input(ids.AMOUNT_UNIT, "value"),
         Input(ids.CONC_SCALE, "value"),
+        Input(ids.CONC_SPLIT, "value"),
         Input(ids.TIME_UNIT, "value"),
         Input(ids.COMPARTMENT_PICK, "value"),
         State(ids.RUNS, "data"),
     )
-    def concentrations(picked, quantity, unit, scale, time_unit, cids, runs):
+    def concentrations(picked, quantity, conc_unit, amount_unit, scale, split, time_unit, cids, runs):
         data = fetch(picked, runs)
-        molar = bool(data) and all(r.molar_mass for r in data)
-        units = list(F.AMOUNT_UNITS) if quantity == "amount" else concentration_units(molar)
-        unit = unit if unit in units else units[0]
+        u = units_of(data, conc_unit, amount_unit, time_unit)
         options: list[str] = []
         for r in data:
             options += [c for c in r.compartments if c not in options]
         cids = [c for c in cids or [] if c in options] or None
-        log = F.wide_range(data, cids, quantity) if scale == "auto" else scale == "log"
-        figure = F.concentration_figure(data, compartments=cids, quantity=quantity, unit=unit,
-                                        time_unit=time_unit, log=log)
-        return figure, units, unit, options
+        figure = F.concentration_figure(data, compartments=cids, quantity=quantity,
+                                        unit=u.amount if quantity == "amount" else u.concentration,
+                                        time_unit=u.time, scale=scale or "auto", split=split != "one")
+        return (figure, u.concentration_options, u.concentration if data else conc_unit, u.amount_options,
+                u.amount if data else amount_unit, options)
 
     @app.callback(
         Output(ids.FLUX_FIGURE, "figure"),
         Output(ids.PERMEATED_FIGURE, "figure"),
         Input(ids.RUN_PICK, "value"),
         Input(ids.BARRIER_PICK, "value"),
-        Input(ids.FLUX_UNIT, "value"),
+        Input(ids.AMOUNT_UNIT, "value"),
         Input(ids.TIME_UNIT, "value"),
         State(ids.RUNS, "data"),
     )
-    def barriers(picked, bids, unit, time_unit, runs):
+    def barriers(picked, bids, amount_unit, time_unit, runs):
         data = fetch(picked, runs)
+        u = units_of(data, None, amount_unit, time_unit)
         chosen = bids or None
-        return (F.flux_figure(data, barriers=chosen, amount_unit=unit, time_unit=time_unit),
-                F.permeated_figure(data, barriers=chosen, amount_unit=unit, time_unit=time_unit))
+        return (F.flux_figure(data, barriers=chosen, amount_unit=u.amount, time_unit=u.time),
+                F.permeated_figure(data, barriers=chosen, amount_unit=u.amount, time_unit=u.time))
 
     @app.callback(
         Output(ids.PROFILE_BARRIER, "options"),
@@ -345,10 +397,11 @@ def register(app: Any, services: Any) -> None:
         Input(ids.PROFILE_BARRIER, "value"),
         Input(ids.PROFILE_STEADY, "value"),
         Input(ids.TIME_UNIT, "value"),
+        Input(ids.CONC_UNIT, "value"),
         State(ids.RUN_PICK, "value"),
         State(ids.RUNS, "data"),
     )
-    def profile(index, barrier, steady_on, time_unit, picked, runs):
+    def profile(index, barrier, steady_on, time_unit, conc_unit, picked, runs):
         data = [r for r in fetch(picked, runs) if barrier in r.barriers]
         if not data:
             return F.empty_figure("Run a scenario with a barrier to see its profile."), ""
@@ -361,7 +414,8 @@ def register(app: Any, services: Any) -> None:
         if steady_on:
             steady = _steady_of(data[0], barrier)
         ft = unit_factor("time", time_unit)
-        return (F.profile_figure(data, barrier, t, time_unit=time_unit, steady=steady),
+        u = units_of(data, conc_unit, None, time_unit)
+        return (F.profile_figure(data, barrier, t, unit=u.concentration, time_unit=time_unit, steady=steady),
                 f"t = {t * ft:.4g} {time_unit} (saved time {k + 1} of {len(times)})")
 
     app.clientside_callback(
@@ -391,12 +445,14 @@ def register(app: Any, services: Any) -> None:
     @app.callback(
         Output(ids.BALANCE_FIGURE, "figure"),
         Input(ids.RUN_PICK, "value"),
-        Input(ids.BALANCE_UNIT, "value"),
+        Input(ids.AMOUNT_UNIT, "value"),
         Input(ids.TIME_UNIT, "value"),
         State(ids.RUNS, "data"),
     )
-    def balance(picked, unit, time_unit, runs):
-        return F.balance_figure(fetch(picked, runs), amount_unit=unit, time_unit=time_unit)
+    def balance(picked, amount_unit, time_unit, runs):
+        data = fetch(picked, runs)
+        u = units_of(data, None, amount_unit, time_unit)
+        return F.balance_figure(data, amount_unit=u.amount, time_unit=u.time)
 
     @app.callback(
         Output(ids.METRICS_GRID, "rowData"),
@@ -404,13 +460,16 @@ def register(app: Any, services: Any) -> None:
         Output(ids.WARNINGS, "children"),
         Input(ids.RUN_PICK, "value"),
         Input(ids.REFERENCE, "value"),
+        Input(ids.TIME_UNIT, "value"),
+        Input(ids.CONC_UNIT, "value"),
+        Input(ids.AMOUNT_UNIT, "value"),
         State(ids.RUNS, "data"),
     )
-    def metrics(picked, reference, runs):
+    def metrics(picked, reference, time_unit, conc_unit, amount_unit, runs):
         data = fetch(picked, runs)
         order = [r["id"] for r in runs or [] if r["id"] in set(picked or []) and not r.get("error")]
         ref = order.index(reference) if reference in order else 0
-        rows, names = compare_rows(data, ref)
+        rows, names = compare_rows(data, ref, units_of(data, conc_unit, amount_unit, time_unit).output)
         notes = []
         for r in data:
             for w in r.warnings:
@@ -439,9 +498,12 @@ def register(app: Any, services: Any) -> None:
         State(ids.RUN_PICK, "value"),
         State(ids.REFERENCE, "value"),
         State(ids.RUNS, "data"),
+        State(ids.TIME_UNIT, "value"),
+        State(ids.CONC_UNIT, "value"),
+        State(ids.AMOUNT_UNIT, "value"),
         prevent_initial_call=True,
     )
-    def export(_csv, _side, _met, _cmp, run_id, picked, reference, runs):
+    def export(_csv, _side, _met, _cmp, run_id, picked, reference, runs, time_unit, conc_unit, amount_unit):
         trigger = ctx.triggered_id
         if trigger == ids.EXPORT_COMPARISON:
             data = fetch(picked, runs)
@@ -449,7 +511,8 @@ def register(app: Any, services: Any) -> None:
                 raise PreventUpdate
             order = [r["id"] for r in runs or [] if r["id"] in set(picked or []) and not r.get("error")]
             ref = order.index(reference) if reference in order else 0
-            return dcc.send_string(comparison_csv(data, ref), "comparison.csv", type="text/csv")
+            units = units_of(data, conc_unit, amount_unit, time_unit).output
+            return dcc.send_string(comparison_csv(data, ref, units), "comparison.csv", type="text/csv")
         record = next((r for r in runs or [] if r["id"] == run_id), None)
         if record is None:
             raise PreventUpdate

@@ -351,7 +351,8 @@ def test_profile_slider_shows_the_interface_jump(ui, tmp_path):
     assert coating["x"][-1] < 10.0 < base["x"][0]
     # late in the run the profile is the steady one (drawn dotted)
     steady = [t for t in traces if t["name"].startswith("steady")]
-    assert steady and steady[0]["y"][0] == pytest.approx(10.0)  # K1 * C_source / K_source, mg/mL
+    # K1 * C_source / K_source = 10 mg/mL, shown in mg/L (the concentration unit of every plot)
+    assert steady and steady[0]["y"][0] == pytest.approx(10_000.0)
     assert base["y"][0] == pytest.approx(steady[1]["y"][0], rel=0.05)
 
     for _ in range(10):
@@ -545,3 +546,54 @@ def test_a_saved_project_reopens_the_comparison(ui, browser, tmp_path):
         assert not other.errors, other.errors
     finally:
         context.close()
+
+
+def test_the_default_plot_of_the_demo_shows_plasma(ui):
+    """Journey 9: the demo's default concentration view draws plasma inside its axis (the patch,
+    some 1e4 times more concentrated, on a panel of its own); plot and metrics table share one
+    unit; no legend covers an axis title."""
+    page = ui.page
+    ui.open()
+    ui.pick("example-pick", "Daily patch over two-layer skin into a two-compartment body (daily_patch.toml)")
+    page.locator("#example-open").click()
+    expect(ui.field("link", "id")).to_have_value("skin")
+    ui.run(1)
+    ui.figure("fig-concentration", until=lambda ts: len(ts) == 3)
+    drawn = page.evaluate("""() => {
+        const gd = document.querySelector('#fig-concentration .js-plotly-plot');
+        return gd.data.map(t => {
+            const ax = gd._fullLayout['yaxis' + (t.yaxis || 'y').slice(1)];
+            return {name: t.name, y: Array.from(t.y), type: ax.type, range: ax.range.slice(), title: ax.title.text};
+        });
+    }""")
+    by_name = {t["name"]: t for t in drawn}
+    central = by_name["central"]
+    assert central["title"] == "concentration [ug/L]"
+    low, high = (10 ** v for v in central["range"]) if central["type"] == "log" else central["range"]
+    values = [v for v in central["y"] if v is not None and v > 0]
+    late = values[len(values) // 10:]  # after the first tenth of the week (the patch's first lag)
+    assert max(values) <= high and all(low <= v <= high for v in late), (low, high, min(late), max(values))
+    assert by_name["patch"]["range"] != central["range"]  # the patch on an axis of its own
+
+    # the metrics table is in the plot's unit
+    ui.tab("Metrics and comparison")
+    cmax_unit = page.locator("#metrics-grid .ag-center-cols-container .ag-row .ag-cell[col-id='unit']",
+                             has_text="ug/L")
+    expect(cmax_unit.first).to_be_visible()
+    ui.tab("Concentrations")
+    ui.idle()
+
+    # legends never cover an axis title (bounding boxes in the page)
+    for graph_id in ("fig-concentration",):
+        overlaps = page.evaluate("""(id) => {
+            const root = document.getElementById(id);
+            const legend = root.querySelector('.legend').getBoundingClientRect();
+            const titles = Array.from(root.querySelectorAll('.g-xtitle, [class^="g-y"][class$="title"]'));
+            return titles.filter(t => t.getBBox && t.getBoundingClientRect().width > 0).map(t => {
+                const b = t.getBoundingClientRect();
+                return !(b.right < legend.left || b.left > legend.right ||
+                         b.bottom < legend.top || b.top > legend.bottom);
+            });
+        }""", graph_id)
+        assert overlaps and not any(overlaps), overlaps
+    ui.shot("journey9-demo-plot")

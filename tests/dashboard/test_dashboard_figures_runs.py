@@ -48,7 +48,7 @@ def cell_runs():
 
 def test_concentration_figure_draws_the_library_traces_in_the_chosen_unit(patch_run):
     result, run = patch_run
-    fig = F.concentration_figure([run], unit="mg/L", time_unit="d")
+    fig = F.concentration_figure([run], unit="mg/L", time_unit="d", split=False)
     go.Figure(fig)
     traces = {t["name"]: t for t in fig["data"]}
     assert set(traces) == set(result.compartment_ids)
@@ -59,6 +59,46 @@ def test_concentration_figure_draws_the_library_traces_in_the_chosen_unit(patch_
     # the patch holds ~1e4 mg/L, plasma far less: the automatic axis is logarithmic
     assert F.wide_range([run])
     assert not F.wide_range([run], ["central", "peripheral"])
+
+
+def _shown_on_its_axis(fig, name):
+    """Fraction of a trace's points (after its first rise) inside the plotted range of its y axis."""
+    trace = next(t for t in fig["data"] if t["name"] == name)
+    axis = fig["layout"]["yaxis" + trace["yaxis"][1:]]
+    y = np.array([v for v in trace["y"] if v is not None and v > 0])
+    if axis["type"] == "log":
+        low, high = 10 ** axis["range"][0], 10 ** axis["range"][1]
+    else:
+        low, high = -np.inf, np.inf
+    start = int(np.argmax(y > 0.01 * y.max()))
+    return float(np.mean((y[start:] >= low) & (y[start:] <= high))), y.max() <= high
+
+
+def test_the_default_view_shows_plasma_beside_a_concentrated_patch(patch_run):
+    _, run = patch_run
+    fig = F.concentration_figure([run], unit="ug/L")
+    go.Figure(fig)
+    axis_of = {t["name"]: t["yaxis"] for t in fig["data"]}
+    assert axis_of == {"patch": "y", "central": "y2", "peripheral": "y2"}  # the patch apart from the body
+    for name in ("patch", "central", "peripheral"):
+        share, peak_inside = _shown_on_its_axis(fig, name)
+        assert share == 1.0 and peak_inside, name
+    # one plot: every curve still inside the log axis (its range reaches below the lowest peak)
+    one = F.concentration_figure([run], unit="ug/L", split=False)
+    assert one["layout"]["yaxis"]["type"] == "log"
+    for name in ("patch", "central", "peripheral"):
+        share, peak_inside = _shown_on_its_axis(one, name)
+        assert share > 0.95 and peak_inside, name
+    # legends sit outside the plotting area, at the right
+    assert fig["layout"]["legend"]["x"] > 1 and fig["layout"]["legend"]["xanchor"] == "left"
+
+
+def test_a_curve_that_is_zero_throughout_is_named_not_left_in_the_legend(cell_runs):
+    run, _ = cell_runs
+    fig = F.concentration_figure([run], scale="log")
+    names = [t["name"] for t in fig["data"]]
+    assert names == ["donor"]  # the receptor is a perfect sink, 0 throughout
+    assert any("0 throughout" in a["text"] and "receptor" in a["text"] for a in fig["layout"]["annotations"])
 
 
 def test_overlaid_runs_differ_by_dash_and_name(patch_run, cell_runs):
@@ -217,3 +257,25 @@ def test_a_large_grid_is_thinned_for_the_profile_keeping_the_cells_at_every_inte
         assert idx[0] in kept and idx[-1] in kept
     assert np.all(np.diff(kept) > 0)
     np.testing.assert_array_equal(profile_cells(np.zeros(40, dtype=int)), np.arange(40))
+
+
+def test_one_unit_choice_governs_the_plot_and_the_metrics_table(patch_run):
+    from dashboard.panels.results import units_of
+
+    _, run = patch_run
+    u = units_of([run], None, None, "h")
+    assert (u.concentration, u.amount) == ("ug/L", "mg")  # the demo's [output] units, by default
+    rows, _ = compare_rows([run], 0, u.output)
+    cmax = next(r for r in rows if r["id"] == "central" and r["name"] == "cmax")
+    fig = F.concentration_figure([run], unit=u.concentration)
+    central = next(t for t in fig["data"] if t["name"] == "central")
+    assert cmax["unit"] == "ug/L" and fig["layout"]["yaxis2"]["title"]["text"] == "concentration [ug/L]"
+    assert float(cmax["f0"]) == pytest.approx(max(central["y"]), rel=1e-9)
+    # another choice moves both: 1 ug/L = 1e-3 mg/L, 1 d = 24 h (SI, NIST SP 811)
+    other = units_of([run], "mg/L", "ug", "d")
+    rows2, _ = compare_rows([run], 0, other.output)
+    cmax2 = next(r for r in rows2 if r["id"] == "central" and r["name"] == "cmax")
+    tmax2 = next(r for r in rows2 if r["id"] == "central" and r["name"] == "tmax")
+    tmax = next(r for r in rows if r["id"] == "central" and r["name"] == "tmax")
+    assert cmax2["unit"] == "mg/L" and float(cmax2["f0"]) == pytest.approx(float(cmax["f0"]) * 1e-3, rel=1e-12)
+    assert tmax2["unit"] == "d" and float(tmax2["f0"]) == pytest.approx(float(tmax["f0"]) / 24, rel=1e-12)

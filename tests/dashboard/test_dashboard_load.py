@@ -38,8 +38,6 @@ TIME_LIMIT_S = 60.0
 CHECK = [f"{ids.CHECK}.data", f"{ids.VALID}.data"]
 RUN = [f"{ids.RUNS}.data", f"{ids.RUN_STATUS}.children", f"{ids.RUN_NAME}.value"]
 SAVE = [f"{ids.SAVED}.data", f"{ids.SESSION_CONFLICT}.style", f"{ids.SESSION_NOTE}.children"]
-CONC = [f"{ids.CONC_FIGURE}.figure", f"{ids.CONC_UNIT}.options", f"{ids.CONC_UNIT}.value",
-        f"{ids.COMPARTMENT_PICK}.options"]
 
 
 def _percentile(values: list[float], q: float) -> float:
@@ -71,6 +69,16 @@ def _callback_state(app, outputs: list[str]) -> list[str]:
     return [f"{s['id']}.{s['property']}" for s in app.callback_map[key]["state"]]
 
 
+def _callback_of(app, output: str) -> tuple[list[str], list[str], list[str]]:
+    """Outputs, inputs and states ("id.prop") of the callback that has ``output`` among its outputs."""
+    for key, spec in app.callback_map.items():
+        outs = key.strip(".").split("...") if key.startswith("..") else [key]
+        if output in outs:
+            return (outs, [f"{i['id']}.{i['property']}" for i in spec["inputs"]],
+                    [f"{s['id']}.{s['property']}" for s in spec["state"]])
+    raise KeyError(output)
+
+
 def session(base: str, app, index: int, timing: Timing) -> dict:
     """One researcher: open, edit the patch's concentration, validate, run, read the plot."""
     client = DashClient(base, timing)
@@ -92,11 +100,12 @@ def session(base: str, app, index: int, timing: Timing) -> dict:
     runs = (answer.get(ids.RUNS) or {}).get("data") or []
     if not runs or runs[-1].get("error"):
         return {"index": index, "value": value, "runs": runs, "shown": None}
-    state = {f"{ids.RUNS}.data": runs}
-    inputs = {f"{ids.RUN_PICK}.value": [runs[-1]["id"]], f"{ids.CONC_QUANTITY}.value": "concentration",
-              f"{ids.CONC_UNIT}.value": "mg/mL", f"{ids.CONC_SCALE}.value": "linear", f"{ids.TIME_UNIT}.value": "h",
-              f"{ids.COMPARTMENT_PICK}.value": ["patch"]}
-    answer = client.call(CONC, inputs, state, kind="plot")
+    outputs, input_ids, state_ids = _callback_of(app, f"{ids.CONC_FIGURE}.figure")
+    chosen = {f"{ids.RUNS}.data": runs, f"{ids.RUN_PICK}.value": [runs[-1]["id"]], f"{ids.CONC_UNIT}.value": "mg/mL",
+              f"{ids.CONC_SCALE}.value": "linear", f"{ids.COMPARTMENT_PICK}.value": ["patch"]}
+    sent = {k: chosen.get(k, client.prop(k.rsplit(".", 1)[0], k.rsplit(".", 1)[1])) for k in input_ids + state_ids}
+    answer = client.call(outputs, {k: sent[k] for k in input_ids}, {k: sent[k] for k in state_ids}, kind="plot",
+                         changed=[f"{ids.RUN_PICK}.value"])
     traces = answer[ids.CONC_FIGURE]["figure"]["data"]
     shown = next(t["y"][0] for t in traces if t["name"].startswith("patch"))
     # the page keeps its work in the browser's session, then is loaded again

@@ -186,6 +186,19 @@ class UI:
         self.page.locator("#run-status .good", has_text=f"run {expect_number} done").wait_for(timeout=60_000)
         self.idle()
 
+    def download(self, click_selector: str, folder: Path) -> Path:
+        """Click what starts a download and save the file in ``folder`` under its suggested name."""
+        with self.page.expect_download() as info:
+            self.page.locator(click_selector).click()
+        dl = info.value
+        path = folder / dl.suggested_filename
+        dl.save_as(path)
+        return path
+
+    def canvas_labels(self) -> list[str]:
+        """The compartment ids drawn on the network canvas."""
+        return self.page.evaluate("() => window.cy.nodes().map(n => n.data('label').split('\\n')[0])")
+
     def tab(self, label: str) -> None:
         """Open a results tab."""
         self.page.get_by_text(label, exact=True).click()
@@ -224,6 +237,11 @@ def ui(request: pytest.FixtureRequest, browser: Any, live_url: str, screens: Pat
     When the test fails, the page as it was is saved as ``FAILED-<test>.png`` beside the
     journeys' screenshots.
     """
+    from playwright.sync_api import expect
+
+    # the machine is shared: the assertions wait as long as the actions do (Playwright's own
+    # default for expect is 5 s)
+    expect.set_options(timeout=TIMEOUT_MS)
     context = browser.new_context(viewport={"width": 1440, "height": 900}, accept_downloads=True)
     context.set_default_timeout(TIMEOUT_MS)
     page = context.new_page()

@@ -30,26 +30,26 @@ def _layer(rng: random.Random, small_grid: bool) -> Layer:
                  partition=_log(rng, 0.01, 100.0), cells=cells, degradation_rate=deg)
 
 
-def _compartment(rng: random.Random, i: int) -> Compartment:
+def _compartment(rng: random.Random, i: int, prefix: str = "") -> Compartment:
     if rng.random() < 0.15:
-        return Compartment(f"c{i}", held_concentration=0.0 if rng.random() < 0.5 else _log(rng, 1e-3, 10.0),
+        return Compartment(f"{prefix}c{i}", held_concentration=0.0 if rng.random() < 0.5 else _log(rng, 1e-3, 10.0),
                            partition=_log(rng, 0.1, 10.0))
     mm = {}
     if rng.random() < 0.1:
         mm = {"vmax": _log(rng, 1e-3, 10.0), "km": _log(rng, 1e-5, 1.0)}
-    return Compartment(f"c{i}", volume=_log(rng, 1e-3, 1e5),
+    return Compartment(f"{prefix}c{i}", volume=_log(rng, 1e-3, 1e5),
                        initial_concentration=0.0 if rng.random() < 0.5 else _log(rng, 1e-3, 10.0),
                        partition=_log(rng, 0.1, 10.0),
                        clearance=0.0 if rng.random() < 0.6 else _log(rng, 1e-2, 1e5), **mm)
 
 
-def _dose(rng: random.Random, target: str, duration: float) -> Dose:
+def _dose(rng: random.Random, target: str, duration: float, few: bool = False) -> Dose:
     kind = rng.choice(("bolus", "infusion", "hold", "replace", "remove"))
     at = rng.uniform(0.0, duration) if rng.random() < 0.7 else 0.0
     every = None
     count = None
     if rng.random() < 0.3:
-        every = _log(rng, duration / 20, duration)
+        every = _log(rng, duration / (4 if few else 20), duration)
         count = rng.randint(2, 5) if rng.random() < 0.5 else None
     kw: dict = {}
     if kind == "bolus":
@@ -66,7 +66,7 @@ def _dose(rng: random.Random, target: str, duration: float) -> Dose:
 
 
 def random_scenario(rng: random.Random, *, max_comp: int = 6, small_grid: bool = False,
-                    linear: bool | None = None) -> Scenario:
+                    linear: bool | None = None, prefix: str = "", duration: float | None = None) -> Scenario:
     """A random valid scenario (internal units: cm, h, mg, mL).
 
     Parameters
@@ -75,13 +75,18 @@ def random_scenario(rng: random.Random, *, max_comp: int = 6, small_grid: bool =
     max_comp : int
         Most compartments.
     small_grid : bool
-        Give every layer 2 to 8 equal cells (fast references in CI).
+        Small and quick (references in CI): every layer 2 to 8 equal cells, at most two doses
+        repeated at most about four times, 5 to 40 output steps.
     linear : bool or None
         True: no saturable elimination; False: at least one compartment has it; None: either.
+    prefix : str
+        Put in front of every id (to join two random networks into one file).
+    duration : float or None, h
+        The run's duration (drawn when None).
     """
     for _attempt in range(50):
         n = rng.randint(1, max_comp)
-        comps = [_compartment(rng, i) for i in range(n)]
+        comps = [_compartment(rng, i, prefix) for i in range(n)]
         if linear is True:
             comps = [Compartment(c.id, volume=c.volume, initial_concentration=c.initial_concentration,
                                  partition=c.partition, clearance=c.clearance, held_concentration=c.held_concentration)
@@ -102,27 +107,29 @@ def random_scenario(rng: random.Random, *, max_comp: int = 6, small_grid: bool =
             for j in range(rng.randint(0, 3)):
                 a, b = rng.sample(ids, 2)
                 layers = tuple(_layer(rng, small_grid) for _ in range(rng.randint(1, 3)))
-                links["barriers"].append(Barrier(f"b{j}", a, b, _log(rng, 0.01, 100.0), layers,
+                links["barriers"].append(Barrier(f"{prefix}b{j}", a, b, _log(rng, 0.01, 100.0), layers,
                                                  model="steady" if rng.random() < 0.15 else "resolved"))
             for j in range(rng.randint(0, 2)):
                 a, b = rng.sample(ids, 2)
-                links["exchanges"].append(Exchange(f"x{j}", a, b, _log(rng, 1.0, 1e5)))
+                links["exchanges"].append(Exchange(f"{prefix}x{j}", a, b, _log(rng, 1.0, 1e5)))
             for j in range(rng.randint(0, 2)):
                 if not with_volume:
                     break
                 a = rng.choice(with_volume)
                 others = [i for i in ids if i != a]
-                links["transfers"].append(Transfer(f"t{j}", a, rng.choice(others), _log(rng, 1e-2, 10.0)))
-        duration = _log(rng, 0.5, 500.0)
+                links["transfers"].append(Transfer(f"{prefix}t{j}", a, rng.choice(others), _log(rng, 1e-2, 10.0)))
+        run = duration if duration is not None else _log(rng, 0.5, 500.0)
         doses = []
         dosable = [i for i in free_ids if i in with_volume]
-        for _ in range(rng.randint(0, 3) if dosable else 0):
-            doses.append(_dose(rng, rng.choice(dosable), duration))
+        for _ in range(rng.randint(0, 2 if small_grid else 3) if dosable else 0):
+            doses.append(_dose(rng, rng.choice(dosable), run, few=small_grid))
         output = {}
-        if rng.random() < 0.3:
-            output["output_step"] = _log(rng, duration / 300, duration / 5)
+        if small_grid:
+            output["output_step"] = run / rng.randint(5, 40)
+        elif rng.random() < 0.3:
+            output["output_step"] = _log(rng, run / 300, run / 5)
         try:
-            return Scenario(name="random network (invented)", duration=duration, compartments=tuple(comps),
+            return Scenario(name="random network (invented)", duration=run, compartments=tuple(comps),
                             barriers=tuple(links["barriers"]), exchanges=tuple(links["exchanges"]),
                             transfers=tuple(links["transfers"]), doses=tuple(doses), **output)
         except ScenarioError:

@@ -489,6 +489,11 @@ class ExactIntegrator:
         dosed = np.zeros(nc)
         removed = np.zeros(nc)
         modes: dict[bytes, _Modes | None] = {}
+        inert = np.ones(m.n_dyn, dtype=bool)  # no link, transfer or loss acts on these states
+        inert[m.link_p] = False
+        inert[m.link_q] = False
+        inert[m.tr_from] = False
+        inert[m.loss_rate != 0.0] = False
         jac: dict[bytes, np.ndarray] = {}
         row, ei = 0, 0
         n_int = len(marks) - 1
@@ -533,6 +538,10 @@ class ExactIntegrator:
                 out = _advance_expm(m, a, g, y, np.append(tau, t1 - t0), clamp)
                 states[row:end] = out[:-1]
                 last = out[-1:]
+            # states that nothing touches keep their value exactly (the scalings would round it)
+            keep = inert & (g[: m.n_dyn] == 0.0)
+            states[row:end, : m.n_dyn][:, keep] = y[: m.n_dyn][keep]
+            last[0, : m.n_dyn][keep] = y[: m.n_dyn][keep]
             y = last[0].copy()
             ev_dosed[row:end] = dosed
             ev_removed[row:end] = removed

@@ -693,6 +693,11 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
             dst[r] = y0[r]
         for a in range(n):
             dst[idx[a]] = ys[a]
+            if ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
+                    a == n - 1 or comp_of[a + 1] != comp_of[a]):
+                # a state that nothing touches: exactly its value plus what is infused (the
+                # symmetrising scale would round it)
+                dst[idx[a]] = y0[idx[a]] + g[idx[a]] * tj
         dq = dst[nd:]
         for r in range(nqd):
             dq[r] = y0[nd + r] + qs[r] + g[nd + r] * tj

@@ -89,6 +89,12 @@ class ScipyIntegrator:
             i += 1
         if t_end <= 0 or i == len(t_out) and t_end <= 0:
             return out
+        if t_end < 1e-150:  # one explicit step (see rosenbrock.TINY_INTERVAL)
+            f = problem.fun(0.0, y0)
+            while i < len(t_out):
+                out[i] = y0 + t_out[i] * f
+                i += 1
+            return out
         scale = problem.model.scale
         atol = self.atol * scale
         jac = problem.jac_dense if self.method == "LSODA" else problem.jac

@@ -79,6 +79,10 @@ _KIND_CODE = {"bolus": EV_BOLUS, "replace": EV_REPLACE, "remove": EV_REMOVE, "ho
 # a linear model's rates are evaluated afresh every REFRESH steps (see the module docstring)
 REFRESH = 8
 
+# an interval shorter than this (h) takes one explicit step: its rates times its length are
+# far below rounding for any rate a scenario can hold
+TINY_INTERVAL = 1e-150
+
 # statistics slots
 ST_STEPS, ST_REJECTED, ST_RHS, ST_JAC, ST_LU, ST_INTERVALS = range(6)
 # status codes of the compiled loop
@@ -715,6 +719,22 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
         io += 1
     if t_end <= 0.0:
         return OK
+    if t_end < TINY_INTERVAL:
+        # two events a few hundred orders of magnitude apart in time: one explicit step is exact
+        # to rounding there (and 1 / (h gamma) would overflow)
+        rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+        stats[ST_RHS] += 1
+        for i in range(n):
+            yn[i] = y[i] + t_end * f0[i]
+        while io < n_out:
+            s = t_out[io] / t_end
+            for i in range(n):
+                out[io, i] = y[i] + s * (yn[i] - y[i])
+            io += 1
+        for i in range(n):
+            y[i] = yn[i]
+        stats[ST_STEPS] += 1
+        return OK
     nq = np.int64(0)  # not a literal zero: a literal would compile _solve twice
     nq_lin = np.int64(0)
     jcc_lin = np.zeros((nc, nc))
@@ -749,7 +769,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     h_acc = 0.0
     err_acc = 0.0
     n_steps = 0
-    h_min = 1e-14 * max(t_end, 1.0)
+    h_min = 1e-14 * t_end  # relative to the interval: a dose may follow another by 1e-95 h
     fac_done = -1.0
     while t < t_end:
         if n_steps >= max_steps:
@@ -889,7 +909,8 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                 else:
                     s1 = 1.0 - s
                     for i in range(n):
-                        out[io, i] = s1 * y[i] + s * (yn[i] + s1 * (c2[i] + s * c3[i]))
+                        # y + s (yn - y) + s (1 - s) (...): a state that does not move stays exact
+                        out[io, i] = y[i] + s * ((yn[i] - y[i]) + s1 * (c2[i] + s * c3[i]))
                 io += 1
         if linear and (n_steps + 1) % REFRESH != 0:
             # the rates at the new solution from the stage equations, f(y) + J (y_new - y) =

@@ -68,6 +68,7 @@ __all__ = [
     "check",
     "compartment_by_id",
     "connect",
+    "new_link_note",
     "delete",
     "deleted_with",
     "draft_from_scenario",
@@ -165,6 +166,8 @@ OUTPUT_LABELS: dict[str, tuple[str, str, str]] = _fields(OutputUnits, {
 
 NEW_LAYER = {"name": "", "thickness": "10 um", "diffusivity": "1e-7 cm^2/s", "partition": "1",
              "cells": "", "degradation_rate": ""}
+DEFAULT_LAYER_NAME = "default layer"
+"""Name of the one layer a new barrier starts with (its values are those of :data:`NEW_LAYER`)."""
 NEW_LINK = {"barrier": {"area": "1 cm^2"}, "exchange": {"flow": "1 mL/h"}, "transfer": {"rate": "0.1 1/h"}}
 NEW_DOSE = {"kind": "bolus", "amount": "1 mg", "at": "0 h"}
 
@@ -598,7 +601,10 @@ def add_compartment(draft: Mapping[str, Any], cid: str | None = None,
 
 
 def connect(draft: Mapping[str, Any], kind: str, from_key: str, to_key: str) -> tuple[dict[str, Any], str]:
-    """Join two compartments with a barrier (one layer), an exchange or a transfer.
+    """Join two compartments with a barrier, an exchange or a transfer.
+
+    A barrier starts with one layer named :data:`DEFAULT_LAYER_NAME`, with the values of
+    :data:`NEW_LAYER` (see :func:`new_link_note`).
 
     Raises
     ------
@@ -617,9 +623,26 @@ def connect(draft: Mapping[str, Any], kind: str, from_key: str, to_key: str) -> 
     link = _empty_link(kind)
     link.update(key=key, id=_unique_id(d, kind), **{"from": from_key, "to": to_key}, **NEW_LINK[kind])
     if kind == "barrier":
-        link["layers"] = [{"key": _next_key(d, "y"), **NEW_LAYER, "name": "layer 1"}]
+        # one layer, named so: the barrier has no hidden values (the dashboard selects it and says so)
+        link["layers"] = [{"key": _next_key(d, "y"), **NEW_LAYER, "name": DEFAULT_LAYER_NAME}]
     d["links"].append(link)
     return d, key
+
+
+def new_link_note(draft: Mapping[str, Any], key: str) -> str:
+    """What a new link starts with, said plainly (a barrier's default layer and its values)."""
+    link = find(draft, key)
+    if link is None:
+        return ""
+    kind, ident = link["kind"], link.get("id") or ""
+    if kind == "barrier":
+        return (f"Connected with barrier {ident}. It starts with one layer named '{DEFAULT_LAYER_NAME}' (thickness "
+                f"{NEW_LAYER['thickness']}, diffusivity {NEW_LAYER['diffusivity']}, partition coefficient "
+                f"{NEW_LAYER['partition']}), selected in the layer table on the right: give it your values, or "
+                "remove it once you have added your own layers.")
+    value = link.get("flow") if kind == "exchange" else link.get("rate")
+    what = "flow" if kind == "exchange" else "rate constant"
+    return f"Connected with {kind} {ident} ({what} {value} to start with); edit it on the right."
 
 
 def delete(draft: Mapping[str, Any], key: str) -> dict[str, Any]:

@@ -10,9 +10,11 @@ SameSite=Strict, kept :data:`KEEP_DAYS` days). Its folder under the sessions dir
     each run's packed data (:func:`dashboard.project.encode_run`), so that a run survives a
     server restart even when the run archive has dropped it.
 
-Every save names the revision it was based on; a save based on an older revision than the one
-on disk (another tab of the same browser saved in between) is refused as a conflict, and the
-page says so instead of silently overwriting the other tab's work.
+Every save names the revision it was based on and the page that makes it; a save based on an
+older revision than the one on disk, written by another page (another tab of the same browser
+saved in between), is refused as a conflict, and the page says so instead of silently
+overwriting the other tab's work. Saves of one page may overtake each other on the way; the
+one with the lower count of the page's changes is dropped.
 
 Folders not touched for :data:`KEEP_DAYS` days are removed when the store starts.
 """
@@ -147,27 +149,47 @@ class SessionStore:
         state = self.load(sid)
         return int(state.get("revision", 0)) if state else 0
 
-    def save(self, sid: str, state: Mapping[str, Any], base: int | None, force: bool = False) -> dict[str, Any]:
+    def save(self, sid: str, state: Mapping[str, Any], base: int | None, force: bool = False, *,
+             writer: str = "", edits: int = 0) -> dict[str, Any]:
         """Save a session's state if it is based on the revision on disk.
+
+        Parameters
+        ----------
+        sid : str
+        state : mapping
+            ``draft``, ``valid``, ``runs``, ``view``.
+        base : int or None
+            The revision the page last saw (None: no check).
+        force : bool
+            Save even over another page's newer revision.
+        writer : str
+            The page that saves (its token). Saves of one page never conflict with each other:
+            one that arrives after a later one of the same page (its ``edits`` count is not
+            higher) is dropped as stale.
+        edits : int
+            The page's count of its changes at this save.
 
         Returns
         -------
         dict
-            ``{"revision": n, "conflict": False, "saved": "HH:MM:SS"}`` (``saved`` None when the
-            state on disk is already this one: nothing is written), or ``{"revision": n on disk,
-            "conflict": True}`` when another page saved since ``base`` (nothing written unless
-            ``force``).
+            ``{"revision": n, "conflict": False, "saved": "HH:MM:SS"}`` (``saved`` None when
+            nothing was written: the state on disk is already this one, or the save is stale),
+            or ``{"revision": n on disk, "conflict": True}`` when another page saved since
+            ``base`` (nothing written unless ``force``).
         """
         folder = self._folder(sid)
         with self._lock(sid):
             on_disk = self.load(sid)
             current = int(on_disk.get("revision", 0)) if on_disk else 0
+            same_writer = bool(writer) and on_disk is not None and on_disk.get("writer") == writer
+            if same_writer and edits <= int(on_disk.get("edits", 0)):
+                return {"revision": current, "conflict": False, "saved": None}  # a later save of this page won
             if on_disk is not None and all(on_disk.get(k) == v for k, v in state.items()):
                 return {"revision": current, "conflict": False, "saved": None}  # nothing changed
-            if base is not None and base != current and not force:
+            if base is not None and base != current and not same_writer and not force:
                 return {"revision": current, "conflict": True}
             revision = current + 1
-            doc = dict(state, format=FORMAT, version=1, revision=revision,
+            doc = dict(state, format=FORMAT, version=1, revision=revision, writer=writer, edits=int(edits),
                        saved=datetime.now(UTC).isoformat(timespec="seconds"))
             folder.mkdir(parents=True, exist_ok=True)
             atomic_write(folder / "state.json", json.dumps(doc, ensure_ascii=False, allow_nan=False))

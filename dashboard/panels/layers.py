@@ -176,7 +176,8 @@ def layout() -> html.Div:
             getRowId="params.data.key",
             dashGridOptions={"rowSelection": {"mode": "singleRow", "checkboxes": False, "enableClickSelection": True},
                              "domLayout": "autoHeight", "stopEditingWhenCellsLoseFocus": True,
-                             "tooltipShowDelay": 200, "singleClickEdit": False},
+                             "tooltipShowDelay": 200, "singleClickEdit": False,
+                             "rowClassRules": {"row-default": f"params.data.name === '{D.DEFAULT_LAYER_NAME}'"}},
             className="layer-grid", style={"width": "100%"}),
         html.Div("Double-click a cell (or select it and press Enter) to edit; every value carries its unit.",
                  className="fine-print"),
@@ -202,6 +203,7 @@ def register(app: Any, services: Any) -> None:
     @app.callback(
         Output("form-layers", "style"),
         Output(ids.LAYER_GRID, "rowData"),
+        Output(ids.LAYER_GRID, "selectedRows"),
         Input(ids.SELECT, "value"),
         Input(ids.LOADED, "data"),
         State(ids.DRAFT, "data"),
@@ -210,8 +212,11 @@ def register(app: Any, services: Any) -> None:
     def show(selected, _loaded, d, found):
         key = _selected_barrier(selected, d)
         if key is None:
-            return {"display": "none"}, []
-        return {}, grid_rows(d, key, (found or {}).get("messages"))
+            return {"display": "none"}, [], []
+        rows = grid_rows(d, key, (found or {}).get("messages"))
+        # a barrier that still has only the layer it was made with shows that layer selected
+        untouched = len(rows) == 1 and rows[0]["name"] == D.DEFAULT_LAYER_NAME
+        return {}, rows, rows[:1] if untouched else []
 
     @app.callback(
         Output(ids.DRAFT, "data", allow_duplicate=True),

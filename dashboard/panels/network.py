@@ -222,9 +222,7 @@ def register(app: Any, services: Any) -> None:
                 new, key = D.connect(d, kind, from_key, to_key)
             except ValueError as err:
                 return no_update, no_update, no_update, str(err), no_update, no_update, no_update, no_update
-            link = D.find(new, key)
-            return (new, element_options(new), f"l:{key}", f"Connected with {kind} {link['id']}; edit it on the right.",
-                    no_update, None, None, no_update)
+            return (new, element_options(new), f"l:{key}", D.new_link_note(new, key), no_update, None, None, no_update)
         if trigger == ids.TIDY:
             new = dict(d)
             new["positions"] = D.tidy_positions(d)
@@ -267,5 +265,4 @@ def register(app: Any, services: Any) -> None:
         if pending == key:
             return opts, f"c:{key}", None, no_update, "Cancelled: a link needs two different compartments."
         new, link_key = D.connect(d, kind, pending, key)
-        link = D.find(new, link_key)
-        return element_options(new), f"l:{link_key}", None, new, f"Connected with {kind} {link['id']}."
+        return element_options(new), f"l:{link_key}", None, new, D.new_link_note(new, link_key)

@@ -87,10 +87,11 @@ def register(app: Any, services: Any) -> None:
         State(ids.RUNS, "data"),
         *[State(cid, "value") for cid in settings],
         State(ids.SAVED, "data"),
+        State(ids.PAGE, "data"),
         prevent_initial_call=True,
     )
     def persist(edits, _keep, draft, valid, runs, *rest):
-        *values, saved = rest
+        *values, saved, page = rest
         sid = current_id()
         if sid is None or not isinstance(draft, dict):
             raise PreventUpdate
@@ -98,8 +99,9 @@ def register(app: Any, services: Any) -> None:
         view = V.clean(dict(zip(settings, values, strict=True)))
         state = {"draft": draft, "valid": valid, "runs": runs, "view": view}
         force = ctx.triggered_id == ids.KEEP_THIS
-        answer = store.save(sid, state, (saved or {}).get("revision"), force=force)
         n = (edits or {}).get("n", 0)
+        answer = store.save(sid, state, (saved or {}).get("revision"), force=force,
+                            writer=(page or {}).get("token", ""), edits=n)
         if answer["conflict"]:
             return ({"n": (saved or {}).get("n", 0), "revision": (saved or {}).get("revision"), "conflict": True},
                     {}, "Not kept: see the message below.")

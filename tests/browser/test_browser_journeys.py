@@ -65,8 +65,14 @@ def test_build_from_empty_run_and_export_matches_command_line(ui, tmp_path):
     ui.click_node("donor")
     expect(page.locator("#network-message")).to_contain_text("now click the receiving compartment")
     ui.click_node("receiver")
-    expect(page.locator("#network-message")).to_contain_text("Connected with barrier")
+    # the new barrier has no hidden layer: the one it starts with is named, selected and described
+    expect(page.locator("#network-message")).to_contain_text(
+        "Connected with barrier barrier_1. It starts with one layer named 'default layer' (thickness 10 um, "
+        "diffusivity 1e-7 cm^2/s, partition coefficient 1), selected in the layer table")
     expect(ui.field("link", "id")).to_have_value("barrier_1")
+    expect(ui.cell("layer-grid", 0, "name")).to_have_text("default layer")
+    expect(page.locator("#layer-grid .ag-center-cols-container .ag-row[row-index='0']")).to_have_class(
+        re.compile(r"\bag-row-selected\b"))
     ui.type_into(ui.field("link", "id"), "membrane")
     ui.type_into(ui.field("link", "area"), "2 cm^2")
 

@@ -131,12 +131,12 @@ def test_layers_are_added_removed_and_reordered():
     d = D.add_layer(d, link)
     d = D.add_layer(d, link, after=0)
     names = [layer["name"] for layer in D.find(d, link)["layers"]]
-    assert names == ["layer 1", "layer 3", "layer 2"]
+    assert names == ["default layer", "layer 3", "layer 2"]
     d = D.move_layer(d, link, 2, -1)
-    assert [layer["name"] for layer in D.find(d, link)["layers"]] == ["layer 1", "layer 2", "layer 3"]
+    assert [layer["name"] for layer in D.find(d, link)["layers"]] == ["default layer", "layer 2", "layer 3"]
     d = D.move_layer(d, link, 0, -1)  # already first: unchanged
     d = D.remove_layer(d, link, 1)
-    assert [layer["name"] for layer in D.find(d, link)["layers"]] == ["layer 1", "layer 3"]
+    assert [layer["name"] for layer in D.find(d, link)["layers"]] == ["default layer", "layer 3"]
     scenario, found = D.check(d)
     assert found["ok"] and len(scenario.barrier("barrier_1").layers) == 2
 
@@ -247,3 +247,20 @@ def test_a_draft_with_problems_is_saved_by_the_model_writer():
         barrierflow.loads(text, "cell.toml")
     _, found = D.check(d)
     assert [str(p) for p in err.value.problems] == found["all"]
+
+
+def test_every_problem_of_one_layer_is_shown_at_its_cell():
+    from dashboard.panels.layers import grid_rows, layer_messages
+
+    d, a = D.add_compartment(D.new_draft("two.toml"), "a", volume="1 mL")
+    d, b = D.add_compartment(d, "b", volume="1 mL")
+    d, link = D.connect(d, "barrier", a, b)
+    layer = D.find(d, link)["layers"][0]
+    assert layer["name"] == D.DEFAULT_LAYER_NAME  # the layer a new barrier starts with, named so
+    assert "one layer named 'default layer' (thickness 10 um" in D.new_link_note(d, link)
+    d = D.set_layers(d, link, [dict(layer, thickness="-5 um", diffusivity="fast")])
+    _s, found = D.check(d)
+    errors = grid_rows(d, link, found["messages"])[0]["_errors"]
+    assert set(errors) == {"thickness", "diffusivity"}, errors
+    listed = layer_messages(d, link, found["messages"])
+    assert any("thickness: got -5 um" in m for m in listed) and any("diffusivity: got fast" in m for m in listed)

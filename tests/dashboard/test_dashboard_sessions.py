@@ -50,6 +50,20 @@ def test_a_session_saves_reads_back_and_refuses_a_stale_revision(tmp_path):
     assert store.load(sid)["draft"]["scenario"]["name"] == "this tab"
 
 
+def test_saves_of_one_page_never_conflict_and_a_stale_one_is_dropped(tmp_path):
+    store = SessionStore(tmp_path)
+    sid = store.new_id()
+    states = [{"draft": D.set_scenario(D.new_draft(), name=f"edit {n}"), "runs": [], "view": {}} for n in range(4)]
+    assert store.save(sid, states[1], base=0, writer="page-a", edits=1)["revision"] == 1
+    # two saves of the same page in flight, both based on revision 1; the later edit arrives first
+    assert store.save(sid, states[3], base=1, writer="page-a", edits=3)["revision"] == 2
+    stale = store.save(sid, states[2], base=1, writer="page-a", edits=2)
+    assert stale == {"revision": 2, "conflict": False, "saved": None}
+    assert store.load(sid)["draft"]["scenario"]["name"] == "edit 3"
+    # another page based on revision 1 is refused
+    assert store.save(sid, states[0], base=1, writer="page-b", edits=9)["conflict"] is True
+
+
 def test_session_ids_are_checked_before_they_name_a_folder(tmp_path):
     store = SessionStore(tmp_path)
     for bad in ("../../etc", "abc", "A" * 32, None, 7):

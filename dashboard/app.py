@@ -155,6 +155,7 @@ def page(state: dict[str, Any], examples: dict[str, str], *, token: str = "",
         dcc.Store(id=ids.PAGE, data={"token": token or secrets.token_hex(16), "max_upload": int(max_upload)}),
         dcc.Store(id=ids.UPLOADED),
         dcc.Store(id=ids.EDITS, data={"n": 0}),
+        dcc.Store(id=ids.MEASURED, data=state.get("measured")),
         dcc.Store(id=ids.SAVED, data={"n": 0, "revision": int(state.get("revision", 0)), "conflict": False}),
     ], className="page")
 

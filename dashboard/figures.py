@@ -27,6 +27,7 @@ __all__ = [
     "dose_timeline_figure",
     "empty_figure",
     "flux_figure",
+    "measured_traces",
     "permeated_figure",
     "profile_figure",
     "stack_figure",
@@ -129,9 +130,55 @@ def log_range(traces: Sequence[Mapping[str, Any]]) -> list[float] | None:
     return [bottom, top + 0.3]
 
 
+MEASURED_SYMBOLS = ("circle-open", "square-open", "diamond-open", "triangle-up-open", "x-thin-open", "cross-thin-open")
+"""Marker of each replicate of measured data (by the order of the replicate tags)."""
+
+
+def measured_traces(experiment: Any, quantity: str, targets: Sequence[str], *, unit: str, time_unit: str = "h",
+                    molar_mass: float | None = None, per_time: bool = False, colours: Mapping[str, str] | None = None,
+                    axis: Mapping[str, str] | None = None) -> list[dict[str, Any]]:
+    """Markers of the measured series of ``quantity`` (``"conc"``, ``"amount"``, ``"permeated"`` or
+    ``"flux"``) on ``targets``, to overlay the predicted curves.
+
+    ``experiment`` is a :class:`barrierflow.model.experiment.Experiment` (values in internal
+    units); they are drawn in ``unit`` (for the flux: ``unit`` per cm² per ``time_unit``, with
+    ``per_time``). Each replicate has its own marker, each target the colour of its curve
+    (``colours``) and the y axis of its panel (``axis``: target -> "y2"). Missing values are
+    left out.
+    """
+    if experiment is None:
+        return []
+    ft = unit_factor("time", time_unit)
+    times = np.asarray(experiment.times, dtype=float) * ft
+    kinds = {"conc": "concentration", "amount": "amount", "permeated": "amount", "flux": "amount"}
+    fy = unit_factor(kinds[quantity], unit, molar_mass) / (ft if per_time else 1.0)
+    shown_unit = unit if quantity in ("conc", "amount") else (f"{unit}/cm²" if quantity == "permeated"
+                                                              else f"{unit}/(cm² {time_unit})")
+    reps = sorted({s.replicate for s in experiment.series})
+    out = []
+    first: set[str] = set()
+    for series in experiment.series:
+        if series.quantity != quantity or series.target not in targets:
+            continue
+        y = np.asarray(series.values, dtype=float) * fy
+        keep = np.isfinite(y)
+        out.append({
+            "type": "scatter", "mode": "markers", "x": times[keep].tolist(), "y": y[keep].tolist(),
+            "name": f"{series.observable} measured", "legendgroup": f"measured {series.observable}",
+            "showlegend": series.observable not in first,
+            "yaxis": (axis or {}).get(series.target, "y"),
+            "marker": {"symbol": MEASURED_SYMBOLS[reps.index(series.replicate) % len(MEASURED_SYMBOLS)], "size": 8,
+                       "color": (colours or {}).get(series.target, INK), "line": {"width": 1.6}},
+            "hovertemplate": f"{series.name} (measured)<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {shown_unit}"
+                             "<extra></extra>"})
+        first.add(series.observable)
+    return out
+
+
 def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str] | None = None,
                          quantity: str = "concentration", unit: str = "mg/L", time_unit: str = "h",
-                         scale: str = "auto", split: bool = True, log: bool | None = None) -> dict[str, Any]:
+                         scale: str = "auto", split: bool = True, log: bool | None = None,
+                         measured: Any = None) -> dict[str, Any]:
     """Concentration (or amount) against time in each compartment, for one or more runs.
 
     By default the application side (a patch, a donor) and the receiving side with the body get
@@ -157,6 +204,9 @@ def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str]
         One panel per side (when the network has two sides), else one panel.
     log : bool, optional
         Old spelling of ``scale`` (True: "log", False: "linear").
+    measured : Experiment, optional
+        Measured data: its ``conc`` (or, for amounts, ``amount``) series of these compartments
+        are drawn as markers over the curves (see :func:`measured_traces`).
     """
     if log is not None:
         scale = "log" if log else "linear"
@@ -197,6 +247,10 @@ def concentration_figure(runs: Sequence[RunData], *, compartments: Sequence[str]
                     "line": {"color": colour[cid], "dash": dash(r_i), "width": 2.2},
                     "hovertemplate": f"{cid} · {run.name}<br>%{{x:.4g}} {time_unit}: %{{y:.4g}} {unit}<extra></extra>",
                 })
+        molar = next((r.molar_mass for r in runs if r.molar_mass), None)
+        traces += measured_traces(measured, "amount" if kind == "amount" else "conc", cids, unit=unit,
+                                  time_unit=time_unit, molar_mass=molar, colours=colour,
+                                  axis={c: f"y{axis}" for c in cids})
         peaks = [_peak(t["y"]) for t in traces]
         positive = [p for p in peaks if p > 0]
         log = scale == "log" or (scale == "auto" and len(positive) > 1 and max(positive) / min(positive) > 100)
@@ -247,25 +301,27 @@ def wide_range(runs: Sequence[RunData], compartments: Sequence[str] | None = Non
 
 
 def flux_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
-                time_unit: str = "h") -> dict[str, Any]:
-    """Flux into each barrier's ``to`` compartment against time, mass per cm^2 per ``time_unit``."""
+                time_unit: str = "h", measured: Any = None) -> dict[str, Any]:
+    """Flux into each barrier's ``to`` compartment against time, mass per cm^2 per ``time_unit``
+    (with the ``flux`` series of ``measured`` data as markers)."""
     return _barrier_figure(runs, barriers, amount_unit, time_unit, "flux", f"{amount_unit}/(cm² {time_unit})",
                            "Run the scenario to see the flux through each barrier.",
                            "Flux into the receiving compartment", "flux",
-                           per_time=1.0 / unit_factor("time", time_unit))
+                           per_time=1.0 / unit_factor("time", time_unit), measured=measured)
 
 
 def permeated_figure(runs: Sequence[RunData], *, barriers: Sequence[str] | None = None, amount_unit: str = "mg",
-                     time_unit: str = "h") -> dict[str, Any]:
-    """Cumulative amount per area that has crossed each barrier (net), against time."""
+                     time_unit: str = "h", measured: Any = None) -> dict[str, Any]:
+    """Cumulative amount per area that has crossed each barrier (net), against time (with the
+    ``permeated`` series of ``measured`` data as markers)."""
     return _barrier_figure(runs, barriers, amount_unit, time_unit, "permeated", f"{amount_unit}/cm²",
                            "Run the scenario to see the cumulative amount permeated.",
-                           "Cumulative amount permeated (net)", "permeated")
+                           "Cumulative amount permeated (net)", "permeated", measured=measured)
 
 
 def _barrier_figure(runs: Sequence[RunData], barriers: Sequence[str] | None, amount_unit: str, time_unit: str,
                     attr: str, unit: str, empty_text: str, title: str, y_name: str,
-                    per_time: float = 1.0) -> dict[str, Any]:
+                    per_time: float = 1.0, measured: Any = None) -> dict[str, Any]:
     """One line per barrier and run of the per-area trace ``attr`` (``flux`` or ``permeated``)."""
     if not runs:
         return empty_figure(empty_text)
@@ -287,6 +343,9 @@ def _barrier_figure(runs: Sequence[RunData], barriers: Sequence[str] | None, amo
                                  f"{unit}<extra></extra>"})
     if not data:
         return empty_figure("This scenario has no barrier.")
+    molar = next((r.molar_mass for r in runs if r.molar_mass), None)
+    data += measured_traces(measured, attr, order, unit=amount_unit, time_unit=time_unit, molar_mass=molar,
+                            per_time=attr == "flux", colours={bid: color(i) for i, bid in enumerate(order)})
     return {"data": data, "layout": _layout(title, f"time [{time_unit}]", f"{y_name} [{unit}]")}
 
 

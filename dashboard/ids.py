@@ -123,6 +123,10 @@ EXPORT_COMPARISON = "export-comparison"
 EXPORT_SIDECAR = "export-sidecar"
 EXPORT_DOWNLOAD = "export-download"
 IMAGE_FORMAT = "image-format"
+MEASURED = "store-measured"        # measured data shown over the plots: {"name", "text"} of the data file
+MEASURED_UPLOAD = "measured-upload"
+MEASURED_CLEAR = "measured-clear"
+MEASURED_NOTE = "measured-note"
 
 
 # ---------------------------------------------------------------- fit to data

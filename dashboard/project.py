@@ -10,7 +10,8 @@ A project file is a JSON document (UTF-8) of our own layout::
      "runs": [{"name": "run 1", "source": "screen" | "last valid version" | "project file",
                "created": "10:02:11", "file": "daily_patch.toml", "wall_time_s": 0.27,
                "data": {<the run, see encode_run>}}, ...],
-     "view": {"picked": [0, 1], "reference": 0, ...}}
+     "view": {"picked": [0, 1], "reference": 0, ...},
+     "measured": {"name": "cells.csv", "text": "<the data file>"} or null}
 
 A run's ``data`` holds its scenario's TOML text and everything the dashboard shows of it:
 traces (``times``, each compartment's ``conc``, ``amount``, ``eliminated``, ``removed``,
@@ -48,6 +49,7 @@ import barrierflow
 from barrierflow.analysis.metrics import BarrierMetrics, CompartmentMetrics, Metrics
 from barrierflow.caution import CAUTION
 from barrierflow.errors import Problem, ScenarioError
+from barrierflow.io import loads_experiment
 
 from .runs import BarrierTrace, RunData, links_of, metric_rows_in, steady_of
 
@@ -366,7 +368,8 @@ def decode_run(obj: Any, name: str, field: str, r: _Reader) -> RunData | None:
 
 # ============================================================================ project files
 def project_text(draft_toml: str, file: str, positions: Mapping[str, Sequence[float]],
-                 runs: Sequence[tuple[Mapping[str, Any], RunData]], view: Mapping[str, Any] | None = None) -> str:
+                 runs: Sequence[tuple[Mapping[str, Any], RunData]], view: Mapping[str, Any] | None = None,
+                 measured: Mapping[str, str] | None = None) -> str:
     """The text of a project file.
 
     Parameters
@@ -381,6 +384,8 @@ def project_text(draft_toml: str, file: str, positions: Mapping[str, Sequence[fl
         The runs, each with its record (``name``, ``source``, ``created``, ``file``, ``wall_time_s``).
     view : mapping, optional
         Which runs are ticked (``picked``: indexes into ``runs``), the reference, the units.
+    measured : mapping, optional
+        The measured data shown over the plots: ``{"name", "text"}`` of its data file.
     """
     doc = {
         "format": FORMAT, "version": VERSION, "software": f"barrierflow {barrierflow.__version__}",
@@ -391,6 +396,7 @@ def project_text(draft_toml: str, file: str, positions: Mapping[str, Sequence[fl
                   "created": rec.get("created", ""), "file": rec.get("file") or "",
                   "wall_time_s": _clean(rec.get("wall_time_s")), "data": encode_run(data)} for rec, data in runs],
         "view": _clean(dict(view or {})),
+        "measured": {"name": measured["name"], "text": measured["text"]} if measured else None,
     }
     return json.dumps(doc, ensure_ascii=False, allow_nan=False, indent=1) + "\n"
 
@@ -416,7 +422,9 @@ def read_project(text: str | bytes, file: str) -> dict[str, Any]:
     dict
         ``toml`` and ``file`` (the scenario being edited, as text: open it with
         :func:`dashboard.draft.draft_from_toml`), ``positions`` (compartment id -> [x, y]),
-        ``runs`` (a list of ``(record fields, RunData)``) and ``view``.
+        ``runs`` (a list of ``(record fields, RunData)``), ``view`` and ``measured`` (``{"name",
+        "text"}`` of the measured data's file, read and checked by
+        :func:`barrierflow.io.loads_experiment`, or None).
 
     Raises
     ------
@@ -490,6 +498,15 @@ def read_project(text: str | bytes, file: str) -> dict[str, Any]:
     if not isinstance(view, dict):
         r.bad("view", view, "expected a table")
         view = {}
+    measured = doc.get("measured")
+    if measured is not None:
+        measured = r.table(measured, "measured")
+        data_name, data_text = r.text(measured, "name", "measured", ""), r.text(measured, "text", "measured", "")
+        try:
+            loads_experiment(data_text, name=f"{file}, measured {data_name}")  # the one reader of data files
+        except ScenarioError as err:
+            r.problems.extend(err.problems)
+        measured = {"name": data_name, "text": data_text}
     if r.problems:
         raise ScenarioError(r.problems)
-    return {"toml": toml, "file": name, "positions": positions, "runs": runs, "view": view}
+    return {"toml": toml, "file": name, "positions": positions, "runs": runs, "view": view, "measured": measured}

@@ -5,7 +5,8 @@ SameSite=Strict, kept :data:`KEEP_DAYS` days). Its folder under the sessions dir
 
 ``state.json``
     ``{"format": "barrierflow session", "version": 1, "revision": n, "saved": "...",
-    "draft": {...}, "valid": {...}, "runs": [run records], "view": {...}}``, written atomically;
+    "draft": {...}, "valid": {...}, "runs": [run records], "view": {...}, "measured": {"name",
+    "text"} or null}``, written atomically;
 ``runs/<key>.json``
     each run's packed data (:func:`dashboard.project.encode_run`), so that a run survives a
     server restart even when the run archive has dropped it.

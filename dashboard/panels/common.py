@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import base64
+from pathlib import Path
 from typing import Any
 
 from dash import dcc, html
@@ -9,6 +11,7 @@ from dash import dcc, html
 from barrierflow.units import KINDS
 
 from .. import ids
+from ..server import DEFAULT_MAX_UPLOAD, format_size
 
 # the unit hint shown beside an input, by kind of quantity
 UNIT_HINT = {
@@ -109,3 +112,33 @@ def edited_rows(changed: Any, rows: list[dict[str, Any]], fields: Any) -> list[d
             out[keys.index(row_key)][col] = "" if value is None else str(value)
             touched = True
     return out if touched else None
+
+
+def too_large(name: str, size: int, limit: int) -> str:
+    """The message refusing an upload of ``size`` bytes above ``limit``."""
+    return (f"{name}: file: got {format_size(size)}; the dashboard accepts files up to {format_size(limit)} "
+            "(start it with --max-upload MB to accept larger ones)")
+
+
+def decode_upload(contents: str, filename: str | None, limit: int = DEFAULT_MAX_UPLOAD) -> tuple[str, bytes]:
+    """The name and bytes of an uploaded file (a ``data:...;base64,`` URL from ``dcc.Upload``).
+
+    Raises
+    ------
+    ValueError
+        With the message to show: contents that are not base64, or a file above ``limit`` bytes.
+    """
+    name = Path(filename or "uploaded.toml").name
+    try:
+        _kind, data = contents.split(",", 1)
+    except ValueError:
+        raise ValueError(f"{name}: file: got unreadable contents; expected a file read by the browser") from None
+    if len(data) * 3 // 4 > limit + 3:
+        raise ValueError(too_large(name, len(data) * 3 // 4, limit))
+    try:
+        raw = base64.b64decode(data, validate=True)
+    except ValueError:
+        raise ValueError(f"{name}: file: got unreadable contents; expected a file read by the browser") from None
+    if len(raw) > limit:
+        raise ValueError(too_large(name, len(raw), limit))
+    return name, raw

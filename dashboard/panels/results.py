@@ -7,20 +7,23 @@ import io
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import dash_ag_grid as dag
-from dash import Input, Output, State, ctx, dcc, html
+from dash import Input, Output, State, ctx, dcc, html, no_update
 from dash.exceptions import PreventUpdate
 
+from barrierflow.errors import BarrierflowError
 from barrierflow.model import OutputUnits
 
 from .. import figures as F
 from .. import ids
 from .. import view as V
+from ..fitting import read_data
 from ..runs import RunArchive, RunData, metric_rows_in
 from ..sessions import current_id
-from .common import GRAPH_CONFIG, graph, labelled
+from .common import GRAPH_CONFIG, decode_upload, graph, labelled, message_list
 
 RESULT_GRAPHS = (ids.CONC_FIGURE, ids.FLUX_FIGURE, ids.PERMEATED_FIGURE, ids.PROFILE_FIGURE, ids.BALANCE_FIGURE)
 
@@ -173,6 +176,31 @@ def units_of(runs: Sequence[RunData], concentration: str | None, amount: str | N
     return Units(time or "h", conc, amt, conc_options, amount_options)
 
 
+def _toml_of(runs: Sequence[RunData]) -> str | None:
+    return runs[0].toml if runs else None
+
+
+def measured_data(kept: Mapping[str, Any] | None, runs: Sequence[RunData]) -> Any:
+    """The measured data the page keeps (``{"name", "text"}``), read by the one reader of data
+    files (molar units with the first run's molar mass), or None (none kept, or it does not read)."""
+    if not kept:
+        return None
+    try:
+        return read_data(kept["text"], kept["name"], _toml_of(runs))
+    except BarrierflowError:
+        return None
+
+
+def measured_note(experiment: Any) -> str:
+    """What is drawn of measured data, and where."""
+    where = {"conc": "concentrations", "amount": "concentrations (as amounts)", "permeated": "permeated",
+             "flux": "flux"}
+    parts = [f"{o} ({len(experiment.of(o))} replicate{'s' if len(experiment.of(o)) != 1 else ''}) on the "
+             f"{where.get(o.split(':')[0], 'plots')} plot" for o in experiment.observables]
+    name = Path(experiment.source).name if experiment.source else "data"
+    return f"{name}: {'; '.join(parts)}; markers over the predicted curves (a marker per replicate)."
+
+
 def rows_in(run: RunData, units: OutputUnits | None) -> list[dict[str, Any]]:
     """A run's metrics rows in ``units`` (the scenario's own when None or when the run has no table)."""
     if units is None or run.metrics_table is None:
@@ -283,7 +311,16 @@ def layout(view: dict[str, Any] | None = None) -> html.Div:
         html.Span("(camera button at the top right of each plot)", className="fine-print"),
         dcc.Download(id=ids.EXPORT_DOWNLOAD),
     ], className="toolbar export-bar")
-    return html.Div([time_row, tabs, export])
+    measured_row = html.Div([
+        html.Span("Measured data", className="toolbar-label strong"),
+        dcc.Upload(id=ids.MEASURED_UPLOAD, accept=".csv,text/csv,text/plain", multiple=False, className="upload",
+                   children=html.Button("Drop or choose a data file (CSV)…", className="btn", tabIndex=-1)),
+        html.Button("Remove", id=ids.MEASURED_CLEAR, className="btn small"),
+        html.Span(id=ids.MEASURED_NOTE, className="fine-print", role="status"),
+    ], className="toolbar measured-row",
+        title="a data file as barrierflow fit reads it: a time column, then columns named like the traces with a "
+              "replicate tag, such as 'permeated:skin#1 [ug/cm^2]'; shown as markers over the curves")
+    return html.Div([time_row, measured_row, tabs, export])
 
 
 def register(app: Any, services: Any) -> None:
@@ -326,9 +363,10 @@ def register(app: Any, services: Any) -> None:
         Input(ids.CONC_SPLIT, "value"),
         Input(ids.TIME_UNIT, "value"),
         Input(ids.COMPARTMENT_PICK, "value"),
+        Input(ids.MEASURED, "data"),
         State(ids.RUNS, "data"),
     )
-    def concentrations(picked, quantity, conc_unit, amount_unit, scale, split, time_unit, cids, runs):
+    def concentrations(picked, quantity, conc_unit, amount_unit, scale, split, time_unit, cids, measured, runs):
         data = fetch(picked, runs)
         u = units_of(data, conc_unit, amount_unit, time_unit)
         options: list[str] = []
@@ -337,7 +375,8 @@ def register(app: Any, services: Any) -> None:
         cids = [c for c in cids or [] if c in options] or None
         figure = F.concentration_figure(data, compartments=cids, quantity=quantity,
                                         unit=u.amount if quantity == "amount" else u.concentration,
-                                        time_unit=u.time, scale=scale or "auto", split=split != "one")
+                                        time_unit=u.time, scale=scale or "auto", split=split != "one",
+                                        measured=measured_data(measured, data))
         return (figure, u.concentration_options, u.concentration if data else conc_unit, u.amount_options,
                 u.amount if data else amount_unit, options)
 
@@ -348,14 +387,53 @@ def register(app: Any, services: Any) -> None:
         Input(ids.BARRIER_PICK, "value"),
         Input(ids.AMOUNT_UNIT, "value"),
         Input(ids.TIME_UNIT, "value"),
+        Input(ids.MEASURED, "data"),
         State(ids.RUNS, "data"),
     )
-    def barriers(picked, bids, amount_unit, time_unit, runs):
+    def barriers(picked, bids, amount_unit, time_unit, measured, runs):
         data = fetch(picked, runs)
         u = units_of(data, None, amount_unit, time_unit)
         chosen = bids or None
-        return (F.flux_figure(data, barriers=chosen, amount_unit=u.amount, time_unit=u.time),
-                F.permeated_figure(data, barriers=chosen, amount_unit=u.amount, time_unit=u.time))
+        experiment = measured_data(measured, data)
+        return (F.flux_figure(data, barriers=chosen, amount_unit=u.amount, time_unit=u.time, measured=experiment),
+                F.permeated_figure(data, barriers=chosen, amount_unit=u.amount, time_unit=u.time, measured=experiment))
+
+    @app.callback(
+        Output(ids.MEASURED, "data"),
+        Output(ids.MEASURED_NOTE, "children"),
+        Input(ids.MEASURED_UPLOAD, "contents"),
+        Input(ids.MEASURED_CLEAR, "n_clicks"),
+        State(ids.MEASURED_UPLOAD, "filename"),
+        State(ids.RUN_PICK, "value"),
+        State(ids.RUNS, "data"),
+        State(ids.MEASURED, "data"),
+    )
+    def measured(contents, _clear, filename, picked, runs, current):
+        # the initial call shows what the page kept; an upload replaces it; Remove drops it
+        if ctx.triggered_id == ids.MEASURED_CLEAR:
+            return None, ""
+        if ctx.triggered_id == ids.MEASURED_UPLOAD and contents:
+            try:
+                name, raw = decode_upload(contents, filename, services.max_upload)
+                text = raw.decode("utf-8")
+            except (ValueError, UnicodeDecodeError) as err:
+                return no_update, html.Span(str(err) if isinstance(err, ValueError) else
+                                            f"{filename}: file: got bytes that are not UTF-8; expected a CSV data "
+                                            "file", className="bad")
+            kept = {"name": name, "text": text}
+        else:
+            kept = current
+        if not kept:
+            return no_update if current is None else None, ""
+        try:
+            experiment = read_data(kept["text"], kept["name"], _toml_of(fetch(picked, runs)))
+        except BarrierflowError as err:
+            problems = getattr(err, "problems", None) or [err]
+            return (no_update if kept is not current else None,
+                    [html.Span(f"{kept['name']} was not read: ", className="bad"),
+                     message_list([str(p) for p in problems])])
+        return kept, measured_note(experiment)
+
 
     @app.callback(
         Output(ids.PROFILE_BARRIER, "options"),

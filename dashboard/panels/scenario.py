@@ -19,7 +19,7 @@ from .. import view as V
 from ..project import SUFFIX, project_text, read_project
 from ..runs import imported_key, new_record
 from ..server import DEFAULT_MAX_UPLOAD, format_size
-from .common import message_list
+from .common import decode_upload, message_list
 from .network import canvas_positions, element_options
 from .results import fetch_runs
 
@@ -114,36 +114,6 @@ def open_example(path: str) -> dict[str, Any]:
     return D.draft_from_scenario(scenario, Path(path).name)
 
 
-def too_large(name: str, size: int, limit: int) -> str:
-    """The message refusing an upload of ``size`` bytes above ``limit``."""
-    return (f"{name}: file: got {format_size(size)}; the dashboard accepts files up to {format_size(limit)} "
-            "(start it with --max-upload MB to accept larger ones)")
-
-
-def decode_upload(contents: str, filename: str | None, limit: int = DEFAULT_MAX_UPLOAD) -> tuple[str, bytes]:
-    """The name and bytes of an uploaded file (a ``data:...;base64,`` URL from ``dcc.Upload``).
-
-    Raises
-    ------
-    ValueError
-        With the message to show: contents that are not base64, or a file above ``limit`` bytes.
-    """
-    name = Path(filename or "uploaded.toml").name
-    try:
-        _kind, data = contents.split(",", 1)
-    except ValueError:
-        raise ValueError(f"{name}: file: got unreadable contents; expected a file read by the browser") from None
-    if len(data) * 3 // 4 > limit + 3:
-        raise ValueError(too_large(name, len(data) * 3 // 4, limit))
-    try:
-        raw = base64.b64decode(data, validate=True)
-    except ValueError:
-        raise ValueError(f"{name}: file: got unreadable contents; expected a file read by the browser") from None
-    if len(raw) > limit:
-        raise ValueError(too_large(name, len(raw), limit))
-    return name, raw
-
-
 def is_project(filename: str | None, contents: str) -> bool:
     """True for an upload that is a project file (its name ends in .json, or its text starts with "{")."""
     if (filename or "").lower().endswith(".json"):
@@ -225,6 +195,7 @@ def register(app: Any, services: Any) -> None:
             runs=Output(ids.RUNS, "data", allow_duplicate=True),
             picked=Output(ids.RUN_PICK, "value", allow_duplicate=True),
             reference=Output(ids.REFERENCE, "value", allow_duplicate=True),
+            measured=Output(ids.MEASURED, "data", allow_duplicate=True),
             view={cid: Output(cid, "value", allow_duplicate=True) for cid in shown_settings},
         ),
         inputs=dict(
@@ -242,7 +213,7 @@ def register(app: Any, services: Any) -> None:
         trigger = ctx.triggered_id
         out = {"draft": no_update, "message": no_update, "options": no_update, "selected": no_update,
                "loaded": no_update, "valid": no_update, "runs": no_update, "picked": no_update,
-               "reference": no_update, "view": {cid: no_update for cid in shown_settings}}
+               "reference": no_update, "measured": no_update, "view": {cid: no_update for cid in shown_settings}}
         problems: list[str] = []
         if trigger == ids.OPEN_EXAMPLE:
             if not example:
@@ -318,7 +289,8 @@ def register(app: Any, services: Any) -> None:
                                         message_list([str(p) for p in problems])] if problems else [])
         return dict(out, draft=d, message=message, options=element_options(d), selected=D.first_selection(d),
                     loaded={"gen": d["gen"]}, valid=None, runs=runs + added, picked=picked or no_update,
-                    reference=reference or no_update, view=shown)
+                    reference=reference or no_update, view=shown,
+                    measured=opened["measured"] if opened["measured"] else no_update)
 
     @app.callback(
         Output(ids.SAVE_DOWNLOAD, "data", allow_duplicate=True),
@@ -327,10 +299,11 @@ def register(app: Any, services: Any) -> None:
         State(ids.DRAFT, "data"),
         State(ids.RUNS, "data"),
         State(ids.CANVAS, "elements"),
+        State(ids.MEASURED, "data"),
         *[State(cid, "value") for cid in V.SETTINGS],
         prevent_initial_call=True,
     )
-    def save_project(_n, d, runs, elements, *values):
+    def save_project(_n, d, runs, elements, measured, *values):
         settings = V.clean(dict(zip(V.SETTINGS, values, strict=True)))
         picked_ids = settings.pop(ids.RUN_PICK, None) or []
         reference_id = settings.pop(ids.REFERENCE, None)
@@ -349,7 +322,7 @@ def register(app: Any, services: Any) -> None:
         key_to_id = {c["key"]: c.get("id") for c in d["compartments"]}
         positions = {key_to_id[k]: (p["x"], p["y"]) for k, p in canvas_positions(elements).items() if k in key_to_id}
         text, _valid = D.save_text(d)
-        body = project_text(text, d.get("file") or "untitled.toml", positions, kept, view)
+        body = project_text(text, d.get("file") or "untitled.toml", positions, kept, view, measured)
         stem = (d.get("file") or "untitled.toml").removesuffix(".toml")
         size = len(body.encode())
         notes = [f"Saved the project {stem}{SUFFIX}: the scenario and {len(kept)} run{'s' if len(kept) != 1 else ''} "

@@ -58,6 +58,7 @@ def register(app: Any, services: Any) -> None:
         Input(ids.DRAFT, "data"),
         Input(ids.VALID, "data"),
         Input(ids.RUNS, "data"),
+        Input(ids.MEASURED, "data"),
         *[Input(cid, "value") for cid in settings],
         State(ids.EDITS, "data"),
         prevent_initial_call=True,
@@ -85,19 +86,20 @@ def register(app: Any, services: Any) -> None:
         State(ids.DRAFT, "data"),
         State(ids.VALID, "data"),
         State(ids.RUNS, "data"),
+        State(ids.MEASURED, "data"),
         *[State(cid, "value") for cid in settings],
         State(ids.SAVED, "data"),
         State(ids.PAGE, "data"),
         prevent_initial_call=True,
     )
-    def persist(edits, _keep, draft, valid, runs, *rest):
+    def persist(edits, _keep, draft, valid, runs, measured, *rest):
         *values, saved, page = rest
         sid = current_id()
         if sid is None or not isinstance(draft, dict):
             raise PreventUpdate
         runs = runs or []
         view = V.clean(dict(zip(settings, values, strict=True)))
-        state = {"draft": draft, "valid": valid, "runs": runs, "view": view}
+        state = {"draft": draft, "valid": valid, "runs": runs, "view": view, "measured": measured}
         force = ctx.triggered_id == ids.KEEP_THIS
         n = (edits or {}).get("n", 0)
         answer = store.save(sid, state, (saved or {}).get("revision"), force=force,

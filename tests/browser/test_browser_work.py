@@ -11,11 +11,14 @@ scenarios, compared with themselves (kept, saved, reopened: the same float64 val
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import pytest
 from playwright.sync_api import expect
 
 pytestmark = pytest.mark.browser
+
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def test_reload_and_a_closed_tab_keep_the_work(ui, browser):
@@ -138,8 +141,9 @@ def test_undo_brings_back_a_cascade_delete(ui):
 
 
 def test_a_saved_project_reopens_the_comparison(ui, browser, tmp_path):
-    """Journey 7: two runs compared; the project saved; opened in another browser (no session):
-    the same runs, ticked, the same reference, the same numbers, the same units."""
+    """Journey 7: two runs compared, measured data dropped onto the plots; the project saved;
+    opened in another browser (no session): the same runs, ticked, the same reference, the same
+    numbers and markers, the same units."""
     page = ui.page
     ui.open()
     ui.pick("example-pick", "Diffusion cell, infinite dose, sink receptor (diffusion_cell.toml)")
@@ -156,7 +160,14 @@ def test_a_saved_project_reopens_the_comparison(ui, browser, tmp_path):
     page.locator("#time-unit input[value='min']").check()
     ui.idle()
     ui.tab("Barriers: flux and permeated")
-    before = {t["name"]: t["y"] for t in ui.figure("fig-permeated", until=lambda ts: len(ts) == 2)}
+    ui.figure("fig-permeated", until=lambda ts: len(ts) == 2)
+    # measured data dropped onto the plots: a marker series per replicate over the curves
+    page.set_input_files("#measured-upload input[type=file]", str(ROOT / "data" / "diffusion_cell_replicates.csv"))
+    expect(page.locator("#measured-note")).to_contain_text("permeated:membrane (3 replicates) on the permeated plot")
+    ui.idle()
+    before = {f"{t['name']} {i}": t["y"]
+              for i, t in enumerate(ui.figure("fig-permeated", until=lambda ts: len(ts) == 5))}
+    assert sum(name.startswith("permeated:membrane measured") for name in before) == 3
     ui.tab("Metrics and comparison")
     expect(page.locator("#metrics-grid .ag-header-cell-text", has_text="K doubled ÷ run 1")).to_be_visible()
     page.wait_for_function("() => !window.barrierflowUnsaved()")
@@ -182,8 +193,9 @@ def test_a_saved_project_reopens_the_comparison(ui, browser, tmp_path):
         expect(other.page.locator("#time-unit input[value='min']")).to_be_checked()
         expect(other.cell("layer-grid", 0, "partition")).to_have_text("8")
         other.tab("Barriers: flux and permeated")
-        after = {t["name"]: t["y"] for t in other.figure("fig-permeated", until=lambda ts: len(ts) == 2)}
-        assert after == before  # the same numbers, read from the file (nothing simulated again)
+        after = {f"{t['name']} {i}": t["y"]
+                 for i, t in enumerate(other.figure("fig-permeated", until=lambda ts: len(ts) == 5))}
+        assert after == before  # the same numbers and measured data, read from the file (nothing simulated again)
         other.tab("Metrics and comparison")
         expect(other.page.locator("#metrics-grid .ag-header-cell-text", has_text="K doubled ÷ run 1")).to_be_visible()
         other.shot("journey7-project-reopened")

@@ -279,3 +279,28 @@ def test_one_unit_choice_governs_the_plot_and_the_metrics_table(patch_run):
     tmax = next(r for r in rows if r["id"] == "central" and r["name"] == "tmax")
     assert cmax2["unit"] == "mg/L" and float(cmax2["f0"]) == pytest.approx(float(cmax["f0"]) * 1e-3, rel=1e-12)
     assert tmax2["unit"] == "d" and float(tmax2["f0"]) == pytest.approx(float(tmax["f0"]) / 24, rel=1e-12)
+
+
+def test_measured_data_are_drawn_over_the_predicted_curves_in_the_plot_units(cell_runs):
+    from barrierflow.io import load_experiment
+
+    base, _ = cell_runs
+    experiment = load_experiment(ROOT / "data" / "diffusion_cell_replicates.csv")
+    series = [s for s in experiment.series if s.observable == "permeated:membrane"]
+    fig = F.permeated_figure([base], amount_unit="ug", measured=experiment)
+    go.Figure(fig)
+    markers = [t for t in fig["data"] if t["mode"] == "markers"]
+    assert [t["name"] for t in markers] == ["permeated:membrane measured"] * len(series) == \
+        ["permeated:membrane measured"] * 3
+    assert [t["showlegend"] for t in markers] == [True, False, False]  # one legend entry, a marker per replicate
+    assert len({t["marker"]["symbol"] for t in markers}) == 3
+    # the file's own numbers (ug/cm^2) come back as written; in mg/cm^2 they are 1000 times smaller (SI)
+    written = [float(line.split(",")[1]) for line in
+               (ROOT / "data" / "diffusion_cell_replicates.csv").read_text().splitlines()[3:] if line.strip()]
+    np.testing.assert_allclose(markers[0]["y"], written, rtol=1e-12)
+    in_mg = F.permeated_figure([base], amount_unit="mg", measured=experiment)
+    np.testing.assert_allclose([t for t in in_mg["data"] if t["mode"] == "markers"][0]["y"],
+                               np.array(written) / 1000, rtol=1e-12)
+    # the concentration plot has no permeated series to draw, and draws none
+    conc = F.concentration_figure([base], measured=experiment)
+    assert not [t for t in conc["data"] if t["mode"] == "markers"]

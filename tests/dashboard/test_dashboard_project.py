@@ -133,3 +133,17 @@ def test_a_project_without_runs_is_a_scenario_with_its_problems_kept(project):
 
     opened = read_project(_damaged(body, change), "study.bfproject.json")
     assert opened["runs"] == [] and 'area = "-1 cm^2"' in opened["toml"]  # opened as typed, problems shown there
+
+
+def test_measured_data_travel_with_the_project_and_are_read_by_the_one_reader(project):
+    body, runs = project
+    text = (ROOT / "data" / "diffusion_cell_replicates.csv").read_text()
+    doc = json.loads(body)
+    with_data = project_text(doc["scenario"]["toml"], "diffusion_cell.toml", {}, runs, {},
+                             {"name": "cells.csv", "text": text})
+    assert read_project(with_data, "study.bfproject.json")["measured"] == {"name": "cells.csv", "text": text}
+    broken = project_text(doc["scenario"]["toml"], "diffusion_cell.toml", {}, runs, {},
+                          {"name": "cells.csv", "text": text.replace("0.167", "-0.167")})
+    found = _problems(broken)
+    assert len(found) == 1 and found[0].startswith("study.bfproject.json, measured cells.csv: row ")
+    assert "-0.167" in found[0]

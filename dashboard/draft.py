@@ -250,6 +250,8 @@ def draft_from_document(doc: Mapping[str, Any], file: str = "untitled.toml") -> 
     if isinstance(head.get("output_times"), list):
         d["output_times"] = [_text(t) for t in head["output_times"]]
         d["scenario"]["output_step"] = ""
+    if head.get("check_ranges") is False:
+        d["check_ranges"] = False  # kept as the file says (values outside the plausible ranges meant)
     sub = doc.get("substance", {}) if isinstance(doc.get("substance"), Mapping) else {}
     d["substance"] = {k: _text(sub.get(k)) for k in SUBSTANCE_FIELDS}
     out = doc.get("output", {}) if isinstance(doc.get("output"), Mapping) else {}
@@ -361,6 +363,8 @@ def to_document(draft: Mapping[str, Any]) -> dict[str, Any]:
     if draft.get("output_times") is not None:
         head["output_times"] = list(draft["output_times"])
         head.pop("output_step", None)
+    if draft.get("check_ranges") is False:
+        head["check_ranges"] = False
     doc: dict[str, Any] = {"scenario": head}
     sub = _put({}, draft.get("substance", {}), SUBSTANCE_FIELDS)
     if sub:

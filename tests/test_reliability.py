@@ -325,3 +325,13 @@ def test_population_subjects_share_one_grid_that_meets_each_ones_accuracy():
         q = s.barriers[0].layers[0].thickness * math.sqrt(k / s.barriers[0].layers[0].diffusivity)
         assert p.flux("b")[i, -1] == pytest.approx(ds / math.sinh(q), rel=1.1e-3)  # Crank 1975, ch. 14
         assert p.flux("b")[i, -1] == pytest.approx(single.flux("b")[-1], rel=2e-3)
+
+
+def test_the_range_override_survives_the_dashboard_draft():
+    from dashboard import draft
+
+    s = extreme(False, diffusivity=1e-30 * H)
+    d = draft.draft_from_scenario(s)
+    assert draft.to_document(d)["scenario"]["check_ranges"] is False
+    scenario, _ = draft.check(d)
+    assert scenario is not None and scenario.check_ranges is False

@@ -182,6 +182,13 @@ VARY_BANDS = "fig-vary-bands"
 VARY_METRIC = "vary-metric"
 VARY_HISTOGRAM = "fig-vary-histogram"
 VARY_RANKING = "fig-vary-ranking"
+SWEEP_RUN = "sweep-run"
+SWEEP_CANCEL = "sweep-cancel"
+SWEEP_PROGRESS = "sweep-progress"
+SWEEP_STATUS = "sweep-status"
+SWEEP_RESULT = "store-sweep-result"  # the archive key of the last sweep and its metric names
+SWEEP_METRIC = "sweep-metric"
+SWEEP_FIGURE = "fig-sweep"
 
 
 # ---------------------------------------------------------------- pattern-matching ids
@@ -193,6 +200,11 @@ def field(scope: str, name: str) -> dict[str, str]:
 def field_message(scope: str, name: str) -> dict[str, str]:
     """Id of the message shown under the input :func:`field` ``(scope, name)``."""
     return {"type": "field-message", "scope": scope, "name": name}
+
+
+def sweep_field(name: str, axis: int) -> str:
+    """Id of an input of the sweep's axis 1 or 2: ``path``, ``range``, ``steps``, ``log``."""
+    return f"sweep-{name}-{axis}"
 
 
 def scenario_message(name: str) -> dict[str, str]:

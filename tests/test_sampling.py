@@ -140,6 +140,14 @@ def _awkward(rng: np.random.Generator, n: int, cells: int) -> np.ndarray:
     return x
 
 
+def test_sketch_leaves_out_infinities_and_nan():
+    x = np.array([[1.0, np.inf], [2.0, -np.inf], [np.nan, 3.0], [4.0, np.nan]])
+    sk = QuantileSketch(2)
+    sk.add(count_values(x))
+    assert sk.count().tolist() == [3, 1]
+    assert sk.percentiles([0, 100]).tolist() == [[1.0, 3.0], [4.0, 3.0]]
+
+
 def test_sketch_percentiles_within_their_accuracy_of_numpy():
     # The relative-error guarantee of the DDSketch bins (Masson, Rim & Lee, Proc. VLDB Endow. 12,
     # 2019, 2195-2205, section 2): every value of a bin is within the accuracy of its

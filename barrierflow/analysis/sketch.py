@@ -5,7 +5,8 @@ percentiles at every output time cannot be computed from all values at once. A
 :class:`QuantileSketch` keeps, for every cell (an output time of one trace, or one metric), a
 histogram of the values on logarithmic bins: a value x > 0 falls in bin
 k = ceil(ln x / ln gamma), gamma = 1 + a, which holds (gamma^(k-1), gamma^k]. Negative values
-go to a second histogram of |x|, zeros to a count of their own; NaN is left out. These are the
+go to a second histogram of |x|, zeros to a count of their own; NaN and infinities are left out
+(an infinite applied dose, for a held source, has no percentile). These are the
 relative-error bins of Masson, Rim and Lee (DDSketch: a fast and fully-mergeable quantile
 sketch with relative-error guarantees, Proc. VLDB Endow. 12, 2019, 2195-2205), with their
 "collapsing lowest" store: each cell keeps at most ``bins`` bins, the highest ones, and counts
@@ -126,6 +127,9 @@ def _count(values, inv_lg, bins):
         hi_v = -np.inf
         for r in range(n_rows):
             x = values[r, c]
+            if not math.isfinite(x):  # NaN and infinities are left out
+                row[r] = _NONE
+                continue
             if x > 0.0:
                 k = np.int64(math.ceil(math.log(x) * inv_lg))
                 row[r] = 2 * k
@@ -142,8 +146,7 @@ def _count(values, inv_lg, bins):
                     nk1 = k
             else:
                 row[r] = _NONE
-                if x == 0.0:
-                    zeros[c] += 1
+                zeros[c] += 1
                 continue
             if x < lo_v:
                 lo_v = x
@@ -191,7 +194,8 @@ def count_values(values: np.ndarray, accuracy: float = ACCURACY, bins: int = BIN
     Parameters
     ----------
     values : array (n_rows, n_cells)
-        One row per subject, one column per cell (an output time, a metric). NaN is left out.
+        One row per subject, one column per cell (an output time, a metric). NaN and infinities
+        are left out.
     accuracy : float
         Relative accuracy a of the bins (0 < a < 0.5).
     bins : int

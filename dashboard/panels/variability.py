@@ -9,6 +9,10 @@ same distributions; the page shows the band of a trace over time, the histogram 
 over the subjects and the parameters ranked by their total Sobol index for a metric (bootstrap
 intervals as error bars). The packed result is kept in the server's run archive; the page
 keeps only its key.
+
+Below, a what-if sweep: one or two parameters over a range (linear or log steps) run by
+:func:`barrierflow.studies.run_sweep`, with a metric drawn as a line (one parameter) or a
+heatmap (two).
 """
 
 from __future__ import annotations
@@ -34,7 +38,7 @@ from ..jobs import WorkerFailed
 from ..palette import color
 
 __all__ = ["DISTRIBUTIONS", "band_figure", "histogram_figure", "layout", "path_options", "ranking_figure",
-           "register", "simulate", "spec"]
+           "register", "simulate", "spec", "sweep", "sweep_figure"]
 
 PERCENTILES = (5.0, 50.0, 95.0)
 SOBOL_N = 128
@@ -172,6 +176,57 @@ def ranking_figure(result: dict[str, Any] | None, metric: str | None) -> dict[st
     return {"data": data, "layout": lay}
 
 
+def sweep(toml: str, axes: list[list[Any]], file: str | None = None, progress: Any = None) -> dict[str, Any]:
+    """Run a sweep in a worker: ``axes`` is a list of ``[path, "LO..HI", steps, log]``; a packed result."""
+    from barrierflow.studies import run_sweep
+
+    scenario = barrierflow.loads(toml, file)
+    texts = [f"{path}={rng}" for path, rng, _, _ in axes]
+    started = time.perf_counter()
+    res = run_sweep(scenario, texts, steps=[int(a[2]) for a in axes],
+                    spacing=["log" if a[3] else "linear" for a in axes],
+                    progress=(lambda d, t: progress(d / max(t, 1))) if progress is not None else None)
+    metrics = {}
+    for j, name in enumerate(res.metrics.names):
+        col = res.metrics.values[:, j]
+        if np.isfinite(col).any():
+            metrics[name] = {"unit": res.metrics.units[j],
+                             "grid": np.where(np.isfinite(col), col, np.nan).reshape(res.shape).tolist()}
+    return {"axes": [{"path": a.param.text, "unit": u, "values": res.axis_values(i).tolist(), "log": a.spacing == "log"}
+                     for i, (a, u) in enumerate(zip(res.axes, res.units, strict=True))],
+            "metrics": metrics, "failed": int((~res.ok).sum()), "points": len(res.points),
+            "scenario": scenario.name, "wall_s": time.perf_counter() - started}
+
+
+def sweep_figure(result: dict[str, Any] | None, metric: str | None) -> dict[str, Any]:
+    """A metric over the sweep: a line over one parameter, a heatmap over two."""
+    if not result or not metric or metric not in result.get("metrics", {}):
+        return empty_figure("Run a sweep to see a metric over one or two parameters.")
+    entry = result["metrics"][metric]
+    label = f"{metric} [{entry['unit']}]" if entry["unit"] else metric
+    ax = result["axes"]
+
+    def title(a: dict[str, Any]) -> str:
+        return f"{a['path']} [{a['unit']}]" if a["unit"] else a["path"]
+
+    if len(ax) == 1:
+        data = [{"x": ax[0]["values"], "y": entry["grid"], "mode": "lines+markers", "name": metric,
+                 "line": {"color": color(0)}}]
+        lay = _layout(f"{metric} over {ax[0]['path']}", title(ax[0]), label, legend=False)
+        if ax[0]["log"]:
+            lay["xaxis"]["type"] = "log"
+        return {"data": data, "layout": lay}
+    data = [{"type": "heatmap", "x": ax[1]["values"], "y": ax[0]["values"], "z": entry["grid"],
+             "colorscale": "Viridis", "colorbar": {"title": {"text": label, "side": "right"}},
+             "hovertemplate": f"{ax[0]['path']} %{{y:.4g}}<br>{ax[1]['path']} %{{x:.4g}}<br>{metric} %{{z:.4g}}"
+                              "<extra></extra>"}]
+    lay = _layout(f"{metric} over {ax[0]['path']} and {ax[1]['path']}", title(ax[1]), title(ax[0]), legend=False)
+    for key, a in (("xaxis", ax[1]), ("yaxis", ax[0])):
+        if a["log"]:
+            lay[key]["type"] = "log"
+    return {"data": data, "layout": lay}
+
+
 # ---------------------------------------------------------------- layout
 def layout() -> html.Div:
     """The variability card's body."""
@@ -237,9 +292,47 @@ def layout() -> html.Div:
                 dcc.Graph(id=ids.VARY_RANKING, figure=ranking_figure(None, None), config={"displaylogo": False}),
             ], className="vary-plot"),
         ], className="vary-plots"),
+        html.H3("What-if sweep", className="sub-head"),
+        html.P("Set one or two parameters to a grid of values (the other values stay the scenario's) and see a "
+               "metric over it: a line for one parameter, a heatmap for two.", className="fine-print"),
+        *[_axis_row(k) for k in (1, 2)],
+        html.Div([
+            html.Button("Run sweep", id=ids.SWEEP_RUN, className="btn primary"),
+            html.Button("Cancel", id=ids.SWEEP_CANCEL, className="btn", disabled=True),
+            html.Progress(id=ids.SWEEP_PROGRESS, value="0", max="100", className="progress"),
+        ], className="vary-row"),
+        html.Div(id=ids.SWEEP_STATUS, className="run-status", role="status"),
+        html.Div([
+            html.Label("Metric", htmlFor=ids.SWEEP_METRIC, className="field-label"),
+            dcc.Dropdown(id=ids.SWEEP_METRIC, options=[], clearable=False),
+        ], className="vary-pick"),
+        dcc.Graph(id=ids.SWEEP_FIGURE, figure=sweep_figure(None, None), config={"displaylogo": False}),
         dcc.Store(id=ids.VARY_STORE, data=[]),
         dcc.Store(id=ids.VARY_RESULT),
+        dcc.Store(id=ids.SWEEP_RESULT),
     ])
+
+
+def _axis_row(k: int) -> html.Div:
+    """One swept parameter: path, range with units, points, log steps (the second is optional)."""
+    return html.Div([
+        html.Div([
+            html.Label(f"Parameter {k}" + (" (optional)" if k == 2 else ""), htmlFor=ids.sweep_field("path", k),
+                       className="field-label"),
+            dcc.Dropdown(id=ids.sweep_field("path", k), options=[], placeholder="pick a parameter"),
+        ], className="vary-field wide"),
+        html.Div([
+            html.Label("From..to", htmlFor=ids.sweep_field("range", k), className="field-label"),
+            dcc.Input(id=ids.sweep_field("range", k), type="text", value="", className="field-input",
+                      placeholder="e.g. 5 L/h..40 L/h"),
+        ], className="vary-field"),
+        html.Div([
+            html.Label("Points", htmlFor=ids.sweep_field("steps", k), className="field-label"),
+            dcc.Input(id=ids.sweep_field("steps", k), type="number", value=9 if k == 1 else 5, min=2, max=60, step=1,
+                      className="field-input small"),
+        ], className="vary-field"),
+        dcc.Checklist(id=ids.sweep_field("log", k), options=[{"label": " log steps", "value": "log"}], value=[]),
+    ], className="vary-row")
 
 
 # ---------------------------------------------------------------- callbacks
@@ -424,3 +517,80 @@ def register(app: Any, services: Any) -> None:
     def metric_plots(metric, meta):
         result = fetch(meta)
         return histogram_figure(result, metric), ranking_figure(result, metric)
+
+    @app.callback(
+        Output(ids.sweep_field("path", 1), "options"),
+        Output(ids.sweep_field("path", 2), "options"),
+        Input(ids.VARY_PATH, "options"),
+    )
+    def sweep_paths(options):
+        return options, options
+
+    @app.callback(
+        Output(ids.SWEEP_RESULT, "data"),
+        Output(ids.SWEEP_STATUS, "children"),
+        Input(ids.SWEEP_RUN, "n_clicks"),
+        State(ids.VALID, "data"),
+        *[State(ids.sweep_field(f, k), "value") for k in (1, 2) for f in ("path", "range", "steps", "log")],
+        State(ids.PAGE, "data"),
+        background=True,
+        manager=services.manager,
+        progress=[Output(ids.SWEEP_PROGRESS, "value")],
+        progress_default=["0"],
+        running=[
+            (Output(ids.SWEEP_RUN, "disabled"), True, False),
+            (Output(ids.SWEEP_CANCEL, "disabled"), False, True),
+        ],
+        cancel=[Input(ids.SWEEP_CANCEL, "n_clicks")],
+        interval=services.poll_ms,
+        prevent_initial_call=True,
+    )
+    def run_sweep(set_progress, _n, valid, p1, r1, n1, l1, p2, r2, n2, l2, _page):
+        if not valid or not valid.get("toml"):
+            return no_update, html.Span("Nothing to run yet: the scenario has never been valid.", className="bad")
+        axes = []
+        for path, rng, steps, log in ((p1, r1, n1, l1), (p2, r2, n2, l2)):
+            if not path:
+                continue
+            try:
+                steps = int(steps)
+            except (TypeError, ValueError):
+                return no_update, html.Span(f"{path}: the number of points is a whole number.", className="bad")
+            axes.append([path, (rng or "").strip(), steps, "log" in (log or [])])
+        if not axes:
+            return no_update, html.Span("Pick a parameter to sweep.", className="bad")
+        key = "sweep:" + hashlib.sha256(json.dumps([valid["toml"], axes]).encode()).hexdigest()
+        packed = archive.get(key)
+        if packed is None:
+            try:
+                packed = services.workers.call(sweep, valid["toml"], axes, valid.get("file"),
+                                               progress=lambda f: set_progress([f"{100 * f:.0f}"]))
+            except (BarrierflowError, WorkerFailed) as err:
+                return no_update, html.Span(f"The sweep failed: {err}", className="bad")
+            archive.put(key, packed)
+        failed = f", {packed['failed']} failed" if packed["failed"] else ""
+        return ({"key": key, "metrics": list(packed["metrics"])},
+                html.Span(f"{packed['points']} points done in {packed['wall_s']:.1f} s{failed}.",
+                          className="good" if not failed else "warn"))
+
+    @app.callback(
+        Output(ids.SWEEP_METRIC, "options"),
+        Output(ids.SWEEP_METRIC, "value"),
+        Input(ids.SWEEP_RESULT, "data"),
+        State(ids.SWEEP_METRIC, "value"),
+    )
+    def sweep_metrics(meta, metric):
+        if not meta:
+            return [], None
+        names = meta["metrics"]
+        if metric not in names:
+            metric = next((m for m in names if m.startswith(("permeated:", "auc:"))), names[0] if names else None)
+        return [{"label": m, "value": m} for m in names], metric
+
+    @app.callback(
+        Output(ids.SWEEP_FIGURE, "figure"),
+        Input(ids.SWEEP_METRIC, "value"),
+        Input(ids.SWEEP_RESULT, "data"),
+    )
+    def sweep_plot(metric, meta):
+        return sweep_figure(fetch(meta), metric)

@@ -67,3 +67,19 @@ def test_the_worker_result_and_its_figures():
     rank = P.ranking_figure(packed, "auc:central")
     assert rank["data"][0]["y"][-1] == "compartment.central.clearance"   # the largest at the top
     assert P.band_figure(None, None)["data"] == [] and P.ranking_figure(packed, "nothing")["data"] == []
+
+
+def test_a_sweep_and_its_heatmap():
+    # AUC to infinity of an IV bolus is D / CL whatever the volume (Gibaldi & Perrier 1982, eq. 1.22)
+    packed = P.sweep(BOLUS, [["compartment.central.clearance", "2 L/h..8 L/h", 3, True],
+                             ["compartment.central.volume", "5 L..20 L", 2, False]])
+    assert packed["points"] == 6 and packed["failed"] == 0
+    assert np.allclose(packed["axes"][0]["values"], [2.0, 4.0, 8.0], rtol=1e-12) and packed["axes"][0]["log"]
+    grid = np.array(packed["metrics"]["auc_inf:central"]["grid"])
+    np.testing.assert_allclose(grid, 100.0 / np.array([[2.0], [4.0], [8.0]]) * np.ones((1, 2)), rtol=1e-6)
+    fig = P.sweep_figure(packed, "auc_inf:central")
+    assert fig["data"][0]["type"] == "heatmap" and fig["layout"]["yaxis"]["type"] == "log"
+    assert fig["layout"]["xaxis"]["title"]["text"] == "compartment.central.volume [L]"
+    line = P.sweep_figure(P.sweep(BOLUS, [["compartment.central.clearance", "2 L/h..8 L/h", 3, False]]),
+                          "auc_inf:central")
+    assert line["data"][0]["mode"] == "lines+markers" and len(line["data"][0]["y"]) == 3

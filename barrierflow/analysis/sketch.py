@@ -19,7 +19,7 @@ bin, so that a band moves smoothly rather than in steps of a bin), and kept with
 smallest and largest values, which are kept exactly (the 0th and 100th percentiles, and every
 percentile of equal values, are exact). Both the estimate and the true value lie in the same bin,
 so when the two order statistics have one sign and lie within ``bins`` bins of the cell's largest
-magnitude (``bins`` ln(gamma) in ln: 6.6 decades with the defaults), the result is within a
+magnitude (``bins`` ln(gamma) in ln: 4.4 decades with the defaults), the result is within a
 relative ``accuracy`` a (default 1 %) of ``numpy.percentile`` over the same values. A percentile
 further below is reported at the top of the lowest kept bin (an upper bound of the true value);
 :meth:`QuantileSketch.floored` says where that happened.
@@ -49,8 +49,8 @@ __all__ = ["ACCURACY", "BINS", "Counts", "QuantileSketch", "count_values"]
 ACCURACY = 0.01
 """Default relative accuracy of a percentile (1 %)."""
 
-BINS = 1536
-"""Default number of bins kept per cell (with 1 % accuracy, values over 6.6 decades)."""
+BINS = 1024
+"""Default number of bins kept per cell (with 1 % accuracy, values over 4.4 decades)."""
 
 _EMPTY = np.iinfo(np.int64).min
 
@@ -366,7 +366,7 @@ class QuantileSketch:
     accuracy : float
         Relative accuracy of a percentile (default 1 %).
     bins : int
-        Bins kept per cell (default 1536).
+        Bins kept per cell (default 1024).
 
     Examples
     --------

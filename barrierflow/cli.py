@@ -123,11 +123,16 @@ def _add_run(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-progress", action="store_true",
                    help="do not show the progress bar (default: shown on a terminal)")
     p.add_argument("--metrics", metavar="OUT.csv", default=None,
-                   help="also write the metrics table (columns kind, id, metric, value, unit; values in the "
-                        "scenario's [output] units) to this CSV (default: not written)")
+                   help="also write the metrics table (columns kind, id, metric, value, unit, note; values in the "
+                        "scenario's [output] units, a number or blank, the reason for a blank or a flag in "
+                        "note) to this CSV (default: not written)")
     p.add_argument("--threshold", metavar="CONC", default=None,
                    help="concentration with its unit, such as '0.5 mg/L', for the time above threshold of "
                         "every compartment (default: not computed)")
+    p.add_argument("--samples", metavar="OUT.csv", default=None,
+                   help="also write every sample the regimen took (time, compartment, aliquot in mL, its "
+                        "concentration, and for a receptor the corrected cumulative amount per area beside the "
+                        "amount permeated; the scenario's [output] units) to this CSV (default: not written)")
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
@@ -141,6 +146,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
     _check_output_path(out, "-o/--output", sidecar=True)
     if args.metrics:
         _check_output_path(Path(args.metrics), "--metrics")
+    if args.samples:
+        _check_output_path(Path(args.samples), "--samples")
     threshold = None
     if args.threshold is not None:
         from barrierflow.units import parse_quantity
@@ -163,14 +170,22 @@ def _cmd_run(args: argparse.Namespace) -> int:
     # leaves no output at all; the traces and their sidecar are then written as a pair
     summary = run_summary(result, threshold)
     metrics_csv = result.metrics(threshold=threshold).to_csv() if args.metrics else None
+    samples_text = None
+    if args.samples:
+        from barrierflow.analysis.sampling import samples_csv
+
+        samples_text = samples_csv(result)
     result.to_csv(out)
     print(summary)
     print(f"wrote {out} and {out.with_suffix('.json')}")
-    if metrics_csv is not None:
-        from barrierflow.io import atomic_write
+    from barrierflow.io import atomic_write
 
+    if metrics_csv is not None:
         atomic_write(args.metrics, metrics_csv)
         print(f"wrote {args.metrics}")
+    if samples_text is not None:
+        atomic_write(args.samples, samples_text)
+        print(f"wrote {args.samples}")
     print(CAUTION)
     return EXIT_OK
 
@@ -209,7 +224,9 @@ def run_summary(result, threshold: float | None = None) -> str:
     mb = result.mass_balance
     st = result.stats
     lines = [f"scenario: {result.scenario.name}", "", result.metrics(threshold=threshold).to_text(), "",
-             f"mass balance: relative error {mb.relative_error:.2e} (absolute {mb.absolute_error:.3g} mg)",
+             f"mass balance: relative error {mb.relative_error:.2e} (absolute {mb.absolute_error:.3g} mg)"
+             + (f"; sampled {mb.sampled:.4g} mg" if mb.sampled else "") + (f"; lost to the air {mb.lost:.4g} mg"
+                                                                            if mb.lost else ""),
              f"solver: {result.integrator}, {st.get('steps', 0)} steps, {st['wall_time_s']:.3g} s"]
     lines += [f"warning: {w}" for w in result.warnings()]
     return "\n".join(lines)

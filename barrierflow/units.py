@@ -24,6 +24,11 @@ flux             mg/(cm^2*h)  ``"0.5 ug/(cm^2*h)"`` * (measured fluxes)
 
 \\* molar quantities need the substance's molar mass.
 
+Some fields also accept a value *per area* of the one barrier the compartment touches (a
+volume ``"10 uL/cm^2"``, an amount ``"50 ug/cm^2"``, an evaporation rate ``"4 uL/(cm^2*h)"``);
+their kinds are ``volume_per_area`` (mL/cm^2), ``amount_per_area`` (mg/cm^2, molar too) and
+``flow_per_area`` (mL/(cm^2*h)), listed in :data:`PER_AREA`.
+
 The conversion factors are pint's definitions, which follow NIST SP 811 (Thompson & Taylor,
 Guide for the Use of the International System of Units, 2008), Appendix B.
 """
@@ -44,6 +49,7 @@ if TYPE_CHECKING:
 __all__ = [
     "INTERNAL_UNITS",
     "KINDS",
+    "PER_AREA",
     "convert",
     "format_quantity",
     "parse_quantity",
@@ -94,10 +100,16 @@ KINDS: dict[str, _Kind] = {
     "flow": _Kind("mL/h", "10 L/h", "a flow or clearance (volume per time)"),
     "rate": _Kind("1/h", "0.8 1/h", "a rate constant (per time)"),
     "molar_mass": _Kind("mg/mmol", "250 g/mol", "a molar mass (mass per amount of substance)"),
-    # kinds of measured quantities (experiment data files, the traces CSV); no scenario field uses them
+    # per-area forms of scenario fields (see PER_AREA); amounts per area and fluxes are also the
+    # kinds of measured quantities (experiment data files, the traces CSV)
+    "volume_per_area": _Kind("mL/cm^2", "10 uL/cm^2", "a volume per area"),
     "amount_per_area": _Kind("mg/cm^2", "12 ug/cm^2", "an amount per area", "mmol/cm^2"),
+    "flow_per_area": _Kind("mL/(cm^2*h)", "4 uL/(cm^2*h)", "a volume per area and time"),
     "flux": _Kind("mg/(cm^2*h)", "0.5 ug/(cm^2*h)", "a flux (amount per area and time)", "mmol/(cm^2*h)"),
 }
+
+PER_AREA: dict[str, str] = {"volume": "volume_per_area", "amount": "amount_per_area", "flow": "flow_per_area"}
+"""The per-area kind of each kind that has one (a field of that kind may be written per area)."""
 
 INTERNAL_UNITS: dict[str, str] = {k: v.internal for k, v in KINDS.items()}
 """Internal unit of each kind of quantity."""
@@ -592,6 +604,9 @@ _ALTERNATIVES = {
     "concentration": ("mg/mL", "mg/L", "ug/mL", "ug/L"),
     "amount": ("mg", "ug", "g"),
     "length": ("um", "mm", "cm"),
+    "volume_per_area": ("uL/cm^2", "mL/cm^2"),
+    "amount_per_area": ("ug/cm^2", "mg/cm^2"),
+    "flow_per_area": ("uL/(cm^2*h)", "mL/(cm^2*h)"),
 }
 
 

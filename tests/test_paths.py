@@ -80,7 +80,7 @@ def test_a_path_knows_its_kind_unit_range_and_role():
      "scenario, substance, compartment, barrier, exchange, transfer, dose, output"),
     ("barrier.skin.layer.1.difusivity",
      "parameter path: got 'barrier.skin.layer.1.difusivity'; did you mean 'diffusivity'? a barrier layer has the "
-     "fields name, thickness, diffusivity, partition, cells, degradation_rate"),
+     "fields name, thickness, diffusivity, partition, cells, degradation_rate, initial_concentration"),
     ("exchange.e.flw", "parameter path: got 'exchange.e.flw'; did you mean 'flow'? an exchange has the fields "
                        "id, from, to, flow"),
     ("dose.0.amount", "parameter path: got 'dose.0.amount'; must read dose.<n>.<field> (doses counted from 1 in "

@@ -213,7 +213,8 @@ PINNED = {
     "wrong dimension": (
         ('volume = "5 L"', 'volume = "5 kg"'),
         "patch.toml: compartment 'body' volume: got 5 kg; wrong kind of unit (kg); "
-        "expected a volume with its unit, such as '5 mL'"),
+        "expected a volume with its unit, such as '5 mL', or a volume per area such as '10 uL/cm^2' (times the "
+        "area of the one barrier the compartment touches)"),
     "wrong dimension diffusivity": (
         ('diffusivity = "1e-9 cm^2/s"', 'diffusivity = "1e-9 cm/s"'),
         "patch.toml: barrier 'skin' layer 1 diffusivity: got 1e-9 cm/s; wrong kind of unit (cm / s); "
@@ -270,7 +271,8 @@ PINNED = {
     "unknown key with a hint": (
         ('clearance = "10 L/h"', 'clearence = "10 L/h"'),
         "patch.toml: compartment 'body' clearence: got an unknown key; did you mean 'clearance'? known keys here: "
-        "id, volume, initial_concentration, partition, clearance, vmax, km, held_concentration, description"),
+        "id, volume, initial_concentration, partition, clearance, vmax, km, held_concentration, evaporation_rate, "
+        "residual_volume, loss_rate, description"),
     "unknown table with a hint": (
         ('[[exchange]]', '[[exchanges]]'),
         "patch.toml: [exchanges]: got an unknown table; did you mean 'exchange'? known keys here: "
@@ -289,7 +291,7 @@ PINNED = {
         "patch.toml: dose 1 at: got 48 h; must be within the run (duration 24 h)"),
     "dose kind unknown": (
         ('kind = "bolus"', 'kind = "pill"'),
-        "patch.toml: dose 1 kind: got 'pill'; must be one of bolus, infusion, hold, replace, remove"),
+        "patch.toml: dose 1 kind: got 'pill'; must be one of bolus, infusion, hold, replace, remove, sample"),
     "bolus without amount": (
         ('amount = "1 mg"\n', ''),
         "patch.toml: dose 1 amount: got nothing; a bolus dose needs amount"),

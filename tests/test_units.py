@@ -143,6 +143,7 @@ def test_internal_units_are_the_documented_ones():
         "length": "cm", "time": "h", "area": "cm^2", "volume": "mL", "diffusivity": "cm^2/h",
         "concentration": "mg/mL", "amount": "mg", "amount_rate": "mg/h", "flow": "mL/h",
         "rate": "1/h", "molar_mass": "mg/mmol", "amount_per_area": "mg/cm^2", "flux": "mg/(cm^2*h)",
+        "volume_per_area": "mL/cm^2", "flow_per_area": "mL/(cm^2*h)",
     }
     # every internal unit parses back to 1 in itself
     for kind, unit in INTERNAL_UNITS.items():

@@ -19,6 +19,7 @@ import numpy as np
 
 from ..caution import CAUTION
 from ..engine import Trajectory
+from ..engine.compiled import limited_compartments
 from ..engine.ledger import ledger
 from ..io import traces_digest, write_traces
 from ..model import Scenario
@@ -59,12 +60,14 @@ class BarrierProfile:
 class MassBalance:
     """Where every milligram went, at the end of the run and as the worst error over time.
 
-    The ledger is ``initial + dosed + held_supply = present + eliminated + degraded + removed``,
-    where ``held_supply`` is what held compartments gave (negative when a sink took substance).
+    The ledger is ``initial + dosed + held_supply = present + eliminated + degraded + removed +
+    sampled + lost``, where ``held_supply`` is what held compartments gave (negative when a sink
+    took substance), ``present`` counts dissolved and undissolved solute, ``sampled`` what samples
+    withdrew and ``lost`` what went to the air.
 
     Attributes (mg unless said)
     ----------
-    initial, dosed, held_supply, present, eliminated, degraded, removed : float
+    initial, dosed, held_supply, present, eliminated, degraded, removed, sampled, lost : float
         Values at the end of the run.
     absolute_error : float, mg
         Largest |left - right| over all output times.
@@ -81,6 +84,8 @@ class MassBalance:
     removed: float
     absolute_error: float
     relative_error: float
+    sampled: float = 0.0
+    lost: float = 0.0
 
     def as_dict(self) -> dict[str, float]:
         """The fields as a plain dict (mg, and the relative error)."""
@@ -169,7 +174,8 @@ class Result:
         return self.trajectory.model.barrier_ids
 
     def concentration(self, cid: str) -> np.ndarray:
-        """Concentration in compartment ``cid``, clipped at 0.
+        """Concentration in compartment ``cid``, clipped at 0: the dissolved concentration where
+        the compartment holds undissolved solid (it is at the solubility there).
 
         Parameters
         ----------
@@ -181,10 +187,34 @@ class Result:
         ndarray, mg/mL
             One value per output time.
         """
-        return np.maximum(self.trajectory.states[:, self._c(cid)], 0.0)
+        i = self._c(cid)
+        return np.maximum(np.minimum(self.trajectory.states[:, i], self.trajectory.model.solubility[i]), 0.0)
+
+    def volume(self, cid: str) -> np.ndarray:
+        """Volume of compartment ``cid`` (it changes with evaporation and samples without
+        replacement; NaN for a held compartment without volume).
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mL
+            One value per output time.
+        """
+        i = self._c(cid)
+        tr = self.trajectory
+        if not tr.model.has_volume[i]:
+            return np.full(len(self.times), np.nan)
+        if tr.volumes is not None:
+            return tr.volumes[:, i].copy()
+        return np.full(len(self.times), tr.model.capacity[i])
 
     def amount(self, cid: str) -> np.ndarray:
-        """Amount in compartment ``cid`` (NaN for a held compartment without volume).
+        """Amount in compartment ``cid``, dissolved and undissolved (NaN for a held compartment
+        without volume).
 
         Parameters
         ----------
@@ -197,10 +227,57 @@ class Result:
             One value per output time.
         """
         i = self._c(cid)
+        return np.maximum(self.trajectory.states[:, i], 0.0) * self.volume(cid)
+
+    def solid(self, cid: str) -> np.ndarray:
+        """Undissolved amount in compartment ``cid``: what exceeds the solubility (times its
+        partition) is held there as solid (0 where no limit applies).
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
+        i = self._c(cid)
+        excess = np.maximum(self.trajectory.states[:, i] - self.trajectory.model.solubility[i], 0.0)
+        return np.nan_to_num(excess * self.volume(cid), nan=0.0)
+
+    def sampled(self, cid: str) -> np.ndarray:
+        """Cumulative amount withdrawn from ``cid`` by samples.
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
         m = self.trajectory.model
-        if not m.has_volume[i]:
-            return np.full(len(self.times), np.nan)
-        return self.concentration(cid) * m.capacity[i]
+        return self.trajectory.states[:, m.q_sampled + self._c(cid)].copy()
+
+    def lost(self, cid: str) -> np.ndarray:
+        """Cumulative amount lost from ``cid`` to the air (its ``loss_rate``).
+
+        Parameters
+        ----------
+        cid : str
+            Compartment id.
+
+        Returns
+        -------
+        ndarray, mg
+            One value per output time.
+        """
+        m = self.trajectory.model
+        return self.trajectory.states[:, m.q_lost + self._c(cid)].copy()
 
     def eliminated(self, cid: str) -> np.ndarray:
         """Cumulative amount eliminated from ``cid`` (clearance and saturable).
@@ -246,13 +323,39 @@ class Result:
 
     def _link_rate(self, link: int, into: bool) -> np.ndarray:
         m = self.trajectory.model
-        s = self.trajectory.states
         p, q = m.link_p[link], m.link_q[link]
-        up = s[:, p] * m.inv_partition[p]
-        uq = s[:, q] * m.inv_partition[q]
-        if into:
-            return m.link_c[link] * up - m.link_d[link] * uq
-        return m.link_a[link] * up - m.link_b[link] * uq
+        up, uq = self._potential(p), self._potential(q)
+        rate = m.link_c[link] * up - m.link_d[link] * uq if into else m.link_a[link] * up - m.link_b[link] * uq
+        return np.where(self._link_open(link), rate, 0.0)
+
+    def _potential(self, i: int) -> np.ndarray:
+        """The potential C/K of state ``i`` at each output time: of the dissolved part where a
+        compartment holds solid (a held, saturated reservoir has its potential in its partition
+        entry already)."""
+        m = self.trajectory.model
+        y = self.trajectory.states[:, i]
+        if i < m.n_comp and not m.held[i]:
+            y = np.minimum(y, m.solubility[i])
+        return y * m.inv_partition[i]
+
+    def _link_open(self, link: int) -> np.ndarray | bool:
+        """Whether a link carries flux at each output time (a closed face carries none)."""
+        m = self.trajectory.model
+        if link not in set(m.face_link.tolist()):
+            return True
+        closed = self._closed
+        p, q = int(m.link_p[link]), int(m.link_q[link])
+        shut = np.zeros(len(self.times), dtype=bool)
+        for c in (p, q):
+            if c < m.n_comp:
+                shut |= closed[:, c]
+        return ~shut
+
+    @cached_property
+    def _closed(self) -> np.ndarray:
+        from ..engine.schedule import closed_rows
+
+        return closed_rows(self.trajectory.events, self.times, self.trajectory.model.n_comp)
 
     def flux(self, bid: str) -> np.ndarray:
         """Flux per area from barrier ``bid`` into its ``to`` compartment.
@@ -372,7 +475,7 @@ class Result:
         """The ledger of the run (see :class:`MassBalance`; computed by :func:`barrierflow.engine.ledger`,
         the same ledger the engine checks every run against)."""
         tr = self.trajectory
-        led = ledger(tr.model, tr.states, tr.event_dosed, tr.event_removed, tr.initial_amount)
+        led = ledger(tr.model, tr.states, tr.event_dosed, tr.event_removed, tr.initial_amount, tr.volumes)
 
         def last(x: np.ndarray) -> float:
             return float(x[-1]) if len(x) else 0.0
@@ -380,7 +483,8 @@ class Result:
         return MassBalance(
             initial=float(led.initial), dosed=last(led.dosed), held_supply=last(led.held_supply),
             present=last(led.present), eliminated=last(led.eliminated), degraded=last(led.degraded),
-            removed=last(led.removed), absolute_error=led.absolute_error, relative_error=led.relative_error)
+            removed=last(led.removed), absolute_error=led.absolute_error, relative_error=led.relative_error,
+            sampled=last(led.sampled), lost=last(led.lost))
 
     # ----------------------------------------------------------------- analysis hooks
     def metrics(self, threshold: float | None = None):
@@ -518,7 +622,10 @@ def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray
     list of (str, ndarray)
         The first column is the time, ``time [h]``; then ``conc:<id> [unit]``, ``amount:<id>``,
         ``flux:<id>``, ``permeated:<id>``, ``eliminated:<id>``, ``content:<id>``,
-        ``degraded:<id>``, ``removed:<id>``, ``dosed:<id>``.
+        ``degraded:<id>``, ``removed:<id>``, ``dosed:<id>``; and where they apply
+        ``sampled:<id>`` (a sampled compartment), ``lost:<id>`` (one with a ``loss_rate``),
+        ``volume:<id> [mL]`` (a volume that changes) and ``solid:<id>`` (one that may hold solid;
+        ``source`` then has ``sampled``, ``lost``, ``volume``, ``solid``).
     """
     s = scenario
     u = s.output_units
@@ -542,6 +649,14 @@ def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray
     cols += [(f"degraded:{b} [{u.amount}]", source.degraded(b) * fa) for b in bids]
     cols += [(f"removed:{c} [{u.amount}]", source.removed(c) * fa) for c in cids]
     cols += [(f"dosed:{c} [{u.amount}]", source.dosed(c) * fa) for c in cids]
+    # the lab's protocol, where it applies
+    sampled = {d.target for d in s.doses if d.kind == "sample"}
+    cols += [(f"sampled:{c.id} [{u.amount}]", source.sampled(c.id) * fa) for c in s.compartments if c.id in sampled]
+    cols += [(f"lost:{c.id} [{u.amount}]", source.lost(c.id) * fa) for c in s.compartments if c.loss_rate > 0]
+    changing = {d.target for d in s.doses if d.kind == "sample" and not d.replaces_medium}
+    changing |= {c.id for c in s.compartments if c.evaporates}
+    cols += [(f"volume:{c} [mL]", source.volume(c)) for c in cids if c in changing]
+    cols += [(f"solid:{c} [{u.amount}]", source.solid(c) * fa) for c in limited_compartments(s)]
     return cols
 
 

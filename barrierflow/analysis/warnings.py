@@ -8,8 +8,12 @@ Each warning is one sentence that names the part of the model, the value and wha
   concentration below 10 % of the solubility. With ``solubility`` given in ``[substance]``, a
   barrier's ``to`` compartment whose C/K rises above :data:`SINK_FRACTION` of it is reported
   with the time it happens.
-- **Above solubility.** A compartment whose C/K exceeds the solubility (the dose cannot all be
-  dissolved there; the model does not limit it).
+- **Above solubility.** A compartment whose C/K reaches the solubility: the excess is held as
+  undissolved solid there (the dose cannot all be dissolved).
+- **Closed receptor.** A barrier's ``to`` compartment that is not held (a closed receptor) whose
+  C/K rises above :data:`~barrierflow.analysis.metrics.CLOSED_RECEPTOR_FRACTION` (10 %) of the
+  ``from`` side's during the first dosing interval: it is no sink, so the apparent lag time and
+  steady flux of the time-lag method are biased.
 - **Steady state never seen.** A resolved barrier whose lag time (exact, from
   :func:`barrierflow.analysis.steady.lag_time`) exceeds the simulated duration.
 - **Output too coarse.** An output step coarser than a tenth of the shortest lag time or dosing
@@ -28,7 +32,7 @@ import numpy as np
 
 from ..model import Scenario
 from ..units import unit_factor
-from .metrics import application_times
+from .metrics import CLOSED_RECEPTOR_FRACTION, application_times, closed_receptor_time, first_interval_end
 from .steady import lag_time
 
 __all__ = ["COARSE_FRACTION", "SINK_FRACTION", "find_warnings", "scenario_warnings"]
@@ -50,6 +54,15 @@ def _conc(scenario: Scenario, c: float) -> str:
     except Exception:  # an unusable output unit is reported by the model itself
         f, unit = 1.0, "mg/mL"
     return f"{c * f:.4g} {unit}"
+
+
+def _amount(scenario: Scenario, m: float) -> str:
+    unit = scenario.output_units.amount
+    try:
+        f = unit_factor("amount", unit, scenario.substance.molar_mass)
+    except Exception:  # an unusable output unit is reported by the model itself
+        f, unit = 1.0, "mg"
+    return f"{m * f:.4g} {unit}"
 
 
 def _step_text(t: float, down: bool = False) -> str:
@@ -175,18 +188,30 @@ def find_warnings(result: Any) -> tuple[str, ...]:
     sc: Scenario = result.scenario
     t = np.asarray(result.times, dtype=float)
     out = list(scenario_warnings(sc, solubility=False, times=t))
+    if len(t):
+        apps = application_times(sc, float(t[-1]))
+        origin = min(apps) if apps else float(t[0])
+        for b in sc.barriers:
+            when = closed_receptor_time(result, b, origin, first_interval_end(sc, b.from_id, apps, float(t[-1])))
+            if when is not None:
+                out.append(f"barrier '{b.id}': the closed receptor '{b.to_id}' rises above "
+                           f"{CLOSED_RECEPTOR_FRACTION:.0%} of the donor side's concentration (partition considered) "
+                           f"at {_h(when)}; it is no sink, so the apparent lag time and steady flux of the time-lag "
+                           "method are biased (sample and replace the receptor fluid, or use a larger volume)")
     sol = sc.substance.solubility
     if not sol or len(t) == 0:
         return tuple(out)
     receivers = {b.to_id for b in sc.barriers}
     for comp in sc.compartments:
         u = np.asarray(result.concentration(comp.id), dtype=float) / comp.partition
-        when = _first_above(t, u, sol)
-        if when is not None:
-            peak = float(np.max(u)) * comp.partition
-            out.append(f"compartment '{comp.id}': the concentration exceeds the solubility there "
-                       f"({_conc(sc, sol * comp.partition)}) from {_h(when)} on, up to {_conc(sc, peak)}; "
-                       "the dose cannot all be dissolved (the model does not limit it)")
+        solid = np.asarray(result.solid(comp.id), dtype=float)
+        held_solid = np.nonzero(solid > 0)[0]
+        if len(held_solid):
+            when = float(t[held_solid[0]])
+            out.append(f"compartment '{comp.id}': the dose exceeds the solubility there "
+                       f"({_conc(sc, sol * comp.partition)}) from {_h(when)} on; up to "
+                       f"{_amount(sc, float(solid.max()))} is held as undissolved solid, and only the dissolved part "
+                       "moves on")
         if comp.id in receivers and not comp.held:
             when = _first_above(t, u, SINK_FRACTION * sol)
             if when is not None:

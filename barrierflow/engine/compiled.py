@@ -9,7 +9,9 @@ State vector layout (all float64)::
           degraded per barrier (n_bar)
           permeated per barrier, the amount that entered its `to` compartment (n_bar)
           supplied per compartment by a clamp: a held compartment or a hold dose (n_comp)
-          infused per compartment (n_comp) ]
+          infused per compartment (n_comp)
+          lost to the air per compartment (n_comp)
+          sampled per compartment, booked by the sample events (n_comp) ]
 
 The first ``n_dyn = n_comp + n_cells`` entries are the dynamic states; the rest are
 quadratures that never feed back. Every transport process is written on the potential
@@ -18,7 +20,17 @@ volume, or a cell's area times width) changes as dy/dt = (sum of amount rates) /
 
 A *link* j joins states p and q: the amount rate leaving p is ``a u_p - b u_q`` and the rate
 entering q is ``c u_p - d u_q`` (mL/h times mg/mL). Storage-free links have a = b = c = d = G;
-a quasi-steady barrier with degradation in a layer has a != c, the difference degraded.
+a quasi-steady barrier with degradation in a layer has a != c, the difference degraded. A link
+from a compartment to itself with only ``a`` set is a first-order loss counted in its quadrature:
+the clearance of a compartment that also loses substance to the air, or whose volume changes,
+is written so (rate = CL C = CL K u, whatever the volume).
+
+The lab's protocol adds to the arrays: the barrier links of each compartment (its faces, which a
+remove that ends contact closes), the evaporation of volatile vehicles (a rate and a residual
+volume) and the solubility limit of compartments that may exceed it. A model with evaporation,
+a solubility limit or samples without replacement has ``vehicle_terms``: its volumes change
+with time or it holds undissolved solid, which only the scipy integrators run
+(:mod:`barrierflow.engine.vehicle`).
 """
 
 from __future__ import annotations
@@ -101,6 +113,13 @@ class CompiledModel:
     area: np.ndarray            # (n_bar,) cm^2
     comp_index: dict[str, int] = field(default_factory=dict)
     barrier_index: dict[str, int] = field(default_factory=dict)
+    face_ptr: np.ndarray = field(default_factory=lambda: np.zeros(1, dtype=np.int64))  # (n_comp + 1,) int
+    face_link: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # barrier links, by comp
+    evap_rate: np.ndarray = field(default_factory=lambda: np.zeros(0))   # (n_comp,) mL/h, 0: none
+    residual: np.ndarray = field(default_factory=lambda: np.zeros(0))    # (n_comp,) mL left after evaporation
+    solubility: np.ndarray = field(default_factory=lambda: np.zeros(0))  # (n_comp,) mg/mL S K, inf: no limit
+    shrinking: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.bool_))  # (n_comp,) samples
+    #                                                     without replacement shrink its volume
 
     @property
     def n_dyn(self) -> int:
@@ -110,7 +129,7 @@ class CompiledModel:
     @property
     def n_state(self) -> int:
         """Length of the full state vector."""
-        return self.n_dyn + 3 * self.n_comp + 2 * self.n_bar
+        return self.n_dyn + 5 * self.n_comp + 2 * self.n_bar
 
     # offsets of the cumulative amounts
     @property
@@ -139,9 +158,29 @@ class CompiledModel:
         return self.n_dyn + 2 * self.n_comp + 2 * self.n_bar
 
     @property
+    def q_lost(self) -> int:
+        """Offset of the amounts lost to the air."""
+        return self.n_dyn + 3 * self.n_comp + 2 * self.n_bar
+
+    @property
+    def q_sampled(self) -> int:
+        """Offset of the sampled amounts (the last block)."""
+        return self.n_dyn + 4 * self.n_comp + 2 * self.n_bar
+
+    @property
     def is_linear(self) -> bool:
-        """True without saturable elimination."""
-        return len(self.mm_state) == 0
+        """True without saturable elimination (and without the terms of :attr:`vehicle_terms`)."""
+        return len(self.mm_state) == 0 and not self.vehicle_terms
+
+    @property
+    def vehicle_terms(self) -> bool:
+        """True when a volume changes over time (evaporation, samples without replacement) or a
+        compartment that is not held may hold undissolved solid (a solubility limit): only the
+        scipy integrators, through :mod:`barrierflow.engine.vehicle`, run such a model. (A held
+        compartment above the solubility is a saturated reservoir: its potential is the solubility,
+        which its partition entry gives; it stays linear.)"""
+        return bool(np.any(self.evap_rate > 0) or np.any(np.isfinite(self.solubility) & ~self.held)
+                    or np.any(self.shrinking))
 
 
 def _two_port(barrier: Barrier) -> tuple[float, float, float, float]:
@@ -187,6 +226,8 @@ def _mass_scale(s: Scenario) -> list[float]:
     for c in s.compartments:
         if not c.held and c.volume:
             add(c.id, c.initial_concentration * c.volume)
+    for b in s.barriers:
+        add(b.from_id, b.area * math.fsum(x.initial_concentration * x.thickness for x in b.layers))
     clamps: list[tuple[str, float, float]] = []  # (compartment, concentration, time held)
     for c in s.compartments:
         if c.held:
@@ -228,6 +269,66 @@ def _mass_scale(s: Scenario) -> list[float]:
     return [total[part[i]] if total[part[i]] > 0 else 1.0 for i in range(len(s.compartments))]
 
 
+def limited_compartments(s: Scenario) -> set[str]:
+    """The compartments whose solute may exceed the solubility (times their partition), so that
+    the limit must be computed there; empty without ``[substance] solubility``.
+
+    A compartment exceeds it only through what is put into it, never through diffusion or
+    exchange from phases held at or below it (the potential of a diffusive network has no
+    maximum inside): so it is limited when it starts above; when it evaporates; when a refill
+    or hold puts it above; when a bolus, infusion or transfer feeds it and either a clamp above
+    zero could supply without end or all the substance of the run (every initial amount and dose)
+    in its smallest volume would exceed it; or when a layer starts above its own solubility and
+    that amount could. A held compartment is limited when held above it.
+    """
+    sol = s.substance.solubility
+    if not sol:
+        return set()
+    total = 0.0
+    clamps = any(c.held and c.held_concentration > 0 for c in s.compartments)
+    for c in s.compartments:
+        if not c.held and c.volume:
+            total += c.initial_concentration * c.volume
+    over_layer = False
+    for b in s.barriers:
+        for layer in b.layers:
+            total += layer.initial_concentration * layer.thickness * b.area
+            over_layer |= layer.initial_concentration / layer.partition > sol
+    vol = {c.id: c.volume or 0.0 for c in s.compartments}
+    fed: set[str] = {t.to_id for t in s.transfers}
+    for d in s.doses:
+        n = len(d.start_times(s.duration))
+        if d.kind == "bolus":
+            total += n * d.amount
+            fed.add(d.target)
+        elif d.kind == "infusion":
+            total += n * d.rate * d.duration
+            fed.add(d.target)
+        elif d.kind in ("replace", "hold"):
+            total += n * d.concentration * vol[d.target]
+            clamps |= d.kind == "hold" and d.concentration > 0
+    out = set()
+    for c in s.compartments:
+        cap = sol * c.partition
+        if c.held:
+            if c.held_concentration > cap:
+                out.add(c.id)
+            continue
+        smallest = c.volume
+        if c.evaporates:
+            out.add(c.id)
+            continue
+        shrink = sum(len(d.start_times(s.duration)) * d.volume for d in s.doses
+                     if d.target == c.id and d.kind == "sample" and not d.replaces_medium)
+        smallest = max(smallest - shrink, 1e-300)
+        could = total / smallest > cap
+        if (c.initial_concentration > cap
+                or any(d.target == c.id and d.kind in ("replace", "hold") and d.concentration > cap for d in s.doses)
+                or (c.id in fed and (clamps or could)) or (over_layer and could)):
+            out.add(c.id)
+    return out
+
+
 def compile_scenario(scenario: Scenario, grid: Grid | None = None,
                      layer_widths: dict[tuple[int, int], np.ndarray] | None = None) -> CompiledModel:
     """Turn a validated scenario into the flat arrays of a :class:`CompiledModel`.
@@ -252,7 +353,14 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     # per-state pieces (compartments first, then each resolved barrier's cells), joined at the end
     cap_parts = [np.array([c.volume if c.volume else 1.0 for c in comps], dtype=np.float64)]
     invk_parts = [np.array([1.0 / c.partition for c in comps], dtype=np.float64)]
-    loss_parts = [np.array([c.clearance / c.volume if c.volume and c.clearance else 0.0 for c in comps],
+    # volumes that change (evaporation, samples without replacement) and losses to the air take
+    # the first-order loss of their compartment; its clearance then goes to a link of its own
+    shrinking = np.array([any(d.target == c.id and d.kind == "sample" and not d.replaces_medium
+                              for d in scenario.doses) for c in comps], dtype=np.bool_)
+    own_loss = np.array([c.evaporates or bool(shrinking[i]) or c.loss_rate > 0 for i, c in enumerate(comps)],
+                        dtype=np.bool_)
+    loss_parts = [np.array([c.loss_rate if own_loss[i] else (c.clearance / c.volume if c.volume and c.clearance
+                                                              else 0.0) for i, c in enumerate(comps)],
                            dtype=np.float64)]
     # (barrier index, first cell state, one past the last, widths, layer of each cell, partition
     # coefficient of each cell)
@@ -278,15 +386,18 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     q_degr0 = n_dyn + n_comp
     q_perm0 = q_degr0 + n_bar
     q_supply0 = q_perm0 + n_bar
-    n_state = q_supply0 + 2 * n_comp
+    q_lost0 = q_supply0 + 2 * n_comp
+    n_state = q_supply0 + 4 * n_comp
 
     # links as blocks of columns (p, q, a, b, c, d, loss, track), in order: each barrier's links
     # (one for a steady barrier; the from face, the cell faces, the to face for a resolved one),
     # then the exchanges
     link_blocks: list[np.ndarray] = []
     n_link = 0
-    loss_to_parts = [np.arange(q_elim0, q_elim0 + n_comp, dtype=np.int64)]
+    loss_to_parts = [np.where(own_loss, np.arange(q_lost0, q_lost0 + n_comp), np.arange(q_elim0, q_elim0 + n_comp))
+                     .astype(np.int64)]
     grids = []
+    faces: list[list[int]] = [[] for _ in range(n_comp)]  # the barrier links touching each compartment
     for bi, start, stop, w, lay_idx, part in grids_tmp:
         b = bars[bi]
         p_from = comp_index[b.from_id]
@@ -297,6 +408,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
             link_blocks.append(np.array([[p_from, p_to, a, bb, c, d, q_degr0 + bi if a != c else -1, q_perm0 + bi]],
                                         dtype=np.float64))
             grids.append(BarrierGrid(b.id, start, stop, w, w, lay_idx, interfaces, n_link, n_link))
+            faces[p_from].append(n_link)
+            faces[p_to].append(n_link)
             n_link += 1
             continue
         dif = np.array([x.diffusivity for x in b.layers])[lay_idx]
@@ -318,10 +431,16 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         loss_to_parts.append(np.full(nb, q_degr0 + bi, dtype=np.int64))
         centres = np.cumsum(w) - w / 2
         grids.append(BarrierGrid(b.id, start, stop, w, centres, lay_idx, interfaces, n_link, n_link + nb))
+        faces[p_from].append(n_link)
+        faces[p_to].append(n_link + nb)
         n_link += nb + 1
     for e in scenario.exchanges:
         p, q = comp_index[e.from_id], comp_index[e.to_id]
         link_blocks.append(np.array([[p, q, e.flow, e.flow, e.flow, e.flow, -1, -1]], dtype=np.float64))
+    for i, c in enumerate(comps):
+        if own_loss[i] and c.clearance:  # clearance as a loss link: CL C = CL K u
+            link_blocks.append(np.array([[i, i, c.clearance * c.partition, 0.0, 0.0, 0.0, q_elim0 + i, -1]],
+                                        dtype=np.float64))
     lk = np.concatenate(link_blocks) if link_blocks else np.zeros((0, 8))
 
     mm = [(i, c.vmax, c.km) for i, c in enumerate(comps) if c.vmax]
@@ -329,6 +448,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
 
     y0 = np.zeros(n_state)
     y0[:n_comp] = [c.starting_concentration for c in comps]
+    for (bi, start, stop, _, lay_idx, _) in grids_tmp:  # loaded layers
+        y0[start:stop] = np.array([x.initial_concentration for x in bars[bi].layers], dtype=np.float64)[lay_idx]
     m_ref = np.array(_mass_scale(scenario), dtype=np.float64)  # per compartment: its part's bound
     cap = np.concatenate(cap_parts)
     inv_k = np.concatenate(invk_parts)
@@ -349,7 +470,17 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     scale[q_degr0:q_perm0] = bar_ref
     scale[q_perm0:q_supply0] = bar_ref
     scale[q_supply0:q_supply0 + n_comp] = m_ref
-    scale[q_supply0 + n_comp:] = m_ref
+    for k in (1, 2, 3):  # infused, lost, sampled
+        scale[q_supply0 + k * n_comp:q_supply0 + (k + 1) * n_comp] = m_ref
+    for (_, start, stop, _, _, _) in grids_tmp:  # a loaded layer: at least its own concentration
+        scale[start:stop] = np.maximum(scale[start:stop], y0[start:stop])
+    limited = limited_compartments(scenario)
+    sol = scenario.substance.solubility
+    for i, c in enumerate(comps):  # a saturated reservoir: its potential C/K is the solubility
+        if c.held and c.id in limited:
+            inv_k[i] = sol / c.held_concentration
+    face_ptr = np.zeros(n_comp + 1, dtype=np.int64)
+    face_ptr[1:] = np.cumsum([len(f) for f in faces])
 
     return CompiledModel(
         n_comp=n_comp, n_cells=n_cells, n_bar=n_bar,
@@ -370,4 +501,9 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         grids=tuple(grids), has_volume=np.array([c.volume is not None for c in comps], dtype=np.bool_),
         area=np.array([b.area for b in bars], dtype=np.float64),
         comp_index=comp_index, barrier_index={b.id: i for i, b in enumerate(bars)},
+        face_ptr=face_ptr, face_link=np.array([j for f in faces for j in f], dtype=np.int64),
+        evap_rate=np.array([c.evaporation_rate or 0.0 for c in comps], dtype=np.float64),
+        residual=np.array([c.residual_volume or 0.0 for c in comps], dtype=np.float64),
+        solubility=np.array([sol * c.partition if c.id in limited else np.inf for c in comps], dtype=np.float64),
+        shrinking=shrinking,
     )

@@ -32,6 +32,7 @@ rounding, which is why those are preferred whenever they apply.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 
@@ -42,7 +43,7 @@ from ..errors import ScenarioError
 from .compiled import CompiledModel
 from .exact_chain import _phi1, _phi2, chain_order, chain_schedule
 from .kernels import jacobian_coo, jacobian_size, rates
-from .rosenbrock import apply_events, encode_events, rows_until
+from .rosenbrock import apply_events, encode_events, event_context, refuse_vehicle_terms, rows_until
 
 __all__ = ["ExactIntegrator", "exact_supported", "phi1", "phi2"]
 
@@ -436,12 +437,14 @@ class ExactIntegrator:
             If the model is not linear (saturable elimination), or ``method="modes"`` is asked of a
             network with one-way transfers.
         """
+        refuse_vehicle_terms(model, self.name)
         if not model.is_linear:
             raise ScenarioError.single("integrator", "'exact'",
                                        "needs a linear model; saturable elimination (vmax, km) makes it nonlinear")
         m = model
         marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
         ev = encode_events(events)
+        margs, ctx = event_context(m, len(events))
         n_t, nc = len(times), m.n_comp
         order = chain_order(m) if self.method in ("auto", "chain") else None
         if order is None and self.method == "chain":
@@ -454,9 +457,9 @@ class ExactIntegrator:
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
             n_jac = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
-            code = chain_schedule(marks, times, *ev, m.held, _margs(m), m.q_supply, m.q_infused, order,
+            code = chain_schedule(marks, times, *ev, m.held, margs, m.q_supply, m.q_infused, order,
                                   _FAST / _shortest_time(times, marks), n_jac, m.y0.copy(), states, ev_dosed,
-                                  ev_removed, st)
+                                  ev_removed, st, ctx)
             stats.steps += int(st[0])
             stats.rhs_evaluations += int(st[2])
             stats.jacobian_evaluations += int(st[3])
@@ -465,10 +468,10 @@ class ExactIntegrator:
             if code != 0:
                 return (states[:0], ev_dosed[:0], ev_removed[:0], -1,
                         "the exact path does not apply: the network's modes are too ill-conditioned to separate "
-                        "(time scales too far apart within one connected part)")
+                        "(time scales too far apart within one connected part)", ctx[7])
             if progress is not None:
                 progress(1.0)
-            return states, ev_dosed, ev_removed, 0, "the run finished"
+            return states, ev_dosed, ev_removed, 0, "the run finished", ctx[7]
         use_modes = self.method in ("auto", "modes") and structurally_symmetric(m)
         if self.method == "modes" and not use_modes:
             raise ScenarioError.single("integrator method", "'modes'",
@@ -478,7 +481,7 @@ class ExactIntegrator:
         if rho * longest > STIFFNESS_LIMIT:
             return (np.empty((0, m.n_state)), np.empty((0, nc)), np.empty((0, nc)), -1,
                     f"the exact path does not apply: the network is too stiff for it (rates up to {rho:.3g} 1/h "
-                    f"over dosing intervals of up to {longest:.3g} h)")
+                    f"over dosing intervals of up to {longest:.3g} h)", ctx[7])
         states = np.empty((n_t, m.n_state))
         ev_dosed = np.empty((n_t, nc))
         ev_removed = np.empty((n_t, nc))
@@ -495,15 +498,22 @@ class ExactIntegrator:
         inert[m.tr_from] = False
         inert[m.loss_rate != 0.0] = False
         jac: dict[bytes, np.ndarray] = {}
+        linked: dict[bytes, CompiledModel] = {ctx[6].tobytes(): m}  # the model with the faces as they are
         row, ei = 0, 0
         n_int = len(marks) - 1
         tau_min = _shortest_time(times, marks)
+        full = m
         for k in range(n_int):
             t0, t1 = marks[k], marks[k + 1]
-            ei = int(apply_events(t0, ei, *ev, y, m.capacity, m.held, infusion, clamp, holds, dosed, removed))
+            ei = int(apply_events(t0, ei, *ev, y, margs, m.held, infusion, clamp, holds, dosed, removed, ctx))
             end = int(rows_until(times, row, t1, k == n_int - 1))
             tau = times[row:end] - t0
-            key = clamp.tobytes()
+            faces = ctx[6].tobytes()
+            if faces not in linked:
+                linked[faces] = dataclasses.replace(full, link_a=margs[6].copy(), link_b=margs[7].copy(),
+                                                    link_c=margs[8].copy(), link_d=margs[9].copy())
+            m = linked[faces]
+            key = clamp.tobytes() + faces
             if key not in jac:
                 jac[key] = _jacobian(m, clamp)
                 stats.jacobian_evaluations += 1
@@ -518,7 +528,7 @@ class ExactIntegrator:
                 if md is None:
                     return (states[:row], ev_dosed[:row], ev_removed[:row], -1,
                             "the exact path does not apply: the network's modes are too ill-conditioned to "
-                            "separate (time scales too far apart within one connected part)")
+                            "separate (time scales too far apart within one connected part)", ctx[7])
             if md is not None:
                 want = np.append(tau, t1 - t0)
                 t_min = want[want > 0.0].min()
@@ -550,7 +560,7 @@ class ExactIntegrator:
             row = end
             if progress is not None:
                 progress(float(t1) / duration if duration > 0 else 1.0)
-        return states, ev_dosed, ev_removed, 0, "the run finished"
+        return states, ev_dosed, ev_removed, 0, "the run finished", ctx[7]
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)

@@ -706,16 +706,17 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
 # ---------------------------------------------------------------- the whole regimen
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, q_supply, q_infused, order, cut,
-                   n_jac, y, states, ev_dosed, ev_removed, stats):
+                   n_jac, y, states, ev_dosed, ev_removed, stats, ctx):
     """Run the regimen exactly on a chain network; returns a status code (0 when done).
 
-    The event rules are those of :func:`~barrierflow.engine.rosenbrock.apply_events`; the states
-    at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``.
-    ``stats`` counts [steps, rejected, rhs evaluations, Jacobians, decompositions, intervals].
+    The event rules are those of :func:`~barrierflow.engine.rosenbrock.apply_events` (``margs``
+    and ``ctx`` as :func:`~barrierflow.engine.rosenbrock.event_context` makes them: a closed face
+    changes the links, and the modes are computed again); the states at the output rows
+    ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``. ``stats`` counts
+    [steps, rejected, rhs evaluations, Jacobians, decompositions, intervals].
     """
     nc = margs[0]
     nd = margs[1]
-    cap = margs[2]
     n_state = y.shape[0]
     n_ord = order.shape[0]
     idx = np.zeros(max(n_ord, 1), dtype=np.int64)
@@ -739,6 +740,8 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
     infusion = np.zeros(nc)
     clamp = held.copy()
     last_clamp = held.copy()
+    closed = ctx[6]
+    last_closed = closed.copy()
     holds = np.zeros(nc, dtype=np.int64)
     dosed = np.zeros(nc)
     removed = np.zeros(nc)
@@ -757,11 +760,11 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
     for k in range(n_marks - 1):
         t0 = marks[k]
         t1 = marks[k + 1]
-        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
-                          removed)
+        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, margs, held, infusion, clamp, holds, dosed,
+                          removed, ctx)
         changed = not have
         for p in range(nc):
-            if clamp[p] != last_clamp[p]:
+            if clamp[p] != last_clamp[p] or closed[p] != last_closed[p]:
                 changed = True
         if changed:
             n = _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
@@ -780,6 +783,7 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
                     nq += 1
             for p in range(nc):
                 last_clamp[p] = clamp[p]
+                last_closed[p] = closed[p]
             have = True
             stats[3] += 1
             stats[4] += 1

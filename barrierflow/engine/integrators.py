@@ -77,6 +77,10 @@ class ScipyIntegrator:
                   stats: RunStats) -> np.ndarray:
         """Advance ``y0`` from local time 0 to ``t_end`` (h); return the states at ``t_out``.
 
+        A problem with ``enter`` and ``leave`` (:class:`~barrierflow.engine.vehicle.VehicleProblem`)
+        is integrated on its internal states: ``enter(y0)`` at the start, ``leave(w, t)`` at each
+        output.
+
         Raises
         ------
         SolverError
@@ -89,19 +93,22 @@ class ScipyIntegrator:
             i += 1
         if t_end <= 0 or i == len(t_out) and t_end <= 0:
             return out
+        enter = getattr(problem, "enter", None)
+        leave = getattr(problem, "leave", lambda w, t: w)
+        scale = problem.model.scale if enter is None else enter(problem.model.scale)
+        start = y0 if enter is None else enter(y0)
         if t_end < 1e-150:  # one explicit step (see rosenbrock.TINY_INTERVAL)
-            f = problem.fun(0.0, y0)
+            f = problem.fun(0.0, start)
             while i < len(t_out):
-                out[i] = y0 + t_out[i] * f
+                out[i] = leave(start + t_out[i] * f, t_out[i])
                 i += 1
             return out
-        scale = problem.model.scale
         atol = self.atol * scale
         jac = problem.jac_dense if self.method == "LSODA" else problem.jac
         import scipy.integrate
 
         solver = getattr(scipy.integrate, self.method)(
-            problem.fun, 0.0, y0, t_end, rtol=self.rtol, atol=atol, jac=jac, max_step=self.max_step,
+            problem.fun, 0.0, start, t_end, rtol=self.rtol, atol=atol, jac=jac, max_step=self.max_step,
             first_step=min(t_end, 1e-6 * max(t_end, 1.0)))
         while solver.status == "running":
             msg = solver.step()
@@ -112,10 +119,10 @@ class ScipyIntegrator:
             if i < len(t_out) and t_out[i] <= t_now:
                 dense = solver.dense_output()
                 while i < len(t_out) and t_out[i] <= t_now:
-                    out[i] = dense(t_out[i]) if t_out[i] < t_now else solver.y
+                    out[i] = leave(dense(t_out[i]) if t_out[i] < t_now else solver.y, t_out[i])
                     i += 1
         while i < len(t_out):
-            out[i] = solver.y
+            out[i] = leave(solver.y, t_out[i])
             i += 1
         stats.rhs_evaluations += solver.nfev
         stats.jacobian_evaluations += solver.njev
@@ -125,7 +132,9 @@ class ScipyIntegrator:
 
 @dataclass(frozen=True)
 class AutoIntegrator:
-    """The engine's choice: the exact solution for a linear model, compiled RODAS4 otherwise.
+    """The engine's choice: the exact solution for a linear model, compiled RODAS4 otherwise, and
+    scipy's Radau (:data:`VEHICLE`) for a model with vehicle terms (evaporation, solubility limits,
+    samples without replacement).
 
     Parameters
     ----------
@@ -143,12 +152,20 @@ class AutoIntegrator:
         from .exact import ExactIntegrator, exact_supported
         from .rosenbrock import RosenbrockIntegrator
 
+        if model.vehicle_terms:
+            return VEHICLE
         if exact_supported(model, longest):
             exact = ExactIntegrator()
             if working_memory(exact, model) <= EXACT_MEMORY:
                 return exact
         return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
 
+
+VEHICLE = ScipyIntegrator("Radau", rtol=1e-7, atol=1e-10)
+"""What the default runs a model with vehicle terms on (evaporation, solubility limits, samples
+without replacement; see :mod:`barrierflow.engine.vehicle`): only the scipy integrators take
+them. Radau (order 5, L-stable) steps over the kink where solid appears or dissolves with few
+rejected steps."""
 
 EXACT_MEMORY = 256 * 1024**2
 """The default takes an exact path only when its working arrays fit in this many bytes (larger

@@ -2,11 +2,14 @@
 
 The ledger (the mass balance) reads, at every output time::
 
-    initial + dosed + held_supply = present + eliminated + degraded + removed
+    initial + dosed + held_supply = present + eliminated + degraded + removed + sampled + lost
 
-``dosed`` holds what events added (boluses, refills, hold starts), what infusions gave and what
-hold doses supplied to keep their level; ``held_supply`` is what permanently held compartments
-gave (negative when a sink took substance). Every path integrates the cumulative amounts with
+``initial`` is what the compartments and loaded layers held at time 0; ``dosed`` holds what
+events added (boluses, refills, hold starts), what infusions gave and what hold doses supplied to
+keep their level; ``held_supply`` is what permanently held compartments gave (negative when a
+sink took substance, the "net held exchange" of the contract); ``present`` counts dissolved and
+undissolved solute, at each compartment's volume of the moment; ``sampled`` is what samples
+withdrew and ``lost`` what went to the air. Every path integrates the cumulative amounts with
 the states, so the ledger closes to round-off when the solution is right; a ledger that does not
 close, a non-finite value or a concentration below zero beyond round-off shows a wrong solution.
 
@@ -41,7 +44,7 @@ class Ledger:
     Attributes
     ----------
     initial : float, mg
-    dosed, held_supply, present, eliminated, degraded, removed : ndarray, mg
+    dosed, held_supply, present, eliminated, degraded, removed, sampled, lost : ndarray, mg
     """
 
     initial: float
@@ -51,19 +54,21 @@ class Ledger:
     eliminated: np.ndarray
     degraded: np.ndarray
     removed: np.ndarray
+    sampled: np.ndarray | float = 0.0
+    lost: np.ndarray | float = 0.0
 
     @property
     def absolute_errors(self) -> np.ndarray:
         """|left - right| at each row, mg (NaN where a term is not finite)."""
         left = self.initial + self.dosed + self.held_supply
-        right = self.present + self.eliminated + self.degraded + self.removed
+        right = self.present + self.eliminated + self.degraded + self.removed + self.sampled + self.lost
         return np.abs(left - right)
 
     @property
     def throughput(self) -> float:
         """The largest amount that entered the ledger on either side, mg (the error's yardstick)."""
         left = np.abs(self.initial + self.dosed) + np.abs(self.held_supply)
-        right = self.present + self.eliminated + self.degraded + self.removed
+        right = self.present + self.eliminated + self.degraded + self.removed + self.sampled + self.lost
         with np.errstate(invalid="ignore"):
             big = max(float(np.nanmax(left, initial=0.0)), float(np.nanmax(right, initial=0.0)))
         return max(big, 1e-300)
@@ -83,7 +88,8 @@ class Ledger:
 
 
 def ledger_rows(model: CompiledModel, comp_conc: np.ndarray, cell_amount: np.ndarray, quad: np.ndarray,
-                event_dosed: np.ndarray, event_removed: np.ndarray, initial: float) -> Ledger:
+                event_dosed: np.ndarray, event_removed: np.ndarray, initial: float,
+                volumes: np.ndarray | None = None) -> Ledger:
     """The ledger from the per-row pieces a run keeps (also those of a population subject).
 
     Parameters
@@ -96,14 +102,20 @@ def ledger_rows(model: CompiledModel, comp_conc: np.ndarray, cell_amount: np.nda
         The cumulative amounts, in the layout of the compiled model.
     event_dosed, event_removed : ndarray (n_t, n_comp), mg
     initial : float, mg
+    volumes : ndarray (n_t, n_comp) or None, mL
+        The compartments' volumes at each row where they change (a trajectory's ``volumes``).
     """
     m = model
     w, vol = _weights(m)
-    terms = quad @ w  # (n_t, 4): dosed by infusions and holds, held supply, eliminated, degraded
+    terms = quad @ w  # (n_t, 6): dosed by infusions and holds, held supply, eliminated, degraded, lost, sampled
+    if volumes is None:
+        present = comp_conc @ vol
+    else:
+        present = np.einsum("ij,ij->i", comp_conc, np.where(m.has_volume, volumes, 0.0))
     return Ledger(
         initial=float(initial), dosed=event_dosed.sum(axis=1) + terms[:, 0], held_supply=terms[:, 1],
-        present=comp_conc @ vol + cell_amount, eliminated=terms[:, 2], degraded=terms[:, 3],
-        removed=event_removed.sum(axis=1))
+        present=present + cell_amount, eliminated=terms[:, 2], degraded=terms[:, 3],
+        removed=event_removed.sum(axis=1), sampled=terms[:, 5], lost=terms[:, 4])
 
 
 def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
@@ -114,24 +126,26 @@ def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
         return memo
     m = model
     nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
-    w = np.zeros((m.n_state - nd, 4))
+    w = np.zeros((m.n_state - nd, 6))
     held = m.held
     w[m.q_infused - nd:m.q_infused - nd + nc, 0] = 1.0
     w[m.q_supply - nd:m.q_supply - nd + nc, 0] = np.where(held, 0.0, 1.0)
     w[m.q_supply - nd:m.q_supply - nd + nc, 1] = np.where(held, 1.0, 0.0)
     w[:nc, 2] = 1.0
     w[nc:nc + nb, 3] = 1.0
+    w[m.q_lost - nd:m.q_lost - nd + nc, 4] = 1.0
+    w[m.q_sampled - nd:m.q_sampled - nd + nc, 5] = 1.0
     out = (w, np.where(m.has_volume, m.capacity[:nc], 0.0))
     model.__dict__["_ledger_weights"] = out
     return out
 
 
 def ledger(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
-           initial: float) -> Ledger:
-    """The ledger of a run's full states (n_t, n_state)."""
+           initial: float, volumes: np.ndarray | None = None) -> Ledger:
+    """The ledger of a run's full states (n_t, n_state); ``volumes`` as in :func:`ledger_rows`."""
     nc, nd = model.n_comp, model.n_dyn
     cells = states[:, nc:nd] @ model.capacity[nc:nd]
-    return ledger_rows(model, states[:, :nc], cells, states[:, nd:], event_dosed, event_removed, initial)
+    return ledger_rows(model, states[:, :nc], cells, states[:, nd:], event_dosed, event_removed, initial, volumes)
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True, fastmath={"reassoc", "nsz", "arcp", "contract"})
@@ -163,20 +177,20 @@ def _scan(states, nc, nd, cap, inv_scale):
 
 
 def check(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
-          initial: float) -> list[str]:
+          initial: float, volumes: np.ndarray | None = None) -> list[str]:
     """What is wrong with a computed run, in words (an empty list when nothing is).
 
     A run fails when a value is not finite, when its mass balance is off by more than
     :data:`MASS_BALANCE_LIMIT` (relative), or when a concentration lies below zero by more than
     :data:`NEGATIVE_LIMIT` of its state's magnitude scale. Each finding names the part of the
-    network where it is worst.
+    network where it is worst. ``volumes``: the compartments' volumes at each row where they change.
     """
     m = model
     if states.size == 0:
         return []
     nc, nd = m.n_comp, m.n_dyn
     all_finite, low, cells = _scan(np.ascontiguousarray(states), nc, nd, m.capacity, 1.0 / m.scale)
-    led = ledger_rows(m, states[:, :nc], cells, states[:, nd:], event_dosed, event_removed, initial)
+    led = ledger_rows(m, states[:, :nc], cells, states[:, nd:], event_dosed, event_removed, initial, volumes)
     found = verdict(led if all_finite else None, float(low), bool(all_finite))
     # name where each finding is worst
     named = []
@@ -189,7 +203,7 @@ def check(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, eve
             row, col = np.unravel_index(int(np.argmin(rel)), rel.shape)
             f += f" ({states[row, col]:.3g} mg/mL) in {describe_state(m, int(col))}"
         else:
-            worst = _worst_part(m, states, event_dosed, event_removed, initial)
+            worst = _worst_part(m, states, event_dosed, event_removed, initial, volumes)
             f += f", worst in {worst}" if worst else ""
         named.append(f)
     return named
@@ -231,7 +245,9 @@ def describe_state(model: CompiledModel, i: int) -> str:
         return f"what barrier '{m.barrier_ids[q - nc]}' degraded"
     if q < nc + 2 * nb:
         return f"what barrier '{m.barrier_ids[q - nc - nb]}' passed"
-    return f"the supply of compartment '{m.comp_ids[(q - nc - 2 * nb) % nc]}'"
+    what = ("the supply of", "what was infused into", "what went to the air from", "what samples took from")
+    k = (q - nc - 2 * nb) // nc
+    return f"{what[min(k, 3)]} compartment '{m.comp_ids[(q - nc - 2 * nb) % nc]}'"
 
 
 def parts(model: CompiledModel) -> np.ndarray:
@@ -255,7 +271,7 @@ def parts(model: CompiledModel) -> np.ndarray:
 
 
 def _worst_part(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarray, event_removed: np.ndarray,
-                initial: float) -> str:
+                initial: float, volumes: np.ndarray | None = None) -> str:
     """The connected part of the network whose own ledger is furthest off, named by its members."""
     m = model
     nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
@@ -263,6 +279,8 @@ def _worst_part(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarra
     comp_part = label[:nc]
     bar_part = np.array([label[int(m.link_p[g.in_link])] for g in m.grids], dtype=np.int64)
     amount = states[:, :nd] * m.capacity[:nd]
+    if volumes is not None:
+        amount[:, :nc] = states[:, :nc] * volumes
     amount[:, :nc] = np.where(m.has_volume, amount[:, :nc], 0.0)
     y0 = m.y0[:nd] * m.capacity[:nd]
     y0[:nc] = np.where(m.has_volume, y0[:nc], 0.0)
@@ -276,7 +294,8 @@ def _worst_part(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarra
         supplied = q[:, m.q_supply - nd:][:, :nc][:, cs].sum(axis=1)
         left = y0[label == p].sum() + event_dosed[:, cs].sum(axis=1) + infused + supplied
         right = (present + q[:, :nc][:, cs].sum(axis=1) + q[:, nc:nc + nb][:, bs].sum(axis=1)
-                 + event_removed[:, cs].sum(axis=1))
+                 + event_removed[:, cs].sum(axis=1) + q[:, m.q_lost - nd:][:, :nc][:, cs].sum(axis=1)
+                 + q[:, m.q_sampled - nd:][:, :nc][:, cs].sum(axis=1))
         scale = max(float(np.max(np.abs(left))), float(np.max(np.abs(right))), 1e-300)
         err = float(np.max(np.abs(left - right))) / scale
         if err > best_err:

@@ -50,8 +50,8 @@ from .rosenbrock import (
     encode_events,
     run_marks,
 )
-from .schedule import build_schedule
-from .solve import _present, _snap, solve
+from .schedule import build_schedule, closed_rows
+from .solve import _present, _snap, apply_event, solve
 
 __all__ = ["Population", "sample_scenarios", "simulate_many", "simulate_population"]
 
@@ -168,6 +168,7 @@ class Population:
     _n_comp: int = 0
     _n_bar: int = 0
     scenario: Scenario | None = field(default=None, repr=False)
+    _solubility: np.ndarray | None = field(default=None, repr=False)  # (n_comp,) mg/mL, inf: no limit
 
     @property
     def n_subjects(self) -> int:
@@ -186,14 +187,39 @@ class Population:
         except ValueError:
             raise KeyError(f"no barrier {bid!r}; known: {', '.join(self.barrier_ids)}") from None
 
+    def _limit(self, i: int) -> float:
+        return float(self._solubility[i]) if self._solubility is not None else np.inf
+
     def concentration(self, cid: str) -> np.ndarray:
-        """Concentration in ``cid``, mg/mL, (n_subjects, n_t), clipped at 0."""
-        return np.maximum(self._conc[:, :, self._c(cid)], 0.0)
+        """Concentration in ``cid``, mg/mL, (n_subjects, n_t), clipped at 0 (the dissolved part of a
+        held, saturated reservoir)."""
+        i = self._c(cid)
+        return np.maximum(np.minimum(self._conc[:, :, i], self._limit(i)), 0.0)
 
     def amount(self, cid: str) -> np.ndarray:
-        """Amount in ``cid``, mg (NaN for a held compartment without volume)."""
+        """Amount in ``cid``, dissolved and solid, mg (NaN for a held compartment without volume)."""
         i = self._c(cid)
-        return self.concentration(cid) * self._volume[:, i][:, None]
+        return np.maximum(self._conc[:, :, i], 0.0) * self._volume[:, i][:, None]
+
+    def volume(self, cid: str) -> np.ndarray:
+        """Volume of ``cid``, mL (populations run only models whose volumes stay)."""
+        i = self._c(cid)
+        return np.broadcast_to(self._volume[:, i][:, None], self._conc.shape[:2]).copy()
+
+    def solid(self, cid: str) -> np.ndarray:
+        """Undissolved amount in ``cid``, mg (a held reservoir above the solubility)."""
+        i = self._c(cid)
+        return np.nan_to_num(np.maximum(self._conc[:, :, i] - self._limit(i), 0.0) * self._volume[:, i][:, None])
+
+    def sampled(self, cid: str) -> np.ndarray:
+        """Cumulative amount withdrawn from ``cid`` by samples, mg."""
+        nc, nb = self._n_comp, self._n_bar
+        return self._quad[:, :, 4 * nc + 2 * nb + self._c(cid)].copy()
+
+    def lost(self, cid: str) -> np.ndarray:
+        """Cumulative amount lost from ``cid`` to the air, mg."""
+        nc, nb = self._n_comp, self._n_bar
+        return self._quad[:, :, 3 * nc + 2 * nb + self._c(cid)].copy()
 
     def eliminated(self, cid: str) -> np.ndarray:
         """Cumulative amount eliminated from ``cid``, mg."""
@@ -233,7 +259,8 @@ class Population:
 def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                     lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, gch, olinks, lossy,
                     inv_cap, y0, q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, keep,
-                    scale, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k, stats):
+                    scale, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k, stats,
+                    face_ptr, face_link, la0, lb0, lc0, ld0):
     n_sub = y0.shape[0]
     n = y0.shape[1]
     n_t = times.shape[0]
@@ -256,9 +283,11 @@ def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc,
         removed = np.zeros(nc)
         ptr = np.zeros(2, dtype=np.int64)
         st = np.zeros(6, dtype=np.int64)
+        ctx = (face_ptr, face_link, la0[i], lb0[i], lc0[i], ld0[i], np.zeros(nc, dtype=np.bool_),
+               np.zeros(ev_time.shape[0]))
         code, k = run_marks(0, n_int, marks, times, ev_time, ev_kind, ev_comp, ev_value[i], held, margs, cargs,
                             q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol[i], max_steps, hold, y,
-                            infusion, clamp, holds, dosed, removed, ptr, states, evd, evr, st)
+                            infusion, clamp, holds, dosed, removed, ptr, states, evd, evr, st, ctx)
         status[i] = code
         fail_k[i] = k
         for j in range(6):
@@ -271,7 +300,7 @@ def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc,
 def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
                           lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, y0, q_supply,
                           q_infused, order, cut, n_jac, keep, scale, out, out_dosed, out_removed, cell_amount,
-                          cell_bar, content, low, status, stats):
+                          cell_bar, content, low, status, stats, face_ptr, face_link, la0, lb0, lc0, ld0):
     n_sub = y0.shape[0]
     n = y0.shape[1]
     n_t = times.shape[0]
@@ -282,8 +311,10 @@ def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, hel
         evd = np.zeros((n_t, nc))
         evr = np.zeros((n_t, nc))
         st = np.zeros(6, dtype=np.int64)
+        ctx = (face_ptr, face_link, la0[i], lb0[i], lc0[i], ld0[i], np.zeros(nc, dtype=np.bool_),
+               np.zeros(ev_time.shape[0]))
         status[i] = chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value[i], held, margs, q_supply,
-                                   q_infused, order, cut, n_jac, y0[i].copy(), states, evd, evr, st)
+                                   q_infused, order, cut, n_jac, y0[i].copy(), states, evd, evr, st, ctx)
         for j in range(6):
             stats[i, j] = st[j]
         _keep_rows(states, evd, evr, keep, nc, nd, cap[i], scale[i], out[i], out_dosed[i], out_removed[i],
@@ -351,6 +382,23 @@ def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, i
             edges = np.array([0.0, *sorted(faces), 1.0])
             out[(bi, li)] = np.diff(edges)
     return out
+def _apply_at_end_kept(models, schedules, duration: float, keep: np.ndarray, status: np.ndarray, out: np.ndarray,
+                       out_dosed: np.ndarray, out_removed: np.ndarray) -> None:
+    """Apply each finished subject's events at the very end of the run to its last row (its
+    after-state), as a single run does; the events touch only kept states (compartments and
+    cumulative amounts)."""
+    for i, (m, sch) in enumerate(zip(models, schedules, strict=True)):
+        at_end = [e for e in sch if e.time >= duration]
+        if not at_end or status[i] != OK or not out.shape[1]:
+            continue
+        y = np.zeros(m.n_state)
+        y[keep] = out[i, -1]
+        dosed, removed = out_dosed[i, -1].copy(), out_removed[i, -1].copy()
+        clamp, holds, infusion = m.held.copy(), np.zeros(m.n_comp, dtype=np.int64), np.zeros(m.n_comp)
+        for e in at_end:
+            apply_event(e, m, y, dosed, removed, clamp, holds, infusion)
+        out[i, -1] = y[keep]
+        out_dosed[i, -1], out_removed[i, -1] = dosed, removed
 
 
 def _same_structure(models: Sequence[CompiledModel], schedules, grids_times) -> None:
@@ -408,6 +456,11 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
     shared = _shared_grid(scenarios, grid)
     models = [compile_scenario(s, grid, shared) for s in scenarios]
     m0 = models[0]
+    if m0.vehicle_terms:
+        raise ScenarioError.single(
+            "population", "a volume that changes with time, or undissolved solid",
+            "populations run on the compiled paths, which do not run evaporation, solubility limits or samples "
+            "without replacement; simulate the subjects one by one with barrierflow.simulate")
     order = chain_order(m0) if not isinstance(integrator, RosenbrockIntegrator) else None
     if order is None and isinstance(integrator, ExactIntegrator):
         raise ScenarioError.single("population integrator", "'exact'",
@@ -445,6 +498,8 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
     fail_k = np.zeros(n_sub, dtype=np.int64)
     stats = np.zeros((n_sub, 6), dtype=np.int64)
     n_jac = jacobian_size(len(m0.link_p), nd, len(m0.mm_state), len(m0.tr_from))
+    # the faces a remove that ends contact closes: the originals stay in these stacks, the runs change copies
+    faces = (m0.face_ptr, m0.face_link, stack("link_a"), stack("link_b"), stack("link_c"), stack("link_d"))
     common = (marks, times, ev_t, ev_k, ev_c, ev_v, m0.held, nc, nd, stack("capacity"), stack("inv_partition"),
               m0.link_p, m0.link_q, stack("link_a"), stack("link_b"), stack("link_c"), stack("link_d"), m0.link_loss,
               m0.link_track, stack("loss_rate"), m0.loss_to, m0.mm_state, stack("mm_vmax"), stack("mm_km"),
@@ -457,7 +512,7 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
             name = "exact (population)"
             _run_population_exact(*common, stack("y0"), m0.q_supply, m0.q_infused, order,
                                   -60.0 / _shortest_time(times, marks), n_jac, keep, scale, out, out_dosed,
-                                  out_removed, cell_amount, cell_bar, content, low, status, stats)
+                                  out_removed, cell_amount, cell_bar, content, low, status, stats, *faces)
         else:
             name = f"{integ.name} (population)"
             struct = build_structure(m0)
@@ -466,9 +521,10 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
                             np.stack([c[3] for c in chains]), stack("y0"), m0.q_supply, m0.q_infused, struct.args(),
                             COEF, struct.n_w, n_jac, float(integ.rtol), integ.atol * stack("scale"), integ.max_steps,
                             float(integ.hold), keep, scale, out, out_dosed, out_removed, cell_amount, cell_bar, content,
-                            low, status, fail_k, stats)
+                            low, status, fail_k, stats, *faces)
     finally:
         numba.set_num_threads(old_threads)
+    _apply_at_end_kept(models, schedules, s0.duration, keep, status, out, out_dosed, out_removed)
     messages = []
     st = np.where(status == OK, 0, -1)
     for i in range(n_sub):
@@ -506,6 +562,8 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         st[i] = 0
         messages.append(f"{note}; computed again on its own with {tr.integrator}")
     # flux into the 'to' compartment of each barrier: c u_p - d u_q over the out link, per area
+    # (none while a remove that ends contact has closed the face)
+    closed = closed_rows(schedules[0], times, nc)
     area = stack("area")
     flux = np.empty((n_sub, n_t, m0.n_bar))
     col = {int(s): j for j, s in enumerate(keep)}
@@ -518,13 +576,16 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         up = out[:, :, col[p]] * inv_k[:, p][:, None]
         uq = out[:, :, col[q]] * inv_k[:, q][:, None]
         flux[:, :, b] = (c * up - d * uq) / area[:, b][:, None]
+        for end in (p, q):
+            if end < nc and j in set(m0.face_link.tolist()):
+                flux[:, closed[:, end], b] = 0.0
     volume = np.where(stack("has_volume"), stack("capacity")[:, :nc], np.nan)
     return Population(
         times=times, comp_ids=m0.comp_ids, barrier_ids=m0.barrier_ids, factors=dict(factors or {}), status=st,
         messages=tuple(messages), steps=stats[:, ST_STEPS].copy(), integrator=name,
         wall_time=_time.perf_counter() - start, _conc=out[:, :, :nc], _quad=out[:, :, nc + len(out_cells):],
         _flux=flux, _area=area, _volume=volume, _dosed=out_dosed, _removed=out_removed, _content=content,
-        _n_comp=nc, _n_bar=m0.n_bar, scenario=s0)
+        _n_comp=nc, _n_bar=m0.n_bar, scenario=s0, _solubility=m0.solubility.copy())
 
 
 def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: int, seed: int = 0, *,

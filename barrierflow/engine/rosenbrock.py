@@ -50,7 +50,8 @@ from ..errors import ScenarioError
 from .compiled import CompiledModel
 from .kernels import INNER, jacobian_kernel, jacobian_size
 
-__all__ = ["RosenbrockIntegrator", "Structure", "build_structure", "encode_events", "model_args"]
+__all__ = ["RosenbrockIntegrator", "Structure", "build_structure", "event_context", "encode_events", "model_args",
+           "refuse_vehicle_terms"]
 
 # ---------------------------------------------------------------- RODAS4 coefficients
 # Hairer and Wanner (1996), sec. IV.7, method RODAS (METH = 1 of their code), in the
@@ -71,10 +72,13 @@ D21, D22, D23, D24, D25 = (10.12623508344586, -7.487995877610167, -34.8009186155
 D31, D32, D33, D34, D35 = (-0.6762803392801253, 6.087714651680015, 16.43084320892478, 24.76722511418386,
                            -6.594389125716872)
 
-# event kinds, as integers for the compiled loop
-EV_BOLUS, EV_REPLACE, EV_REMOVE, EV_HOLD_START, EV_HOLD_END, EV_INF_START, EV_INF_END = range(7)
+# event kinds, as integers for the compiled loop (a sample without replacement changes a volume,
+# which only the scipy path runs: it has no code here)
+EV_BOLUS, EV_REPLACE, EV_REMOVE, EV_HOLD_START, EV_HOLD_END, EV_INF_START, EV_INF_END, EV_SAMPLE, EV_CLOSE, \
+    EV_DRY = range(10)
 _KIND_CODE = {"bolus": EV_BOLUS, "replace": EV_REPLACE, "remove": EV_REMOVE, "hold_start": EV_HOLD_START,
-              "hold_end": EV_HOLD_END, "infusion_start": EV_INF_START, "infusion_end": EV_INF_END}
+              "hold_end": EV_HOLD_END, "infusion_start": EV_INF_START, "infusion_end": EV_INF_END,
+              "sample": EV_SAMPLE, "close": EV_CLOSE, "dry": EV_DRY}
 
 # a linear model's rates are evaluated afresh every REFRESH steps (see the module docstring)
 REFRESH = 8
@@ -208,6 +212,45 @@ def encode_events(events) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarra
     c = np.array([e.comp for e in events], dtype=np.int64).reshape(n)
     v = np.array([e.value for e in events], dtype=np.float64).reshape(n)
     return t, k, c, v
+
+
+def event_context(model: CompiledModel, n_events: int) -> tuple[tuple, tuple]:
+    """The link arrays a run may change, and what :func:`apply_events` needs besides the state.
+
+    Returns ``(margs, ctx)``: the model arrays of :func:`model_args` with copies of the link
+    coefficients (a remove that ends contact sets a compartment's face links to zero, a new
+    application restores them), and ``ctx = (face_ptr, face_link, la0, lb0, lc0, ld0, closed,
+    moved)``: the faces of each compartment, the original coefficients, which compartments are
+    closed, and what each event moved (mg), filled as the events apply.
+    """
+    m = model
+    margs = model_args(m)
+    margs = margs[:6] + (m.link_a.copy(), m.link_b.copy(), m.link_c.copy(), m.link_d.copy()) + margs[10:]
+    ctx = (m.face_ptr, m.face_link, m.link_a, m.link_b, m.link_c, m.link_d, np.zeros(m.n_comp, dtype=np.bool_),
+           np.zeros(n_events))
+    return margs, ctx
+
+
+def refuse_vehicle_terms(model: CompiledModel, name: str) -> None:
+    """Refuse, for integrator ``name``, a model whose volumes change or that holds solid.
+
+    Raises
+    ------
+    ScenarioError
+        Naming what the model holds and the integrators that run it.
+    """
+    if not model.vehicle_terms:
+        return
+    what = []
+    if np.any(model.evap_rate > 0):
+        what.append("an evaporating vehicle")
+    if np.any(model.shrinking):
+        what.append("samples without replacement")
+    if np.any(np.isfinite(model.solubility)):
+        what.append("a compartment that may exceed the solubility")
+    raise ScenarioError.single("integrator", repr(name),
+                               f"cannot run {' and '.join(what)} (a volume that changes with time, or undissolved "
+                               "solid); use auto, bdf, radau or lsoda")
 
 
 # ---------------------------------------------------------------- compiled right-hand side
@@ -941,14 +984,23 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python
-def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
-                 removed):
+def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, margs, held, infusion, clamp, holds, dosed,
+                 removed, ctx):
     """Apply every event from index ``ei`` with time <= ``t0``; returns the next event index.
 
     The rules are those of the event loop of :func:`barrierflow.engine.solve.solve`: a bolus adds
-    its amount; replace and remove count the content as removed (replace then refills); a hold
-    start sets the concentration and clamps it; an infusion adds its rate until its end.
+    its amount; replace and remove count the content as removed (replace then refills; a remove
+    takes its fraction); a hold start sets the concentration and clamps it; an infusion adds its
+    rate until its end; a sample takes its aliquot at the concentration (booked as sampled, the
+    last block of the state) and fresh medium keeps the volume; a close sets the compartment's
+    barrier faces to no flux, which a new application (bolus, refill, hold, infusion) restores.
+    ``margs`` holds the link coefficients the run may change, ``ctx`` what
+    :func:`event_context` makes; ``ctx[7]`` receives what each event moved (mg).
     """
+    face_ptr, face_link, la0, lb0, lc0, ld0, closed, moved = ctx
+    nc = margs[0]
+    cap = margs[2]
+    n = y.shape[0]
     n_ev = ev_time.shape[0]
     while ei < n_ev and ev_time[ei] <= t0:
         p = ev_comp[ei]
@@ -957,13 +1009,22 @@ def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infu
         if kind == EV_BOLUS:
             y[p] += v / cap[p]
             dosed[p] += v
+            moved[ei] = v
         elif kind == EV_REPLACE:
             removed[p] += cap[p] * y[p]
             y[p] = v
             dosed[p] += cap[p] * v
+            moved[ei] = cap[p] * v
         elif kind == EV_REMOVE:
-            removed[p] += cap[p] * y[p]
-            y[p] = 0.0
+            take = v * cap[p] * y[p]
+            removed[p] += take
+            y[p] = 0.0 if v >= 1.0 else y[p] * (1.0 - v)
+            moved[ei] = take
+        elif kind == EV_SAMPLE:
+            take = v * y[p]
+            y[p] -= take / cap[p]
+            y[n - nc + p] += take
+            moved[ei] = take
         elif kind == EV_HOLD_START:
             dosed[p] += cap[p] * (v - y[p])
             y[p] = v
@@ -978,8 +1039,33 @@ def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infu
             infusion[p] -= v
             if abs(infusion[p]) < 1e-12 * v:
                 infusion[p] = 0.0
+        if kind == EV_CLOSE or (closed[p] and (kind == EV_BOLUS or kind == EV_REPLACE or kind == EV_HOLD_START
+                                               or kind == EV_INF_START)):
+            closed[p] = kind == EV_CLOSE
+            _contact(p, margs, face_ptr, face_link, la0, lb0, lc0, ld0, closed)
         ei += 1
     return ei
+
+
+@njit(**INNER)
+def _contact(p, margs, face_ptr, face_link, la0, lb0, lc0, ld0, closed):
+    """Set the barrier faces of compartment ``p``: no flux while it (or the compartment at the
+    other end of a steady barrier) is closed, the original coefficients otherwise."""
+    nc = margs[0]
+    lp = margs[4]
+    lq = margs[5]
+    la = margs[6]
+    lb = margs[7]
+    lc = margs[8]
+    ld = margs[9]
+    for f in range(face_ptr[p], face_ptr[p + 1]):
+        j = face_link[f]
+        other = lq[j] if lp[j] == p else lp[j]
+        off = closed[p] or (other < nc and closed[other])
+        la[j] = 0.0 if off else la0[j]
+        lb[j] = 0.0 if off else lb0[j]
+        lc[j] = 0.0 if off else lc0[j]
+        ld[j] = 0.0 if off else ld0[j]
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python
@@ -995,15 +1081,15 @@ def rows_until(times, row, t1, last):
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def run_marks(k0, k1, marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, cargs, q_supply, q_infused,
               sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, y, infusion, clamp, holds, dosed, removed, ptr,
-              states, ev_dosed, ev_removed, stats):
+              states, ev_dosed, ev_removed, stats, ctx):
     """Run the dosing intervals ``k0 .. k1 - 1`` (between ``marks``), applying the events.
 
     The carried state (``y``, infusion rates, clamps, hold counts, the ledger ``dosed`` and
-    ``removed``, and ``ptr = [next output row, next event]``) is updated in place, so a run can be
-    done in pieces. Returns (status, index of the failed interval or -1).
+    ``removed``, ``ptr = [next output row, next event]``, and the links and closed faces in
+    ``margs`` and ``ctx``, see :func:`event_context`) is updated in place, so a run can be done in
+    pieces. Returns (status, index of the failed interval or -1).
     """
     n = y.shape[0]
-    cap = margs[2]
     nc = margs[0]
     ws = _workspace(nc, margs[1] - nc, n, n_w, n_jac, sargs[3].shape[0])
     n_marks = marks.shape[0]
@@ -1012,8 +1098,8 @@ def run_marks(k0, k1, marks, times, ev_time, ev_kind, ev_comp, ev_value, held, m
     for k in range(k0, k1):
         t0 = marks[k]
         t1 = marks[k + 1]
-        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, cap, held, infusion, clamp, holds, dosed,
-                          removed)
+        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, margs, held, infusion, clamp, holds, dosed,
+                          removed, ctx)
         sel_end = rows_until(times, row, t1, k == n_marks - 2)
         t_local = times[row:sel_end] - t0
         status = _interval(y, t1 - t0, t_local, states[row:sel_end], margs, cargs, infusion, clamp, q_supply,
@@ -1090,9 +1176,16 @@ class RosenbrockIntegrator:
         Returns
         -------
         tuple
-            ``(states, event_dosed, event_removed, status, message)``; on failure the arrays end
-            at the last output row reached and ``status`` is -1.
+            ``(states, event_dosed, event_removed, status, message, moved)``; on failure the arrays
+            end at the last output row reached and ``status`` is -1; ``moved`` holds what each event
+            moved, mg.
+
+        Raises
+        ------
+        ScenarioError
+            For a model with evaporation, a solubility limit or samples without replacement.
         """
+        refuse_vehicle_terms(model, self.name)
         marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
         ev = encode_events(events)
         n_t, n_c = len(times), model.n_comp
@@ -1100,7 +1193,7 @@ class RosenbrockIntegrator:
         ev_dosed = np.zeros((n_t, n_c))
         ev_removed = np.zeros((n_t, n_c))
         struct = build_structure(model)
-        margs = model_args(model)
+        margs, ctx = event_context(model, len(events))
         cargs = chain_args(model)
         rtol, atol = self.tolerances(model)
         n_jac = jacobian_size(len(model.link_p), model.n_dyn, len(model.mm_state), len(model.tr_from))
@@ -1119,7 +1212,7 @@ class RosenbrockIntegrator:
             code, k_fail = run_marks(k0, k1, marks, times, *ev, model.held, margs, cargs, model.q_supply,
                                      model.q_infused, struct.args(), COEF, struct.n_w, n_jac, rtol, atol,
                                      self.max_steps, self.hold, y, infusion, clamp, holds, dosed, removed, ptr,
-                                     states, ev_dosed, ev_removed, st)
+                                     states, ev_dosed, ev_removed, st, ctx)
             if code != OK:
                 row = int(ptr[0])
                 t0, t1 = marks[k_fail], marks[k_fail + 1]
@@ -1137,4 +1230,4 @@ class RosenbrockIntegrator:
         stats.jacobian_evaluations += int(st[ST_JAC])
         stats.lu_decompositions += int(st[ST_LU])
         stats.intervals += int(st[ST_INTERVALS])
-        return states, ev_dosed, ev_removed, status, message
+        return states, ev_dosed, ev_removed, status, message, ctx[7]

@@ -13,13 +13,14 @@ from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
 from .compiled import CompiledModel, compile_scenario
 from .grid import Grid
-from .integrators import RunStats, resolve_integrator, working_memory
+from .integrators import RunStats, ScipyIntegrator, resolve_integrator, working_memory
 from .ledger import check
 from .problem import IntervalProblem, IntervalSettings
-from .rosenbrock import RosenbrockIntegrator
+from .rosenbrock import RosenbrockIntegrator, event_context
 from .schedule import Event, build_schedule
+from .vehicle import VehicleProblem
 
-__all__ = ["ROBUST", "Trajectory", "check_memory", "solve"]
+__all__ = ["ROBUST", "ROBUST_VEHICLE", "Trajectory", "check_memory", "robust_for", "solve"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -53,6 +54,13 @@ class Trajectory:
         The integrator's settings (its dataclass fields), for the record.
     failed_at : float or None, h
         Where a failed run stopped (None when it did not fail).
+    event_amounts : ndarray (n_events,), mg
+        What each event of ``events`` moved: a bolus its amount, a refill what it put in, a
+        remove or a sample what it took (0 for the others).
+    volumes : ndarray (n_t, n_comp) or None, mL
+        The volume of each compartment at each output time, for a model whose volumes change
+        (evaporation, samples without replacement); None when every volume stays the model's
+        ``capacity``.
     """
 
     model: CompiledModel
@@ -70,6 +78,8 @@ class Trajectory:
     grid: Grid
     integrator_options: dict = field(default_factory=dict)
     failed_at: float | None = None
+    event_amounts: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    volumes: np.ndarray | None = None
 
 
 def _snap(times: np.ndarray, marks: np.ndarray, tol: float) -> np.ndarray:
@@ -96,6 +106,15 @@ def _present(model: CompiledModel, y: np.ndarray) -> float:
 
 ROBUST = RosenbrockIntegrator(rtol=1e-8, atol=1e-11)
 """The integrator a run that failed its check (or whose integrator failed) is computed again with."""
+
+ROBUST_VEHICLE = ScipyIntegrator("Radau", rtol=1e-9, atol=1e-12)
+"""The same for a model with vehicle terms (evaporation, solubility, shrinking samples), which
+only the scipy integrators run."""
+
+
+def robust_for(model: CompiledModel):
+    """The integrator a failed run of ``model`` is computed again with."""
+    return ROBUST_VEHICLE if model.vehicle_terms else ROBUST
 
 
 def solve(
@@ -152,8 +171,9 @@ def solve(
     times = np.unique(_snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(duration, 1.0)))
     check_memory(scenario, model, len(times), chosen)
     attempts = [chosen]
-    if fallback and not _same_integrator(chosen, ROBUST):
-        attempts.append(ROBUST)
+    robust = robust_for(model)
+    if fallback and not _same_integrator(chosen, robust):
+        attempts.append(robust)
     notes: list[str] = []
     traj = None
     for k, integ in enumerate(attempts):
@@ -162,7 +182,8 @@ def solve(
         traj = _run(model, integ, events, at_end, all_events, marks, times, duration, grid,
                     progress if k == 0 else None)
         if traj.status == 0:
-            found = check(model, traj.states, traj.event_dosed, traj.event_removed, traj.initial_amount)
+            found = check(model, traj.states, traj.event_dosed, traj.event_removed, traj.initial_amount,
+                          volumes=traj.volumes)
             if not found:
                 stats = {**traj.stats, "fallbacks": k}
                 message = traj.message if not notes else f"{traj.message}; " + "; ".join(notes)
@@ -198,22 +219,25 @@ def _run(model: CompiledModel, integrator, events: list[Event], at_end: list[Eve
     start_clock = _time.perf_counter()
     n_t, n_c = len(times), model.n_comp
     stats = RunStats()
+    live = Live(model, len(all_events))
     if hasattr(integrator, "solve_schedule"):
-        states, ev_dosed, ev_removed, status, message = integrator.solve_schedule(
+        states, ev_dosed, ev_removed, status, message, moved = integrator.solve_schedule(
             model, events, times, duration, stats, progress)
+        live.moved[:len(events)] = moved
         failed_at = None
         if status != 0:
             failed_at = float(times[min(len(states), n_t - 1)])
             times = times[: len(states)]
         else:
-            _apply_at_end(model, at_end, states, ev_dosed, ev_removed)
+            _apply_at_end(model, at_end, states, ev_dosed, ev_removed, live, len(events))
         return Trajectory(model, times, states, ev_dosed, ev_removed, _present(model, model.y0), tuple(all_events),
                           stats.as_dict(), status, message, integrator.name, _time.perf_counter() - start_clock, grid,
-                          _options(integrator), failed_at)
+                          _options(integrator), failed_at, live.moved.copy())
 
     states = np.full((n_t, model.n_state), np.nan)
     ev_dosed = np.zeros((n_t, n_c))
     ev_removed = np.zeros((n_t, n_c))
+    volumes = np.full((n_t, n_c), np.nan) if model.vehicle_terms else None
 
     y = model.y0.copy()
     initial = _present(model, y)
@@ -229,14 +253,18 @@ def _run(model: CompiledModel, integrator, events: list[Event], at_end: list[Eve
     for k in range(len(marks) - 1):
         t0, t1 = marks[k], marks[k + 1]
         while ei < len(events) and events[ei].time <= t0:
-            apply_event(events[ei], model, y, dosed, removed, clamp, holds, infusion)
+            apply_event(events[ei], model, y, dosed, removed, clamp, holds, infusion, live, ei)
             ei += 1
         last = k == len(marks) - 2
         sel_end = row
         while sel_end < n_t and (times[sel_end] < t1 or (last and times[sel_end] <= t1)):
             sel_end += 1
         t_local = times[row:sel_end] - t0
-        problem = IntervalProblem(model, IntervalSettings(infusion.copy(), clamp.copy()))
+        settings = IntervalSettings(infusion.copy(), clamp.copy())
+        if model.vehicle_terms:
+            problem = VehicleProblem(live.model(), settings, live.evaporation())
+        else:
+            problem = IntervalProblem(live.model(), settings)
         want = np.append(t_local, t1 - t0)
         try:
             ys = integrator.integrate(problem, y, t1 - t0, want, stats)
@@ -260,22 +288,85 @@ def _run(model: CompiledModel, integrator, events: list[Event], at_end: list[Eve
         states[row:sel_end] = ys[:-1]
         ev_dosed[row:sel_end] = dosed
         ev_removed[row:sel_end] = removed
+        if volumes is not None:
+            volumes[row:sel_end] = live.volumes_at(want[:-1])
+        live.advance(t1 - t0)
         row = sel_end
         y = ys[-1].copy()
         if progress is not None:
             progress(t1 / duration)
     if status != 0:
         times, states, ev_dosed, ev_removed = times[:row], states[:row], ev_dosed[:row], ev_removed[:row]
+        volumes = volumes[:row] if volumes is not None else None
     else:
-        _apply_at_end(model, at_end, states, ev_dosed, ev_removed)
+        _apply_at_end(model, at_end, states, ev_dosed, ev_removed, live, len(events))
+        if volumes is not None and len(states):
+            volumes[-1] = live.cap[:n_c]
     return Trajectory(model, times, states, ev_dosed, ev_removed, initial, tuple(all_events), stats.as_dict(),
                       status, message, integrator.name, _time.perf_counter() - start_clock, grid, _options(integrator),
-                      failed_at)
+                      failed_at, live.moved.copy(), volumes)
+
+
+class Live:
+    """What the events of a run change besides the state, for the event loop in Python.
+
+    The volumes (samples without replacement shrink one, evaporation between events, a refill
+    restores an evaporated vehicle), the link coefficients (a remove that ends contact closes a
+    compartment's barrier faces, a new application opens them; as in
+    :func:`~barrierflow.engine.rosenbrock.event_context`), which compartments still evaporate,
+    and what each event moved.
+    """
+
+    def __init__(self, model: CompiledModel, n_events: int):
+        self.base = model
+        self.cap = model.capacity.copy()
+        self.margs, self.ctx = event_context(model, n_events)
+        self.evaporating = model.evap_rate > 0
+        self._models: dict[bytes, CompiledModel] = {}
+
+    @property
+    def moved(self) -> np.ndarray:
+        """What each event moved, mg."""
+        return self.ctx[7]
+
+    def model(self) -> CompiledModel:
+        """The model with the volumes and links as they are now."""
+        closed = self.ctx[6]
+        if not closed.any() and np.array_equal(self.cap, self.base.capacity):
+            return self.base
+        key = self.cap.tobytes() + closed.tobytes()
+        m = self._models.get(key)
+        if m is None:
+            la, lb, lc, ld = (a.copy() for a in self.margs[6:10])
+            m = dataclasses.replace(self.base, capacity=self.cap.copy(), link_a=la, link_b=lb, link_c=lc, link_d=ld)
+            self._models = {key: m}  # volumes rarely repeat: keep the last one only
+        return m
+
+    def evaporation(self) -> np.ndarray:
+        """The rate at which each volume shrinks in the coming interval, mL/h."""
+        return np.where(self.evaporating, self.base.evap_rate, 0.0)
+
+    def volumes_at(self, tau: np.ndarray) -> np.ndarray:
+        """The compartments' volumes at local times ``tau`` of the coming interval, mL (n, n_comp)."""
+        nc = self.base.n_comp
+        return self.cap[None, :nc] - self.evaporation()[None, :] * np.asarray(tau, dtype=float)[:, None]
+
+    def advance(self, dt: float) -> None:
+        """Move the evaporating volumes on by ``dt`` hours (never below the residue)."""
+        nc = self.base.n_comp
+        e = self.evaporation()
+        self.cap[:nc] = np.where(e > 0, np.maximum(self.cap[:nc] - e * dt, self.base.residual), self.cap[:nc])
 
 
 def apply_event(e: Event, model: CompiledModel, y: np.ndarray, dosed: np.ndarray, removed: np.ndarray,
-                clamp: np.ndarray, holds: np.ndarray, infusion: np.ndarray) -> None:
+                clamp: np.ndarray, holds: np.ndarray, infusion: np.ndarray, live: Live | None = None,
+                index: int | None = None) -> None:
     """Apply one instantaneous change to the state ``y`` and the ledger, in place.
+
+    The rules of the compiled :func:`~barrierflow.engine.rosenbrock.apply_events`, and those of
+    the models that only this loop runs: a sample takes its aliquot at the dissolved
+    concentration; one without replacement shrinks the volume; a refill restores an evaporating
+    vehicle's full volume; a ``dry`` event stops its evaporation at the residue.
 
     Parameters
     ----------
@@ -291,48 +382,94 @@ def apply_event(e: Event, model: CompiledModel, y: np.ndarray, dosed: np.ndarray
         Number of running hold doses per compartment.
     infusion : ndarray, mg/h
         Running infusion rate per compartment.
+    live : Live, optional
+        The volumes, links and ledger of moved amounts the run carries (a new one: the model's).
+    index : int, optional
+        The position of ``e`` among the run's events (where what it moved is booked).
     """
+    live = live or Live(model, 1 if index is None else index + 1)
     p = e.comp
-    cap = model.capacity
-    if e.kind == "bolus":
-        y[p] += e.value / cap[p]
-        dosed[p] += e.value
-    elif e.kind == "replace":
+    cap = live.cap
+    v = e.value
+    moved = 0.0
+    kind = e.kind
+    if kind == "bolus":
+        y[p] += v / cap[p]
+        dosed[p] += v
+        moved = v
+    elif kind == "replace":
         removed[p] += cap[p] * y[p]
-        y[p] = e.value
-        dosed[p] += cap[p] * e.value
-    elif e.kind == "remove":
-        removed[p] += cap[p] * y[p]
-        y[p] = 0.0
-    elif e.kind == "hold_start":
-        dosed[p] += cap[p] * (e.value - y[p])
-        y[p] = e.value
+        if live.base.evap_rate[p] > 0:  # a fresh vehicle: the full volume again
+            cap[p] = live.base.capacity[p]
+            live.evaporating[p] = True
+        y[p] = v
+        dosed[p] += cap[p] * v
+        moved = cap[p] * v
+    elif kind == "remove":
+        moved = v * cap[p] * y[p]
+        removed[p] += moved
+        y[p] = 0.0 if v >= 1.0 else y[p] * (1.0 - v)
+    elif kind in ("sample", "sample_keep"):
+        moved = v * min(y[p], model.solubility[p])  # the aliquot is solution
+        amount = cap[p] * y[p] - moved
+        if kind == "sample_keep":
+            cap[p] -= v
+        y[p] = amount / cap[p]
+        y[model.q_sampled + p] += moved
+    elif kind == "hold_start":
+        dosed[p] += cap[p] * (v - y[p])
+        y[p] = v
         holds[p] += 1
         clamp[p] = True
-    elif e.kind == "hold_end":
+    elif kind == "hold_end":
         holds[p] -= 1
         clamp[p] = model.held[p] or holds[p] > 0
-    elif e.kind == "infusion_start":
-        infusion[p] += e.value
-    elif e.kind == "infusion_end":
-        infusion[p] -= e.value
-        if abs(infusion[p]) < 1e-12 * e.value:
+    elif kind == "infusion_start":
+        infusion[p] += v
+    elif kind == "infusion_end":
+        infusion[p] -= v
+        if abs(infusion[p]) < 1e-12 * v:
             infusion[p] = 0.0
-    else:  # pragma: no cover - the schedule makes only the kinds above
-        raise ValueError(f"unknown event kind {e.kind!r}")
+    elif kind == "dry":
+        cap[p] = live.base.residual[p]
+        live.evaporating[p] = False
+    elif kind != "close":  # pragma: no cover - the schedule makes only the kinds above
+        raise ValueError(f"unknown event kind {kind!r}")
+    closed = live.ctx[6]
+    if kind == "close" or (closed[p] and kind in ("bolus", "replace", "hold_start", "infusion_start")):
+        closed[p] = kind == "close"
+        _contact(p, live)
+    if index is not None:
+        live.moved[index] = moved
+
+
+def _contact(p: int, live: Live) -> None:
+    """The faces of compartment ``p`` as :func:`~barrierflow.engine.rosenbrock.apply_events` sets them."""
+    m = live.base
+    face_ptr, face_link, la0, lb0, lc0, ld0, closed, _ = live.ctx
+    coef = live.margs[6:10]
+    for j in face_link[face_ptr[p]:face_ptr[p + 1]]:
+        other = m.link_q[j] if m.link_p[j] == p else m.link_p[j]
+        off = closed[p] or (other < m.n_comp and closed[other])
+        for arr, orig in zip(coef, (la0, lb0, lc0, ld0), strict=True):
+            arr[j] = 0.0 if off else orig[j]
 
 
 def _apply_at_end(model: CompiledModel, events: list[Event], states: np.ndarray, ev_dosed: np.ndarray,
-                  ev_removed: np.ndarray) -> None:
-    """Apply the events that fall exactly at the end of the run to the last row (its after-state)."""
+                  ev_removed: np.ndarray, live: Live | None = None, first: int = 0) -> None:
+    """Apply the events that fall exactly at the end of the run to the last row (its after-state).
+
+    ``live`` carries the run's volumes and books what the events moved (``first``: the position
+    of the first of ``events`` among the run's events).
+    """
     if not events or not len(states):
         return
     n_c = model.n_comp
     y = states[-1].copy()
     dosed, removed = ev_dosed[-1].copy(), ev_removed[-1].copy()
     clamp, holds, infusion = model.held.copy(), np.zeros(n_c, dtype=np.int64), np.zeros(n_c)
-    for e in events:
-        apply_event(e, model, y, dosed, removed, clamp, holds, infusion)
+    for k, e in enumerate(events):
+        apply_event(e, model, y, dosed, removed, clamp, holds, infusion, live, first + k if live else None)
     states[-1], ev_dosed[-1], ev_removed[-1] = y, dosed, removed
 
 

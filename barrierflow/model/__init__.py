@@ -3,6 +3,7 @@
 from ._fields import PLAUSIBLE
 from .components import (
     DOSE_KINDS,
+    DOSE_OPTIONS,
     Barrier,
     Compartment,
     Dose,
@@ -20,6 +21,7 @@ from .variability import Correlation, Variation
 
 __all__ = [
     "DOSE_KINDS",
+    "DOSE_OPTIONS",
     "MAX_COMPARTMENTS",
     "MAX_EVENTS",
     "MAX_TOTAL_CELLS",

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from ..errors import Problem, ScenarioError, UnitsError
-from ..units import KINDS, format_quantity, parse_quantity
+from ..units import KINDS, PER_AREA, format_quantity, parse_quantity
 
 
 @dataclass(frozen=True)
@@ -48,6 +48,11 @@ class FieldSpec:
         True when the value shapes the run rather than setting a rate or an amount: the grid
         (``cells``) or the timeline (dose times, the run's duration, output times). Subjects of
         one population share these.
+    per_area : str or None
+        For a volume, amount or flow that may also be written per area (``"10 uL/cm^2"``): the
+        attribute that receives such a value (in the per-area kind of :data:`~barrierflow.units.PER_AREA`).
+        The scenario resolves it with the area of the one barrier the object's compartment
+        touches and sets ``attr`` to the absolute value; the file keeps the per-area form.
     """
 
     attr: str
@@ -57,10 +62,31 @@ class FieldSpec:
     unit: str | None = None
     bound: str | None = None
     structural: bool = False
+    per_area: str | None = None
 
     def __post_init__(self) -> None:
         if self.bound not in (None, "> 0", ">= 0"):
             raise ValueError(f"FieldSpec {self.key}: bound must be None, '> 0' or '>= 0', not {self.bound!r}")
+        if self.per_area is not None and self.kind not in PER_AREA:
+            raise ValueError(f"FieldSpec {self.key}: a {self.kind} has no per-area form")
+
+    @property
+    def per_area_spec(self) -> FieldSpec | None:
+        """The field as written per area (same key and range, the per-area kind), or None."""
+        if self.per_area is None:
+            return None
+        kind = PER_AREA[self.kind]
+        return FieldSpec(self.per_area, self.key, kind, unit=_PER_AREA_UNIT[kind], bound=self.bound,
+                         structural=self.structural)
+
+
+_PER_AREA_UNIT = {"volume_per_area": "uL/cm^2", "amount_per_area": "ug/cm^2", "flow_per_area": "uL/(cm^2*h)"}
+"""The unit a per-area value is written back in."""
+
+
+def with_per_area(specs: tuple[FieldSpec, ...]) -> tuple[FieldSpec, ...]:
+    """``specs`` and the per-area form of every field that has one (for checks and messages)."""
+    return specs + tuple(s.per_area_spec for s in specs if s.per_area is not None)
 
 
 @dataclass(frozen=True)
@@ -177,6 +203,29 @@ def parse_value(raw: Any, spec: FieldSpec, molar_mass: float | None) -> Any:
     raise AssertionError(kind)
 
 
+def parse_either(raw: Any, spec: FieldSpec, molar_mass: float | None) -> tuple[str, Any]:
+    """Parse a value of a field that may be written per area: ``(attribute, value)``.
+
+    The absolute form goes to ``spec.attr``, the per-area form (``"10 uL/cm^2"``) to
+    ``spec.per_area``; a value of neither kind is refused naming both.
+    """
+    try:
+        return spec.attr, parse_value(raw, spec, molar_mass)
+    except UnitsError as err:
+        if "wrong kind of unit" not in err.expected:
+            raise
+        per = spec.per_area_spec
+        try:
+            return per.attr, parse_quantity(raw, per.kind, spec.key, molar_mass=molar_mass)
+        except UnitsError:
+            pass
+        k, pk = KINDS[spec.kind], KINDS[per.kind]
+        expected = err.expected.replace(f"such as '{k.example}'",
+                                        f"such as '{k.example}', or {pk.description} such as '{pk.example}' (times "
+                                        "the area of the one barrier the compartment touches)")
+        raise UnitsError(err.value, expected, err.field) from None
+
+
 def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
           molar_mass: float | None = None, python: bool = False, extra: Mapping[str, Any] | None = None):
     """Build ``cls`` from a mapping of raw values, reporting every problem at once.
@@ -206,6 +255,7 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
     by_key = {s.key: s for s in specs}
     if python:
         by_key.update({s.attr: s for s in specs})
+        by_key.update({s.per_area: s.per_area_spec for s in specs if s.per_area is not None})
     problems: list[Problem] = []
     values: dict[str, Any] = dict(extra or {})
     raw_text: dict[str, str] = {}
@@ -225,7 +275,13 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
             values[spec.attr] = tuple(float(v) for v in value)
             continue
         try:
-            values[spec.attr] = parse_value(value, spec, molar_mass)
+            if spec.per_area is not None:
+                attr, parsed = parse_either(value, spec, molar_mass)
+                values[attr] = parsed
+                if attr != spec.attr:
+                    raw_text[attr] = raw_text.pop(spec.attr)
+            else:
+                values[spec.attr] = parse_value(value, spec, molar_mass)
         except UnitsError as err:
             problems.append(Problem(spec.key, err.value, err.expected, path=spec.key))
     for spec in specs:
@@ -234,7 +290,7 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
             problems.append(Problem(spec.key, "nothing", f"this key is required{example}", path=spec.key))
     failed = {p.field for p in problems}
     # constructor arguments without a default (an exchange's id, say) that are still missing
-    key_of_attr = {s.attr: s.key for s in specs}
+    key_of_attr = {s.attr: s.key for s in with_per_area(specs)}
     for f in dataclasses.fields(cls):
         if (f.init and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
                 and f.name not in values and key_of_attr.get(f.name, f.name) not in failed):
@@ -254,10 +310,11 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
     try:
         built = cls(**values)
     except ScenarioError as err:
-        key_of = {s.attr: s.key for s in specs}
+        key_of = {s.attr: s.key for s in with_per_area(specs)}
         fixed = []
         for p in err.problems:
-            attr = next((a for a, k in key_of.items() if k == p.field or a == p.field), None)
+            attrs = [a for a, k in key_of.items() if k == p.field or a == p.field]
+            attr = next((a for a in attrs if a in raw_text), attrs[0] if attrs else None)
             if attr is not None and attr in raw_text:
                 p = Problem(key_of[attr], raw_text[attr], p.expected, p.file, key_of[attr])
             elif attr is not None:
@@ -302,7 +359,7 @@ class Checker:
 
     def __init__(self, specs: tuple[FieldSpec, ...] = ()):
         self.problems: list[Problem] = []
-        self._specs = {s.attr: s for s in specs}
+        self._specs = {s.attr: s for s in with_per_area(specs)}
         self._unread = UNREAD.get()
         self._skipped = False
 

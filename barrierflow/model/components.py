@@ -19,6 +19,7 @@ from ._fields import Checker, FieldSpec, build, finite
 
 __all__ = [
     "DOSE_KINDS",
+    "DOSE_OPTIONS",
     "Barrier",
     "Compartment",
     "Dose",
@@ -99,6 +100,20 @@ class Compartment:
         Makes the compartment a reservoir whose concentration never changes (0: a perfect sink).
     description : str
         Free text.
+    volume_per_area : float or None, mL/cm^2
+        The volume as written per area (``volume = "10 uL/cm^2"``). When set, the scenario sets
+        ``volume`` to it times the area of the one barrier the compartment touches.
+    evaporation_rate : float or None, mL/h
+        The volume shrinks at this rate (a volatile vehicle) down to ``residual_volume``.
+    evaporation_rate_per_area : float or None, mL/(cm^2 h)
+        The same written per area; resolved by the scenario into ``evaporation_rate``.
+    residual_volume : float or None, mL
+        What is left when the volatile part has evaporated (required with an evaporation rate).
+    residual_volume_per_area : float or None, mL/cm^2
+        The same written per area; resolved by the scenario into ``residual_volume``.
+    loss_rate : float, 1/h
+        First-order loss of the dissolved solute from the compartment to the air (default 0);
+        the ledger counts it as lost.
     """
 
     id: str
@@ -110,10 +125,16 @@ class Compartment:
     km: float | None = None
     held_concentration: float | None = None
     description: str = ""
+    volume_per_area: float | None = None
+    evaporation_rate: float | None = None
+    evaporation_rate_per_area: float | None = None
+    residual_volume: float | None = None
+    residual_volume_per_area: float | None = None
+    loss_rate: float = 0.0
 
     SPECS: ClassVar[tuple[FieldSpec, ...]] = (
         FieldSpec("id", "id", "id", required=True),
-        FieldSpec("volume", "volume", "volume", unit="mL", bound="> 0"),
+        FieldSpec("volume", "volume", "volume", unit="mL", bound="> 0", per_area="volume_per_area"),
         FieldSpec("initial_concentration", "initial_concentration", "concentration", unit="mg/mL",
                   bound=">= 0"),
         FieldSpec("partition", "partition", "number", bound="> 0"),
@@ -121,18 +142,53 @@ class Compartment:
         FieldSpec("vmax", "vmax", "amount_rate", unit="mg/h", bound=">= 0"),
         FieldSpec("km", "km", "concentration", unit="mg/mL", bound="> 0"),
         FieldSpec("held_concentration", "held_concentration", "concentration", unit="mg/mL", bound=">= 0"),
+        FieldSpec("evaporation_rate", "evaporation_rate", "flow", unit="mL/h", bound="> 0",
+                  per_area="evaporation_rate_per_area"),
+        FieldSpec("residual_volume", "residual_volume", "volume", unit="mL", bound="> 0",
+                  per_area="residual_volume_per_area"),
+        FieldSpec("loss_rate", "loss_rate", "rate", unit="1/h", bound=">= 0"),
         FieldSpec("description", "description", "text"),
     )
 
     def __post_init__(self) -> None:
         chk = Checker(self.SPECS)
         _check_id(chk, self.id)
-        if self.volume is None:
+        if self.volume is None and self.volume_per_area is None:
             if self.held_concentration is None:
                 chk.add("volume", "nothing", "a volume such as '5 mL' is required unless the "
                         "compartment is held (held_concentration)")
         else:
-            chk.bound("volume", self.volume)
+            chk.bound("volume", self.volume, optional=True)
+            chk.bound("volume_per_area", self.volume_per_area, optional=True)
+        chk.bound("evaporation_rate", self.evaporation_rate, optional=True)
+        chk.bound("evaporation_rate_per_area", self.evaporation_rate_per_area, optional=True)
+        chk.bound("residual_volume", self.residual_volume, optional=True)
+        chk.bound("residual_volume_per_area", self.residual_volume_per_area, optional=True)
+        chk.bound("loss_rate", self.loss_rate)
+        evaporates = self.evaporation_rate is not None or self.evaporation_rate_per_area is not None
+        residue = self.residual_volume is not None or self.residual_volume_per_area is not None
+        if evaporates and not residue and chk.read("evaporation_rate", "residual_volume"):
+            rate = self.evaporation_rate_per_area if self.evaporation_rate is None else self.evaporation_rate
+            attr = "evaporation_rate_per_area" if self.evaporation_rate is None else "evaporation_rate"
+            chk.add(attr, rate, "an evaporating compartment needs residual_volume too (what is left when the "
+                    "volatile part has gone), such as '0.5 uL/cm^2'")
+        elif residue and not evaporates and chk.read("evaporation_rate", "residual_volume"):
+            attr = "residual_volume_per_area" if self.residual_volume is None else "residual_volume"
+            chk.add(attr, getattr(self, attr), "residual_volume goes with evaporation_rate; give the rate, or "
+                    "remove residual_volume")
+        elif evaporates and residue and chk.read("volume", "residual_volume"):
+            for whole, part in (("volume", "residual_volume"), ("volume_per_area", "residual_volume_per_area")):
+                v, r = getattr(self, whole), getattr(self, part)
+                if finite(v) and finite(r) and r >= v and (whole == "volume_per_area" or self.volume_per_area is None):
+                    chk.add(part, r, "must be smaller than the volume (the residue left after evaporation)")
+        if self.held_concentration is not None and chk.read("held_concentration"):
+            for attr in ("evaporation_rate", "evaporation_rate_per_area"):
+                if getattr(self, attr) is not None:
+                    chk.add(attr, getattr(self, attr), "a held compartment does not change, so it cannot evaporate; "
+                            "remove the evaporation or held_concentration")
+            if finite(self.loss_rate) and self.loss_rate > 0:
+                chk.add("loss_rate", self.loss_rate, "a held compartment does not change, so it loses nothing; "
+                        "remove loss_rate or held_concentration")
         chk.bound("initial_concentration", self.initial_concentration)
         chk.bound("partition", self.partition)
         chk.bound("clearance", self.clearance)
@@ -157,6 +213,16 @@ class Compartment:
     def held(self) -> bool:
         """True for a reservoir or perfect sink whose concentration never changes."""
         return self.held_concentration is not None
+
+    @property
+    def per_area(self) -> tuple[str, ...]:
+        """The attributes written per area (``volume``, ...), which the scenario resolves."""
+        return tuple(s.attr for s in self.SPECS if s.per_area is not None and getattr(self, s.per_area) is not None)
+
+    @property
+    def evaporates(self) -> bool:
+        """True for a volatile vehicle (an evaporation rate is given)."""
+        return self.evaporation_rate is not None or self.evaporation_rate_per_area is not None
 
     @property
     def starting_concentration(self) -> float:
@@ -186,6 +252,9 @@ class Layer:
         Number of equal cells of the grid; None lets the engine choose.
     degradation_rate : float, 1/h
         First-order degradation inside the layer.
+    initial_concentration : float, mg/mL
+        Concentration in the layer itself at time 0 (default 0): a loaded layer, such as a
+        drug-in-adhesive matrix or a membrane loaded for a desorption experiment.
     """
 
     thickness: float
@@ -194,6 +263,7 @@ class Layer:
     name: str = ""
     cells: int | None = None
     degradation_rate: float = 0.0
+    initial_concentration: float = 0.0
 
     SPECS: ClassVar[tuple[FieldSpec, ...]] = (
         FieldSpec("name", "name", "text"),
@@ -202,6 +272,8 @@ class Layer:
         FieldSpec("partition", "partition", "number", bound="> 0"),
         FieldSpec("cells", "cells", "count", bound="> 0", structural=True),
         FieldSpec("degradation_rate", "degradation_rate", "rate", unit="1/h", bound=">= 0"),
+        FieldSpec("initial_concentration", "initial_concentration", "concentration", unit="mg/mL",
+                  bound=">= 0"),
     )
 
     def __post_init__(self) -> None:
@@ -210,6 +282,7 @@ class Layer:
         chk.bound("diffusivity", self.diffusivity)
         chk.bound("partition", self.partition)
         chk.bound("degradation_rate", self.degradation_rate)
+        chk.bound("initial_concentration", self.initial_concentration)
         if self.cells is not None:
             if isinstance(self.cells, bool) or not isinstance(self.cells, int) or self.cells < 1:
                 chk.add("cells", self.cells, "must be a whole number >= 1")
@@ -223,9 +296,9 @@ class Layer:
         return self.thickness / (self.diffusivity * self.partition)
 
     @classmethod
-    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False) -> Layer:
+    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False, molar_mass: float | None = None) -> Layer:
         """Build from a mapping of unit strings (a TOML table or keyword attributes)."""
-        return build(cls, cls.SPECS, raw, python=python)
+        return build(cls, cls.SPECS, raw, python=python, molar_mass=molar_mass)
 
 
 BARRIER_MODELS = ("resolved", "steady")
@@ -278,7 +351,15 @@ class Barrier:
             chk.add("layer", self.layers, "layers must be Layer objects")
         if self.from_id == self.to_id:
             chk.add("to_id", repr(self.to_id), "a barrier must join two different compartments")
+        if self.model == "steady" and any(isinstance(x, Layer) and x.initial_concentration for x in self.layers):
+            chk.add("model", repr(self.model), "a steady barrier holds nothing, so its layers cannot start loaded "
+                    "(initial_concentration); use model = 'resolved'")
         chk.done()
+
+    @property
+    def loaded(self) -> bool:
+        """True when a layer starts with substance in it."""
+        return any(layer.initial_concentration > 0 for layer in self.layers)
 
     @property
     def resistances(self) -> tuple[float, ...]:
@@ -296,7 +377,7 @@ class Barrier:
         return math.fsum(layer.thickness for layer in self.layers)
 
     @classmethod
-    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False) -> Barrier:
+    def from_mapping(cls, raw: Mapping[str, Any], *, python: bool = False, molar_mass: float | None = None) -> Barrier:
         """Build from a mapping; ``raw['layer']`` (or ``'layers'``) is a list of layer mappings."""
         raw = dict(raw)
         layer_raw = raw.pop("layer", None)
@@ -312,7 +393,7 @@ class Barrier:
                 if isinstance(item, Layer):
                     layers.append(item)
                 elif isinstance(item, Mapping):
-                    layers.append(Layer.from_mapping(item, python=python))
+                    layers.append(Layer.from_mapping(item, python=python, molar_mass=molar_mass))
                 else:
                     problems.append(Problem(f"layer {i}", str(item), "expected a table of layer fields",
                                             path=f"layer.{i}"))
@@ -415,11 +496,19 @@ DOSE_KINDS: dict[str, tuple[str, ...]] = {
     "hold": ("concentration", "duration"),
     "replace": ("concentration",),
     "remove": (),
+    "sample": ("volume",),
 }
 """Each dose kind and the fields it needs (besides ``target``, ``at``, ``every``, ``count``)."""
 
-_DOSE_OPTIONAL = tuple(dict.fromkeys(name for needed in DOSE_KINDS.values() for name in needed))
-"""The fields some kind needs: each is refused on a dose whose kind does not use it."""
+DOSE_OPTIONS: dict[str, tuple[str, ...]] = {
+    "remove": ("fraction", "ends_contact"),
+    "sample": ("replace",),
+}
+"""The optional fields of a kind (each with a default of its own meaning; see :class:`Dose`)."""
+
+_DOSE_OPTIONAL = tuple(dict.fromkeys(name for fields in (*DOSE_KINDS.values(), *DOSE_OPTIONS.values())
+                                     for name in fields))
+"""The fields some kind needs or takes: each is refused on a dose whose kind does not use it."""
 
 
 @dataclass(frozen=True)
@@ -430,7 +519,7 @@ class Dose:
     ----------
     target : str
         The compartment dosed.
-    kind : {"bolus", "infusion", "hold", "replace", "remove"}
+    kind : {"bolus", "infusion", "hold", "replace", "remove", "sample"}
     at : float, h
         Time of the first event.
     amount : float or None, mg
@@ -446,6 +535,21 @@ class Dose:
     count : int or None
         How many events in all (default 1 without ``every``; without ``count``, ``every``
         repeats until the end of the run).
+    amount_per_area : float or None, mg/cm^2
+        A bolus amount written per area (``amount = "50 ug/cm^2"``); the scenario sets ``amount``
+        to it times the area of the one barrier the target touches.
+    volume : float or None, mL
+        The aliquot a sample withdraws from the well-mixed target.
+    replace : bool or None
+        Sample only: fresh medium (concentration 0) restores the volume (None, the default,
+        means True); False lets the volume shrink by the aliquot.
+    fraction : float or None
+        Remove only: the share of the content removed (None, the default, means 1); the volume
+        stays.
+    ends_contact : bool or None
+        Remove only: afterwards no flux between the target and its barriers (the barrier faces
+        become no-flux) until a new application (a bolus, refill, hold or infusion) on it; None,
+        the default, means False.
     """
 
     target: str
@@ -457,14 +561,23 @@ class Dose:
     concentration: float | None = None
     every: float | None = None
     count: int | None = None
+    amount_per_area: float | None = None
+    volume: float | None = None
+    replace: bool | None = None
+    fraction: float | None = None
+    ends_contact: bool | None = None
 
     SPECS: ClassVar[tuple[FieldSpec, ...]] = (
         FieldSpec("target", "target", "id", required=True),
         FieldSpec("kind", "kind", "text", required=True),
-        FieldSpec("amount", "amount", "amount", unit="mg", bound="> 0"),
+        FieldSpec("amount", "amount", "amount", unit="mg", bound="> 0", per_area="amount_per_area"),
         FieldSpec("rate", "rate", "amount_rate", unit="mg/h", bound="> 0"),
         FieldSpec("duration", "duration", "time", unit="h", bound="> 0", structural=True),
         FieldSpec("concentration", "concentration", "concentration", unit="mg/mL", bound=">= 0"),
+        FieldSpec("volume", "volume", "volume", unit="mL", bound="> 0"),
+        FieldSpec("replace", "replace", "flag", structural=True),
+        FieldSpec("fraction", "fraction", "number", bound="> 0"),
+        FieldSpec("ends_contact", "ends_contact", "flag", structural=True),
         FieldSpec("at", "at", "time", unit="h", bound=">= 0", structural=True),
         FieldSpec("every", "every", "time", unit="h", bound="> 0", structural=True),
         FieldSpec("count", "count", "count", bound="> 0", structural=True),
@@ -477,16 +590,30 @@ class Dose:
             chk.add("kind", repr(self.kind), f"must be one of {', '.join(DOSE_KINDS)}")
         else:  # which fields the kind needs; without a known kind, only the fields' own checks
             needed = DOSE_KINDS[self.kind]
+            allowed = needed + DOSE_OPTIONS.get(self.kind, ())
+            article = "an" if self.kind[0] in "aeiou" else "a"
             for name in _DOSE_OPTIONAL:
                 value = getattr(self, name)
+                if name == "amount" and value is None:
+                    value = self.amount_per_area
                 if name in needed and value is None:
-                    article = "an" if self.kind[0] in "aeiou" else "a"
                     chk.add(name, "nothing", f"{article} {self.kind} dose needs {name}")
-                elif name not in needed and value is not None:
-                    article = "an" if self.kind[0] in "aeiou" else "a"
-                    chk.add(name, value, f"{article} {self.kind} dose does not use {name}; remove it")
+                elif name not in allowed and value is not None:
+                    attr = "amount_per_area" if name == "amount" and self.amount is None else name
+                    chk.add(attr, value, f"{article} {self.kind} dose does not use {name}; remove it")
+        for name in ("replace", "ends_contact"):
+            value = getattr(self, name)
+            if value is not None and not isinstance(value, bool):
+                chk.add(name, value, "must be true or false")
+        if self.fraction is not None:
+            if not finite(self.fraction):
+                chk.add("fraction", self.fraction, "must be a finite number")
+            elif not 0 < self.fraction <= 1:
+                chk.add("fraction", self.fraction, "must be > 0 and at most 1 (the share of the content removed)")
         chk.bound("at", self.at)
         chk.bound("amount", self.amount, optional=True)
+        chk.bound("amount_per_area", self.amount_per_area, optional=True)
+        chk.bound("volume", self.volume, optional=True)
         chk.bound("rate", self.rate, optional=True)
         chk.bound("duration", self.duration, optional=True)
         chk.bound("concentration", self.concentration, optional=True)
@@ -502,6 +629,26 @@ class Dose:
             chk.add("duration", self.duration, "a repeated hold must end before the next one starts "
                     "(duration <= every)")
         chk.done()
+
+    @property
+    def per_area(self) -> tuple[str, ...]:
+        """The attributes written per area (``amount``), which the scenario resolves."""
+        return ("amount",) if self.amount_per_area is not None else ()
+
+    @property
+    def replaces_medium(self) -> bool:
+        """A sample: True when fresh medium restores the volume (the default)."""
+        return self.replace is not False
+
+    @property
+    def removed_fraction(self) -> float:
+        """A remove: the share of the content it takes (1 by default)."""
+        return 1.0 if self.fraction is None else float(self.fraction)
+
+    @property
+    def closes(self) -> bool:
+        """A remove that ends contact between the target and its barriers."""
+        return self.ends_contact is True
 
     def start_times(self, end: float) -> tuple[float, ...]:
         """Start times of every event of this dose up to and including ``end`` (h)."""

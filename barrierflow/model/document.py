@@ -129,7 +129,7 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
         return out
 
     compartments = collect("compartment", lambda t, i: Compartment.from_mapping(t, mm))
-    barriers = collect("barrier", lambda t, i: Barrier.from_mapping(t))
+    barriers = collect("barrier", lambda t, i: Barrier.from_mapping(t, molar_mass=mm))
     exchanges = collect("exchange", lambda t, i: Exchange.from_mapping(t, default_id=f"exchange_{i}"))
     transfers = collect("transfer", lambda t, i: Transfer.from_mapping(t, default_id=f"transfer_{i}"))
     doses = collect("dose", lambda t, i: Dose.from_mapping(t, mm))
@@ -208,6 +208,8 @@ def _default(cls: type, attr: str) -> Any:
 def _put(table: dict[str, Any], obj: Any, specs: tuple[FieldSpec, ...]) -> dict[str, Any]:
     """Write the fields of ``obj`` that differ from their defaults (required ones always)."""
     for spec in specs:
+        if spec.per_area is not None and getattr(obj, spec.per_area) is not None:
+            spec = spec.per_area_spec  # written per area: the absolute value is the scenario's
         value = getattr(obj, spec.attr)
         if value is None or (not spec.required and value == _default(type(obj), spec.attr)):
             continue

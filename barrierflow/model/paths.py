@@ -248,6 +248,26 @@ class ParamPath:
             return KINDS[kind].internal
         return KINDS["time"].internal if kind == "times" else ""
 
+    def attr_in(self, scenario: Scenario) -> str:
+        """The attribute this path reads and sets in ``scenario``: the per-area one
+        (``volume_per_area``) where the scenario gives the field per area, else the field's own."""
+        spec = self.spec
+        if spec.per_area is not None and getattr(self._owner(scenario), spec.per_area) is not None:
+            return spec.per_area
+        return spec.attr
+
+    def kind_in(self, scenario: Scenario | None) -> str:
+        """The kind of quantity of the value in ``scenario`` (``"volume_per_area"`` where the field
+        is given per area there; :attr:`kind` without a scenario)."""
+        if scenario is not None and self.spec.per_area is not None and self.attr_in(scenario) == self.spec.per_area:
+            return self.spec.per_area_spec.kind
+        return self.spec.kind
+
+    def unit_in(self, scenario: Scenario | None) -> str:
+        """The internal unit of the value in ``scenario`` (``"mL/cm^2"`` for a volume given per area)."""
+        kind = self.kind_in(scenario)
+        return KINDS[kind].internal if kind in KINDS else self.unit
+
     @property
     def numeric(self) -> bool:
         """True for a single number (a quantity with a unit, a bare number or a count)."""
@@ -353,6 +373,9 @@ class ParamPath:
     def get(self, scenario: Scenario) -> Any:
         """The value in ``scenario``, in the internal unit (None when an optional field is not set).
 
+        A field the scenario gives per area (``volume = "10 uL/cm^2"``) is read and set per area
+        (mL/cm^2; see :meth:`attr_in`, :meth:`kind_in`).
+
         Raises
         ------
         ScenarioError
@@ -362,7 +385,7 @@ class ParamPath:
             owner = self._owner(scenario)
         except ScenarioError as err:
             raise _retitle(err, "parameter path", self.text, scenario) from None
-        return getattr(owner, self.spec.attr)
+        return getattr(owner, self.attr_in(scenario))
 
     def exists(self, scenario: Scenario) -> bool:
         """True when the scenario has the item this path names (the field may be unset)."""
@@ -380,14 +403,15 @@ class ParamPath:
         built in Python) the unit the model writes this field in (``um`` for a thickness,
         ``cm^2/s`` for a diffusivity), else the internal unit. ``""`` for a bare number.
         """
-        kind = self.spec.kind
+        kind = self.kind_in(scenario)
         if kind not in KINDS:
             return self.unit
         if scenario is not None:
             written = dict(scenario.file_units).get(self.text)
             if written is not None and _usable(kind, written, scenario.substance.molar_mass):
                 return written
-        return self.spec.unit or KINDS[kind].internal
+        spec = self.spec if kind == self.spec.kind else self.spec.per_area_spec
+        return spec.unit or KINDS[kind].internal
 
     def to_unit(self, value: float, unit: str, scenario: Scenario | None = None) -> float:
         """``value`` (internal unit) expressed in ``unit``; a molar unit needs the scenario's molar mass.
@@ -396,15 +420,17 @@ class ParamPath:
         ``1e-9 cm^2/s`` read from a file comes back as ``1e-9``, not ``9.999999999999999e-10``).
         A bare number or count is returned unchanged.
         """
-        if self.spec.kind not in KINDS:
+        kind = self.kind_in(scenario)
+        if kind not in KINDS:
             return value
-        return _tidy(convert(float(value), self.spec.kind, unit, _molar_mass(scenario)))
+        return _tidy(convert(float(value), kind, unit, _molar_mass(scenario)))
 
     def from_unit(self, number: float, unit: str, scenario: Scenario | None = None) -> float:
         """``number`` given in ``unit``, in the internal unit (rounded as the reader rounds)."""
-        if self.spec.kind not in KINDS:
+        kind = self.kind_in(scenario)
+        if kind not in KINDS:
             return number
-        return _tidy(float(number) / unit_factor(self.spec.kind, unit, _molar_mass(scenario)))
+        return _tidy(float(number) / unit_factor(kind, unit, _molar_mass(scenario)))
 
     def to_file_unit(self, value: float, scenario: Scenario) -> float:
         """``value`` (internal unit) in the unit the file used (:meth:`file_unit`)."""
@@ -424,7 +450,7 @@ class ParamPath:
         UnitsError
             Naming this field's path (:attr:`label`), the value and what was expected.
         """
-        kind = self.spec.kind
+        kind = self.kind_in(scenario)
         if kind in KINDS:
             return parse_quantity(text, kind, self.label, _molar_mass(scenario))
         if kind in _NUMERIC and isinstance(text, str):
@@ -693,14 +719,15 @@ def with_values(scenario: Scenario, values: Mapping[Param | str, Any]) -> Scenar
             i, j = p._index(scenario)
         except ScenarioError as err:
             raise _retitle(err, "parameter path", p.text, scenario) from None
+        attr = p.attr_in(scenario)
         if p.table in _SINGLE:
-            single.setdefault(p.table, {})[p.spec.attr] = value
+            single.setdefault(p.table, {})[attr] = value
             continue
         attrs = many.setdefault((p.table, i), {})
         if j is None:
-            attrs[p.spec.attr] = value
+            attrs[attr] = value
         else:
-            layers.setdefault(i, {}).setdefault(j, {})[p.spec.attr] = value
+            layers.setdefault(i, {}).setdefault(j, {})[attr] = value
     new: dict[str, Any] = dict(single.pop("scenario", {}))
     for table, attrs in single.items():
         attr = _SINGLE[table][0]

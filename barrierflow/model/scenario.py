@@ -12,7 +12,7 @@ from functools import cached_property
 from typing import TYPE_CHECKING, Any, ClassVar
 
 from ..errors import Problem, ScenarioError, UnitsError
-from ..units import parse_quantity
+from ..units import KINDS, parse_quantity
 from ._fields import FieldSpec, finite
 from .components import Barrier, Compartment, Dose, Exchange, OutputUnits, Substance, Transfer
 
@@ -124,9 +124,64 @@ class Scenario:
                 object.__setattr__(self, name, tuple(value))
         if self.output_times is not None and not isinstance(self.output_times, tuple):
             object.__setattr__(self, "output_times", tuple(self.output_times))
-        problems = self._problems()
+        problems = self._resolve_per_area()
+        problems += self._problems()
         if problems:
             raise ScenarioError([p.within(file=self.source) for p in problems])
+
+    # ------------------------------------------------------------------ values per area
+    def touching(self, cid: str) -> tuple[Barrier, ...]:
+        """The barriers that ``cid`` touches (as their ``from`` or ``to`` compartment)."""
+        return tuple(b for b in self.barriers if cid in (b.from_id, b.to_id))
+
+    def _resolve_per_area(self) -> list[Problem]:
+        """Set every value written per area to its absolute value (the area of the one barrier
+        the compartment touches); problems where the compartment touches none or several."""
+        out: list[Problem] = []
+        ids = {c.id for c in self.compartments}
+
+        def area_of(cid: str, field: str, path: str, value: str, kind: str) -> float | None:
+            touching = self.touching(cid)
+            if len(touching) == 1:
+                return touching[0].area
+            if not touching:
+                why = f"compartment '{cid}' touches no barrier, so a value per area has no area to go with"
+            else:
+                named = ", ".join(f"'{b.id}'" for b in touching)
+                why = (f"compartment '{cid}' touches {len(touching)} barriers ({named}), so a value per area is "
+                       "ambiguous")
+            out.append(Problem(field, value, f"{why}; give it as an absolute value, such as '{KINDS[kind].example}'",
+                               path=path))
+            return None
+
+        comps = []
+        for c in self.compartments:
+            attrs = c.per_area
+            if not attrs:
+                comps.append(c)
+                continue
+            changes = {}
+            for spec in c.SPECS:
+                if spec.attr not in attrs:
+                    continue
+                per = getattr(c, spec.per_area)
+                area = area_of(c.id, f"compartment '{c.id}' {spec.key}", f"compartment.{c.id}.{spec.key}",
+                               _show(per, spec.per_area_spec), spec.kind)
+                if area is not None:
+                    changes[spec.attr] = per * area
+            comps.append(_replace(c, changes))
+        doses = []
+        for i, d in enumerate(self.doses, start=1):
+            if not d.per_area or d.target not in ids:
+                doses.append(d)
+                continue
+            spec = next(x for x in Dose.SPECS if x.attr == "amount")
+            shown = _show(d.amount_per_area, spec.per_area_spec)
+            area = area_of(d.target, f"dose {i} amount", f"dose.{i}.amount", shown, "amount")
+            doses.append(_replace(d, {"amount": d.amount_per_area * area}) if area is not None else d)
+        object.__setattr__(self, "compartments", tuple(comps))
+        object.__setattr__(self, "doses", tuple(doses))
+        return out
 
     # ------------------------------------------------------------------ validation
     def _problems(self) -> list[Problem]:
@@ -162,7 +217,7 @@ class Scenario:
                                            f"names no compartment (known: {known})", path=f"{what}.{item.id}.{end}"))
         for t in self.transfers:
             c = comps.get(t.from_id)
-            if c is not None and c.volume is None:
+            if c is not None and c.volume is None and c.volume_per_area is None:
                 out.append(Problem(f"transfer '{t.id}' from", repr(t.from_id),
                                    "a transfer moves a fraction of the amount in 'from', which needs a volume",
                                    path=f"transfer.{t.id}.from"))
@@ -176,8 +231,11 @@ class Scenario:
                                    "a held compartment never changes, so it cannot be dosed; "
                                    "dose another compartment or drop held_concentration", path=f"dose.{i}.target"))
             elif c.volume is None:
-                out.append(Problem(f"dose {i} target", repr(d.target), "a dosed compartment needs a volume",
-                                   path=f"dose.{i}.target"))
+                if c.volume_per_area is None:  # else: its per-area volume could not be resolved (reported)
+                    out.append(Problem(f"dose {i} target", repr(d.target), "a dosed compartment needs a volume",
+                                       path=f"dose.{i}.target"))
+            else:
+                out.extend(self._dose_problems(i, d, c))
             if finite(self.duration) and d.at > self.duration:
                 out.append(Problem(f"dose {i} at", _h(d.at), f"must be within the run (duration {_h(self.duration)})",
                                    path=f"dose.{i}.at"))
@@ -217,6 +275,7 @@ class Scenario:
             out.append(Problem("barrier layer cells", f"{total} cells in all",
                                f"must be at most {MAX_TOTAL_CELLS} (a grid too large for memory)"))
         out.extend(p.within("output", at="output") for p in self.output_units.check(self.substance.molar_mass))
+        out.extend(self._evaporation_problems())
         if self.check_ranges is not False:
             out.extend(self._range_problems())
         if self.vary or self.correlations:
@@ -243,6 +302,50 @@ class Scenario:
             out += [p.within(f"transfer '{t.id}'", at=f"transfer.{t.id}") for p in range_problems(t, t.SPECS)]
         for i, d in enumerate(self.doses, start=1):
             out += [p.within(f"dose {i}", at=f"dose.{i}") for p in range_problems(d, d.SPECS)]
+        return out
+
+    def _dose_problems(self, i: int, d: Dose, c: Compartment) -> list[Problem]:
+        """What a sample or a remove that ends contact needs of its target ``c`` (which has a volume)."""
+        out: list[Problem] = []
+        if d.kind == "sample" and finite(d.volume) and finite(self.duration):
+            n = len(d.start_times(self.duration))
+            smallest = c.residual_volume if c.evaporates and finite(c.residual_volume) else c.volume
+            if d.replaces_medium and d.volume >= smallest:
+                what = "its residual volume" if c.evaporates else "the volume"
+                out.append(Problem(f"dose {i} volume", _v(d.volume),
+                                   f"must be smaller than {what} of '{c.id}' ({_v(smallest)}): an aliquot is "
+                                   "a part of the compartment", path=f"dose.{i}.volume"))
+            elif not d.replaces_medium:
+                if c.evaporates:
+                    out.append(Problem(f"dose {i} replace", "false",
+                                       f"compartment '{c.id}' evaporates; sampling it without replacement is not "
+                                       "supported (set replace = true, or sample another compartment)",
+                                       path=f"dose.{i}.replace"))
+                elif n * d.volume >= c.volume:
+                    out.append(Problem(f"dose {i} volume", _v(d.volume),
+                                       f"{n} samples without replacement take {_v(n * d.volume)}, not less than the "
+                                       f"volume of '{c.id}' ({_v(c.volume)}); take fewer or smaller samples, or "
+                                       "replace the medium", path=f"dose.{i}.volume"))
+        if d.kind == "hold" and c.evaporates:
+            out.append(Problem(f"dose {i} kind", "'hold'",
+                               f"compartment '{c.id}' evaporates, so its concentration cannot be held; hold "
+                               "another compartment, or give the vehicle no evaporation_rate", path=f"dose.{i}.kind"))
+        if d.kind == "remove" and d.closes and not self.touching(c.id):
+            out.append(Problem(f"dose {i} ends_contact", "true",
+                               f"compartment '{c.id}' touches no barrier, so there is no contact to end",
+                               path=f"dose.{i}.ends_contact"))
+        return out
+
+    def _evaporation_problems(self) -> list[Problem]:
+        """A residue that is not smaller than the volume (once both are absolute)."""
+        out = []
+        for c in self.compartments:
+            if (c.evaporates and finite(c.residual_volume) and finite(c.volume)
+                    and c.residual_volume >= c.volume and (c.volume_per_area is None) != (c.residual_volume_per_area
+                                                                                         is None)):
+                out.append(Problem(f"compartment '{c.id}' residual_volume", _v(c.residual_volume),
+                                   f"must be smaller than the volume ({_v(c.volume)}): the residue left after "
+                                   "evaporation", path=f"compartment.{c.id}.residual_volume"))
         return out
 
     def _event_count(self) -> float:
@@ -584,6 +687,25 @@ def network_problems(problems: list[Problem], make: Callable[[], Scenario], fail
                 continue
             out.append(p)
     return out
+
+
+def _replace(obj: Any, changes: dict[str, Any]) -> Any:
+    """``obj`` with ``changes``, or ``obj`` itself when nothing changes."""
+    if all(getattr(obj, k) == v for k, v in changes.items()):
+        return obj
+    return dataclasses.replace(obj, **changes)
+
+
+def _show(value: Any, spec: FieldSpec) -> str:
+    from ._fields import show
+    return show(value, spec)
+
+
+def _v(value: Any) -> str:
+    if finite(value):
+        from ..units import format_quantity
+        return format_quantity(float(value), "volume", ("mL", "uL", "L"))
+    return str(value)
 
 
 def _n(count: int, noun: str) -> str:

@@ -492,8 +492,8 @@ def balance_parts(run: RunData) -> tuple[list[tuple[str, np.ndarray]], np.ndarra
     """Where the substance of a run is at each time (mg), and what entered in all (mg).
 
     The parts are the amount in each (non-held) compartment and inside each resolved barrier,
-    what was eliminated, degraded, removed (replace and remove doses) and taken up by held
-    sinks. What entered is the starting amount, the doses and what held sources supplied.
+    what was eliminated, degraded, removed (replace and remove doses), taken by samples, lost to
+    the air and taken up by held sinks. What entered is the starting amount, the doses and what held sources supplied.
     Their sum equals what entered when mass is conserved.
     """
     parts: list[tuple[str, np.ndarray]] = []
@@ -507,6 +507,10 @@ def balance_parts(run: RunData) -> tuple[list[tuple[str, np.ndarray]], np.ndarra
     parts += [("eliminated", sum((run.eliminated[c] for c in run.compartments), zeros)),
               ("degraded in barriers", sum((b.degraded for b in run.barriers.values()), zeros)),
               ("removed (replace, remove)", sum((run.removed[c] for c in run.compartments), zeros))]
+    if run.sampled and any(np.any(v) for v in run.sampled.values()):
+        parts.append(("taken by samples", sum((run.sampled[c] for c in run.compartments), zeros)))
+    if run.lost and any(np.any(v) for v in run.lost.values()):
+        parts.append(("lost to the air", sum((run.lost[c] for c in run.compartments), zeros)))
     entered = np.full_like(run.times, run.initial_amount)
     for cid in run.compartments:
         dosed = run.dosed[cid]
@@ -593,7 +597,7 @@ def dose_timeline_figure(rows: Sequence[Mapping[str, Any]], duration: float | No
         return empty_figure("No doses yet: add one in the table.", height=150)
     ft = unit_factor("time", time_unit)
     symbols = {"bolus": "triangle-down", "replace": "diamond", "remove": "x-thin-open", "infusion": "square",
-               "hold": "square"}
+               "hold": "square", "sample": "triangle-up-open"}
     data = []
     labels = []
     for i, row in enumerate(rows):

@@ -92,6 +92,8 @@ class RunData:
         The scenario's ``[output]`` units (the plots and tables start in them).
     links : tuple of (str, str, str)
         ``(kind, from id, to id)`` of every barrier, exchange and transfer.
+    sampled, lost : dict of str to ndarray
+        mg: what samples withdrew from each compartment and what it lost to the air.
     """
 
     name: str
@@ -121,6 +123,8 @@ class RunData:
     metrics_table: Any = None
     output_units: Any = None
     links: tuple[tuple[str, str, str], ...] = ()
+    sampled: dict[str, np.ndarray] = field(default_factory=dict)
+    lost: dict[str, np.ndarray] = field(default_factory=dict)
 
     def renamed(self, name: str) -> RunData:
         """The same run under another name."""
@@ -190,10 +194,10 @@ def metric_label(name: str) -> str:
 def metric_rows(result: Any) -> tuple[list[dict[str, Any]], str, Any]:
     """The metrics of a result as table rows, in the scenario's output units, their CSV and the table.
 
-    Each row is ``{"part", "id", "name", "metric", "unit", "value"}``; ``name`` is the analysis
-    package's name of the metric, ``metric`` the label shown. The CSV is the text that
-    ``barrierflow run --metrics`` writes. Rows and CSV are empty (and the table None) when the
-    metrics cannot be computed.
+    Each row is ``{"part", "id", "name", "metric", "unit", "value", "note"}``; ``name`` is the
+    analysis package's name of the metric, ``metric`` the label shown, ``note`` why a value is
+    blank or a flag on it. The CSV is the text that ``barrierflow run --metrics`` writes. Rows
+    and CSV are empty (and the table None) when the metrics cannot be computed.
     """
     try:
         table = result.metrics()
@@ -206,13 +210,13 @@ def metric_rows_in(table: Any, units: Any = None) -> list[dict[str, Any]]:
     """Rows of a metrics table (see :func:`metric_rows`) in ``units`` (an
     :class:`barrierflow.model.OutputUnits`; default: the scenario's output units)."""
     rows = []
-    for kind, ident, name, value, unit in table.to_rows(units):
+    for kind, ident, name, value, unit, note in table.to_rows(units):
         if isinstance(value, bool):
             value = "yes" if value else "no"
         elif isinstance(value, (int, float)) and not math.isfinite(float(value)):
             value = None
         rows.append({"part": kind, "id": ident, "name": name, "metric": metric_label(name), "unit": unit,
-                     "value": value})
+                     "value": value, "note": note})
     return rows
 
 
@@ -254,7 +258,8 @@ def pack(result: Any, name: str, toml_text: str = "") -> RunData:
         warnings=tuple(result.warnings()),
         status=int(result.status), message=str(result.message), stats=dict(result.stats),
         molar_mass=s.substance.molar_mass, dose_times=tuple(result.dose_times), toml=toml_text,
-        steady=steady_of(s), metrics_table=table, output_units=s.output_units, links=links_of(s))
+        steady=steady_of(s), metrics_table=table, output_units=s.output_units, links=links_of(s),
+        sampled={c: result.sampled(c) for c in comps}, lost={c: result.lost(c) for c in comps})
 
 
 def links_of(scenario: Any) -> tuple[tuple[str, str, str], ...]:

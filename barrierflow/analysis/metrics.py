@@ -27,11 +27,27 @@ Pharmacokinetics, 2nd ed., 1982, appendix on the trapezoidal rule):
   last application when the run covers a whole interval after it.
 - **Accumulation ratio**: AUC of the last interval over AUC of the first; steady state counts
   as reached when the last two intervals' AUC differ by at most 5 % of the last.
+- **Terminal phase only after the last input**: the terminal slope, half-life and AUC to
+  infinity come from the points after every input has ended (:func:`last_input_end`: the last
+  bolus, the end of the last infusion or hold, an applied formulation removed or exhausted);
+  while an input still acts at the end of the run they are blank, with the reason.
 - **Time-lag method**: within the first interval, the window of output times around the peak
   flux where the flux stays within ``lag_tolerance`` (2 %) of the peak (the cumulative curve is
   straight there); the least-squares line of the cumulative amount on t gives the apparent
   steady flux (slope) and lag time (its time-axis intercept, counted from the first
-  application).
+  application). A straight steady line exists only when that window lasts at least as long as
+  the apparent lag time (:data:`STEADY_WINDOW_LAGS`): near the top of a transient peak (a finite
+  dose, a receptor filling up) the flux also stays within 2 % for a while, but the line through
+  those points is no steady line, so lag and flux are then blank, with the reason. A closed
+  receptor whose C/K rises above :data:`CLOSED_RECEPTOR_FRACTION` (10 %) of the donor side's C/K
+  before the window ends no longer holds the sink condition the method assumes: the values stay,
+  flagged as biased.
+- **Fraction absorbed**: the amount that crossed the barrier into its ``to`` side over the amount
+  applied to its ``from`` side (:func:`applied_to`): what the donor held at the start plus every
+  dose into it; what a hold or a wash-off took away is never subtracted.
+- **Blanks and flags**: a metric that does not apply is NaN (blank in the CSV) with the reason in
+  ``notes``; a value that stands but needs care carries its flag there too. The metrics CSV holds
+  numbers or blanks in ``value`` and the notes in their own column ``note``.
 
 A row of the traces at the time of an instantaneous event (bolus, replace, remove, start of a
 hold) shows the state just after it (scenario format). For the segment that ends at such a row,
@@ -45,6 +61,7 @@ CSV and the printed table are converted to the scenario's ``[output]`` units.
 from __future__ import annotations
 
 import csv
+import dataclasses
 import io
 import math
 from collections.abc import Mapping, Sequence
@@ -57,18 +74,24 @@ from ..model import OutputUnits, Scenario
 from ..units import unit_factor
 
 __all__ = [
+    "CLOSED_RECEPTOR_FRACTION",
+    "STEADY_WINDOW_LAGS",
     "BarrierMetrics",
     "CompartmentMetrics",
     "LagFit",
     "Metrics",
     "TerminalFit",
     "application_times",
+    "applied_to",
+    "closed_receptor_time",
+    "first_interval_end",
     "auc",
     "barrier_metrics",
     "compute_metrics",
     "dosing_intervals",
     "exposure_metrics",
     "jump_times",
+    "last_input_end",
     "terminal_fit",
     "time_above",
     "time_lag_fit",
@@ -88,11 +111,21 @@ For measured data 1e-4 is common practice; a simulated trace has no measurement 
 loss of adjusted R^2 comes from the curvature of an earlier phase, and 1e-4 would take in enough
 of it to bias lambda_z by a few tenths of a percent on a biexponential curve. Hence the stricter
 default; pass ``adj_r2_tolerance=1e-4`` to follow the measured-data practice."""
-CSV_COLUMNS = ("kind", "id", "metric", "value", "unit")
-"""Columns of the metrics CSV (``barrierflow run --metrics OUT.csv``)."""
+STEADY_WINDOW_LAGS = 1.0
+"""Time-lag method: the steady window must last at least this many apparent lag times."""
+CLOSED_RECEPTOR_FRACTION = 0.1
+"""A closed receptor above this fraction of the donor side's C/K breaks the sink condition of the
+time-lag method (common practice: the 10 % of OECD Test Guideline 428's sink condition)."""
+EXHAUSTED_FRACTION = 1e-3
+"""An applied formulation holding less than this fraction of what was applied to it counts as
+exhausted: its input has ended (this project's choice)."""
+CSV_COLUMNS = ("kind", "id", "metric", "value", "unit", "note")
+"""Columns of the metrics CSV (``barrierflow run --metrics OUT.csv``): ``value`` is a number or
+blank; ``note`` says why a value is blank, or flags one that needs care."""
 
+_LAST_APPLICATION = "last application"
 _ADDING = ("bolus", "infusion", "hold", "replace")
-_JUMPING = ("bolus", "replace", "remove", "hold")
+_JUMPING = ("bolus", "replace", "remove", "hold", "sample")
 
 
 # ----------------------------------------------------------------------------- small helpers
@@ -385,11 +418,12 @@ def time_above(t: Sequence[float], c: Sequence[float], threshold: float, jumps: 
 
 
 def application_times(scenario: Scenario, end: float | None = None) -> tuple[float, ...]:
-    """Times at which substance is applied: time 0 if a compartment starts loaded, and the start
-    of every bolus, infusion, hold and replace dose up to ``end`` (default: the duration), h."""
+    """Times at which substance is applied: time 0 if a compartment or a barrier layer starts
+    loaded, and the start of every bolus, infusion, hold and replace dose up to ``end`` (default:
+    the duration), h."""
     end = scenario.duration if end is None else end
     times = set()
-    if any(c.starting_concentration > 0 for c in scenario.compartments):
+    if any(c.starting_concentration > 0 for c in scenario.compartments) or any(b.loaded for b in scenario.barriers):
         times.add(0.0)
     for d in scenario.doses:
         if d.kind in _ADDING:
@@ -405,6 +439,94 @@ def jump_times(scenario: Scenario, cid: str, end: float | None = None) -> tuple[
         if d.target == cid and d.kind in _JUMPING:
             out.update(d.start_times(end))
     return tuple(sorted(out))
+
+
+def _ends_application(d: Any) -> bool:
+    """A dose that takes an applied formulation off: a full remove, one that ends contact, or a
+    replace or hold at zero (a wash with blank vehicle)."""
+    if d.kind == "remove":
+        return d.removed_fraction >= 1.0 or d.closes
+    return d.kind in ("replace", "hold") and d.concentration == 0
+
+
+def last_input_end(scenario: Scenario, result: Any = None, end: float | None = None) -> tuple[float | None, str]:
+    """When the last input of the regimen ended, h; None (and why) when one still acts at the end.
+
+    Inputs and their ends: a bolus, and the starting content of a compartment or a loaded layer,
+    end when given; an infusion or a hold above zero at the end of its duration. A formulation
+    applied to the ``from`` side of a barrier (its starting content, a bolus, a refill) keeps
+    delivering until it is taken off (a full remove, a remove that ends contact, a replace or hold
+    at zero) or, with ``result``, until it is exhausted (less than :data:`EXHAUSTED_FRACTION` of
+    what it held after its last application). A held compartment above zero never ends.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    result : Result, optional
+        The run, to see when an applied formulation is exhausted.
+    end : float or None, h
+        End of the traces (default: the duration).
+
+    Returns
+    -------
+    time : float or None, h
+    reason : str
+        Which input still acts at the end ("" when ``time`` is a number).
+    """
+    end = scenario.duration if end is None else end
+    sites = {b.from_id for b in scenario.barriers}
+    ends: list[float] = [0.0]
+    ongoing: list[str] = []
+    applied: dict[str, list[float]] = {}
+    for c in scenario.compartments:
+        if c.held:
+            if c.held_concentration > 0:
+                ongoing.append(f"compartment '{c.id}' is held above zero (an infinite dose)")
+        elif c.initial_concentration > 0 and c.id in sites:
+            applied.setdefault(c.id, []).append(0.0)
+    for i, d in enumerate(scenario.doses, start=1):
+        times = d.start_times(end)
+        if not times:
+            continue
+        adds = d.kind == "bolus" or (d.kind == "replace" and d.concentration > 0)
+        if adds and d.target in sites:
+            applied.setdefault(d.target, []).extend(times)
+        elif d.kind == "bolus":
+            ends.append(max(times))
+        elif d.kind in ("infusion", "hold") and (d.kind == "infusion" or d.concentration > 0):
+            stop = max(times) + d.duration
+            if stop >= end * (1 - 1e-12):
+                ongoing.append(f"dose {i} ({d.kind} on '{d.target}') runs to the end of the run")
+            else:
+                ends.append(stop)
+    for cid, starts in applied.items():
+        last = max(starts)
+        offs = [t for d in scenario.doses if d.target == cid and _ends_application(d)
+                for t in d.start_times(end) if t >= last]
+        if offs:
+            ends.append(min(offs))
+            continue
+        gone = _exhausted(result, cid, last) if result is not None else None
+        if gone is not None:
+            ends.append(gone)
+        else:
+            ongoing.append(f"the formulation applied to '{cid}' at {last:.4g} h is neither taken off nor exhausted "
+                           "by the end of the run")
+    if ongoing:
+        return None, "; ".join(ongoing)
+    return max(ends), ""
+
+
+def _exhausted(result: Any, cid: str, start: float) -> float | None:
+    """The first output time from ``start`` on at which ``cid`` holds less than
+    :data:`EXHAUSTED_FRACTION` of what it held at ``start``, or None."""
+    t = np.asarray(result.times, dtype=float)
+    m = np.asarray(result.amount(cid), dtype=float)
+    rows = np.nonzero(t >= start - 1e-9 * max(abs(float(t[-1])), 1.0))[0]
+    if not len(rows) or not m[rows[0]] > 0:
+        return None
+    low = np.nonzero(m[rows] < EXHAUSTED_FRACTION * m[rows[0]])[0]
+    return float(t[rows[low[0]]]) if len(low) else None
 
 
 def dosing_intervals(applications: Sequence[float], end: float) -> tuple[tuple[float, float], ...]:
@@ -456,6 +578,8 @@ class LagFit:
     points : int
     r2 : float
         R^2 of the line.
+    reason : str
+        Why ``lag_time`` and ``steady_flux`` are NaN ("" when they are not).
     """
 
     lag_time: float
@@ -463,13 +587,15 @@ class LagFit:
     window: tuple[float, float]
     points: int
     r2: float
+    reason: str = ""
 
 
 _NO_LAG = LagFit(NAN, NAN, (NAN, NAN), 0, NAN)
 
 
 def time_lag_fit(t: Sequence[float], permeated: Sequence[float], flux: Sequence[float], *,
-                 origin: float = 0.0, end: float | None = None, tolerance: float = LAG_TOLERANCE) -> LagFit:
+                 origin: float = 0.0, end: float | None = None, tolerance: float = LAG_TOLERANCE,
+                 window_lags: float = STEADY_WINDOW_LAGS) -> LagFit:
     """Apparent lag time and steady flux by the classic time-lag method.
 
     Parameters
@@ -485,22 +611,37 @@ def time_lag_fit(t: Sequence[float], permeated: Sequence[float], flux: Sequence[
         Last time to consider (the next application; default: the end of the trace).
     tolerance : float
         The window holds the points around the peak flux within this fraction of it.
+    window_lags : float
+        A straight steady line exists only when the window reaches the end of the interval
+        considered (the flux does not fall again: no transient peak) and lasts at least this many
+        apparent lag times (and 3 points); otherwise the values are NaN with the reason.
 
     Returns
     -------
     LagFit
-        NaN values when fewer than 3 points qualify or the peak flux is not > 0.
+        NaN values, with ``reason``, when fewer than 3 points qualify, the peak flux is not > 0,
+        or the window is too short to be a steady line.
+
+    Examples
+    --------
+    A flux that rises to a peak and falls again (a finite dose) has no steady line:
+
+    >>> import numpy as np
+    >>> t = np.linspace(0, 24, 97); j = t * np.exp(-t / 4); q = np.cumsum(j) * 0.25
+    >>> fit = time_lag_fit(t, q, j)
+    >>> fit.lag_time != fit.lag_time, fit.reason.startswith("no steady line")
+    (True, True)
     """
     t, q, j = _asarray(t), _asarray(permeated), _asarray(flux)
     hi = t[-1] if end is None else end
     sel = np.nonzero((t >= origin) & (t <= hi * (1 + 1e-12) + 1e-12))[0]
     if len(sel) < 3:
-        return _NO_LAG
+        return dataclasses.replace(_NO_LAG, reason="fewer than 3 output times in the first dosing interval")
     js = j[sel]
     k = int(np.argmax(js))
     peak = js[k]
     if not peak > 0:
-        return _NO_LAG
+        return dataclasses.replace(_NO_LAG, reason="nothing crossed the barrier (the flux never rises above 0)")
     good = js >= (1.0 - tolerance) * peak
     lo_k = k
     while lo_k > 0 and good[lo_k - 1]:
@@ -510,15 +651,28 @@ def time_lag_fit(t: Sequence[float], permeated: Sequence[float], flux: Sequence[
         hi_k += 1
     rows = sel[lo_k:hi_k + 1]
     if len(rows) < 3:
-        return _NO_LAG
+        return dataclasses.replace(_NO_LAG, reason=f"no steady line: the flux stays within {tolerance:.0%} of its "
+                                   f"peak at fewer than 3 output times")
     x, y = t[rows], q[rows]
     slope, icpt = np.polyfit(x, y, 1)
     resid = y - (slope * x + icpt)
     ss = float(np.sum((y - y.mean()) ** 2))
     r2 = 1.0 - float(np.sum(resid**2)) / ss if ss > 0 else 1.0
     if not slope > 0:
-        return _NO_LAG
-    return LagFit(float(-icpt / slope - origin), float(slope), (float(x[0]), float(x[-1])), len(rows), r2)
+        return dataclasses.replace(_NO_LAG, reason="no steady line: the cumulative amount does not rise")
+    lag = float(-icpt / slope - origin)
+    span = float(x[-1] - x[0])
+    blank = dataclasses.replace(_NO_LAG, window=(float(x[0]), float(x[-1])), points=len(rows), r2=r2)
+    if hi_k < len(js) - 1:
+        return dataclasses.replace(blank, reason=(
+            f"no steady line: the flux falls more than {tolerance:.0%} below its peak (at {t[sel[k]]:.4g} h) again "
+            f"by {t[sel[hi_k + 1]]:.4g} h, within the first dosing interval: a transient peak (a finite dose running "
+            "out, a receptor filling up), not a steady state"))
+    if span < window_lags * abs(lag):
+        return dataclasses.replace(blank, reason=(
+            f"no steady line yet: the flux is steady only from {x[0]:.4g} h to {x[-1]:.4g} h, shorter than the "
+            f"apparent lag ({abs(lag):.4g} h); a longer run (or first dosing interval) would show one"))
+    return LagFit(lag, float(slope), (float(x[0]), float(x[-1])), len(rows), r2)
 
 
 # ----------------------------------------------------------------------------- typed table
@@ -563,6 +717,8 @@ class CompartmentMetrics:
         AUC of the last interval over the first (NaN with fewer than 2 intervals).
     steady_state_reached : bool or None
         Last two intervals' AUC within 5 % (None with fewer than 2 intervals).
+    notes : dict of str to str
+        Metric name to why it is blank, or to a flag on a value that needs care.
     """
 
     id: str
@@ -586,6 +742,7 @@ class CompartmentMetrics:
     interval_aucs: tuple[float, ...]
     accumulation_ratio: float
     steady_state_reached: bool | None
+    notes: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -619,6 +776,9 @@ class BarrierMetrics:
         Amount left in the barrier at the end.
     content_fraction : float
         ``content / applied``.
+    notes : dict of str to str
+        Metric name to why it is blank, or to a flag on a value that needs care (a closed
+        receptor that biases the time-lag method).
     """
 
     id: str
@@ -635,6 +795,7 @@ class BarrierMetrics:
     fraction_absorbed: float
     content: float
     content_fraction: float
+    notes: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
 
@@ -671,6 +832,8 @@ class Metrics:
     output_units : OutputUnits
         Units of :meth:`to_rows`, :meth:`to_csv` and :meth:`to_text`.
     molar_mass : float or None, mg/mmol
+    input_end : float or None, h
+        When the last input ended (see :func:`last_input_end`; None when one acts to the end).
     """
 
     compartments: tuple[CompartmentMetrics, ...]
@@ -680,6 +843,7 @@ class Metrics:
     duration: float
     output_units: OutputUnits = OutputUnits()
     molar_mass: float | None = None
+    input_end: float | None = None
 
     def compartment(self, cid: str) -> CompartmentMetrics:
         """Metrics of compartment ``cid``."""
@@ -714,6 +878,7 @@ class Metrics:
             "compartments": {m.id: {k: clean(v) for k, v in asdict(m).items() if k != "id"}
                              for m in self.compartments},
             "barriers": {m.id: {k: clean(v) for k, v in asdict(m).items() if k != "id"} for m in self.barriers},
+            "input_end_h": clean(self.input_end) if self.input_end is not None else None,
         }
 
     def _factors(self, units: OutputUnits | None) -> dict[str, tuple[float, str]]:
@@ -730,59 +895,66 @@ class Metrics:
             "%": (1.0, "%"), "1": (1.0, ""), "count": (1.0, ""), "bool": (1.0, ""),
         }
 
-    def to_rows(self, units: OutputUnits | None = None) -> list[tuple[str, str, str, Any, str]]:
-        """Rows ``(kind, id, metric, value, unit)`` in ``units`` (default: the scenario's output units).
+    def to_rows(self, units: OutputUnits | None = None) -> list[tuple[str, str, str, Any, str, str]]:
+        """Rows ``(kind, id, metric, value, unit, note)`` in ``units`` (default: the scenario's output units).
 
-        ``kind`` is ``compartment`` or ``barrier``; missing values are None; every dosing
-        interval's AUC is a row ``auc_interval_<n>``.
+        ``kind`` is ``compartment`` or ``barrier``; missing values are None, with the reason in
+        ``note``; ``note`` also flags a value that needs care; every dosing interval's AUC is a
+        row ``auc_interval_<n>``.
         """
         fac = self._factors(units)
-        rows: list[tuple[str, str, str, Any, str]] = []
+        rows: list[tuple[str, str, str, Any, str, str]] = []
 
-        def put(kind: str, ident: str, name: str, value: Any, ukind: str) -> None:
+        def put(kind: str, ident: str, name: str, value: Any, ukind: str, notes: Mapping[str, str]) -> None:
             f, unit = fac[ukind]
+            note = notes.get(name, "")
             if value is None or (isinstance(value, float) and math.isnan(value)):
-                rows.append((kind, ident, name, None, unit))
+                rows.append((kind, ident, name, None, unit, note))
             elif ukind == "bool":
-                rows.append((kind, ident, name, bool(value), unit))
+                rows.append((kind, ident, name, bool(value), unit, note))
             elif ukind == "count":
-                rows.append((kind, ident, name, int(value), unit))
+                rows.append((kind, ident, name, int(value), unit, note))
             else:
-                rows.append((kind, ident, name, float(value) * f, unit))
+                rows.append((kind, ident, name, float(value) * f, unit, note))
 
         for m in self.compartments:
             for fld in fields(m):
                 name = fld.name
                 if name in _C_UNITS:
-                    put("compartment", m.id, name, getattr(m, name), _C_UNITS[name])
-            put("compartment", m.id, "interval_start", m.interval[0], "time")
-            put("compartment", m.id, "interval_end", m.interval[1], "time")
+                    put("compartment", m.id, name, getattr(m, name), _C_UNITS[name], m.notes)
+            put("compartment", m.id, "interval_start", m.interval[0], "time", m.notes)
+            put("compartment", m.id, "interval_end", m.interval[1], "time", m.notes)
             for i, a in enumerate(m.interval_aucs, start=1):
-                put("compartment", m.id, f"auc_interval_{i}", a, "auc")
+                put("compartment", m.id, f"auc_interval_{i}", a, "auc", m.notes)
         for m in self.barriers:
             for fld in fields(m):
                 name = fld.name
                 if name in _B_UNITS:
-                    put("barrier", m.id, name, getattr(m, name), _B_UNITS[name])
-            put("barrier", m.id, "lag_window_start", m.lag_window[0], "time")
-            put("barrier", m.id, "lag_window_end", m.lag_window[1], "time")
+                    put("barrier", m.id, name, getattr(m, name), _B_UNITS[name], m.notes)
+            put("barrier", m.id, "lag_window_start", m.lag_window[0], "time", m.notes)
+            put("barrier", m.id, "lag_window_end", m.lag_window[1], "time", m.notes)
         return rows
 
     def to_csv(self, units: OutputUnits | None = None) -> str:
-        """The rows of :meth:`to_rows` as CSV text with the columns :data:`CSV_COLUMNS`."""
+        """The rows of :meth:`to_rows` as CSV text with the columns :data:`CSV_COLUMNS`.
+
+        Every ``value`` is a number or blank (a yes/no metric is 1 or 0), so a statistics tool
+        reads the column as numbers; the reasons and flags are in ``note``.
+        """
         buf = io.StringIO()
         w = csv.writer(buf, lineterminator="\n")
         w.writerow(CSV_COLUMNS)
-        for kind, ident, name, value, unit in self.to_rows(units):
+        for kind, ident, name, value, unit, note in self.to_rows(units):
             if value is None:
                 text = ""
             elif isinstance(value, bool):
-                text = "true" if value else "false"
+                text = "1" if value else "0"
+                note = note or "1 = yes, 0 = no"
             elif isinstance(value, int):
                 text = str(value)
             else:
                 text = format(value, ".10g")
-            w.writerow((kind, ident, name, text, unit))
+            w.writerow((kind, ident, name, text, unit, note))
         return buf.getvalue()
 
     def to_text(self, units: OutputUnits | None = None) -> str:
@@ -836,6 +1008,8 @@ def exposure_metrics(
     threshold: float | None = None,
     cid: str = "",
     adj_r2_tolerance: float = ADJ_R2_TOLERANCE,
+    input_end: float | None | str = _LAST_APPLICATION,
+    input_reason: str = "",
 ) -> CompartmentMetrics:
     """Exposure metrics of one concentration trace.
 
@@ -854,10 +1028,17 @@ def exposure_metrics(
         Id to store.
     adj_r2_tolerance : float
         For the terminal fit (see :func:`terminal_fit`).
+    input_end : float, None or ``"last application"``, h
+        When the last input ended (:func:`last_input_end`): the terminal phase is fitted after it.
+        None means an input still acts at the end: no terminal phase (``input_reason`` says
+        why). The default, for a bare trace, is the last of ``applications``.
+    input_reason : str
+        Why no input end is known (a note on the blank terminal metrics).
 
     Returns
     -------
     CompartmentMetrics
+        Blank (NaN) metrics carry their reason in ``notes``.
     """
     t, c = _asarray(t), _asarray(c)
     end = float(t[-1])
@@ -878,15 +1059,27 @@ def exposure_metrics(
         vals.append(_interp_trace(t, c, b))
     cmin = float(min(vals)) if vals else NAN
     cmax_i = float(max(vals)) if vals else NAN
-    # terminal phase: after the last application and after the Cmax that follows it
-    last_app = max([x for x in applications if x <= end], default=float(t[0]))
-    after_mask = t >= last_app
-    if np.any(after_mask):
-        j0 = int(np.nonzero(after_mask)[0][0])
-        kk = j0 + int(np.argmax(c[j0:]))
-        fit = terminal_fit(t, c, after=float(t[kk]), adj_r2_tolerance=adj_r2_tolerance)
+    # terminal phase: after the last input has ended and after the Cmax that follows it
+    notes: dict[str, str] = {}
+    if input_end == _LAST_APPLICATION:
+        input_end = max([x for x in applications if x <= end], default=float(t[0]))
+    fit = _NO_FIT
+    if input_end is None:
+        why = f"no terminal phase: an input still acts at the end of the run ({input_reason})"
     else:
-        fit = _NO_FIT
+        after_mask = t >= float(input_end) - 1e-9 * max(abs(end), 1.0)
+        why = ""
+        if np.any(after_mask):
+            j0 = int(np.nonzero(after_mask)[0][0])
+            kk = j0 + int(np.argmax(c[j0:]))
+            fit = terminal_fit(t, c, after=float(t[kk]), adj_r2_tolerance=adj_r2_tolerance)
+        if not fit.lambda_z > 0:
+            why = (f"no terminal phase: fewer than 3 falling, positive points after the last input ended "
+                   f"({float(input_end):.4g} h) and the highest value after it")
+    if why:
+        for name in ("auc_inf", "auc_extrapolated_percent", "lambda_z", "half_life", "terminal_start",
+                     "terminal_adj_r2"):
+            notes[name] = why
     if fit.lambda_z > 0:
         auc_inf = total + float(c[-1]) / fit.lambda_z
         extra = 100.0 * (auc_inf - total) / auc_inf if auc_inf > 0 else NAN
@@ -901,6 +1094,14 @@ def exposure_metrics(
     steady = None
     if n_int >= 2 and aucs[-1] > 0:
         steady = bool(abs(aucs[-1] - aucs[-2]) <= STEADY_STATE_TOLERANCE * abs(aucs[-1]))
+    if threshold is None:
+        notes["threshold"] = notes["time_above"] = "no threshold given"
+    if n_int < 2:
+        notes["accumulation_ratio"] = notes["steady_state_reached"] = "a single dosing interval"
+    elif acc != acc or steady is None:
+        notes.setdefault("accumulation_ratio", "no exposure in the first dosing interval")
+        if steady is None:
+            notes["steady_state_reached"] = "no exposure in the last dosing interval"
     return CompartmentMetrics(
         id=cid, cmax=cmax, tmax=tmax, cmin=cmin, cmax_interval=cmax_i, interval=(float(a), float(b)),
         auc=total, auc_inf=auc_inf, auc_extrapolated_percent=extra, lambda_z=fit.lambda_z,
@@ -908,7 +1109,7 @@ def exposure_metrics(
         terminal_adj_r2=fit.adj_r2, c_avg=total / span if span > 0 else NAN,
         c_avg_interval=aucs[-1] / (b - a) if b > a else NAN,
         threshold=threshold, time_above=None if threshold is None else time_above(t, c, threshold, jumps),
-        interval_aucs=aucs, accumulation_ratio=acc, steady_state_reached=steady,
+        interval_aucs=aucs, accumulation_ratio=acc, steady_state_reached=steady, notes=notes,
     )
 
 
@@ -930,6 +1131,8 @@ def barrier_metrics(
     *,
     bid: str = "",
     lag_tolerance: float = LAG_TOLERANCE,
+    lag_flag: str = "",
+    lag_end: float | None = None,
 ) -> BarrierMetrics:
     """Metrics of one barrier from its traces.
 
@@ -950,10 +1153,16 @@ def barrier_metrics(
     bid : str
     lag_tolerance : float
         See :func:`time_lag_fit`.
+    lag_flag : str
+        A flag on the time-lag values (a closed receptor that breaks the sink condition).
+    lag_end : float or None, h
+        Where the time-lag method stops looking (default: the second application): a wash-off
+        ends the first exposure too.
 
     Returns
     -------
     BarrierMetrics
+        Blank (NaN) metrics carry their reason in ``notes``.
     """
     t, j, q, m = _asarray(t), _asarray(flux), _asarray(permeated), _asarray(content)
     # the first time the flux comes within PEAK_TOLERANCE of its peak (a plateau has no single top)
@@ -962,34 +1171,80 @@ def barrier_metrics(
     apps = sorted(x for x in applications if x <= t[-1])
     origin = apps[0] if apps else float(t[0])
     nxt = apps[1] if len(apps) > 1 else None
+    if lag_end is not None and (nxt is None or lag_end < nxt):
+        nxt = lag_end
     fit = time_lag_fit(t, q, j, origin=origin, end=nxt, tolerance=lag_tolerance)
     perm_amount = float(q[-1]) * area
     finite = math.isfinite(applied) and applied > 0
+    notes: dict[str, str] = {}
+    lag_notes = "; ".join(x for x in (fit.reason, lag_flag) if x)
+    if lag_notes:
+        for name in ("lag_time", "steady_flux", "lag_window_start", "lag_window_end", "lag_points", "lag_r2"):
+            notes[name] = lag_notes
+    if not finite:
+        why = ("an infinite dose (a held source): no applied amount to divide by" if applied == math.inf
+               else "nothing was applied to the barrier's 'from' side")
+        notes["fraction_absorbed"] = notes["content_fraction"] = why
     return BarrierMetrics(
         id=bid, peak_flux=top, peak_flux_time=float(t[k]), permeated=float(q[-1]),
         permeated_amount=perm_amount, lag_time=fit.lag_time, steady_flux=fit.steady_flux,
         lag_window=fit.window, lag_points=fit.points, lag_r2=fit.r2, applied=float(applied),
         fraction_absorbed=perm_amount / applied if finite else NAN, content=float(m[-1]),
-        content_fraction=float(m[-1]) / applied if finite else NAN,
+        content_fraction=float(m[-1]) / applied if finite else NAN, notes=notes,
     )
 
 
 # ----------------------------------------------------------------------------- on a Result
-def applied_dose(result: Any) -> float:
-    """The applied dose of a run, mg: initial amounts plus all that was dosed into compartments
-    that are not held; ``inf`` when a held compartment above 0 supplies (an infinite dose)."""
+def applied_to(result: Any, cid: str, barrier: Any = None) -> float:
+    """The amount applied to compartment ``cid`` over the run, mg.
+
+    What it held at the start plus every dose into it: boluses, refills, infusions, the rise
+    of a hold and what a hold above its content supplied. What a hold or a wash-off took away is
+    never subtracted. ``inf`` for a compartment held above zero (an infinite dose). With
+    ``barrier``, what its own layers held at the start is added (a loaded patch matrix).
+
+    Parameters
+    ----------
+    result : Result
+    cid : str
+        Compartment id (the ``from`` side of a barrier, for the fraction absorbed).
+    barrier : Barrier, optional
+
+    Returns
+    -------
+    float, mg
+    """
     sc = result.scenario
-    total = 0.0
-    for comp in sc.compartments:
-        if comp.held:
-            if comp.held_concentration and comp.held_concentration > 0:
-                return math.inf
-            continue
-        total += comp.initial_concentration * (comp.volume or 0.0)
-        dosed = np.asarray(result.dosed(comp.id), dtype=float)
-        if len(dosed):
-            total += float(dosed[-1])
-    return total
+    comp = sc.compartment(cid)
+    if comp.held:
+        return math.inf if comp.held_concentration > 0 else 0.0
+    total = comp.initial_concentration * (comp.volume or 0.0)
+    if barrier is not None:
+        total += sum(layer.initial_concentration * layer.thickness * barrier.area for layer in barrier.layers)
+    tr = result.trajectory
+    m = tr.model
+    i = m.comp_index[cid]
+    events = np.diff(np.concatenate(([0.0], np.asarray(tr.event_dosed[:, i], dtype=float))))
+    supply = np.diff(np.concatenate(([0.0], np.asarray(tr.states[:, m.q_supply + i], dtype=float))))
+    infused = float(tr.states[-1, m.q_infused + i]) if len(tr.states) else 0.0
+    return float(total + np.sum(np.maximum(events, 0.0)) + np.sum(np.maximum(supply, 0.0)) + infused)
+
+
+def closed_receptor_time(result: Any, barrier: Any, start: float, stop: float) -> float | None:
+    """The first output time in [start, stop] at which barrier's closed ``to`` compartment holds
+    a C/K above :data:`CLOSED_RECEPTOR_FRACTION` of the ``from`` side's (None when it never does,
+    or when ``to`` is held, a sink)."""
+    sc = result.scenario
+    to, frm = sc.compartment(barrier.to_id), sc.compartment(barrier.from_id)
+    if to.held:
+        return None
+    t = np.asarray(result.times, dtype=float)
+    u_to = np.asarray(result.concentration(to.id), dtype=float) / to.partition
+    u_from = np.asarray(result.concentration(frm.id), dtype=float) / frm.partition
+    tol = 1e-9 * max(abs(float(t[-1])), 1.0)
+    rows = np.nonzero((t >= start - tol) & (t <= stop + tol) & (u_from > 0)
+                      & (u_to > CLOSED_RECEPTOR_FRACTION * u_from))[0]
+    return float(t[rows[0]]) if len(rows) else None
 
 
 def compute_metrics(result: Any, threshold: float | Mapping[str, float] | None = None, *,
@@ -1017,16 +1272,40 @@ def compute_metrics(result: Any, threshold: float | Mapping[str, float] | None =
     end = float(t[-1])
     apps = application_times(sc, end)
     intervals = dosing_intervals(apps, end) or ((float(t[0]), end),)
+    input_end, input_reason = last_input_end(sc, result, end)
     comps = []
     for comp in sc.compartments:
         thr = threshold.get(comp.id) if isinstance(threshold, Mapping) else threshold
         comps.append(exposure_metrics(t, result.concentration(comp.id), apps or (float(t[0]),),
                                       jumps=jump_times(sc, comp.id, end), threshold=thr, cid=comp.id,
-                                      adj_r2_tolerance=adj_r2_tolerance))
-    dose = applied_dose(result)
+                                      adj_r2_tolerance=adj_r2_tolerance, input_end=input_end,
+                                      input_reason=input_reason))
     bars = []
     for b in sc.barriers:
-        bars.append(barrier_metrics(t, result.flux(b.id), result.permeated(b.id), result.content(b.id),
-                                    b.area, dose, apps or (float(t[0]),), bid=b.id, lag_tolerance=lag_tolerance))
+        dose = applied_to(result, b.from_id, b)
+        flux, perm = result.flux(b.id), result.permeated(b.id)
+        origin = min(apps) if apps else float(t[0])
+        stop = first_interval_end(sc, b.from_id, apps, end)
+        when = closed_receptor_time(result, b, origin, stop)
+        flag = "" if when is None else (
+            f"biased: the closed receptor '{b.to_id}' rises above {CLOSED_RECEPTOR_FRACTION:.0%} of the donor side's "
+            f"concentration (partition considered) at {when:.4g} h, so it is no sink")
+        m = barrier_metrics(t, flux, perm, result.content(b.id), b.area, dose, apps or (float(t[0]),), bid=b.id,
+                            lag_tolerance=lag_tolerance, lag_flag=flag, lag_end=stop)
+        bars.append(m)
     return Metrics(tuple(comps), tuple(bars), tuple(apps), tuple(intervals), end - float(t[0]),
-                   sc.output_units, sc.substance.molar_mass)
+                   sc.output_units, sc.substance.molar_mass, input_end)
+
+
+def first_interval_end(scenario: Scenario, cid: str, apps: Sequence[float], end: float) -> float:
+    """End of the first dosing interval (``apps``: the application times), or the first time the
+    formulation on ``cid`` is taken off or partly removed, whichever comes first, h."""
+    first = min(apps) if apps else 0.0
+    later = [a for a in apps if a > first]
+    stop = min(later) if later else end
+    for d in scenario.doses:
+        if d.target == cid and (d.kind == "remove" or _ends_application(d)):
+            offs = [x for x in d.start_times(end) if x > first]
+            if offs:
+                stop = min(stop, min(offs))
+    return stop

@@ -74,8 +74,10 @@ def compare_rows(runs: Sequence[RunData], reference: int = 0,
     for i, run in enumerate(runs):
         for m in rows_in(run, units):
             k = (m["part"], m["id"], m["name"], m["unit"])
-            table.setdefault(k, {"part": m["part"], "id": m["id"], "name": m["name"], "metric": m["metric"],
-                                 "unit": m["unit"]})
+            row = table.setdefault(k, {"part": m["part"], "id": m["id"], "name": m["name"], "metric": m["metric"],
+                                       "unit": m["unit"], "note": ""})
+            if not row["note"] and m.get("note"):
+                row["note"] = f"{run.name}: {m['note']}" if len(runs) > 1 else m["note"]
             raw.setdefault(k, {})[i] = m["value"]
     rows = []
     for k, row in table.items():
@@ -118,6 +120,7 @@ def compare_columns(names: Sequence[str], reference: int = 0) -> list[dict[str, 
         if i != reference:
             cols.append({"field": f"r{i}", "headerName": f"{name} ÷ {names[reference]}", "minWidth": 140, "flex": 1,
                          "tooltipField": f"q{i}", "type": "rightAligned", "cellClass": "ratio-cell"})
+    cols.append({"field": "note", "headerName": "Note", "minWidth": 200, "flex": 2, "tooltipField": "note"})
     return cols
 
 
@@ -126,15 +129,17 @@ def comparison_csv(runs: Sequence[RunData], reference: int = 0, units: OutputUni
     run, in ``units`` (default: each run's scenario units)."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["run", "scenario", "kind", "id", "metric", "unit", "value", "ratio_to_reference"])
+    w.writerow(["run", "scenario", "kind", "id", "metric", "unit", "value", "ratio_to_reference", "note"])
     ref = {(m["part"], m["id"], m["name"]): m["value"] for m in rows_in(runs[reference], units)} if runs else {}
     for run in runs:
         for m in rows_in(run, units):
             v = m["value"]
             r = ratio(v, ref.get((m["part"], m["id"], m["name"])))
+            if isinstance(v, str):  # a yes/no metric as shown: a number in the file
+                v = {"yes": 1, "no": 0}.get(v, v)
             text = "" if v is None else (v if isinstance(v, str) else format(float(v), ".10g"))
             w.writerow([run.name, run.scenario_name, m["part"], m["id"], m["name"], m["unit"], text,
-                        "" if r is None else format(r, ".10g")])
+                        "" if r is None else format(r, ".10g"), m.get("note", "")])
     return buf.getvalue()
 
 

@@ -130,7 +130,7 @@ def test_steady_flux_doubles_with_the_partition_coefficient_in_the_comparison(ce
     assert float(by_name[("membrane", "lag_time")]["q1"]) == pytest.approx(1.0, rel=1e-3)
     assert by_name[("membrane", "steady_flux")]["r1"] == "2"
     text = comparison_csv(list(cell_runs))
-    assert text.splitlines()[0] == "run,scenario,kind,id,metric,unit,value,ratio_to_reference"
+    assert text.splitlines()[0] == "run,scenario,kind,id,metric,unit,value,ratio_to_reference,note"
 
 
 def test_profile_figure_shows_the_partition_jump():

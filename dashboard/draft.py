@@ -16,13 +16,15 @@ Layout of a draft (all values are strings unless said otherwise; ``""`` means "n
      "substance": {"name", "molar_mass", "solubility", "log_kow"},
      "output": {"time", "concentration", "amount", "area"},
      "compartments": [{"key", "id", "volume", "initial_concentration", "partition", "clearance",
-                       "vmax", "km", "held_concentration", "description"}, ...],
+                       "vmax", "km", "held_concentration", "evaporation_rate", "residual_volume",
+                       "loss_rate", "description"}, ...],
      "links": [{"key", "kind" ("barrier" | "exchange" | "transfer"), "id",
                 "from", "to" (compartment *keys*), "area", "model", "flow", "rate",
                 "layers": [{"key", "name", "thickness", "diffusivity", "partition", "cells",
-                            "degradation_rate"}, ...]}, ...],
+                            "degradation_rate", "initial_concentration"}, ...]}, ...],
      "doses": [{"key", "target" (a compartment id), "kind", "amount", "rate", "duration",
-                "concentration", "at", "every", "count"}, ...],
+                "concentration", "at", "every", "count", "volume", "replace", "fraction",
+                "ends_contact"}, ...],
      "positions": {compartment key: {"x": float, "y": float}}}
 
 Compartments and links carry a stable ``key`` so that renaming a compartment keeps its links,
@@ -112,6 +114,9 @@ COMPARTMENT_FIELDS: dict[str, tuple[str, str, str]] = _fields(Compartment, {
     "vmax": ("Saturable elimination, Vmax", "2 mg/h"),
     "km": ("Saturable elimination, Km", "0.1 mg/L"),
     "held_concentration": ("Held concentration", "0 mg/mL"),
+    "evaporation_rate": ("Evaporation rate", "4 uL/(cm^2*h)"),
+    "residual_volume": ("Residual volume", "0.5 uL/cm^2"),
+    "loss_rate": ("Loss to the air", "0.2 1/h"),
     "description": ("Description", "receptor fluid"),
 })
 LINK_FIELDS: dict[str, dict[str, tuple[str, str, str]]] = {
@@ -136,6 +141,7 @@ LAYER_FIELDS: dict[str, tuple[str, str, str]] = _fields(Layer, {
     "partition": ("Partition coefficient", "10"),
     "cells": ("Cells", "40"),
     "degradation_rate": ("Degradation rate", "0 1/h"),
+    "initial_concentration": ("Initial concentration", "5 mg/mL"),
 })
 DOSE_FIELDS: dict[str, tuple[str, str, str]] = _fields(Dose, {
     "target": ("Target", "donor"),
@@ -147,6 +153,10 @@ DOSE_FIELDS: dict[str, tuple[str, str, str]] = _fields(Dose, {
     "every": ("Every", "24 h"),
     "count": ("Count", "6"),
     "duration": ("Duration", "8 h"),
+    "volume": ("Volume", "0.5 mL"),
+    "replace": ("Replace the medium", "true"),
+    "fraction": ("Fraction removed", "0.9"),
+    "ends_contact": ("Ends contact", "true"),
 })
 SCENARIO_FIELDS = ("name", "description", "duration", "output_step")
 SUBSTANCE_FIELDS = ("name", "molar_mass", "solubility", "log_kow")
@@ -174,6 +184,7 @@ NEW_DOSE = {"kind": "bolus", "amount": "1 mg", "at": "0 h"}
 _ALL_FIELDS = (COMPARTMENT_FIELDS, *LINK_FIELDS.values(), LAYER_FIELDS, DOSE_FIELDS, SUBSTANCE_LABELS)
 _NUMBER_FIELDS = {k for table in _ALL_FIELDS for k, (_, kind, _) in table.items() if kind == "number"}
 _COUNT_FIELDS = {k for table in _ALL_FIELDS for k, (_, kind, _) in table.items() if kind == "count"}
+_FLAG_FIELDS = {k for table in _ALL_FIELDS for k, (_, kind, _) in table.items() if kind == "flag"}
 
 
 # ================================================================ building drafts
@@ -348,7 +359,11 @@ def _put(table: dict[str, Any], source: Mapping[str, str], fields: Iterable[str]
         v = source.get(k, "")
         if v is None or (isinstance(v, str) and not v.strip()):
             continue
-        if k in _COUNT_FIELDS:
+        if isinstance(v, bool):
+            table[k] = v
+        elif k in _FLAG_FIELDS:
+            table[k] = {"true": True, "false": False}.get(v.strip().lower(), v.strip())
+        elif k in _COUNT_FIELDS:
             table[k] = _number(v, whole=True)
         elif k in _NUMBER_FIELDS:
             table[k] = _number(v)

@@ -28,6 +28,7 @@ UNIT_HINT = {
     "molar_mass": "e.g. 250 g/mol",
     "number": "bare number, no unit",
     "count": "whole number",
+    "flag": "true or false",
     "id": "letters, digits, _ and -",
     "text": "free text",
 }

@@ -9,7 +9,7 @@ from dash import Input, Output, State, ctx, html, no_update
 from dash.exceptions import PreventUpdate
 
 from barrierflow.errors import ScenarioError, UnitsError
-from barrierflow.model import DOSE_KINDS, Dose
+from barrierflow.model import DOSE_KINDS, DOSE_OPTIONS, Dose
 from barrierflow.units import parse_quantity
 
 from .. import draft as D
@@ -18,20 +18,25 @@ from ..figures import dose_timeline_figure
 from .common import edited_rows, graph, message_list
 
 VALUE_COLUMNS = [
-    ("amount", "Amount", "bolus: mass, e.g. 2 mg"),
+    ("amount", "Amount", "bolus: mass, e.g. 2 mg, or per area of the target's barrier, e.g. 50 ug/cm^2"),
     ("concentration", "Concentration", "replace, hold: e.g. 20 mg/mL"),
     ("rate", "Rate", "infusion: mass per time, e.g. 0.1 mg/h"),
     ("duration", "Duration", "infusion, hold: e.g. 8 h"),
     ("at", "At", "first time, e.g. 0 h"),
     ("every", "Every", "repeat interval, e.g. 24 h; empty: once"),
     ("count", "Count", "how many in all; empty: until the end"),
+    ("volume", "Volume", "sample: the aliquot, e.g. 0.5 mL"),
+    ("replace", "Replace", "sample: true (the default) refills with fresh medium; false lets the volume shrink"),
+    ("fraction", "Fraction", "remove: the share of the content removed, e.g. 0.9; empty: 1"),
+    ("ends_contact", "Ends contact", "remove: true makes the barrier faces no-flux afterwards; empty: false"),
 ]
 KIND_HELP = {
     "bolus": "adds the amount at once",
     "infusion": "adds at a constant rate for the duration",
     "hold": "clamps the concentration for the duration (infinite dose)",
     "replace": "empties and refills at the concentration (fresh patch)",
-    "remove": "empties the compartment (wash-off)",
+    "remove": "empties the compartment, or a fraction of it (wash-off)",
+    "sample": "withdraws an aliquot, replaced by fresh medium unless replace is false",
 }
 
 
@@ -52,7 +57,7 @@ def column_defs(targets: list[str]) -> list[dict[str, Any]]:
          "tooltipValueGetter": {"function": "params.data._errors ? params.data._errors.kind : null"}},
     ]
     for name, label, hint in VALUE_COLUMNS:
-        used = [k for k, fields in DOSE_KINDS.items() if name in fields]
+        used = [k for k, fields in DOSE_KINDS.items() if name in fields or name in DOSE_OPTIONS.get(k, ())]
         rules = {"cell-invalid": f"params.data._errors && params.data._errors.{name}"}
         if used:
             rules["cell-unused"] = f"!{used!r}.includes(params.data.kind)".replace("'", '"')

@@ -25,6 +25,7 @@ COLUMNS = [
     ("partition", "K", "partition coefficient: bare number, e.g. 10", 62),
     ("cells", "Cells", "whole number; empty: the engine's choice", 62),
     ("degradation_rate", "Degradation", "rate, per time, e.g. 0.1 1/h; empty: none", 104),
+    ("initial_concentration", "Loaded", "concentration in the layer at the start, e.g. 5 mg/mL; empty: 0", 96),
 ]
 
 

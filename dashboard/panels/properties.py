@@ -18,16 +18,21 @@ from . import layers
 from .common import field_row
 
 COMPARTMENT_HELP = {
-    "volume": "volume, e.g. 5 mL, 15 L; may stay empty for a held compartment",
+    "volume": "volume, e.g. 5 mL, 15 L, or per area of its one barrier, e.g. 10 uL/cm^2; may stay empty for a "
+              "held compartment",
     "initial_concentration": "mass per volume, e.g. 20 mg/mL; empty: 0",
     "partition": "bare number, relative to the reference phase; empty: 1",
     "clearance": "volume per time, e.g. 10 L/h; empty: none",
     "vmax": "mass per time, e.g. 2 mg/h; give Km too",
     "km": "mass per volume, e.g. 0.1 mg/L; give Vmax too",
     "held_concentration": "empty for a normal compartment; '0 mg/mL' makes a perfect sink",
+    "evaporation_rate": "a volatile vehicle: volume per time, e.g. 0.1 mL/h, or per area, e.g. 4 uL/(cm^2*h); "
+                        "empty: none",
+    "residual_volume": "what evaporation leaves, e.g. 1 uL or 0.5 uL/cm^2 (with an evaporation rate)",
+    "loss_rate": "first-order loss of the solute to the air, per time, e.g. 0.2 1/h; empty: none",
 }
 COMPARTMENT_ORDER = ("id", "volume", "initial_concentration", "partition", "clearance", "vmax", "km",
-                     "held_concentration", "description")
+                     "held_concentration", "evaporation_rate", "residual_volume", "loss_rate", "description")
 LINK_ORDER = ("id", "area", "flow", "rate")
 LINK_KIND_OF = {"area": "barrier", "flow": "exchange", "rate": "transfer"}
 

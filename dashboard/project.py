@@ -67,6 +67,7 @@ MAX_NESTING = 32
 """Deepest nesting of JSON objects and arrays accepted."""
 
 _TRACES = ("conc", "amount", "eliminated", "removed", "dosed")
+_OPTIONAL_TRACES = ("sampled", "lost")  # the lab's protocol; a project written before them reads as zeros
 _BARRIER_TRACES = ("flux", "permeated", "content", "degraded", "uptake_flux")
 
 
@@ -181,6 +182,8 @@ def encode_run(data: RunData) -> dict[str, Any]:
         "volume": {c: data.volume.get(c) for c in data.compartments},
         "held": {c: bool(data.held.get(c)) for c in data.compartments},
         **{name: {c: encode_array(getattr(data, name)[c]) for c in data.compartments} for name in _TRACES},
+        **{name: {c: encode_array(getattr(data, name)[c]) for c in data.compartments}
+           for name in _OPTIONAL_TRACES if getattr(data, name)},
         "barriers": {bid: {
             "from": b.from_id, "to": b.to_id, "area": b.area, "model": b.model,
             "layer_names": list(b.layer_names), "interfaces": list(b.interfaces),
@@ -231,13 +234,22 @@ def _metrics(r: _Reader, obj: Any, field: str, scenario: Any) -> Metrics | None:
             r.bad(f"{field} {key}", items, "expected a list of tables")
             return ()
         names = [f.name for f in fields(cls)]
+        required = set(names) - {"notes"}  # notes: reasons for blanks and flags (absent from older files)
         for i, item in enumerate(items, start=1):
             item = r.table(item, f"{field} {key}[{i}]")
-            if set(item) != set(names):
+            if not required <= set(item) <= set(names):
                 r.bad(f"{field} {key}[{i}]", sorted(item), f"expected the keys {', '.join(names)}")
                 continue
             values = {}
             for f in fields(cls):
+                if f.name == "notes":
+                    notes = item.get("notes", {})
+                    if not (isinstance(notes, dict) and all(isinstance(k, str) and isinstance(v, str)
+                                                            for k, v in notes.items())):
+                        r.bad(f"{field} {key}[{i}] notes", notes, "expected a table of texts")
+                        notes = {}
+                    values["notes"] = dict(notes)
+                    continue
                 v = item[f.name]
                 if f.name == "id":
                     values["id"] = v if isinstance(v, str) else r.bad(f"{field} {key}[{i}] id", v, "expected text")
@@ -289,6 +301,13 @@ def decode_run(obj: Any, name: str, field: str, r: _Reader) -> RunData | None:
         for c in comps:
             # the amount in a held compartment without a volume is not defined (NaN)
             a = r.array(table.get(c), f"{field} {name_}.{c}", n, one, nan=name_ == "amount" and c in no_volume)
+            if a is not None:
+                traces[name_][c] = a
+    for name_ in _OPTIONAL_TRACES:
+        table = r.table(obj.get(name_, {}), f"{field} {name_}")
+        traces[name_] = {}
+        for c in comps:
+            a = r.array(table[c], f"{field} {name_}.{c}", n, one) if c in table else np.zeros(len(times))
             if a is not None:
                 traces[name_][c] = a
     barriers = {}
@@ -363,7 +382,7 @@ def decode_run(obj: Any, name: str, field: str, r: _Reader) -> RunData | None:
         warnings=tuple(warnings), status=status, message=message, stats=dict(stats),
         molar_mass=scenario.substance.molar_mass, dose_times=tuple((float(t), g, k) for t, g, k in doses),
         toml=toml, steady=steady_of(scenario), metrics_table=metrics, output_units=scenario.output_units,
-        links=links_of(scenario))
+        links=links_of(scenario), sampled=traces["sampled"], lost=traces["lost"])
 
 
 # ============================================================================ project files

@@ -81,7 +81,7 @@ def test_a_subject_is_the_single_run_of_its_own_values(bolus_population):
         cl = pop.subjects.values[k - 1, 0]
         alone = bf.simulate(with_values(dataclasses.replace(s, vary=()),
                                         {"compartment.central.clearance": cl * 1000.0}))
-        single = dict(((m, i), v) for _, i, m, v, _ in alone.metrics().to_rows())
+        single = dict(((m, i), v) for _, i, m, v, *_ in alone.metrics().to_rows())
         for name, value in zip(pop.subjects.metrics.names, pop.subjects.metrics.values[k - 1], strict=True):
             metric, ident = name.split(":")
             want = single[(metric, ident)]

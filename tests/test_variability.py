@@ -105,7 +105,8 @@ def test_a_single_run_is_the_same_with_or_without_variability():
      "pk.toml: vary 1 sd: got 2 mg; wrong kind of unit (mg); expected a flow or clearance (volume per time)"),
     ('path = "compartment.central.clearence"\ndistribution = "lognormal"\ncv = 0.3',
      "pk.toml: vary 1 path: got 'compartment.central.clearence'; did you mean 'clearance'? a compartment has the "
-     "fields id, volume, initial_concentration, partition, clearance, vmax, km, held_concentration, description"),
+     "fields id, volume, initial_concentration, partition, clearance, vmax, km, held_concentration, "
+     "evaporation_rate, residual_volume, loss_rate, description"),
     ('path = "compartment.blood.clearance"\ndistribution = "lognormal"\ncv = 0.3',
      "pk.toml: vary 1 path: got 'compartment.blood.clearance'; did you mean 'compartment.central.clearance'? names "
      "no compartment of the scenario (compartment ids: central, tissue)"),

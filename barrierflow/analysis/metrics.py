@@ -1206,6 +1206,8 @@ def applied_to(result: Any, cid: str, barrier: Any = None) -> float:
     Parameters
     ----------
     result : Result
+        Or anything with ``scenario`` and ``dose_parts(cid)`` (the cumulative amounts added by
+        events, infused, and supplied by holds, at each output time).
     cid : str
         Compartment id (the ``from`` side of a barrier, for the fraction absorbed).
     barrier : Barrier, optional
@@ -1221,13 +1223,12 @@ def applied_to(result: Any, cid: str, barrier: Any = None) -> float:
     total = comp.initial_concentration * (comp.volume or 0.0)
     if barrier is not None:
         total += sum(layer.initial_concentration * layer.thickness * barrier.area for layer in barrier.layers)
-    tr = result.trajectory
-    m = tr.model
-    i = m.comp_index[cid]
-    events = np.diff(np.concatenate(([0.0], np.asarray(tr.event_dosed[:, i], dtype=float))))
-    supply = np.diff(np.concatenate(([0.0], np.asarray(tr.states[:, m.q_supply + i], dtype=float))))
-    infused = float(tr.states[-1, m.q_infused + i]) if len(tr.states) else 0.0
-    return float(total + np.sum(np.maximum(events, 0.0)) + np.sum(np.maximum(supply, 0.0)) + infused)
+    events, infused, supply = (np.asarray(x, dtype=float) for x in result.dose_parts(cid))
+    if not len(events):
+        return float(total)
+    events = np.diff(np.concatenate(([0.0], events)))
+    supply = np.diff(np.concatenate(([0.0], supply)))
+    return float(total + np.sum(np.maximum(events, 0.0)) + np.sum(np.maximum(supply, 0.0)) + infused[-1])
 
 
 def closed_receptor_time(result: Any, barrier: Any, start: float, stop: float) -> float | None:

@@ -164,6 +164,12 @@ class _Subject:
     def dosed(self, cid: str) -> np.ndarray:
         return self._t.get("dosed", cid)[self._row]
 
+    def amount(self, cid: str) -> np.ndarray:
+        return self._t.get("amount", cid)[self._row]
+
+    def dose_parts(self, cid: str) -> tuple[np.ndarray, ...]:
+        return tuple(part[self._row] for part in self._t.get("dose_parts", cid))
+
 
 class _Traces:
     """The population's traces, each made once for all subjects."""
@@ -236,9 +242,9 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
             continue
         table = compute_metrics(_Subject(traces, i, scenarios[i])).to_rows()
         if names is None:
-            names = tuple(f"{metric}:{ident}" for _, ident, metric, _, _ in table)
-            units = tuple(unit for *_, unit in table)
-        out.append([_number(v) for *_, v, _ in table])
+            names = tuple(f"{metric}:{ident}" for _, ident, metric, *_ in table)
+            units = tuple(row[4] for row in table)
+        out.append([_number(row[3]) for row in table])
     if names is None:
         names, units = metric_names(scenarios[0] if scenarios else population.scenario)
     width = len(names)
@@ -269,7 +275,7 @@ def metric_names(scenario: Scenario) -> tuple[tuple[str, ...], tuple[str, ...]]:
     table = Metrics(tuple(blank(CompartmentMetrics, c.id) for c in scenario.compartments),
                     tuple(blank(BarrierMetrics, b.id) for b in scenario.barriers), tuple(apps), (), times[-1],
                     scenario.output_units, scenario.substance.molar_mass).to_rows()
-    return tuple(f"{m}:{i}" for _, i, m, _, _ in table), tuple(u for *_, u in table)
+    return tuple(f"{m}:{i}" for _, i, m, *_ in table), tuple(row[4] for row in table)
 
 
 def _number(v: Any) -> float:

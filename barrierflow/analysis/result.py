@@ -321,6 +321,16 @@ class Result:
         s = self.trajectory.states
         return self.trajectory.event_dosed[:, i] + s[:, m.q_infused + i] + s[:, m.q_supply + i]
 
+    def dose_parts(self, cid: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """What entered ``cid`` by each route, cumulative, mg: the instantaneous events (boluses,
+        refills, hold starts; a hold start below the content counts negative), infusions, and what
+        hold doses supplied to keep their level (negative when a hold took substance).
+        :meth:`dosed` is their sum."""
+        m = self.trajectory.model
+        i = self._c(cid)
+        s = self.trajectory.states
+        return self.trajectory.event_dosed[:, i].copy(), s[:, m.q_infused + i].copy(), s[:, m.q_supply + i].copy()
+
     def _link_rate(self, link: int, into: bool) -> np.ndarray:
         m = self.trajectory.model
         p, q = m.link_p[link], m.link_q[link]

@@ -246,6 +246,14 @@ class Population:
         """Cumulative amount taken out of ``cid`` by replace and remove doses, mg."""
         return self._removed[:, :, self._c(cid)].copy()
 
+    def dose_parts(self, cid: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """What entered ``cid`` by events, infusions and hold supplies, cumulative, mg (as
+        :meth:`barrierflow.analysis.Result.dose_parts`)."""
+        i = self._c(cid)
+        nc, nb = self._n_comp, self._n_bar
+        return (self._dosed[:, :, i].copy(), self._quad[:, :, nc + 2 * nb + nc + i].copy(),
+                self._quad[:, :, nc + 2 * nb + i].copy())
+
     def dosed(self, cid: str) -> np.ndarray:
         """Cumulative amount dosed into ``cid``, mg: boluses, infusions, refills and holds (as
         :meth:`barrierflow.analysis.Result.dosed`)."""

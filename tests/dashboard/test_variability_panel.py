@@ -39,7 +39,8 @@ def test_the_path_list_comes_from_the_scenario():
     options = P.path_options(BOLUS)
     values = [o["value"] for o in options]
     assert values == ["compartment.central.volume", "compartment.central.initial_concentration",
-                      "compartment.central.partition", "compartment.central.clearance", "dose.1.amount"]
+                      "compartment.central.partition", "compartment.central.clearance",
+                      "compartment.central.loss_rate", "dose.1.amount"]
     assert {"label": "compartment.central.clearance (5 L/h)", "value": "compartment.central.clearance"} in options
     assert "scenario.duration" not in values and "dose.1.at" not in values   # they shape the run
     assert P.path_options(None) == [] and P.path_options("not toml") == []

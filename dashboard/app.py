@@ -1,9 +1,11 @@
 """The app factory: :func:`create_app` builds the dashboard, one panel module after another.
 
 Each panel module (:mod:`dashboard.panels`) holds its layout and a ``register(app, services)``
-that attaches its callbacks with ``app.callback``. Each researcher's state lives only in
-``dcc.Store`` components in their page; the server keeps nothing per user except the packed
-runs in a disk cache keyed by a hash of the scenario (see :mod:`dashboard.runs`).
+that attaches its callbacks with ``app.callback``. Each researcher's state lives in
+``dcc.Store`` components in their page, no module holds any; what the page holds is also kept in
+the browser's session folder (:mod:`dashboard.sessions`), from which ``app.layout`` (a function)
+builds the page at every load. Packed runs are kept in a disk cache keyed by a hash of the
+scenario (:mod:`dashboard.runs`); background runs go through :mod:`dashboard.jobs`.
 """
 
 from __future__ import annotations

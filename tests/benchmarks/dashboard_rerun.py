@@ -2,11 +2,11 @@
 
 Run: ``.venv/bin/python tests/benchmarks/dashboard_rerun.py [--repeats 7] [--scenario PATH]``
 
-The dashboard is served in-process (a werkzeug thread) on the demo scenario; headless Debian
-chromium (``/usr/bin/chromium``) edits the partition coefficient of the first layer in the layer
-grid, clicks Run, and the clock runs from the click until the concentration plot shows the
-new run's curves. One warm-up run comes first (numba's compiled kernels are loaded from its
-cache then). Also printed, for the same scenario in this process: the simulation alone, the
+The dashboard is served in-process (waitress, as ``barrierflow serve`` serves it, its worker
+processes warmed first) on the demo scenario; headless Debian chromium (``/usr/bin/chromium``)
+edits the partition coefficient of the first layer in the layer grid, clicks Run, and the clock
+runs from the click until the concentration plot shows the new run's curves. One warm-up run
+comes first. Also printed, for the same scenario in this process: the simulation alone, the
 packing of its result for the plots, and the building of the concentration figure.
 
 Goal (issue 6): under a second per re-run on this machine. Absolute times are noisy on a
@@ -64,22 +64,25 @@ def server_side(path: Path, repeats: int) -> None:
 def browser_side(path: Path, repeats: int, chromium: str) -> list[float]:
     """Edit, click Run, wait for the new curves; return the seconds from click to curves."""
     from playwright.sync_api import sync_playwright
-    from werkzeug.serving import make_server
 
     from dashboard import create_app
+    from dashboard.runs import warm_up
+    from dashboard.server import make_server
 
-    logging.getLogger("werkzeug").setLevel(logging.ERROR)
+    logging.getLogger("waitress.queue").setLevel(logging.ERROR)
     with tempfile.TemporaryDirectory(prefix="barrierflow-bench-") as cache:
         app = create_app(path, cache_dir=cache)
-        server = make_server("127.0.0.1", 0, app.server, threaded=True)
-        thread = threading.Thread(target=server.serve_forever, daemon=True)
+        # as `barrierflow serve` does: the worker processes load the compiled engine before the first run
+        app.server.extensions["barrierflow"].workers.warm(warm_up, wait=True)
+        server = make_server(app, "127.0.0.1", 0)
+        thread = threading.Thread(target=server.run, daemon=True)
         thread.start()
         times = []
         try:
             with sync_playwright() as p:
                 browser = p.chromium.launch(executable_path=chromium, args=LAUNCH_ARGS, headless=True)
                 page = browser.new_page(viewport={"width": 1440, "height": 900})
-                page.goto(f"http://127.0.0.1:{server.server_port}/")
+                page.goto(f"http://127.0.0.1:{server.effective_port}/")
                 page.wait_for_selector("#steady-numbers", timeout=30_000)
                 cell = page.locator("#layer-grid .ag-center-cols-container .ag-row[row-index='0'] "
                                     ".ag-cell[col-id='partition']")
@@ -106,7 +109,7 @@ def browser_side(path: Path, repeats: int, chromium: str) -> list[float]:
                         times.append(elapsed)
                 browser.close()
         finally:
-            server.shutdown()
+            server.close()
             thread.join(timeout=10)
     return times
 

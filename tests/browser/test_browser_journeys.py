@@ -339,8 +339,8 @@ def test_profile_slider_shows_the_interface_jump(ui, tmp_path):
 
 def test_the_default_plot_of_the_demo_shows_plasma(ui):
     """Journey 9: the demo's default concentration view draws plasma inside its axis (the patch,
-    some 1e4 times more concentrated, on a panel of its own); plot and metrics table share one
-    unit; no legend covers an axis title."""
+    some 1e6 times more concentrated, on a panel of its own); plot and metrics table share one
+    unit; no legend covers an axis title; the caution stays on screen."""
     page = ui.page
     ui.open()
     ui.pick("example-pick", "Daily patch over two-layer skin into a two-compartment body (daily_patch.toml)")
@@ -372,8 +372,11 @@ def test_the_default_plot_of_the_demo_shows_plasma(ui):
     ui.tab("Concentrations")
     ui.idle()
 
-    # legends never cover an axis title (bounding boxes in the page)
-    for graph_id in ("fig-concentration",):
+    # legends never cover an axis title (bounding boxes in the page), on every tab with a legend
+    for tab, graph_id in (("Concentrations", "fig-concentration"), ("Barriers: flux and permeated", "fig-flux"),
+                          ("Barriers: flux and permeated", "fig-permeated"), ("Mass balance", "fig-balance")):
+        ui.tab(tab)
+        ui.figure(graph_id, until=lambda ts: len(ts) >= 1)
         overlaps = page.evaluate("""(id) => {
             const root = document.getElementById(id);
             const legend = root.querySelector('.legend').getBoundingClientRect();
@@ -384,5 +387,12 @@ def test_the_default_plot_of_the_demo_shows_plasma(ui):
                          b.bottom < legend.top || b.top > legend.bottom);
             });
         }""", graph_id)
-        assert overlaps and not any(overlaps), overlaps
+        assert overlaps and not any(overlaps), (graph_id, overlaps)
+    ui.tab("Concentrations")
+    # the caution stays on screen, however far the page is scrolled
+    page.evaluate("() => window.scrollTo(0, document.documentElement.scrollHeight)")
+    page.wait_for_timeout(200)
+    box = page.locator("#caution").bounding_box()
+    assert box is not None and 0 <= box["y"] and box["y"] + box["height"] <= page.viewport_size["height"]
+    page.evaluate("() => window.scrollTo(0, 0)")
     ui.shot("journey9-demo-plot")

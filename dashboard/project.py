@@ -53,7 +53,8 @@ from barrierflow.io import loads_experiment
 
 from .runs import BarrierTrace, RunData, links_of, metric_rows_in, steady_of
 
-__all__ = ["FORMAT", "MAX_RUNS", "SUFFIX", "VERSION", "decode_run", "encode_run", "project_text", "read_project"]
+__all__ = ["FORMAT", "MAX_RUNS", "SUFFIX", "VERSION", "decode_run", "encode_run", "project_text", "read_project",
+           "read_run"]
 
 FORMAT = "barrierflow project"
 VERSION = 1
@@ -383,6 +384,11 @@ def decode_run(obj: Any, name: str, field: str, r: _Reader) -> RunData | None:
         molar_mass=scenario.substance.molar_mass, dose_times=tuple((float(t), g, k) for t, g, k in doses),
         toml=toml, steady=steady_of(scenario), metrics_table=metrics, output_units=scenario.output_units,
         links=links_of(scenario), sampled=traces["sampled"], lost=traces["lost"])
+
+
+def read_run(obj: Any, name: str, file: str) -> RunData | None:
+    """A run kept as JSON on its own (a session's ``runs/<key>.json``), or None when it does not check."""
+    return decode_run(obj, name, "run", _Reader(file))
 
 
 # ============================================================================ project files

@@ -36,7 +36,7 @@ from typing import Any
 
 from barrierflow.io.atomic import atomic_write
 
-from .project import decode_run, encode_run
+from .project import encode_run, read_run
 from .runs import RunData
 
 __all__ = ["COOKIE", "KEEP_DAYS", "SessionStore", "current_id", "default_directory", "install", "valid_id"]
@@ -219,10 +219,7 @@ class SessionStore:
             obj = json.loads(path.read_text(encoding="utf-8"))
         except (OSError, ValueError):
             return None
-        from .project import _Reader
-
-        reader = _Reader(str(path))
-        return decode_run(obj, name, "run", reader)
+        return read_run(obj, name, str(path))
 
     def forget_runs(self, sid: str, keep: set[str]) -> None:
         """Remove the kept runs of a session whose keys are not in ``keep``."""

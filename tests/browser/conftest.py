@@ -146,6 +146,8 @@ class UI:
 
     def click_node(self, label_start: str) -> None:
         """Click the compartment whose canvas label starts with ``label_start``."""
+        # the canvas in the middle of the window: never under the page's sticky header
+        self.page.evaluate("() => document.getElementById('network-canvas').scrollIntoView({block: 'center'})")
         pos = self.page.evaluate(
             """(start) => { const n = window.cy.nodes().filter(n => n.data('label').startsWith(start))[0];
                            const p = n.renderedPosition(); return {x: p.x, y: p.y}; }""", label_start)

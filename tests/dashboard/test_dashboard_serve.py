@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import os
+import shutil
 import socket
 import subprocess
 import sys
+import tempfile
 import time
 import urllib.error
 import urllib.request
@@ -32,9 +35,12 @@ def test_serve_refuses_a_bad_scenario_file_with_status_2(tmp_path):
 def _start(*extra: str) -> tuple[subprocess.Popen, int, str, dict]:
     """Start `barrierflow serve` with the demo; wait for the layout; return it and its headers."""
     port = _free_port()
+    state = tempfile.mkdtemp(prefix="barrierflow-serve-state-")  # the sessions of this server, not the user's
+    env = dict(os.environ, BARRIERFLOW_STATE_DIR=state)
     proc = subprocess.Popen([sys.executable, "-m", "barrierflow", "serve", str(ROOT / "scenarios" / "daily_patch.toml"),
                              "--host", "127.0.0.1", "--port", str(port), *extra],
-                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, env=env)
+    proc.state_dir = state
     layout, headers = None, {}
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline and proc.poll() is None:
@@ -55,6 +61,7 @@ def _start(*extra: str) -> tuple[subprocess.Popen, int, str, dict]:
 def _stop(proc: subprocess.Popen) -> str:
     proc.terminate()
     out, _ = proc.communicate(timeout=20)
+    shutil.rmtree(proc.state_dir, ignore_errors=True)
     return out
 
 

@@ -7,7 +7,7 @@ HOST   ?= 127.0.0.1
 PORT   ?= 8050
 DEMO   ?= scenarios/daily_patch.toml
 
-.PHONY: run test venv browser lint bench bench-fit clean
+.PHONY: run test venv browser lint bench bench-fit bench-population clean
 
 $(STAMP): pyproject.toml
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -44,6 +44,10 @@ bench: $(STAMP)
 # Speed of barrierflow fit: a two-parameter fit of 3 replicates, a profile-likelihood interval
 bench-fit: $(STAMP)
 	$(PY) tests/benchmarks/fit_benchmark.py
+
+# Populations: 1,000 subjects of the demo patch, peak memory up to 100,000, Sobol with 8 parameters
+bench-population: $(STAMP)
+	$(PY) tests/benchmarks/population_benchmark.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache build *.egg-info

@@ -37,17 +37,7 @@ from barrierflow.engine.exact_chain import chain_order
 from barrierflow.engine.kernels import jacobian_coo, jacobian_size, rates
 from barrierflow.engine.population import sample_scenarios, simulate_many, simulate_population
 from barrierflow.engine.problem import IntervalProblem, IntervalSettings
-from barrierflow.engine.rosenbrock import (
-    RosenbrockIntegrator,
-    _factor,
-    _scatter,
-    _solve,
-    _workspace,
-    build_structure,
-    chain_args,
-    model_args,
-    rates_chain,
-)
+from barrierflow.engine.rosenbrock import RosenbrockIntegrator, _factor, _scatter, _solve, _workspace, build_structure
 from barrierflow.model.paths import ParamPath, parameter_paths
 
 H = 3600.0
@@ -273,11 +263,6 @@ def test_integrator_options_are_checked():
 # The engine's inner kernels carry no Python wrapper (compiled callers only); these entries call
 # them from compiled code, as the engine does.
 @njit
-def _call_rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused):
-    rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
-
-
-@njit
 def _call_workspace(nc, nx, n, n_w, n_jac, n_be):
     return _workspace(nc, nx, n, n_w, n_jac, n_be)
 
@@ -293,8 +278,8 @@ def _call_factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
 
 
 @njit
-def _call_build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
-    return exact_chain._build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
+def _call_build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
+    return exact_chain._build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
 
 
 @njit
@@ -320,8 +305,42 @@ def test_compiled_arrays_are_float_for_whole_number_inputs():
         assert getattr(m, name).dtype == np.int64, name
 
 
-def test_rates_chain_equals_rates():
-    # the fused kernel against the engine's reference kernel, every process switched on
+def _rates_numpy(m, y, infusion, clamp):
+    """The balances of the module docstring of barrierflow.engine.compiled, in NumPy, link by link
+    (every link, including those the kernel sweeps as cell chains)."""
+    nc, nd = m.n_comp, m.n_dyn
+    u = y[:nd] * m.inv_partition
+    p, q = m.link_p, m.link_q
+    r_out = m.link_a * u[p] - m.link_b * u[q]
+    r_in = m.link_c * u[p] - m.link_d * u[q]
+    amount = np.zeros(len(y))  # amount rates, mg/h
+    np.add.at(amount, p, -r_out)
+    np.add.at(amount, q, r_in)
+    lossy = m.link_loss >= 0
+    np.add.at(amount, m.link_loss[lossy], (r_out - r_in)[lossy])
+    tracked = m.link_track >= 0
+    np.add.at(amount, m.link_track[tracked], r_in[tracked])
+    first = m.loss_rate * m.capacity * y[:nd]
+    amount[:nd] -= first
+    np.add.at(amount, m.loss_to, first)
+    c = y[m.mm_state]
+    mm = m.mm_vmax * c / (m.mm_km + np.abs(c))
+    np.add.at(amount, m.mm_state, -mm)
+    np.add.at(amount, nd + m.mm_state, mm)
+    tr = m.tr_rate * m.capacity[m.tr_from] * y[m.tr_from]
+    np.add.at(amount, m.tr_from, -tr)
+    np.add.at(amount, m.tr_to, tr)
+    amount[:nc] += infusion
+    amount[m.q_infused:m.q_infused + nc] += infusion
+    amount[m.q_supply:m.q_supply + nc] += np.where(clamp, -amount[:nc], 0.0)
+    amount[:nc] = np.where(clamp, 0.0, amount[:nc])
+    amount[:nd] /= m.capacity
+    return amount
+
+
+def test_rate_kernel_against_numpy():
+    # the one rate kernel of the engine against the balances written out in NumPy, every process
+    # switched on
     s = patch_body(saturable=True)
     layers = (Layer(30e-4, 2e-7 * H, partition=2.0, degradation_rate=0.3),)
     s = Scenario(name="all processes (invented)", duration=5.0, output_step=1.0,
@@ -332,16 +351,14 @@ def test_rates_chain_equals_rates():
                  exchanges=s.exchanges, transfers=(Transfer("absorption", "gut", "central", rate=0.4),))
     m = compile_scenario(s)
     rng = np.random.default_rng(3)
-    gch, ol, lossy, icap = chain_args(m)
     for _ in range(5):
         y = rng.random(m.n_state)
         infusion = rng.random(m.n_comp) * (rng.random(m.n_comp) > 0.5)
         clamp = m.held | (rng.random(m.n_comp) > 0.7)
-        a, b = np.empty(m.n_state), np.empty(m.n_state)
-        rates(y, a, *model_args(m), infusion, clamp, m.q_supply, m.q_infused)
-        _call_rates_chain(y, b, model_args(m), gch, ol, lossy, icap, np.zeros(2 * m.n_dyn + 1), infusion, clamp,
-                    m.q_supply, m.q_infused)
-        assert np.allclose(a, b, rtol=1e-13, atol=1e-13 * np.abs(a).max())
+        got = np.empty(m.n_state)
+        rates(y, got, m.arrays, infusion, clamp)
+        want = _rates_numpy(m, y, infusion, clamp)
+        assert np.allclose(got, want, rtol=1e-13, atol=1e-13 * np.abs(want).max())
 
 
 @pytest.mark.parametrize("net", ["patch-body", "two-barriers", "held-degrading"])
@@ -349,15 +366,14 @@ def test_block_solver_equals_dense_solve(net):
     # the bordered tridiagonal solver against numpy.linalg.solve (LAPACK gesv) on M = fac I - J
     m = compile_scenario(NETWORKS[net]())
     st = build_structure(m)
-    margs = model_args(m)
     n = m.n_state
-    nj = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+    nj = jacobian_size(m)
     rng = np.random.default_rng(5)
     for clamp in (m.held.copy(), m.held | np.eye(m.n_comp, dtype=bool)[0]):
         ws = _call_workspace(m.n_comp, m.n_cells, n, st.n_w, nj, len(st.be_cell))
         rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm = ws[:13]
         y = rng.random(n)
-        k = jacobian_coo(y, rows, cols, vals, *margs, clamp, m.q_supply)
+        k = jacobian_coo(y, rows, cols, vals, m.arrays, clamp)
         nq = _call_scatter(rows, cols, vals, k, m.n_comp, m.n_dyn, st.cell_be, st.be_comp, tri, jcc, jxc, jcx, qr, qc,
                            qv)
         dense = IntervalProblem(m, IntervalSettings(np.zeros(m.n_comp), clamp)).jac_dense(0.0, y)
@@ -373,7 +389,7 @@ def test_block_solver_equals_dense_solve(net):
 def test_chain_modes_against_dense_eigh():
     # slow eigenpairs of the chain matrix against numpy.linalg.eigh (LAPACK syevd) of B built
     # from the Jacobian (an independent construction)
-    from barrierflow.engine.exact import _jacobian, _margs
+    from barrierflow.engine.exact import _jacobian
 
     m = compile_scenario(patch_body(cells=10))
     order = chain_order(m)
@@ -381,7 +397,7 @@ def test_chain_modes_against_dense_eigh():
     arrs = dict(idx=np.zeros(L, dtype=np.int64), cmap=np.zeros(nd, dtype=np.int64), msq=np.zeros(L),
                 tv=np.zeros(L), dd=np.zeros(L), ee=np.zeros(L), gedge=np.zeros(L), ediag=np.zeros(L),
                 comp_of=np.zeros(L, dtype=np.int64))
-    n = _call_build(order, m.held.copy(), _margs(m), *arrs.values())
+    n = _call_build(order, m.held.copy(), m.arrays, *arrs.values())
     lam, vec = np.zeros(L), np.zeros((L, L))
     k = _call_slow_modes(arrs["dd"], arrs["ee"], n, -500.0, arrs["gedge"], arrs["ediag"], arrs["msq"], arrs["comp_of"],
                        lam, vec)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-from ..engine import Grid, solve
+from ..engine import Grid, Integrator, solve
 from ..model import Scenario
 from .result import Result
 
@@ -14,7 +14,7 @@ __all__ = ["simulate"]
 def simulate(
     scenario: Scenario,
     *,
-    integrator=None,
+    integrator: Integrator | None = None,
     grid: Grid | None = None,
     raise_on_failure: bool = True,
     progress: Callable[[float], None] | None = None,
@@ -26,8 +26,10 @@ def simulate(
     ----------
     scenario : Scenario
         From :func:`barrierflow.load` or :meth:`Scenario.from_graph`.
-    integrator : object, optional
-        An integrator object from :mod:`barrierflow.engine` (default: the engine's choice).
+    integrator : Integrator, optional
+        An integrator from :mod:`barrierflow.engine` (:class:`~barrierflow.engine.Integrator`:
+        ``AutoIntegrator``, ``ExactIntegrator``, ``RosenbrockIntegrator``, ``ScipyIntegrator``;
+        default: the engine's choice).
     grid : Grid, optional
         Default grid of layers without ``cells``.
     raise_on_failure : bool

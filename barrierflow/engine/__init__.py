@@ -4,13 +4,23 @@ Nothing here parses files or knows of the dashboard. The public entry is :func:`
 :func:`barrierflow.simulate` wraps into a :class:`barrierflow.Result`.
 """
 
-from .compiled import BarrierGrid, CompiledModel, compile_scenario
+from .compiled import BarrierGrid, CompiledModel, ModelArrays, compile_scenario
 from .exact import ExactIntegrator
 from .grid import Grid
-from .integrators import INTEGRATORS, AutoIntegrator, RunStats, ScipyIntegrator, integrator_from_name
+from .integrators import (
+    INTEGRATORS,
+    AutoIntegrator,
+    Integration,
+    Integrator,
+    IntervalIntegrator,
+    RunPlan,
+    RunStats,
+    ScipyIntegrator,
+    integrator_from_name,
+)
 from .population import Population, simulate_many, simulate_population
 from .rosenbrock import RosenbrockIntegrator
-from .schedule import Event, build_schedule
+from .schedule import Event, EventArrays, build_schedule
 from .solve import Trajectory, solve
 
 __all__ = [
@@ -19,10 +29,16 @@ __all__ = [
     "BarrierGrid",
     "CompiledModel",
     "Event",
+    "EventArrays",
     "ExactIntegrator",
     "Grid",
+    "Integration",
+    "Integrator",
+    "IntervalIntegrator",
+    "ModelArrays",
     "Population",
     "RosenbrockIntegrator",
+    "RunPlan",
     "RunStats",
     "ScipyIntegrator",
     "Trajectory",

@@ -35,16 +35,19 @@ with time or it holds undissolved solid, which only the scipy integrators run
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..model import Barrier, Scenario
+from .arrays import ModelArrays
 from .grid import Grid
+from .schedule import regimen_bounds
 from .twoport import stack_two_port
 
-__all__ = ["BarrierGrid", "CompiledModel", "compile_scenario"]
+__all__ = ["BarrierGrid", "CompiledModel", "ModelArrays", "compile_scenario", "limited_compartments"]
 
 
 @dataclass(frozen=True)
@@ -79,59 +82,44 @@ class BarrierGrid:
 class CompiledModel:
     """A scenario as flat arrays (see the module docstring for the layout).
 
-    Attributes hold internal units. ``comp_index`` and ``barrier_index`` map ids to positions.
+    ``arrays`` (:class:`~barrierflow.engine.arrays.ModelArrays`) holds every number, in internal
+    units; each of its fields is also an attribute of the model (``model.capacity`` is
+    ``model.arrays.capacity``). ``comp_index`` and ``barrier_index`` map ids to positions;
+    ``grids`` say where each barrier's cells sit.
     """
 
-    n_comp: int
-    n_cells: int
-    n_bar: int
-    capacity: np.ndarray        # (n_dyn,) mL
-    inv_partition: np.ndarray   # (n_dyn,)
-    link_p: np.ndarray          # (n_link,) int
-    link_q: np.ndarray
-    link_a: np.ndarray          # (n_link,) mL/h
-    link_b: np.ndarray
-    link_c: np.ndarray
-    link_d: np.ndarray
-    link_loss: np.ndarray       # (n_link,) int: quadrature index of what a link degrades, or -1
-    link_track: np.ndarray      # (n_link,) int: quadrature index that counts what enters q, or -1
-    loss_rate: np.ndarray       # (n_dyn,) 1/h first-order loss (clearance/V, layer degradation)
-    loss_to: np.ndarray         # (n_dyn,) int quadrature index of the loss
-    mm_state: np.ndarray        # (n_mm,) int compartment index with saturable elimination
-    mm_vmax: np.ndarray         # mg/h
-    mm_km: np.ndarray           # mg/mL
-    tr_from: np.ndarray         # (n_tr,) int
-    tr_to: np.ndarray
-    tr_rate: np.ndarray         # 1/h
-    held: np.ndarray            # (n_comp,) bool: permanently held compartments
-    y0: np.ndarray              # (n_state,) initial state
-    scale: np.ndarray           # (n_state,) magnitude used to scale absolute tolerances
+    arrays: ModelArrays
     comp_ids: tuple[str, ...]
     barrier_ids: tuple[str, ...]
     grids: tuple[BarrierGrid, ...]
-    has_volume: np.ndarray      # (n_comp,) bool
-    area: np.ndarray            # (n_bar,) cm^2
     comp_index: dict[str, int] = field(default_factory=dict)
     barrier_index: dict[str, int] = field(default_factory=dict)
-    face_ptr: np.ndarray = field(default_factory=lambda: np.zeros(1, dtype=np.int64))  # (n_comp + 1,) int
-    face_link: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # barrier links, by comp
-    evap_rate: np.ndarray = field(default_factory=lambda: np.zeros(0))   # (n_comp,) mL/h, 0: none
-    residual: np.ndarray = field(default_factory=lambda: np.zeros(0))    # (n_comp,) mL left after evaporation
-    solubility: np.ndarray = field(default_factory=lambda: np.zeros(0))  # (n_comp,) mg/mL S K, inf: no limit
-    shrinking: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.bool_))  # (n_comp,) samples
-    #                                                     without replacement shrink its volume
+
+    def __post_init__(self) -> None:
+        # every field of ``arrays`` is also an attribute of the model, under the same name
+        for name, value in zip(ModelArrays._fields, self.arrays, strict=True):
+            object.__setattr__(self, name, value)
+
+    def with_arrays(self, arrays: ModelArrays) -> CompiledModel:
+        """The same model with other numbers (for example the links as a run's events left them)."""
+        return dataclasses.replace(self, arrays=arrays)
 
     @property
-    def n_dyn(self) -> int:
-        """Number of dynamic states (compartments and cells)."""
-        return self.n_comp + self.n_cells
+    def n_cells(self) -> int:
+        """Number of barrier cells."""
+        return self.n_dyn - self.n_comp
+
+    @property
+    def n_bar(self) -> int:
+        """Number of barriers."""
+        return len(self.area)
 
     @property
     def n_state(self) -> int:
         """Length of the full state vector."""
         return self.n_dyn + 5 * self.n_comp + 2 * self.n_bar
 
-    # offsets of the cumulative amounts
+    # offsets of the cumulative amounts (q_supply, q_infused and q_sampled are fields of ``arrays``)
     @property
     def q_elim(self) -> int:
         """Offset of the eliminated amounts."""
@@ -148,24 +136,9 @@ class CompiledModel:
         return self.n_dyn + self.n_comp + self.n_bar
 
     @property
-    def q_supply(self) -> int:
-        """Offset of the clamp supplies."""
-        return self.n_dyn + self.n_comp + 2 * self.n_bar
-
-    @property
-    def q_infused(self) -> int:
-        """Offset of the infused amounts."""
-        return self.n_dyn + 2 * self.n_comp + 2 * self.n_bar
-
-    @property
     def q_lost(self) -> int:
         """Offset of the amounts lost to the air."""
         return self.n_dyn + 3 * self.n_comp + 2 * self.n_bar
-
-    @property
-    def q_sampled(self) -> int:
-        """Offset of the sampled amounts (the last block)."""
-        return self.n_dyn + 4 * self.n_comp + 2 * self.n_bar
 
     @property
     def is_linear(self) -> bool:
@@ -232,18 +205,10 @@ def _mass_scale(s: Scenario) -> list[float]:
     for c in s.compartments:
         if c.held:
             clamps.append((c.id, c.held_concentration, s.duration))
-    for d in s.doses:
-        n = len(d.start_times(s.duration))
-        vol = comps[d.target].volume or 0.0
-        if d.kind == "bolus":
-            add(d.target, n * d.amount)
-        elif d.kind == "infusion":
-            add(d.target, n * d.rate * d.duration)
-        elif d.kind == "replace":
-            add(d.target, n * d.concentration * vol)
-        elif d.kind == "hold":
-            add(d.target, n * d.concentration * vol)
-            clamps.extend([(d.target, d.concentration, min(d.duration, s.duration))] * n)
+    doses = regimen_bounds(s)
+    for cid, amount in doses.added:
+        add(cid, amount)
+    clamps.extend(doses.clamps)
     uptake: dict[str, float] = {c.id: 0.0 for c in s.compartments}   # mL/h per unit potential
     storage: dict[str, float] = {c.id: 0.0 for c in s.compartments}  # mL per unit potential
     for b in s.barriers:
@@ -284,8 +249,10 @@ def limited_compartments(s: Scenario) -> set[str]:
     sol = s.substance.solubility
     if not sol:
         return set()
+    doses = regimen_bounds(s)
     total = 0.0
     clamps = any(c.held and c.held_concentration > 0 for c in s.compartments)
+    clamps |= any(held and conc > 0 for _, conc, held in doses.levels)
     for c in s.compartments:
         if not c.held and c.volume:
             total += c.initial_concentration * c.volume
@@ -294,19 +261,9 @@ def limited_compartments(s: Scenario) -> set[str]:
         for layer in b.layers:
             total += layer.initial_concentration * layer.thickness * b.area
             over_layer |= layer.initial_concentration / layer.partition > sol
-    vol = {c.id: c.volume or 0.0 for c in s.compartments}
-    fed: set[str] = {t.to_id for t in s.transfers}
-    for d in s.doses:
-        n = len(d.start_times(s.duration))
-        if d.kind == "bolus":
-            total += n * d.amount
-            fed.add(d.target)
-        elif d.kind == "infusion":
-            total += n * d.rate * d.duration
-            fed.add(d.target)
-        elif d.kind in ("replace", "hold"):
-            total += n * d.concentration * vol[d.target]
-            clamps |= d.kind == "hold" and d.concentration > 0
+    for _, amount in doses.added:
+        total += amount
+    fed = {t.to_id for t in s.transfers} | doses.fed
     out = set()
     for c in s.compartments:
         cap = sol * c.partition
@@ -318,12 +275,9 @@ def limited_compartments(s: Scenario) -> set[str]:
         if c.evaporates:
             out.add(c.id)
             continue
-        shrink = sum(len(d.start_times(s.duration)) * d.volume for d in s.doses
-                     if d.target == c.id and d.kind == "sample" and not d.replaces_medium)
-        smallest = max(smallest - shrink, 1e-300)
+        smallest = max(smallest - doses.shrink.get(c.id, 0.0), 1e-300)
         could = total / smallest > cap
-        if (c.initial_concentration > cap
-                or any(d.target == c.id and d.kind in ("replace", "hold") and d.concentration > cap for d in s.doses)
+        if (c.initial_concentration > cap or any(cid == c.id and conc > cap for cid, conc, _ in doses.levels)
                 or (c.id in fed and (clamps or could)) or (over_layer and could)):
             out.add(c.id)
     return out
@@ -355,8 +309,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     invk_parts = [np.array([1.0 / c.partition for c in comps], dtype=np.float64)]
     # volumes that change (evaporation, samples without replacement) and losses to the air take
     # the first-order loss of their compartment; its clearance then goes to a link of its own
-    shrinking = np.array([any(d.target == c.id and d.kind == "sample" and not d.replaces_medium
-                              for d in scenario.doses) for c in comps], dtype=np.bool_)
+    shrinking = np.array([c.id in regimen_bounds(scenario).shrink for c in comps], dtype=np.bool_)
     own_loss = np.array([c.evaporates or bool(shrinking[i]) or c.loss_rate > 0 for i, c in enumerate(comps)],
                         dtype=np.bool_)
     loss_parts = [np.array([c.loss_rate if own_loss[i] else (c.clearance / c.volume if c.volume and c.clearance
@@ -398,6 +351,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
                      .astype(np.int64)]
     grids = []
     faces: list[list[int]] = [[] for _ in range(n_comp)]  # the barrier links touching each compartment
+    chain_g = np.zeros(max(n_cells, 1))
+    in_chain = []  # (first, one past the last) link index of each barrier's links between its cells
     for bi, start, stop, w, lay_idx, part in grids_tmp:
         b = bars[bi]
         p_from = comp_index[b.from_id]
@@ -428,6 +383,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         blk[:, 6:8] = -1
         blk[nb, 7] = q_perm0 + bi
         link_blocks.append(blk)
+        chain_g[start - n_comp:stop - n_comp - 1] = g[1:nb]
+        in_chain.append((n_link + 1, n_link + nb))
         loss_to_parts.append(np.full(nb, q_degr0 + bi, dtype=np.int64))
         centres = np.cumsum(w) - w / 2
         grids.append(BarrierGrid(b.id, start, stop, w, centres, lay_idx, interfaces, n_link, n_link + nb))
@@ -482,13 +439,19 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     face_ptr = np.zeros(n_comp + 1, dtype=np.int64)
     face_ptr[1:] = np.cumsum([len(f) for f in faces])
 
-    return CompiledModel(
-        n_comp=n_comp, n_cells=n_cells, n_bar=n_bar,
-        capacity=cap, inv_partition=inv_k,
+    other = np.ones(len(lk), dtype=np.bool_)
+    for j0, j1 in in_chain:
+        other[j0:j1] = False
+    loss_rate = np.concatenate(loss_parts)
+    arrays = ModelArrays(
+        n_comp=n_comp, n_dyn=n_dyn, q_supply=q_supply0, q_infused=q_supply0 + n_comp,
+        q_sampled=q_supply0 + 3 * n_comp, capacity=cap, inv_capacity=1.0 / cap, inv_partition=inv_k,
         link_p=lk[:, 0].astype(np.int64), link_q=lk[:, 1].astype(np.int64),
         link_a=lk[:, 2].copy(), link_b=lk[:, 3].copy(), link_c=lk[:, 4].copy(), link_d=lk[:, 5].copy(),
         link_loss=lk[:, 6].astype(np.int64), link_track=lk[:, 7].astype(np.int64),
-        loss_rate=np.concatenate(loss_parts), loss_to=np.concatenate(loss_to_parts),
+        chain_g=chain_g, other_links=np.flatnonzero(other).astype(np.int64),
+        loss_rate=loss_rate, loss_to=np.concatenate(loss_to_parts),
+        lossy=np.flatnonzero(loss_rate != 0.0).astype(np.int64),
         mm_state=np.array([m[0] for m in mm], dtype=np.int64),
         mm_vmax=np.array([m[1] for m in mm], dtype=np.float64),
         mm_km=np.array([m[2] for m in mm], dtype=np.float64),
@@ -496,14 +459,14 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         tr_to=np.array([t[1] for t in tr], dtype=np.int64),
         tr_rate=np.array([t[2] for t in tr], dtype=np.float64),
         held=np.array([c.held for c in comps], dtype=np.bool_),
-        y0=y0, scale=scale,
-        comp_ids=tuple(c.id for c in comps), barrier_ids=tuple(b.id for b in bars),
-        grids=tuple(grids), has_volume=np.array([c.volume is not None for c in comps], dtype=np.bool_),
+        has_volume=np.array([c.volume is not None for c in comps], dtype=np.bool_),
         area=np.array([b.area for b in bars], dtype=np.float64),
-        comp_index=comp_index, barrier_index={b.id: i for i, b in enumerate(bars)},
+        y0=y0, scale=scale,
         face_ptr=face_ptr, face_link=np.array([j for f in faces for j in f], dtype=np.int64),
         evap_rate=np.array([c.evaporation_rate or 0.0 for c in comps], dtype=np.float64),
         residual=np.array([c.residual_volume or 0.0 for c in comps], dtype=np.float64),
         solubility=np.array([sol * c.partition if c.id in limited else np.inf for c in comps], dtype=np.float64),
-        shrinking=shrinking,
-    )
+        shrinking=shrinking)
+    return CompiledModel(arrays, comp_ids=tuple(c.id for c in comps), barrier_ids=tuple(b.id for b in bars),
+                         grids=tuple(grids), comp_index=comp_index,
+                         barrier_index={b.id: i for i, b in enumerate(bars)})

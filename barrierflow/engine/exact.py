@@ -32,7 +32,6 @@ rounding, which is why those are preferred whenever they apply.
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from dataclasses import dataclass, field
 
@@ -40,10 +39,12 @@ import numpy as np
 from numba import njit
 
 from ..errors import ScenarioError
+from .arrays import working_copy
 from .compiled import CompiledModel
 from .exact_chain import _phi1, _phi2, chain_order, chain_schedule
+from .integrators import Integration, Integrator, RunPlan, RunStats, refuse_vehicle_terms
 from .kernels import jacobian_coo, jacobian_size, rates
-from .rosenbrock import apply_events, encode_events, event_context, refuse_vehicle_terms, rows_until
+from .schedule import apply_events, new_event_state, rows_until
 
 __all__ = ["ExactIntegrator", "exact_supported", "phi1", "phi2"]
 
@@ -76,20 +77,14 @@ def phi2(x: np.ndarray) -> np.ndarray:
     return out
 
 
-def _margs(m: CompiledModel) -> tuple:
-    return (m.n_comp, m.n_dyn, m.capacity, m.inv_partition, m.link_p, m.link_q, m.link_a, m.link_b, m.link_c,
-            m.link_d, m.link_loss, m.link_track, m.loss_rate, m.loss_to, m.mm_state, m.mm_vmax, m.mm_km,
-            m.tr_from, m.tr_to, m.tr_rate)
-
-
 def _jacobian(model: CompiledModel, clamp: np.ndarray) -> np.ndarray:
     """Dense Jacobian (n_state x n_state) of the linear model with ``clamp``."""
     m = model
-    size = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+    size = jacobian_size(m)
     rows = np.zeros(size, dtype=np.int64)
     cols = np.zeros(size, dtype=np.int64)
     vals = np.zeros(size)
-    k = jacobian_coo(np.zeros(m.n_state), rows, cols, vals, *_margs(m), clamp, m.q_supply)
+    k = jacobian_coo(np.zeros(m.n_state), rows, cols, vals, m.arrays, clamp)
     a = np.zeros((m.n_state, m.n_state))
     np.add.at(a, (rows[:k], cols[:k]), vals[:k])
     return a
@@ -101,7 +96,7 @@ def _forcing(model: CompiledModel, y: np.ndarray, infusion: np.ndarray, clamp: n
     y0 = np.zeros(m.n_state)
     y0[: m.n_comp] = np.where(clamp, y[: m.n_comp], 0.0)
     out = np.empty(m.n_state)
-    rates(y0, out, *_margs(m), infusion, clamp, m.q_supply, m.q_infused)
+    rates(y0, out, m.arrays, infusion, clamp)
     return out
 
 
@@ -396,11 +391,11 @@ def stiffness(model: CompiledModel) -> float:
     """A bound on the rates of ``model``, 1/h: the largest absolute row sum of its Jacobian with
     every state divided by its magnitude scale (Gershgorin's bound on the eigenvalues)."""
     m = model
-    size = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+    size = jacobian_size(m)
     rows = np.zeros(size, dtype=np.int64)
     cols = np.zeros(size, dtype=np.int64)
     vals = np.zeros(size)
-    k = jacobian_coo(np.zeros(m.n_state), rows, cols, vals, *_margs(m), m.held.copy(), m.q_supply)
+    k = jacobian_coo(np.zeros(m.n_state), rows, cols, vals, m.arrays, m.held.copy())
     rows, cols, vals = rows[:k], cols[:k], vals[:k]
     dyn = rows < m.n_dyn
     sums = np.zeros(m.n_dyn)
@@ -427,7 +422,7 @@ def exact_supported(model: CompiledModel, longest: float | None = None) -> bool:
 
 
 @dataclass(frozen=True)
-class ExactIntegrator:
+class ExactIntegrator(Integrator):
     """Exact solution between events for linear models (see the module docstring).
 
     Parameters
@@ -447,9 +442,18 @@ class ExactIntegrator:
             raise ScenarioError.single("integrator method", repr(self.method),
                                        "must be one of auto, chain, modes, expm")
 
-    def solve_schedule(self, model: CompiledModel, events, times: np.ndarray, duration: float, stats,
-                       progress=None):
-        """Run the whole regimen exactly; same contract as the compiled integrator's.
+    def working_memory(self, model: CompiledModel) -> int:
+        """Bytes of working arrays of the path :func:`exact_plan` takes for ``model``."""
+        plan, size = exact_plan(model, self.method)
+        n = model.n_state
+        if plan == "chain":
+            return 8 * size * size + 8 * 40 * n + 8 * 12 * len(model.link_p)
+        if plan == "modes":
+            return 8 * (2 * n * n + 4 * size * size)
+        return 8 * 10 * (n + 1) * (n + 1)
+
+    def run(self, plan: RunPlan) -> Integration:
+        """Run the whole regimen exactly.
 
         Raises
         ------
@@ -457,15 +461,17 @@ class ExactIntegrator:
             If the model is not linear (saturable elimination), or ``method="modes"`` is asked of a
             network with one-way transfers.
         """
-        refuse_vehicle_terms(model, self.name)
-        if not model.is_linear:
+        m = plan.model
+        refuse_vehicle_terms(m, self.name)
+        if not m.is_linear:
             raise ScenarioError.single("integrator", "'exact'",
                                        "needs a linear model; saturable elimination (vmax, km) makes it nonlinear")
-        m = model
-        marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
-        ev = encode_events(events)
-        margs, ctx = event_context(m, len(events))
+        marks, times, ev = plan.marks, plan.times, plan.events
         n_t, nc = len(times), m.n_comp
+        stats = RunStats()
+        base = m.arrays
+        work = working_copy(base)  # the links as the events leave them (a closed face)
+        s = new_event_state(base, len(ev.time))
         order = chain_order(m) if self.method in ("auto", "chain") else None
         if order is None and self.method == "chain":
             raise ScenarioError.single("integrator method", "'chain'",
@@ -476,41 +482,33 @@ class ExactIntegrator:
             ev_dosed = np.empty((n_t, nc))
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
-            n_jac = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
-            code = chain_schedule(marks, times, *ev, m.held, margs, m.q_supply, m.q_infused, order,
-                                  _FAST / _shortest_time(times, marks), n_jac, m.y0.copy(), states, ev_dosed,
-                                  ev_removed, st, ctx)
-            stats.steps += int(st[0])
-            stats.rhs_evaluations += int(st[2])
-            stats.jacobian_evaluations += int(st[3])
-            stats.lu_decompositions += int(st[4])
-            stats.intervals += int(st[5])
+            code = chain_schedule(marks, times, ev, work, base, s, order, _FAST / _shortest_time(times, marks),
+                                  jacobian_size(m), m.y0.copy(), states, ev_dosed, ev_removed, st)
+            stats.add(st)
             if code != 0:
-                return (states[:0], ev_dosed[:0], ev_removed[:0], -1,
-                        "the exact path does not apply: the network's modes are too ill-conditioned to separate "
-                        "(time scales too far apart within one connected part)", ctx[7])
-            if progress is not None:
-                progress(1.0)
-            return states, ev_dosed, ev_removed, 0, "the run finished", ctx[7]
+                return Integration(states[:0], ev_dosed[:0], ev_removed[:0], -1,
+                                   "the exact path does not apply: the network's modes are too ill-conditioned to "
+                                   "separate (time scales too far apart within one connected part)", stats,
+                                   s.moved.copy())
+            if plan.progress is not None:
+                plan.progress(1.0)
+            return Integration(states, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy())
         use_modes = self.method in ("auto", "modes") and structurally_symmetric(m)
         if self.method == "modes" and not use_modes:
             raise ScenarioError.single("integrator method", "'modes'",
                                        "needs a symmetric network; one-way transfers need method 'expm'")
         rho = stiffness(m)
-        longest = float(np.diff(marks).max(initial=0.0))
+        longest = plan.longest
         if rho * longest > STIFFNESS_LIMIT:
-            return (np.empty((0, m.n_state)), np.empty((0, nc)), np.empty((0, nc)), -1,
-                    f"the exact path does not apply: the network is too stiff for it (rates up to {rho:.3g} 1/h "
-                    f"over dosing intervals of up to {longest:.3g} h)", ctx[7])
+            return Integration(np.empty((0, m.n_state)), np.empty((0, nc)), np.empty((0, nc)), -1,
+                               f"the exact path does not apply: the network is too stiff for it (rates up to "
+                               f"{rho:.3g} 1/h over dosing intervals of up to {longest:.3g} h)", stats,
+                               s.moved.copy())
         states = np.empty((n_t, m.n_state))
         ev_dosed = np.empty((n_t, nc))
         ev_removed = np.empty((n_t, nc))
         y = m.y0.copy()
-        infusion = np.zeros(nc)
-        clamp = m.held.copy()
-        holds = np.zeros(nc, dtype=np.int64)
-        dosed = np.zeros(nc)
-        removed = np.zeros(nc)
+        infusion, clamp, dosed, removed = s.infusion, s.clamp, s.dosed, s.removed
         modes: dict[bytes, _Modes | None] = {}
         inert = np.ones(m.n_dyn, dtype=bool)  # no link, transfer or loss acts on these states
         inert[m.link_p] = False
@@ -518,20 +516,20 @@ class ExactIntegrator:
         inert[m.tr_from] = False
         inert[m.loss_rate != 0.0] = False
         jac: dict[bytes, np.ndarray] = {}
-        linked: dict[bytes, CompiledModel] = {ctx[6].tobytes(): m}  # the model with the faces as they are
+        linked: dict[bytes, CompiledModel] = {s.closed.tobytes(): m}  # the model with the faces as they are
         row, ei = 0, 0
         n_int = len(marks) - 1
         tau_min = _shortest_time(times, marks)
         full = m
         for k in range(n_int):
             t0, t1 = marks[k], marks[k + 1]
-            ei = int(apply_events(t0, ei, *ev, y, margs, m.held, infusion, clamp, holds, dosed, removed, ctx))
+            ei = int(apply_events(t0, ei, ev, work, base, y, s))
             end = int(rows_until(times, row, t1, k == n_int - 1))
             tau = times[row:end] - t0
-            faces = ctx[6].tobytes()
+            faces = s.closed.tobytes()
             if faces not in linked:
-                linked[faces] = dataclasses.replace(full, link_a=margs[6].copy(), link_b=margs[7].copy(),
-                                                    link_c=margs[8].copy(), link_d=margs[9].copy())
+                linked[faces] = full.with_arrays(work._replace(link_a=work.link_a.copy(), link_b=work.link_b.copy(),
+                                                               link_c=work.link_c.copy(), link_d=work.link_d.copy()))
             m = linked[faces]
             key = clamp.tobytes() + faces
             if key not in jac:
@@ -546,9 +544,10 @@ class ExactIntegrator:
                     stats.lu_decompositions += 1
                 md = modes[key]
                 if md is None:
-                    return (states[:row], ev_dosed[:row], ev_removed[:row], -1,
-                            "the exact path does not apply: the network's modes are too ill-conditioned to "
-                            "separate (time scales too far apart within one connected part)", ctx[7])
+                    return Integration(states[:row], ev_dosed[:row], ev_removed[:row], -1,
+                                       "the exact path does not apply: the network's modes are too ill-conditioned "
+                                       "to separate (time scales too far apart within one connected part)", stats,
+                                       s.moved.copy())
             if md is not None:
                 want = np.append(tau, t1 - t0)
                 t_min = want[want > 0.0].min()
@@ -578,9 +577,9 @@ class ExactIntegrator:
             stats.steps += 1
             stats.intervals += 1
             row = end
-            if progress is not None:
-                progress(float(t1) / duration if duration > 0 else 1.0)
-        return states, ev_dosed, ev_removed, 0, "the run finished", ctx[7]
+            if plan.progress is not None:
+                plan.progress(float(t1) / plan.duration if plan.duration > 0 else 1.0)
+        return Integration(states, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy())
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)

@@ -32,7 +32,7 @@ from numba import njit
 
 from .compiled import CompiledModel
 from .kernels import INNER, jacobian_kernel, rates_kernel
-from .rosenbrock import OK, apply_events, rows_until
+from .schedule import apply_events, rows_until
 
 FAIL_CONDITION = 5
 """Status of a chain run whose modes failed their a posteriori check (the path is not exact there)."""
@@ -95,23 +95,23 @@ def _chain_order(model: CompiledModel) -> np.ndarray | None:
 
 # ---------------------------------------------------------------- the chain matrix
 @njit(**INNER)
-def _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
+def _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
     """Compact chain of the free states: returns n (their number) and fills the arrays.
 
     ``idx`` state of each position, ``cmap`` position of each state (-1), ``msq`` sqrt(M),
     ``tv`` sqrt(V/K), ``dd, ee`` the tridiagonal T, ``gedge`` conductance to the next position,
     ``ediag`` the loss diagonal E, ``comp_of`` the index of the connected part of each position.
     """
-    nc = margs[0]
-    cap = margs[2]
-    invk = margs[3]
-    lp = margs[4]
-    lq = margs[5]
-    la = margs[6]
-    lb = margs[7]
-    lc = margs[8]
-    ld = margs[9]
-    loss_rate = margs[12]
+    nc = m.n_comp
+    cap = m.capacity
+    invk = m.inv_partition
+    lp = m.link_p
+    lq = m.link_q
+    la = m.link_a
+    lb = m.link_b
+    lc = m.link_c
+    ld = m.link_d
+    loss_rate = m.loss_rate
     for i in range(cmap.shape[0]):
         cmap[i] = -1
     n = 0
@@ -705,18 +705,18 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
 
 # ---------------------------------------------------------------- the whole regimen
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, q_supply, q_infused, order, cut,
-                   n_jac, y, states, ev_dosed, ev_removed, stats, ctx):
+def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats):
     """Run the regimen exactly on a chain network; returns a status code (0 when done).
 
-    The event rules are those of :func:`~barrierflow.engine.rosenbrock.apply_events` (``margs``
-    and ``ctx`` as :func:`~barrierflow.engine.rosenbrock.event_context` makes them: a closed face
-    changes the links, and the modes are computed again); the states at the output rows
-    ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``. ``stats`` counts
-    [steps, rejected, rhs evaluations, Jacobians, decompositions, intervals].
+    ``m`` is the run's copy of the model's arrays (:func:`~barrierflow.engine.arrays.working_copy`),
+    ``base`` the model's own, ``s`` the run's :class:`~barrierflow.engine.schedule.EventState`.
+    The events ``ev`` (EventArrays) apply by :func:`~barrierflow.engine.schedule.apply_events` (a
+    closed face changes the links, and the modes are computed again); the states
+    at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``.
+    ``stats`` counts [steps, rejected, rhs evaluations, Jacobians, decompositions, intervals].
     """
-    nc = margs[0]
-    nd = margs[1]
+    nc = m.n_comp
+    nd = m.n_dyn
     n_state = y.shape[0]
     n_ord = order.shape[0]
     idx = np.zeros(max(n_ord, 1), dtype=np.int64)
@@ -737,15 +737,15 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
     qr = np.zeros(n_jac, dtype=np.int64)
     qc = np.zeros(n_jac, dtype=np.int64)
     qv = np.zeros(n_jac)
-    infusion = np.zeros(nc)
-    clamp = held.copy()
-    last_clamp = held.copy()
-    closed = ctx[6]
+    infusion = s.infusion
+    clamp = s.clamp
+    last_clamp = clamp.copy()
+    closed = s.closed
     last_closed = closed.copy()
-    holds = np.zeros(nc, dtype=np.int64)
-    dosed = np.zeros(nc)
-    removed = np.zeros(nc)
+    dosed = s.dosed
+    removed = s.removed
     yz = np.zeros(n_state)
+    uz = np.zeros(nd)
     g = np.zeros(n_state)
     last = np.zeros(n_state)
     n_marks = marks.shape[0]
@@ -760,20 +760,17 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
     for k in range(n_marks - 1):
         t0 = marks[k]
         t1 = marks[k + 1]
-        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, margs, held, infusion, clamp, holds, dosed,
-                          removed, ctx)
+        ei = apply_events(t0, ei, ev, m, base, y, s)
         changed = not have
         for p in range(nc):
             if clamp[p] != last_clamp[p] or closed[p] != last_closed[p]:
                 changed = True
         if changed:
-            n = _build(order, clamp, margs, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
+            n = _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
             k_all = _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec)
             if k_all < 0:
                 return FAIL_CONDITION
-            kj = jacobian_kernel(yz, rows, cols, vals, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5],
-                              margs[6], margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13],
-                              margs[14], margs[15], margs[16], margs[17], margs[18], margs[19], clamp, q_supply)
+            kj = jacobian_kernel(yz, rows, cols, vals, m, clamp)
             nq = 0
             for j in range(kj):
                 if rows[j] >= nd:
@@ -793,9 +790,7 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
         for p in range(nc):
             if clamp[p]:
                 yz[p] = y[p]
-        rates_kernel(yz, g, margs[0], margs[1], margs[2], margs[3], margs[4], margs[5], margs[6], margs[7], margs[8],
-              margs[9], margs[10], margs[11], margs[12], margs[13], margs[14], margs[15], margs[16], margs[17],
-              margs[18], margs[19], infusion, clamp, q_supply, q_infused)
+        rates_kernel(yz, g, m, infusion, clamp, uz)
         for r in range(n_state):
             yz[r] = 0.0
         stats[2] += 1
@@ -818,4 +813,4 @@ def chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, marg
         stats[5] += 1
     if row < n_t:
         return 1
-    return OK
+    return 0

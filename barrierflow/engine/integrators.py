@@ -1,27 +1,58 @@
-"""Time integrators: each a frozen object that checks its own options.
+"""The solver contract: what an integrator receives, what it returns, how it counts its work.
 
-An integrator advances the state over one dosing interval (in the interval's own local time,
-from 0) and returns the states at the requested output times. The event loop in
-:mod:`barrierflow.engine.solve` calls :meth:`integrate` once per interval.
+Every integrator is an :class:`Integrator`: a frozen dataclass that checks its own options when
+it is made (tolerances through :func:`check_tolerances`) and runs a whole regimen with
+:meth:`Integrator.run`:
+
+* it receives a :class:`RunPlan`: the compiled model (:class:`~barrierflow.engine.compiled.
+  CompiledModel`, whose :class:`~barrierflow.engine.compiled.ModelArrays` the kernels take),
+  the events (:class:`~barrierflow.engine.schedule.EventArrays`, applied by the one rule set
+  :func:`~barrierflow.engine.schedule.apply_events`), the interval boundaries and the output
+  times;
+* it returns an :class:`Integration`: the states and the event ledger at the output rows it
+  reached, what each event moved, the volumes where they change, a ``status`` (0 done, -1
+  stopped early) with a ``message`` that says where and why, and its :class:`RunStats` (steps,
+  rejected steps, evaluations, decompositions, intervals).
+
+Numerical trouble is reported in the status, never raised (bad options or a plan the
+integrator cannot run, such as the exact path on a nonlinear model, raise ``ScenarioError``).
+The driver, :func:`barrierflow.engine.solve`, compiles the scenario, picks the integrator
+(:meth:`Integrator.resolve`; :class:`AutoIntegrator` chooses by the model), checks the memory
+(:meth:`Integrator.working_memory`), applies the events at the very end of the run and checks
+every result (:mod:`barrierflow.engine.ledger`), computing a failed run again on the robust one.
+
+An integrator that advances one dosing interval at a time from Python (the scipy methods)
+derives from :class:`IntervalIntegrator` and writes only :meth:`IntervalIntegrator.integrate`;
+the event loop is the base class's. The one table of names (command line, dashboard) is
+:data:`INTEGRATORS`.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
+from abc import ABC, abstractmethod
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..errors import ScenarioError, SolverError
-from .problem import IntervalProblem
+from .arrays import working_copy
+from .compiled import CompiledModel
+from .ledger import busiest_part
+from .problem import IntervalProblem, IntervalSettings
+from .schedule import EventArrays, apply_events, new_event_state, rows_until
+from .vehicle import VehicleProblem
 
-__all__ = ["INTEGRATORS", "AutoIntegrator", "RunStats", "ScipyIntegrator", "integrator_from_name",
+__all__ = ["INTEGRATORS", "VEHICLE", "AutoIntegrator", "Integration", "IntervalIntegrator", "Integrator", "RunPlan",
+           "RunStats", "ScipyIntegrator", "check_tolerances", "integrator_from_name", "refuse_vehicle_terms",
            "resolve_integrator", "working_memory"]
 
 
 @dataclass
 class RunStats:
-    """Counters of a run (mutable while the run goes on, frozen into the result)."""
+    """Counters of a run (mutable while the run goes on, copied into the result)."""
 
     steps: int = 0
     rejected_steps: int = 0
@@ -34,12 +65,271 @@ class RunStats:
         """The counters as a plain dict."""
         return dict(self.__dict__)
 
+    def add(self, counts: np.ndarray) -> None:
+        """Add the counters a compiled loop kept in an int array, in the order of the fields
+        (steps, rejected steps, rates evaluations, Jacobians, decompositions, intervals)."""
+        self.steps += int(counts[0])
+        self.rejected_steps += int(counts[1])
+        self.rhs_evaluations += int(counts[2])
+        self.jacobian_evaluations += int(counts[3])
+        self.lu_decompositions += int(counts[4])
+        self.intervals += int(counts[5])
+
+
+@dataclass(frozen=True, eq=False)
+class RunPlan:
+    """What an integrator is given: one run of one compiled model.
+
+    Attributes
+    ----------
+    model : CompiledModel
+    events : EventArrays
+        The events before the end of the run, in the order they apply (those at the very end act
+        on the last row only; the driver applies them).
+    marks : ndarray, h
+        The interval boundaries: 0, every distinct event time, the end of the run (increasing).
+        Interval k runs from ``marks[k]`` to ``marks[k + 1]``; the events at ``marks[k]`` apply
+        at its start.
+    times : ndarray (n_t,), h
+        Output times (increasing, from 0 to the end; a time at an event shows the state after it).
+    progress : callable or None
+        Called with the fraction of the run done (0 to 1), as often as the integrator can.
+    """
+
+    model: CompiledModel
+    events: EventArrays
+    marks: np.ndarray
+    times: np.ndarray
+    progress: Callable[[float], None] | None = None
+
+    @property
+    def duration(self) -> float:
+        """End of the run, h."""
+        return float(self.marks[-1])
+
+    @property
+    def longest(self) -> float:
+        """The longest dosing interval, h."""
+        return float(np.diff(self.marks).max(initial=0.0))
+
+
+@dataclass(frozen=True, eq=False)
+class Integration:
+    """What an integrator returns.
+
+    Attributes
+    ----------
+    states : ndarray (n_rows, n_state)
+        The states at the output times reached (all of them when ``status`` is 0), internal
+        units (see :mod:`barrierflow.engine.compiled`).
+    event_dosed, event_removed : ndarray (n_rows, n_comp), mg
+        Cumulative amounts added and taken out by events up to each row.
+    status : int
+        0 when the run finished, -1 when it stopped early.
+    message : str
+        "the run finished", or where and why it stopped, in words a scientist can act on.
+    stats : RunStats
+    event_amounts : ndarray (n_events,), mg
+        What each event of the plan moved (:attr:`~barrierflow.engine.schedule.EventState.moved`;
+        0 for those not reached).
+    volumes : ndarray (n_rows, n_comp) or None, mL
+        The compartments' volumes at the output rows for a model whose volumes change (evaporation,
+        samples without replacement); None when they stay the model's ``capacity``.
+    failed_at : float or None, h
+        Where a failed run stopped, when the integrator knows (the driver otherwise takes the
+        first output time not reached).
+    """
+
+    states: np.ndarray
+    event_dosed: np.ndarray
+    event_removed: np.ndarray
+    status: int
+    message: str
+    stats: RunStats
+    event_amounts: np.ndarray
+    volumes: np.ndarray | None = None
+    failed_at: float | None = None
+
+
+def refuse_vehicle_terms(model: CompiledModel, name: str) -> None:
+    """Refuse, for integrator ``name``, a model whose volumes change or that holds solid (only the
+    interval integrators run those, through :mod:`barrierflow.engine.vehicle`).
+
+    Raises
+    ------
+    ScenarioError
+        Naming what the model holds and the integrators that run it.
+    """
+    if not model.vehicle_terms:
+        return
+    what = []
+    if np.any(model.evap_rate > 0):
+        what.append("an evaporating vehicle")
+    if np.any(model.shrinking):
+        what.append("samples without replacement")
+    if np.any(np.isfinite(model.solubility)):
+        what.append("a compartment that may exceed the solubility")
+    raise ScenarioError.single("integrator", repr(name),
+                               f"cannot run {' and '.join(what)} (a volume that changes with time, or undissolved "
+                               "solid); use auto, bdf, radau or lsoda")
+
+
+def check_tolerances(rtol: float, atol: float) -> None:
+    """Refuse tolerances that are not numbers between 0 and 1 (the one check of every integrator).
+
+    Raises
+    ------
+    ScenarioError
+        Naming ``integrator rtol`` or ``integrator atol``.
+    """
+    for label, v in (("rtol", rtol), ("atol", atol)):
+        if not (isinstance(v, float | int) and not isinstance(v, bool) and 0 < v < 1):
+            raise ScenarioError.single(f"integrator {label}", v, "must be a number between 0 and 1")
+
+
+class Integrator(ABC):
+    """An integrator of the engine (the solver contract; see the module docstring).
+
+    A subclass is a frozen dataclass with a ``name`` (shown in results and messages) whose
+    ``__post_init__`` refuses bad options with a ``ScenarioError`` naming the option. It
+    implements :meth:`run` and :meth:`working_memory`; a chooser overrides :meth:`resolve`.
+    """
+
+    name: str
+
+    @abstractmethod
+    def run(self, plan: RunPlan) -> Integration:
+        """Run the whole regimen of ``plan``.
+
+        Returns
+        -------
+        Integration
+            On failure ``status`` is -1 and the arrays end at the last output row reached.
+
+        Raises
+        ------
+        ScenarioError
+            If this integrator cannot run the plan's model at all (the message says which to use).
+        """
+
+    @abstractmethod
+    def working_memory(self, model: CompiledModel) -> int:
+        """Bytes of working arrays this integrator needs for ``model`` (an estimate, besides the
+        trajectory), which the driver checks before it runs."""
+
+    def resolve(self, model: CompiledModel, longest: float | None = None) -> Integrator:
+        """The integrator that runs ``model``: this one (a chooser returns its choice).
+
+        ``longest`` (h) is the longest dosing interval of the run.
+        """
+        return self
+
+    @property
+    def options(self) -> dict:
+        """The settings, for the record (the dataclass fields)."""
+        return dataclasses.asdict(self) if dataclasses.is_dataclass(self) else {}
+
+
+class IntervalIntegrator(Integrator):
+    """An integrator that advances one dosing interval at a time, called from Python.
+
+    :meth:`run` is the event loop: it applies the events at the start of each interval
+    (:func:`~barrierflow.engine.schedule.apply_events`, on the run's own copy of the volumes and
+    links), hands :meth:`integrate` the interval's problem (an
+    :class:`~barrierflow.engine.problem.IntervalProblem`, or for a model whose volumes change or
+    that holds solid a :class:`~barrierflow.engine.vehicle.VehicleProblem`) and keeps the ledger,
+    the volumes and what each event moved. These are the only integrators that run models with
+    vehicle terms.
+    """
+
+    @abstractmethod
+    def integrate(self, problem: IntervalProblem, y0: np.ndarray, t_end: float, t_out: np.ndarray,
+                  stats: RunStats) -> np.ndarray:
+        """Advance ``y0`` from local time 0 to ``t_end`` (h); return the states at ``t_out``
+        (local times, increasing; the last is ``t_end``).
+
+        The problem's own states are ``problem.enter(y0)`` at the start and a state ``w`` at local
+        time t is ``problem.leave(w, t)`` (both the identity but for a vehicle's amounts).
+
+        Raises
+        ------
+        SolverError
+            When the method fails; ``time`` is the local time where it stopped.
+        """
+
+    def run(self, plan: RunPlan) -> Integration:
+        """The event loop over the dosing intervals (see the class docstring)."""
+        model, times, marks = plan.model, plan.times, plan.marks
+        base = model.arrays
+        m = working_copy(base)
+        s = new_event_state(base, len(plan.events.time))
+        n_t, n_c = len(times), model.n_comp
+        stats = RunStats()
+        states = np.full((n_t, model.n_state), np.nan)
+        ev_dosed = np.zeros((n_t, n_c))
+        ev_removed = np.zeros((n_t, n_c))
+        vehicle = model.vehicle_terms
+        volumes = np.full((n_t, n_c), np.nan) if vehicle else None
+        y = base.y0.copy()
+        status, message, failed_at = 0, "the run finished", None
+        row = 0
+        ei = 0
+        n_int = len(marks) - 1
+        for k in range(n_int):
+            t0, t1 = marks[k], marks[k + 1]
+            ei = apply_events(t0, ei, plan.events, m, base, y, s)
+            sel_end = rows_until(times, row, t1, k == n_int - 1)
+            t_local = times[row:sel_end] - t0
+            settings = IntervalSettings(s.infusion.copy(), s.clamp.copy())
+            if vehicle:
+                evaporation = np.where(s.evaporating, base.evap_rate, 0.0)
+                problem = VehicleProblem(model, settings, evaporation, m)
+            else:
+                problem = IntervalProblem(model, settings, m)
+            want = np.append(t_local, t1 - t0)
+            try:
+                ys = self.integrate(problem, y, t1 - t0, want, stats)
+            except SolverError as err:
+                status = -1
+                failed_at = float(t0 + (err.time or 0.0))
+                message = (f"the solution failed at t = {t0 + (err.time or 0.0):.6g} h (dosing interval "
+                           f"{k + 1}, from {t0:.6g} h to {t1:.6g} h), near {busiest_part(model, y)}: {err}. Try a "
+                           "tighter tolerance, fewer cells in very thin layers, or check for extreme values "
+                           "(diffusivity, clearance, partition) in that part of the network.")
+                break
+            if not np.all(np.isfinite(ys)):
+                status = -1
+                failed_at = float(t0)
+                message = (f"the solution became non-finite between {t0:.6g} h and {t1:.6g} h; "
+                           "check for extreme parameter values")
+                break
+            clamp = settings.clamp
+            ys[:, :n_c][:, clamp] = y[:n_c][clamp]  # clamped exactly, free of round-off
+            stats.intervals += 1
+            states[row:sel_end] = ys[:-1]
+            ev_dosed[row:sel_end] = s.dosed
+            ev_removed[row:sel_end] = s.removed
+            if vehicle:
+                # the volumes at the rows, then moved on to the end of the interval (never below the residue)
+                volumes[row:sel_end] = m.capacity[None, :n_c] - evaporation[None, :] * t_local[:, None]
+                shrunk = np.maximum(m.capacity[:n_c] - evaporation * (t1 - t0), base.residual)
+                m.capacity[:n_c] = np.where(evaporation > 0, shrunk, m.capacity[:n_c])
+                m.inv_capacity[:n_c] = 1.0 / m.capacity[:n_c]
+            row = sel_end
+            y = ys[-1].copy()
+            if plan.progress is not None:
+                plan.progress(t1 / plan.duration)
+        if status != 0:
+            states, ev_dosed, ev_removed = states[:row], ev_dosed[:row], ev_removed[:row]
+            volumes = volumes[:row] if volumes is not None else None
+        return Integration(states, ev_dosed, ev_removed, status, message, stats, s.moved.copy(), volumes, failed_at)
+
 
 _SCIPY = ("BDF", "Radau", "LSODA")  # scipy.integrate is imported when one runs (it is slow to import)
 
 
 @dataclass(frozen=True)
-class ScipyIntegrator:
+class ScipyIntegrator(IntervalIntegrator):
     """An implicit scipy integrator with error control (BDF, Radau or LSODA).
 
     Parameters
@@ -66,20 +356,21 @@ class ScipyIntegrator:
     def __post_init__(self) -> None:
         if self.method not in _SCIPY:
             raise ScenarioError.single("integrator method", repr(self.method), f"must be one of {', '.join(_SCIPY)}")
-        for label, v in (("rtol", self.rtol), ("atol", self.atol)):
-            if not (isinstance(v, float | int) and 0 < v < 1):
-                raise ScenarioError.single(f"integrator {label}", v, "must be a number between 0 and 1")
+        check_tolerances(self.rtol, self.atol)
         if not self.max_step > 0:
             raise ScenarioError.single("integrator max_step", self.max_step, "must be > 0")
         object.__setattr__(self, "name", f"scipy-{self.method}")
 
+    def working_memory(self, model: CompiledModel) -> int:
+        """Bytes of working arrays (LSODA's dense Jacobian; the sparse factorisations otherwise)."""
+        n, nc = model.n_state, model.n_comp
+        if self.method == "LSODA":
+            return 8 * 4 * n * n
+        return 8 * (60 * n + 40 * len(model.link_p)) + 8 * nc * nc * 4
+
     def integrate(self, problem: IntervalProblem, y0: np.ndarray, t_end: float, t_out: np.ndarray,
                   stats: RunStats) -> np.ndarray:
         """Advance ``y0`` from local time 0 to ``t_end`` (h); return the states at ``t_out``.
-
-        A problem with ``enter`` and ``leave`` (:class:`~barrierflow.engine.vehicle.VehicleProblem`)
-        is integrated on its internal states: ``enter(y0)`` at the start, ``leave(w, t)`` at each
-        output.
 
         Raises
         ------
@@ -93,10 +384,9 @@ class ScipyIntegrator:
             i += 1
         if t_end <= 0 or i == len(t_out) and t_end <= 0:
             return out
-        enter = getattr(problem, "enter", None)
-        leave = getattr(problem, "leave", lambda w, t: w)
-        scale = problem.model.scale if enter is None else enter(problem.model.scale)
-        start = y0 if enter is None else enter(y0)
+        leave = problem.leave
+        scale = problem.enter(problem.model.scale)
+        start = problem.enter(y0)
         if t_end < 1e-150:  # one explicit step (see rosenbrock.TINY_INTERVAL)
             f = problem.fun(0.0, start)
             while i < len(t_out):
@@ -131,7 +421,7 @@ class ScipyIntegrator:
 
 
 @dataclass(frozen=True)
-class AutoIntegrator:
+class AutoIntegrator(Integrator):
     """The engine's choice: the exact solution for a linear model, compiled RODAS4 otherwise, and
     scipy's Radau (:data:`VEHICLE`) for a model with vehicle terms (evaporation, solubility limits,
     samples without replacement).
@@ -147,7 +437,10 @@ class AutoIntegrator:
     atol: float = 3e-9
     name: str = field(init=False, default="auto")
 
-    def resolve(self, model, longest: float | None = None):
+    def __post_init__(self) -> None:
+        check_tolerances(self.rtol, self.atol)
+
+    def resolve(self, model: CompiledModel, longest: float | None = None) -> Integrator:
         """The integrator that runs ``model``; ``longest`` (h) is the longest dosing interval."""
         from .exact import ExactIntegrator, exact_supported
         from .rosenbrock import RosenbrockIntegrator
@@ -156,9 +449,17 @@ class AutoIntegrator:
             return VEHICLE
         if exact_supported(model, longest):
             exact = ExactIntegrator()
-            if working_memory(exact, model) <= EXACT_MEMORY:
+            if exact.working_memory(model) <= EXACT_MEMORY:
                 return exact
         return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
+
+    def run(self, plan: RunPlan) -> Integration:
+        """Run ``plan`` on the integrator :meth:`resolve` picks."""
+        return self.resolve(plan.model, plan.longest).run(plan)
+
+    def working_memory(self, model: CompiledModel) -> int:
+        """What the integrator :meth:`resolve` picks needs."""
+        return self.resolve(model).working_memory(model)
 
 
 VEHICLE = ScipyIntegrator("Radau", rtol=1e-7, atol=1e-10)
@@ -172,50 +473,32 @@ EXACT_MEMORY = 256 * 1024**2
 networks go to the compiled RODAS4 integrator, whose memory grows in proportion to the states)."""
 
 
-def working_memory(integrator, model) -> int:
-    """Bytes of working arrays that ``integrator`` needs for ``model`` (an estimate, besides the trajectory)."""
-    from .exact import ExactIntegrator, exact_plan
-
-    n = model.n_state
-    nc = model.n_comp
-    n_link = len(model.link_p)
-    if isinstance(integrator, ExactIntegrator):
-        plan, size = exact_plan(model, integrator.method)
-        if plan == "chain":
-            return 8 * size * size + 8 * 40 * n + 8 * 12 * n_link
-        if plan == "modes":
-            return 8 * (2 * n * n + 4 * size * size)
-        return 8 * 10 * (n + 1) * (n + 1)
-    if isinstance(integrator, ScipyIntegrator):
-        if integrator.method == "LSODA":
-            return 8 * 4 * n * n
-        return 8 * (60 * n + 40 * n_link) + 8 * nc * nc * 4
-    # the compiled RODAS4 integrator: O(n) vectors, the dense compartment block
-    return 8 * (40 * n + 30 * n_link + 4 * nc * nc)
+def working_memory(integrator: Integrator, model: CompiledModel) -> int:
+    """Bytes of working arrays that ``integrator`` needs for ``model`` (see :meth:`Integrator.working_memory`)."""
+    return integrator.working_memory(model)
 
 
-def resolve_integrator(integrator, model, longest: float | None = None):
+def resolve_integrator(integrator: Integrator | None, model: CompiledModel, longest: float | None = None) -> Integrator:
     """``integrator`` itself, or what an :class:`AutoIntegrator` (the default, for None) picks for ``model``.
 
     ``longest`` (h) is the longest dosing interval of the run (the exact paths' conditions use it).
     """
-    integrator = AutoIntegrator() if integrator is None else integrator
-    return integrator.resolve(model, longest) if hasattr(integrator, "resolve") else integrator
+    return (AutoIntegrator() if integrator is None else integrator).resolve(model, longest)
 
 
-def _rodas(**kw):
+def _rodas(**kw) -> Integrator:
     from .rosenbrock import RosenbrockIntegrator
 
     return RosenbrockIntegrator(**kw)
 
 
-def _exact(**kw):
+def _exact(**kw) -> Integrator:
     from .exact import ExactIntegrator
 
     return ExactIntegrator(**kw)
 
 
-INTEGRATORS = {
+INTEGRATORS: dict[str, Callable[..., Integrator]] = {
     "auto": lambda **kw: AutoIntegrator(**kw),
     "rodas": _rodas,
     "exact": _exact,
@@ -226,7 +509,7 @@ INTEGRATORS = {
 """The one table mapping integrator names (command line, dashboard) to objects."""
 
 
-def integrator_from_name(name: str, **options: float):
+def integrator_from_name(name: str, **options: float) -> Integrator:
     """The integrator object for ``name`` (a key of :data:`INTEGRATORS`), with options."""
     try:
         make = INTEGRATORS[name.lower()]

@@ -27,7 +27,8 @@ from numba import njit
 
 from .compiled import CompiledModel
 
-__all__ = ["MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT", "Ledger", "check", "ledger", "ledger_rows", "parts", "verdict"]
+__all__ = ["MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT", "Ledger", "busiest_part", "check", "describe_state", "ledger",
+           "ledger_rows", "parts", "verdict"]
 
 MASS_BALANCE_LIMIT = 1e-6
 """Largest relative mass-balance error of a result reported as a success."""
@@ -248,6 +249,16 @@ def describe_state(model: CompiledModel, i: int) -> str:
     what = ("the supply of", "what was infused into", "what went to the air from", "what samples took from")
     k = (q - nc - 2 * nb) // nc
     return f"{what[min(k, 3)]} compartment '{m.comp_ids[(q - nc - 2 * nb) % nc]}'"
+
+
+def busiest_part(model: CompiledModel, y: np.ndarray) -> str:
+    """The compartment or barrier holding the largest scaled state of ``y`` (a hint for messages)."""
+    z = np.abs(y[: model.n_dyn]) / model.scale[: model.n_dyn]
+    if not len(z):
+        return "the network"
+    i = int(np.argmax(z))
+    name = describe_state(model, i)
+    return "the network" if name == "a barrier" else name
 
 
 def parts(model: CompiledModel) -> np.ndarray:

@@ -33,25 +33,16 @@ from numba import njit, prange
 from ..errors import ScenarioError, SolverError
 from ..model import Scenario
 from ..model.paths import Param, parse_param, with_values
+from .arrays import stack_arrays, subject, working_copy
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _shortest_time
 from .exact_chain import chain_order, chain_schedule
 from .grid import Grid
 from .kernels import INNER, jacobian_size
 from .ledger import ledger_rows, verdict
-from .rosenbrock import (
-    _FAILURES,
-    COEF,
-    OK,
-    ST_STEPS,
-    RosenbrockIntegrator,
-    build_structure,
-    chain_args,
-    encode_events,
-    run_marks,
-)
-from .schedule import build_schedule, closed_rows
-from .solve import _present, _snap, apply_event, solve
+from .rosenbrock import _FAILURES, COEF, OK, ST_STEPS, RosenbrockIntegrator, build_structure, run_marks
+from .schedule import EventArrays, apply_events, build_schedule, closed_rows, encode_events, new_event_state
+from .solve import _present, _snap, solve
 
 __all__ = ["Population", "sample_scenarios", "simulate_many", "simulate_population"]
 
@@ -263,79 +254,77 @@ class Population:
 
 
 # ---------------------------------------------------------------- the compiled population run
+# ``stack`` is the subjects' ModelArrays stacked (arrays.stack_arrays) and ``work`` the runs' own
+# copy of what events change (arrays.working_copy); ``ev`` the shared events with ``ev_values``
+# (n_sub, n_ev) each subject's own values.
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
-                    lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, gch, olinks, lossy,
-                    inv_cap, y0, q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, keep,
-                    scale, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k, stats,
-                    face_ptr, face_link, la0, lb0, lc0, ld0):
-    n_sub = y0.shape[0]
-    n = y0.shape[1]
+def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol, atol_rel, max_steps,
+                    hold, keep, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k,
+                    stats):
+    n_sub = ev_values.shape[0]
+    n = stack.y0.shape[1]
     n_t = times.shape[0]
     n_int = marks.shape[0] - 1
     for i in prange(n_sub):
-        margs = (nc, nd, cap[i], invk[i], lp, lq, la[i], lb[i], lc[i], ld[i], lloss, ltrack, loss_rate[i], loss_to,
-                 mm_s, mm_v[i], mm_k[i], tr_f, tr_t, tr_k[i])
-        cargs = (gch[i], olinks, lossy, inv_cap[i])
+        base = subject(stack, i)
+        m = subject(work, i)
+        evi = EventArrays(ev.time, ev.kind, ev.comp, ev_values[i])
+        nc = m.n_comp
         states = np.empty((n_t, n))
         for r in range(n_t):
             for j in range(n):
                 states[r, j] = np.nan
         evd = np.zeros((n_t, nc))
         evr = np.zeros((n_t, nc))
-        y = y0[i].copy()
-        infusion = np.zeros(nc)
-        clamp = held.copy()
-        holds = np.zeros(nc, dtype=np.int64)
-        dosed = np.zeros(nc)
-        removed = np.zeros(nc)
+        y = base.y0.copy()
+        s = new_event_state(base, ev.time.shape[0])
         ptr = np.zeros(2, dtype=np.int64)
         st = np.zeros(6, dtype=np.int64)
-        ctx = (face_ptr, face_link, la0[i], lb0[i], lc0[i], ld0[i], np.zeros(nc, dtype=np.bool_),
-               np.zeros(ev_time.shape[0]))
-        code, k = run_marks(0, n_int, marks, times, ev_time, ev_kind, ev_comp, ev_value[i], held, margs, cargs,
-                            q_supply, q_infused, sargs, coef, n_w, n_jac, rtol, atol[i], max_steps, hold, y,
-                            infusion, clamp, holds, dosed, removed, ptr, states, evd, evr, st, ctx)
+        atol = atol_rel * base.scale
+        code, k = run_marks(0, n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac, rtol, atol, max_steps,
+                            hold, y, ptr, states, evd, evr, st)
         status[i] = code
         fail_k[i] = k
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, nc, nd, cap[i], scale[i], out[i], out_dosed[i], out_removed[i],
-                   cell_amount[i], cell_bar, content[i], low, i)
+        _keep_rows(states, evd, evr, keep, base, out[i], out_dosed[i], out_removed[i], cell_amount[i], cell_bar,
+                   content[i], low, i)
 
 
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population_exact(marks, times, ev_time, ev_kind, ev_comp, ev_value, held, nc, nd, cap, invk, lp, lq, la, lb,
-                          lc, ld, lloss, ltrack, loss_rate, loss_to, mm_s, mm_v, mm_k, tr_f, tr_t, tr_k, y0, q_supply,
-                          q_infused, order, cut, n_jac, keep, scale, out, out_dosed, out_removed, cell_amount,
-                          cell_bar, content, low, status, stats, face_ptr, face_link, la0, lb0, lc0, ld0):
-    n_sub = y0.shape[0]
-    n = y0.shape[1]
+def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, out, out_dosed,
+                          out_removed, cell_amount, cell_bar, content, low, status, stats):
+    n_sub = ev_values.shape[0]
+    n = stack.y0.shape[1]
     n_t = times.shape[0]
     for i in prange(n_sub):
-        margs = (nc, nd, cap[i], invk[i], lp, lq, la[i], lb[i], lc[i], ld[i], lloss, ltrack, loss_rate[i], loss_to,
-                 mm_s, mm_v[i], mm_k[i], tr_f, tr_t, tr_k[i])
+        base = subject(stack, i)
+        m = subject(work, i)
+        evi = EventArrays(ev.time, ev.kind, ev.comp, ev_values[i])
+        nc = m.n_comp
         states = np.empty((n_t, n))
         evd = np.zeros((n_t, nc))
         evr = np.zeros((n_t, nc))
         st = np.zeros(6, dtype=np.int64)
-        ctx = (face_ptr, face_link, la0[i], lb0[i], lc0[i], ld0[i], np.zeros(nc, dtype=np.bool_),
-               np.zeros(ev_time.shape[0]))
-        status[i] = chain_schedule(marks, times, ev_time, ev_kind, ev_comp, ev_value[i], held, margs, q_supply,
-                                   q_infused, order, cut, n_jac, y0[i].copy(), states, evd, evr, st, ctx)
+        s = new_event_state(base, ev.time.shape[0])
+        status[i] = chain_schedule(marks, times, evi, m, base, s, order, cut, n_jac, base.y0.copy(), states, evd, evr,
+                                   st)
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, nc, nd, cap[i], scale[i], out[i], out_dosed[i], out_removed[i],
-                   cell_amount[i], cell_bar, content[i], low, i)
+        _keep_rows(states, evd, evr, keep, base, out[i], out_dosed[i], out_removed[i], cell_amount[i], cell_bar,
+                   content[i], low, i)
 
 
 @njit(**INNER)
-def _keep_rows(states, evd, evr, keep, nc, nd, cap, scale, out, out_dosed, out_removed, cell_amount, cell_bar,
-               content, low, i):
+def _keep_rows(states, evd, evr, keep, m, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, i):
     """Copy the kept columns of one subject, with what its check needs: the amount in the cells at
     each row, and the lowest concentration relative to its state's scale (into ``low[i]``); and
     the amount in each barrier's cells, negative concentrations counted as 0 (``content``, as
     :meth:`barrierflow.analysis.Result.content`)."""
+    nc = m.n_comp
+    nd = m.n_dyn
+    cap = m.capacity
+    scale = m.scale
     lo = 0.0
     for r in range(states.shape[0]):
         for j in range(keep.shape[0]):
@@ -390,23 +379,25 @@ def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, i
             edges = np.array([0.0, *sorted(faces), 1.0])
             out[(bi, li)] = np.diff(edges)
     return out
+
+
 def _apply_at_end_kept(models, schedules, duration: float, keep: np.ndarray, status: np.ndarray, out: np.ndarray,
                        out_dosed: np.ndarray, out_removed: np.ndarray) -> None:
     """Apply each finished subject's events at the very end of the run to its last row (its
-    after-state), as a single run does; the events touch only kept states (compartments and
-    cumulative amounts)."""
+    after-state), as a single run does (the rules of every path,
+    :func:`~barrierflow.engine.schedule.apply_events`); the events touch only kept states
+    (compartments and cumulative amounts)."""
     for i, (m, sch) in enumerate(zip(models, schedules, strict=True)):
         at_end = [e for e in sch if e.time >= duration]
         if not at_end or status[i] != OK or not out.shape[1]:
             continue
         y = np.zeros(m.n_state)
         y[keep] = out[i, -1]
-        dosed, removed = out_dosed[i, -1].copy(), out_removed[i, -1].copy()
-        clamp, holds, infusion = m.held.copy(), np.zeros(m.n_comp, dtype=np.int64), np.zeros(m.n_comp)
-        for e in at_end:
-            apply_event(e, m, y, dosed, removed, clamp, holds, infusion)
+        s = new_event_state(m.arrays, len(at_end))
+        s.dosed[:], s.removed[:] = out_dosed[i, -1], out_removed[i, -1]
+        apply_events(np.inf, 0, encode_events(at_end), working_copy(m.arrays), m.arrays, y, s)
         out[i, -1] = y[keep]
-        out_dosed[i, -1], out_removed[i, -1] = dosed, removed
+        out_dosed[i, -1], out_removed[i, -1] = s.dosed, s.removed
 
 
 def _same_structure(models: Sequence[CompiledModel], schedules, grids_times) -> None:
@@ -482,11 +473,10 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
                  for s in scenarios]
     _same_structure(models, schedules, times_all)
     times = times_all[0]
-    ev_t, ev_k, ev_c, _ = encode_events(schedules[0])
+    ev = encode_events(schedules[0])
     ev_v = np.array([[e.value for e in sch] for sch in schedules], dtype=np.float64).reshape(len(models), -1)
-
-    def stack(name):
-        return np.ascontiguousarray(np.stack([getattr(m, name) for m in models]))
+    arrays = stack_arrays([m.arrays for m in models])
+    work = working_copy(arrays)  # the runs change these (a closed face); ``arrays`` keeps the originals
 
     nc, nd, n = m0.n_comp, m0.n_dyn, m0.n_state
     out_cells = [int(m0.link_p[g.out_link]) for g in m0.grids]
@@ -501,35 +491,25 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         cell_bar[g.start - nc:g.stop - nc] = b
     content = np.zeros((n_sub, n_t, m0.n_bar))
     low = np.zeros(n_sub)
-    scale = stack("scale")
     status = np.zeros(n_sub, dtype=np.int64)
     fail_k = np.zeros(n_sub, dtype=np.int64)
     stats = np.zeros((n_sub, 6), dtype=np.int64)
-    n_jac = jacobian_size(len(m0.link_p), nd, len(m0.mm_state), len(m0.tr_from))
-    # the faces a remove that ends contact closes: the originals stay in these stacks, the runs change copies
-    faces = (m0.face_ptr, m0.face_link, stack("link_a"), stack("link_b"), stack("link_c"), stack("link_d"))
-    common = (marks, times, ev_t, ev_k, ev_c, ev_v, m0.held, nc, nd, stack("capacity"), stack("inv_partition"),
-              m0.link_p, m0.link_q, stack("link_a"), stack("link_b"), stack("link_c"), stack("link_d"), m0.link_loss,
-              m0.link_track, stack("loss_rate"), m0.loss_to, m0.mm_state, stack("mm_vmax"), stack("mm_km"),
-              m0.tr_from, m0.tr_to, stack("tr_rate"))
+    n_jac = jacobian_size(m0)
     old_threads = numba.get_num_threads()
     if threads is not None:
         numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
     try:
         if order is not None:
             name = "exact (population)"
-            _run_population_exact(*common, stack("y0"), m0.q_supply, m0.q_infused, order,
-                                  -60.0 / _shortest_time(times, marks), n_jac, keep, scale, out, out_dosed,
-                                  out_removed, cell_amount, cell_bar, content, low, status, stats, *faces)
+            _run_population_exact(marks, times, ev, ev_v, arrays, work, order, -60.0 / _shortest_time(times, marks),
+                                  n_jac, keep, out, out_dosed, out_removed, cell_amount, cell_bar, content, low,
+                                  status, stats)
         else:
             name = f"{integ.name} (population)"
             struct = build_structure(m0)
-            chains = [chain_args(m) for m in models]
-            _run_population(*common, np.stack([c[0] for c in chains]), chains[0][1], chains[0][2],
-                            np.stack([c[3] for c in chains]), stack("y0"), m0.q_supply, m0.q_infused, struct.args(),
-                            COEF, struct.n_w, n_jac, float(integ.rtol), integ.atol * stack("scale"), integ.max_steps,
-                            float(integ.hold), keep, scale, out, out_dosed, out_removed, cell_amount, cell_bar, content,
-                            low, status, fail_k, stats, *faces)
+            _run_population(marks, times, ev, ev_v, arrays, work, struct.args(), COEF, struct.n_w, n_jac,
+                            float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), keep, out,
+                            out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k, stats)
     finally:
         numba.set_num_threads(old_threads)
     _apply_at_end_kept(models, schedules, s0.duration, keep, status, out, out_dosed, out_removed)
@@ -572,22 +552,22 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
     # flux into the 'to' compartment of each barrier: c u_p - d u_q over the out link, per area
     # (none while a remove that ends contact has closed the face)
     closed = closed_rows(schedules[0], times, nc)
-    area = stack("area")
+    area = arrays.area
     flux = np.empty((n_sub, n_t, m0.n_bar))
     col = {int(s): j for j, s in enumerate(keep)}
-    inv_k = stack("inv_partition")
+    inv_k = arrays.inv_partition
     for b, g in enumerate(m0.grids):
         j = g.out_link
         p, q = int(m0.link_p[j]), int(m0.link_q[j])
-        c = stack("link_c")[:, j][:, None]
-        d = stack("link_d")[:, j][:, None]
+        c = arrays.link_c[:, j][:, None]
+        d = arrays.link_d[:, j][:, None]
         up = out[:, :, col[p]] * inv_k[:, p][:, None]
         uq = out[:, :, col[q]] * inv_k[:, q][:, None]
         flux[:, :, b] = (c * up - d * uq) / area[:, b][:, None]
         for end in (p, q):
             if end < nc and j in set(m0.face_link.tolist()):
                 flux[:, closed[:, end], b] = 0.0
-    volume = np.where(stack("has_volume"), stack("capacity")[:, :nc], np.nan)
+    volume = np.where(arrays.has_volume, arrays.capacity[:, :nc], np.nan)
     return Population(
         times=times, comp_ids=m0.comp_ids, barrier_ids=m0.barrier_ids, factors=dict(factors or {}), status=st,
         messages=tuple(messages), steps=stats[:, ST_STEPS].copy(), integrator=name,

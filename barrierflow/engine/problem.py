@@ -10,6 +10,7 @@ import numpy as np
 if TYPE_CHECKING:  # scipy.sparse is imported when a Jacobian is first built (it is slow to import)
     import scipy.sparse as sp
 
+from .arrays import ModelArrays
 from .compiled import CompiledModel
 from .kernels import jacobian_coo, jacobian_size, rates
 
@@ -35,21 +36,27 @@ class IntervalSettings:
 class IntervalProblem:
     """``f(t, y)`` and its sparse Jacobian for one interval, with evaluation counters.
 
+    The integrator's states are ``enter(y)`` and a state ``w`` at local time t is
+    ``leave(w, t)``: here both the identity (a subclass may integrate other variables, as
+    :class:`~barrierflow.engine.vehicle.VehicleProblem` does).
+
     Parameters
     ----------
     model : CompiledModel
     settings : IntervalSettings
+    arrays : ModelArrays, optional
+        The model's numbers in this interval (the run's volumes and links, as the events left
+        them); default ``model.arrays``.
     """
 
-    def __init__(self, model: CompiledModel, settings: IntervalSettings):
+    def __init__(self, model: CompiledModel, settings: IntervalSettings, arrays: ModelArrays | None = None):
         self.model = model
         self.settings = settings
-        m = model
-        self.n = m.n_state
-        self._args = (m.n_comp, m.n_dyn, m.capacity, m.inv_partition, m.link_p, m.link_q, m.link_a, m.link_b,
-                      m.link_c, m.link_d, m.link_loss, m.link_track, m.loss_rate, m.loss_to, m.mm_state,
-                      m.mm_vmax, m.mm_km, m.tr_from, m.tr_to, m.tr_rate)
-        size = jacobian_size(len(m.link_p), m.n_dyn, len(m.mm_state), len(m.tr_from))
+        self.arrays = model.arrays if arrays is None else arrays
+        self.n = model.n_state
+        self._arrays = tuple(self.arrays)  # a plain tuple: the cheaper call (see engine.arrays)
+        self._scratch = np.empty(model.n_dyn)
+        size = jacobian_size(model)
         self._rows = np.zeros(size, dtype=np.int64)
         self._cols = np.zeros(size, dtype=np.int64)
         self._vals = np.zeros(size)
@@ -57,12 +64,19 @@ class IntervalProblem:
         self.nfev = 0
         self.njev = 0
 
+    def enter(self, y: np.ndarray) -> np.ndarray:
+        """The integrator's state for the state ``y`` at the interval's start (here ``y`` itself)."""
+        return y
+
+    def leave(self, w: np.ndarray, t: float) -> np.ndarray:
+        """The state for the integrator's state ``w`` at local time ``t`` (here ``w`` itself)."""
+        return w
+
     def fun(self, t: float, y: np.ndarray) -> np.ndarray:
         """dy/dt at state ``y`` (the problem is autonomous within an interval)."""
         self.nfev += 1
         out = np.empty(self.n)
-        rates(y, out, *self._args, self.settings.infusion, self.settings.clamp, self.model.q_supply,
-              self.model.q_infused)
+        rates(y, out, self._arrays, self.settings.infusion, self.settings.clamp, self._scratch)
         return out
 
     def jac(self, t: float, y: np.ndarray) -> sp.csc_matrix:
@@ -70,8 +84,7 @@ class IntervalProblem:
         if self._jac_cache is not None:
             return self._jac_cache
         self.njev += 1
-        k = jacobian_coo(y, self._rows, self._cols, self._vals, *self._args,
-                         self.settings.clamp, self.model.q_supply)
+        k = jacobian_coo(y, self._rows, self._cols, self._vals, self._arrays, self.settings.clamp)
         import scipy.sparse as sp
 
         mat = sp.csc_matrix((self._vals[:k].copy(), (self._rows[:k].copy(), self._cols[:k].copy())),

@@ -47,11 +47,13 @@ import numpy as np
 from numba import njit
 
 from ..errors import ScenarioError
+from .arrays import working_copy
 from .compiled import CompiledModel
-from .kernels import INNER, jacobian_kernel, jacobian_size
+from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
+from .kernels import INNER, jacobian_finish, jacobian_linear, jacobian_nonlinear, jacobian_size, rates_kernel
+from .schedule import apply_events, new_event_state, rows_until
 
-__all__ = ["RosenbrockIntegrator", "Structure", "build_structure", "event_context", "encode_events", "model_args",
-           "refuse_vehicle_terms"]
+__all__ = ["RosenbrockIntegrator", "Structure", "build_structure"]
 
 # ---------------------------------------------------------------- RODAS4 coefficients
 # Hairer and Wanner (1996), sec. IV.7, method RODAS (METH = 1 of their code), in the
@@ -71,14 +73,6 @@ D21, D22, D23, D24, D25 = (10.12623508344586, -7.487995877610167, -34.8009186155
                            1.025137723295662)
 D31, D32, D33, D34, D35 = (-0.6762803392801253, 6.087714651680015, 16.43084320892478, 24.76722511418386,
                            -6.594389125716872)
-
-# event kinds, as integers for the compiled loop (a sample without replacement changes a volume,
-# which only the scipy path runs: it has no code here)
-EV_BOLUS, EV_REPLACE, EV_REMOVE, EV_HOLD_START, EV_HOLD_END, EV_INF_START, EV_INF_END, EV_SAMPLE, EV_CLOSE, \
-    EV_DRY = range(10)
-_KIND_CODE = {"bolus": EV_BOLUS, "replace": EV_REPLACE, "remove": EV_REMOVE, "hold_start": EV_HOLD_START,
-              "hold_end": EV_HOLD_END, "infusion_start": EV_INF_START, "infusion_end": EV_INF_END,
-              "sample": EV_SAMPLE, "close": EV_CLOSE, "dry": EV_DRY}
 
 # a linear model's rates are evaluated afresh every REFRESH steps (see the module docstring)
 REFRESH = 8
@@ -196,208 +190,32 @@ def build_structure(model: CompiledModel) -> Structure:
                      np.array(pf, dtype=np.int64), max(n_w, 1), segs)
 
 
-def model_args(model: CompiledModel) -> tuple:
-    """The model arrays in the order of :func:`~barrierflow.engine.kernels.rates` (after ``y, out``)."""
-    m = model
-    return (m.n_comp, m.n_dyn, m.capacity, m.inv_partition, m.link_p, m.link_q, m.link_a, m.link_b, m.link_c,
-            m.link_d, m.link_loss, m.link_track, m.loss_rate, m.loss_to, m.mm_state, m.mm_vmax, m.mm_km,
-            m.tr_from, m.tr_to, m.tr_rate)
-
-
-def encode_events(events) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Events as arrays (time h, kind code, compartment index, value) for the compiled loop."""
-    n = len(events)
-    t = np.array([e.time for e in events], dtype=np.float64).reshape(n)
-    k = np.array([_KIND_CODE[e.kind] for e in events], dtype=np.int64).reshape(n)
-    c = np.array([e.comp for e in events], dtype=np.int64).reshape(n)
-    v = np.array([e.value for e in events], dtype=np.float64).reshape(n)
-    return t, k, c, v
-
-
-def event_context(model: CompiledModel, n_events: int) -> tuple[tuple, tuple]:
-    """The link arrays a run may change, and what :func:`apply_events` needs besides the state.
-
-    Returns ``(margs, ctx)``: the model arrays of :func:`model_args` with copies of the link
-    coefficients (a remove that ends contact sets a compartment's face links to zero, a new
-    application restores them), and ``ctx = (face_ptr, face_link, la0, lb0, lc0, ld0, closed,
-    moved)``: the faces of each compartment, the original coefficients, which compartments are
-    closed, and what each event moved (mg), filled as the events apply.
-    """
-    m = model
-    margs = model_args(m)
-    margs = margs[:6] + (m.link_a.copy(), m.link_b.copy(), m.link_c.copy(), m.link_d.copy()) + margs[10:]
-    ctx = (m.face_ptr, m.face_link, m.link_a, m.link_b, m.link_c, m.link_d, np.zeros(m.n_comp, dtype=np.bool_),
-           np.zeros(n_events))
-    return margs, ctx
-
-
-def refuse_vehicle_terms(model: CompiledModel, name: str) -> None:
-    """Refuse, for integrator ``name``, a model whose volumes change or that holds solid.
-
-    Raises
-    ------
-    ScenarioError
-        Naming what the model holds and the integrators that run it.
-    """
-    if not model.vehicle_terms:
-        return
-    what = []
-    if np.any(model.evap_rate > 0):
-        what.append("an evaporating vehicle")
-    if np.any(model.shrinking):
-        what.append("samples without replacement")
-    if np.any(np.isfinite(model.solubility)):
-        what.append("a compartment that may exceed the solubility")
-    raise ScenarioError.single("integrator", repr(name),
-                               f"cannot run {' and '.join(what)} (a volume that changes with time, or undissolved "
-                               "solid); use auto, bdf, radau or lsoda")
-
-
-# ---------------------------------------------------------------- compiled right-hand side
 @njit(**INNER)
-def rates_chain(y, out, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused):
-    """The same balances as :func:`~barrierflow.engine.kernels.rates`, with the cell chains fused.
+def _add_nonlinear(y, m, clamp, rows, cols, vals, jcc, jcc_lin, qr, qc, qv, nq_lin):
+    """The state-dependent part of the Jacobian at ``y`` (:func:`~barrierflow.engine.kernels.
+    jacobian_nonlinear`) added to its linear part; returns the number of quadrature entries.
 
-    ``gch[i]`` is the conductance (mL/h) between cells i and i + 1 (0 where a barrier ends);
-    ``lossy`` lists the states with a first-order loss;
-    ``olinks`` lists the other links, done as in ``rates``. ``u`` is scratch of length n_dyn
-    (or more).
-    The results agree with ``rates`` to rounding.
+    The compartment block starts again from ``jcc_lin`` and the quadrature entries from
+    ``nq_lin``; the nonlinear terms (saturable elimination) act on compartments and cumulative
+    amounts only, so the cell blocks keep their linear part.
     """
-    nc = margs[0]
-    nd = margs[1]
-    cap = margs[2]
-    invk = margs[3]
-    lp = margs[4]
-    lq = margs[5]
-    la = margs[6]
-    lb = margs[7]
-    lc = margs[8]
-    ld = margs[9]
-    lloss = margs[10]
-    ltrack = margs[11]
-    loss_rate = margs[12]
-    loss_to = margs[13]
-    mm_s = margs[14]
-    mm_v = margs[15]
-    mm_k = margs[16]
-    tr_f = margs[17]
-    tr_t = margs[18]
-    tr_k = margs[19]
-    n = y.shape[0]
-    nx = nd - nc
-    for i in range(nd):
-        u[i] = y[i] * invk[i]
-    for i in range(nd, n):
-        out[i] = 0.0
-    for i in range(nc):
-        out[i] = 0.0  # compartments gather amount rates, divided by their volume at the end
-    # cells: the flux from each cell to the next; on views indexed by the loop variable (numba
-    # then knows the index is not negative and the loop vectorises; ``out[nc + i]`` would not)
-    if nx > 0:
-        uc = u[nc:nd]
-        oc = out[nc:nd]
-        ic = inv_cap[nc:nd]
-        prev = 0.0
-        for i in range(nx - 1):
-            f = gch[i] * (uc[i] - uc[i + 1])
-            oc[i] = (prev - f) * ic[i]
-            prev = f
-        oc[nx - 1] = prev * ic[nx - 1]
-    for jj in range(olinks.shape[0]):
-        j = olinks[jj]
-        p = lp[j]
-        q = lq[j]
-        r_out = la[j] * u[p] - lb[j] * u[q]
-        r_in = lc[j] * u[p] - ld[j] * u[q]
-        out[p] -= r_out if p < nc else r_out * inv_cap[p]
-        out[q] += r_in if q < nc else r_in * inv_cap[q]
-        if lloss[j] >= 0:
-            out[lloss[j]] += r_out - r_in
-        if ltrack[j] >= 0:
-            out[ltrack[j]] += r_in
-    for jj in range(lossy.shape[0]):
-        p = lossy[jj]
-        r = loss_rate[p] * cap[p] * y[p]
-        out[p] -= r if p < nc else loss_rate[p] * y[p]
-        out[loss_to[p]] += r
-    for m in range(mm_s.shape[0]):
-        p = mm_s[m]
-        c = y[p]
-        r = mm_v[m] * c / (mm_k[m] + abs(c))
-        out[p] -= r
-        out[nd + p] += r
-    for m in range(tr_f.shape[0]):
-        p = tr_f[m]
-        r = tr_k[m] * cap[p] * y[p]
-        out[p] -= r
-        out[tr_t[m]] += r
-    for p in range(nc):
-        if infusion[p] != 0.0:
-            out[p] += infusion[p]
-            out[q_infused + p] += infusion[p]
-        if clamp[p]:
-            out[q_supply + p] = -out[p]
-            out[p] = 0.0
-        out[p] *= inv_cap[p]
-
-
-def chain_args(model: CompiledModel) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """``(gch, olinks, lossy, inv_cap)`` for :func:`rates_chain`.
-
-    Chain conductances, the other links, the states with a first-order loss, 1/capacity.
-    """
-    m = model
-    nc, nx = m.n_comp, m.n_cells
-    gch = np.zeros(max(nx, 1))
-    p, q, a = m.link_p, m.link_q, m.link_a
-    plain = ((a == m.link_b) & (a == m.link_c) & (a == m.link_d) & (m.link_loss < 0) & (m.link_track < 0)
-             & (p >= nc) & (q == p + 1) & (a != 0.0))
-    cand = np.flatnonzero(plain)
-    # the first plain link of each cell carries the chain; any other goes with the other links
-    _, first = np.unique(p[cand], return_index=True)
-    chain = cand[first]
-    gch[p[chain] - nc] = a[chain]
-    is_chain = np.zeros(len(p), dtype=bool)
-    is_chain[chain] = True
-    other = np.flatnonzero(~is_chain).astype(np.int64)
-    lossy = np.flatnonzero(m.loss_rate != 0.0).astype(np.int64)
-    return gch, other, lossy, 1.0 / m.capacity
-
-
-@njit(**INNER)
-def _add_saturable(y, margs, clamp, q_supply, jcc, jcc_lin, qr, qc, qv, nq_lin):
-    """Jacobian of the saturable elimination at ``y`` added to the linear part; returns the entry count.
-
-    Only these entries change from step to step: d/dc [Vmax c / (Km + |c|)] = Vmax Km / (Km + |c|)^2
-    on the compartment's diagonal (per volume), or on its supply when it is clamped, and on its
-    eliminated amount (as in :func:`~barrierflow.engine.kernels.jacobian_kernel`).
-    """
-    nc = margs[0]
-    nd = margs[1]
-    cap = margs[2]
-    mm_s = margs[14]
-    mm_v = margs[15]
-    mm_k = margs[16]
+    nc = m.n_comp
+    nd = m.n_dyn
     for i in range(nc):
         for j in range(nc):
             jcc[i, j] = jcc_lin[i, j]
+    k = jacobian_nonlinear(y, rows, cols, vals, m, np.int64(0))
+    jacobian_finish(rows, vals, np.int64(0), k, m, clamp)
     nq = nq_lin
-    for m in range(mm_s.shape[0]):
-        p = mm_s[m]
-        den = mm_k[m] + abs(y[p])
-        d = mm_v[m] * mm_k[m] / (den * den)
-        if clamp[p]:
-            qr[nq] = q_supply + p
-            qc[nq] = p
-            qv[nq] = d
+    for i in range(k):
+        r = rows[i]
+        if r >= nd:
+            qr[nq] = r
+            qc[nq] = cols[i]
+            qv[nq] = vals[i]
             nq += 1
         else:
-            jcc[p, p] -= d / cap[p]
-        qr[nq] = nd + p
-        qc[nq] = p
-        qv[nq] = d
-        nq += 1
+            jcc[r, cols[i]] += vals[i]
     return nq
 
 
@@ -734,26 +552,22 @@ def _workspace(nc, nx, n, n_w, n_jac, n_be):
 
 
 @njit(inline="always", error_model="numpy")
-def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_infused, sargs, coef, rtol,
-              atol, max_steps, stats, ws, hold):
+def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol, max_steps, stats, ws, hold):
     """RODAS4 from local time 0 to ``t_end`` (h); dense output into ``out`` at ``t_out``.
 
     ``y`` is advanced in place. Returns the status code.
     """
     (rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm, kk, vec, u, rr) = ws
     ca, cc, cd = coef
-    gch, olinks, lossy, inv_cap = cargs
     f0 = vec[0]
     yn = vec[1]
     ya = vec[2]
     c2 = vec[3]
     c3 = vec[4]
     n = y.shape[0]
-    nc = margs[0]
-    nd = margs[1]
-    linear = margs[14].shape[0] == 0
-    no_i = margs[14][:0]  # the Jacobian's linear part: no saturable terms (see _add_saturable)
-    no_f = margs[15][:0]
+    nc = m.n_comp
+    nd = m.n_dyn
+    linear = m.mm_state.shape[0] == 0
     n_out = t_out.shape[0]
     io = 0
     while io < n_out and t_out[io] <= 0.0:
@@ -765,7 +579,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     if t_end < TINY_INTERVAL:
         # two events a few hundred orders of magnitude apart in time: one explicit step is exact
         # to rounding there (and 1 / (h gamma) would overflow)
-        rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+        rates_kernel(y, f0, m, infusion, clamp, u)
         stats[ST_RHS] += 1
         for i in range(n):
             yn[i] = y[i] + t_end * f0[i]
@@ -783,7 +597,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     jcc_lin = np.zeros((nc, nc))
     have_jac = False
     # starting step (Hairer, Norsett and Wanner, Solving ODEs I, 2nd ed., 1993, sec. II.4)
-    rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+    rates_kernel(y, f0, m, infusion, clamp, u)
     stats[ST_RHS] += 2
     d0 = 0.0
     d1 = 0.0
@@ -797,7 +611,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     h0 = min(h0, t_end)
     for i in range(n):
         ya[i] = y[i] + h0 * f0[i]
-    rates_chain(ya, kk[0], margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+    rates_kernel(ya, kk[0], m, infusion, clamp, u)
     d2 = 0.0
     for i in range(n):
         sk = atol[i] + rtol * abs(y[i])
@@ -824,14 +638,13 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
             h = t_end - t
             last = True
         if not first and not (linear and n_steps % REFRESH != 0):
-            rates_chain(y, f0, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+            rates_kernel(y, f0, m, infusion, clamp, u)
             stats[ST_RHS] += 1
         if not have_jac:
             # the linear part once per interval; the saturable entries (compartment diagonals)
             # are refreshed at every step below
-            k = jacobian_kernel(y, rows, cols, vals, nc, nd, margs[2], margs[3], margs[4], margs[5], margs[6],
-                                margs[7], margs[8], margs[9], margs[10], margs[11], margs[12], margs[13], no_i, no_f,
-                                no_f, margs[17], margs[18], margs[19], clamp, q_supply)
+            k = jacobian_linear(rows, cols, vals, m, np.int64(0))
+            jacobian_finish(rows, vals, np.int64(0), k, m, clamp)
             nq = _scatter(rows, cols, vals, k, nc, nd, sargs[2], sargs[4], tri, jcc, jxc, jcx, qr, qc, qv)
             nq_lin = nq
             for i in range(nc):
@@ -840,7 +653,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
             stats[ST_JAC] += 1
             have_jac = True
         if not linear:
-            nq = _add_saturable(y, margs, clamp, q_supply, jcc, jcc_lin, qr, qc, qv, nq_lin)
+            nq = _add_nonlinear(y, m, clamp, rows, cols, vals, jcc, jcc_lin, qr, qc, qv, nq_lin)
             stats[ST_JAC] += 1
         first = False
         while True:  # attempts of one step
@@ -879,7 +692,7 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
                         a = ca[s, j]
                         for i in range(n):
                             ya[i] += a * kk[j, i]
-                    rates_chain(ya, ks, margs, gch, olinks, lossy, inv_cap, u, infusion, clamp, q_supply, q_infused)
+                    rates_kernel(ya, ks, m, infusion, clamp, u)
                     for j in range(s):
                         a = cc[s, j] * ih
                         for i in range(n):
@@ -983,131 +796,38 @@ def _interval(y, t_end, t_out, out, margs, cargs, infusion, clamp, q_supply, q_i
     return OK
 
 
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python
-def apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, margs, held, infusion, clamp, holds, dosed,
-                 removed, ctx):
-    """Apply every event from index ``ei`` with time <= ``t0``; returns the next event index.
-
-    The rules are those of the event loop of :func:`barrierflow.engine.solve.solve`: a bolus adds
-    its amount; replace and remove count the content as removed (replace then refills; a remove
-    takes its fraction); a hold start sets the concentration and clamps it; an infusion adds its
-    rate until its end; a sample takes its aliquot at the concentration (booked as sampled, the
-    last block of the state) and fresh medium keeps the volume; a close sets the compartment's
-    barrier faces to no flux, which a new application (bolus, refill, hold, infusion) restores.
-    ``margs`` holds the link coefficients the run may change, ``ctx`` what
-    :func:`event_context` makes; ``ctx[7]`` receives what each event moved (mg).
-    """
-    face_ptr, face_link, la0, lb0, lc0, ld0, closed, moved = ctx
-    nc = margs[0]
-    cap = margs[2]
-    n = y.shape[0]
-    n_ev = ev_time.shape[0]
-    while ei < n_ev and ev_time[ei] <= t0:
-        p = ev_comp[ei]
-        kind = ev_kind[ei]
-        v = ev_value[ei]
-        if kind == EV_BOLUS:
-            y[p] += v / cap[p]
-            dosed[p] += v
-            moved[ei] = v
-        elif kind == EV_REPLACE:
-            removed[p] += cap[p] * y[p]
-            y[p] = v
-            dosed[p] += cap[p] * v
-            moved[ei] = cap[p] * v
-        elif kind == EV_REMOVE:
-            take = v * cap[p] * y[p]
-            removed[p] += take
-            y[p] = 0.0 if v >= 1.0 else y[p] * (1.0 - v)
-            moved[ei] = take
-        elif kind == EV_SAMPLE:
-            take = v * y[p]
-            y[p] -= take / cap[p]
-            y[n - nc + p] += take
-            moved[ei] = take
-        elif kind == EV_HOLD_START:
-            dosed[p] += cap[p] * (v - y[p])
-            y[p] = v
-            holds[p] += 1
-            clamp[p] = True
-        elif kind == EV_HOLD_END:
-            holds[p] -= 1
-            clamp[p] = held[p] or holds[p] > 0
-        elif kind == EV_INF_START:
-            infusion[p] += v
-        elif kind == EV_INF_END:
-            infusion[p] -= v
-            if abs(infusion[p]) < 1e-12 * v:
-                infusion[p] = 0.0
-        if kind == EV_CLOSE or (closed[p] and (kind == EV_BOLUS or kind == EV_REPLACE or kind == EV_HOLD_START
-                                               or kind == EV_INF_START)):
-            closed[p] = kind == EV_CLOSE
-            _contact(p, margs, face_ptr, face_link, la0, lb0, lc0, ld0, closed)
-        ei += 1
-    return ei
-
-
-@njit(**INNER)
-def _contact(p, margs, face_ptr, face_link, la0, lb0, lc0, ld0, closed):
-    """Set the barrier faces of compartment ``p``: no flux while it (or the compartment at the
-    other end of a steady barrier) is closed, the original coefficients otherwise."""
-    nc = margs[0]
-    lp = margs[4]
-    lq = margs[5]
-    la = margs[6]
-    lb = margs[7]
-    lc = margs[8]
-    ld = margs[9]
-    for f in range(face_ptr[p], face_ptr[p + 1]):
-        j = face_link[f]
-        other = lq[j] if lp[j] == p else lp[j]
-        off = closed[p] or (other < nc and closed[other])
-        la[j] = 0.0 if off else la0[j]
-        lb[j] = 0.0 if off else lb0[j]
-        lc[j] = 0.0 if off else lc0[j]
-        ld[j] = 0.0 if off else ld0[j]
-
-
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python
-def rows_until(times, row, t1, last):
-    """End of the output rows of the interval that ends at ``t1`` (the last one includes ``t1``)."""
-    n_t = times.shape[0]
-    sel_end = row
-    while sel_end < n_t and (times[sel_end] < t1 or (last and times[sel_end] <= t1)):
-        sel_end += 1
-    return sel_end
-
-
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def run_marks(k0, k1, marks, times, ev_time, ev_kind, ev_comp, ev_value, held, margs, cargs, q_supply, q_infused,
-              sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, y, infusion, clamp, holds, dosed, removed, ptr,
-              states, ev_dosed, ev_removed, stats, ctx):
-    """Run the dosing intervals ``k0 .. k1 - 1`` (between ``marks``), applying the events.
+def run_marks(k0, k1, marks, times, ev, m, base, s, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, y, ptr,
+              states, ev_dosed, ev_removed, stats):
+    """Run the dosing intervals ``k0 .. k1 - 1`` (between ``marks``) of a model, applying the events
+    ``ev`` (EventArrays) by :func:`~barrierflow.engine.schedule.apply_events`.
 
-    The carried state (``y``, infusion rates, clamps, hold counts, the ledger ``dosed`` and
-    ``removed``, ``ptr = [next output row, next event]``, and the links and closed faces in
-    ``margs`` and ``ctx``, see :func:`event_context`) is updated in place, so a run can be done in
-    pieces. Returns (status, index of the failed interval or -1).
+    ``m`` is the run's copy of the model's arrays (:func:`~barrierflow.engine.arrays.working_copy`;
+    a closed face changes its links), ``base`` the model's own. The carried state (``y``, the
+    :class:`~barrierflow.engine.schedule.EventState` ``s`` and ``ptr = [next output row, next
+    event]``) is updated in place, so a run can be done in pieces. Returns (status, index of the
+    failed interval or -1).
     """
     n = y.shape[0]
-    nc = margs[0]
-    ws = _workspace(nc, margs[1] - nc, n, n_w, n_jac, sargs[3].shape[0])
+    nc = m.n_comp
+    ws = _workspace(nc, m.n_dyn - nc, n, n_w, n_jac, sargs[3].shape[0])
     n_marks = marks.shape[0]
     row = ptr[0]
     ei = ptr[1]
     for k in range(k0, k1):
         t0 = marks[k]
         t1 = marks[k + 1]
-        ei = apply_events(t0, ei, ev_time, ev_kind, ev_comp, ev_value, y, margs, held, infusion, clamp, holds, dosed,
-                          removed, ctx)
+        ei = apply_events(t0, ei, ev, m, base, y, s)
         sel_end = rows_until(times, row, t1, k == n_marks - 2)
         t_local = times[row:sel_end] - t0
-        status = _interval(y, t1 - t0, t_local, states[row:sel_end], margs, cargs, infusion, clamp, q_supply,
-                           q_infused, sargs, coef, rtol, atol, max_steps, stats, ws, hold)
+        status = _interval(y, t1 - t0, t_local, states[row:sel_end], m, s.infusion, s.clamp, sargs, coef, rtol, atol,
+                           max_steps, stats, ws, hold)
         if status != OK:
             ptr[0] = row
             ptr[1] = ei
             return status, k
+        dosed = s.dosed
+        removed = s.removed
         for r in range(row, sel_end):
             for p in range(nc):
                 ev_dosed[r, p] = dosed[p]
@@ -1129,7 +849,7 @@ _FAILURES = {
 
 
 @dataclass(frozen=True)
-class RosenbrockIntegrator:
+class RosenbrockIntegrator(Integrator):
     """RODAS4, fully compiled, with the block solver of the network (see the module docstring).
 
     Parameters
@@ -1156,9 +876,7 @@ class RosenbrockIntegrator:
     name: str = field(init=False, default="rodas4")
 
     def __post_init__(self) -> None:
-        for label, v in (("rtol", self.rtol), ("atol", self.atol)):
-            if not (isinstance(v, float | int) and not isinstance(v, bool) and 0 < v < 1):
-                raise ScenarioError.single(f"integrator {label}", v, "must be a number between 0 and 1")
+        check_tolerances(self.rtol, self.atol)
         if not (isinstance(self.max_steps, int) and self.max_steps >= 1):
             raise ScenarioError.single("integrator max_steps", self.max_steps, "must be a whole number >= 1")
         if not (isinstance(self.hold, float | int) and not isinstance(self.hold, bool) and 1 <= self.hold <= 2):
@@ -1169,50 +887,42 @@ class RosenbrockIntegrator:
         """The relative tolerance and the vector of absolute tolerances for ``model``."""
         return float(self.rtol), self.atol * model.scale
 
-    def solve_schedule(self, model: CompiledModel, events, times: np.ndarray, duration: float, stats,
-                       progress=None):
-        """Run the whole regimen in compiled code.
+    def working_memory(self, model: CompiledModel) -> int:
+        """Bytes of working arrays: O(n) vectors and the dense compartment block."""
+        n, nc = model.n_state, model.n_comp
+        return 8 * (40 * n + 30 * len(model.link_p) + 4 * nc * nc)
 
-        Returns
-        -------
-        tuple
-            ``(states, event_dosed, event_removed, status, message, moved)``; on failure the arrays
-            end at the last output row reached and ``status`` is -1; ``moved`` holds what each event
-            moved, mg.
+    def run(self, plan: RunPlan) -> Integration:
+        """Run the whole regimen in compiled code (:func:`run_marks`); in one call, or one call per
+        dosing interval when ``plan.progress`` asks to hear of it.
 
         Raises
         ------
         ScenarioError
             For a model with evaporation, a solubility limit or samples without replacement.
         """
+        model, times, marks = plan.model, plan.times, plan.marks
         refuse_vehicle_terms(model, self.name)
-        marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
-        ev = encode_events(events)
+        base = model.arrays
+        m = working_copy(base)
         n_t, n_c = len(times), model.n_comp
         states = np.full((n_t, model.n_state), np.nan)
         ev_dosed = np.zeros((n_t, n_c))
         ev_removed = np.zeros((n_t, n_c))
         struct = build_structure(model)
-        margs, ctx = event_context(model, len(events))
-        cargs = chain_args(model)
         rtol, atol = self.tolerances(model)
-        n_jac = jacobian_size(len(model.link_p), model.n_dyn, len(model.mm_state), len(model.tr_from))
-        y = model.y0.copy()
-        infusion = np.zeros(n_c)
-        clamp = model.held.copy()
-        holds = np.zeros(n_c, dtype=np.int64)
-        dosed = np.zeros(n_c)
-        removed = np.zeros(n_c)
+        n_jac = jacobian_size(model)
+        y = base.y0.copy()
+        s = new_event_state(base, len(plan.events.time))
         ptr = np.zeros(2, dtype=np.int64)
         st = np.zeros(6, dtype=np.int64)
         n_int = len(marks) - 1
-        chunks = [(0, n_int)] if progress is None else [(k, k + 1) for k in range(n_int)]
+        chunks = [(0, n_int)] if plan.progress is None else [(k, k + 1) for k in range(n_int)]
         status, message = 0, "the run finished"
         for k0, k1 in chunks:
-            code, k_fail = run_marks(k0, k1, marks, times, *ev, model.held, margs, cargs, model.q_supply,
-                                     model.q_infused, struct.args(), COEF, struct.n_w, n_jac, rtol, atol,
-                                     self.max_steps, self.hold, y, infusion, clamp, holds, dosed, removed, ptr,
-                                     states, ev_dosed, ev_removed, st, ctx)
+            code, k_fail = run_marks(k0, k1, marks, times, plan.events, m, base, s, struct.args(), COEF, struct.n_w,
+                                     n_jac, rtol, atol, self.max_steps, self.hold, y, ptr, states, ev_dosed, ev_removed,
+                                     st)
             if code != OK:
                 row = int(ptr[0])
                 t0, t1 = marks[k_fail], marks[k_fail + 1]
@@ -1222,12 +932,8 @@ class RosenbrockIntegrator:
                            "in very thin layers, or check for extreme values (diffusivity, clearance, partition).")
                 states, ev_dosed, ev_removed = states[:row], ev_dosed[:row], ev_removed[:row]
                 break
-            if progress is not None:
-                progress(float(marks[k1]) / duration if duration > 0 else 1.0)
-        stats.steps += int(st[ST_STEPS])
-        stats.rejected_steps += int(st[ST_REJECTED])
-        stats.rhs_evaluations += int(st[ST_RHS])
-        stats.jacobian_evaluations += int(st[ST_JAC])
-        stats.lu_decompositions += int(st[ST_LU])
-        stats.intervals += int(st[ST_INTERVALS])
-        return states, ev_dosed, ev_removed, status, message, ctx[7]
+            if plan.progress is not None:
+                plan.progress(float(marks[k1]) / plan.duration if plan.duration > 0 else 1.0)
+        stats = RunStats()
+        stats.add(st)
+        return Integration(states, ev_dosed, ev_removed, status, message, stats, s.moved.copy())

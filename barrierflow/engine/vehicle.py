@@ -17,7 +17,7 @@ Three processes make a model leave the linear, time-invariant form of the other 
 - **Samples without replacement.** A sample takes its aliquot and the volume shrinks by it
   (at the event, so the volume is constant within each interval).
 
-Between events f(t, y) is built from the rate kernel of every path
+Between events f(t, y) is built from the one rate kernel of every path
 (:func:`~barrierflow.engine.kernels.rates`) with the interval's volumes and the dissolved
 concentrations; the Jacobian is that of the kernel with the chain rule of both maps (1/V for an
 evaporating compartment's amount, 0 or 1 for the dissolved part). The model is smooth between
@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .arrays import ModelArrays
 from .compiled import CompiledModel
 from .kernels import jacobian_coo, rates
 from .problem import IntervalProblem, IntervalSettings
@@ -52,20 +53,27 @@ class VehicleProblem(IntervalProblem):
     Parameters
     ----------
     model : CompiledModel
-        With this interval's link coefficients and volumes at its start (``capacity``).
     settings : IntervalSettings
     evaporation : ndarray (n_comp,), mL/h
         The rate at which each compartment's volume shrinks in this interval (0: constant).
+    arrays : ModelArrays, optional
+        This interval's link coefficients and volumes at its start (``capacity``); default
+        ``model.arrays``.
     """
 
-    def __init__(self, model: CompiledModel, settings: IntervalSettings, evaporation: np.ndarray):
-        super().__init__(model, settings)
+    def __init__(self, model: CompiledModel, settings: IntervalSettings, evaporation: np.ndarray,
+                 arrays: ModelArrays | None = None):
+        super().__init__(model, settings, arrays)
+        a = self.arrays
         self.evap = np.flatnonzero(evaporation > 0)
         self.rate = evaporation[self.evap]
-        self.v0 = model.capacity[self.evap].copy()
-        self.limited = np.flatnonzero(np.isfinite(model.solubility))
-        self.sol = model.solubility[self.limited]
-        self._cap = model.capacity.copy()
+        self.v0 = a.capacity[self.evap].copy()
+        self.limited = np.flatnonzero(np.isfinite(a.solubility))
+        self.sol = a.solubility[self.limited]
+        # the volumes of the moment go into a copy of the arrays (capacity and its reciprocal)
+        self._cap = a.capacity.copy()
+        self._icap = a.inv_capacity.copy()
+        self._arrays = tuple(a._replace(capacity=self._cap, inv_capacity=self._icap))
 
     def volume(self, t: float) -> np.ndarray:
         """The volumes of the evaporating compartments at local time ``t``, mL."""
@@ -87,6 +95,7 @@ class VehicleProblem(IntervalProblem):
         cap = self._cap
         vol = self.volume(t)
         cap[self.evap] = vol
+        self._icap[self.evap] = 1.0 / vol
         y = w.copy()
         y[self.evap] = w[self.evap] / vol
         y[self.limited] = np.minimum(y[self.limited], self.sol)
@@ -97,9 +106,7 @@ class VehicleProblem(IntervalProblem):
         self.nfev += 1
         y, cap, vol = self._prepare(t, w)
         out = np.empty(self.n)
-        a = self._args
-        rates(y, out, a[0], a[1], cap, *a[3:], self.settings.infusion, self.settings.clamp, self.model.q_supply,
-              self.model.q_infused)
+        rates(y, out, self._arrays, self.settings.infusion, self.settings.clamp, self._scratch)
         out[self.evap] *= vol  # amount rates of the evaporating compartments
         return out
 
@@ -109,9 +116,7 @@ class VehicleProblem(IntervalProblem):
 
         self.njev += 1
         y, cap, vol = self._prepare(t, w)
-        a = self._args
-        k = jacobian_coo(y, self._rows, self._cols, self._vals, a[0], a[1], cap, *a[3:], self.settings.clamp,
-                         self.model.q_supply)
+        k = jacobian_coo(y, self._rows, self._cols, self._vals, self._arrays, self.settings.clamp)
         rows, cols, vals = self._rows[:k].copy(), self._cols[:k].copy(), self._vals[:k].copy()
         col_factor = np.ones(self.n)
         col_factor[self.evap] = 1.0 / vol

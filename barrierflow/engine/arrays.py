@@ -1,0 +1,173 @@
+"""The one structure that carries a compiled model into compiled code, and how kernels compile.
+
+:class:`ModelArrays` is a named tuple of the model's numbers and arrays (numba types it field by
+field, and caches kernels that take it); :func:`~barrierflow.engine.compiled.compile_scenario`
+builds it, every kernel takes it as one argument (``m``) and reads its fields by name. To add
+a number the kernels need: a field here (with its line in :func:`subject`), its value in
+``compile_scenario``, its use in a kernel.
+
+Calls from Python: numba types a named tuple in Python on every call (about 1.5 us for this
+one, against 0.4 us for the same values as a plain tuple); the few entries that Python calls in
+a loop (:func:`~barrierflow.engine.kernels.rates`, :func:`~barrierflow.engine.kernels.
+jacobian_coo`) pass ``tuple(m)`` and name it again inside (``ModelArrays(*mt)``, free there).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import NamedTuple
+
+import numpy as np
+from numba import njit
+
+__all__ = ["CHANGING", "INNER", "ModelArrays", "stack_arrays", "subject", "working_copy"]
+
+#: Options of the kernels that only compiled code calls: no Python or C-callable wrappers. Each
+#: compiled caller links in (and LLVM optimises and emits again) the whole code library of every
+#: callee, wrappers included; leaving the unused wrappers out shortens the first-ever compile.
+INNER = dict(cache=True, error_model="numpy", no_cpython_wrapper=True, no_cfunc_wrapper=True)
+
+
+class ModelArrays(NamedTuple):
+    """Every number of a compiled model, as the kernels take it: one named tuple of arrays.
+
+    Built in one place, :func:`~barrierflow.engine.compiled.compile_scenario`; a population
+    stacks the subjects' tuples field by field (:func:`stack_arrays`) and takes subject ``i``
+    back with :func:`subject`. States are indexed as in :mod:`barrierflow.engine.compiled`;
+    ``n_state = n_dyn + 3 n_comp + 2 n_bar``.
+
+    Attributes
+    ----------
+    n_comp : int
+        Number of compartments.
+    n_dyn : int
+        Number of dynamic states (compartments, then the cells of every resolved barrier).
+    q_supply, q_infused, q_sampled : int
+        Offsets of the clamp supplies, the infused amounts and the sampled amounts (the last
+        block) in the state vector.
+    capacity : ndarray (n_dyn,), mL
+        Volume of each compartment (1 without one), area times width of each cell.
+    inv_capacity : ndarray (n_dyn,), 1/mL
+        1 / capacity (whatever changes a volume changes both).
+    inv_partition : ndarray (n_dyn,)
+        1/K of each state: its potential is u = y / K.
+    link_p, link_q : ndarray of int (n_link,)
+        The two states of each link (barrier faces, cell faces, steady barriers, exchanges).
+    link_a, link_b, link_c, link_d : ndarray (n_link,), mL/h
+        Leaving p: ``a u_p - b u_q``; entering q: ``c u_p - d u_q``.
+    link_loss : ndarray of int (n_link,)
+        State index of the amount a link degrades (``a u_p - b u_q`` minus what enters q), or -1.
+    link_track : ndarray of int (n_link,)
+        State index that counts what a link brings into q, or -1.
+    chain_g : ndarray (max(n_cells, 1),), mL/h
+        Conductance between cell i and cell i + 1 of the same barrier (0 where a barrier ends):
+        the links inside barriers, which the rate kernel runs as one vectorised sweep.
+    other_links : ndarray of int
+        Every link not in ``chain_g`` (barrier faces, steady barriers, exchanges).
+    loss_rate : ndarray (n_dyn,), 1/h
+        First-order loss of each state (clearance / volume; a layer's degradation rate).
+    loss_to : ndarray of int (n_dyn,)
+        State index of the amount each loss goes to (eliminated or degraded).
+    lossy : ndarray of int
+        The states with a first-order loss.
+    mm_state : ndarray of int (n_mm,)
+        Compartments with saturable elimination (Michaelis-Menten).
+    mm_vmax : ndarray (n_mm,), mg/h
+    mm_km : ndarray (n_mm,), mg/mL
+    tr_from, tr_to : ndarray of int (n_tr,)
+        One-way first-order transfers between compartments.
+    tr_rate : ndarray (n_tr,), 1/h
+    held : ndarray of bool (n_comp,)
+        Compartments held at their concentration for the whole run.
+    has_volume : ndarray of bool (n_comp,)
+        False for a held compartment without a volume (its capacity is 1 but holds nothing).
+    area : ndarray (n_bar,), cm^2
+    y0 : ndarray (n_state,)
+        The initial state (mg/mL; the cumulative amounts 0).
+    scale : ndarray (n_state,)
+        Magnitude of each state, which absolute tolerances and checks are relative to.
+    face_ptr : ndarray of int (n_comp + 1,)
+        ``face_link[face_ptr[p]:face_ptr[p + 1]]`` are the barrier links touching compartment p
+        (the faces a remove that ends contact closes).
+    face_link : ndarray of int
+    evap_rate : ndarray (n_comp,), mL/h
+        Evaporation of a volatile vehicle (0: none).
+    residual : ndarray (n_comp,), mL
+        The volume an evaporating vehicle leaves.
+    solubility : ndarray (n_comp,), mg/mL
+        Solubility times partition where the dissolved part may be limited (inf: no limit).
+    shrinking : ndarray of bool (n_comp,)
+        Samples without replacement shrink the compartment's volume.
+    """
+
+    n_comp: int
+    n_dyn: int
+    q_supply: int
+    q_infused: int
+    q_sampled: int
+    capacity: np.ndarray
+    inv_capacity: np.ndarray
+    inv_partition: np.ndarray
+    link_p: np.ndarray
+    link_q: np.ndarray
+    link_a: np.ndarray
+    link_b: np.ndarray
+    link_c: np.ndarray
+    link_d: np.ndarray
+    link_loss: np.ndarray
+    link_track: np.ndarray
+    chain_g: np.ndarray
+    other_links: np.ndarray
+    loss_rate: np.ndarray
+    loss_to: np.ndarray
+    lossy: np.ndarray
+    mm_state: np.ndarray
+    mm_vmax: np.ndarray
+    mm_km: np.ndarray
+    tr_from: np.ndarray
+    tr_to: np.ndarray
+    tr_rate: np.ndarray
+    held: np.ndarray
+    has_volume: np.ndarray
+    area: np.ndarray
+    y0: np.ndarray
+    scale: np.ndarray
+    face_ptr: np.ndarray
+    face_link: np.ndarray
+    evap_rate: np.ndarray
+    residual: np.ndarray
+    solubility: np.ndarray
+    shrinking: np.ndarray
+
+
+#: The fields the events of a run may change (a closed face, a volume): a run works on copies.
+CHANGING = ("capacity", "inv_capacity", "link_a", "link_b", "link_c", "link_d")
+
+
+def working_copy(arrays: ModelArrays) -> ModelArrays:
+    """``arrays`` with its own copies of the fields events change (:data:`CHANGING`), for one run;
+    the original stays the reference the event rules restore from."""
+    return arrays._replace(**{k: getattr(arrays, k).copy() for k in CHANGING})
+
+
+def stack_arrays(arrays: Sequence[ModelArrays]) -> ModelArrays:
+    """The arrays of many subjects of one structure, stacked: each array field gains a first axis
+    (the subject); the whole-number fields (sizes and offsets) are shared."""
+    first = arrays[0]
+    return ModelArrays(*(np.ascontiguousarray(np.stack([a[k] for a in arrays])) if isinstance(v, np.ndarray) else v
+                         for k, v in enumerate(first)))
+
+
+@njit(**INNER)
+def subject(stack, i):
+    """Subject ``i`` of :func:`stack_arrays` (views, no copies): one line per field, in order."""
+    s = stack
+    return ModelArrays(
+        s.n_comp, s.n_dyn, s.q_supply, s.q_infused, s.q_sampled, s.capacity[i], s.inv_capacity[i],
+        s.inv_partition[i], s.link_p[i], s.link_q[i], s.link_a[i], s.link_b[i], s.link_c[i], s.link_d[i],
+        s.link_loss[i], s.link_track[i], s.chain_g[i], s.other_links[i], s.loss_rate[i], s.loss_to[i], s.lossy[i],
+        s.mm_state[i], s.mm_vmax[i], s.mm_km[i], s.tr_from[i], s.tr_to[i], s.tr_rate[i], s.held[i],
+        s.has_volume[i], s.area[i], s.y0[i], s.scale[i], s.face_ptr[i], s.face_link[i], s.evap_rate[i],
+        s.residual[i], s.solubility[i], s.shrinking[i])
+
+

@@ -21,6 +21,10 @@ its peak, cumulative amount absorbed relative to its final value; the contract a
 population of 1,000 subjects. Speed is judged on ratios: absolute times are noisy on a shared
 2-core machine.
 
+A full run writes what it printed to ``tests/benchmarks/LAST_RUN.md`` (generated: date, commit,
+machine, load average at the start and the end, versions), replacing the previous run's;
+``--quick`` and ``--only`` runs print only.
+
 Usage: ``make bench`` or ``.venv/bin/python tests/benchmarks/run_benchmark.py [--quick]``.
 """
 
@@ -51,6 +55,7 @@ from barrierflow.engine import integrator_from_name
 
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIO = ROOT / "scenarios" / "benchmark_patch.toml"
+LAST_RUN = Path(__file__).resolve().parent / "LAST_RUN.md"
 H = 3600.0  # s per h
 
 CENTRAL_TOL = 1e-5   # of the peak central concentration, at every output time (the contract)
@@ -266,9 +271,7 @@ def check_same_discretisation(hand: HandModel, scenario: bf.Scenario) -> float:
         y_prod[0], y_prod[1], y_prod[2] = y_hand[0], y_hand[hand.ic], y_hand[hand.ip]
         y_prod[cells] = y_hand[1:hand.nx + 1]
         out = np.empty(m.n_state)
-        rates(y_prod, out, m.n_comp, m.n_dyn, m.capacity, m.inv_partition, m.link_p, m.link_q, m.link_a, m.link_b,
-              m.link_c, m.link_d, m.link_loss, m.link_track, m.loss_rate, m.loss_to, m.mm_state, m.mm_vmax, m.mm_km,
-              m.tr_from, m.tr_to, m.tr_rate, np.zeros(m.n_comp), m.held.copy(), m.q_supply, m.q_infused)
+        rates(y_prod, out, m.arrays, np.zeros(m.n_comp), m.held.copy())
         f = hand.rhs(0.0, y_hand)
         got = np.r_[out[0], out[cells], out[1], out[2], out[m.q_perm]]
         worst = max(worst, float(np.max(np.abs(got - f) / (np.abs(f) + 1e-300 + 1e-12 * np.abs(f).max()))))
@@ -467,7 +470,7 @@ def population(n: int, runs: int) -> dict[str, float]:
 
 
 # ---------------------------------------------------------------- report
-def machine() -> str:
+def cpu_name() -> str:
     cpu = platform.processor() or "?"
     try:
         for line in Path("/proc/cpuinfo").read_text().splitlines():
@@ -476,21 +479,58 @@ def machine() -> str:
                 break
     except OSError:
         pass
+    return cpu
+
+
+def versions() -> str:
     import numba
 
-    return (f"{datetime.date.today().isoformat()}, {cpu}, {os.cpu_count()} cores, Python {platform.python_version()}, "
-            f"numpy {np.__version__}, scipy {scipy.__version__}, numba {numba.__version__}, "
-            f"load average {os.getloadavg()[0]:.2f}")
+    return (f"Python {platform.python_version()}, numpy {np.__version__}, scipy {scipy.__version__}, "
+            f"numba {numba.__version__}")
 
 
-def print_table(rows: list[Row]) -> None:
+def load_average() -> str:
+    """The load average over 1, 5 and 15 minutes (on 2 cores, above 2 means others are waiting)."""
+    return " / ".join(f"{x:.2f}" for x in os.getloadavg())
+
+
+def commit() -> str:
+    """The commit the code comes from, and whether the working tree differs from it."""
+    try:
+        head = subprocess.run(["git", "-C", str(ROOT), "rev-parse", "--short", "HEAD"], capture_output=True,
+                              text=True, check=True).stdout.strip()
+        dirty = subprocess.run(["git", "-C", str(ROOT), "status", "--porcelain", "--untracked-files=no"],
+                               capture_output=True, text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return "unknown"
+    return head + (" with local changes" if dirty else "")
+
+
+class Report:
+    """What the benchmark prints, kept to be written to :data:`LAST_RUN`."""
+
+    def __init__(self) -> None:
+        self.lines: list[str] = []
+
+    def __call__(self, text: str = "") -> None:
+        print(text, flush=True)
+        self.lines.extend(text.split("\n"))
+
+    def write(self, head: list[str]) -> None:
+        text = "\n".join([*head, "", "```", *self.lines, "```", ""])
+        tmp = LAST_RUN.with_name(f".{LAST_RUN.name}.{os.getpid()}.tmp")
+        tmp.write_text(text)
+        os.replace(tmp, LAST_RUN)
+
+
+def print_table(rows: list[Row], out: Report) -> None:
     by_variant: dict[str, list[Row]] = {}
     for r in rows:
         by_variant.setdefault(r.variant, []).append(r)
     head = ("| variant | path | engine median ms | engine min ms | file-to-traces median ms | steps | central err "
             "| absorbed err | accurate | BDF / this | LSODA / this |")
-    print(head)
-    print("|" + "---|" * 11)
+    out(head)
+    out("|" + "---|" * 11)
     for variant, rs in by_variant.items():
         bdf = next(r for r in rs if r.path.startswith("baseline BDF"))
         ls = next(r for r in rs if r.path.startswith("baseline LSODA"))
@@ -501,7 +541,7 @@ def print_table(rows: list[Row]) -> None:
             if r.total:
                 ratio += f" ({bdf.timing.median / r.total.median:.1f})"
                 ratio_l += f" ({ls.timing.median / r.total.median:.1f})"
-            print(f"| {variant} | {r.path} | {r.timing.median * 1e3:.2f} | {r.timing.best * 1e3:.2f} | {tot} | "
+            out(f"| {variant} | {r.path} | {r.timing.median * 1e3:.2f} | {r.timing.best * 1e3:.2f} | {tot} | "
                   f"{r.steps} | {r.central_err:.1e} | {r.absorbed_err:.1e} | {'yes' if r.accurate else 'NO'} | "
                   f"{ratio} | {ratio_l} |")
 
@@ -513,7 +553,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--only", default=None, metavar="LABEL",
                     help="run only the variant with this label (for example '50 cells')")
     args = ap.parse_args(argv)
-    print(f"machine: {machine()}\n", flush=True)
+    out = Report()
+    started = datetime.datetime.now().astimezone()
+    load_start = load_average()
+    out(f"machine: {cpu_name()}, {os.cpu_count()} cores; {versions()}; commit {commit()}")
+    out(f"load average at the start (1 / 5 / 15 min): {load_start}\n")
     variants = [Variant("50 cells", 50), Variant("20 cells", 20), Variant("200 cells", 200),
                 Variant("finite dose 0.1 mL", patch_volume_ml=0.1), Variant("saturable", saturable=True)]
     if args.quick:
@@ -526,22 +570,22 @@ def main(argv: list[str] | None = None) -> int:
         for v in variants:
             paths = ["default", "rodas", "bdf"] if v.saturable else ["default", "exact", "rodas", "bdf"]
             rows += run_variant(v, paths, args.quick, tmp)
-        print()
-        print("Times: 'engine' is simulate() (scenario object to Result); 'file to traces' is load + simulate +")
-        print("csv_text. Every runner runs once per round, in rotating order, over several rounds; ratios are")
-        print("baseline median / product median on the engine time (in brackets: on the whole file-to-traces")
-        print("path). Errors are against the Radau reference on the same grid.\n")
-        print_table(rows)
-        print(flush=True)
+        out()
+        out("Times: 'engine' is simulate() (scenario object to Result); 'file to traces' is load + simulate +")
+        out("csv_text. Every runner runs once per round, in rotating order, over several rounds; ratios are")
+        out("baseline median / product median on the engine time (in brackets: on the whole file-to-traces")
+        out("path). Errors are against the Radau reference on the same grid.\n")
+        print_table(rows, out)
+        out()
         ws = warm_start(tmp, 3 if args.quick else 5)
         pop = population(args.population, 2 if args.quick else 3)
 
-    print(f"\nwarm start (new processes): import barrierflow {ws['import_s'] * 1e3:.0f} ms; barrierflow run of the "
+    out(f"\nwarm start (new processes): import barrierflow {ws['import_s'] * 1e3:.0f} ms; barrierflow run of the "
           f"reference problem {ws['run_warm_s']:.2f} s (median {ws['run_warm_median_s']:.2f} s)")
-    print(f"first-ever compile (empty numba cache): barrierflow run, reference problem (exact path) "
+    out(f"first-ever compile (empty numba cache): barrierflow run, reference problem (exact path) "
           f"{ws['first_reference_s']:.1f} s, then {ws['second_reference_s']:.2f} s; saturable variant (RODAS4) "
           f"{ws['first_saturable_s']:.1f} s, then {ws['second_saturable_s']:.2f} s")
-    print(f"population: {pop['n']} subjects (50 cells, {len(POPULATION_VARIED)} parameters log-normal, CV 30 %), "
+    out(f"population: {pop['n']} subjects (50 cells, {len(POPULATION_VARIED)} parameters log-normal, CV 30 %), "
           f"{pop['integrator']}, {pop['threads']} threads: {pop['best_s']:.2f} s (median {pop['median_s']:.2f} s), "
           f"{pop['failed']} failed; subject 0 vs a single run: {pop['check']:.1e}; the same on RODAS4: "
           f"{pop['rodas_best_s']:.2f} s, {pop['rodas_failed']} failed")
@@ -549,7 +593,7 @@ def main(argv: list[str] | None = None) -> int:
     def get(variant, prefix):
         return next((r for r in rows if r.variant == variant and r.path.startswith(prefix)), None)
 
-    print("\ntargets:")
+    out("\ntargets:")
     checks = []
     v50 = "50 cells"
     bdf, ls, ro, ex = (get(v50, p) for p in ("baseline BDF", "baseline LSODA", "product rodas", "product exact"))
@@ -583,7 +627,28 @@ def main(argv: list[str] | None = None) -> int:
     checks.append((pop["best_s"] <= 4 and pop["n"] >= 1000,
                    f"population of {pop['n']}: {pop['best_s']:.2f} s (<= 4 s for 1,000)"))
     for ok, text in checks:
-        print(f"  [{'met' if ok else 'NOT MET'}] {text}")
+        out(f"  [{'met' if ok else 'NOT MET'}] {text}")
+    load_end = load_average()
+    out(f"\nload average at the end (1 / 5 / 15 min): {load_end}")
+    if args.quick or args.only:
+        print(f"(a partial run: {LAST_RUN.name} keeps the last full run)")
+        return 0
+    minutes = (datetime.datetime.now().astimezone() - started).total_seconds() / 60
+    out.write([
+        "# The last full run of the reference benchmark",
+        "",
+        "Generated by `tests/benchmarks/run_benchmark.py` (`make bench`); the next full run replaces it. Absolute",
+        "times depend on the machine and on its load (2 shared cores): compare ratios, and compare runs at a",
+        "similar load average. How to read it: DEVELOPERS.md, \"Speed\".",
+        "",
+        f"- started: {started.isoformat(timespec='seconds')}, took {minutes:.0f} min",
+        f"- commit: {commit()}",
+        f"- machine: {cpu_name()}, {os.cpu_count()} cores",
+        f"- load average (1 / 5 / 15 min): {load_start} at the start, {load_end} at the end",
+        f"- versions: {versions()}",
+        f"- population size: {args.population}",
+    ])
+    print(f"written to {LAST_RUN.relative_to(ROOT)}")
     return 0
 
 

@@ -31,7 +31,7 @@ import barrierflow as bf
 from barrierflow import Barrier, Compartment, Dose, Exchange, Layer, Scenario, ScenarioError, SolverError, Transfer
 from barrierflow.analysis.metrics import compute_metrics
 from barrierflow.analysis.population import percentile_bands, population_exposure
-from barrierflow.engine import ScipyIntegrator, compile_scenario, exact_chain, solve
+from barrierflow.engine import ScipyIntegrator, arrays, compile_scenario, exact_chain, solve
 from barrierflow.engine.exact import ExactIntegrator, exact_supported
 from barrierflow.engine.exact_chain import chain_order
 from barrierflow.engine.kernels import jacobian_coo, jacobian_size, rates
@@ -263,6 +263,11 @@ def test_integrator_options_are_checked():
 # The engine's inner kernels carry no Python wrapper (compiled callers only); these entries call
 # them from compiled code, as the engine does.
 @njit
+def _call_subject(stack, i):
+    return arrays.subject(stack, i)
+
+
+@njit
 def _call_workspace(nc, nx, n, n_w, n_jac, n_be):
     return _workspace(nc, nx, n, n_w, n_jac, n_be)
 
@@ -359,6 +364,19 @@ def test_rate_kernel_against_numpy():
         rates(y, got, m.arrays, infusion, clamp)
         want = _rates_numpy(m, y, infusion, clamp)
         assert np.allclose(got, want, rtol=1e-13, atol=1e-13 * np.abs(want).max())
+
+
+def test_a_population_subject_is_its_own_model():
+    # stack_arrays then subject (the population's view of subject i) give back every field of
+    # each subject's ModelArrays
+    models = [compile_scenario(s) for s in sample_scenarios(patch_body(), {"compartment.central.clearance": 0.3,
+                                                                           "barrier.skin.layer.2.diffusivity": 0.3},
+                                                          3, seed=2)[0]]
+    stack = arrays.stack_arrays([m.arrays for m in models])
+    for i, m in enumerate(models):
+        got = _call_subject(stack, i)
+        for name in arrays.ModelArrays._fields:
+            assert np.array_equal(getattr(got, name), getattr(m.arrays, name)), name
 
 
 @pytest.mark.parametrize("net", ["patch-body", "two-barriers", "held-degrading"])

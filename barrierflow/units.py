@@ -457,15 +457,103 @@ _PARSED_MAX = 20_000
 
 
 def _parse(text: object, kind: str, field: str, molar_mass: float | None) -> float:
-    """:func:`parse_quantity` without the memo."""
+    """:func:`parse_quantity` without the memo of whole texts.
+
+    A unit text read before (for the same kind and molar mass) is not read again: its
+    conversion factor is kept in :data:`_UNIT_FACTORS`, and the value is the number times that
+    factor -- the same arithmetic, to the last bit, as pint's conversion, which multiplies the
+    number by the factor between the two units (checked for each unit when it is first kept).
+    """
+    split = _split(text) if isinstance(text, str) else None
+    if split is not None:
+        factor = _UNIT_FACTORS.get((split[1], kind, molar_mass))
+        if factor is not None:
+            value = _known(float(split[0]) + 0.0, factor, kind, molar_mass)
+            if value is not None:
+                return value
     value, q = _convert(text, kind, field, molar_mass)
+    number = float(q.magnitude)
+    if split is not None:
+        _keep_factor(split[1], kind, molar_mass, q, number, value)
+    return _finish(value, number, kind)
+
+
+def _finish(value: float, number: float, kind: str) -> float:
+    """The converted value as the reader gives it: rounded to 15 digits unless written with more."""
     if kind == "length" and abs(value) < 1e-300 and value != 0:
         value = 0.0
-    if _digits(float(q.magnitude)) > 15:
+    if _digits(number) > 15:
         # the number was written with full double precision (as format_quantity writes a value
         # that has no shorter exact form): keep every digit, do not round
         return value
     return _tidy(value)
+
+
+def _split(text: str) -> tuple[str, str] | None:
+    """The number and the rest (the unit, with the spaces before it) of a value text, as
+    :func:`read_quantity` splits it; None for a text it would not read as a plain number."""
+    if len(text) > MAX_TEXT:
+        return None
+    body = text.strip(_SPACE)
+    if not body or _NON_FINITE.match(body):
+        return None
+    m = _NUMBER.match(body)
+    if m is None:
+        return None
+    return m.group(), body[m.end():]
+
+
+def _known(number: float, factor: tuple[float, bool], kind: str, molar_mass: float | None) -> float | None:
+    """The value of ``number`` in a unit whose factor is kept; None when the full reading must
+    decide (a number too large for a float, or a value that overflows: their messages)."""
+    if not math.isfinite(number):
+        return None
+    f, molar = factor
+    value = number * f
+    if molar:
+        value = value * molar_mass
+    if not math.isfinite(value):
+        return None
+    return _finish(value, number, kind)
+
+
+def _keep_factor(rest: str, kind: str, molar_mass: float | None, q: pint.Quantity, number: float,
+                 value: float) -> None:
+    """Keep the conversion factor of a unit text just read, if it gives back ``value`` exactly."""
+    plain, _ = _dims()
+    molar = q.dimensionality != plain[kind]
+    target = KINDS[kind].molar if molar else KINDS[kind].internal
+    f = float(get_registry().Quantity(1.0, q.units).to(target).magnitude)
+    factor = (f, molar)
+    if not math.isfinite(number) or _known_raw(number, factor, molar_mass) != value:
+        return  # (never seen: pint converts by one multiplication) -- read such a unit in full each time
+    if len(_UNIT_FACTORS) >= _UNIT_FACTORS_MAX:
+        _UNIT_FACTORS.clear()
+    _UNIT_FACTORS[(rest, kind, molar_mass)] = factor
+
+
+def _known_raw(number: float, factor: tuple[float, bool], molar_mass: float | None) -> float:
+    value = number * factor[0]
+    return value * molar_mass if factor[1] else value
+
+
+#: Conversion factor of every unit text read so far, by (the text after the number, kind, molar
+#: mass): (factor to the internal unit, or to the molar unit when molar is True; molar). Only
+#: units read without error are kept, so that a refused unit is read (and refused) in full again.
+_UNIT_FACTORS: dict[tuple[str, str, float | None], tuple[float, bool]] = {}
+_UNIT_FACTORS_MAX = 4096
+
+
+def clear_caches() -> None:
+    """Forget every value and unit text read so far, as in a new process (for benchmarks and tests).
+
+    The pint registry itself and its own caches stay.
+    """
+    _PARSED.clear()
+    _UNIT_FACTORS.clear()
+    _unit_named.cache_clear()
+    unit_factor.cache_clear()
+    internal_per_unit.cache_clear()
 
 
 def _convert(text: object, kind: str, field: str, molar_mass: float | None) -> tuple[float, pint.Quantity]:

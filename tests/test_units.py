@@ -332,3 +332,75 @@ def test_unit_without_number_is_refused_for_output_units_too():
         unit_factor("amount", "mg**9**9")
     assert unit_factor("rate", "1/min") == pytest.approx(1 / 60, rel=EXACT)
     assert unit_factor("concentration", "ug/L") == pytest.approx(1e6, rel=EXACT)
+
+
+# ---------------------------------------------------------------- a unit text is read once
+# A value whose unit text was read before is converted by multiplying its number with the kept
+# factor. The reference is pint's own conversion of the whole text (the registry multiplies the
+# magnitude by the factor between the two units, pint/facets/plain/registry.py ``_convert``):
+# both must give the same float, to the last bit, for every kind of number a file holds.
+KEPT_UNITS = {
+    "length": ["um", "mm", "cm", "m", "nm", "µm", "in"],
+    "time": ["h", "min", "d", "s", "week"],
+    "volume": ["mL", "L", "uL", "cm^3", "cm**3"],
+    "diffusivity": ["cm^2/s", "cm**2/h", "m^2/s", "um^2/min", "cm² per s"],
+    "concentration": ["mg/mL", "ug/L", "g/L", "mg/L", "ng/mL"],
+    "flow": ["L/h", "mL/min", "uL/(cm^2*h) * cm^2"],
+    "amount": ["mg", "ug", "g", "ng"],
+    "rate": ["1/h", "1/min", "/d"],
+    "area": ["cm^2", "mm^2", "m²"],
+}
+
+
+def _numbers(seed: int, n: int):
+    import random
+
+    rng = random.Random(seed)
+    for _ in range(n):
+        x = rng.uniform(1, 10) * 10 ** rng.uniform(-30, 30)
+        r = rng.random()
+        # short texts (rounded to 15 digits on reading) and full-precision ones (kept as written)
+        yield repr(x) if r < 0.3 else f"{x:.3g}" if r < 0.6 else f"{x:.15g}" if r < 0.8 else f"{x:.17g}"
+
+
+@pytest.mark.parametrize("kind", sorted(KEPT_UNITS))
+def test_a_kept_unit_gives_the_value_of_a_full_reading(kind):
+    from barrierflow import units
+
+    for unit in KEPT_UNITS[kind]:
+        for number in _numbers(hash(unit) % 1000, 400):
+            text = f"{number} {unit}"
+            units.clear_caches()
+            full = parse_quantity(text, kind)  # read through pint; the unit's factor is kept
+            units._PARSED.clear()
+            kept = parse_quantity(text, kind)  # the number times the kept factor
+            assert kept == full and math.copysign(1.0, kept) == math.copysign(1.0, full), text
+
+
+def test_a_kept_molar_unit_gives_the_value_of_a_full_reading():
+    # IUPAC Green Book 2.10: c_mass = c_amount * M
+    from barrierflow import units
+
+    for text, kind in (("1.5 mmol/L", "concentration"), ("2.5 umol", "amount"), ("3 umol/min", "amount_rate")):
+        units.clear_caches()
+        full = parse_quantity(text, kind, molar_mass=250.0)
+        units._PARSED.clear()
+        assert parse_quantity(text, kind, molar_mass=250.0) == full
+        # the same unit text with another molar mass is its own entry
+        assert parse_quantity(text, kind, molar_mass=100.0) == pytest.approx(full * 100.0 / 250.0, rel=1e-15)
+
+
+def test_a_unit_is_read_once_per_text_and_bad_values_still_name_their_field():
+    from barrierflow import units
+
+    units.clear_caches()
+    parse_quantity("15 um", "length")
+    assert len(units._UNIT_FACTORS) == 1
+    parse_quantity("100 um", "length")
+    parse_quantity("1000 um", "length")
+    assert len(units._UNIT_FACTORS) == 1
+    # a number that overflows, and a wrong kind for a kept unit text: the full reading's messages
+    with pytest.raises(UnitsError, match="thickness"):
+        parse_quantity("1e999 um", "length", "thickness")
+    with pytest.raises(UnitsError, match="wrong kind of unit"):
+        parse_quantity("15 um", "time", "duration")

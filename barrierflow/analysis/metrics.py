@@ -65,7 +65,7 @@ import dataclasses
 import io
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import asdict, dataclass, fields
+from dataclasses import dataclass, fields
 from typing import Any
 
 import numpy as np
@@ -879,7 +879,14 @@ class Metrics:
                 return None if math.isnan(v) else ("inf" if v > 0 else "-inf")
             if isinstance(v, (tuple, list)):
                 return [clean(x) for x in v]
+            if isinstance(v, dict):
+                return dict(v)
             return v
+
+        def fields_of(m: Any) -> dict[str, Any]:
+            # the fields hold numbers, texts, tuples and a dict of notes: one level is enough
+            # (dataclasses.asdict would deep-copy every value first)
+            return {f.name: clean(getattr(m, f.name)) for f in fields(m) if f.name != "id"}
 
         units = {k: _INTERNAL[u] for k, u in {**_C_UNITS, **_B_UNITS}.items()}
         units.update({"interval": "h", "interval_aucs": "mg*h/mL", "lag_window": "h"})
@@ -887,9 +894,8 @@ class Metrics:
             "units": units,
             "application_times_h": list(self.application_times),
             "intervals_h": [list(i) for i in self.intervals],
-            "compartments": {m.id: {k: clean(v) for k, v in asdict(m).items() if k != "id"}
-                             for m in self.compartments},
-            "barriers": {m.id: {k: clean(v) for k, v in asdict(m).items() if k != "id"} for m in self.barriers},
+            "compartments": {m.id: fields_of(m) for m in self.compartments},
+            "barriers": {m.id: fields_of(m) for m in self.barriers},
             "input_end_h": clean(self.input_end) if self.input_end is not None else None,
         }
 

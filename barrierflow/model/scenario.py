@@ -475,7 +475,13 @@ class Scenario:
     @cached_property
     def digest(self) -> str:
         """SHA-256 of the scenario's canonical TOML text (identifies what made a result)."""
-        return hashlib.sha256(self.to_toml().encode()).hexdigest()
+        return hashlib.sha256(self._toml.encode()).hexdigest()
+
+    @cached_property
+    def _toml(self) -> str:
+        """The canonical TOML text, written once (a scenario is immutable)."""
+        from .document import to_toml
+        return to_toml(self)
 
     # ------------------------------------------------------------------ conversions
     def to_document(self) -> dict[str, Any]:
@@ -485,8 +491,7 @@ class Scenario:
 
     def to_toml(self) -> str:
         """The scenario as TOML text that :func:`barrierflow.load` reads back to an equal model."""
-        from .document import to_toml
-        return to_toml(self)
+        return self._toml
 
     @classmethod
     def from_graph(

@@ -3,7 +3,8 @@
 Runs the fixed problem ("patch to body", scenarios/benchmark_patch.toml, an invented scenario)
 and its variants (20, 50 and 200 cells per layer, a 0.1 mL finite dose, saturable
 elimination) through the product's real path -- ``barrierflow.load`` + ``simulate`` +
-``Result.csv_text`` -- and, in the same run on the same machine:
+``Result.to_csv`` (the traces CSV and its sidecar, written to disk) -- and, in the same run on the
+same machine:
 
 * baseline 1, what a capable user writes by hand: the same discretisation with
   ``scipy.integrate.solve_ivp(method="BDF")``, a numpy-vectorised right-hand side, an analytic
@@ -17,7 +18,8 @@ checked to be the same discretisation as the product's (their right-hand sides a
 rounding). For each it prints the median and the minimum wall time over repeated runs after a
 warm-up, the steps taken, the errors against the reference (central concentration relative to
 its peak, cumulative amount absorbed relative to its final value; the contract asks 1e-5 and
-1e-6) and the ratios. Then the warm start (new processes), the first-ever compile time and a
+1e-6) and the ratios; the parts of the file-to-traces path (reading, simulating, the CSV text, the
+sidecar, the writing). Then the warm start (new processes), the first-ever compile time and a
 population of 1,000 subjects. Speed is judged on ratios: absolute times are noisy on a shared
 2-core machine.
 
@@ -332,17 +334,20 @@ def run_variant(v: Variant, paths: list[str], quick: bool, tmp: Path) -> list[Ro
     f_nb = hand.rhs_numba()
     lsoda_kw = dict(rhs=f_nb, jac=hand.jac_banded, lband=HandModel.LBAND, uband=HandModel.UBAND)
 
+    traces = tmp / f"{path.stem}.csv"
+
     def product(integ):
-        # a first load, as in a new process: parse_quantity's memo of unit strings and the
-        # grammar's memo of unit names are emptied
+        # the product's whole path, as `barrierflow run` takes it: read the file, simulate, write
+        # the traces CSV and its sidecar (both complete on disk, then renamed into place). Every
+        # value of the file is read again (the memo of whole value texts is emptied); the unit
+        # texts, which a process reads once, stay known (a process's first file: file_to_traces_parts)
         units._PARSED.clear()
-        units._unit_named.cache_clear()
         t_a = time.perf_counter()
         s = bf.load(path)
         t_b = time.perf_counter()
         r = bf.simulate(s, integrator=integ)
         t_c = time.perf_counter()
-        r.csv_text()
+        r.to_csv(traces)
         return t_c - t_b, time.perf_counter() - t_a, r
 
     def baseline(method, **kw):
@@ -393,6 +398,49 @@ def run_variant(v: Variant, paths: list[str], quick: bool, tmp: Path) -> list[Ro
                                       uband=HandModel.UBAND))
             rows.append(Row(v.label, k, eng[k], steps, ce, ae))
     return rows
+
+
+# ---------------------------------------------------------------- the parts of file to traces
+def file_to_traces_parts(tmp: Path, rounds: int) -> dict[str, float]:
+    """Median seconds of each part of the product's path on the reference problem (default path).
+
+    Each round: a load with the unit texts known (as every load after a process's first), a load
+    with every memo of the units module emptied (a process's first file: each distinct unit text
+    is read once by pint), ``simulate``, the CSV text, the sidecar text, and the writing of both
+    (temporary files flushed to disk, renamed into place). Rounds alternate with nothing else.
+    """
+    from barrierflow.io import write_traces
+
+    path = tmp / "parts.toml"
+    path.write_text(SCENARIO.read_text())
+    target = tmp / "parts.csv"
+    bf.load(path).to_toml()
+    bf.simulate(bf.load(path)).to_csv(target)  # warm-up
+    parts: dict[str, list[float]] = {k: [] for k in ("first_load", "load", "simulate", "csv", "sidecar", "write")}
+    for _ in range(rounds):
+        gc.disable()
+        try:
+            units.clear_caches()
+            t0 = time.perf_counter()
+            bf.load(path).to_toml()  # a first file: its values, then the sidecar's units
+            t1 = time.perf_counter()
+            units._PARSED.clear()
+            t2 = time.perf_counter()
+            s = bf.load(path)
+            t3 = time.perf_counter()
+            r = bf.simulate(s)
+            t4 = time.perf_counter()
+            text = r.csv_text()
+            t5 = time.perf_counter()
+            side = r.sidecar_text(text)
+            t6 = time.perf_counter()
+            write_traces(target, text, side)
+            t7 = time.perf_counter()
+        finally:
+            gc.enable()
+        for k, v in zip(parts, (t1 - t0, t3 - t2, t4 - t3, t5 - t4, t6 - t5, t7 - t6), strict=True):
+            parts[k].append(v)
+    return {k: statistics.median(v) for k, v in parts.items()}
 
 
 # ---------------------------------------------------------------- warm start, compile, population
@@ -527,21 +575,22 @@ def print_table(rows: list[Row], out: Report) -> None:
     by_variant: dict[str, list[Row]] = {}
     for r in rows:
         by_variant.setdefault(r.variant, []).append(r)
-    head = ("| variant | path | engine median ms | engine min ms | file-to-traces median ms | steps | central err "
-            "| absorbed err | accurate | BDF / this | LSODA / this |")
+    head = ("| variant | path | engine median ms | engine min ms | file-to-traces median ms | file / engine | steps "
+            "| central err | absorbed err | accurate | BDF / this | LSODA / this |")
     out(head)
-    out("|" + "---|" * 11)
+    out("|" + "---|" * 12)
     for variant, rs in by_variant.items():
         bdf = next(r for r in rs if r.path.startswith("baseline BDF"))
         ls = next(r for r in rs if r.path.startswith("baseline LSODA"))
         for r in rs:
             tot = f"{r.total.median * 1e3:.1f}" if r.total else ""
+            per = f"{r.total.median / r.timing.median:.1f}" if r.total else ""
             ratio = f"{bdf.timing.median / r.timing.median:.1f}"
             ratio_l = f"{ls.timing.median / r.timing.median:.1f}"
             if r.total:
                 ratio += f" ({bdf.timing.median / r.total.median:.1f})"
                 ratio_l += f" ({ls.timing.median / r.total.median:.1f})"
-            out(f"| {variant} | {r.path} | {r.timing.median * 1e3:.2f} | {r.timing.best * 1e3:.2f} | {tot} | "
+            out(f"| {variant} | {r.path} | {r.timing.median * 1e3:.2f} | {r.timing.best * 1e3:.2f} | {tot} | {per} | "
                   f"{r.steps} | {r.central_err:.1e} | {r.absorbed_err:.1e} | {'yes' if r.accurate else 'NO'} | "
                   f"{ratio} | {ratio_l} |")
 
@@ -572,10 +621,18 @@ def main(argv: list[str] | None = None) -> int:
             rows += run_variant(v, paths, args.quick, tmp)
         out()
         out("Times: 'engine' is simulate() (scenario object to Result); 'file to traces' is load + simulate +")
-        out("csv_text. Every runner runs once per round, in rotating order, over several rounds; ratios are")
+        out("to_csv (the CSV and its sidecar written to disk). Every runner runs once per round, in rotating")
+        out("order, over several rounds; ratios are")
         out("baseline median / product median on the engine time (in brackets: on the whole file-to-traces")
         out("path). Errors are against the Radau reference on the same grid.\n")
         print_table(rows, out)
+        out()
+        parts = file_to_traces_parts(tmp, 10 if args.quick else 40)
+        out("file to traces, reference problem, default path, median ms of each part: load "
+            f"{parts['load'] * 1e3:.2f} (a process's first file, each unit text read by pint once: "
+            f"{parts['first_load'] * 1e3:.2f}), simulate {parts['simulate'] * 1e3:.2f}, CSV text "
+            f"{parts['csv'] * 1e3:.2f}, sidecar text {parts['sidecar'] * 1e3:.2f}, writing both (flushed to "
+            f"disk, renamed) {parts['write'] * 1e3:.2f}")
         out()
         ws = warm_start(tmp, 3 if args.quick else 5)
         pop = population(args.population, 2 if args.quick else 3)
@@ -613,6 +670,10 @@ def main(argv: list[str] | None = None) -> int:
         if big and small:
             g = big.timing.median / small.timing.median
             checks.append((g <= 5, f"{p[8:]}: 200 cells cost {g:.1f}x 50 cells (<= 5)"))
+    dflt = get(v50, "product default")
+    if dflt and dflt.total:
+        ratio = dflt.total.median / dflt.timing.median
+        checks.append((ratio <= 2, f"file to traces vs engine alone, 50 cells, default path: {ratio:.1f}x (<= 2)"))
     sat, sb = get("saturable", "product default"), get("saturable", "baseline BDF")
     if sat and sb:
         checks.append((sat.accurate, f"saturable: {sat.path}, {sb.timing.median / sat.timing.median:.1f}x the BDF "

@@ -1,5 +1,5 @@
 """The command line: ``barrierflow check | run | steady | fit | design | screen | population | sweep |
-sensitivity | serve``.
+sensitivity | serve | prepare``.
 
 One entry point, :func:`main`, installed as the ``barrierflow`` console script. Every
 sub-command is registered in one table, :data:`COMMANDS`: its name, its one-line help, the
@@ -721,6 +721,9 @@ def _add_serve(p: argparse.ArgumentParser) -> None:
                    help="another host name the browser may use to reach the dashboard (repeatable; "
                         "default: only the names of the bound address, a guard against DNS rebinding; "
                         "with --host 0.0.0.0 every name is accepted unless some are given here)")
+    p.add_argument("--no-prepare", action="store_true",
+                   help="start at once, even when the numerical kernels are not all compiled yet (default: "
+                        "compile them first, as 'barrierflow prepare' does, so that the first Run does not wait)")
 
 
 def _cmd_serve(args: argparse.Namespace) -> int:
@@ -747,6 +750,11 @@ def _cmd_serve(args: argparse.Namespace) -> int:
         print(f"barrierflow serve: the dashboard needs its extras ({err}); install them with "
               "pip install 'barrierflow[dashboard]'", file=sys.stderr)
         return EXIT_INTERNAL
+    if not args.no_prepare:
+        from barrierflow.studies.prepare import kernels_ready
+
+        if not kernels_ready():
+            prepare_kernels()
     app = dashboard.create_app(scenario, max_upload=int(args.max_upload * 1024 * 1024), warm=True)
     opened = f" with {args.scenario}" if args.scenario else ""
     shown = f"[{args.host}]" if ":" in args.host else args.host
@@ -762,6 +770,39 @@ def _cmd_serve(args: argparse.Namespace) -> int:
     server.serve(app, args.host, args.port, debug=bool(getattr(args, "debug", False)),
                  allow_hosts=args.allow_host)
     return EXIT_OK
+
+
+# ---------------------------------------------------------------------------- prepare
+def _add_prepare(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--if-needed", action="store_true",
+                   help="do nothing when every kernel is already compiled and kept in numba's cache "
+                        "(default: run every path once, which loads them from the cache in a second or two)")
+
+
+def _cmd_prepare(args: argparse.Namespace) -> int:
+    """Compile every numerical kernel once, so that the first run does not wait for the compiler."""
+    from barrierflow.studies.prepare import kernels_ready
+
+    if args.if_needed and kernels_ready():
+        print("barrierflow prepare: every numerical kernel is compiled and in the cache")
+        return EXIT_OK
+    prepare_kernels()
+    return EXIT_OK
+
+
+def prepare_kernels() -> None:
+    """Run :func:`barrierflow.studies.prepare.prepare`, telling the user what happens and where the
+    compiled code is kept."""
+    from barrierflow.studies.prepare import prepare
+
+    print("barrierflow prepare: compiling the numerical kernels once, so that no run waits for the compiler "
+          "(a minute or two the first time; afterwards they load from the cache in a second or two)", flush=True)
+    report = prepare(say=lambda text: print(f"  {text}", flush=True))
+    print(f"ready: {report.kernels} compiled kernels in {report.seconds:.0f} s; cache: "
+          f"{report.cache or 'none (numba caching is off)'}", flush=True)
+    if report.cold:
+        print(f"note: no run of the preparation reached {', '.join(report.cold)}; they compile on first use",
+              flush=True)
 
 
 # ---------------------------------------------------------------------------- the table
@@ -797,6 +838,9 @@ COMMANDS: dict[str, Command] = {
                            _add_sensitivity, lambda a: _cmd_sensitivity(a)),
     "serve": Command("start the dashboard in a web browser, with the scenario opened if one is named",
                      _add_serve, lambda a: _cmd_serve(a)),
+    "prepare": Command("compile every numerical kernel once (kept in numba's cache), so that no run waits for "
+                       "the compiler; 'make run' and 'make test' do this after every change", _add_prepare,
+                       lambda a: _cmd_prepare(a)),
 }
 """Every sub-command, by name. (The lambdas look the functions up when called, so a
 function replaced in this module takes effect.)"""

@@ -20,14 +20,17 @@ warm-up, the steps taken, the errors against the reference (central concentratio
 its peak, cumulative amount absorbed relative to its final value; the contract asks 1e-5 and
 1e-6) and the ratios; the parts of the file-to-traces path (reading, simulating, the CSV text, the
 sidecar, the writing). Then the warm start (new processes), the first-ever compile time and a
-population of 1,000 subjects. Speed is judged on ratios: absolute times are noisy on a shared
+population of 1,000 subjects; and the first use from an empty cache: the set-up (``barrierflow
+prepare``) and the first result after it, of a run and of the dashboard (``--cold``: the same from
+a fresh clone, installation included). Speed is judged on ratios: absolute times are noisy on a shared
 2-core machine.
 
 A full run writes what it printed to ``tests/benchmarks/LAST_RUN.md`` (generated: date, commit,
 machine, load average at the start and the end, versions), replacing the previous run's;
 ``--quick`` and ``--only`` runs print only.
 
-Usage: ``make bench`` or ``.venv/bin/python tests/benchmarks/run_benchmark.py [--quick]``.
+Usage: ``make bench`` or ``.venv/bin/python tests/benchmarks/run_benchmark.py [--quick]``;
+``make bench-cold`` (``--cold``) for the first use from a fresh clone.
 """
 
 from __future__ import annotations
@@ -480,6 +483,144 @@ def warm_start(tmp: Path, runs: int) -> dict[str, float]:
     return out
 
 
+def first_use(tmp: Path, clone: bool, chromium: str | None) -> dict[str, float]:
+    """From an empty cache to the first result, in new processes, as a new user meets it.
+
+    Without ``clone``: this installation's ``barrierflow``, with ``NUMBA_CACHE_DIR`` set to new,
+    empty folders. With ``clone`` (``--cold``): a fresh clone of this repository's HEAD in a
+    temporary folder, set up as ``make run`` sets it up (``make venv``: a virtual environment and
+    the package installed, timed as the installation), with its own empty cache in the clone. Then:
+
+    1. for comparison, the first result without the preparation: ``barrierflow run`` of the demo
+       (scenarios/daily_patch.toml) with an empty cache, which compiles what the run needs;
+    2. the set-up: ``barrierflow prepare`` (its steps timed; the populations step is the
+       compile time of the population kernels, the single-run kernels they share being ready);
+    3. the first result after the set-up: ``barrierflow run`` of the demo in a new process;
+    4. the dashboard: ``barrierflow serve`` of the demo until it answers, then, with chromium,
+       the first Run in a browser as soon as the page is ready: from the click to the curves.
+    """
+    out: dict[str, float] = {}
+    env = dict(os.environ)
+    env.pop("NUMBA_CACHE_DIR", None)
+    if clone:
+        src = tmp / "clone"
+        subprocess.run(["git", "clone", "--quiet", "--no-hardlinks", str(ROOT), str(src)], check=True)
+        t0 = time.perf_counter()
+        subprocess.run(["make", "venv"], cwd=src, check=True, capture_output=True, env=env)
+        out["install_s"] = time.perf_counter() - t0
+        python = src / ".venv" / "bin" / "python"
+        prepared_env = env  # the clone's own cache, beside its sources (empty)
+    else:
+        src = ROOT
+        python = Path(_python())
+        (tmp / "prepared-cache").mkdir()
+        prepared_env = dict(env, NUMBA_CACHE_DIR=str(tmp / "prepared-cache"))
+    exe = python.parent / "barrierflow"
+    demo = src / "scenarios" / "daily_patch.toml"
+    run = [str(exe), "run", str(demo), "-o", str(tmp / "first.csv"), "--no-progress"]
+    (tmp / "unprepared-cache").mkdir()
+    t0 = time.perf_counter()
+    subprocess.run(run, capture_output=True, check=True, cwd=src,
+                   env=dict(env, NUMBA_CACHE_DIR=str(tmp / "unprepared-cache")))
+    out["unprepared_run_s"] = time.perf_counter() - t0
+    code = ("import json, time; t = time.perf_counter(); from barrierflow.studies.prepare import prepare; "
+            "r = prepare(); print(json.dumps({'steps': r.steps, 'kernels': r.kernels, 'cold': r.cold, "
+            "'total': time.perf_counter() - t}))")
+    t0 = time.perf_counter()
+    done = subprocess.run([str(python), "-c", code], capture_output=True, text=True, check=True, cwd=src,
+                          env=prepared_env)
+    out["prepare_s"] = time.perf_counter() - t0
+    import json
+
+    report = json.loads(done.stdout.strip().splitlines()[-1])
+    out["prepare_single_s"], out["prepare_population_s"], out["prepare_studies_s"] = (t for _, t in report["steps"])
+    out["kernels"] = report["kernels"]
+    out["cold"] = len(report["cold"])
+    walls = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        subprocess.run(run, capture_output=True, check=True, cwd=src, env=prepared_env)
+        walls.append(time.perf_counter() - t0)
+    out["prepared_run_s"] = walls[0]
+    out["prepared_run_later_s"] = min(walls[1:])
+    out.update(_first_dashboard_run(exe, demo, tmp, prepared_env, chromium))
+    return out
+
+
+def _first_dashboard_run(exe: Path, demo: Path, tmp: Path, env: dict[str, str], chromium: str | None) -> dict:
+    """Start ``barrierflow serve`` of the demo; seconds until it answers, and the first Run's click to curves."""
+    import socket
+    import urllib.request
+
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        port = sock.getsockname()[1]
+    (tmp / "state").mkdir(exist_ok=True)
+    t0 = time.perf_counter()
+    proc = subprocess.Popen([str(exe), "serve", str(demo), "--host", "127.0.0.1", "--port", str(port)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                            env=dict(env, BARRIERFLOW_STATE_DIR=str(tmp / "state")))
+    out: dict[str, float] = {}
+    try:
+        url = f"http://127.0.0.1:{port}/"
+        while True:
+            if proc.poll() is not None or time.perf_counter() - t0 > 600:
+                raise RuntimeError("barrierflow serve did not answer")
+            try:
+                with urllib.request.urlopen(url + "_dash-layout", timeout=5):
+                    break
+            except OSError:
+                time.sleep(0.1)
+        out["serve_s"] = time.perf_counter() - t0
+        if chromium and Path(chromium).exists():
+            from dashboard_rerun import FINGERPRINT, LAUNCH_ARGS
+            from playwright.sync_api import sync_playwright
+
+            with sync_playwright() as p:
+                browser = p.chromium.launch(executable_path=chromium, args=LAUNCH_ARGS, headless=True)
+                page = browser.new_page(viewport={"width": 1440, "height": 900})
+                page.goto(url)
+                page.wait_for_selector("#run-button", timeout=60_000)
+                page.wait_for_function("() => !document.querySelector('[data-dash-is-loading=\"true\"]')")
+                before = page.evaluate(FINGERPRINT)
+                t1 = time.perf_counter()
+                page.locator("#run-button").click()
+                page.wait_for_function(f"(old) => {{ const fp = ({FINGERPRINT})(); return fp && fp !== old; }}",
+                                       arg=before, timeout=600_000, polling="raf")
+                out["dashboard_run_s"] = time.perf_counter() - t1
+                out["dashboard_from_start_s"] = time.perf_counter() - t0
+                browser.close()
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+    return out
+
+
+def report_first_use(fu: dict[str, float], clone: bool, out: Report) -> None:
+    where = ("a fresh clone of HEAD, set up as `make run` does" if clone
+             else "this installation, numba's cache in new empty folders")
+    out(f"first use ({where}):")
+    if clone:
+        out(f"  installation (make venv: virtual environment, package and extras) {fu['install_s']:.0f} s")
+    out(f"  without the preparation: barrierflow run of the demo, compiling as it goes, {fu['unprepared_run_s']:.1f} s")
+    out(f"  set-up, barrierflow prepare: {fu['prepare_s']:.0f} s ({fu['kernels']:.0f} kernels, {fu['cold']:.0f} left "
+        f"cold; single runs {fu['prepare_single_s']:.0f} s, population kernels {fu['prepare_population_s']:.0f} s, "
+        f"studies {fu['prepare_studies_s']:.1f} s)")
+    out(f"  after the set-up: barrierflow run of the demo in a new process {fu['prepared_run_s']:.2f} s "
+        f"(then {fu['prepared_run_later_s']:.2f} s)")
+    line = f"  dashboard: barrierflow serve answers after {fu['serve_s']:.1f} s"
+    if "dashboard_run_s" in fu:
+        line += (f"; the first Run, clicked as soon as the page is ready: {fu['dashboard_run_s']:.2f} s from the "
+                 f"click to the curves ({fu['dashboard_from_start_s']:.1f} s from the start of the server)")
+    else:
+        line += "; no chromium, the first Run in a browser not measured"
+    out(line)
+
+
 POPULATION_VARIED = ("barrier 'skin' layer 1 diffusivity", "barrier 'skin' layer 1 partition",
                      "barrier 'skin' layer 1 thickness", "barrier 'skin' layer 2 diffusivity",
                      "barrier 'skin' layer 2 thickness", "barrier 'skin' layer 3 diffusivity",
@@ -601,12 +742,23 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--population", type=int, default=1000, metavar="N", help="subjects in the population run")
     ap.add_argument("--only", default=None, metavar="LABEL",
                     help="run only the variant with this label (for example '50 cells')")
+    ap.add_argument("--cold", action="store_true",
+                    help="only the first use from a fresh clone of HEAD in a temporary folder: installation, "
+                         "set-up (barrierflow prepare), first results of a run and of the dashboard (prints only)")
+    ap.add_argument("--chromium", default="/usr/bin/chromium",
+                    help="the browser for the dashboard's first Run (default: /usr/bin/chromium; skipped if absent)")
     args = ap.parse_args(argv)
     out = Report()
     started = datetime.datetime.now().astimezone()
     load_start = load_average()
     out(f"machine: {cpu_name()}, {os.cpu_count()} cores; {versions()}; commit {commit()}")
     out(f"load average at the start (1 / 5 / 15 min): {load_start}\n")
+    if args.cold:
+        with tempfile.TemporaryDirectory(prefix="barrierflow-cold-") as d:
+            fu = first_use(Path(d), clone=True, chromium=args.chromium)
+        report_first_use(fu, True, out)
+        out(f"\nload average at the end (1 / 5 / 15 min): {load_average()}")
+        return 0
     variants = [Variant("50 cells", 50), Variant("20 cells", 20), Variant("200 cells", 200),
                 Variant("finite dose 0.1 mL", patch_volume_ml=0.1), Variant("saturable", saturable=True)]
     if args.quick:
@@ -635,6 +787,9 @@ def main(argv: list[str] | None = None) -> int:
             f"disk, renamed) {parts['write'] * 1e3:.2f}")
         out()
         ws = warm_start(tmp, 3 if args.quick else 5)
+        first_dir = tmp / "first-use"
+        first_dir.mkdir()
+        fu = first_use(first_dir, clone=False, chromium=args.chromium)
         pop = population(args.population, 2 if args.quick else 3)
 
     out(f"\nwarm start (new processes): import barrierflow {ws['import_s'] * 1e3:.0f} ms; barrierflow run of the "
@@ -642,6 +797,7 @@ def main(argv: list[str] | None = None) -> int:
     out(f"first-ever compile (empty numba cache): barrierflow run, reference problem (exact path) "
           f"{ws['first_reference_s']:.1f} s, then {ws['second_reference_s']:.2f} s; saturable variant (RODAS4) "
           f"{ws['first_saturable_s']:.1f} s, then {ws['second_saturable_s']:.2f} s")
+    report_first_use(fu, False, out)
     out(f"population: {pop['n']} subjects (50 cells, {len(POPULATION_VARIED)} parameters log-normal, CV 30 %), "
           f"{pop['integrator']}, {pop['threads']} threads: {pop['best_s']:.2f} s (median {pop['median_s']:.2f} s), "
           f"{pop['failed']} failed; subject 0 vs a single run: {pop['check']:.1e}; the same on RODAS4: "
@@ -685,6 +841,13 @@ def main(argv: list[str] | None = None) -> int:
     first = max(ws["first_reference_s"], ws["first_saturable_s"])
     checks.append((first <= 15, f"first-ever compile: {ws['first_reference_s']:.1f} s (exact path), "
                                 f"{ws['first_saturable_s']:.1f} s (RODAS4) (<= 15)"))
+    checks.append((fu["prepared_run_s"] < 2, f"first result after set-up (barrierflow run of the demo in a new "
+                                              f"process): {fu['prepared_run_s']:.2f} s (< 2)"))
+    if "dashboard_run_s" in fu:
+        checks.append((fu["dashboard_run_s"] < 2, f"first dashboard Run after set-up, click to curves: "
+                                                  f"{fu['dashboard_run_s']:.2f} s (< 2)"))
+    checks.append((fu["prepare_population_s"] < 10, f"the population kernels compile in "
+                                                     f"{fu['prepare_population_s']:.0f} s (< 10)"))
     checks.append((pop["best_s"] <= 4 and pop["n"] >= 1000,
                    f"population of {pop['n']}: {pop['best_s']:.2f} s (<= 4 s for 1,000)"))
     for ok, text in checks:

@@ -38,7 +38,7 @@ def _start(*extra: str) -> tuple[subprocess.Popen, int, str, dict]:
     state = tempfile.mkdtemp(prefix="barrierflow-serve-state-")  # the sessions of this server, not the user's
     env = dict(os.environ, BARRIERFLOW_STATE_DIR=state)
     proc = subprocess.Popen([sys.executable, "-m", "barrierflow", "serve", str(ROOT / "scenarios" / "daily_patch.toml"),
-                             "--host", "127.0.0.1", "--port", str(port), *extra],
+                             "--host", "127.0.0.1", "--port", str(port), "--no-prepare", *extra],
                             stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, env=env)
     proc.state_dir = state
     layout, headers = None, {}

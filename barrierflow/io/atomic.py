@@ -10,14 +10,29 @@ Files that belong together (the traces CSV and its sidecar) are written by
 :func:`atomic_write_together`: every temporary file is complete before the first rename, and the
 renames follow in the order given, so the last file named is in place only when all the others
 are.
+
+What is promised, and what each step costs (each step that waits for the disk is named):
+
+- every temporary file is flushed to disk (one ``fsync`` per file) before the first rename, so
+  after a crash or a power cut a destination is the old file or the complete new one;
+- after the renames the folder is flushed once (``fsync`` of the folder: the renames survive a
+  power cut once the call has returned);
+- the files being replaced are released off the caller's path (POSIX): freeing an old file's
+  space waits for the disk on some file systems (those that discard freed blocks at once), and
+  no promise depends on it, so the old files are opened before the renames and closed by a
+  background thread afterwards; their space is freed when that thread (or, at the latest, the
+  end of the process) closes them.
 """
 
 from __future__ import annotations
 
 import contextlib
 import os
+import queue
 import re
+import stat
 import tempfile
+import threading
 import time
 from collections.abc import Iterator, Sequence
 from pathlib import Path
@@ -59,7 +74,7 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
     Every file is written to its temporary file and flushed to disk before the first rename; if
     anything fails before then, no destination has changed. Put last the file that vouches for
     the others (the sidecar that records the hash of the traces): when it is in place, the
-    others are too.
+    others are too. After the renames each folder is flushed to disk once.
 
     Parameters
     ----------
@@ -72,20 +87,22 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
         The destinations.
     """
     targets = [Path(p) for p, _ in files]
-    for target in targets:
-        remove_stale_temporaries(target)
+    _remove_stale(targets)
     temps: list[str] = []
+    replaced: list[int] = []
     current = targets[0] if targets else Path(".")
     try:
         for target, (_, data) in zip(targets, files, strict=True):
             current = target
             raw = data.encode(encoding) if isinstance(data, str) else data
             temps.append(_write_temporary(target, raw))
+        if os.name == "posix":
+            replaced = _open_existing(targets)
         for i, target in enumerate(targets):
             current = target
             os.replace(temps[i], target)
             temps[i] = ""
-        for folder in {t.parent for t in targets}:
+        for folder in dict.fromkeys(t.parent for t in targets):
             _sync_folder(folder)
     except BaseException as err:
         for tmp in temps:
@@ -98,6 +115,9 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
             # the same kind of error, naming the file the user asked for
             raise type(err)(err.errno, err.strerror or str(err), str(current)) from None
         raise
+    finally:
+        if replaced:
+            _release(replaced)
     return targets
 
 
@@ -140,23 +160,31 @@ def atomic_stream(path: str | os.PathLike[str], *, encoding: str = "utf-8") -> I
 
 def _write_temporary(target: Path, raw: bytes) -> str:
     """Write ``raw`` to a new temporary file beside ``target``, flushed to disk; return its path."""
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.{os.getpid()}-", suffix=".tmp",
-                                   dir=target.parent or ".")
-    except OSError as err:  # name the file the user asked for, not the temporary one
-        raise type(err)(err.errno, err.strerror or str(err), str(target)) from None
-    try:
-        # mkstemp makes the file private (0600); give it the mode a new file normally gets
-        # (the user's umask), or the mode of the file it replaces
+    folder = str(target.parent) or "."
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0) | getattr(os, "O_CLOEXEC", 0)
+    while True:
+        tmp = os.path.join(folder, f".{target.name}.{os.getpid()}-{os.urandom(6).hex()}.tmp")
         try:
-            mode = os.stat(target).st_mode & 0o7777
-        except FileNotFoundError:
-            mode = 0o666 & ~_umask()
-        os.chmod(tmp, mode)
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(raw)
-            fh.flush()
-            os.fsync(fh.fileno())
+            fd = os.open(tmp, flags, 0o600)  # private until it has the mode below
+            break
+        except FileExistsError:
+            continue
+        except OSError as err:  # name the file the user asked for, not the temporary one
+            raise type(err)(err.errno, err.strerror or str(err), str(target)) from None
+    try:
+        try:
+            # the mode of the file it replaces, or the mode a new file normally gets (the umask)
+            try:
+                mode = os.stat(target).st_mode & 0o7777
+            except FileNotFoundError:
+                mode = 0o666 & ~_umask()
+            os.chmod(fd if os.chmod in os.supports_fd else tmp, mode)
+            view = memoryview(raw)
+            while view:
+                view = view[os.write(fd, view):]
+            os.fsync(fd)
+        finally:
+            os.close(fd)
     except BaseException:
         try:
             os.unlink(tmp)
@@ -178,32 +206,40 @@ def remove_stale_temporaries(target: str | os.PathLike[str]) -> list[Path]:
     list of pathlib.Path
         The files removed.
     """
-    target = Path(target)
-    folder = target.parent if str(target.parent) else Path(".")
-    pattern = re.compile(re.escape(f".{target.name}.") + r"(\d+)-[A-Za-z0-9_]+\.tmp\Z")
-    removed = []
-    try:
-        entries = list(os.scandir(folder))
-    except OSError:
-        return removed
+    return _remove_stale([Path(target)])
+
+
+def _remove_stale(targets: Sequence[Path]) -> list[Path]:
+    """:func:`remove_stale_temporaries` of several destinations, each folder read once."""
+    removed: list[Path] = []
+    by_folder: dict[Path, list[str]] = {}
+    for target in targets:
+        folder = target.parent if str(target.parent) else Path(".")
+        by_folder.setdefault(folder, []).append(re.escape(f".{target.name}."))
     now = time.time()
-    for entry in entries:
-        m = pattern.match(entry.name)
-        if m is None:
-            continue
-        pid = int(m.group(1))
+    for folder, names in by_folder.items():
+        pattern = re.compile(f"(?:{'|'.join(names)})" + r"(\d+)-[A-Za-z0-9_]+\.tmp\Z")
         try:
-            age = now - entry.stat(follow_symlinks=False).st_mtime
+            entries = list(os.scandir(folder))
         except OSError:
             continue
-        if pid == os.getpid() or (age < STALE_AFTER_S and (os.name == "nt" or _running(pid))):
-            # (Windows: os.kill would end the process, so only the age tells there)
-            continue
-        try:
-            os.unlink(entry.path)
-            removed.append(Path(entry.path))
-        except OSError:
-            pass
+        for entry in entries:
+            m = pattern.match(entry.name)
+            if m is None:
+                continue
+            pid = int(m.group(1))
+            try:
+                age = now - entry.stat(follow_symlinks=False).st_mtime
+            except OSError:
+                continue
+            if pid == os.getpid() or (age < STALE_AFTER_S and (os.name == "nt" or _running(pid))):
+                # (Windows: os.kill would end the process, so only the age tells there)
+                continue
+            try:
+                os.unlink(entry.path)
+                removed.append(Path(entry.path))
+            except OSError:
+                pass
     return removed
 
 
@@ -232,6 +268,55 @@ def _sync_folder(folder: Path) -> None:
         pass
     finally:
         os.close(fd)
+
+
+def _open_existing(targets: Sequence[Path]) -> list[int]:
+    """Descriptors of the destinations that exist (regular files), so that the renames do not free them."""
+    fds = []
+    for target in targets:
+        try:
+            fd = os.open(target, os.O_RDONLY | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_NONBLOCK", 0))
+        except OSError:
+            continue
+        try:
+            regular = stat.S_ISREG(os.fstat(fd).st_mode)
+        except OSError:
+            regular = False
+        if regular:
+            fds.append(fd)
+        else:
+            os.close(fd)
+    return fds
+
+
+_RELEASE: queue.SimpleQueue[int] = queue.SimpleQueue()
+_RELEASER_PID = 0
+_RELEASER_LOCK = threading.Lock()
+
+
+def _release(fds: list[int]) -> None:
+    """Close the descriptors of replaced files in a background thread (freeing their space there)."""
+    global _RELEASER_PID
+    with _RELEASER_LOCK:
+        if _RELEASER_PID != os.getpid():  # none yet in this process (or a forked child's copy)
+            try:
+                threading.Thread(target=_releaser, name="barrierflow-release", daemon=True).start()
+            except RuntimeError:  # no new thread (the interpreter is ending): close them here
+                for fd in fds:
+                    os.close(fd)
+                return
+            _RELEASER_PID = os.getpid()
+    for fd in fds:
+        _RELEASE.put(fd)
+
+
+def _releaser() -> None:
+    while True:
+        fd = _RELEASE.get()
+        try:
+            os.close(fd)
+        except OSError:
+            pass
 
 
 def _umask() -> int:

@@ -127,6 +127,24 @@ def test_atomic_write_keeps_the_mode_of_the_file_it_replaces(tmp_path):
     assert target.stat().st_mode & 0o777 == 0o640
 
 
+@pytest.mark.skipif(not Path("/proc/self/fd").is_dir(), reason="counts open descriptors through /proc")
+def test_replaced_files_are_released_and_their_readers_keep_the_old_bytes(tmp_path):
+    # the files being replaced are closed by a background thread: none may stay open, and a
+    # reader that opened the old file before the write still reads the old bytes (POSIX rename)
+    csv = tmp_path / "out.csv"
+    write_traces(csv, "a\n1\n", _sidecar("a\n1\n"))
+    before = len(os.listdir("/proc/self/fd"))
+    with open(csv, encoding="utf-8") as reader:
+        for k in range(5):
+            write_traces(csv, f"a\n{k + 2}\n", _sidecar(f"a\n{k + 2}\n"))
+        assert reader.read() == "a\n1\n"
+    deadline = time.monotonic() + 10.0
+    while len(os.listdir("/proc/self/fd")) > before and time.monotonic() < deadline:
+        time.sleep(0.01)
+    assert len(os.listdir("/proc/self/fd")) == before
+    assert csv.read_text(encoding="utf-8") == "a\n6\n" and traces_match(csv)
+
+
 def _sidecar(csv_text: str) -> str:
     return json.dumps({"traces": traces_digest(csv_text)})
 

@@ -100,13 +100,13 @@ def _write_rows(data, digits, out, left, at):  # pragma: no cover - compiled (te
         pow10[i] = p
         p *= 10.0
     ten = np.uint64(10)
+    c48 = np.uint64(48)  # "0" (unsigned: a digit never passes through a float)
     lo = np.uint64(1)
     for _ in range(digits - 1):
         lo *= ten
     hi = lo * ten
     f_lo = float(lo)
     f_hi = float(hi)
-    d = np.empty(24, dtype=np.uint8)
     n = 0
     n_left = 0
     for i in range(rows):
@@ -175,46 +175,57 @@ def _write_rows(data, digits, out, left, at):  # pragma: no cover - compiled (te
                     while r % ten == 0:
                         r //= ten
                         nd -= 1
-                    for q in range(nd - 1, -1, -1):
-                        d[q] = np.uint8(48 + r % ten)
-                        r //= ten
+                    # the nd digits of r are written in place, last first
                     if -4 <= e < digits:  # fixed notation
-                        if e >= 0:
-                            if nd <= e + 1:
-                                for q in range(nd):
-                                    out[n] = d[q]
-                                    n += 1
-                                for _ in range(e + 1 - nd):
-                                    out[n] = 48
-                                    n += 1
-                            else:
-                                for q in range(e + 1):
-                                    out[n] = d[q]
-                                    n += 1
-                                out[n] = 46
+                        if e >= nd - 1:  # a whole number: the digits, then zeros
+                            q = n + nd - 1
+                            while q >= n:
+                                out[q] = c48 + r % ten
+                                r //= ten
+                                q -= 1
+                            n += nd
+                            for _ in range(e + 1 - nd):
+                                out[n] = 48
                                 n += 1
-                                for q in range(e + 1, nd):
-                                    out[n] = d[q]
-                                    n += 1
-                        else:
+                        elif e >= 0:  # e + 1 digits, the point, the others
+                            q = n + nd
+                            while q > n + e + 1:
+                                out[q] = c48 + r % ten
+                                r //= ten
+                                q -= 1
+                            out[q] = 46
+                            q -= 1
+                            while q >= n:
+                                out[q] = c48 + r % ten
+                                r //= ten
+                                q -= 1
+                            n += nd + 1
+                        else:  # 0.000ddd
                             out[n] = 48
                             out[n + 1] = 46
                             n += 2
                             for _ in range(-e - 1):
                                 out[n] = 48
                                 n += 1
-                            for q in range(nd):
-                                out[n] = d[q]
-                                n += 1
+                            q = n + nd - 1
+                            while q >= n:
+                                out[q] = c48 + r % ten
+                                r //= ten
+                                q -= 1
+                            n += nd
                     else:  # scientific notation
-                        out[n] = d[0]
-                        n += 1
-                        if nd > 1:
-                            out[n] = 46
+                        if nd > 1:  # d.ddd
+                            q = n + nd
+                            while q > n + 1:
+                                out[q] = c48 + r % ten
+                                r //= ten
+                                q -= 1
+                            out[n + 1] = 46
+                            out[n] = c48 + r
+                            n += nd + 1
+                        else:
+                            out[n] = c48 + r
                             n += 1
-                            for q in range(1, nd):
-                                out[n] = d[q]
-                                n += 1
                         out[n] = 101
                         out[n + 1] = 45 if e < 0 else 43
                         n += 2

@@ -5,7 +5,6 @@ from __future__ import annotations
 import csv
 import dataclasses
 import io
-import json
 import math
 import os
 import platform
@@ -425,9 +424,19 @@ class Result:
         ndarray, mg
             One value per output time.
         """
-        g = self.trajectory.model.grids[self._b(bid)]
-        cells = np.maximum(self.trajectory.states[:, g.start:g.stop], 0.0)
-        return cells @ self.trajectory.model.capacity[g.start:g.stop]
+        b = self._b(bid)
+        known = self._contents.get(b)
+        if known is None:  # found once (the traces and the metrics both use it)
+            g = self.trajectory.model.grids[b]
+            cells = self.trajectory.states[:, g.start:g.stop]
+            if cells.size and cells.min() < 0.0:  # (no copy when nothing is to be clipped)
+                cells = np.maximum(cells, 0.0)
+            known = self._contents[b] = cells @ self.trajectory.model.capacity[g.start:g.stop]
+        return known.copy()
+
+    @cached_property
+    def _contents(self) -> dict[int, np.ndarray]:
+        return {}
 
     def degraded(self, bid: str) -> np.ndarray:
         """Cumulative amount degraded inside ``bid``.
@@ -614,7 +623,9 @@ class Result:
 
     def sidecar_text(self, csv_text: str | None = None) -> str:
         """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""
-        return json.dumps(_clean(self.sidecar(csv_text)), indent=2, default=_json_default, allow_nan=False) + "\n"
+        from ..io.json_text import indented_json
+
+        return indented_json(self.sidecar(csv_text), default=_json_default) + "\n"
 
 
 def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray]]:
@@ -673,17 +684,6 @@ def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray
     cols += [(f"volume:{c} [mL]", source.volume(c)) for c in cids if c in changing]
     cols += [(f"solid:{c} [{u.amount}]", source.solid(c) * fa) for c in limited_compartments(s)]
     return cols
-
-
-def _clean(x: Any) -> Any:
-    """Replace non-finite floats (not valid JSON) by their names, recursively."""
-    if isinstance(x, dict):
-        return {k: _clean(v) for k, v in x.items()}
-    if isinstance(x, list | tuple):
-        return [_clean(v) for v in x]
-    if isinstance(x, float | np.floating) and not math.isfinite(x):
-        return "inf" if x > 0 else "-inf" if x < 0 else "nan"
-    return x
 
 
 def _json_default(x: Any) -> Any:

@@ -222,13 +222,16 @@ cv = 0.5
 def test_subjects_whose_grids_differ_are_still_the_same_in_any_chunk():
     # A degrading layer's default grid follows sqrt(D/k), so subjects ask for different grids;
     # each is computed on its own grid whatever chunk it falls in.
+    from barrierflow.engine import compile_scenario
     from barrierflow.studies.distributions import Variability, bare
-    from barrierflow.studies.runner import _grid_key
+
+    def grid_key(scenario):  # the cell widths relative to each barrier's thickness
+        return tuple(np.round(g.widths / g.widths.sum(), 12).tobytes() for g in compile_scenario(scenario).grids)
 
     s = bf.loads(DEGRADING, "cell.toml")
     var = Variability.from_scenario(s)
     values = var.draw(3, 1, 30)
-    keys = {_grid_key(with_values(bare(s), dict(zip(var.params, row, strict=True)))) for row in values.tolist()}
+    keys = {grid_key(with_values(bare(s), dict(zip(var.params, row, strict=True)))) for row in values.tolist()}
     assert len(keys) > 1
     a = run_population(s, 30, seed=3, chunk=30, keep_subjects=True)
     b = run_population(s, 30, seed=3, chunk=4, keep_subjects=True)

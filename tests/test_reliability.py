@@ -244,20 +244,27 @@ def test_negative_concentrations_beyond_round_off_fail_the_check():
 
 
 def test_population_subjects_pass_the_same_check(monkeypatch):
+    # every subject is judged by the rule of every run (ledger.passes / judge, on the ledger the
+    # kernel computes); one that fails it is computed again on its own
     pop = importlib.import_module("barrierflow.engine.population")
 
     subjects = [infusion_cell(extra=True)] * 3
     calls = []
-    original = pop.verdict
+    original, rule = pop.passes, pop.judge
 
-    def second_fails(led, low, finite):
-        calls.append(1)
-        return ["the mass balance is off (injected)"] if len(calls) == 2 else original(led, low, finite)
+    def second_fails(rel, low, finite):
+        calls.append(len(rel))
+        assert all(rule(float(r), float(lo), bool(f)) == [] for r, lo, f in zip(rel, low, finite, strict=True))
+        ok = original(rel, low, finite).copy()
+        ok[1] = False
+        return ok
 
-    monkeypatch.setattr(pop, "verdict", second_fails)
+    monkeypatch.setattr(pop, "passes", second_fails)
+    monkeypatch.setattr(pop, "judge", lambda rel, low, finite: ["the mass balance is off (injected)"])
     p = simulate_many(subjects)
-    assert list(p.status) == [0, 0, 0] and len(calls) == 3
+    assert list(p.status) == [0, 0, 0] and calls == [3]
     assert "injected" in p.messages[1] and "computed again on its own" in p.messages[1]
+    assert p.messages[0] == p.messages[2] == "the run finished"
     assert np.allclose(p.concentration("donor")[1], p.concentration("donor")[0], rtol=1e-6)
 
 

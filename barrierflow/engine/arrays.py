@@ -20,7 +20,7 @@ from typing import NamedTuple
 import numpy as np
 from numba import njit
 
-__all__ = ["CHANGING", "INNER", "ModelArrays", "stack_arrays", "subject", "working_copy"]
+__all__ = ["CHANGING", "INNER", "SHARED", "ModelArrays", "stack_arrays", "subject", "working_copy"]
 
 #: Options of the kernels that only compiled code calls: no Python or C-callable wrappers. Each
 #: compiled caller links in (and LLVM optimises and emits again) the whole code library of every
@@ -143,6 +143,11 @@ class ModelArrays(NamedTuple):
 #: The fields the events of a run may change (a closed face, a volume): a run works on copies.
 CHANGING = ("capacity", "inv_capacity", "link_a", "link_b", "link_c", "link_d")
 
+#: The fields that give the structure (which states, links, losses): subjects of one population
+#: share them; every other array field holds values, one row per subject when stacked.
+SHARED = ("link_p", "link_q", "link_loss", "link_track", "other_links", "loss_to", "lossy", "mm_state", "tr_from",
+          "tr_to", "held", "has_volume", "face_ptr", "face_link", "shrinking")
+
 
 def working_copy(arrays: ModelArrays) -> ModelArrays:
     """``arrays`` with its own copies of the fields events change (:data:`CHANGING`), for one run;
@@ -151,23 +156,31 @@ def working_copy(arrays: ModelArrays) -> ModelArrays:
 
 
 def stack_arrays(arrays: Sequence[ModelArrays]) -> ModelArrays:
-    """The arrays of many subjects of one structure, stacked: each array field gains a first axis
-    (the subject); the whole-number fields (sizes and offsets) are shared."""
+    """The arrays of many subjects of one structure, stacked: each value field gains a first axis
+    (the subject); the structure (:data:`SHARED`, and the sizes and offsets) is the first
+    subject's, which every subject must share (ValueError otherwise).
+
+    (:func:`~barrierflow.engine.compiled.compile_scenario` of a stacked scenario gives this form
+    directly, without a model per subject.)
+    """
     first = arrays[0]
-    return ModelArrays(*(np.ascontiguousarray(np.stack([a[k] for a in arrays])) if isinstance(v, np.ndarray) else v
-                         for k, v in enumerate(first)))
+    for name in SHARED:
+        if not all(np.array_equal(getattr(a, name), getattr(first, name)) for a in arrays[1:]):
+            raise ValueError(f"the subjects differ in their structure ({name})")
+    return ModelArrays(*(np.ascontiguousarray(np.stack([a[k] for a in arrays]))
+                         if isinstance(v, np.ndarray) and name not in SHARED else v
+                         for k, (name, v) in enumerate(zip(ModelArrays._fields, first, strict=True))))
 
 
 @njit(**INNER)
 def subject(stack, i):
-    """Subject ``i`` of :func:`stack_arrays` (views, no copies): one line per field, in order."""
+    """Subject ``i`` of :func:`stack_arrays` (views, no copies): one line per field, in order; the
+    fields of :data:`SHARED` are every subject's."""
     s = stack
     return ModelArrays(
         s.n_comp, s.n_dyn, s.q_supply, s.q_infused, s.q_sampled, s.capacity[i], s.inv_capacity[i],
-        s.inv_partition[i], s.link_p[i], s.link_q[i], s.link_a[i], s.link_b[i], s.link_c[i], s.link_d[i],
-        s.link_loss[i], s.link_track[i], s.chain_g[i], s.other_links[i], s.loss_rate[i], s.loss_to[i], s.lossy[i],
-        s.mm_state[i], s.mm_vmax[i], s.mm_km[i], s.tr_from[i], s.tr_to[i], s.tr_rate[i], s.held[i],
-        s.has_volume[i], s.area[i], s.y0[i], s.scale[i], s.face_ptr[i], s.face_link[i], s.evap_rate[i],
-        s.residual[i], s.solubility[i], s.shrinking[i])
-
-
+        s.inv_partition[i], s.link_p, s.link_q, s.link_a[i], s.link_b[i], s.link_c[i], s.link_d[i],
+        s.link_loss, s.link_track, s.chain_g[i], s.other_links, s.loss_rate[i], s.loss_to, s.lossy,
+        s.mm_state, s.mm_vmax[i], s.mm_km[i], s.tr_from, s.tr_to, s.tr_rate[i], s.held,
+        s.has_volume, s.area[i], s.y0[i], s.scale[i], s.face_ptr, s.face_link, s.evap_rate[i],
+        s.residual[i], s.solubility[i], s.shrinking)

@@ -36,12 +36,12 @@ with time or it holds undissolved solid, which only the scipy integrators run
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..model import Barrier, Scenario
+from ..model.cohort import Diverging, cohort_size, decide
 from .arrays import ModelArrays
 from .grid import Grid
 from .schedule import regimen_bounds
@@ -112,7 +112,7 @@ class CompiledModel:
     @property
     def n_bar(self) -> int:
         """Number of barriers."""
-        return len(self.area)
+        return self.area.shape[-1]
 
     @property
     def n_state(self) -> int:
@@ -161,6 +161,58 @@ def _two_port(barrier: Barrier) -> tuple[float, float, float, float]:
     return stack_two_port(barrier.layers)
 
 
+# ---------------------------------------------------------------- values, one or one per subject
+# A scenario may hold one value per subject in a field (an array of shape (n, 1), see
+# barrierflow.model.cohort.stacked); everything below is written with element-wise arithmetic so
+# that a subject's row is, operation for operation, what its own scenario gives.
+def _row(values: list) -> np.ndarray:
+    """One value per item as a row: (k,), or (n, k) when an item holds one value per subject."""
+    n = next((x.shape[0] for x in values if isinstance(x, np.ndarray) and x.ndim == 2), None)
+    if n is None:
+        return np.array(values, dtype=np.float64).reshape(len(values))
+    out = np.empty((n, len(values)))
+    for j, x in enumerate(values):
+        out[:, j] = x[:, 0] if isinstance(x, np.ndarray) and x.ndim == 2 else x
+    return out
+
+
+def _join(parts: list[np.ndarray]) -> np.ndarray:
+    """Rows (each (k_i,) or (n, k_i)) joined along the last axis."""
+    n = next((p.shape[0] for p in parts if p.ndim == 2), None)
+    if n is None:
+        return np.concatenate(parts) if parts else np.zeros(0)
+    return np.concatenate([np.broadcast_to(p, (n, p.shape[-1])) for p in parts], axis=1)
+
+
+def _sum(terms) -> float | np.ndarray:
+    """Left-to-right sum (of numbers or of one value per subject)."""
+    total = 0.0
+    for x in terms:
+        total = total + x
+    return total
+
+
+def _larger(a, b):
+    """The larger of two values (per subject where they hold one each)."""
+    if isinstance(a, np.ndarray) or isinstance(b, np.ndarray):
+        return np.maximum(a, b)
+    return max(a, b)
+
+
+def _or_zero(x):
+    return 0.0 if x is None else x
+
+
+def _common(flags: np.ndarray) -> np.ndarray:
+    """The one pattern of yes/no of every subject (rows of ``flags``); Diverging where they differ."""
+    if flags.ndim == 1:
+        return flags
+    same = (flags == flags[0]).all(axis=1)
+    if not same.all():
+        raise Diverging(same)
+    return flags[0]
+
+
 def _part_of_compartments(s: Scenario) -> list[int]:
     """The connected part of each compartment (through barriers, exchanges and transfers)."""
     index = {c.id: i for i, c in enumerate(s.compartments)}
@@ -179,7 +231,7 @@ def _part_of_compartments(s: Scenario) -> list[int]:
     return [find(i) for i in range(len(s.compartments))]
 
 
-def _mass_scale(s: Scenario) -> list[float]:
+def _mass_scale(s: Scenario) -> list:
     """An amount per compartment, mg, that bounds what its connected part of the network can move.
 
     Present at start plus every dose; each clamped level (a held compartment over the run, a hold
@@ -191,17 +243,17 @@ def _mass_scale(s: Scenario) -> list[float]:
     comps = {c.id: c for c in s.compartments}
     part = _part_of_compartments(s)
     pos = {c.id: i for i, c in enumerate(s.compartments)}
-    total = [0.0] * len(s.compartments)
+    total: list = [0.0] * len(s.compartments)
 
-    def add(cid: str, amount: float) -> None:
+    def add(cid: str, amount) -> None:
         total[part[pos[cid]]] += amount
 
     for c in s.compartments:
-        if not c.held and c.volume:
+        if not c.held and c.volume is not None:
             add(c.id, c.initial_concentration * c.volume)
     for b in s.barriers:
-        add(b.from_id, b.area * math.fsum(x.initial_concentration * x.thickness for x in b.layers))
-    clamps: list[tuple[str, float, float]] = []  # (compartment, concentration, time held)
+        add(b.from_id, b.area * _sum(x.initial_concentration * x.thickness for x in b.layers))
+    clamps: list = []  # (compartment, concentration, time held)
     for c in s.compartments:
         if c.held:
             clamps.append((c.id, c.held_concentration, s.duration))
@@ -209,14 +261,14 @@ def _mass_scale(s: Scenario) -> list[float]:
     for cid, amount in doses.added:
         add(cid, amount)
     clamps.extend(doses.clamps)
-    uptake: dict[str, float] = {c.id: 0.0 for c in s.compartments}   # mL/h per unit potential
-    storage: dict[str, float] = {c.id: 0.0 for c in s.compartments}  # mL per unit potential
+    uptake: dict = {c.id: 0.0 for c in s.compartments}   # mL/h per unit potential
+    storage: dict = {c.id: 0.0 for c in s.compartments}  # mL per unit potential
     for b in s.barriers:
         a, _, _, d = _two_port(b)
         uptake[b.from_id] += a * b.area
         uptake[b.to_id] += d * b.area
         if b.model != "steady":
-            cap = b.area * math.fsum(x.partition * x.thickness for x in b.layers)
+            cap = b.area * _sum(x.partition * x.thickness for x in b.layers)
             storage[b.from_id] += cap
             storage[b.to_id] += cap
     for e in s.exchanges:
@@ -226,12 +278,16 @@ def _mass_scale(s: Scenario) -> list[float]:
         c = comps[cid]
         u = conc / c.partition
         amount = u * (uptake[cid] * span + storage[cid])
-        amount += conc * (c.clearance * span + sum(t.rate for t in s.transfers if t.from_id == cid)
-                          * (c.volume or 0.0) * span)
-        if c.vmax:
+        amount += conc * (c.clearance * span + _sum(t.rate for t in s.transfers if t.from_id == cid)
+                          * _or_zero(c.volume) * span)
+        if c.vmax is not None:
             amount += c.vmax * span
         add(cid, amount)
-    return [total[part[i]] if total[part[i]] > 0 else 1.0 for i in range(len(s.compartments))]
+    out = []
+    for i in range(len(s.compartments)):
+        x = total[part[i]]
+        out.append(np.where(x > 0, x, 1.0) if isinstance(x, np.ndarray) else (x if x > 0 else 1.0))
+    return out
 
 
 def limited_compartments(s: Scenario) -> set[str]:
@@ -247,20 +303,20 @@ def limited_compartments(s: Scenario) -> set[str]:
     that amount could. A held compartment is limited when held above it.
     """
     sol = s.substance.solubility
-    if not sol:
+    if sol is None:
         return set()
     doses = regimen_bounds(s)
     total = 0.0
-    clamps = any(c.held and c.held_concentration > 0 for c in s.compartments)
-    clamps |= any(held and conc > 0 for _, conc, held in doses.levels)
+    clamps = any(c.held and decide(c.held_concentration > 0) for c in s.compartments)
+    clamps |= any(held and decide(conc > 0) for _, conc, held in doses.levels)
     for c in s.compartments:
-        if not c.held and c.volume:
+        if not c.held and c.volume is not None:
             total += c.initial_concentration * c.volume
     over_layer = False
     for b in s.barriers:
         for layer in b.layers:
             total += layer.initial_concentration * layer.thickness * b.area
-            over_layer |= layer.initial_concentration / layer.partition > sol
+            over_layer |= decide(layer.initial_concentration / layer.partition > sol)
     for _, amount in doses.added:
         total += amount
     fed = {t.to_id for t in s.transfers} | doses.fed
@@ -268,17 +324,18 @@ def limited_compartments(s: Scenario) -> set[str]:
     for c in s.compartments:
         cap = sol * c.partition
         if c.held:
-            if c.held_concentration > cap:
+            if decide(c.held_concentration > cap):
                 out.add(c.id)
             continue
         smallest = c.volume
         if c.evaporates:
             out.add(c.id)
             continue
-        smallest = max(smallest - doses.shrink.get(c.id, 0.0), 1e-300)
-        could = total / smallest > cap
-        if (c.initial_concentration > cap or any(cid == c.id and conc > cap for cid, conc, _ in doses.levels)
-                or (c.id in fed and (clamps or could)) or (over_layer and could)):
+        smallest = _larger(smallest - doses.shrink.get(c.id, 0.0), 1e-300)
+        if (decide(c.initial_concentration > cap) or any(cid == c.id and decide(conc > cap)
+                                                          for cid, conc, _ in doses.levels)
+                or (c.id in fed and (clamps or decide(total / smallest > cap)))
+                or (over_layer and decide(total / smallest > cap))):
             out.add(c.id)
     return out
 
@@ -290,14 +347,21 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     Parameters
     ----------
     scenario : Scenario
+        One scenario, or many subjects of one (:func:`barrierflow.model.cohort.stacked`: fields
+        holding one value per subject). For the latter the model's value fields hold one row per
+        subject (arrays (n, k)) and its structure (indices, sizes) is shared; a value that decides
+        the structure (a clearance of zero or not, the cells of a degrading layer) and differs
+        between subjects raises :class:`~barrierflow.model.cohort.Diverging`.
     grid : Grid or None
         Default grid of layers without ``cells`` (``Grid()`` when None).
     layer_widths : dict, optional
-        (barrier index, layer index) to relative cell widths (summing to 1) that replace the
-        grid's for that layer (subjects of a population share one grid this way).
+        (barrier index, layer index) to the cell widths of that layer relative to its thickness,
+        in place of the default grid (subjects compiled one by one that share one grid).
     """
     grid = grid or Grid()
     layer_widths = layer_widths or {}
+    n_sub = cohort_size(scenario)
+    lead: tuple[int, ...] = () if n_sub is None else (n_sub,)
     comps = scenario.compartments
     n_comp = len(comps)
     comp_index = {c.id: i for i, c in enumerate(comps)}
@@ -305,16 +369,15 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     n_bar = len(bars)
 
     # per-state pieces (compartments first, then each resolved barrier's cells), joined at the end
-    cap_parts = [np.array([c.volume if c.volume else 1.0 for c in comps], dtype=np.float64)]
-    invk_parts = [np.array([1.0 / c.partition for c in comps], dtype=np.float64)]
+    cap_parts = [_row([c.volume if c.volume is not None else 1.0 for c in comps])]
+    invk_parts = [_row([1.0 / c.partition for c in comps])]
     # volumes that change (evaporation, samples without replacement) and losses to the air take
     # the first-order loss of their compartment; its clearance then goes to a link of its own
     shrinking = np.array([c.id in regimen_bounds(scenario).shrink for c in comps], dtype=np.bool_)
-    own_loss = np.array([c.evaporates or bool(shrinking[i]) or c.loss_rate > 0 for i, c in enumerate(comps)],
+    own_loss = np.array([c.evaporates or bool(shrinking[i]) or decide(c.loss_rate > 0) for i, c in enumerate(comps)],
                         dtype=np.bool_)
-    loss_parts = [np.array([c.loss_rate if own_loss[i] else (c.clearance / c.volume if c.volume and c.clearance
-                                                              else 0.0) for i, c in enumerate(comps)],
-                           dtype=np.float64)]
+    loss_parts = [_row([c.loss_rate if own_loss[i] else (c.clearance / c.volume if c.volume is not None else 0.0)
+                        for i, c in enumerate(comps)])]
     # (barrier index, first cell state, one past the last, widths, layer of each cell, partition
     # coefficient of each cell)
     grids_tmp = []
@@ -325,14 +388,14 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
             continue
         widths = [layer_widths[(bi, li)] * layer.thickness if (bi, li) in layer_widths else grid.widths(layer)
                   for li, layer in enumerate(b.layers)]
-        w = np.concatenate(widths)
-        lay_idx = np.repeat(np.arange(len(widths), dtype=np.int64), [len(x) for x in widths])
-        part = np.array([x.partition for x in b.layers], dtype=np.float64)[lay_idx]
-        grids_tmp.append((bi, offset, offset + len(w), w, lay_idx, part))
+        w = _join(widths)
+        lay_idx = np.repeat(np.arange(len(widths), dtype=np.int64), [x.shape[-1] for x in widths])
+        part = _row([x.partition for x in b.layers])[..., lay_idx]
+        grids_tmp.append((bi, offset, offset + w.shape[-1], w, lay_idx, part))
         cap_parts.append(b.area * w)
         invk_parts.append(1.0 / part)
-        loss_parts.append(np.array([x.degradation_rate for x in b.layers], dtype=np.float64)[lay_idx])
-        offset += len(w)
+        loss_parts.append(_row([x.degradation_rate for x in b.layers])[..., lay_idx])
+        offset += w.shape[-1]
     n_cells = offset - n_comp
     n_dyn = n_comp + n_cells
     q_elim0 = n_dyn
@@ -342,130 +405,146 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     q_lost0 = q_supply0 + 2 * n_comp
     n_state = q_supply0 + 4 * n_comp
 
-    # links as blocks of columns (p, q, a, b, c, d, loss, track), in order: each barrier's links
-    # (one for a steady barrier; the from face, the cell faces, the to face for a resolved one),
-    # then the exchanges
-    link_blocks: list[np.ndarray] = []
+    # links, in order: each barrier's links (one for a steady barrier; the from face, the cell
+    # faces, the to face for a resolved one), then the exchanges, then the clearances that go to
+    # links of their own; the two states, what each degrades and tracks (ints), and the rates
+    ends: list[np.ndarray] = []     # (k, 4): p, q, loss, track
+    rates: list[list[np.ndarray]] = [[], [], [], []]  # a, b, c, d: rows (k,) or (n, k)
     n_link = 0
     loss_to_parts = [np.where(own_loss, np.arange(q_lost0, q_lost0 + n_comp), np.arange(q_elim0, q_elim0 + n_comp))
                      .astype(np.int64)]
     grids = []
     faces: list[list[int]] = [[] for _ in range(n_comp)]  # the barrier links touching each compartment
-    chain_g = np.zeros(max(n_cells, 1))
+    chain_g = np.zeros(lead + (max(n_cells, 1),))
     in_chain = []  # (first, one past the last) link index of each barrier's links between its cells
     for bi, start, stop, w, lay_idx, part in grids_tmp:
         b = bars[bi]
         p_from = comp_index[b.from_id]
         p_to = comp_index[b.to_id]
-        interfaces = (0.0, *[float(x) for x in np.cumsum([x.thickness for x in b.layers])])
+        interfaces = (0.0, *np.moveaxis(np.cumsum(_row([x.thickness for x in b.layers]), axis=-1), -1, 0))
         if b.model == "steady":
             a, bb, c, d = (v * b.area for v in _two_port(b))
-            link_blocks.append(np.array([[p_from, p_to, a, bb, c, d, q_degr0 + bi if a != c else -1, q_perm0 + bi]],
-                                        dtype=np.float64))
+            ends.append(np.array([[p_from, p_to, q_degr0 + bi if decide(a != c) else -1, q_perm0 + bi]],
+                                 dtype=np.int64))
+            for k, v in enumerate((a, bb, c, d)):
+                rates[k].append(_row([v]))
             grids.append(BarrierGrid(b.id, start, stop, w, w, lay_idx, interfaces, n_link, n_link))
             faces[p_from].append(n_link)
             faces[p_to].append(n_link)
             n_link += 1
             continue
-        dif = np.array([x.diffusivity for x in b.layers])[lay_idx]
+        dif = _row([x.diffusivity for x in b.layers])[..., lay_idx]
         half_res = w / (2 * dif * part)  # h/cm
-        nb = len(w)
-        blk = np.empty((nb + 1, 8))
-        g = np.empty(nb + 1)
-        g[0] = b.area / half_res[0]
-        g[1:nb] = b.area / (half_res[:-1] + half_res[1:])
-        g[nb] = b.area / half_res[-1]
+        nb = w.shape[-1]
+        g = np.empty(half_res.shape[:-1] + (nb + 1,))
+        g[..., :1] = b.area / half_res[..., :1]
+        g[..., 1:nb] = b.area / (half_res[..., :-1] + half_res[..., 1:])
+        g[..., nb:] = b.area / half_res[..., -1:]
+        blk = np.full((nb + 1, 4), -1, dtype=np.int64)
         blk[:, 0] = np.arange(start - 1, stop)
         blk[0, 0] = p_from
         blk[:, 1] = np.arange(start, stop + 1)
         blk[nb, 1] = p_to
-        blk[:, 2:6] = g[:, None]
-        blk[:, 6:8] = -1
-        blk[nb, 7] = q_perm0 + bi
-        link_blocks.append(blk)
-        chain_g[start - n_comp:stop - n_comp - 1] = g[1:nb]
+        blk[nb, 3] = q_perm0 + bi
+        ends.append(blk)
+        for k in range(4):
+            rates[k].append(g)
+        chain_g[..., start - n_comp:stop - n_comp - 1] = g[..., 1:nb]
         in_chain.append((n_link + 1, n_link + nb))
         loss_to_parts.append(np.full(nb, q_degr0 + bi, dtype=np.int64))
-        centres = np.cumsum(w) - w / 2
+        centres = np.cumsum(w, axis=-1) - w / 2
         grids.append(BarrierGrid(b.id, start, stop, w, centres, lay_idx, interfaces, n_link, n_link + nb))
         faces[p_from].append(n_link)
         faces[p_to].append(n_link + nb)
         n_link += nb + 1
     for e in scenario.exchanges:
         p, q = comp_index[e.from_id], comp_index[e.to_id]
-        link_blocks.append(np.array([[p, q, e.flow, e.flow, e.flow, e.flow, -1, -1]], dtype=np.float64))
+        ends.append(np.array([[p, q, -1, -1]], dtype=np.int64))
+        for k in range(4):
+            rates[k].append(_row([e.flow]))
     for i, c in enumerate(comps):
-        if own_loss[i] and c.clearance:  # clearance as a loss link: CL C = CL K u
-            link_blocks.append(np.array([[i, i, c.clearance * c.partition, 0.0, 0.0, 0.0, q_elim0 + i, -1]],
-                                        dtype=np.float64))
-    lk = np.concatenate(link_blocks) if link_blocks else np.zeros((0, 8))
+        if own_loss[i] and decide(c.clearance != 0):  # clearance as a loss link: CL C = CL K u
+            ends.append(np.array([[i, i, q_elim0 + i, -1]], dtype=np.int64))
+            for k, v in enumerate((c.clearance * c.partition, 0.0, 0.0, 0.0)):
+                rates[k].append(_row([v]))
+    lk = np.concatenate(ends) if ends else np.zeros((0, 4), dtype=np.int64)
+    link_a, link_b, link_c, link_d = (_join(r) if r else np.zeros(0) for r in rates)
 
-    mm = [(i, c.vmax, c.km) for i, c in enumerate(comps) if c.vmax]
+    mm = [(i, c.vmax, c.km) for i, c in enumerate(comps) if c.vmax is not None and decide(c.vmax != 0)]
     tr = [(comp_index[t.from_id], comp_index[t.to_id], t.rate) for t in scenario.transfers]
 
-    y0 = np.zeros(n_state)
-    y0[:n_comp] = [c.starting_concentration for c in comps]
+    y0 = np.zeros(lead + (n_state,))
+    y0[..., :n_comp] = _row([c.starting_concentration for c in comps])
     for (bi, start, stop, _, lay_idx, _) in grids_tmp:  # loaded layers
-        y0[start:stop] = np.array([x.initial_concentration for x in bars[bi].layers], dtype=np.float64)[lay_idx]
-    m_ref = np.array(_mass_scale(scenario), dtype=np.float64)  # per compartment: its part's bound
-    cap = np.concatenate(cap_parts)
-    inv_k = np.concatenate(invk_parts)
-    scale = np.empty(n_state)
-    scale[:n_comp] = m_ref / cap[:n_comp]
-    scale[:n_comp] = np.maximum(scale[:n_comp], [c.starting_concentration for c in comps])
+        y0[..., start:stop] = _row([x.initial_concentration for x in bars[bi].layers])[..., lay_idx]
+    m_list = _mass_scale(scenario)
+    m_ref = _row(m_list)  # per compartment: its part's bound
+    cap = _join(cap_parts)
+    inv_k = _join(invk_parts)
+    scale = np.empty(lead + (n_state,))
+    scale[..., :n_comp] = m_ref / cap[..., :n_comp]
+    scale[..., :n_comp] = np.maximum(scale[..., :n_comp], _row([c.starting_concentration for c in comps]))
     for (bi, start, stop, _, _, part) in grids_tmp:
         # the potential u = C/K inside a layer lies between its two sides' (a maximum principle):
         # a cell's concentration is bounded by the larger side potential times its own K
         b = bars[bi]
         p_from, p_to = comp_index[b.from_id], comp_index[b.to_id]
-        side_u = max(scale[p_from] * inv_k[p_from], scale[p_to] * inv_k[p_to])
-        scale[start:stop] = side_u * part
+        side_u = np.maximum(scale[..., p_from:p_from + 1] * inv_k[..., p_from:p_from + 1],
+                            scale[..., p_to:p_to + 1] * inv_k[..., p_to:p_to + 1])
+        scale[..., start:stop] = side_u * part
     # each cumulative amount takes its part's bound: per compartment (eliminated, supplied,
     # infused) or the part of the barrier's 'from' compartment (degraded, permeated)
-    bar_ref = np.array([m_ref[comp_index[b.from_id]] for b in bars], dtype=np.float64)
-    scale[q_elim0:q_degr0] = m_ref
-    scale[q_degr0:q_perm0] = bar_ref
-    scale[q_perm0:q_supply0] = bar_ref
-    scale[q_supply0:q_supply0 + n_comp] = m_ref
+    bar_ref = _row([m_list[comp_index[b.from_id]] for b in bars])
+    scale[..., q_elim0:q_degr0] = m_ref
+    scale[..., q_degr0:q_perm0] = bar_ref
+    scale[..., q_perm0:q_supply0] = bar_ref
+    scale[..., q_supply0:q_supply0 + n_comp] = m_ref
     for k in (1, 2, 3):  # infused, lost, sampled
-        scale[q_supply0 + k * n_comp:q_supply0 + (k + 1) * n_comp] = m_ref
+        scale[..., q_supply0 + k * n_comp:q_supply0 + (k + 1) * n_comp] = m_ref
     for (_, start, stop, _, _, _) in grids_tmp:  # a loaded layer: at least its own concentration
-        scale[start:stop] = np.maximum(scale[start:stop], y0[start:stop])
+        scale[..., start:stop] = np.maximum(scale[..., start:stop], y0[..., start:stop])
     limited = limited_compartments(scenario)
     sol = scenario.substance.solubility
+    if lead and inv_k.ndim == 1:
+        inv_k = np.broadcast_to(inv_k, lead + inv_k.shape).copy()
     for i, c in enumerate(comps):  # a saturated reservoir: its potential C/K is the solubility
         if c.held and c.id in limited:
-            inv_k[i] = sol / c.held_concentration
+            inv_k[..., i:i + 1] = _row([sol / c.held_concentration])
     face_ptr = np.zeros(n_comp + 1, dtype=np.int64)
     face_ptr[1:] = np.cumsum([len(f) for f in faces])
 
     other = np.ones(len(lk), dtype=np.bool_)
     for j0, j1 in in_chain:
         other[j0:j1] = False
-    loss_rate = np.concatenate(loss_parts)
+    loss_rate = _join(loss_parts)
+
+    def full(x: np.ndarray) -> np.ndarray:  # a value field: one contiguous, writable row per subject
+        x = np.asarray(x, dtype=np.float64)
+        return np.array(np.broadcast_to(x, lead + x.shape[-1:]), order="C") if lead else x
+
     arrays = ModelArrays(
         n_comp=n_comp, n_dyn=n_dyn, q_supply=q_supply0, q_infused=q_supply0 + n_comp,
-        q_sampled=q_supply0 + 3 * n_comp, capacity=cap, inv_capacity=1.0 / cap, inv_partition=inv_k,
-        link_p=lk[:, 0].astype(np.int64), link_q=lk[:, 1].astype(np.int64),
-        link_a=lk[:, 2].copy(), link_b=lk[:, 3].copy(), link_c=lk[:, 4].copy(), link_d=lk[:, 5].copy(),
-        link_loss=lk[:, 6].astype(np.int64), link_track=lk[:, 7].astype(np.int64),
-        chain_g=chain_g, other_links=np.flatnonzero(other).astype(np.int64),
-        loss_rate=loss_rate, loss_to=np.concatenate(loss_to_parts),
-        lossy=np.flatnonzero(loss_rate != 0.0).astype(np.int64),
+        q_sampled=q_supply0 + 3 * n_comp, capacity=full(cap), inv_capacity=full(1.0 / cap),
+        inv_partition=full(inv_k), link_p=lk[:, 0].copy(), link_q=lk[:, 1].copy(),
+        link_a=full(link_a), link_b=full(link_b), link_c=full(link_c), link_d=full(link_d),
+        link_loss=lk[:, 2].copy(), link_track=lk[:, 3].copy(),
+        chain_g=full(chain_g), other_links=np.flatnonzero(other).astype(np.int64),
+        loss_rate=full(loss_rate), loss_to=np.concatenate(loss_to_parts),
+        lossy=np.flatnonzero(_common(loss_rate != 0.0)).astype(np.int64),
         mm_state=np.array([m[0] for m in mm], dtype=np.int64),
-        mm_vmax=np.array([m[1] for m in mm], dtype=np.float64),
-        mm_km=np.array([m[2] for m in mm], dtype=np.float64),
+        mm_vmax=full(_row([m[1] for m in mm])),
+        mm_km=full(_row([m[2] for m in mm])),
         tr_from=np.array([t[0] for t in tr], dtype=np.int64),
         tr_to=np.array([t[1] for t in tr], dtype=np.int64),
-        tr_rate=np.array([t[2] for t in tr], dtype=np.float64),
+        tr_rate=full(_row([t[2] for t in tr])),
         held=np.array([c.held for c in comps], dtype=np.bool_),
         has_volume=np.array([c.volume is not None for c in comps], dtype=np.bool_),
-        area=np.array([b.area for b in bars], dtype=np.float64),
-        y0=y0, scale=scale,
+        area=full(_row([b.area for b in bars])),
+        y0=full(y0), scale=full(scale),
         face_ptr=face_ptr, face_link=np.array([j for f in faces for j in f], dtype=np.int64),
-        evap_rate=np.array([c.evaporation_rate or 0.0 for c in comps], dtype=np.float64),
-        residual=np.array([c.residual_volume or 0.0 for c in comps], dtype=np.float64),
-        solubility=np.array([sol * c.partition if c.id in limited else np.inf for c in comps], dtype=np.float64),
+        evap_rate=full(_row([_or_zero(c.evaporation_rate) for c in comps])),
+        residual=full(_row([_or_zero(c.residual_volume) for c in comps])),
+        solubility=full(_row([sol * c.partition if c.id in limited else np.inf for c in comps])),
         shrinking=shrinking)
     return CompiledModel(arrays, comp_ids=tuple(c.id for c in comps), barrier_ids=tuple(b.id for b in bars),
                          grids=tuple(grids), comp_index=comp_index,

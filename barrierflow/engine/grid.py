@@ -17,10 +17,17 @@ the layer, and refined until both hold within :data:`GRID_TOLERANCE`:
 Where the entering admittance is off the face cells are made finer; where the transmission or the
 slowest mode is off, the largest width is made smaller. Without degradation the steady profile is
 linear and the finite-volume fluxes are exact on any grid; the slowest mode still sets the grid.
+
+Both checks are free of scale: the admittances scale as D K / L and the slowest mode as D / L^2,
+so the grid relative to the thickness depends only on q = L sqrt(k / D) (0 without degradation).
+It is therefore computed once per q, for a layer of unit thickness, diffusivity and partition
+(:meth:`Grid.relative`), and scaled by each layer's thickness: layers of equal q, the subjects of
+a population among them, get the same relative grid exactly.
 """
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -29,6 +36,7 @@ from numba import njit
 
 from ..errors import ScenarioError
 from ..model import Layer
+from ..model.cohort import decide
 from .twoport import layer_pi
 
 __all__ = ["GRID_TOLERANCE", "Grid"]
@@ -72,17 +80,47 @@ class Grid:
             raise ScenarioError.single("grid stretch", self.stretch, "must be between 1 and 2")
 
     def widths(self, layer: Layer) -> np.ndarray:
-        """Cell widths of ``layer``, cm, from its ``from`` face; they sum to the thickness."""
+        """Cell widths of ``layer``, cm, from its ``from`` face; they sum to the thickness.
+
+        ``layer`` may also hold one value per subject (arrays of shape (n, 1), see
+        :mod:`barrierflow.model.cohort`); the widths are then (n, cells), and subjects whose
+        layers ask for different numbers of cells raise :class:`~barrierflow.model.cohort.Diverging`.
+        """
         if layer.cells is not None:
-            return np.full(layer.cells, layer.thickness / layer.cells)
-        n = self.cells_per_layer
-        half = np.arange((n + 1) // 2)
-        w_half = self.stretch ** half
-        w = np.concatenate([w_half, w_half[: n // 2][::-1]])
-        w = w / w.sum() * layer.thickness
-        if not self.refine:
-            return w
-        return _refined(layer, w, self.stretch)
+            return np.broadcast_to(layer.thickness / layer.cells, _shape(layer.thickness, layer.cells)).copy()
+        return self.relative_to(layer) * layer.thickness
+
+    def relative_to(self, layer: Layer) -> np.ndarray:
+        """Cell widths of a layer without ``cells`` relative to its thickness (summing to 1); one
+        row per subject when the layer holds one value per subject."""
+        k = layer.degradation_rate
+        if not isinstance(k, np.ndarray) and k <= 0:
+            return self.relative(0.0)
+        q = layer.thickness * np.sqrt(k / layer.diffusivity) if isinstance(k, np.ndarray) or isinstance(
+            layer.thickness, np.ndarray) or isinstance(layer.diffusivity, np.ndarray) else (
+            layer.thickness * math.sqrt(k / layer.diffusivity))
+        if not isinstance(q, np.ndarray):
+            return self._relative_of(layer, float(q))
+        flat = q.reshape(-1)
+        rows = {x: self._relative_of(layer, x) for x in dict.fromkeys(flat.tolist())}
+        sizes = np.array([len(rows[x]) for x in flat.tolist()])
+        decide(sizes == sizes[0])
+        return np.stack([rows[x] for x in flat.tolist()])
+
+    def _relative_of(self, layer: Layer, q: float) -> np.ndarray:
+        try:
+            return self.relative(q)
+        except _TooFine:
+            raise ScenarioError.single(
+                "barrier layer cells", f"a layer {_first(layer.thickness) * 1e4:.4g} um thick (D "
+                f"{_first(layer.diffusivity) / 3600:.3g} cm^2/s, degradation {_first(layer.degradation_rate):.3g} 1/h)",
+                "the default grid cannot reach its accuracy within 100000 cells; give the layer its own "
+                "'cells'") from None
+
+    def relative(self, q: float) -> np.ndarray:
+        """The relative cell widths (summing to 1) of a layer with L sqrt(k / D) = ``q`` (0 without
+        degradation); computed once per value (a fresh copy each call)."""
+        return _relative(self.cells_per_layer, self.stretch, self.refine, float(q)).copy()
 
 
 def _graded(length: float, h0: float, ratio: float, cap: float, near_cap: float, zone: float) -> np.ndarray:
@@ -103,13 +141,39 @@ def _graded(length: float, h0: float, ratio: float, cap: float, near_cap: float,
     return np.concatenate([w, w[::-1]])
 
 
+def _shape(value, cells: int) -> tuple[int, ...]:
+    return (value.shape[0], cells) if isinstance(value, np.ndarray) else (cells,)
+
+
+def _first(x) -> float:
+    return float(np.asarray(x).reshape(-1)[0])
+
+
+class _TooFine(Exception):
+    pass
+
+
+@functools.lru_cache(maxsize=4096)
+def _relative(n: int, stretch: float, refine: bool, q: float) -> np.ndarray:
+    """The relative grid of :meth:`Grid.relative` (kept: callers get copies)."""
+    half = np.arange((n + 1) // 2)
+    w_half = stretch ** half
+    w = np.concatenate([w_half, w_half[: n // 2][::-1]])
+    w = w / w.sum()
+    if refine:
+        w = _refined(Layer(1.0, 1.0, 1.0, degradation_rate=q * q), w, stretch)
+    w.setflags(write=False)
+    return w
+
+
 def _refined(layer: Layer, base: np.ndarray, ratio: float) -> np.ndarray:
     """``base``, or the coarsest graded grid of ``layer`` that meets :data:`GRID_TOLERANCE`.
 
     The entering admittance depends on the cells within a few reaction-diffusion lengths
     sqrt(D/k) of a face: when it is off, the face cell and the largest width in that zone (12
     lengths, where the steady profile falls to e^-12) shrink; when the transmission or the
-    slowest mode is off, the largest width anywhere shrinks.
+    slowest mode is off, the largest width anywhere shrinks. Raises _TooFine when 100000 cells
+    do not reach the accuracy.
     """
     length, dif, kp, k = layer.thickness, layer.diffusivity, layer.partition, layer.degradation_rate
     g, h = layer_pi(layer)
@@ -137,10 +201,7 @@ def _refined(layer: Layer, base: np.ndarray, ratio: float) -> np.ndarray:
         w = _graded(length, h0, ratio, cap, near, zone)
         if len(w) > 100_000:
             break
-    raise ScenarioError.single(
-        "barrier layer cells", f"a layer {length * 1e4:.4g} um thick (D {dif / 3600:.3g} cm^2/s, degradation "
-        f"{k:.3g} 1/h)", "the default grid cannot reach its accuracy within 100000 cells; give the layer its own "
-        "'cells'")
+    raise _TooFine
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)

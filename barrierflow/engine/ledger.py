@@ -25,10 +25,11 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
+from .arrays import INNER
 from .compiled import CompiledModel
 
-__all__ = ["MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT", "Ledger", "busiest_part", "check", "describe_state", "ledger",
-           "ledger_rows", "parts", "verdict"]
+__all__ = ["MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT", "Ledger", "busiest_part", "check", "describe_state",
+           "judge", "ledger", "ledger_rows", "ledger_weights", "parts", "passes", "relative_error_of", "verdict"]
 
 MASS_BALANCE_LIMIT = 1e-6
 """Largest relative mass-balance error of a result reported as a success."""
@@ -119,6 +120,72 @@ def ledger_rows(model: CompiledModel, comp_conc: np.ndarray, cell_amount: np.nda
         removed=event_removed.sum(axis=1), sampled=terms[:, 5], lost=terms[:, 4])
 
 
+def ledger_weights(model: CompiledModel) -> np.ndarray:
+    """Which cumulative amounts make each ledger term: a 0/1 matrix (quadratures x 6: dosed by
+    infusions and holds, held supply, eliminated, degraded, lost, sampled), for
+    :func:`relative_error_of` (the structure only: every subject of a population shares it)."""
+    return _weights(model)[0]
+
+
+@njit(**INNER)
+def relative_error_of(conc, cells, quad, dosed, removed, capacity, has_volume, y0, nd, w):
+    """:attr:`Ledger.relative_error` of one run from the rows it keeps, in compiled code (each
+    subject of a population): the terms of :func:`ledger_rows` row by row, without arrays.
+
+    ``conc`` (n_t, n_comp) mg/mL, ``cells`` (n_t,) mg in every cell together, ``quad``
+    (n_t, n_state - n_dyn) the cumulative amounts, ``dosed`` / ``removed`` (n_t, n_comp) the
+    events' cumulative amounts; ``capacity``, ``has_volume``, ``y0`` the run's model arrays (the
+    initial amount is present at ``y0``), ``nd`` its dynamic states, ``w`` :func:`ledger_weights`.
+    NaN when a term is not finite.
+    """
+    nc = conc.shape[1]
+    initial = 0.0
+    for p in range(nc):
+        if has_volume[p]:
+            initial += y0[p] * capacity[p]
+    cell0 = 0.0
+    for j in range(nc, nd):
+        cell0 += y0[j] * capacity[j]
+    initial += cell0
+    t = np.zeros(6)
+    worst = 0.0
+    finite = True
+    big_left = 0.0
+    big_right = 0.0
+    for r in range(conc.shape[0]):
+        for k in range(6):
+            t[k] = 0.0
+        for j in range(quad.shape[1]):
+            for k in range(6):
+                if w[j, k] != 0.0:
+                    t[k] += quad[r, j] * w[j, k]
+        present = 0.0
+        ev_in = 0.0
+        ev_out = 0.0
+        for p in range(nc):
+            if has_volume[p]:
+                present += conc[r, p] * capacity[p]
+            ev_in += dosed[r, p]
+            ev_out += removed[r, p]
+        present += cells[r]
+        dosed_all = ev_in + t[0]
+        left = initial + dosed_all + t[1]
+        right = present + t[2] + t[3] + ev_out + t[5] + t[4]
+        err = abs(left - right)
+        if not np.isfinite(err):
+            finite = False
+        elif err > worst:
+            worst = err
+        into = abs(initial + dosed_all) + abs(t[1])
+        if into > big_left:  # NaN compares false: left out, as numpy.nanmax
+            big_left = into
+        if right > big_right:
+            big_right = right
+    if not finite:
+        return np.nan
+    return worst / max(max(big_left, big_right), 1e-300)
+
+
 def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
     """Which cumulative amounts make each ledger term (a 0/1 matrix, quadratures x 4) and the
     volumes that count as present (0 for a held compartment without one), built once per model."""
@@ -136,7 +203,7 @@ def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
     w[nc:nc + nb, 3] = 1.0
     w[m.q_lost - nd:m.q_lost - nd + nc, 4] = 1.0
     w[m.q_sampled - nd:m.q_sampled - nd + nc, 5] = 1.0
-    out = (w, np.where(m.has_volume, m.capacity[:nc], 0.0))
+    out = (w, np.where(m.has_volume, m.capacity[..., :nc], 0.0))
     model.__dict__["_ledger_weights"] = out
     return out
 
@@ -214,18 +281,32 @@ def verdict(led: Ledger | None, low: float, finite: bool) -> list[str]:
     """The rule every result passes, from its ledger, its lowest concentration relative to its
     state's scale and whether every value is finite; what fails, in words (empty when none does).
 
-    :func:`check` applies it to a run and names the parts; the population runs apply it to each
-    subject.
+    :func:`check` applies it to a run and names the parts; the population runs apply the same
+    rule (:func:`passes`, :func:`judge`) to each subject's ledger, computed in compiled code
+    (:func:`relative_error_of`).
     """
     if not finite or led is None:
+        return ["non-finite values"]
+    return judge(led.relative_error, low, True)
+
+
+def judge(relative_error: float, low: float, finite: bool) -> list[str]:
+    """:func:`verdict` from the ledger's relative error (see :attr:`Ledger.relative_error`)."""
+    if not finite:
         return ["non-finite values"]
     found = []
     if low < -NEGATIVE_LIMIT:
         found.append(f"a negative concentration, {-low:.2g} of its scale below zero")
-    err = led.relative_error
-    if not err <= MASS_BALANCE_LIMIT:
-        found.append(f"the mass balance is off by {err:.2g} of the amount moved (more than {MASS_BALANCE_LIMIT:g})")
+    if not relative_error <= MASS_BALANCE_LIMIT:
+        found.append(f"the mass balance is off by {relative_error:.2g} of the amount moved (more than "
+                     f"{MASS_BALANCE_LIMIT:g})")
     return found
+
+
+def passes(relative_error: np.ndarray, low: np.ndarray, finite: np.ndarray) -> np.ndarray:
+    """Whether each of many results passes :func:`judge` (vectorised: True where it finds nothing)."""
+    return np.asarray(finite, dtype=bool) & ~(np.asarray(low) < -NEGATIVE_LIMIT) & (
+        np.asarray(relative_error) <= MASS_BALANCE_LIMIT)
 
 
 def describe_state(model: CompiledModel, i: int) -> str:

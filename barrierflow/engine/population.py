@@ -21,9 +21,10 @@ qualified review.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time as _time
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numba
@@ -32,19 +33,20 @@ from numba import njit, prange
 
 from ..errors import ScenarioError, SolverError
 from ..model import Scenario
+from ..model.cohort import Diverging, refused, stacked
 from ..model.paths import Param, parse_param, with_values
-from .arrays import stack_arrays, subject, working_copy
+from .arrays import SHARED, ModelArrays, stack_arrays, subject, working_copy
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _shortest_time
 from .exact_chain import chain_order, chain_schedule
 from .grid import Grid
 from .kernels import INNER, jacobian_size
-from .ledger import ledger_rows, verdict
+from .ledger import judge, ledger_weights, passes, relative_error_of
 from .rosenbrock import _FAILURES, COEF, OK, ST_STEPS, RosenbrockIntegrator, build_structure, run_marks
 from .schedule import EventArrays, apply_events, build_schedule, closed_rows, encode_events, new_event_state
-from .solve import _present, _snap, solve
+from .solve import _snap, solve
 
-__all__ = ["Population", "sample_scenarios", "simulate_many", "simulate_population"]
+__all__ = ["Population", "sample_scenarios", "simulate_many", "simulate_population", "simulate_values", "take_rows"]
 
 
 # ---------------------------------------------------------------- the varied parameters
@@ -91,6 +93,14 @@ def sample_scenarios(scenario: Scenario, variations: Mapping[str, float], n: int
     factors : dict of str to ndarray (n,)
         The factor each parameter was multiplied by, per subject, under the key given.
     """
+    params, values, factors = _draw(scenario, variations, n, seed)
+    subjects = tuple(with_values(scenario, dict(zip(params, row, strict=True))) for row in values.tolist())
+    return subjects, factors
+
+
+def _draw(scenario: Scenario, variations: Mapping[str, float], n: int,
+          seed: int) -> tuple[tuple[Param, ...], np.ndarray, dict[str, np.ndarray]]:
+    """The varied parameters, each subject's values (n, len(params)) and factors of :func:`sample_scenarios`."""
     if not (isinstance(n, int) and not isinstance(n, bool) and n >= 1):
         raise ScenarioError.single("population size", n, "must be a whole number >= 1")
     rng = np.random.default_rng(seed)
@@ -103,11 +113,10 @@ def sample_scenarios(scenario: Scenario, variations: Mapping[str, float], n: int
         varied.append(_varied(scenario, path))
         omega = math.sqrt(math.log1p(float(cv) ** 2))
         factors[str(path)] = np.exp(omega * rng.standard_normal(n))
-    cols = [f.tolist() for f in factors.values()]
-    subjects = tuple(
-        with_values(scenario, {param: value * col[i] for (param, value), col in zip(varied, cols, strict=True)})
-        for i in range(n))
-    return subjects, factors
+    values = np.empty((n, len(varied)))
+    for k, ((_, value), col) in enumerate(zip(varied, factors.values(), strict=True)):
+        values[:, k] = value * col
+    return tuple(p for p, _ in varied), values, factors
 
 
 # ---------------------------------------------------------------- the result
@@ -259,7 +268,7 @@ class Population:
 # (n_sub, n_ev) each subject's own values.
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol, atol_rel, max_steps,
-                    hold, keep, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k,
+                    hold, keep, n_out, w, out, out_dosed, out_removed, cell_bar, content, low, rel, status, fail_k,
                     stats):
     n_sub = ev_values.shape[0]
     n = stack.y0.shape[1]
@@ -287,13 +296,13 @@ def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, 
         fail_k[i] = k
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, base, out[i], out_dosed[i], out_removed[i], cell_amount[i], cell_bar,
-                   content[i], low, i)
+        _keep_rows(states, evd, evr, keep, n_out, w, base, out[i], out_dosed[i], out_removed[i], cell_bar, content[i],
+                   low, rel, i)
 
 
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, out, out_dosed,
-                          out_removed, cell_amount, cell_bar, content, low, status, stats):
+def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, n_out, w, out, out_dosed,
+                          out_removed, cell_bar, content, low, rel, status, stats):
     n_sub = ev_values.shape[0]
     n = stack.y0.shape[1]
     n_t = times.shape[0]
@@ -311,21 +320,23 @@ def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, 
                                    st)
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, base, out[i], out_dosed[i], out_removed[i], cell_amount[i], cell_bar,
-                   content[i], low, i)
+        _keep_rows(states, evd, evr, keep, n_out, w, base, out[i], out_dosed[i], out_removed[i], cell_bar, content[i],
+                   low, rel, i)
 
 
 @njit(**INNER)
-def _keep_rows(states, evd, evr, keep, m, out, out_dosed, out_removed, cell_amount, cell_bar, content, low, i):
-    """Copy the kept columns of one subject, with what its check needs: the amount in the cells at
-    each row, and the lowest concentration relative to its state's scale (into ``low[i]``); and
-    the amount in each barrier's cells, negative concentrations counted as 0 (``content``, as
+def _keep_rows(states, evd, evr, keep, n_out, w, m, out, out_dosed, out_removed, cell_bar, content, low, rel, i):
+    """Copy the kept columns of one subject, with what its check needs: the lowest concentration
+    relative to its state's scale (into ``low[i]``) and the relative error of its ledger (into
+    ``rel[i]``, :func:`~barrierflow.engine.ledger.relative_error_of`); and the amount in each
+    barrier's cells, negative concentrations counted as 0 (``content``, as
     :meth:`barrierflow.analysis.Result.content`)."""
     nc = m.n_comp
     nd = m.n_dyn
     cap = m.capacity
     scale = m.scale
     lo = 0.0
+    cells = np.empty(states.shape[0])
     for r in range(states.shape[0]):
         for j in range(keep.shape[0]):
             out[r, j] = states[r, keep[j]]
@@ -344,8 +355,10 @@ def _keep_rows(states, evd, evr, keep, m, out, out_dosed, out_removed, cell_amou
             z = v / scale[j]
             if z < lo:
                 lo = z
-        cell_amount[r] = acc
+        cells[r] = acc
     low[i] = lo
+    rel[i] = relative_error_of(out[:, :nc], cells, out[:, nc + n_out:], out_dosed, out_removed, cap, m.has_volume,
+                               m.y0, nd, w)
 
 
 def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, int], np.ndarray]:
@@ -381,21 +394,31 @@ def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, i
     return out
 
 
-def _apply_at_end_kept(models, schedules, duration: float, keep: np.ndarray, status: np.ndarray, out: np.ndarray,
+def _subject_arrays(arrays: ModelArrays, i: int) -> ModelArrays:
+    """Subject ``i`` of stacked arrays, in Python (as the compiled :func:`~.arrays.subject`)."""
+    return ModelArrays(*(v[i] if isinstance(v, np.ndarray) and name not in SHARED else v
+                         for name, v in zip(ModelArrays._fields, arrays, strict=True)))
+
+
+def _apply_at_end_kept(batch: _Batch, keep: np.ndarray, status: np.ndarray, out: np.ndarray,
                        out_dosed: np.ndarray, out_removed: np.ndarray) -> None:
     """Apply each finished subject's events at the very end of the run to its last row (its
     after-state), as a single run does (the rules of every path,
     :func:`~barrierflow.engine.schedule.apply_events`); the events touch only kept states
     (compartments and cumulative amounts)."""
-    for i, (m, sch) in enumerate(zip(models, schedules, strict=True)):
-        at_end = [e for e in sch if e.time >= duration]
-        if not at_end or status[i] != OK or not out.shape[1]:
-            continue
-        y = np.zeros(m.n_state)
+    ev = batch.ev
+    first = int(np.searchsorted(ev.time, batch.duration, side="left"))
+    if first == len(ev.time) or not out.shape[1]:
+        return
+    n_state = batch.model.n_state
+    for i in np.flatnonzero(status == OK).tolist():
+        m = _subject_arrays(batch.arrays, i)
+        at_end = EventArrays(ev.time[first:], ev.kind[first:], ev.comp[first:], batch.ev_values[i, first:].copy())
+        y = np.zeros(n_state)
         y[keep] = out[i, -1]
-        s = new_event_state(m.arrays, len(at_end))
+        s = new_event_state(m, len(at_end.time))
         s.dosed[:], s.removed[:] = out_dosed[i, -1], out_removed[i, -1]
-        apply_events(np.inf, 0, encode_events(at_end), working_copy(m.arrays), m.arrays, y, s)
+        apply_events(np.inf, 0, at_end, working_copy(m), m, y, s)
         out[i, -1] = y[keep]
         out_dosed[i, -1], out_removed[i, -1] = s.dosed, s.removed
 
@@ -409,6 +432,7 @@ def _same_structure(models: Sequence[CompiledModel], schedules, grids_times) -> 
                 and [(e.time, e.kind, e.comp) for e in schedules[k - 1]] == [(e.time, e.kind, e.comp)
                                                                              for e in schedules[0]]
                 and np.array_equal(grids_times[k - 1], grids_times[0])
+                and all(np.array_equal(getattr(m.arrays, a), getattr(first.arrays, a)) for a in SHARED)
                 and np.array_equal(m.loss_rate != 0, first.loss_rate != 0))
         if not same:
             raise ScenarioError.single(f"population subject {k}", "a different structure",
@@ -416,10 +440,65 @@ def _same_structure(models: Sequence[CompiledModel], schedules, grids_times) -> 
                                        "barriers, cells, links, dosing times and output times); only values may differ")
 
 
+@dataclass(frozen=True, eq=False)
+class _Batch:
+    """Subjects of one structure ready for the compiled run.
+
+    ``model`` gives the structure (any subject's model, or the stacked one); ``arrays`` every
+    subject's values (:func:`~.arrays.stack_arrays`, one row per subject in the value fields);
+    ``ev`` the events every subject shares, ``ev_values`` (n, n_ev) each subject's values of them;
+    ``scenario_of(i)`` subject i's own scenario (built only for a subject computed again alone).
+    """
+
+    model: CompiledModel
+    arrays: ModelArrays
+    ev: EventArrays
+    ev_values: np.ndarray
+    schedule: list
+    marks: np.ndarray
+    times: np.ndarray
+    duration: float
+    first: Scenario
+    scenario_of: Callable[[int], Scenario]
+
+    @property
+    def n(self) -> int:
+        return self.ev_values.shape[0]
+
+
+def _check_model(m0: CompiledModel, integrator) -> np.ndarray | None:
+    """The chain order of the exact path (None: RODAS4), or a ScenarioError when no compiled path runs it."""
+    if m0.vehicle_terms:
+        raise ScenarioError.single(
+            "population", "a volume that changes with time, or undissolved solid",
+            "populations run on the compiled paths, which do not run evaporation, solubility limits or samples "
+            "without replacement; simulate the subjects one by one with barrierflow.simulate")
+    order = chain_order(m0) if not isinstance(integrator, RosenbrockIntegrator) else None
+    if order is None and isinstance(integrator, ExactIntegrator):
+        raise ScenarioError.single("population integrator", "'exact'",
+                                   "needs a linear chain network (no transfers, no saturable elimination, at most "
+                                   "two neighbours per state); use the compiled RODAS4 integrator")
+    return order
+
+
+def _check_integrator(integrator) -> None:
+    if integrator is not None and not isinstance(integrator, RosenbrockIntegrator | ExactIntegrator):
+        raise ScenarioError.single("population integrator", getattr(integrator, "name", repr(integrator)),
+                                   "populations run on the compiled paths: ExactIntegrator or RosenbrockIntegrator "
+                                   "(default: exact for a linear chain network, RODAS4 otherwise)")
+
+
+def _output_times(scenario: Scenario, marks: np.ndarray) -> np.ndarray:
+    return _snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(scenario.duration, 1.0))
+
+
 def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegrator | ExactIntegrator | None = None,
                   grid: Grid | None = None, threads: int | None = None,
                   factors: Mapping[str, np.ndarray] | None = None) -> Population:
     """Simulate subjects that share one structure, in parallel compiled threads.
+
+    Each subject is compiled on its own (subjects given as values of a few parameters of one
+    scenario are faster with :func:`simulate_values`, which compiles them together).
 
     Parameters
     ----------
@@ -447,50 +526,141 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
     start = _time.perf_counter()
     if not scenarios:
         raise ScenarioError.single("population", "no subjects", "give at least one scenario")
-    if integrator is not None and not isinstance(integrator, RosenbrockIntegrator | ExactIntegrator):
-        raise ScenarioError.single("population integrator", getattr(integrator, "name", repr(integrator)),
-                                   "populations run on the compiled paths: ExactIntegrator or RosenbrockIntegrator "
-                                   "(default: exact for a linear chain network, RODAS4 otherwise)")
+    _check_integrator(integrator)
     grid = grid or Grid()
     shared = _shared_grid(scenarios, grid)
     models = [compile_scenario(s, grid, shared) for s in scenarios]
-    m0 = models[0]
-    if m0.vehicle_terms:
-        raise ScenarioError.single(
-            "population", "a volume that changes with time, or undissolved solid",
-            "populations run on the compiled paths, which do not run evaporation, solubility limits or samples "
-            "without replacement; simulate the subjects one by one with barrierflow.simulate")
-    order = chain_order(m0) if not isinstance(integrator, RosenbrockIntegrator) else None
-    if order is None and isinstance(integrator, ExactIntegrator):
-        raise ScenarioError.single("population integrator", "'exact'",
-                                   "needs a linear chain network (no transfers, no saturable elimination, at most "
-                                   "two neighbours per state); use the compiled RODAS4 integrator")
-    integ = integrator if isinstance(integrator, RosenbrockIntegrator) else RosenbrockIntegrator()
+    order = _check_model(models[0], integrator)
     schedules = [build_schedule(s, m.comp_index) for s, m in zip(scenarios, models, strict=True)]
     s0 = scenarios[0]
     marks = np.array(sorted({e.time for e in schedules[0]} | {0.0, s0.duration}), dtype=np.float64)
-    times_all = [_snap(np.array(s.output_grid(), dtype=float), marks, 1e-9 * max(s0.duration, 1.0))
-                 for s in scenarios]
+    times_all = [_output_times(s, marks) for s in scenarios]
     _same_structure(models, schedules, times_all)
-    times = times_all[0]
-    ev = encode_events(schedules[0])
     ev_v = np.array([[e.value for e in sch] for sch in schedules], dtype=np.float64).reshape(len(models), -1)
-    arrays = stack_arrays([m.arrays for m in models])
-    work = working_copy(arrays)  # the runs change these (a closed face); ``arrays`` keeps the originals
+    batch = _Batch(models[0], stack_arrays([m.arrays for m in models]), encode_events(schedules[0]), ev_v,
+                   schedules[0], marks, times_all[0], s0.duration, s0, scenarios.__getitem__)
+    return _run(batch, order, integrator, grid, threads, factors, start)
 
+
+def simulate_values(scenario: Scenario, params: Sequence[Param], values: np.ndarray, *,
+                    integrator: RosenbrockIntegrator | ExactIntegrator | None = None, grid: Grid | None = None,
+                    threads: int | None = None, factors: Mapping[str, np.ndarray] | None = None) -> Population:
+    """Simulate the subjects given by the values of a few parameters of one scenario, compiled together.
+
+    The scenario is compiled once with one value per subject in each varied field
+    (:func:`barrierflow.model.cohort.stacked`): the compiled arrays of every subject come out of
+    one pass of numpy's element-wise arithmetic, equal to those of the subject's own scenario,
+    without building it. Where a value decides the structure differently between subjects (the
+    cells of a degrading layer, a clearance of zero or not), the subjects are split there and each
+    part runs on its own structure. Subject i's scenario is built only if its run has to be
+    computed again alone (a failed check).
+
+    Parameters
+    ----------
+    scenario : Scenario
+        What every subject shares.
+    params : sequence of Param
+        The varied parameters (not structural).
+    values : ndarray (n, len(params))
+        Each subject's values, internal units; values the model accepts (check them first with
+        :func:`barrierflow.model.cohort.refused`).
+    integrator, grid, threads, factors
+        As for :func:`simulate_many`.
+
+    Returns
+    -------
+    Population
+    """
+    start = _time.perf_counter()
+    _check_integrator(integrator)
+    values = np.asarray(values, dtype=np.float64).reshape(len(values), len(params))
+    if not len(values):
+        raise ScenarioError.single("population", "no subjects", "give at least one subject")
+    grid = grid or Grid()
+    params = tuple(params)
+    try:
+        batch = _values_batch(scenario, params, values, grid)
+    except Diverging as split:
+        parts = [np.flatnonzero(split.mask), np.flatnonzero(~split.mask)]
+        pops = [simulate_values(scenario, params, values[rows], integrator=integrator, grid=grid, threads=threads)
+                for rows in parts]
+        taken = [None] * len(values)
+        for pop, rows in zip(pops, parts, strict=True):
+            for j, i in enumerate(rows.tolist()):
+                taken[i] = (pop, j)
+        return take_rows(taken, factors=factors, wall_time=_time.perf_counter() - start)
+    order = _check_model(batch.model, integrator)
+    return _run(batch, order, integrator, grid, threads, factors, start)
+
+
+def _values_batch(scenario: Scenario, params: tuple[Param, ...], values: np.ndarray, grid: Grid) -> _Batch:
+    view = stacked(scenario, params, values)
+    model = compile_scenario(view, grid)
+    n = len(values)
+    schedule = build_schedule(view, model.comp_index)
+    ev = encode_events([dataclasses.replace(e, value=0.0) if isinstance(e.value, np.ndarray) else e for e in schedule])
+    ev_v = np.empty((n, len(schedule)))
+    for k, e in enumerate(schedule):
+        ev_v[:, k] = np.asarray(e.value, dtype=np.float64).reshape(-1)
+    marks = np.array(sorted({e.time for e in schedule} | {0.0, scenario.duration}), dtype=np.float64)
+
+    def scenario_of(i: int) -> Scenario:
+        return with_values(scenario, dict(zip(params, values[i].tolist(), strict=True)))
+
+    return _Batch(model, model.arrays, ev, ev_v, schedule, marks, _output_times(scenario, marks), scenario.duration,
+                  scenario_of(0) if params else scenario, scenario_of)
+
+
+def take_rows(rows: Sequence[tuple[Population | None, int | str]], *, factors: Mapping[str, np.ndarray] | None = None,
+              wall_time: float = 0.0) -> Population:
+    """One population of rows taken from others (of one structure): ``(population, row)``, or
+    ``(None, why)`` for a subject the engine refused (a failed row of NaN with that message).
+
+    Raises
+    ------
+    ScenarioError
+        If no row has a population.
+    """
+    good = next((p for p, _ in rows if p is not None), None)
+    if good is None:
+        raise ScenarioError.single("population", "every subject", f"the engine refused them: {rows[0][1]}")
+
+    def stack(name: str) -> np.ndarray:
+        ref = getattr(good, name)[:1]
+        return np.concatenate([getattr(p, name)[j:j + 1] if p is not None else np.full_like(ref, np.nan)
+                               for p, j in rows])
+
+    status = np.array([p.status[j] if p is not None else -1 for p, j in rows])
+    messages = tuple(p.messages[j] if p is not None else f"the engine refused it: {j}" for p, j in rows)
+    steps = np.array([p.steps[j] if p is not None else 0 for p, j in rows])
+    return dataclasses.replace(
+        good, status=status, messages=messages, steps=steps, factors=dict(factors or {}), wall_time=wall_time,
+        _conc=stack("_conc"), _quad=stack("_quad"), _flux=stack("_flux"), _area=stack("_area"),
+        _volume=stack("_volume"), _dosed=stack("_dosed"), _removed=stack("_removed"), _content=stack("_content"))
+
+
+def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, factors, start: float) -> Population:
+    """Run a batch in the compiled kernels, check every subject, compute failed ones again alone."""
+    m0 = batch.model
+    arrays = batch.arrays
+    work = working_copy(arrays)  # the runs change these (a closed face); ``arrays`` keeps the originals
+    marks, times, ev, ev_v = batch.marks, batch.times, batch.ev, batch.ev_values
+    integ = integrator if isinstance(integrator, RosenbrockIntegrator) else RosenbrockIntegrator()
     nc, nd, n = m0.n_comp, m0.n_dyn, m0.n_state
     out_cells = [int(m0.link_p[g.out_link]) for g in m0.grids]
     keep = np.array(list(range(nc)) + out_cells + list(range(nd, n)), dtype=np.int64)
-    n_sub, n_t = len(models), len(times)
+    n_sub, n_t = batch.n, len(times)
     out = np.empty((n_sub, n_t, len(keep)))
     out_dosed = np.zeros((n_sub, n_t, nc))
     out_removed = np.zeros((n_sub, n_t, nc))
-    cell_amount = np.zeros((n_sub, n_t))
     cell_bar = np.zeros(m0.n_cells, dtype=np.int64)  # the barrier of each cell
     for b, g in enumerate(m0.grids):
         cell_bar[g.start - nc:g.stop - nc] = b
     content = np.zeros((n_sub, n_t, m0.n_bar))
     low = np.zeros(n_sub)
+    rel = np.zeros(n_sub)
+    n_out = len(out_cells)
+    w = ledger_weights(m0)
     status = np.zeros(n_sub, dtype=np.int64)
     fail_k = np.zeros(n_sub, dtype=np.int64)
     stats = np.zeros((n_sub, 6), dtype=np.int64)
@@ -502,30 +672,27 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         if order is not None:
             name = "exact (population)"
             _run_population_exact(marks, times, ev, ev_v, arrays, work, order, -60.0 / _shortest_time(times, marks),
-                                  n_jac, keep, out, out_dosed, out_removed, cell_amount, cell_bar, content, low,
+                                  n_jac, keep, n_out, w, out, out_dosed, out_removed, cell_bar, content, low, rel,
                                   status, stats)
         else:
             name = f"{integ.name} (population)"
             struct = build_structure(m0)
             _run_population(marks, times, ev, ev_v, arrays, work, struct.args(), COEF, struct.n_w, n_jac,
-                            float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), keep, out,
-                            out_dosed, out_removed, cell_amount, cell_bar, content, low, status, fail_k, stats)
+                            float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), keep, n_out, w,
+                            out, out_dosed, out_removed, cell_bar, content, low, rel, status, fail_k, stats)
     finally:
         numba.set_num_threads(old_threads)
-    _apply_at_end_kept(models, schedules, s0.duration, keep, status, out, out_dosed, out_removed)
-    messages = []
-    st = np.where(status == OK, 0, -1)
-    for i in range(n_sub):
+    _apply_at_end_kept(batch, keep, status, out, out_dosed, out_removed)
+    # the guard of every run (barrierflow.engine.ledger.verdict), for every subject (its ledger
+    # computed in the kernel)
+    cap = arrays.capacity
+    finite = np.isfinite(out).all(axis=(1, 2))
+    good = (status == OK) & passes(rel, low, finite)
+    messages = ["the run finished"] * n_sub
+    st = np.where(good, 0, -1)
+    for i in np.flatnonzero(~good).tolist():
         if status[i] == OK:
-            # the guard of every run (barrierflow.engine.ledger.verdict), per subject
-            mi = models[i]
-            led = ledger_rows(mi, out[i, :, :nc], cell_amount[i], out[i, :, nc + len(out_cells):], out_dosed[i],
-                              out_removed[i], _present(mi, mi.y0))
-            found = verdict(led, float(low[i]), bool(np.all(np.isfinite(out[i]))))
-            if not found:
-                messages.append("the run finished")
-                continue
-            note = f"the {name} result failed its check ({'; '.join(found)})"
+            note = f"the {name} result failed its check ({'; '.join(judge(float(rel[i]), float(low[i]), finite[i]))})"
         elif order is not None:
             note = "the exact path does not apply to this subject (its modes are too ill-conditioned)"
         else:
@@ -534,28 +701,28 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
                     f"(dosing interval {k + 1}): {_FAILURES.get(int(status[i]), 'unknown failure')}")
         # computed again on its own, through the guarded single run (robust integrator on failure)
         try:
-            tr = solve(scenarios[i], integ if isinstance(integrator, RosenbrockIntegrator) else None, grid)
+            tr = solve(batch.scenario_of(i), integ if isinstance(integrator, RosenbrockIntegrator) else None, grid)
         except SolverError as err:
-            st[i] = -1
             out[i] = np.nan
             content[i] = np.nan
-            messages.append(f"{note}; computed again on its own it failed too: {err}")
+            messages[i] = f"{note}; computed again on its own it failed too: {err}"
             continue
         out[i] = tr.states[:, keep]
         out_dosed[i] = tr.event_dosed
         out_removed[i] = tr.event_removed
         for b, g in enumerate(m0.grids):
-            content[i, :, b] = np.maximum(tr.states[:, g.start:g.stop], 0.0) @ models[i].capacity[g.start:g.stop]
+            content[i, :, b] = np.maximum(tr.states[:, g.start:g.stop], 0.0) @ cap[i, g.start:g.stop]
         stats[i, ST_STEPS] = tr.stats.get("steps", 0)
         st[i] = 0
-        messages.append(f"{note}; computed again on its own with {tr.integrator}")
+        messages[i] = f"{note}; computed again on its own with {tr.integrator}"
     # flux into the 'to' compartment of each barrier: c u_p - d u_q over the out link, per area
     # (none while a remove that ends contact has closed the face)
-    closed = closed_rows(schedules[0], times, nc)
+    closed = closed_rows(batch.schedule, times, nc)
     area = arrays.area
     flux = np.empty((n_sub, n_t, m0.n_bar))
     col = {int(s): j for j, s in enumerate(keep)}
     inv_k = arrays.inv_partition
+    faces = set(m0.face_link.tolist())
     for b, g in enumerate(m0.grids):
         j = g.out_link
         p, q = int(m0.link_p[j]), int(m0.link_q[j])
@@ -565,15 +732,15 @@ def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegr
         uq = out[:, :, col[q]] * inv_k[:, q][:, None]
         flux[:, :, b] = (c * up - d * uq) / area[:, b][:, None]
         for end in (p, q):
-            if end < nc and j in set(m0.face_link.tolist()):
+            if end < nc and j in faces:
                 flux[:, closed[:, end], b] = 0.0
-    volume = np.where(arrays.has_volume, arrays.capacity[:, :nc], np.nan)
+    volume = np.where(arrays.has_volume, cap[:, :nc], np.nan)
     return Population(
         times=times, comp_ids=m0.comp_ids, barrier_ids=m0.barrier_ids, factors=dict(factors or {}), status=st,
         messages=tuple(messages), steps=stats[:, ST_STEPS].copy(), integrator=name,
-        wall_time=_time.perf_counter() - start, _conc=out[:, :, :nc], _quad=out[:, :, nc + len(out_cells):],
+        wall_time=_time.perf_counter() - start, _conc=out[:, :, :nc], _quad=out[:, :, nc + n_out:],
         _flux=flux, _area=area, _volume=volume, _dosed=out_dosed, _removed=out_removed, _content=content,
-        _n_comp=nc, _n_bar=m0.n_bar, scenario=s0, _solubility=m0.solubility.copy())
+        _n_comp=nc, _n_bar=m0.n_bar, scenario=batch.first, _solubility=arrays.solubility[0].copy())
 
 
 def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: int, seed: int = 0, *,
@@ -607,6 +774,10 @@ def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: 
     >>> pop.percentiles("central").shape                                # doctest: +SKIP
     (3, 1009)
     """
-    subjects, factors = sample_scenarios(scenario, variations, n, seed)
-    return simulate_many(subjects, integrator=integrator, grid=grid, threads=threads, factors=factors)
+    params, values, factors = _draw(scenario, variations, n, seed)
+    bad = refused(scenario, params, values)
+    if bad:  # the model's own error for the first subject it refuses
+        with_values(scenario, dict(zip(params, values[min(bad)].tolist(), strict=True)))
+    return simulate_values(scenario, params, values, integrator=integrator, grid=grid, threads=threads,
+                           factors=factors)
 

@@ -194,7 +194,8 @@ def regimen_bounds(scenario: Scenario) -> RegimenBounds:
     out = RegimenBounds([], [], set(), [], {})
     for d in scenario.doses:
         n = len(d.start_times(scenario.duration))
-        vol = comps[d.target].volume or 0.0
+        vol = comps[d.target].volume
+        vol = 0.0 if vol is None else vol
         if d.kind == "bolus":
             out.added.append((d.target, n * d.amount))
             out.fed.add(d.target)

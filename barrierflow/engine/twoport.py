@@ -19,21 +19,48 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
+import numpy as np
+
 from ..model import Layer
 
 __all__ = ["layer_pi", "stack_two_port"]
 
 
 def layer_pi(layer: Layer) -> tuple[float, float]:
-    """(g, h) of one layer per unit area, cm/h: series conductance and the shunt at each face."""
+    """(g, h) of one layer per unit area, cm/h: series conductance and the shunt at each face.
+
+    A layer holding one value per subject (:mod:`barrierflow.model.cohort`) gives one (g, h)
+    per subject, each computed as for its own layer (the same functions of ``math``).
+    """
     dk = layer.diffusivity * layer.partition
-    if layer.degradation_rate <= 0:
+    k = layer.degradation_rate
+    if not isinstance(k, np.ndarray) and k <= 0:
         return dk / layer.thickness, 0.0
-    s = math.sqrt(layer.degradation_rate / layer.diffusivity)
+    if isinstance(k, np.ndarray) or isinstance(dk, np.ndarray) or isinstance(layer.thickness, np.ndarray):
+        return _layer_pi_each(layer)
+    s = math.sqrt(k / layer.diffusivity)
     x = s * layer.thickness
     if x < 1e-4:  # series to x^2: the relative truncation is below 1e-17
         return dk / layer.thickness * (1.0 - x * x / 6.0), dk / layer.thickness * (x * x / 2.0)
     return dk * s * 2.0 * math.exp(-x) / -math.expm1(-2.0 * x), dk * s * math.tanh(0.5 * x)
+
+
+def _layer_pi_each(layer) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`layer_pi` of each subject of a layer holding one value per subject ((n, 1) arrays)."""
+    n = next(np.shape(v)[0] for v in (layer.thickness, layer.diffusivity, layer.partition, layer.degradation_rate)
+             if isinstance(v, np.ndarray))
+    col = [np.broadcast_to(v, (n, 1))[:, 0].tolist() for v in (layer.thickness, layer.diffusivity, layer.partition,
+                                                                layer.degradation_rate)]
+    out = [layer_pi(_Plain(*vals)) for vals in zip(*col, strict=True)]
+    return np.array([o[0] for o in out]).reshape(n, 1), np.array([o[1] for o in out]).reshape(n, 1)
+
+
+class _Plain:
+    """One subject's layer values, as :func:`layer_pi` reads them."""
+
+    def __init__(self, thickness: float, diffusivity: float, partition: float, degradation_rate: float):
+        self.thickness, self.diffusivity, self.partition = thickness, diffusivity, partition
+        self.degradation_rate = degradation_rate
 
 
 def stack_two_port(layers: Sequence[Layer]) -> tuple[float, float, float, float]:

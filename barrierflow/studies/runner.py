@@ -5,10 +5,10 @@ scenario and, for each subject, the values of a few parameters. The table is cut
 (:class:`ChunkTask`: the first subject's number and the values of each), and each chunk is
 simulated by :func:`run_chunk`, a pure function of its task:
 
-- the subjects are built with :func:`~barrierflow.model.paths.with_values` (a value the model
-  refuses makes that subject fail, with the model's message) and simulated together by the
-  engine's population runner, in parallel compiled threads (:func:`simulate_subjects`, the one
-  place that calls the engine for a study);
+- the values are checked by the model's rules for all subjects at once (a value the model
+  refuses makes that subject fail, with the model's message), and the subjects are compiled
+  together, from the values, and simulated by the engine's population runner, in parallel
+  compiled threads (:func:`simulate_subjects`, the one place that calls the engine for a study);
 - the traces of the subjects that finished go into the compact histograms of a quantile sketch
   (:mod:`barrierflow.analysis.sketch`), and each subject's metrics are computed by the rules of a
   single run (:func:`barrierflow.analysis.population.population_metrics`).
@@ -39,14 +39,15 @@ from ..analysis.population import MetricTable, population_columns, population_me
 from ..analysis.sketch import ACCURACY, BINS, Counts, count_values
 from ..engine.grid import Grid
 from ..engine.integrators import integrator_from_name
-from ..engine.population import Population, simulate_many
+from ..engine.population import Population, simulate_values, take_rows
 from ..errors import BarrierflowError, ScenarioError
 from ..model import Scenario
+from ..model.cohort import refused
 from ..model.paths import Param, with_values
 from ..units import unit_factor
 
 __all__ = ["ChunkOutcome", "ChunkTask", "Evaluation", "chunk_size_for", "evaluate", "run_chunk", "run_tasks",
-           "simulate_subjects", "solver_accuracy"]
+           "Subjects", "simulate_subjects", "solver_accuracy"]
 
 CHUNK_BYTES = 48e6
 """Target size of a chunk's traces in memory (the chunk size is chosen from it)."""
@@ -137,8 +138,13 @@ class ChunkOutcome:
 
 
 def simulate_subjects(base: Scenario, params: Sequence[Param], values: np.ndarray, *,
-                      integrator: str | None = None) -> tuple[Population | None, list[Scenario | None], list[str]]:
+                      integrator: str | None = None) -> tuple[Population | None, Sequence[Scenario | None], list[str]]:
     """Simulate the subjects given by parameter values: the one call of the engine for a study.
+
+    The values are checked by the model's rules for every subject at once
+    (:func:`barrierflow.model.cohort.refused`); the subjects it accepts are compiled together and
+    run in the engine's compiled population kernels
+    (:func:`barrierflow.engine.population.simulate_values`), without a scenario per subject.
 
     Parameters
     ----------
@@ -152,101 +158,65 @@ def simulate_subjects(base: Scenario, params: Sequence[Param], values: np.ndarra
     Returns
     -------
     population : Population or None
-        The subjects that could be built, in order (None when none could).
-    scenarios : list of Scenario or None
-        Each subject's scenario (None where the model refused its values).
+        The subjects the model accepts, in order (None when it accepts none).
+    scenarios : sequence of Scenario or None
+        Each subject's scenario (None where the model refused its values), built when first read.
     messages : list of str
         ``""`` for a subject that finished, else why it failed (refused values or a failed run).
     """
-    scenarios: list[Scenario | None] = []
-    messages: list[str] = []
-    for row in np.asarray(values, dtype=float):
-        try:
-            scenarios.append(with_values(base, dict(zip(params, row.tolist(), strict=True))))
-            messages.append("")
-        except BarrierflowError as err:
-            scenarios.append(None)
-            messages.append(f"the model refused its values: {_one_line(err)}")
-    built = [s for s in scenarios if s is not None]
-    if not built:
+    params = tuple(params)
+    values = np.asarray(values, dtype=float).reshape(len(values), len(params))
+    n = len(values)
+    bad = refused(base, params, values)
+    messages = [f"the model refused its values: {bad[i]}" if i in bad else "" for i in range(n)]
+    scenarios = Subjects(base, params, values, frozenset(bad))
+    built = np.array([i for i in range(n) if i not in bad], dtype=np.int64)
+    if not len(built):
         return None, scenarios, messages
     engine = integrator_from_name(integrator) if integrator else None
-    groups: dict[bytes, list[int]] = {}
-    for k, sc in enumerate(built):
-        groups.setdefault(_grid_key(sc), []).append(k)
-    parts: list[Population | None] = [None] * len(built)
     with _ENGINE:
-        for members in groups.values():
-            subjects = [built[k] for k in members]
-            try:
-                pop = simulate_many(subjects, integrator=engine)
-                rows = [(pop, j) for j in range(len(members))]
-            except BarrierflowError as err:
-                # the population runner refused the set as a whole: run each subject alone, so
-                # that only the subjects at fault fail
-                rows = [_alone(sc, engine, err) for sc in subjects]
-            for k, row in zip(members, rows, strict=True):
-                parts[k] = row
-    pop = parts[0][0] if len(groups) == 1 and parts[0][0] is not None and all(
-        p[0] is parts[0][0] for p in parts) else _stack(parts)
-    k = 0
-    for i, sc in enumerate(scenarios):
-        if sc is None:
-            continue
+        try:
+            pop = simulate_values(base, params, values[built], integrator=engine)
+        except BarrierflowError as err:
+            # the population runner refused the set as a whole: run each subject alone, so
+            # that only the subjects at fault fail
+            pop = take_rows([_alone(base, params, values[i:i + 1], engine, err) for i in built.tolist()])
+    for k, i in enumerate(built.tolist()):
         if pop.status[k] != 0:
             messages[i] = pop.messages[k]
-        k += 1
     return pop, scenarios, messages
 
 
-def _grid_key(scenario: Scenario) -> bytes:
-    """The cell faces of every layer that the engine grids by default (relative to its thickness).
+class Subjects(Sequence):
+    """Each subject's scenario (None for one the model refused), built from its values when first read."""
 
-    The engine gives subjects run together one grid per layer, the union of their own; a layer's
-    default grid can depend on its values (a degrading layer follows sqrt(D/k)). Subjects are
-    therefore run in groups of equal grids, so that each is computed on its own grid, as it would
-    be alone, whatever chunk it falls in.
-    """
-    out = []
-    for b in scenario.barriers:
-        if b.model == "steady":
-            continue
-        for layer in b.layers:
-            if layer.cells is None:
-                out.append(np.round(_GRID.widths(layer) / layer.thickness, 12).tobytes())
-    return b"|".join(out)
+    def __init__(self, base: Scenario, params: tuple[Param, ...], values: np.ndarray, refused: frozenset[int]):
+        self._base, self._params, self._values, self._refused = base, params, values, refused
+        self._made: dict[int, Scenario] = {}
+
+    def __len__(self) -> int:
+        return len(self._values)
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return [self[k] for k in range(*i.indices(len(self)))]
+        i = range(len(self))[i]
+        if i in self._refused:
+            return None
+        if i not in self._made:
+            self._made[i] = with_values(self._base, dict(zip(self._params, self._values[i].tolist(), strict=True)))
+        return self._made[i]
 
 
 _GRID = Grid()
 
 
-def _alone(scenario: Scenario, engine, first_error: BarrierflowError) -> tuple[Population | None, int]:
+def _alone(base: Scenario, params: tuple[Param, ...], row: np.ndarray, engine,
+           first_error: BarrierflowError) -> tuple[Population | None, int | str]:
     try:
-        return simulate_many([scenario], integrator=engine), 0
+        return simulate_values(base, params, row, integrator=engine), 0
     except BarrierflowError:
         return None, _one_line(first_error)
-
-
-def _stack(parts: list[tuple[Population | None, int | str]]) -> Population:
-    """One population of the subjects' rows (from several runs), a refused subject a failed NaN row."""
-    good = next((p for p, _ in parts if p is not None), None)
-    if good is None:
-        raise ScenarioError.single("population", "every subject", f"the engine refused them: {parts[0][1]}")
-
-    def stack(name: str) -> np.ndarray:
-        ref = getattr(good, name)[:1]
-        return np.concatenate([getattr(p, name)[j:j + 1] if p is not None else np.full_like(ref, np.nan)
-                               for p, j in parts])
-
-    import dataclasses
-
-    status = np.array([p.status[j] if p is not None else -1 for p, j in parts])
-    messages = tuple(p.messages[j] if p is not None else f"the engine refused it: {j}" for p, j in parts)
-    steps = np.array([p.steps[j] if p is not None else 0 for p, j in parts])
-    return dataclasses.replace(
-        good, status=status, messages=messages, steps=steps, factors={}, _conc=stack("_conc"), _quad=stack("_quad"),
-        _flux=stack("_flux"), _area=stack("_area"), _volume=stack("_volume"), _dosed=stack("_dosed"),
-        _removed=stack("_removed"), _content=stack("_content"))
 
 
 def _one_line(err: BaseException) -> str:

@@ -145,6 +145,27 @@ def test_replaced_files_are_released_and_their_readers_keep_the_old_bytes(tmp_pa
     assert csv.read_text(encoding="utf-8") == "a\n6\n" and traces_match(csv)
 
 
+def test_a_sidecar_made_during_the_write_sees_the_csv_complete_and_a_failure_changes_nothing(tmp_path):
+    csv = tmp_path / "out.csv"
+    write_traces(csv, "a\n1\n", _sidecar("a\n1\n"))
+    seen = []
+
+    def sidecar():  # made while the new CSV's temporary file is flushed to disk
+        seen.extend(p.read_text(encoding="utf-8") for p in tmp_path.glob(".out.csv.*.tmp"))
+        return _sidecar("a\n2\n")
+
+    write_traces(csv, "a\n2\n", sidecar)
+    assert seen == ["a\n2\n"] and traces_match(csv) and csv.read_text(encoding="utf-8") == "a\n2\n"
+
+    def failing():
+        raise RuntimeError("the metrics failed")
+
+    with pytest.raises(RuntimeError, match="metrics failed"):
+        write_traces(csv, "a\n3\n", failing)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.csv", "out.json"]
+    assert csv.read_text(encoding="utf-8") == "a\n2\n" and traces_match(csv)
+
+
 def _sidecar(csv_text: str) -> str:
     return json.dumps({"traces": traces_digest(csv_text)})
 

@@ -88,7 +88,7 @@ class MassBalance:
 
     def as_dict(self) -> dict[str, float]:
         """The fields as a plain dict (mg, and the relative error)."""
-        return dataclasses.asdict(self)
+        return _flat_dict(self)
 
 
 @dataclass(frozen=True, eq=False)
@@ -429,7 +429,7 @@ class Result:
         if known is None:  # found once (the traces and the metrics both use it)
             g = self.trajectory.model.grids[b]
             cells = self.trajectory.states[:, g.start:g.stop]
-            if cells.size and cells.min() < 0.0:  # (no copy when nothing is to be clipped)
+            if g.stop > self.trajectory.model.n_dyn or self.most_negative < 0.0:  # (else nothing to clip)
                 cells = np.maximum(cells, 0.0)
             known = self._contents[b] = cells @ self.trajectory.model.capacity[g.start:g.stop]
         return known.copy()
@@ -475,7 +475,7 @@ class Result:
         return BarrierProfile(bid, float(self.times[k]), g.centres.copy(), conc, g.layer_of_cell.copy(),
                               g.interfaces)
 
-    @property
+    @cached_property
     def most_negative(self) -> float:
         """The most negative raw concentration met (mg/mL; 0 when none), before clipping."""
         m = self.trajectory.model
@@ -586,9 +586,9 @@ class Result:
             "scenario": {"name": self.scenario.name, "file": self.scenario.source, "sha256": self.scenario.digest,
                          "toml": self.scenario.to_toml()},
             "solver": {"integrator": tr.integrator, "options": tr.integrator_options, "status": tr.status,
-                       "message": tr.message, "statistics": self.stats, "grid_defaults": dataclasses.asdict(tr.grid)},
+                       "message": tr.message, "statistics": self.stats, "grid_defaults": _flat_dict(tr.grid)},
             "grid": grid,
-            "units": dataclasses.asdict(self.scenario.output_units),
+            "units": _flat_dict(self.scenario.output_units),
             "mass_balance_mg": self.mass_balance.as_dict(),
             "most_negative_concentration_mg_per_mL": self.most_negative,
             "warnings": list(self.warnings()),
@@ -600,8 +600,9 @@ class Result:
     def to_csv(self, path: str | os.PathLike[str] | None = None) -> Path:
         """Write the traces CSV and its JSON sidecar ``<name>.json`` beside it, atomically, as a pair.
 
-        Both texts are made first (a failure leaves no file); then both are written to
-        temporary files and renamed into place, the CSV first and the sidecar last. The sidecar
+        The CSV text is made first and written to a temporary file; the sidecar is made while
+        that file is flushed to disk, then written to its own; only then are both renamed into
+        place, the CSV first and the sidecar last (a failure before leaves no file). The sidecar
         records the CSV's SHA-256 (``traces``), so :func:`barrierflow.io.traces_match` tells
         whether the two belong together, even after a run killed between the renames.
 
@@ -619,7 +620,8 @@ class Result:
             stem = Path(self.scenario.source).stem if self.scenario.source else "barrierflow-run"
             path = Path(f"{stem}.csv")
         csv_text = self.csv_text()
-        return write_traces(path, csv_text, self.sidecar_text(csv_text))
+        # the sidecar is made while the CSV's temporary file is flushed to disk
+        return write_traces(path, csv_text, lambda: self.sidecar_text(csv_text))
 
     def sidecar_text(self, csv_text: str | None = None) -> str:
         """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""
@@ -684,6 +686,14 @@ def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray
     cols += [(f"volume:{c} [mL]", source.volume(c)) for c in cids if c in changing]
     cols += [(f"solid:{c} [{u.amount}]", source.solid(c) * fa) for c in limited_compartments(s)]
     return cols
+
+
+def _flat_dict(x: Any) -> dict[str, Any]:
+    """``dataclasses.asdict`` of a dataclass whose fields are plain values (without its deep copies)."""
+    out = {f.name: getattr(x, f.name) for f in dataclasses.fields(x)}
+    if all(v is None or isinstance(v, str | int | float) for v in out.values()):
+        return out
+    return dataclasses.asdict(x)
 
 
 def _json_default(x: Any) -> Any:

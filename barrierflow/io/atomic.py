@@ -17,6 +17,8 @@ What is promised, and what each step costs (each step that waits for the disk is
   after a crash or a power cut a destination is the old file or the complete new one;
 - after the renames the folder is flushed once (``fsync`` of the folder: the renames survive a
   power cut once the call has returned);
+- a content given as a function is made while the file before it is flushed to disk (in
+  another thread), so that the two overlap; nothing is renamed before both are complete;
 - the files being replaced are released off the caller's path (POSIX): freeing an old file's
   space waits for the disk on some file systems (those that discard freed blocks at once), and
   no promise depends on it, so the old files are opened before the renames and closed by a
@@ -34,9 +36,11 @@ import stat
 import tempfile
 import threading
 import time
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from typing import TextIO
+
+Content = str | bytes | Callable[[], str | bytes]
 
 __all__ = ["atomic_stream", "atomic_write", "atomic_write_together", "remove_stale_temporaries"]
 
@@ -67,7 +71,7 @@ def atomic_write(path: str | os.PathLike[str], data: str | bytes, *, encoding: s
     return atomic_write_together([(path, data)], encoding=encoding)[0]
 
 
-def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | bytes]], *,
+def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]], *,
                           encoding: str = "utf-8") -> list[Path]:
     """Write several files so that each is complete, renaming them into place in the given order.
 
@@ -76,9 +80,14 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
     the others (the sidecar that records the hash of the traces): when it is in place, the
     others are too. After the renames each folder is flushed to disk once.
 
+    A content may be given as a function (no arguments, returning the text or bytes): it is
+    called when the files before it are written, while the last of them is being flushed to
+    disk in another thread, so that making it and waiting for the disk overlap. If it fails,
+    no destination has changed either.
+
     Parameters
     ----------
-    files : sequence of (path-like, str or bytes)
+    files : sequence of (path-like, str, bytes or a function returning one)
         Destinations and their contents, in the order of renaming.
 
     Returns
@@ -90,12 +99,34 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
     _remove_stale(targets)
     temps: list[str] = []
     replaced: list[int] = []
+    flushing: _Flush | None = None  # the file being flushed to disk in another thread
     current = targets[0] if targets else Path(".")
     try:
-        for target, (_, data) in zip(targets, files, strict=True):
+        for i, (target, (_, data)) in enumerate(zip(targets, files, strict=True)):
+            if callable(data):
+                data = data()  # (while the file before it is flushed)
+            if flushing is not None:
+                current = flushing.target
+                flushing.finish()
+                flushing = None
             current = target
             raw = data.encode(encoding) if isinstance(data, str) else data
-            temps.append(_write_temporary(target, raw))
+            tmp, fd = _create_temporary(target)
+            temps.append(tmp)
+            try:
+                _write_all(fd, raw)
+                if i + 1 < len(files) and callable(files[i + 1][1]):
+                    flush = _Flush(fd, target)
+                    try:
+                        flush.start()
+                        flushing = flush
+                    except RuntimeError:  # no thread to be had: flush it here
+                        os.fsync(fd)
+                else:
+                    os.fsync(fd)
+            finally:
+                if flushing is None or flushing.fd != fd:
+                    os.close(fd)
         if os.name == "posix":
             replaced = _open_existing(targets)
         for i, target in enumerate(targets):
@@ -105,6 +136,8 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
         for folder in dict.fromkeys(t.parent for t in targets):
             _sync_folder(folder)
     except BaseException as err:
+        if flushing is not None:
+            flushing.finish(quiet=True)
         for tmp in temps:
             if tmp:
                 try:
@@ -119,6 +152,28 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], str | by
         if replaced:
             _release(replaced)
     return targets
+
+
+class _Flush(threading.Thread):
+    """``os.fsync`` of a written temporary file, in another thread; :meth:`finish` waits, closes
+    the file and raises what the flush raised."""
+
+    def __init__(self, fd: int, target: Path) -> None:
+        super().__init__(name="barrierflow-flush", daemon=True)
+        self.fd, self.target = fd, target
+        self.error: BaseException | None = None
+
+    def run(self) -> None:
+        try:
+            os.fsync(self.fd)  # one call: the disk is waited for without the interpreter's lock
+        except BaseException as err:
+            self.error = err
+
+    def finish(self, quiet: bool = False) -> None:
+        self.join()
+        os.close(self.fd)
+        if self.error is not None and not quiet:
+            raise self.error
 
 
 @contextlib.contextmanager
@@ -158,8 +213,8 @@ def atomic_stream(path: str | os.PathLike[str], *, encoding: str = "utf-8") -> I
                 pass
 
 
-def _write_temporary(target: Path, raw: bytes) -> str:
-    """Write ``raw`` to a new temporary file beside ``target``, flushed to disk; return its path."""
+def _create_temporary(target: Path) -> tuple[str, int]:
+    """A new temporary file beside ``target``, with the mode the destination will have: (path, descriptor)."""
     folder = str(target.parent) or "."
     flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0) | getattr(os, "O_CLOEXEC", 0)
     while True:
@@ -172,26 +227,26 @@ def _write_temporary(target: Path, raw: bytes) -> str:
         except OSError as err:  # name the file the user asked for, not the temporary one
             raise type(err)(err.errno, err.strerror or str(err), str(target)) from None
     try:
+        # the mode of the file it replaces, or the mode a new file normally gets (the umask)
         try:
-            # the mode of the file it replaces, or the mode a new file normally gets (the umask)
-            try:
-                mode = os.stat(target).st_mode & 0o7777
-            except FileNotFoundError:
-                mode = 0o666 & ~_umask()
-            os.chmod(fd if os.chmod in os.supports_fd else tmp, mode)
-            view = memoryview(raw)
-            while view:
-                view = view[os.write(fd, view):]
-            os.fsync(fd)
-        finally:
-            os.close(fd)
+            mode = os.stat(target).st_mode & 0o7777
+        except FileNotFoundError:
+            mode = 0o666 & ~_umask()
+        os.chmod(fd if os.chmod in os.supports_fd else tmp, mode)
     except BaseException:
+        os.close(fd)
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
         raise
-    return tmp
+    return tmp, fd
+
+
+def _write_all(fd: int, raw: bytes) -> None:
+    view = memoryview(raw)
+    while view:
+        view = view[os.write(fd, view):]
 
 
 def remove_stale_temporaries(target: str | os.PathLike[str]) -> list[Path]:

@@ -15,6 +15,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+from collections.abc import Callable
 from pathlib import Path
 
 from .atomic import atomic_write_together
@@ -33,11 +34,13 @@ def traces_digest(csv_text: str | bytes) -> dict[str, object]:
     return {"sha256": hashlib.sha256(raw).hexdigest(), "bytes": len(raw)}
 
 
-def write_traces(csv_path: str | os.PathLike[str], csv_text: str, sidecar_text: str) -> Path:
+def write_traces(csv_path: str | os.PathLike[str], csv_text: str | bytes,
+                 sidecar_text: str | Callable[[], str]) -> Path:
     """Write the traces CSV and its sidecar (which must record ``traces_digest(csv_text)``).
 
     Nothing is replaced until both are complete on disk; then the CSV is renamed into place,
-    then the sidecar.
+    then the sidecar. ``sidecar_text`` may be a function that makes the text: it is called while
+    the CSV's temporary file is being flushed to disk (:func:`~barrierflow.io.atomic_write_together`).
 
     Returns
     -------

@@ -82,8 +82,8 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
 
     A content may be given as a function (no arguments, returning the text or bytes): it is
     called when the files before it are written, while the last of them is being flushed to
-    disk in another thread, so that making it and waiting for the disk overlap. If it fails,
-    no destination has changed either.
+    disk in another thread, so that making it (and writing and flushing the files after it)
+    and waiting for the disk overlap. If it fails, no destination has changed either.
 
     Parameters
     ----------
@@ -99,34 +99,35 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
     _remove_stale(targets)
     temps: list[str] = []
     replaced: list[int] = []
-    flushing: _Flush | None = None  # the file being flushed to disk in another thread
+    flushing: list[_Flush] = []  # files being flushed to disk in other threads
     current = targets[0] if targets else Path(".")
     try:
         for i, (target, (_, data)) in enumerate(zip(targets, files, strict=True)):
             if callable(data):
                 data = data()  # (while the file before it is flushed)
-            if flushing is not None:
-                current = flushing.target
-                flushing.finish()
-                flushing = None
             current = target
             raw = data.encode(encoding) if isinstance(data, str) else data
             tmp, fd = _create_temporary(target)
             temps.append(tmp)
+            owned = False
             try:
                 _write_all(fd, raw)
                 if i + 1 < len(files) and callable(files[i + 1][1]):
                     flush = _Flush(fd, target)
                     try:
                         flush.start()
-                        flushing = flush
+                        flushing.append(flush)
+                        owned = True
                     except RuntimeError:  # no thread to be had: flush it here
                         os.fsync(fd)
                 else:
                     os.fsync(fd)
             finally:
-                if flushing is None or flushing.fd != fd:
+                if not owned:
                     os.close(fd)
+        while flushing:  # every file complete on disk before the first rename
+            current = flushing[0].target
+            flushing.pop(0).finish()
         if os.name == "posix":
             replaced = _open_existing(targets)
         for i, target in enumerate(targets):
@@ -136,8 +137,8 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
         for folder in dict.fromkeys(t.parent for t in targets):
             _sync_folder(folder)
     except BaseException as err:
-        if flushing is not None:
-            flushing.finish(quiet=True)
+        for flush in flushing:
+            flush.finish(quiet=True)
         for tmp in temps:
             if tmp:
                 try:

@@ -226,6 +226,33 @@ def parse_either(raw: Any, spec: FieldSpec, molar_mass: float | None) -> tuple[s
         raise UnitsError(err.value, expected, err.field) from None
 
 
+@dataclass(frozen=True)
+class _Shape:
+    """What :func:`build` needs to know of a class and its specs, found once per class."""
+
+    specs: tuple[FieldSpec, ...]
+    by_key: dict[str, FieldSpec]
+    key_of_attr: dict[str, str]
+    names: tuple[str, ...]  # every field of the class
+    without_default: tuple[str, ...]  # the constructor arguments without a default
+
+
+_SHAPES: dict[type, _Shape] = {}
+
+
+def _shape(cls: type, specs: tuple[FieldSpec, ...]) -> _Shape:
+    known = _SHAPES.get(cls)
+    if known is not None and known.specs is specs:
+        return known
+    fs = dataclasses.fields(cls)
+    shape = _Shape(specs, {s.key: s for s in specs}, {s.attr: s.key for s in with_per_area(specs)},
+                   tuple(f.name for f in fs),
+                   tuple(f.name for f in fs if f.init and f.default is dataclasses.MISSING
+                         and f.default_factory is dataclasses.MISSING))
+    _SHAPES[cls] = shape
+    return shape
+
+
 def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
           molar_mass: float | None = None, python: bool = False, extra: Mapping[str, Any] | None = None):
     """Build ``cls`` from a mapping of raw values, reporting every problem at once.
@@ -252,8 +279,10 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
         With one problem per unknown key, unreadable value, missing key or failed check; field
         paths are relative (the caller prefixes them).
     """
-    by_key = {s.key: s for s in specs}
+    shape = _shape(cls, specs)
+    by_key = shape.by_key
     if python:
+        by_key = dict(by_key)
         by_key.update({s.attr: s for s in specs})
         by_key.update({s.per_area: s.per_area_spec for s in specs if s.per_area is not None})
     problems: list[Problem] = []
@@ -290,22 +319,22 @@ def build(cls: type, specs: tuple[FieldSpec, ...], raw: Mapping[str, Any], *,
             problems.append(Problem(spec.key, "nothing", f"this key is required{example}", path=spec.key))
     failed = {p.field for p in problems}
     # constructor arguments without a default (an exchange's id, say) that are still missing
-    key_of_attr = {s.attr: s.key for s in with_per_area(specs)}
-    for f in dataclasses.fields(cls):
-        if (f.init and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
-                and f.name not in values and key_of_attr.get(f.name, f.name) not in failed):
-            key = key_of_attr.get(f.name, f.name)
+    key_of_attr = shape.key_of_attr
+    for name in shape.without_default:
+        if name not in values and key_of_attr.get(name, name) not in failed:
+            key = key_of_attr.get(name, name)
             problems.append(Problem(key, "nothing", "this key is required", path=key))
     failed = {p.field for p in problems}
     # Fields that could not be read, or are missing, stand in as placeholders so that the
     # object's own checks still run on every other field: all the problems of a layer are
     # reported at once. The checks leave the placeholders alone (see Checker and UNREAD).
     unread = {s.attr for s in specs if s.key in failed}
-    unread |= {f.name for f in dataclasses.fields(cls) if f.name in failed}
-    spec_of = {s.attr: s for s in specs}
-    for f in dataclasses.fields(cls):
-        if f.init and f.name in unread:
-            values[f.name] = _placeholder(spec_of.get(f.name), f.name)
+    unread |= {name for name in shape.names if name in failed}
+    if unread:
+        spec_of = {s.attr: s for s in specs}
+        for f in dataclasses.fields(cls):
+            if f.init and f.name in unread:
+                values[f.name] = _placeholder(spec_of.get(f.name), f.name)
     token = UNREAD.set(frozenset(unread))
     try:
         built = cls(**values)

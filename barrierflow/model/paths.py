@@ -868,6 +868,17 @@ def _unit_of(raw: str) -> str:
     return raw[m.end():].strip() if m else ""
 
 
+_DIMENSIONAL: dict[int, tuple[tuple[FieldSpec, ...], tuple[FieldSpec, ...]]] = {}
+
+
+def _dimensional(specs: tuple[FieldSpec, ...]) -> tuple[FieldSpec, ...]:
+    """The specs of quantities with a unit, in order (found once per tuple of specs)."""
+    known = _DIMENSIONAL.get(id(specs))
+    if known is None or known[0] is not specs:
+        known = _DIMENSIONAL[id(specs)] = (specs, tuple(s for s in specs if s.kind in KINDS))
+    return known[1]
+
+
 def units_written(doc: Mapping[str, Any], parts: Mapping[str, Sequence[Any]]) -> tuple[tuple[str, str], ...]:
     """The unit of every dimensional value of a scenario document, by parameter path.
 
@@ -889,9 +900,9 @@ def units_written(doc: Mapping[str, Any], parts: Mapping[str, Sequence[Any]]) ->
     def scan(at: str, table: Any, specs: tuple[FieldSpec, ...]) -> None:
         if not isinstance(table, Mapping):
             return
-        for spec in specs:
+        for spec in _dimensional(specs):
             raw = table.get(spec.key)
-            if spec.kind in KINDS and isinstance(raw, str):
+            if isinstance(raw, str):
                 unit = _unit_of(raw)
                 if unit:
                     out.append((f"{at}.{spec.key}", unit))

@@ -94,6 +94,7 @@ def _write_rows(data, digits, out, left, at):  # pragma: no cover - compiled (te
     byte position where its text belongs.
     """
     rows, cols = data.shape
+    bits = data.view(np.int64)  # (data is C-contiguous: csv_rows makes it so)
     pow10 = np.empty(23)
     p = 1.0
     for i in range(23):
@@ -126,7 +127,8 @@ def _write_rows(data, digits, out, left, at):  # pragma: no cover - compiled (te
                 r = np.uint64(0)
                 e = 0
                 if 1e-300 <= ax <= 1e300:
-                    e = int(math.floor((math.frexp(ax)[1] - 1) * _LOG10_2))  # the decimal exponent, or one less
+                    # the binary exponent from the bits (ax is normal here), then the decimal one, or one less
+                    e = int(math.floor((((bits[i, j] >> 52) & 0x7FF) - 1023) * _LOG10_2))
                     for _attempt in range(3):
                         k = digits - 1 - e
                         s = ax

@@ -22,13 +22,17 @@ elimination needs no pivoting. It is *twisted*: eliminated from both ends of a b
 its middle cell, so that the two dependent chains of multiply-adds run side by side and a
 solve takes about half the latency of the one-way (Thomas) sweep.
 
-For a linear model (no saturable elimination) the rates are affine, f(Y) = f(y) + J (Y - y),
-and each solved stage gives J k_j = fac k_j - r_j (r_j its right-hand side): the stages after
-the first need no evaluation of the rates, only vector sums. So does the next step's first
-stage, f(y_new) = fac k_6 - sum_j (c_6j / h) k_j; carried from step to step, though, its
-rounding builds up over a long interval and shows in the mass balance (1e-10 after 200 steps,
-1e-9 after 7,800), so the rates are evaluated afresh every ``REFRESH`` (8) steps, which keeps the mass
-balance at round-off (6e-14 and 3e-14 in the two long-interval cases of
+The rates are affine in every state but the concentrations under saturable elimination:
+f(Y) = f(y) + J (Y - y) + e(Y), where J is the Jacobian at y and the excess e(Y) = N(Y) - N(y) -
+N'(y) (Y - y) of the saturable terms N is non-zero only in the rows of those compartments and
+of what they eliminate, and depends only on their concentrations (zero for a linear model).
+Each solved stage gives J k_j = fac k_j - r_j (r_j its right-hand side), so the stages after
+the first need no evaluation of the rates over the cells, only vector sums and the excess at a
+few entries (the same numbers in exact arithmetic). So does the next step's first stage,
+f(y_new) = fac k_6 - sum_j (c_6j / h) k_j + e(y_new) - e(Y_6); carried from step to step,
+though, its rounding builds up over a long interval and shows in the mass balance (1e-10 after
+200 steps, 1e-9 after 7,800), so the rates are evaluated afresh every ``REFRESH`` (8) steps,
+which keeps the mass balance at round-off (6e-14 and 3e-14 in the two long-interval cases of
 ``tests/test_engine_paths.py``, which fail above 1e-12).
 
 Every kernel takes arrays and numbers only and is cached on disk (``cache=True``). Two habits
@@ -74,7 +78,7 @@ D21, D22, D23, D24, D25 = (10.12623508344586, -7.487995877610167, -34.8009186155
 D31, D32, D33, D34, D35 = (-0.6762803392801253, 6.087714651680015, 16.43084320892478, 24.76722511418386,
                            -6.594389125716872)
 
-# a linear model's rates are evaluated afresh every REFRESH steps (see the module docstring)
+# the rates are evaluated afresh every REFRESH steps (see the module docstring)
 REFRESH = 8
 
 # an interval shorter than this (h) takes one explicit step: its rates times its length are
@@ -217,6 +221,32 @@ def _add_nonlinear(y, m, clamp, rows, cols, vals, jcc, jcc_lin, qr, qc, qv, nq_l
         else:
             jcc[r, cols[i]] += vals[i]
     return nq
+
+
+@njit(inline="always", error_model="numpy")
+def _add_excess(out, z, y, m, clamp, sign):
+    """Add ``sign`` times the excess e(z) = N(z) - N(y) - N'(y) (z - y) of the saturable terms N
+    (as :func:`~barrierflow.engine.kernels.rates_kernel` writes them) to the rates ``out``.
+
+    Reads ``z`` and ``y`` at the saturable compartments only; e(y) is exactly zero (the same
+    expression twice). A clamped compartment's part goes to its supply, as in the rate kernel.
+    """
+    nd = m.n_dyn
+    mm_s = m.mm_state
+    mm_v = m.mm_vmax
+    mm_k = m.mm_km
+    for k in range(mm_s.shape[0]):
+        p = mm_s[k]
+        c0 = y[p]
+        c = z[p]
+        den0 = mm_k[k] + abs(c0)
+        e = sign * (mm_v[k] * c / (mm_k[k] + abs(c)) - mm_v[k] * c0 / den0
+                    - mm_v[k] * mm_k[k] / (den0 * den0) * (c - c0))
+        out[nd + p] += e
+        if clamp[p]:
+            out[m.q_supply + p] += e
+        else:
+            out[p] -= e * m.inv_capacity[p]
 
 
 # ---------------------------------------------------------------- compiled linear algebra
@@ -567,7 +597,8 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
     n = y.shape[0]
     nc = m.n_comp
     nd = m.n_dyn
-    linear = m.mm_state.shape[0] == 0
+    mm_s = m.mm_state
+    linear = mm_s.shape[0] == 0
     n_out = t_out.shape[0]
     io = 0
     while io < n_out and t_out[io] <= 0.0:
@@ -637,7 +668,7 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
         if t + 1.0001 * h >= t_end:
             h = t_end - t
             last = True
-        if not first and not (linear and n_steps % REFRESH != 0):
+        if not first and n_steps % REFRESH == 0:
             rates_kernel(y, f0, m, infusion, clamp, u)
             stats[ST_RHS] += 1
         if not have_jac:
@@ -674,10 +705,10 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
                 if s == 0:
                     for i in range(n):
                         ks[i] = f0[i]
-                elif linear:
-                    # f is affine, f(Y) = f(y) + J (Y - y), and each earlier stage solved
-                    # M k_j = r_j with M = fac I - J, so J k_j = fac k_j - r_j: the stage's
-                    # right-hand side needs no evaluation of the rates
+                else:
+                    # f(Y) = f(y) + J (Y - y) + e(Y), and each earlier stage solved M k_j = r_j
+                    # with M = fac I - J, so J k_j = fac k_j - r_j: the stage's right-hand side
+                    # needs no evaluation of the rates, only the excess e at the saturable entries
                     for i in range(n):
                         ks[i] = f0[i]
                     for j in range(s):
@@ -685,32 +716,25 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
                         b = a * fac + cc[s, j] * ih
                         for i in range(n):
                             ks[i] += b * kk[j, i] - a * rr[j, i]
-                else:
-                    for i in range(n):
-                        ya[i] = y[i]
-                    for j in range(s):
-                        a = ca[s, j]
-                        for i in range(n):
-                            ya[i] += a * kk[j, i]
-                    rates_kernel(ya, ks, m, infusion, clamp, u)
-                    for j in range(s):
-                        a = cc[s, j] * ih
-                        for i in range(n):
-                            ks[i] += a * kk[j, i]
-                if linear and s < 5:
+                    if not linear:
+                        for jm in range(mm_s.shape[0]):
+                            p = mm_s[jm]
+                            z = y[p]
+                            for j in range(s):
+                                z += ca[s, j] * kk[j, p]
+                            ya[p] = z
+                        _add_excess(ks, ya, y, m, clamp, 1.0)
+                if s < 5:
                     for i in range(n):
                         rr[s, i] = ks[i]
                 _solve(ks, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq)
-            if linear:
-                # the last stage's point (y + sum a_6j k_j), which the new solution builds on
+            # the last stage's point (y + sum a_6j k_j), which the new solution builds on
+            for i in range(n):
+                ya[i] = y[i]
+            for j in range(5):
+                a = ca[5, j]
                 for i in range(n):
-                    ya[i] = y[i]
-                for j in range(5):
-                    a = ca[5, j]
-                    for i in range(n):
-                        ya[i] += a * kk[j, i]
-            else:
-                stats[ST_RHS] += 5
+                    ya[i] += a * kk[j, i]
             # new solution and error estimate (k6 is the difference of the two solutions)
             err = 0.0
             k6 = kk[5]
@@ -768,16 +792,19 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
                         # y + s (yn - y) + s (1 - s) (...): a state that does not move stays exact
                         out[io, i] = y[i] + s * ((yn[i] - y[i]) + s1 * (c2[i] + s * c3[i]))
                 io += 1
-        if linear and (n_steps + 1) % REFRESH != 0:
+        if (n_steps + 1) % REFRESH != 0:
             # the rates at the new solution from the stage equations, f(y) + J (y_new - y) =
-            # fac k_6 - sum_j (c_6j / h) k_j; the next step evaluates them afresh instead when
-            # it is a multiple of REFRESH (above)
+            # fac k_6 - sum_j (c_6j / h) k_j - e(Y_6), plus e(y_new); the next step evaluates them
+            # afresh instead when it is a multiple of REFRESH (above)
             for i in range(n):
                 f0[i] = fac * kk[5, i]
             for j in range(5):
                 a = cc[5, j] * ih
                 for i in range(n):
                     f0[i] -= a * kk[j, i]
+            if not linear:
+                _add_excess(f0, yn, y, m, clamp, 1.0)
+                _add_excess(f0, ya, y, m, clamp, -1.0)
         for i in range(n):
             y[i] = yn[i]
         t = t_new

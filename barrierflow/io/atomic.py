@@ -113,13 +113,8 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
             try:
                 _write_all(fd, raw)
                 if i + 1 < len(files) and callable(files[i + 1][1]):
-                    flush = _Flush(fd, target)
-                    try:
-                        flush.start()
-                        flushing.append(flush)
-                        owned = True
-                    except RuntimeError:  # no thread to be had: flush it here
-                        os.fsync(fd)
+                    flushing.append(_Flush(fd, target))
+                    owned = True
                 else:
                     os.fsync(fd)
             finally:
@@ -155,26 +150,85 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
     return targets
 
 
-class _Flush(threading.Thread):
-    """``os.fsync`` of a written temporary file, in another thread; :meth:`finish` waits, closes
-    the file and raises what the flush raised."""
+class _Worker:
+    """A thread of this process that makes blocking calls (a flush to disk, the closing of a
+    replaced file) for the caller, started when first needed (again in a forked child).
 
-    def __init__(self, fd: int, target: Path) -> None:
-        super().__init__(name="barrierflow-flush", daemon=True)
-        self.fd, self.target = fd, target
+    A thread started for each call would cost its start, which on a busy machine takes
+    milliseconds; this one waits for work instead.
+    """
+
+    def __init__(self, name: str) -> None:
+        self.name = name
+        self.jobs: queue.SimpleQueue[_Job] = queue.SimpleQueue()
+        self.pid = 0
+        self.lock = threading.Lock()
+
+    def submit(self, job: _Job) -> bool:
+        """Hand ``job`` over; False when no thread can be had (the caller then does it)."""
+        with self.lock:
+            if self.pid != os.getpid():
+                jobs: queue.SimpleQueue[_Job] = queue.SimpleQueue()
+                try:
+                    threading.Thread(target=_serve, args=(jobs,), name=self.name, daemon=True).start()
+                except RuntimeError:  # the interpreter is ending
+                    return False
+                self.jobs, self.pid = jobs, os.getpid()
+        self.jobs.put(job)
+        return True
+
+
+class _Job:
+    """One call for a :class:`_Worker`; ``started`` (optional) is set just before the call."""
+
+    __slots__ = ("call", "args", "started", "done", "error")
+
+    def __init__(self, call: Callable[..., object], *args: object, started: bool = False) -> None:
+        self.call, self.args = call, args
+        self.started = threading.Event() if started else None
+        self.done = threading.Event()
         self.error: BaseException | None = None
 
-    def run(self) -> None:
+
+def _serve(jobs: queue.SimpleQueue[_Job]) -> None:
+    while True:
+        job = jobs.get()
+        if job.started is not None:
+            job.started.set()
         try:
-            os.fsync(self.fd)  # one call: the disk is waited for without the interpreter's lock
-        except BaseException as err:
-            self.error = err
+            job.call(*job.args)
+        except BaseException as err:  # handed to whoever waits for the job
+            job.error = err
+        job.done.set()
+
+
+_FLUSHER = _Worker("barrierflow-flush")
+_RELEASER = _Worker("barrierflow-release")
+
+
+class _Flush:
+    """``os.fsync`` of a written temporary file in the flushing thread, begun before this returns;
+    :meth:`finish` waits for it, closes the file and raises what the flush raised."""
+
+    def __init__(self, fd: int, target: Path) -> None:
+        self.fd, self.target = fd, target
+        self.job = _Job(os.fsync, fd, started=True)
+        if _FLUSHER.submit(self.job):
+            # let the thread begin the flush now (one call that waits for the disk without the
+            # interpreter's lock), rather than when this thread next lets the lock go
+            self.job.started.wait()  # type: ignore[union-attr]
+        else:
+            try:
+                os.fsync(fd)
+            except BaseException as err:
+                self.job.error = err
+            self.job.done.set()
 
     def finish(self, quiet: bool = False) -> None:
-        self.join()
+        self.job.done.wait()
         os.close(self.fd)
-        if self.error is not None and not quiet:
-            raise self.error
+        if self.job.error is not None and not quiet:
+            raise self.job.error
 
 
 @contextlib.contextmanager
@@ -345,34 +399,11 @@ def _open_existing(targets: Sequence[Path]) -> list[int]:
     return fds
 
 
-_RELEASE: queue.SimpleQueue[int] = queue.SimpleQueue()
-_RELEASER_PID = 0
-_RELEASER_LOCK = threading.Lock()
-
-
 def _release(fds: list[int]) -> None:
-    """Close the descriptors of replaced files in a background thread (freeing their space there)."""
-    global _RELEASER_PID
-    with _RELEASER_LOCK:
-        if _RELEASER_PID != os.getpid():  # none yet in this process (or a forked child's copy)
-            try:
-                threading.Thread(target=_releaser, name="barrierflow-release", daemon=True).start()
-            except RuntimeError:  # no new thread (the interpreter is ending): close them here
-                for fd in fds:
-                    os.close(fd)
-                return
-            _RELEASER_PID = os.getpid()
+    """Close the descriptors of replaced files in the releasing thread (freeing their space there)."""
     for fd in fds:
-        _RELEASE.put(fd)
-
-
-def _releaser() -> None:
-    while True:
-        fd = _RELEASE.get()
-        try:
+        if not _RELEASER.submit(_Job(os.close, fd)):
             os.close(fd)
-        except OSError:
-            pass
 
 
 def _umask() -> int:

@@ -129,6 +129,10 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
             current = target
             os.replace(temps[i], target)
             temps[i] = ""
+        # the replaced files are released while this thread waits for the folder's flush (so the
+        # releasing thread rarely needs the interpreter's lock while this one runs)
+        _release(replaced)
+        replaced = []
         for folder in dict.fromkeys(t.parent for t in targets):
             _sync_folder(folder)
     except BaseException as err:

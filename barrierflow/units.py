@@ -676,11 +676,13 @@ def format_quantity(value: float, kind: str, unit: str | tuple[str, ...] | None 
     for u in units:
         number = value if u == internal else _tidy(convert(value, kind, u))
         text = f"{_num(number)} {u}"
+        if best is not None and len(text) > len(best) - 3:
+            continue  # it could not win: no need to read it back
         try:
             exact = parse_quantity(text, kind) == value
         except UnitsError:
             exact = False
-        if exact and (best is None or len(text) <= len(best) - 3):
+        if exact:
             best = text
     return best if best is not None else f"{_num(value)} {internal}"
 

@@ -554,14 +554,14 @@ class Result:
             buf.write(csv_rows(np.column_stack([v for _, v in cols])))
         return buf.getvalue()
 
-    def sidecar(self, csv_text: str | None = None) -> dict[str, Any]:
+    def sidecar(self, csv_text: str | bytes | None = None) -> dict[str, Any]:
         """The JSON sidecar: scenario, software version, solver settings, grid, mass balance, and
         the SHA-256 of the traces CSV it belongs with (key ``traces``).
 
         Parameters
         ----------
-        csv_text : str, optional
-            The CSV text (:meth:`csv_text`), when already made.
+        csv_text : str or bytes, optional
+            The CSV text (:meth:`csv_text`, or its UTF-8 bytes), when already made.
         """
         from .. import __version__
 
@@ -619,11 +619,11 @@ class Result:
         if path is None:
             stem = Path(self.scenario.source).stem if self.scenario.source else "barrierflow-run"
             path = Path(f"{stem}.csv")
-        csv_text = self.csv_text()
+        raw = self.csv_text().encode("utf-8")
         # the sidecar is made while the CSV's temporary file is flushed to disk
-        return write_traces(path, csv_text, lambda: self.sidecar_text(csv_text))
+        return write_traces(path, raw, lambda: self.sidecar_text(raw))
 
-    def sidecar_text(self, csv_text: str | None = None) -> str:
+    def sidecar_text(self, csv_text: str | bytes | None = None) -> str:
         """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""
         from ..io.json_text import indented_json
 

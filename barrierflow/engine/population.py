@@ -268,8 +268,8 @@ class Population:
 # (n_sub, n_ev) each subject's own values.
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol, atol_rel, max_steps,
-                    hold, keep, n_out, w, out, out_dosed, out_removed, cell_bar, content, low, rel, status, fail_k,
-                    stats):
+                    hold, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status,
+                    fail_k, stats):
     n_sub = ev_values.shape[0]
     n = stack.y0.shape[1]
     n_t = times.shape[0]
@@ -296,13 +296,13 @@ def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, 
         fail_k[i] = k
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, n_out, w, base, out[i], out_dosed[i], out_removed[i], cell_bar, content[i],
-                   low, rel, i)
+        _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i], out_removed[i],
+                   content[i], low, rel, i)
 
 
 @njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, n_out, w, out, out_dosed,
-                          out_removed, cell_bar, content, low, rel, status, stats):
+def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, n_out, w, bar_lo, bar_hi,
+                          out, out_dosed, out_removed, content, low, rel, status, stats):
     n_sub = ev_values.shape[0]
     n = stack.y0.shape[1]
     n_t = times.shape[0]
@@ -320,41 +320,51 @@ def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, 
                                    st)
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, n_out, w, base, out[i], out_dosed[i], out_removed[i], cell_bar, content[i],
-                   low, rel, i)
+        _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i], out_removed[i],
+                   content[i], low, rel, i)
 
 
 @njit(**INNER)
-def _keep_rows(states, evd, evr, keep, n_out, w, m, out, out_dosed, out_removed, cell_bar, content, low, rel, i):
+def _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, m, out, out_dosed, out_removed, content, low, rel, i):
     """Copy the kept columns of one subject, with what its check needs: the lowest concentration
     relative to its state's scale (into ``low[i]``) and the relative error of its ledger (into
     ``rel[i]``, :func:`~barrierflow.engine.ledger.relative_error_of`); and the amount in each
-    barrier's cells, negative concentrations counted as 0 (``content``, as
-    :meth:`barrierflow.analysis.Result.content`)."""
+    barrier's cells (states ``bar_lo[b]`` to ``bar_hi[b] - 1``), negative concentrations counted
+    as 0 (``content``, as :meth:`barrierflow.analysis.Result.content`)."""
     nc = m.n_comp
     nd = m.n_dyn
     cap = m.capacity
     scale = m.scale
     lo = 0.0
-    cells = np.empty(states.shape[0])
-    for r in range(states.shape[0]):
+    n_t = states.shape[0]
+    cells = np.empty(n_t)
+    for r in range(n_t):
+        row = states[r]
+        dst = out[r]
         for j in range(keep.shape[0]):
-            out[r, j] = states[r, keep[j]]
+            dst[j] = row[keep[j]]
         for p in range(nc):
             out_dosed[r, p] = evd[r, p]
             out_removed[r, p] = evr[r, p]
-        for b in range(content.shape[1]):
-            content[r, b] = 0.0
+            v = row[p]
+            if v < 0.0:  # only a negative value can lower the lowest (which starts at 0)
+                z = v / scale[p]
+                if z < lo:
+                    lo = z
         acc = 0.0
-        for j in range(nd):
-            v = states[r, j]
-            if j >= nc:
-                acc += v * cap[j]
+        for b in range(bar_lo.shape[0]):
+            pos = 0.0
+            for j in range(bar_lo[b], bar_hi[b]):
+                v = row[j]
+                a = v * cap[j]
+                acc += a
                 if v > 0.0:
-                    content[r, cell_bar[j - nc]] += v * cap[j]
-            z = v / scale[j]
-            if z < lo:
-                lo = z
+                    pos += a
+                elif v < 0.0:
+                    z = v / scale[j]
+                    if z < lo:
+                        lo = z
+            content[r, b] = pos
         cells[r] = acc
     low[i] = lo
     rel[i] = relative_error_of(out[:, :nc], cells, out[:, nc + n_out:], out_dosed, out_removed, cap, m.has_volume,
@@ -653,9 +663,8 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     out = np.empty((n_sub, n_t, len(keep)))
     out_dosed = np.zeros((n_sub, n_t, nc))
     out_removed = np.zeros((n_sub, n_t, nc))
-    cell_bar = np.zeros(m0.n_cells, dtype=np.int64)  # the barrier of each cell
-    for b, g in enumerate(m0.grids):
-        cell_bar[g.start - nc:g.stop - nc] = b
+    bar_lo = np.array([g.start for g in m0.grids], dtype=np.int64)  # each barrier's cell states
+    bar_hi = np.array([g.stop for g in m0.grids], dtype=np.int64)
     content = np.zeros((n_sub, n_t, m0.n_bar))
     low = np.zeros(n_sub)
     rel = np.zeros(n_sub)
@@ -672,14 +681,14 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
         if order is not None:
             name = "exact (population)"
             _run_population_exact(marks, times, ev, ev_v, arrays, work, order, -60.0 / _shortest_time(times, marks),
-                                  n_jac, keep, n_out, w, out, out_dosed, out_removed, cell_bar, content, low, rel,
-                                  status, stats)
+                                  n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low,
+                                  rel, status, stats)
         else:
             name = f"{integ.name} (population)"
             struct = build_structure(m0)
             _run_population(marks, times, ev, ev_v, arrays, work, struct.args(), COEF, struct.n_w, n_jac,
                             float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), keep, n_out, w,
-                            out, out_dosed, out_removed, cell_bar, content, low, rel, status, fail_k, stats)
+                            bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, fail_k, stats)
     finally:
         numba.set_num_threads(old_threads)
     _apply_at_end_kept(batch, keep, status, out, out_dosed, out_removed)

@@ -140,7 +140,7 @@ def _rows_at(t: np.ndarray, times: Sequence[float]) -> list[int]:
     tol = 1e-9 * max(abs(float(t[-1])), 1.0)
     out = []
     for s in times:
-        j = int(np.searchsorted(t, s - tol))
+        j = int(t.searchsorted(s - tol))
         if j < len(t) and abs(t[j] - s) <= tol:
             out.append(j)
     return sorted(set(out))
@@ -242,8 +242,8 @@ def _auc_between(t: np.ndarray, c: np.ndarray, cl: np.ndarray, cum: np.ndarray, 
     if hi <= lo:
         return 0.0
     tol = 1e-12 * max(abs(float(t[-1])), 1.0)
-    i = int(np.searchsorted(t, lo - tol))           # first row >= lo
-    k = int(np.searchsorted(t, hi + tol, "right")) - 1   # last row <= hi
+    i = int(t.searchsorted(lo - tol))           # first row >= lo
+    k = int(t.searchsorted(hi + tol, "right")) - 1   # last row <= hi
     if abs(t[i] - lo) <= tol:
         lo = float(t[i])
     if abs(t[k] - hi) <= tol:

@@ -210,6 +210,18 @@ _FLUSHER = _Worker("barrierflow-flush")
 _RELEASER = _Worker("barrierflow-release")
 
 
+def _after_fork() -> None:
+    # a forked child has none of the parent's threads, and a lock held by one of them at the
+    # fork would stay held: the child starts its own workers, with new locks
+    for worker in (_FLUSHER, _RELEASER):
+        worker.lock = threading.Lock()
+        worker.pid = 0
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_after_fork)
+
+
 class _Flush:
     """``os.fsync`` of a written temporary file in the flushing thread, begun before this returns;
     :meth:`finish` waits for it, closes the file and raises what the flush raised."""

@@ -674,6 +674,8 @@ def format_quantity(value: float, kind: str, unit: str | tuple[str, ...] | None 
     units = units + tuple(u for u in (*extra, internal) if u not in units)
     best = None
     for u in units:
+        if best is not None and len(u) + 2 > len(best) - 3:
+            continue  # even one digit in this unit could not win
         number = value if u == internal else _tidy(convert(value, kind, u))
         text = f"{_num(number)} {u}"
         if best is not None and len(text) > len(best) - 3:

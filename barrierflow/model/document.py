@@ -199,10 +199,13 @@ def _nesting(doc: Mapping[str, Any]) -> str | None:
 
 
 def _default(cls: type, attr: str) -> Any:
-    for f in dataclasses.fields(cls):
-        if f.name == attr:
-            return f.default
-    return None
+    defaults = _DEFAULTS.get(cls)
+    if defaults is None:  # (found once per class)
+        defaults = _DEFAULTS[cls] = {f.name: f.default for f in dataclasses.fields(cls)}
+    return defaults.get(attr)
+
+
+_DEFAULTS: dict[type, dict[str, Any]] = {}
 
 
 def _put(table: dict[str, Any], obj: Any, specs: tuple[FieldSpec, ...]) -> dict[str, Any]:

@@ -19,8 +19,9 @@ rounding). For each it prints the median and the minimum wall time over repeated
 warm-up, the steps taken, the errors against the reference (central concentration relative to
 its peak, cumulative amount absorbed relative to its final value; the contract asks 1e-5 and
 1e-6) and the ratios; the parts of the file-to-traces path (reading, simulating, the CSV text, the
-sidecar, the writing). Then the warm start (new processes), the first-ever compile time and a
-population of 1,000 subjects; and the first use from an empty cache: the set-up (``barrierflow
+sidecar, the writing). Then the warm start (new processes), the first-ever compile time, a
+population of 1,000 subjects and the memory per subject of a population study asked for metrics
+and bands only (new processes); the targets table; and the first use from an empty cache: the set-up (``barrierflow
 prepare``) and the first result after it, of a run and of the dashboard (``--cold``: the same from
 a fresh clone, installation included). Speed is judged on ratios: absolute times are noisy on a shared
 2-core machine.

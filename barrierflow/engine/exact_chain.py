@@ -63,34 +63,54 @@ def _chain_order(model: CompiledModel) -> np.ndarray | None:
     b, c = m.link_b, m.link_c
     if np.any(np.abs(b - c) > 1e-12 * np.maximum(np.abs(b), np.abs(c))):
         return None
-    alive = [True] * nd
-    for i, h in enumerate(m.held.tolist()):
-        alive[i] = not h
-    nbrs: list[list[int]] = [[] for _ in range(nd)]
-    for a, z in zip(m.link_p.tolist(), m.link_q.tolist(), strict=True):
-        if a != z and alive[a] and alive[z] and z not in nbrs[a]:
-            if len(nbrs[a]) == 2 or len(nbrs[z]) == 2:
-                return None  # a third neighbour: not a chain
-            nbrs[a].append(z)
-            nbrs[z].append(a)
-    seen = [False] * nd
-    order: list[int] = []
-    for start in range(nd):
-        if not alive[start] or seen[start] or len(nbrs[start]) == 2:
+    order = _chain_walk(nd, m.held, m.link_p, m.link_q)
+    return order if len(order) == 0 or order[0] >= 0 else None
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _chain_walk(nd, held, link_p, link_q):
+    """The dynamic states (``nd``) not held (``held``: of the compartments) in chain order, walking
+    each chain from an end; ``[-1]`` when a state has a third neighbour or the links close a loop."""
+    nbr = np.full((nd, 2), -1, dtype=np.int64)
+    off = np.zeros(nd, dtype=np.bool_)
+    for i in range(held.shape[0]):
+        off[i] = held[i]
+    alive = 0
+    for i in range(nd):
+        if not off[i]:
+            alive += 1
+    for j in range(link_p.shape[0]):
+        a = link_p[j]
+        z = link_q[j]
+        if a == z or off[a] or off[z] or nbr[a, 0] == z or nbr[a, 1] == z:
             continue
-        prev, cur = -1, start
+        if nbr[a, 1] >= 0 or nbr[z, 1] >= 0:
+            return np.full(1, -1, dtype=np.int64)  # a third neighbour: not a chain
+        nbr[a, 0 if nbr[a, 0] < 0 else 1] = z
+        nbr[z, 0 if nbr[z, 0] < 0 else 1] = a
+    seen = np.zeros(nd, dtype=np.bool_)
+    order = np.empty(alive, dtype=np.int64)
+    k = 0
+    for start in range(nd):
+        if off[start] or seen[start] or nbr[start, 1] >= 0:
+            continue
+        prev = -1
+        cur = start
         while cur >= 0 and not seen[cur]:
             seen[cur] = True
-            order.append(cur)
+            order[k] = cur
+            k += 1
             nxt = -1
-            for k in nbrs[cur]:
-                if k != prev and not seen[k]:
-                    nxt = k
+            for e in range(2):
+                c = nbr[cur, e]
+                if c >= 0 and c != prev and not seen[c]:
+                    nxt = c
                     break
-            prev, cur = cur, nxt
-    if len(order) != sum(alive):  # a loop
-        return None
-    return np.array(order, dtype=np.int64)
+            prev = cur
+            cur = nxt
+    if k != alive:  # a loop
+        return np.full(1, -1, dtype=np.int64)
+    return order
 
 
 # ---------------------------------------------------------------- the chain matrix
@@ -222,6 +242,53 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
 
 
 @njit(**INNER)
+def _part_norms(dd, ee, n):
+    """(tnorm, upper, pivmin) of the tridiagonal (dd, ee) of size n: the largest absolute row sum,
+    Gershgorin's upper bound of the eigenvalues, and the smallest pivot of the Sturm counts."""
+    tnorm = 0.0
+    upper = -np.inf
+    for i in range(n):
+        r = abs(dd[i])
+        g = dd[i]
+        if i > 0:
+            r += abs(ee[i - 1])
+            g += abs(ee[i - 1])
+        if i + 1 < n:
+            r += abs(ee[i])
+            g += abs(ee[i])
+        tnorm = max(tnorm, r)
+        upper = max(upper, g)
+    pivmin = 1e-300 + 2.2e-16 * 2.2e-16 * tnorm
+    upper = max(upper, 0.0) + 1e-14 * tnorm + 1e-300
+    return tnorm, upper, pivmin
+
+
+@njit(**INNER)
+def _part_count(dd, ee, n, cut):
+    """How many eigenvalues of the tridiagonal (dd, ee) of size n lie above ``cut`` (the modes
+    :func:`_part_modes` computes for it)."""
+    if n == 1:
+        return 1 if dd[0] > cut else 0
+    _tnorm, _upper, pivmin = _part_norms(dd, ee, n)
+    below = _sturm(dd, ee, n, cut, pivmin) if math.isfinite(cut) else 0
+    return n - below
+
+
+@njit(**INNER)
+def _count_slow(dd, ee, n, cut, comp_of):
+    """How many modes :func:`_slow_modes` computes (above ``cut``, over every connected part)."""
+    k = 0
+    start = 0
+    while start < n:
+        stop = start
+        while stop + 1 < n and comp_of[stop + 1] == comp_of[start]:
+            stop += 1
+        k += _part_count(dd[start:stop + 1], ee[start:stop + 1], stop + 1 - start, cut)
+        start = stop + 1
+    return k
+
+
+@njit(**INNER)
 def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, lam_all, vec_all, k0):
     """The modes above ``cut`` of one connected part (positions lo_i .. hi_i - 1) into
     ``lam_all[k0:]`` and ``vec_all[k0:]``; returns their number, or -1 when one fails its check."""
@@ -240,26 +307,11 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
             vec_all[k0, i] = 0.0
         vec_all[k0, lo_i] = 1.0
         return 1
-    tnorm = 0.0
-    upper = -np.inf
-    for i in range(n):
-        r = abs(dd[i])
-        g = dd[i]
-        if i > 0:
-            r += abs(ee[i - 1])
-            g += abs(ee[i - 1])
-        if i + 1 < n:
-            r += abs(ee[i])
-            g += abs(ee[i])
-        tnorm = max(tnorm, r)
-        upper = max(upper, g)
-    pivmin = 1e-300 + 2.2e-16 * 2.2e-16 * tnorm
-    upper = max(upper, 0.0) + 1e-14 * tnorm + 1e-300
-    below = _sturm(dd, ee, n, cut, pivmin) if math.isfinite(cut) else 0
-    k = n - below
+    tnorm, upper, pivmin = _part_norms(dd, ee, n)
+    k = _part_count(dd, ee, n, cut)
     if k == 0:
         return 0
-    k = min(k, lam_all.shape[0] - k0)
+    k = min(k, lam_all.shape[0] - k0, vec_all.shape[0] - k0)
     # one more eigenvalue than the modes kept (the next faster one), for the gap of the last
     kb = min(k + 1, n)
     lo = np.empty(kb)
@@ -616,7 +668,6 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
     for s in range(ks):
         for a in range(n):
             vy[s, a] = vec[s, a] / tv[a]
-    ys = np.empty(n)
     qs = np.empty(nqd)
     # equally spaced output times (the usual output_step): exp(lam tau) by recurrence, one
     # multiplication per mode and time instead of a call of exp; the times' rounding deviations
@@ -636,71 +687,101 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         for s in range(ks):
             rec[s] = math.exp(lam[s] * tau[j0])
             fac[s] = math.exp(lam[s] * step)
-    zs = np.empty(ks + 3)  # mode amplitudes at one time (padded for the blocks of four below)
-    zi = np.empty(ks + 3)
-    for s in range(ks, ks + 3):
-        zs[s] = 0.0
-        zi[s] = 0.0
     ks4 = (ks + 3) // 4 * 4
     vyp = np.zeros((ks4, n))  # the mode patterns, padded to a multiple of four modes
     for s in range(ks):
         for a in range(n):
             vyp[s, a] = vy[s, a]
-    for j in range(j0, n_t + 1):  # the output times, then the end of the interval
-        tj = tau[j] if j < n_t else t_end
-        dst = out[j] if j < n_t else last
-        use_rec = even and j < n_t
-        dev = tj - (tau[j0] + (j - j0) * step) if use_rec else 0.0
-        for s in range(ks):
-            el = lam[s]
-            x = el * tj
-            if use_rec:
-                if j > j0:
-                    rec[s] *= fac[s]
-                    if rec[s] < 1e-250:
-                        rec[s] = 0.0  # decayed: no denormal arithmetic
-                ex = rec[s] * (1.0 + el * dev)
-            else:
-                ex = math.exp(x)
-            if abs(x) > 0.5:
-                p1 = (ex - 1.0) / el
-            else:
-                p1 = tj * _phi1(x)
-            zs[s] = ex * z0[s]
-            zi[s] = p1 * z0[s]
-            if has_g:
-                zs[s] += p1 * gz[s]
-                zi[s] += tj * tj * _phi2(x) * gz[s]
-        for a in range(n):
-            ys[a] = yfast[a]
+    # states that nothing touches: exactly their value plus what is infused (the symmetrising
+    # scale would round them)
+    alone = np.zeros(n, dtype=np.bool_)
+    for a in range(n):
+        alone[a] = ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
+            a == n - 1 or comp_of[a + 1] != comp_of[a])
+    # four rows at a time: each pass over the states applies four modes to four rows, so that a
+    # pattern value loaded once serves four rows (the sums of each row in the same order as one
+    # row at a time)
+    zsb = np.zeros((4, ks4))
+    zib = np.zeros((4, ks4))
+    ysb = np.empty((4, n))
+    tb = np.empty(4)
+    j = j0
+    while j <= n_t:  # the output times, then the end of the interval
+        nb = min(4, n_t + 1 - j)
+        for r in range(nb):
+            jr = j + r
+            tj = tau[jr] if jr < n_t else t_end
+            tb[r] = tj
+            use_rec = even and jr < n_t
+            dev = tj - (tau[j0] + (jr - j0) * step) if use_rec else 0.0
+            zs = zsb[r]
+            zi = zib[r]
+            for s in range(ks):
+                el = lam[s]
+                x = el * tj
+                if use_rec:
+                    if jr > j0:
+                        rec[s] *= fac[s]
+                        if rec[s] < 1e-250:
+                            rec[s] = 0.0  # decayed: no denormal arithmetic
+                    ex = rec[s] * (1.0 + el * dev)
+                else:
+                    ex = math.exp(x)
+                if abs(x) > 0.5:
+                    p1 = (ex - 1.0) / el
+                else:
+                    p1 = tj * _phi1(x)
+                zs[s] = ex * z0[s]
+                zi[s] = p1 * z0[s]
+                if has_g:
+                    zs[s] += p1 * gz[s]
+                    zi[s] += tj * tj * _phi2(x) * gz[s]
+        for r in range(4):
+            yr = ysb[r]
+            for a in range(n):
+                yr[a] = yfast[a]
+        y_0 = ysb[0]
+        y_1 = ysb[1]
+        y_2 = ysb[2]
+        y_3 = ysb[3]
         for s in range(0, ks4, 4):  # four modes per pass over the states
-            z_0 = zs[s]
-            z_1 = zs[s + 1]
-            z_2 = zs[s + 2]
-            z_3 = zs[s + 3]
             v0 = vyp[s]
             v1 = vyp[s + 1]
             v2 = vyp[s + 2]
             v3 = vyp[s + 3]
+            z00, z01, z02, z03 = zsb[0, s], zsb[0, s + 1], zsb[0, s + 2], zsb[0, s + 3]
+            z10, z11, z12, z13 = zsb[1, s], zsb[1, s + 1], zsb[1, s + 2], zsb[1, s + 3]
+            z20, z21, z22, z23 = zsb[2, s], zsb[2, s + 1], zsb[2, s + 2], zsb[2, s + 3]
+            z30, z31, z32, z33 = zsb[3, s], zsb[3, s + 1], zsb[3, s + 2], zsb[3, s + 3]
             for a in range(n):
-                ys[a] += v0[a] * z_0 + v1[a] * z_1 + v2[a] * z_2 + v3[a] * z_3
-        for r in range(nqd):
-            acc = qconst[r] + qslope[r] * tj
-            for s in range(ks):
-                acc += wt[s, r] * zi[s]
-            qs[r] = acc
-        for r in range(nd):
-            dst[r] = y0[r]
-        for a in range(n):
-            dst[idx[a]] = ys[a]
-            if ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
-                    a == n - 1 or comp_of[a + 1] != comp_of[a]):
-                # a state that nothing touches: exactly its value plus what is infused (the
-                # symmetrising scale would round it)
-                dst[idx[a]] = y0[idx[a]] + g[idx[a]] * tj
-        dq = dst[nd:]
-        for r in range(nqd):
-            dq[r] = y0[nd + r] + qs[r] + g[nd + r] * tj
+                va = v0[a]
+                vb = v1[a]
+                vc = v2[a]
+                vd = v3[a]
+                y_0[a] += va * z00 + vb * z01 + vc * z02 + vd * z03
+                y_1[a] += va * z10 + vb * z11 + vc * z12 + vd * z13
+                y_2[a] += va * z20 + vb * z21 + vc * z22 + vd * z23
+                y_3[a] += va * z30 + vb * z31 + vc * z32 + vd * z33
+        for r in range(nb):
+            jr = j + r
+            tj = tb[r]
+            dst = out[jr] if jr < n_t else last
+            zi = zib[r]
+            ys = ysb[r]
+            for q in range(nqd):
+                acc = qconst[q] + qslope[q] * tj
+                for s in range(ks):
+                    acc += wt[s, q] * zi[s]
+                qs[q] = acc
+            for q in range(nd):
+                dst[q] = y0[q]
+            for a in range(n):
+                ia = idx[a]
+                dst[ia] = y0[ia] + g[ia] * tj if alone[a] else ys[a]
+            dq = dst[nd:]
+            for q in range(nqd):
+                dq[q] = y0[nd + q] + qs[q] + g[nd + q] * tj
+        j += nb
 
 
 # ---------------------------------------------------------------- the whole regimen
@@ -729,7 +810,9 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     ediag = np.zeros(max(n_ord, 1))
     comp_of = np.zeros(max(n_ord, 1), dtype=np.int64)
     lam = np.zeros(max(n_ord, 1))
-    vec = np.zeros((max(n_ord, 1), max(n_ord, 1)))
+    # the slow modes only (k x n): allocated when their number is known, grown if a later clamp
+    # pattern has more
+    vec = np.zeros((1, max(n_ord, 1)))
     work = np.zeros((5, max(n_ord, 1)))
     rows = np.zeros(n_jac, dtype=np.int64)
     cols = np.zeros(n_jac, dtype=np.int64)
@@ -767,6 +850,9 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                 changed = True
         if changed:
             n = _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
+            k_need = _count_slow(dd, ee, n, cut, comp_of)
+            if k_need > vec.shape[0]:
+                vec = np.empty((k_need, max(n_ord, 1)))
             k_all = _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec)
             if k_all < 0:
                 return FAIL_CONDITION

@@ -451,6 +451,43 @@ def test_phi_functions_near_zero():
     assert np.allclose(phi2(x), want2, rtol=1e-13)
 
 
+
+def test_rational_exponential_on_the_negative_axis():
+    # the rational approximation of the chain path against numpy's exp, and its partial fractions
+    # for phi1 = (e^x - 1)/x and phi2 = (e^x - 1 - x)/x^2 against exact.phi1 / phi2 (checked above
+    # against their Taylor series), on x from -1e14 to 0
+    from barrierflow.engine.exact import phi1, phi2
+    from barrierflow.engine.exact_chain import RATIONAL_CONSTANT, RATIONAL_POLES, RATIONAL_RESIDUES
+
+    x = -np.concatenate([np.logspace(-12, 14, 20001), [0.0]])
+    terms = RATIONAL_RESIDUES[None, :] / (x[:, None] - RATIONAL_POLES[None, :])
+    r = RATIONAL_CONSTANT + 2.0 * terms.real.sum(axis=1)
+    assert np.max(np.abs(r - np.exp(x))) < 1e-13
+    p1 = 2.0 * (terms / RATIONAL_POLES[None, :]).real.sum(axis=1)
+    p2 = 2.0 * (terms / RATIONAL_POLES[None, :] ** 2).real.sum(axis=1)
+    assert np.max(np.abs(p1 - phi1(x))) < 1e-13
+    assert np.max(np.abs(p2 - phi2(x))) < 1e-12
+
+
+@pytest.mark.parametrize("after", [1e-9, 1e-4, 2e-3])
+def test_outputs_just_after_events_on_the_chain_path(after):
+    # outputs 1e-9 h to 2e-3 h after a dose and after the end of a hold (the rational
+    # approximation of the chain path; the modes serve the rest) against scipy Radau at rtol 1e-11
+    # and the matrix exponentials of the augmented matrix (scipy.linalg.expm)
+    s = patch_body(cells=20, hold=True)
+    grid = np.arange(0.0, 72.0 + 1e-9, 0.5)
+    times = np.union1d(grid, [24.0 + after, 11.0 + after, 24.0 + 3 * after, 48.0 + after])
+    s = Scenario(name=s.name, duration=s.duration, output_times=tuple(times.tolist()), compartments=s.compartments,
+                 barriers=s.barriers, exchanges=s.exchanges, doses=s.doses)
+    ref = radau(s)
+    chain = solve(s, ExactIntegrator("chain"), fallback=False)
+    assert scaled_error(chain.states, ref.states, ref.model) < 1e-8
+    expm = solve(s, ExactIntegrator("expm"), fallback=False)
+    assert scaled_error(chain.states, expm.states, ref.model) < 1e-10
+    r = bf.simulate(s)
+    assert r.integrator == "exact" and r.mass_balance.relative_error < 1e-12
+
+
 # ---------------------------------------------------------------- populations
 def test_population_subjects_equal_single_runs():
     s = patch_body()

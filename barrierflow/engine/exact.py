@@ -339,13 +339,34 @@ def _fast_terms(md: _Modes, ks: int, x0: np.ndarray, tg: np.ndarray | None):
     return -pg / md.t, -(md.aqt @ (px + p(pg))), -(md.aqt @ pg)
 
 
-def _shortest_time(times: np.ndarray, marks: np.ndarray) -> float:
-    """The shortest positive time from the start of an interval to an output time or its end, h."""
+RATIONAL_ROWS = 8
+"""The output times closest to the start of their interval, up to this many, may go through the
+rational approximation of the chain path (:func:`~barrierflow.engine.exact_chain._rational_row`)
+instead of setting how many modes the whole run computes (see :func:`mode_time`)."""
+
+
+def mode_time(times: np.ndarray, marks: np.ndarray) -> float:
+    """The time from the start of an interval at which the exact chain path cuts its modes, h.
+
+    The local times (from the start of each interval to its output times and to its end): the
+    shortest, unless a few are much shorter than the rest, that is, shorter than a quarter of the
+    one after the :data:`RATIONAL_ROWS` shortest. The modes not decayed by then are computed (a
+    diffusion's modes up to a time t number about 1 / sqrt(t), so a time 1,000 times shorter would
+    take 30 times the modes and 1,000 times the work to compute them); the few shorter times (an
+    output just after a dose, a short interval) are computed by the rational approximation, a few
+    solves with the chain matrix each.
+    """
     k = np.clip(np.searchsorted(marks, times, side="right") - 1, 0, len(marks) - 2)
     local = times - marks[k]
     gaps = np.diff(marks)
     cand = np.concatenate([local[local > 0.0], gaps[gaps > 0.0]])
-    return float(cand.min()) if len(cand) else 1.0
+    if not len(cand):
+        return 1.0
+    r = min(RATIONAL_ROWS, len(cand) - 1)
+    return max(float(cand.min()), 0.25 * float(np.partition(cand, r)[r]))
+
+
+_shortest_time = mode_time  # the name the population runner imports
 
 
 def structurally_symmetric(model: CompiledModel) -> bool:
@@ -482,7 +503,7 @@ class ExactIntegrator(Integrator):
             ev_dosed = np.empty((n_t, nc))
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
-            code = chain_schedule(marks, times, ev, work, base, s, order, _FAST / _shortest_time(times, marks),
+            code = chain_schedule(marks, times, ev, work, base, s, order, _FAST / mode_time(times, marks),
                                   jacobian_size(m), m.y0.copy(), states, ev_dosed, ev_removed, st)
             stats.add(st)
             if code != 0:
@@ -519,7 +540,7 @@ class ExactIntegrator(Integrator):
         linked: dict[bytes, CompiledModel] = {s.closed.tobytes(): m}  # the model with the faces as they are
         row, ei = 0, 0
         n_int = len(marks) - 1
-        tau_min = _shortest_time(times, marks)
+        tau_min = mode_time(times, marks)
         full = m
         for k in range(n_int):
             t0, t1 = marks[k], marks[k + 1]

@@ -589,14 +589,130 @@ def _phi2(x):
     return (math.expm1(x) - x) / (x * x)
 
 
+#: Most slow modes computed for one clamp pattern. An output time so close to the start of its
+#: interval that more modes have not yet decayed there (exp(lam t) > exp(-60)) is computed by the
+#: rational approximation of the exponential instead (:func:`_rational_row`): a few solves with the
+#: chain matrix, O(n), where the modes would cost O(k^2 n) to compute and O(k n) per row.
+MAX_MODES = 64
+
+#: Poles and residues of a rational approximation of exp(z) on the negative real axis, of type
+#: (16, 16) with the constant ``RATIONAL_CONSTANT``: exp(z) ~ c0 + 2 Re sum_k r_k / (z - p_k), one
+#: pole of each conjugate pair listed. The poles are those of the Caratheodory-Fejer approximation
+#: (Trefethen, Weideman and Schmelzer, Talbot quadratures and rational approximations, BIT Numer.
+#: Math. 46, 2006, section 4); the residues a weighted least-squares fit on (-inf, 0]. Largest error
+#: 6e-14 on (-inf, 0] (tests/test_engine_paths.py checks it against numpy's exp), and for the
+#: integrals phi1 and phi2 below 3e-13. As for any such approximation the spectrum must be real and
+#: not positive: the chain matrix is symmetric negative semi-definite.
+RATIONAL_POLES = np.array([
+    -10.823477773044113 + 19.28850304441891j, -5.24899913443642 + 16.230183380159986j,
+    -1.4006174319262092 + 13.505837945524027j, 1.4311509493042418 + 10.931598702023587j,
+    3.5200170602929046 + 8.440745872165822j, 5.003623134884475 + 5.999953382854939j,
+    5.958367462137661 + 3.589227090672555j, 6.426297498427404 + 1.1946999205295765j])
+RATIONAL_RESIDUES = 0.5 * np.array([
+    -5.077746028092633e-07 - 4.941674123313014e-05j, 0.0003462370209963367 + 0.00892020794307803j,
+    0.08551512737658046 - 0.3184326872367145j, -3.014235951274744 + 3.56277029403584j,
+    30.506006239476744 - 11.508337702936974j, -126.3384436208307 - 22.970619499898053j,
+    228.90458835325825 + 206.44193101523035j, -130.143775877239 - 454.04200662923023j])
+RATIONAL_CONSTANT = -2.4074167424436544e-14
+
+
+@njit(**INNER)
+def _rational_row(dd, ee, n, tj, x0, tg, has_g, poles, residues, c0, xs, xi, cw):
+    """x(tj) into ``xs`` and its integral from 0 to tj into ``xi`` (the symmetrised free states),
+    by the rational approximation of exp (``poles``, ``residues``, ``c0``; see :data:`RATIONAL_POLES`)::
+
+        x(t) = exp(t T) x0 + t phi1(t T) tg,   int_0^t x = t phi1(t T) x0 + t^2 phi2(t T) tg
+
+    with exp(z) ~ c0 + 2 Re sum r / (z - p), t phi1(t T) ~ 2 Re sum (r / p) (T - p/t)^-1 and
+    t^2 phi2(t T) ~ 2 Re sum (r t / p^2) (T - p/t)^-1 (the partial fractions of (exp(z) - 1) / z and
+    (exp(z) - 1 - z) / z^2, whose terms in 1/z and 1/z^2 vanish as the approximation is exact to
+    1e-13 at 0). Each pole needs one tridiagonal factorisation of T - p/t, with partial pivoting
+    (LAPACK's gttrf), and solves for x0 and tg. ``cw`` is complex work space (7 x n).
+    """
+    for a in range(n):
+        xs[a] = c0 * x0[a]
+        xi[a] = 0.0
+    d = cw[0]
+    du = cw[1]
+    du2 = cw[2]
+    dl = cw[3]
+    b1 = cw[4]
+    b2 = cw[5]
+    piv = np.zeros(n, dtype=np.bool_)
+    two = 2.0
+    for k in range(poles.shape[0]):
+        sig = poles[k] / tj
+        rk = residues[k]
+        for i in range(n):
+            d[i] = dd[i] - sig
+            b1[i] = x0[i]
+            b2[i] = tg[i]
+        for i in range(n - 1):
+            du[i] = ee[i]
+            dl[i] = ee[i]
+            du2[i] = 0.0
+        # factor (gttrf): rows i and i + 1 swapped where the sub-diagonal is the larger
+        for i in range(n - 1):
+            if abs(d[i]) >= abs(dl[i]):
+                piv[i] = False
+                f = dl[i] / d[i]
+                dl[i] = f
+                d[i + 1] = d[i + 1] - f * du[i]
+            else:
+                piv[i] = True
+                f = d[i] / dl[i]
+                d[i] = dl[i]
+                dl[i] = f
+                tmp = du[i]
+                du[i] = d[i + 1]
+                d[i + 1] = tmp - f * d[i + 1]
+                if i < n - 2:
+                    du2[i] = du[i + 1]
+                    du[i + 1] = -f * du[i + 1]
+        # solve for x0 and tg (gtts2)
+        for i in range(n - 1):
+            if piv[i]:
+                tmp = b1[i]
+                b1[i] = b1[i + 1]
+                b1[i + 1] = tmp - dl[i] * b1[i]
+                tmp = b2[i]
+                b2[i] = b2[i + 1]
+                b2[i + 1] = tmp - dl[i] * b2[i]
+            else:
+                b1[i + 1] = b1[i + 1] - dl[i] * b1[i]
+                b2[i + 1] = b2[i + 1] - dl[i] * b2[i]
+        for i in range(n - 1, -1, -1):
+            v1 = b1[i]
+            v2 = b2[i]
+            if i + 1 < n:
+                v1 = v1 - du[i] * b1[i + 1]
+                v2 = v2 - du[i] * b2[i + 1]
+            if i + 2 < n:
+                v1 = v1 - du2[i] * b1[i + 2]
+                v2 = v2 - du2[i] * b2[i + 2]
+            b1[i] = v1 / d[i]
+            b2[i] = v2 / d[i]
+        # accumulate the real parts (each pole stands for its conjugate pair: twice the real part)
+        ce = two * rk / tj
+        c1 = two * rk / poles[k]
+        c2 = c1 * tj / poles[k]
+        for a in range(n):
+            xs[a] += (ce * b1[a]).real
+            xi[a] += (c1 * b1[a]).real
+            if has_g:
+                xs[a] += (c1 * b2[a]).real
+                xi[a] += (c2 * b2[a]).real
+
+
 @njit(**INNER)
 def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd, clamp,
-              nc, out, work, t_end, last):
+              nc, out, work, t_end, last, t_thr):
     """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``, and the
     state at the interval's end ``t_end`` (> 0) into ``last``.
 
-    The modes kept are those not decayed at the first positive time of the interval, which is
-    the first positive ``tau`` or ``t_end``.
+    Times below ``t_thr`` (h), at which more modes than were computed have not yet decayed, go
+    through :func:`_rational_row`; the others through the modes, keeping those not decayed at the
+    first of them (or ``t_end``).
     """
     n_state = y0.shape[0]
     n_t = tau.shape[0]
@@ -605,21 +721,53 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         for r in range(n_state):
             out[j0, r] = y0[r]
         j0 += 1
-    t_min = min(tau[j0], t_end) if j0 < n_t else t_end
-    ks = 0
-    while ks < k_all and lam[ks] * t_min > -60.0:
-        ks += 1
     x0 = work[0]
     tg = work[1]
-    px = work[2]
-    pg = work[3]
-    ppg = work[4]
     has_g = False
     for a in range(n):
         x0[a] = tv[a] * y0[idx[a]]
         tg[a] = tv[a] * g[idx[a]]
         if tg[a] != 0.0:
             has_g = True
+    nqd = n_state - nd
+    # states that nothing touches: exactly their value plus what is infused (the symmetrising
+    # scale would round them)
+    alone = np.zeros(n, dtype=np.bool_)
+    for a in range(n):
+        alone[a] = ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
+            a == n - 1 or comp_of[a + 1] != comp_of[a])
+    if (j0 < n_t and tau[j0] < t_thr) or t_end < t_thr:
+        xs = np.empty(n)
+        xi = np.empty(n)
+        cw = np.empty((6, n), dtype=np.complex128)
+        while j0 <= n_t:
+            tj = tau[j0] if j0 < n_t else t_end
+            if tj >= t_thr:
+                break
+            dst = out[j0] if j0 < n_t else last
+            _rational_row(dd, ee, n, tj, x0, tg, has_g, RATIONAL_POLES, RATIONAL_RESIDUES, RATIONAL_CONSTANT, xs,
+                          xi, cw)
+            for q in range(nd):
+                dst[q] = y0[q]
+            for a in range(n):
+                ia = idx[a]
+                dst[ia] = y0[ia] + g[ia] * tj if alone[a] else xs[a] / tv[a]
+            for q in range(nqd):
+                dst[nd + q] = y0[nd + q] + g[nd + q] * tj
+            for j in range(nq):
+                a = qc[j]
+                if a >= 0:
+                    dst[qr[j]] += qv[j] * (xi[a] / tv[a])
+            j0 += 1
+        if j0 > n_t:
+            return
+    t_min = min(tau[j0], t_end) if j0 < n_t else t_end
+    ks = 0
+    while ks < k_all and lam[ks] * t_min > -60.0:
+        ks += 1
+    px = work[2]
+    pg = work[3]
+    ppg = work[4]
     z0 = np.zeros(ks)
     gz = np.zeros(ks)
     for s in range(ks):
@@ -631,7 +779,6 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         z0[s] = a0
         gz[s] = b0
     # decayed modes: constants (states) and constant + slope (quadratures), through T^+
-    nqd = n_state - nd
     yfast = np.zeros(n)
     qconst = np.zeros(nqd)
     qslope = np.zeros(nqd)
@@ -692,12 +839,6 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
     for s in range(ks):
         for a in range(n):
             vyp[s, a] = vy[s, a]
-    # states that nothing touches: exactly their value plus what is infused (the symmetrising
-    # scale would round them)
-    alone = np.zeros(n, dtype=np.bool_)
-    for a in range(n):
-        alone[a] = ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
-            a == n - 1 or comp_of[a + 1] != comp_of[a])
     # four rows at a time: each pass over the states applies four modes to four rows, so that a
     # pattern value loaded once serves four rows (the sums of each row in the same order as one
     # row at a time)
@@ -795,6 +936,10 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     closed face changes the links, and the modes are computed again); the states
     at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``.
     ``stats`` counts [steps, rejected, rhs evaluations, Jacobians, decompositions, intervals].
+    ``cut`` (1/h, < 0) is -60 over the time from an interval's start from which on the modes serve
+    (:func:`~barrierflow.engine.exact.mode_time`): the modes above it are computed (at most
+    :data:`MAX_MODES`, the cut moving up as needed) and the earlier times go through the rational
+    approximation.
     """
     nc = m.n_comp
     nd = m.n_dyn
@@ -836,6 +981,7 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     # counters start as int64 values, not literal zeros (a literal would compile the callees twice)
     n = np.int64(0)
     k_all = np.int64(0)
+    t_thr = 0.0
     nq = np.int64(0)
     have = False
     row = np.int64(0)
@@ -851,9 +997,28 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         if changed:
             n = _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
             k_need = _count_slow(dd, ee, n, cut, comp_of)
+            cut_now = cut
+            t_thr = -60.0 / cut  # the times before it go through the rational approximation
+            if k_need > MAX_MODES:
+                # at most MAX_MODES modes: the cut moves up to between the slowest MAX_MODES and
+                # the rest (bisection on the counts); the times before they decay take the
+                # rational approximation
+                lo_c = cut
+                hi_c = 0.0
+                for _it in range(200):
+                    mid_c = 0.5 * (lo_c + hi_c)
+                    if _count_slow(dd, ee, n, mid_c, comp_of) > MAX_MODES:
+                        lo_c = mid_c
+                    else:
+                        hi_c = mid_c
+                    if hi_c - lo_c <= 1e-3 * abs(hi_c):
+                        break
+                cut_now = hi_c
+                t_thr = -60.0 / cut_now
+                k_need = _count_slow(dd, ee, n, cut_now, comp_of)
             if k_need > vec.shape[0]:
                 vec = np.empty((k_need, max(n_ord, 1)))
-            k_all = _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec)
+            k_all = _slow_modes(dd, ee, n, cut_now, gedge, ediag, msq, comp_of, lam, vec)
             if k_all < 0:
                 return FAIL_CONDITION
             kj = jacobian_kernel(yz, rows, cols, vals, m, clamp)
@@ -887,7 +1052,7 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             tau[r] = times[row + r] - t0
         tau[m_out] = t1 - t0
         _interval(y, g, tau[:m_out], n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd,
-                  clamp, nc, states[row:sel_end], work, tau[m_out], last)
+                  clamp, nc, states[row:sel_end], work, tau[m_out], last, t_thr)
         for r in range(m_out):
             for p in range(nc):
                 ev_dosed[row + r, p] = dosed[p]

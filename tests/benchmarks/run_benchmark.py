@@ -103,7 +103,7 @@ class Variant:
         parts = text.split("cells = 50\n")
         text = parts[0] + "".join(f"cells = {n}\n{rest}" for n, rest in zip(self.layer_cells, parts[1:], strict=True))
         if self.extra_times and extra:
-            listed = ", ".join(f'"{t!r} h"' for t in self.grid())
+            listed = ", ".join(f'"{t!r} h"' for t in self.grid().tolist())
             text = text.replace('output_step = "10 min"', f"output_times = [{listed}]")
         if self.patch_volume_ml != 1.0:
             text = text.replace('volume = "1 mL"', f'volume = "{self.patch_volume_ml:g} mL"')

@@ -46,8 +46,8 @@ from .schedule import EventArrays, apply_events, new_event_state, rows_until
 from .vehicle import VehicleProblem
 
 __all__ = ["INTEGRATORS", "VEHICLE", "AutoIntegrator", "Integration", "IntervalIntegrator", "Integrator", "RunPlan",
-           "RunStats", "ScipyIntegrator", "check_tolerances", "integrator_from_name", "refuse_vehicle_terms",
-           "resolve_integrator", "working_memory"]
+           "RunStats", "ScipyIntegrator", "check_tolerances", "estimated_seconds", "integrator_from_name",
+           "refuse_vehicle_terms", "resolve_integrator", "working_memory"]
 
 
 @dataclass
@@ -217,10 +217,12 @@ class Integrator(ABC):
         """Bytes of working arrays this integrator needs for ``model`` (an estimate, besides the
         trajectory), which the driver checks before it runs."""
 
-    def resolve(self, model: CompiledModel, longest: float | None = None) -> Integrator:
+    def resolve(self, model: CompiledModel, longest: float | None = None, rows: int | None = None,
+                intervals: int | None = None) -> Integrator:
         """The integrator that runs ``model``: this one (a chooser returns its choice).
 
-        ``longest`` (h) is the longest dosing interval of the run.
+        ``longest`` (h) is the longest dosing interval of the run, ``rows`` its output times and
+        ``intervals`` its dosing intervals (a chooser's estimates of cost use them when given).
         """
         return self
 
@@ -422,9 +424,20 @@ class ScipyIntegrator(IntervalIntegrator):
 
 @dataclass(frozen=True)
 class AutoIntegrator(Integrator):
-    """The engine's choice: the exact solution for a linear model, compiled RODAS4 otherwise, and
-    scipy's Radau (:data:`VEHICLE`) for a model with vehicle terms (evaporation, solubility limits,
-    samples without replacement).
+    """The engine's choice, by the structure of the model and the estimated cost of each path.
+
+    * a model with vehicle terms (evaporation, solubility limits, samples without replacement):
+      scipy's Radau (:data:`VEHICLE`), the only integrators that run them;
+    * a linear chain network (:func:`~barrierflow.engine.exact_chain.chain_order`) up to
+      :data:`~barrierflow.engine.exact.CHAIN_STATES` states: the exact chain path, O(k n) per
+      output row for k slow modes, cheaper than any step of an integrator;
+    * another linear network that the exact modes or matrix-exponential path may take
+      (:func:`~barrierflow.engine.exact.exact_supported`: not too stiff for them, within memory)
+      when its estimated cost (:func:`estimated_seconds`) is below RODAS4's: their cost grows
+      with the cube of the states (a decomposition, or an exponential per step length) and with
+      the square per output row, so only small networks take them;
+    * everything else (saturable elimination, larger networks, stars of many barriers): the
+      compiled RODAS4 integrator, O(n) per step.
 
     Parameters
     ----------
@@ -440,26 +453,66 @@ class AutoIntegrator(Integrator):
     def __post_init__(self) -> None:
         check_tolerances(self.rtol, self.atol)
 
-    def resolve(self, model: CompiledModel, longest: float | None = None) -> Integrator:
-        """The integrator that runs ``model``; ``longest`` (h) is the longest dosing interval."""
-        from .exact import ExactIntegrator, exact_supported
+    def resolve(self, model: CompiledModel, longest: float | None = None, rows: int | None = None,
+                intervals: int | None = None) -> Integrator:
+        """The integrator that runs ``model`` (see the class docstring); ``longest`` (h) is the
+        longest dosing interval, ``rows`` and ``intervals`` the run's output times and dosing
+        intervals (500 and 1 when not given)."""
+        from .exact import ExactIntegrator, exact_plan, exact_supported
         from .rosenbrock import RosenbrockIntegrator
 
         if model.vehicle_terms:
             return VEHICLE
+        rodas = RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
         if exact_supported(model, longest):
             exact = ExactIntegrator()
             if exact.working_memory(model) <= EXACT_MEMORY:
-                return exact
-        return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
+                plan, _size = exact_plan(model)
+                if plan == "chain":
+                    return exact
+                n_rows, n_int = rows or 500, intervals or 1
+                # exact to rounding: taken while no more than EXACT_PREFERENCE times RODAS4's estimate
+                if (estimated_seconds(plan, model, n_rows, n_int)
+                        <= EXACT_PREFERENCE * estimated_seconds("rodas", model, n_rows, n_int)):
+                    return exact
+        return rodas
 
     def run(self, plan: RunPlan) -> Integration:
         """Run ``plan`` on the integrator :meth:`resolve` picks."""
-        return self.resolve(plan.model, plan.longest).run(plan)
+        return self.resolve(plan.model, plan.longest, len(plan.times), len(plan.marks) - 1).run(plan)
 
     def working_memory(self, model: CompiledModel) -> int:
         """What the integrator :meth:`resolve` picks needs."""
         return self.resolve(model).working_memory(model)
+
+
+EXACT_PREFERENCE = 1.5
+"""The default takes the modes or matrix-exponential path while its estimated cost is at most this
+many times RODAS4's (the exact paths are exact to rounding; the estimates are rough)."""
+
+RODAS_STEPS = 60
+"""Steps per dosing interval that :func:`estimated_seconds` expects of RODAS4 (the benchmark's
+networks take 35 to 140 at the default tolerances)."""
+
+
+def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int) -> float:
+    """A rough estimate of the seconds a path takes for ``model``, to choose between paths.
+
+    ``path`` is ``"rodas"`` (per step and state, and per output row and state: O(n) each),
+    ``"modes"`` (a dense symmetric decomposition, O(n^3), and every mode at every row, O(n^2)) or
+    ``"expm"`` (about three exponentials of the augmented matrix per interval, O(n^3) each, and a
+    product per row, O(n^2)), with what each costs per dosing interval in Python. The constants
+    were measured on small stars of barriers, with and without a transfer (one thread; only their
+    ratios matter).
+    """
+    n, nd = model.n_state, model.n_dyn
+    if path == "rodas":
+        return 3e-4 + n * (RODAS_STEPS * intervals * 7e-8 + rows * 5e-9)
+    if path == "modes":
+        return 1.5e-4 * intervals + 1.4e-9 * nd ** 3 + 1e-9 * rows * nd * min(nd, 40)
+    if path == "expm":
+        return 1.5e-4 * intervals + 3e-9 * intervals * (n + 1) ** 3 + 1e-9 * rows * n * n
+    raise ValueError(f"unknown path {path!r}")
 
 
 VEHICLE = ScipyIntegrator("Radau", rtol=1e-7, atol=1e-10)
@@ -478,12 +531,14 @@ def working_memory(integrator: Integrator, model: CompiledModel) -> int:
     return integrator.working_memory(model)
 
 
-def resolve_integrator(integrator: Integrator | None, model: CompiledModel, longest: float | None = None) -> Integrator:
+def resolve_integrator(integrator: Integrator | None, model: CompiledModel, longest: float | None = None,
+                       rows: int | None = None, intervals: int | None = None) -> Integrator:
     """``integrator`` itself, or what an :class:`AutoIntegrator` (the default, for None) picks for ``model``.
 
-    ``longest`` (h) is the longest dosing interval of the run (the exact paths' conditions use it).
+    ``longest`` (h) is the longest dosing interval of the run (the exact paths' conditions use it),
+    ``rows`` and ``intervals`` its output times and dosing intervals (the estimates of cost).
     """
-    return (AutoIntegrator() if integrator is None else integrator).resolve(model, longest)
+    return (AutoIntegrator() if integrator is None else integrator).resolve(model, longest, rows, intervals)
 
 
 def _rodas(**kw) -> Integrator:

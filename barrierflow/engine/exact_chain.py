@@ -589,6 +589,9 @@ def _phi2(x):
     return (math.expm1(x) - x) / (x * x)
 
 
+#: Clamp patterns whose decomposition a run keeps (a pattern that comes back is not decomposed again).
+PATTERNS = 4
+
 #: Most slow modes computed for one clamp pattern. An output time so close to the start of its
 #: interval that more modes have not yet decayed there (exp(lam t) > exp(-60)) is computed by the
 #: rational approximation of the exponential instead (:func:`_rational_row`): a few solves with the
@@ -945,31 +948,41 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     nd = m.n_dyn
     n_state = y.shape[0]
     n_ord = order.shape[0]
-    idx = np.zeros(max(n_ord, 1), dtype=np.int64)
-    cmap = np.zeros(nd, dtype=np.int64)
-    msq = np.zeros(max(n_ord, 1))
-    tv = np.zeros(max(n_ord, 1))
-    dd = np.zeros(max(n_ord, 1))
-    ee = np.zeros(max(n_ord, 1))
-    gedge = np.zeros(max(n_ord, 1))
-    ediag = np.zeros(max(n_ord, 1))
-    comp_of = np.zeros(max(n_ord, 1), dtype=np.int64)
-    lam = np.zeros(max(n_ord, 1))
-    # the slow modes only (k x n): allocated when their number is known, grown if a later clamp
-    # pattern has more
-    vec = np.zeros((1, max(n_ord, 1)))
-    work = np.zeros((5, max(n_ord, 1)))
+    L = max(n_ord, 1)
+    # the decompositions of up to PATTERNS clamp patterns (which compartments are held, which
+    # faces closed), kept for when a pattern comes back (a hold that starts and ends each day):
+    # slot by slot, the chain, its slow modes (k x n, grown when a pattern needs more) and the
+    # quadrature rates
+    P = PATTERNS
+    idx_c = np.zeros((P, L), dtype=np.int64)
+    cmap_c = np.zeros((P, nd), dtype=np.int64)
+    msq_c = np.zeros((P, L))
+    tv_c = np.zeros((P, L))
+    dd_c = np.zeros((P, L))
+    ee_c = np.zeros((P, L))
+    gedge_c = np.zeros((P, L))
+    ediag_c = np.zeros((P, L))
+    comp_c = np.zeros((P, L), dtype=np.int64)
+    lam_c = np.zeros((P, L))
+    vec_c = np.zeros((P, 1, L))
+    qr_c = np.zeros((P, n_jac), dtype=np.int64)
+    qc_c = np.zeros((P, n_jac), dtype=np.int64)
+    qv_c = np.zeros((P, n_jac))
+    n_c = np.zeros(P, dtype=np.int64)
+    k_c = np.zeros(P, dtype=np.int64)
+    nq_c = np.zeros(P, dtype=np.int64)
+    thr_c = np.zeros(P)
+    key_clamp = np.zeros((P, nc), dtype=np.bool_)
+    key_closed = np.zeros((P, nc), dtype=np.bool_)
+    valid = np.zeros(P, dtype=np.bool_)
+    used = np.zeros(P, dtype=np.int64)
+    work = np.zeros((5, L))
     rows = np.zeros(n_jac, dtype=np.int64)
     cols = np.zeros(n_jac, dtype=np.int64)
     vals = np.zeros(n_jac)
-    qr = np.zeros(n_jac, dtype=np.int64)
-    qc = np.zeros(n_jac, dtype=np.int64)
-    qv = np.zeros(n_jac)
     infusion = s.infusion
     clamp = s.clamp
-    last_clamp = clamp.copy()
     closed = s.closed
-    last_closed = closed.copy()
     dosed = s.dosed
     removed = s.removed
     yz = np.zeros(n_state)
@@ -979,23 +992,34 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     n_marks = marks.shape[0]
     n_t = times.shape[0]
     # counters start as int64 values, not literal zeros (a literal would compile the callees twice)
-    n = np.int64(0)
-    k_all = np.int64(0)
-    t_thr = 0.0
-    nq = np.int64(0)
-    have = False
     row = np.int64(0)
     ei = np.int64(0)
     for k in range(n_marks - 1):
         t0 = marks[k]
         t1 = marks[k + 1]
         ei = apply_events(t0, ei, ev, m, base, y, s)
-        changed = not have
-        for p in range(nc):
-            if clamp[p] != last_clamp[p] or closed[p] != last_closed[p]:
-                changed = True
-        if changed:
-            n = _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
+        slot = -1
+        for c in range(P):
+            if valid[c]:
+                same = True
+                for p in range(nc):
+                    if clamp[p] != key_clamp[c, p] or closed[p] != key_closed[c, p]:
+                        same = False
+                if same:
+                    slot = c
+        if slot < 0:
+            slot = 0  # an empty slot, or the one used least recently
+            for c in range(P):
+                if not valid[c]:
+                    slot = c
+                    break
+                if used[c] < used[slot]:
+                    slot = c
+            n = _build(order, clamp, m, idx_c[slot], cmap_c[slot], msq_c[slot], tv_c[slot], dd_c[slot], ee_c[slot],
+                       gedge_c[slot], ediag_c[slot], comp_c[slot])
+            dd = dd_c[slot]
+            ee = ee_c[slot]
+            comp_of = comp_c[slot]
             k_need = _count_slow(dd, ee, n, cut, comp_of)
             cut_now = cut
             t_thr = -60.0 / cut  # the times before it go through the rational approximation
@@ -1016,25 +1040,37 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                 cut_now = hi_c
                 t_thr = -60.0 / cut_now
                 k_need = _count_slow(dd, ee, n, cut_now, comp_of)
-            if k_need > vec.shape[0]:
-                vec = np.empty((k_need, max(n_ord, 1)))
-            k_all = _slow_modes(dd, ee, n, cut_now, gedge, ediag, msq, comp_of, lam, vec)
+            if k_need > vec_c.shape[1]:
+                grown = np.zeros((P, k_need, L))
+                for c in range(P):
+                    for q in range(vec_c.shape[1]):
+                        for i in range(L):
+                            grown[c, q, i] = vec_c[c, q, i]
+                vec_c = grown
+            k_all = _slow_modes(dd, ee, n, cut_now, gedge_c[slot], ediag_c[slot], msq_c[slot], comp_of, lam_c[slot],
+                                vec_c[slot])
             if k_all < 0:
                 return FAIL_CONDITION
             kj = jacobian_kernel(yz, rows, cols, vals, m, clamp)
             nq = 0
+            cmap = cmap_c[slot]
             for j in range(kj):
                 if rows[j] >= nd:
-                    qr[nq] = rows[j]
-                    qc[nq] = cmap[cols[j]] if cols[j] < nd else -1
-                    qv[nq] = vals[j]
+                    qr_c[slot, nq] = rows[j]
+                    qc_c[slot, nq] = cmap[cols[j]] if cols[j] < nd else -1
+                    qv_c[slot, nq] = vals[j]
                     nq += 1
             for p in range(nc):
-                last_clamp[p] = clamp[p]
-                last_closed[p] = closed[p]
-            have = True
+                key_clamp[slot, p] = clamp[p]
+                key_closed[slot, p] = closed[p]
+            n_c[slot] = n
+            k_c[slot] = k_all
+            nq_c[slot] = nq
+            thr_c[slot] = t_thr
+            valid[slot] = True
             stats[3] += 1
             stats[4] += 1
+        used[slot] = k + 1
         # forcing: the rates with the free dynamic states at zero
         for r in range(n_state):
             yz[r] = 0.0
@@ -1051,8 +1087,9 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         for r in range(m_out):
             tau[r] = times[row + r] - t0
         tau[m_out] = t1 - t0
-        _interval(y, g, tau[:m_out], n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd,
-                  clamp, nc, states[row:sel_end], work, tau[m_out], last, t_thr)
+        _interval(y, g, tau[:m_out], n_c[slot], idx_c[slot], tv_c[slot], dd_c[slot], ee_c[slot], ediag_c[slot],
+                  msq_c[slot], comp_c[slot], lam_c[slot], vec_c[slot], k_c[slot], qr_c[slot], qc_c[slot], qv_c[slot],
+                  nq_c[slot], nd, clamp, nc, states[row:sel_end], work, tau[m_out], last, thr_c[slot])
         for r in range(m_out):
             for p in range(nc):
                 ev_dosed[row + r, p] = dosed[p]

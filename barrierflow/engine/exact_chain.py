@@ -888,7 +888,15 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         y_1 = ysb[1]
         y_2 = ysb[2]
         y_3 = ysb[3]
-        for s in range(0, ks4, 4):  # four modes per pass over the states
+        # without forcing, a mode decayed below exp(-60) at the block's first time adds nothing to
+        # the states of its rows: later rows need fewer modes
+        kb4 = ks4
+        if not has_g:
+            kb = 0
+            while kb < ks and lam[kb] * tb[0] > -60.0:
+                kb += 1
+            kb4 = (kb + 3) // 4 * 4
+        for s in range(0, kb4, 4):  # four modes per pass over the states
             v0 = vyp[s]
             v1 = vyp[s + 1]
             v2 = vyp[s + 2]

@@ -41,6 +41,7 @@ import datetime
 import gc
 import os
 import platform
+import random
 import statistics
 import subprocess
 import sys
@@ -348,15 +349,17 @@ def time_rounds(runners: dict, quick: bool) -> tuple[dict, dict[str, Timing], di
     """Time each runner (a callable returning engine seconds, total seconds and its output) over
     rounds after a warm-up; returns the last outputs and the engine and total timings."""
     last = {k: f() for k, f in runners.items()}  # warm-up
-    # rounds: every runner once per round, in a rotating order, so that the load of a shared
-    # machine falls on all of them alike; at least 5 rounds (3 with --quick), up to 15 within ~12 s
+    # rounds: every runner once per round, in a new shuffled order each round (seeded), so that the
+    # load of a shared machine falls on all of them alike and no runner always follows the same
+    # one (a rotation kept the cyclic order: the default always ran right after the LSODA baseline
+    # and took 3x its time there); at least 5 rounds (3 with --quick), up to 15 within ~12 s
     eng = {k: Timing() for k in runners}
     tot = {k: Timing() for k in runners}
     keys = list(runners)
     min_rounds, budget = (3, 2.0) if quick else (5, 12.0)
     spent, rnd = 0.0, 0
     while rnd < min_rounds or (spent < budget and rnd < 15):
-        order = keys[rnd % len(keys):] + keys[: rnd % len(keys)]
+        order = random.Random(rnd).sample(keys, len(keys))
         for k in order:
             # as timeit does: the collector off during a timed call (so no runner pays for another's
             # garbage), and no collection forced before it (a full collection right before a call

@@ -445,12 +445,13 @@ def run_variant(v: Variant, paths: list[str], quick: bool, tmp: Path) -> list[Ro
 
 
 # ---------------------------------------------------------------- a star of barriers
-def star_toml(n_barriers: int) -> str:
+def star_toml(n_barriers: int, cells: int | None = None, transfer: bool = False) -> str:
     """The reference problem's patch repeated around one body (an invented scenario): ``n_barriers``
     patches of 1 mL at 10 mg/mL, each on its own three-layer skin site (the reference layers, their
     thicknesses and the middle layer's diffusivity varied by up to 1.5x, the areas summing to about
-    the reference's 10 cm^2, the grid the engine's default) into the central compartment of the
-    two-compartment body, each patch replaced every 24 h."""
+    the reference's 10 cm^2; ``cells`` per layer, or the engine's default grid) into the central
+    compartment of the two-compartment body, each patch replaced every 24 h; with ``transfer`` a
+    one-way return from the peripheral compartment to the central one (0.1 1/h)."""
     out = [f'''[scenario]
 name = "benchmark: {n_barriers} patches around one body compartment"
 description = "Invented scenario for the speed benchmark. Not for clinical use."
@@ -471,6 +472,9 @@ from = "central"
 to = "peripheral"
 flow = "5 L/h"
 ''']
+    if transfer:
+        out.append('\n[[transfer]]\nfrom = "peripheral"\nto = "central"\nrate = "0.1 1/h"\n')
+    grid = "" if cells is None else f"\n  cells = {cells}"
     for i in range(n_barriers):
         f = 1.0 + 0.05 * ((i * 37) % 11)
         out.append(f'''
@@ -487,13 +491,13 @@ area = "{10 / n_barriers * f:.4g} cm^2"
   [[barrier.layer]]
   thickness = "{15 * f:.4g} um"
   diffusivity = "1e-9 cm^2/s"
-  partition = 10
+  partition = 10{grid}
   [[barrier.layer]]
   thickness = "100 um"
-  diffusivity = "{1e-6 / f:.4g} cm^2/s"
+  diffusivity = "{1e-6 / f:.4g} cm^2/s"{grid}
   [[barrier.layer]]
   thickness = "{1000 / f:.4g} um"
-  diffusivity = "1e-6 cm^2/s"
+  diffusivity = "1e-6 cm^2/s"{grid}
 
 [[dose]]
 target = "patch{i}"
@@ -570,10 +574,12 @@ class NetworkHand:
         return out
 
 
-def run_star(label: str, n_barriers: int, paths: list[str], quick: bool, tmp: Path) -> list[Row]:
-    """The star of ``n_barriers`` barriers: the product's paths and baseline 1, errors against Radau."""
-    path = tmp / f"star_{n_barriers}.toml"
-    path.write_text(star_toml(n_barriers))
+def run_star(label: str, n_barriers: int, paths: list[str], quick: bool, tmp: Path, cells: int | None = None,
+             transfer: bool = False) -> list[Row]:
+    """A star of ``n_barriers`` barriers (:func:`star_toml`): the product's paths and baseline 1,
+    errors against Radau."""
+    path = tmp / f"star_{n_barriers}_{cells}_{int(transfer)}.toml"
+    path.write_text(star_toml(n_barriers, cells, transfer))
     scenario = bf.load(path)
     hand = NetworkHand(scenario)
     diff = hand.check_linear()
@@ -1136,10 +1142,16 @@ def main(argv: list[str] | None = None) -> int:
     variants = [Variant("50 cells", 50), Variant("20 cells", 20), Variant("200 cells", 200),
                 Variant("finite dose 0.1 mL", patch_volume_ml=0.1), Variant("saturable", saturable=True),
                 Variant(CELLS_800, (267, 267, 266)), Variant(NEAR_EVENT, 200, extra_times=(24.0 + 1e-4,))]
-    stars = [STAR]
+    # stars: (label, barriers, cells per layer or the default grid, a one-way transfer, paths); the
+    # small ones are the shapes where the dense exact paths (modes, expm) compete with RODAS4. The
+    # exact path is not run on the star of 64: it would decompose the whole network (O(n^3),
+    # gigabytes)
+    stars = [(STAR, 64, None, False, ["default", "rodas", "bdf"]),
+             ("star of 4, 5 cells a layer", 4, 5, False, ["default", "exact", "rodas", "bdf"]),
+             ("star of 2, 5 cells a layer, a transfer", 2, 5, True, ["default", "exact", "rodas", "bdf"])]
     if args.only:
         variants = [v for v in variants if v.label == args.only]
-        stars = [x for x in stars if x == args.only]
+        stars = [x for x in stars if x[0] == args.only]
     elif args.quick:
         variants = variants[:1] + variants[4:5]
         stars = []
@@ -1155,9 +1167,8 @@ def main(argv: list[str] | None = None) -> int:
             paths = (["default", "rodas", "bdf"] if v.saturable else ["default"] if v.extra_times
                      else ["default", "exact", "rodas", "bdf"])
             rows += run_variant(v, paths, args.quick, tmp)
-        for label in stars:
-            # the exact path is not run: it decomposes the whole network (O(n^3), gigabytes here)
-            rows += run_star(label, 64, ["default", "rodas", "bdf"], args.quick, tmp)
+        for label, nb, cells, transfer, paths in stars:
+            rows += run_star(label, nb, paths, args.quick, tmp, cells, transfer)
         out()
         out("Times: 'engine' is simulate() (scenario object to Result); 'file to traces' is load + simulate +")
         out("to_csv (the CSV and its sidecar written to disk). Every runner runs once per round, in rotating")

@@ -23,9 +23,11 @@ def _log(rng: random.Random, lo: float, hi: float) -> float:
     return math.exp(rng.uniform(math.log(lo), math.log(hi)))
 
 
-def _layer(rng: random.Random, small_grid: bool) -> Layer:
+def _layer(rng: random.Random, small_grid: bool, default_grid: bool = False) -> Layer:
     deg = 0.0 if rng.random() < 0.7 else _log(rng, 1e-3, 10.0)
     cells = rng.randint(2, 8) if small_grid else (None if rng.random() < 0.8 else rng.randint(2, 30))
+    if default_grid:
+        cells = None
     return Layer(thickness=_log(rng, 1e-4, 0.2), diffusivity=_log(rng, 1e-12, 1e-5) * H,
                  partition=_log(rng, 0.01, 100.0), cells=cells, degradation_rate=deg)
 
@@ -66,7 +68,8 @@ def _dose(rng: random.Random, target: str, duration: float, few: bool = False) -
 
 
 def random_scenario(rng: random.Random, *, max_comp: int = 6, small_grid: bool = False,
-                    linear: bool | None = None, prefix: str = "", duration: float | None = None) -> Scenario:
+                    linear: bool | None = None, prefix: str = "", duration: float | None = None,
+                    default_grid: bool = False, max_barriers: int = 3, min_barriers: int = 0) -> Scenario:
     """A random valid scenario (internal units: cm, h, mg, mL).
 
     Parameters
@@ -77,6 +80,11 @@ def random_scenario(rng: random.Random, *, max_comp: int = 6, small_grid: bool =
     small_grid : bool
         Small and quick (references in CI): every layer 2 to 8 equal cells, at most two doses
         repeated at most about four times, 5 to 40 output steps.
+    default_grid : bool
+        Every layer on the engine's default grid (no ``cells``); with ``small_grid`` the rest
+        stays small.
+    max_barriers, min_barriers : int
+        Most and fewest barriers (at least two compartments are drawn when ``min_barriers`` > 0).
     linear : bool or None
         True: no saturable elimination; False: at least one compartment has it; None: either.
     prefix : str
@@ -85,7 +93,7 @@ def random_scenario(rng: random.Random, *, max_comp: int = 6, small_grid: bool =
         The run's duration (drawn when None).
     """
     for _attempt in range(50):
-        n = rng.randint(1, max_comp)
+        n = rng.randint(2 if min_barriers else 1, max_comp)
         comps = [_compartment(rng, i, prefix) for i in range(n)]
         if linear is True:
             comps = [Compartment(c.id, volume=c.volume, initial_concentration=c.initial_concentration,
@@ -104,9 +112,9 @@ def random_scenario(rng: random.Random, *, max_comp: int = 6, small_grid: bool =
         free_ids = [c.id for c in comps if not c.held]
         links: dict[str, list] = {"barriers": [], "exchanges": [], "transfers": []}
         if n >= 2:
-            for j in range(rng.randint(0, 3)):
+            for j in range(rng.randint(min_barriers, max_barriers)):
                 a, b = rng.sample(ids, 2)
-                layers = tuple(_layer(rng, small_grid) for _ in range(rng.randint(1, 3)))
+                layers = tuple(_layer(rng, small_grid, default_grid) for _ in range(rng.randint(1, 3)))
                 links["barriers"].append(Barrier(f"{prefix}b{j}", a, b, _log(rng, 0.01, 100.0), layers,
                                                  model="steady" if rng.random() < 0.15 else "resolved"))
             for j in range(rng.randint(0, 2)):

@@ -43,7 +43,7 @@ import numpy as np
 from ..model import Barrier, Scenario
 from ..model.cohort import Diverging, cohort_size, decide
 from .arrays import ModelArrays
-from .grid import Grid
+from .grid import Grid, response_time
 from .schedule import regimen_bounds
 from .twoport import stack_two_port
 
@@ -381,12 +381,13 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     # (barrier index, first cell state, one past the last, widths, layer of each cell, partition
     # coefficient of each cell)
     grids_tmp = []
+    tau = response_time(scenario)  # the time scale the default grid resolves
     offset = n_comp
     for bi, b in enumerate(bars):
         if b.model == "steady":
             grids_tmp.append((bi, offset, offset, np.zeros(0), np.zeros(0, dtype=np.int64), np.zeros(0)))
             continue
-        widths = [layer_widths[(bi, li)] * layer.thickness if (bi, li) in layer_widths else grid.widths(layer)
+        widths = [layer_widths[(bi, li)] * layer.thickness if (bi, li) in layer_widths else grid.widths(layer, tau)
                   for li, layer in enumerate(b.layers)]
         w = _join(widths)
         lay_idx = np.repeat(np.arange(len(widths), dtype=np.int64), [x.shape[-1] for x in widths])

@@ -39,7 +39,7 @@ from .arrays import SHARED, ModelArrays, stack_arrays, subject, working_copy
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _shortest_time
 from .exact_chain import chain_order, chain_schedule
-from .grid import Grid
+from .grid import Grid, response_time
 from .kernels import INNER, jacobian_size
 from .ledger import judge, ledger_weights, passes, relative_error_of
 from .rosenbrock import _FAILURES, COEF, OK, ST_STEPS, RosenbrockIntegrator, build_structure, run_marks
@@ -393,7 +393,7 @@ def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, i
                 if bi >= len(s.barriers) or li >= len(s.barriers[bi].layers):
                     continue
                 lay = s.barriers[bi].layers[li]
-                w = grid.widths(lay) / lay.thickness
+                w = grid.widths(lay, response_time(s)) / lay.thickness
                 key = tuple(np.round(w, 12))
                 if key in seen:
                     continue

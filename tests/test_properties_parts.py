@@ -42,6 +42,11 @@ def test_a_compartment_that_no_link_touches_never_changes(rng: random.Random, vo
 def test_adding_a_separate_network_changes_nothing_else(rng: random.Random):
     s = random_scenario(rng, small_grid=True)
     other = random_scenario(rng, small_grid=True, prefix="z", duration=s.duration)
+    assert_separate_network_changes_nothing(s, other)
+
+
+def assert_separate_network_changes_nothing(s, other) -> None:
+    """``s`` alone and ``s`` joined by ``other`` (no link between them, the same output times)."""
     joined = dataclasses.replace(
         s, compartments=s.compartments + other.compartments, barriers=s.barriers + other.barriers,
         exchanges=s.exchanges + other.exchanges, transfers=s.transfers + other.transfers,

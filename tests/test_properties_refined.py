@@ -31,6 +31,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from random_networks import random_scenario
+from test_properties_parts import assert_separate_network_changes_nothing
 from test_properties_paths import trusted
 
 from barrierflow import ScenarioError, SolverError
@@ -123,6 +124,13 @@ def test_on_the_default_grid_a_compartment_no_link_touches_never_changes(rng: ra
     i = tr.model.comp_index["untouched"]
     assert np.all(tr.states[:, i] == conc)
     assert np.all(tr.states[:, tr.model.q_elim + i] == 0.0)
+
+
+@settings(max_examples=30)
+@given(st.randoms(use_true_random=False))
+def test_on_the_default_grid_adding_a_separate_network_changes_nothing_else(rng: random.Random):
+    s = network(rng)
+    assert_separate_network_changes_nothing(s, network(rng, prefix="z", duration=s.duration))
 
 
 @settings(max_examples=60)

@@ -254,7 +254,8 @@ def _add_excess(out, z, y, m, clamp, sign):
 # factors of each barrier (eliminated from both ends toward its middle cell k, so that the two
 # dependent chains run side by side): 3 multipliers from the top, 4 reciprocal pivots, 5 the
 # off-diagonal of M times the reciprocal pivot (toward k), 6 the products J(i, i-1) J(i-1, i)
-# (independent of the step), 7 multipliers from the bottom
+# (independent of the step), 7 multipliers from the bottom. The chains index tri[row, i] directly:
+# no view of a row, which costs more than its loop saves on the short dependent chains
 @njit(**INNER)
 def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, qr, qc, qv):
     """Sort the COO Jacobian into the blocks; returns the number of quadrature entries."""
@@ -315,14 +316,6 @@ def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, 
 @njit(inline="always", error_model="numpy")
 def _tw_factor(fac, a, b, tri):
     """Twisted factorisation of fac I - J on the cells a .. b-1 of one barrier; False on a zero pivot."""
-    jd = tri[0]
-    jl = tri[1]
-    ju = tri[2]
-    lt = tri[3]
-    ip = tri[4]
-    ue = tri[5]
-    pp = tri[6]
-    lb = tri[7]
     k = (a + b) // 2
     n_top = k - a
     n_bot = b - 1 - k
@@ -331,31 +324,31 @@ def _tw_factor(fac, a, b, tri):
     for j in range(max(n_top, n_bot)):
         if j < n_top:  # from the top: cells a, a+1, .., k-1
             i = a + j
-            v = 1.0 / (fac - jd[i] - (pp[i] * pt if j > 0 else 0.0))
-            lt[i] = -jl[i] * pt if j > 0 else 0.0
-            ip[i] = v
-            ue[i] = -ju[i] * v
+            v = 1.0 / (fac - tri[0, i] - (tri[6, i] * pt if j > 0 else 0.0))
+            tri[3, i] = -tri[1, i] * pt if j > 0 else 0.0
+            tri[4, i] = v
+            tri[5, i] = -tri[2, i] * v
             pt = v
         if j < n_bot:  # from the bottom: cells b-1, b-2, .., k+1
             i = b - 1 - j
-            v = 1.0 / (fac - jd[i] - (pp[i + 1] * pb if j > 0 else 0.0))
-            lb[i] = -ju[i] * pb if j > 0 else 0.0
-            ip[i] = v
-            ue[i] = -jl[i] * v
+            v = 1.0 / (fac - tri[0, i] - (tri[6, i + 1] * pb if j > 0 else 0.0))
+            tri[7, i] = -tri[2, i] * pb if j > 0 else 0.0
+            tri[4, i] = v
+            tri[5, i] = -tri[1, i] * v
             pb = v
-    g = fac - jd[k]
-    lt[k] = 0.0
-    lb[k] = 0.0
+    g = fac - tri[0, k]
+    tri[3, k] = 0.0
+    tri[7, k] = 0.0
     if k > a:
-        lt[k] = -jl[k] * pt
-        g -= pp[k] * pt
+        tri[3, k] = -tri[1, k] * pt
+        g -= tri[6, k] * pt
     if k < b - 1:
-        lb[k] = -ju[k] * pb
-        g -= pp[k + 1] * pb
-    ip[k] = 1.0 / g
+        tri[7, k] = -tri[2, k] * pb
+        g -= tri[6, k + 1] * pb
+    tri[4, k] = 1.0 / g
     ok = True
     for i in range(a, b):
-        if not (math.isfinite(ip[i]) and ip[i] != 0.0):
+        if not (math.isfinite(tri[4, i]) and tri[4, i] != 0.0):
             ok = False
     return ok
 
@@ -363,10 +356,6 @@ def _tw_factor(fac, a, b, tri):
 @njit(inline="always", error_model="numpy")
 def _tw_solve(r, off, a, b, tri):
     """Solve with the twisted factors of cells a .. b-1, in place in r[off + a .. off + b]."""
-    lt = tri[3]
-    ip = tri[4]
-    ue = tri[5]
-    lb = tri[7]
     k = (a + b) // 2
     n_top = k - a
     n_bot = b - 1 - k
@@ -376,28 +365,28 @@ def _tw_solve(r, off, a, b, tri):
     yb = r[off + b - 1]
     for j in range(1, m):
         if j < n_top:
-            yt = r[off + a + j] - lt[a + j] * yt
+            yt = r[off + a + j] - tri[3, a + j] * yt
             r[off + a + j] = yt
         if j < n_bot:
-            yb = r[off + b - 1 - j] - lb[b - 1 - j] * yb
+            yb = r[off + b - 1 - j] - tri[7, b - 1 - j] * yb
             r[off + b - 1 - j] = yb
     xk = r[off + k]
     if k > a:
-        xk -= lt[k] * r[off + k - 1]
+        xk -= tri[3, k] * r[off + k - 1]
     if k < b - 1:
-        xk -= lb[k] * r[off + k + 1]
-    xk *= ip[k]
+        xk -= tri[7, k] * r[off + k + 1]
+    xk *= tri[4, k]
     r[off + k] = xk
     xu = xk
     xd = xk
     for j in range(1, m + 1):
         i = k - j
         if i >= a:
-            xu = r[off + i] * ip[i] - ue[i] * xu
+            xu = r[off + i] * tri[4, i] - tri[5, i] * xu
             r[off + i] = xu
         i = k + j
         if i < b:
-            xd = r[off + i] * ip[i] - ue[i] * xd
+            xd = r[off + i] * tri[4, i] - tri[5, i] * xd
             r[off + i] = xd
 
 
@@ -408,10 +397,6 @@ def _tw_responses(w, nx, a, b, tri):
     The same as two calls of :func:`_tw_solve` on unit vectors, with the zero halves skipped
     and the four remaining chains run side by side.
     """
-    lt = tri[3]
-    ip = tri[4]
-    ue = tri[5]
-    lb = tri[7]
     k = (a + b) // 2
     n_top = k - a
     n_bot = b - 1 - k
@@ -421,23 +406,23 @@ def _tw_responses(w, nx, a, b, tri):
         if j < n_top:
             i = a + j
             if j > 0:
-                h = -lt[i] * h
+                h = -tri[3, i] * h
             w[i] = h
             w[nx + i] = 0.0
         if j < n_bot:
             i = b - 1 - j
             if j > 0:
-                t = -lb[i] * t
+                t = -tri[7, i] * t
             w[nx + i] = t
             w[i] = 0.0
     xh = 1.0 if k == a else 0.0
     xt = 1.0 if k == b - 1 else 0.0
     if k > a:
-        xh -= lt[k] * w[k - 1]
+        xh -= tri[3, k] * w[k - 1]
     if k < b - 1:
-        xt -= lb[k] * w[nx + k + 1]
-    xh *= ip[k]
-    xt *= ip[k]
+        xt -= tri[7, k] * w[nx + k + 1]
+    xh *= tri[4, k]
+    xt *= tri[4, k]
     w[k] = xh
     w[nx + k] = xt
     hu = xh
@@ -447,15 +432,15 @@ def _tw_responses(w, nx, a, b, tri):
     for j in range(1, max(n_top, n_bot) + 1):
         i = k - j
         if i >= a:
-            hu = w[i] * ip[i] - ue[i] * hu
+            hu = w[i] * tri[4, i] - tri[5, i] * hu
             w[i] = hu
-            tu = -ue[i] * tu
+            tu = -tri[5, i] * tu
             w[nx + i] = tu
         i = k + j
         if i < b:
-            hd = -ue[i] * hd
+            hd = -tri[5, i] * hd
             w[i] = hd
-            td = w[nx + i] * ip[i] - ue[i] * td
+            td = w[nx + i] * tri[4, i] - tri[5, i] * td
             w[nx + i] = td
 
 

@@ -444,7 +444,7 @@ def _tw_responses(w, nx, a, b, tri):
             w[nx + i] = td
 
 
-@njit(inline="always", error_model="numpy")
+@njit(**INNER)
 def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
     """Factorise M = fac I - J in blocks; False when a pivot vanishes."""
     seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f, segs = sargs
@@ -492,7 +492,7 @@ def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, perm):
     return True
 
 
-@njit(inline="always", error_model="numpy")
+@njit(**INNER)
 def _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, perm, qr, qc, qv, nq):
     """Overwrite ``r`` with the solution k of M k = r (the factors come from :func:`_factor`)."""
     seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f, segs = sargs

@@ -11,7 +11,7 @@ Files that belong together (the traces CSV and its sidecar) are written by
 renames follow in the order given, so the last file named is in place only when all the others
 are.
 
-What is promised, and what each step costs (each step that waits for the disk is named):
+What is promised, and how the waits for the disk are arranged:
 
 - every temporary file is flushed to disk (one ``fsync`` per file) before the first rename, so
   after a crash or a power cut a destination is the old file or the complete new one;
@@ -22,8 +22,8 @@ What is promised, and what each step costs (each step that waits for the disk is
 - the files being replaced are released off the caller's path (POSIX): freeing an old file's
   space waits for the disk on some file systems (those that discard freed blocks at once), and
   no promise depends on it, so the old files are opened before the renames and closed by a
-  background thread afterwards; their space is freed when that thread (or, at the latest, the
-  end of the process) closes them.
+  background thread while the folder is flushed; their space is freed when that thread (or, at
+  the latest, the end of the process) closes them.
 """
 
 from __future__ import annotations

@@ -635,14 +635,17 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
     d2 = math.sqrt(d2 / n) / h0
     dm = max(d1, d2)
     h1 = (0.01 / dm) ** 0.25 if dm > 1e-15 else max(1e-6 * t_end, h0 * 1e-3)
-    h = min(100.0 * h0, h1, t_end)
+    h_min = 1e-14 * t_end  # relative to the interval: a dose may follow another by 1e-95 h
+    # the estimate is made for explicit methods: on a stiff start (a fast layer's cells taking
+    # up substance at 1e10 /h) it fell below h_min before any step; RODAS4 is L-stable, and its
+    # error control shrinks a first step that is too long
+    h = max(min(100.0 * h0, h1, t_end), min(1e3 * h_min, t_end))
     t = 0.0
     reject = False
     first = True
     h_acc = 0.0
     err_acc = 0.0
     n_steps = 0
-    h_min = 1e-14 * t_end  # relative to the interval: a dose may follow another by 1e-95 h
     fac_done = -1.0
     while t < t_end:
         if n_steps >= max_steps:

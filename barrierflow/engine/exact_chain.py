@@ -11,16 +11,22 @@ neighbours and E >= 0 the diagonal of what leaves the chain (clearance, degradat
 clamped compartments). T is built here directly from the link arrays, so its small eigenvalues
 keep their relative accuracy.
 
-Only the modes that have not decayed below exp(-60) at the first output time of an interval
-are computed: eigenvalues by bisection on Sturm counts (all of them in lockstep), eigenvectors
+Only the modes that have not decayed below exp(-60) at the time from which the modes serve
+(:func:`~barrierflow.engine.exact.mode_time`: the shortest time from an interval's start to an
+output, unless a few are much shorter than the rest; at most :data:`MAX_MODES`) are computed, k x n,
+once per clamp pattern (up to :data:`PATTERNS` kept for the run): eigenvalues by bisection on Sturm
+counts (all of them in lockstep), eigenvectors
 by inverse iteration with partial pivoting and re-orthogonalisation, and each eigenvalue
 polished as the Rayleigh quotient written as a sum of squares,
 ``-(sum_edges G (u_i - u_j)^2 + sum E u_i^2) / |x|^2``, which has no cancellation (Parlett,
 The Symmetric Eigenvalue Problem, 1980, for bisection, inverse iteration and the Rayleigh
 quotient). The decayed modes enter through solves with T (O(n)); a closed part of the
 chain without any loss is singular and is solved on the complement of its equilibrium mode,
-which is known exactly (u constant). Everything runs in compiled code, so a population runs
-in parallel threads.
+which is known exactly (u constant). The output rows are evaluated four at a time, each with
+the modes not yet decayed at its block's first time; the few output times earlier than the modes
+serve (an output just after a dose, a short interval) go through a rational approximation of the
+exponential (:func:`_rational_row`). Everything runs in compiled code, so a population runs in
+parallel threads.
 """
 
 from __future__ import annotations

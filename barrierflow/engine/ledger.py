@@ -58,6 +58,9 @@ class Ledger:
     removed: np.ndarray
     sampled: np.ndarray | float = 0.0
     lost: np.ndarray | float = 0.0
+    held_gross: np.ndarray | float = 0.0
+    """What the held compartments gave and took, each counted positive, mg (the yardstick of
+    a network whose held sources and sinks cancel in ``held_supply``)."""
 
     @property
     def absolute_errors(self) -> np.ndarray:
@@ -69,7 +72,7 @@ class Ledger:
     @property
     def throughput(self) -> float:
         """The largest amount that entered the ledger on either side, mg (the error's yardstick)."""
-        left = np.abs(self.initial + self.dosed) + np.abs(self.held_supply)
+        left = np.abs(self.initial + self.dosed) + np.maximum(np.abs(self.held_supply), self.held_gross)
         right = self.present + self.eliminated + self.degraded + self.removed + self.sampled + self.lost
         with np.errstate(invalid="ignore"):
             big = max(float(np.nanmax(left, initial=0.0)), float(np.nanmax(right, initial=0.0)))
@@ -117,7 +120,8 @@ def ledger_rows(model: CompiledModel, comp_conc: np.ndarray, cell_amount: np.nda
     return Ledger(
         initial=float(initial), dosed=event_dosed.sum(axis=1) + terms[:, 0], held_supply=terms[:, 1],
         present=present + cell_amount, eliminated=terms[:, 2], degraded=terms[:, 3],
-        removed=event_removed.sum(axis=1), sampled=terms[:, 5], lost=terms[:, 4])
+        removed=event_removed.sum(axis=1), sampled=terms[:, 5], lost=terms[:, 4],
+        held_gross=np.abs(quad) @ w[:, 1])
 
 
 def ledger_weights(model: CompiledModel) -> np.ndarray:
@@ -155,10 +159,13 @@ def relative_error_of(conc, cells, quad, dosed, removed, capacity, has_volume, y
     for r in range(conc.shape[0]):
         for k in range(6):
             t[k] = 0.0
+        gross = 0.0  # the held supplies each counted positive (sources and sinks may cancel)
         for j in range(quad.shape[1]):
             for k in range(6):
                 if w[j, k] != 0.0:
                     t[k] += quad[r, j] * w[j, k]
+            if w[j, 1] != 0.0:
+                gross += abs(quad[r, j])
         present = 0.0
         ev_in = 0.0
         ev_out = 0.0
@@ -176,7 +183,7 @@ def relative_error_of(conc, cells, quad, dosed, removed, capacity, has_volume, y
             finite = False
         elif err > worst:
             worst = err
-        into = abs(initial + dosed_all) + abs(t[1])
+        into = abs(initial + dosed_all) + max(abs(t[1]), gross)
         if into > big_left:  # NaN compares false: left out, as numpy.nanmax
             big_left = into
         if right > big_right:
@@ -388,7 +395,9 @@ def _worst_part(model: CompiledModel, states: np.ndarray, event_dosed: np.ndarra
         right = (present + q[:, :nc][:, cs].sum(axis=1) + q[:, nc:nc + nb][:, bs].sum(axis=1)
                  + event_removed[:, cs].sum(axis=1) + q[:, m.q_lost - nd:][:, :nc][:, cs].sum(axis=1)
                  + q[:, m.q_sampled - nd:][:, :nc][:, cs].sum(axis=1))
-        scale = max(float(np.max(np.abs(left))), float(np.max(np.abs(right))), 1e-300)
+        gross = np.abs(q[:, m.q_supply - nd:][:, :nc][:, cs & m.held]).sum(axis=1)  # sources and sinks
+        scale = max(float(np.max(np.abs(left))), float(np.max(np.abs(right))), float(np.max(gross, initial=0.0)),
+                    1e-300)
         err = float(np.max(np.abs(left - right))) / scale
         if err > best_err:
             names = [f"'{m.comp_ids[i]}'" for i in np.flatnonzero(cs)]

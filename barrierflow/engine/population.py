@@ -353,22 +353,36 @@ def _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, m, out, out_dos
                     lo = z
         acc = 0.0
         for b in range(bar_lo.shape[0]):
-            pos = 0.0
-            for j in range(bar_lo[b], bar_hi[b]):
-                v = row[j]
-                a = v * cap[j]
-                acc += a
-                if v > 0.0:
-                    pos += a
-                elif v < 0.0:
-                    z = v / scale[j]
+            amount, pos, neg = _cell_sums(row, cap, bar_lo[b], bar_hi[b])
+            acc += amount
+            content[r, b] = pos
+            if neg < 0.0:  # a negative cell: find the lowest scaled value
+                for j in range(bar_lo[b], bar_hi[b]):
+                    z = row[j] / scale[j]
                     if z < lo:
                         lo = z
-            content[r, b] = pos
         cells[r] = acc
     low[i] = lo
     rel[i] = relative_error_of(out[:, :nc], cells, out[:, nc + n_out:], out_dosed, out_removed, cap, m.has_volume,
                                m.y0, nd, w)
+
+
+@njit(**INNER, fastmath={"reassoc", "nsz"})
+def _cell_sums(row, cap, lo, hi):
+    """Over the cell states ``lo`` to ``hi - 1`` of one output row: the amount (concentration times
+    capacity), the amount of the positive concentrations, and that of the negative ones (0 when
+    none is negative). The sums may be reordered, so that the loop runs in vector lanes; a NaN
+    keeps its meaning in the amount and adds nothing to the other two."""
+    amount = 0.0
+    pos = 0.0
+    neg = 0.0
+    for j in range(lo, hi):
+        v = row[j]
+        a = v * cap[j]
+        amount += a
+        pos += a if v > 0.0 else 0.0
+        neg += a if v < 0.0 else 0.0
+    return amount, pos, neg
 
 
 def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, int], np.ndarray]:

@@ -723,15 +723,20 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
                 a = ca[5, j]
                 for i in range(n):
                     ya[i] += a * kk[j, i]
-            # new solution and error estimate (k6 is the difference of the two solutions)
+            # new solution and error estimate (k6 is the difference of the two solutions): the
+            # larger of the root mean square over all states and the largest over the compartments
+            # (the cells of many barriers must not dilute the error of the compartment they feed)
             err = 0.0
+            err_comp = 0.0
             k6 = kk[5]
             for i in range(n):
                 yn[i] = ya[i] + k6[i]
                 sk = atol[i] + rtol * max(abs(y[i]), abs(yn[i]))
                 q = k6[i] / sk
                 err += q * q
-            err = math.sqrt(err / n)
+                if i < nc:
+                    err_comp = max(err_comp, abs(q))
+            err = max(math.sqrt(err / n), err_comp)
             if not math.isfinite(err):
                 h *= 0.25
                 last = False

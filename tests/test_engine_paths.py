@@ -693,51 +693,8 @@ def test_csv_text_equals_the_row_by_row_writer():
         assert r.csv_text() == buf.getvalue()
 
 
-def _star_text(n_barriers: int, cells: int) -> str:
-    """An invented scenario: ``n_barriers`` patches, each on its own three-layer skin site, all
-    feeding one central compartment of a two-compartment body; patches replaced every 24 h."""
-    out = ['[scenario]\nname = "invented star of patches"\nduration = "7 d"\noutput_step = "10 min"\n'
-           '[[compartment]]\nid = "central"\nvolume = "5 L"\nclearance = "10 L/h"\n'
-           '[[compartment]]\nid = "peripheral"\nvolume = "20 L"\n'
-           '[[exchange]]\nfrom = "central"\nto = "peripheral"\nflow = "5 L/h"\n']
-    for i in range(n_barriers):
-        f = 1.0 + 0.05 * ((i * 37) % 11)
-        out.append(f'''
-[[compartment]]
-id = "patch{i}"
-volume = "1 mL"
-initial_concentration = "10 mg/mL"
-[[barrier]]
-id = "skin{i}"
-from = "patch{i}"
-to = "central"
-area = "{10 / n_barriers * f:.4g} cm^2"
-  [[barrier.layer]]
-  thickness = "{15 * f:.4g} um"
-  diffusivity = "1e-9 cm^2/s"
-  partition = 10
-  cells = {cells}
-  [[barrier.layer]]
-  thickness = "100 um"
-  diffusivity = "{1e-6 / f:.4g} cm^2/s"
-  cells = {cells}
-  [[barrier.layer]]
-  thickness = "{1000 / f:.4g} um"
-  diffusivity = "1e-6 cm^2/s"
-  cells = {cells}
-[[dose]]
-target = "patch{i}"
-kind = "replace"
-concentration = "10 mg/mL"
-at = "24 h"
-every = "24 h"
-count = 6
-''')
-    return "".join(out)
-
-
 def test_rodas4_compartment_fed_by_many_barriers_keeps_its_accuracy():
-    """A compartment fed by 64 barriers (1,280 states) on RODAS4's default tolerances: its
+    """A compartment fed by 64 barriers (about 1,300 states) on RODAS4's default tolerances: its
     concentration within 1e-5 of its peak (the benchmark contract's accuracy for the central
     concentration) against scipy's Radau (Hairer and Wanner 1996) at rtol 1e-10 on the same grid.
 
@@ -745,7 +702,9 @@ def test_rodas4_compartment_fed_by_many_barriers_keeps_its_accuracy():
     the compartments: with the mean square alone one compartment's error is diluted by the
     thousands of cell states (this network: 1.2e-5 of the peak on the earlier norm).
     """
-    s = bf.loads(_star_text(64, 4))
+    from benchmarks.run_benchmark import star_toml  # the benchmark's invented star, 4 cells a layer
+
+    s = bf.loads(star_toml(64, 4))
     r = bf.simulate(s, integrator=RosenbrockIntegrator())
     ref = bf.simulate(s, integrator=ScipyIntegrator("Radau", rtol=1e-10, atol=1e-14))
     c, c_ref = r.concentration("central"), ref.concentration("central")

@@ -131,17 +131,18 @@ def test_atomic_write_keeps_the_mode_of_the_file_it_replaces(tmp_path):
 def test_replaced_files_are_released_and_their_readers_keep_the_old_bytes(tmp_path):
     # the files being replaced are closed by a background thread: none may stay open, and a
     # reader that opened the old file before the write still reads the old bytes (POSIX rename)
+    # (descriptors counted by what they point to: other tests of the same process may open or
+    # close descriptors of their own meanwhile)
     csv = tmp_path / "out.csv"
     write_traces(csv, "a\n1\n", _sidecar("a\n1\n"))
-    before = len(os.listdir("/proc/self/fd"))
     with open(csv, encoding="utf-8") as reader:
         for k in range(5):
             write_traces(csv, f"a\n{k + 2}\n", _sidecar(f"a\n{k + 2}\n"))
         assert reader.read() == "a\n1\n"
     deadline = time.monotonic() + 10.0
-    while len(os.listdir("/proc/self/fd")) > before and time.monotonic() < deadline:
+    while _open_in(tmp_path) and time.monotonic() < deadline:
         time.sleep(0.01)
-    assert len(os.listdir("/proc/self/fd")) == before
+    assert _open_in(tmp_path) == []
     assert csv.read_text(encoding="utf-8") == "a\n6\n" and traces_match(csv)
 
 
@@ -164,6 +165,20 @@ def test_a_sidecar_made_during_the_write_sees_the_csv_complete_and_a_failure_cha
         write_traces(csv, "a\n3\n", failing)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out.csv", "out.json"]
     assert csv.read_text(encoding="utf-8") == "a\n2\n" and traces_match(csv)
+
+
+def _open_in(folder) -> list[str]:
+    """What this process's open descriptors point to inside ``folder`` (replaced files show as
+    ``<path> (deleted)``)."""
+    out = []
+    for fd in os.listdir("/proc/self/fd"):
+        try:
+            target = os.readlink(f"/proc/self/fd/{fd}")
+        except OSError:  # closed meanwhile
+            continue
+        if target.startswith(str(folder)):
+            out.append(target)
+    return sorted(out)
 
 
 def _sidecar(csv_text: str) -> str:

@@ -727,16 +727,15 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
             # larger of the root mean square over all states and the largest over the compartments
             # (the cells of many barriers must not dilute the error of the compartment they feed)
             err = 0.0
-            err_comp = 0.0
             k6 = kk[5]
             for i in range(n):
                 yn[i] = ya[i] + k6[i]
                 sk = atol[i] + rtol * max(abs(y[i]), abs(yn[i]))
                 q = k6[i] / sk
                 err += q * q
-                if i < nc:
-                    err_comp = max(err_comp, abs(q))
-            err = max(math.sqrt(err / n), err_comp)
+            err = math.sqrt(err / n)
+            for i in range(nc):  # apart from the loop above, which stays free of branches
+                err = max(err, abs(k6[i]) / (atol[i] + rtol * max(abs(y[i]), abs(yn[i]))))
             if not math.isfinite(err):
                 h *= 0.25
                 last = False

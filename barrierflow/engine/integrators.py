@@ -395,13 +395,23 @@ class ScipyIntegrator(IntervalIntegrator):
                 out[i] = leave(start + t_out[i] * f, t_out[i])
                 i += 1
             return out
-        atol = self.atol * scale
+        atol, rtol = compartment_tolerances(self.atol * scale, self.rtol, problem.model.n_comp)
         jac = problem.jac_dense if self.method == "LSODA" else problem.jac
         import scipy.integrate
 
+        # LSODA takes a tolerance per state as it is; BDF and Radau take one relative tolerance
+        # when they are made (their Newton tolerance derives from it) and apply it state by state
+        # in each step (atol + rtol |y|): they get it once made (see compartment_tolerances)
         solver = getattr(scipy.integrate, self.method)(
-            problem.fun, 0.0, start, t_end, rtol=self.rtol, atol=atol, jac=jac, max_step=self.max_step,
-            first_step=min(t_end, 1e-6 * max(t_end, 1.0)))
+            problem.fun, 0.0, start, t_end, rtol=rtol if self.method == "LSODA" else self.rtol, atol=atol, jac=jac,
+            max_step=self.max_step, first_step=min(t_end, 1e-6 * max(t_end, 1.0)))
+        if self.method != "LSODA":
+            if isinstance(getattr(solver, "rtol", None), float):
+                solver.rtol = rtol
+            else:  # a scipy that keeps it elsewhere: every state as tight as the compartments
+                solver = getattr(scipy.integrate, self.method)(
+                    problem.fun, 0.0, start, t_end, rtol=float(rtol.min()), atol=atol, jac=jac,
+                    max_step=self.max_step, first_step=min(t_end, 1e-6 * max(t_end, 1.0)))
         while solver.status == "running":
             msg = solver.step()
             stats.steps += 1
@@ -420,6 +430,43 @@ class ScipyIntegrator(IntervalIntegrator):
         stats.jacobian_evaluations += solver.njev
         stats.lu_decompositions += solver.nlu
         return out
+
+
+def compartment_tolerances(atol: np.ndarray, rtol: float, n_comp: int) -> tuple[np.ndarray, np.ndarray]:
+    """Tolerances per state for scipy's integrators: the compartments' (the first ``n_comp``
+    states) divided by sqrt(n) for n states, the others as given.
+
+    scipy measures a step's error as the root mean square over all states of
+    error / (atol + rtol |y|): one compartment fed by the thousands of cells of many barriers
+    would count as one state in thousands, and its error could grow sqrt(n) times past the
+    tolerance unseen. With its tolerances divided by sqrt(n), its term of the mean square alone
+    reaches 1 when its own error reaches its tolerance, so the step's error is at least the
+    largest of the compartments' (as RODAS4's error is: the larger of the root mean square and
+    the largest over the compartments), and at most sqrt(1 + n_comp) times the larger of the two.
+    (A change of variables, the compartments integrated multiplied by a weight, would serve only
+    the absolute part: a relative error is the same in any unit.)
+
+    Parameters
+    ----------
+    atol : ndarray (n,)
+        Absolute tolerance of each state (in its own unit).
+    rtol : float
+        Relative tolerance.
+    n_comp : int
+        Compartments (the first states).
+
+    Returns
+    -------
+    atol, rtol : ndarray (n,)
+    """
+    n = len(atol)
+    w = math.sqrt(n)
+    atol = np.array(atol, dtype=float)
+    rtols = np.full(n, float(rtol))
+    atol[:n_comp] /= w
+    # (no tighter than scipy's floor, 100 machine epsilons, unless asked for)
+    rtols[:n_comp] = max(rtol / w, min(rtol, 100 * np.finfo(float).eps))
+    return atol, rtols
 
 
 @dataclass(frozen=True)

@@ -3,9 +3,10 @@
 A population is a list of scenarios that share one structure (the same compartments, barriers,
 grid, links and dosing schedule) and differ in parameter values: volumes, clearances, layer
 thicknesses, diffusivities, partition coefficients, areas, flows, rates, dose sizes. Every
-subject is compiled to flat arrays, the arrays are stacked, and the subjects run in parallel
-threads (``numba.prange``) of the compiled RODAS4 integrator; the Python interpreter is not
-involved until all are done. One failed subject does not stop the others: it is reported in
+subject is compiled to flat arrays, the arrays are stacked, and blocks of subjects run on one
+thread per core, each block in one call of a compiled kernel that releases the GIL and runs the
+exact chain solution or the compiled RODAS4 integrator subject after subject; the Python
+interpreter does nothing per subject. One failed subject does not stop the others: it is reported in
 :attr:`Population.status` and its traces end where it failed (NaN after).
 
 :func:`simulate_population` draws the subjects: each varied parameter is the scenario's value
@@ -25,11 +26,12 @@ import dataclasses
 import math
 import time as _time
 from collections.abc import Callable, Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numba
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
 from ..errors import ScenarioError, SolverError
 from ..model import Scenario
@@ -263,18 +265,24 @@ class Population:
 
 
 # ---------------------------------------------------------------- the compiled population run
+# Each kernel runs the subjects ``lo`` to ``hi - 1`` one after the other, writing only their own
+# rows of the outputs; :func:`_in_blocks` hands fixed blocks of subjects to a few Python threads,
+# each calling a kernel without the GIL (``nogil``). A kernel is serial code around the single
+# run's own compiled loop (``run_marks``, ``chain_schedule``), so its first compile is a few
+# seconds: a ``prange`` loop around the same code took tens (numba's parallel lowering compiles
+# the loop's body as a function of its own, into which the whole run loop is linked and
+# optimised again, then once more into the kernel).
 # ``stack`` is the subjects' ModelArrays stacked (arrays.stack_arrays) and ``work`` the runs' own
 # copy of what events change (arrays.working_copy); ``ev`` the shared events with ``ev_values``
 # (n_sub, n_ev) each subject's own values.
-@njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol, atol_rel, max_steps,
-                    hold, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status,
-                    fail_k, stats):
-    n_sub = ev_values.shape[0]
+@njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _run_population(lo, hi, marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol, atol_rel,
+                    max_steps, hold, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel,
+                    status, fail_k, stats):
     n = stack.y0.shape[1]
     n_t = times.shape[0]
     n_int = marks.shape[0] - 1
-    for i in prange(n_sub):
+    for i in range(lo, hi):
         base = subject(stack, i)
         m = subject(work, i)
         evi = EventArrays(ev.time, ev.kind, ev.comp, ev_values[i])
@@ -290,8 +298,10 @@ def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, 
         ptr = np.zeros(2, dtype=np.int64)
         st = np.zeros(6, dtype=np.int64)
         atol = atol_rel * base.scale
-        code, k = run_marks(0, n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac, rtol, atol, max_steps,
-                            hold, y, ptr, states, evd, evr, st)
+        # the first interval as an int64, as the single run gives it (a literal 0 would compile
+        # run_marks a second time)
+        code, k = run_marks(np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac, rtol, atol,
+                            max_steps, hold, y, ptr, states, evd, evr, st)
         status[i] = code
         fail_k[i] = k
         for j in range(6):
@@ -300,13 +310,12 @@ def _run_population(marks, times, ev, ev_values, stack, work, sargs, coef, n_w, 
                    content[i], low, rel, i)
 
 
-@njit(parallel=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population_exact(marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, n_out, w, bar_lo, bar_hi,
-                          out, out_dosed, out_removed, content, low, rel, status, stats):
-    n_sub = ev_values.shape[0]
+@njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _run_population_exact(lo, hi, marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, n_out, w, bar_lo,
+                          bar_hi, out, out_dosed, out_removed, content, low, rel, status, stats):
     n = stack.y0.shape[1]
     n_t = times.shape[0]
-    for i in prange(n_sub):
+    for i in range(lo, hi):
         base = subject(stack, i)
         m = subject(work, i)
         evi = EventArrays(ev.time, ev.kind, ev.comp, ev_values[i])
@@ -663,6 +672,37 @@ def take_rows(rows: Sequence[tuple[Population | None, int | str]], *, factors: M
         _volume=stack("_volume"), _dosed=stack("_dosed"), _removed=stack("_removed"), _content=stack("_content"))
 
 
+BLOCKS = 64
+"""About how many blocks a population is cut into (blocks of at most :data:`BLOCK_MAX` subjects):
+enough for the threads to share the work evenly when subjects differ in cost."""
+
+BLOCK_MAX = 16
+"""Most subjects in one call of a population kernel (a call costs tens of microseconds of Python)."""
+
+
+def _in_blocks(kernel: Callable[..., None], n_sub: int, threads: int | None, *args) -> None:
+    """Run ``kernel(lo, hi, *args)`` over every subject, in blocks, on ``threads`` threads.
+
+    The blocks depend on the number of subjects only, and each subject is computed on its own
+    within a block, so a subject's result does not depend on the number of threads. The
+    threads are plain Python threads (one per core by default: numba's thread count, which
+    ``NUMBA_NUM_THREADS`` sets); the kernels release the GIL, so they run at the same time. A
+    failure in a kernel is raised here after every block has ended.
+    """
+    size = min(BLOCK_MAX, max(1, -(-n_sub // BLOCKS)))
+    blocks = [(lo, min(lo + size, n_sub)) for lo in range(0, n_sub, size)]
+    n_threads = numba.get_num_threads() if threads is None else max(1, int(threads))
+    n_threads = min(n_threads, numba.config.NUMBA_NUM_THREADS, len(blocks))
+    if n_threads == 1:
+        for lo, hi in blocks:
+            kernel(lo, hi, *args)
+        return
+    with ThreadPoolExecutor(max_workers=n_threads, thread_name_prefix="barrierflow-population") as pool:
+        done = [pool.submit(kernel, lo, hi, *args) for lo, hi in blocks]
+    for future in done:
+        future.result()
+
+
 def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, factors, start: float) -> Population:
     """Run a batch in the compiled kernels, check every subject, compute failed ones again alone."""
     m0 = batch.model
@@ -688,23 +728,17 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     fail_k = np.zeros(n_sub, dtype=np.int64)
     stats = np.zeros((n_sub, 6), dtype=np.int64)
     n_jac = jacobian_size(m0)
-    old_threads = numba.get_num_threads()
-    if threads is not None:
-        numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
-    try:
-        if order is not None:
-            name = "exact (population)"
-            _run_population_exact(marks, times, ev, ev_v, arrays, work, order, -60.0 / _shortest_time(times, marks),
-                                  n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low,
-                                  rel, status, stats)
-        else:
-            name = f"{integ.name} (population)"
-            struct = build_structure(m0)
-            _run_population(marks, times, ev, ev_v, arrays, work, struct.args(), COEF, struct.n_w, n_jac,
-                            float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), keep, n_out, w,
-                            bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, fail_k, stats)
-    finally:
-        numba.set_num_threads(old_threads)
+    if order is not None:
+        name = "exact (population)"
+        _in_blocks(_run_population_exact, n_sub, threads, marks, times, ev, ev_v, arrays, work, order,
+                   -60.0 / _shortest_time(times, marks), n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed,
+                   out_removed, content, low, rel, status, stats)
+    else:
+        name = f"{integ.name} (population)"
+        struct = build_structure(m0)
+        _in_blocks(_run_population, n_sub, threads, marks, times, ev, ev_v, arrays, work, struct.args(), COEF,
+                   struct.n_w, n_jac, float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), keep,
+                   n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, fail_k, stats)
     _apply_at_end_kept(batch, keep, status, out, out_dosed, out_removed)
     # the guard of every run (barrierflow.engine.ledger.verdict), for every subject (its ledger
     # computed in the kernel)

@@ -56,8 +56,9 @@ CONNECT_TIMEOUT = "10s"
 """How long to wait for a dask.distributed scheduler to answer."""
 
 _ENGINE = threading.Lock()
-"""One engine call at a time per process: each call already uses every core, and a worker with
-several threads must not start numba's parallel code from two threads at once."""
+"""One engine call at a time per process: each call already uses every core (a thread per core,
+:func:`barrierflow.engine.population.simulate_values`), so calls side by side would only take
+turns on the cores and hold more subjects' traces in memory at once."""
 
 
 @dataclass(frozen=True, eq=False)

@@ -480,7 +480,12 @@ class Result:
         """The most negative raw concentration met (mg/mL; 0 when none), before clipping."""
         m = self.trajectory.model
         s = self.trajectory.states[:, : m.n_dyn]
-        return float(min(0.0, np.nanmin(s))) if s.size else 0.0
+        if not s.size:
+            return 0.0
+        low = float(s.min())
+        if low != low:  # a state that is not a number (a held compartment without a volume)
+            low = float(np.nanmin(s))
+        return min(0.0, low)
 
     # ----------------------------------------------------------------- mass balance
     @cached_property

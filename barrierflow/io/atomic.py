@@ -17,8 +17,10 @@ What is promised, and how the waits for the disk are arranged:
   after a crash or a power cut a destination is the old file or the complete new one;
 - after the renames the folder is flushed once (``fsync`` of the folder: the renames survive a
   power cut once the call has returned);
-- a content given as a function is made while the file before it is flushed to disk (in
-  another thread), so that the two overlap; nothing is renamed before both are complete;
+- every file but the last is flushed to disk in another thread while the next one is made (a
+  content given as a function is called then), written and flushed in the caller's thread, so
+  that the waits for the disk overlap each other and the making of the next content; nothing
+  is renamed before all are complete;
 - the files being replaced are released off the caller's path (POSIX): freeing an old file's
   space waits for the disk on some file systems (those that discard freed blocks at once), and
   no promise depends on it, so the old files are opened before the renames and closed by a
@@ -80,10 +82,11 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
     the others (the sidecar that records the hash of the traces): when it is in place, the
     others are too. After the renames each folder is flushed to disk once.
 
-    A content may be given as a function (no arguments, returning the text or bytes): it is
-    called when the files before it are written, while the last of them is being flushed to
-    disk in another thread, so that making it (and writing and flushing the files after it)
-    and waiting for the disk overlap. If it fails, no destination has changed either.
+    Every file but the last is flushed to disk in another thread while the next is made,
+    written and flushed, so that the flushes overlap. A content may be given as a function (no
+    arguments, returning the text or bytes): it is called when the files before it are written,
+    while the last of them is being flushed to disk, so that making it and waiting for the disk
+    overlap too. If it fails, no destination has changed either.
 
     Parameters
     ----------
@@ -112,7 +115,7 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
             owned = False
             try:
                 _write_all(fd, raw)
-                if i + 1 < len(files) and callable(files[i + 1][1]):
+                if i + 1 < len(files):  # flushed in the other thread while the next is made and written
                     flushing.append(_Flush(fd, target))
                     owned = True
                 else:

@@ -10,7 +10,11 @@ fraction of the applied dose absorbed and the amount left in the barrier.
 The functions on plain arrays (:func:`auc`, :func:`terminal_fit`, :func:`time_above`,
 :func:`dosing_intervals`, :func:`time_lag_fit`, :func:`exposure_metrics`,
 :func:`barrier_metrics`) do the work; :func:`compute_metrics` applies them to a
-:class:`~barrierflow.analysis.result.Result`.
+:class:`~barrierflow.analysis.result.Result`. Each rule is written once, element-wise over a
+subject axis (traces (n, n_t), a value per subject (n,)): a single run is a block of one subject,
+and :func:`compute_metrics` measures many subjects of one scenario at once (their traces with a
+subject axis and their stacked scenario, :func:`barrierflow.model.cohort.stacked`), giving each
+subject the metrics and notes of its own run.
 
 Rules (common practice in non-compartmental analysis, as for example in Gabrielsson & Weiner,
 Pharmacokinetic and Pharmacodynamic Data Analysis, 4th ed., 2006, ch. 2; Gibaldi & Perrier,
@@ -71,6 +75,7 @@ from typing import Any
 import numpy as np
 
 from ..model import OutputUnits, Scenario
+from ..model.cohort import decide
 from ..units import unit_factor
 
 __all__ = [
@@ -133,6 +138,24 @@ def _asarray(x: Sequence[float] | np.ndarray) -> np.ndarray:
     return np.asarray(x, dtype=float)
 
 
+def _block(x: Sequence[float] | np.ndarray) -> np.ndarray:
+    """Traces as a block (n_subjects, n_t): one trace is a block of one row."""
+    return np.atleast_2d(np.asarray(x, dtype=float))
+
+
+def _each(x: Any, n: int) -> np.ndarray:
+    """A value per subject as (n,): a number (shared), or a column (n, 1) of a stacked scenario
+    (:func:`barrierflow.model.cohort.stacked`)."""
+    return np.broadcast_to(np.asarray(x, dtype=float).reshape(-1), (n,))
+
+
+def _texts(n: int, text: str = "") -> np.ndarray:
+    """A text per subject (an object array), all ``text``."""
+    out = np.empty(n, dtype=object)
+    out[:] = text
+    return out
+
+
 def _rows_at(t: np.ndarray, times: Sequence[float]) -> list[int]:
     """Indices of the rows whose time equals one of ``times`` (to 1e-9 of the run)."""
     if len(t) == 0:
@@ -146,7 +169,7 @@ def _rows_at(t: np.ndarray, times: Sequence[float]) -> list[int]:
     return sorted(set(out))
 
 
-def left_limits(t: Sequence[float], c: Sequence[float], jumps: Sequence[float] = ()) -> np.ndarray:
+def left_limits(t: Sequence[float], c: Sequence[float] | np.ndarray, jumps: Sequence[float] = ()) -> np.ndarray:
     """Concentration just before each output time, h and mg/mL.
 
     Equal to ``c`` except at rows whose time is in ``jumps`` (an instantaneous event that
@@ -156,46 +179,60 @@ def left_limits(t: Sequence[float], c: Sequence[float], jumps: Sequence[float] =
 
     Parameters
     ----------
-    t : array, h
-    c : array, mg/mL
+    t : array (n_t,), h
+    c : array (n_t,) or (n_subjects, n_t), mg/mL
+        One trace, or one per subject.
     jumps : sequence of float, h
         Times of instantaneous events on this compartment.
 
     Returns
     -------
     ndarray, mg/mL
+        The shape of ``c``.
     """
     t, c = _asarray(t), _asarray(c)
+    return _left_limits(t, _block(c), jumps).reshape(c.shape)
+
+
+def _left_limits(t: np.ndarray, c: np.ndarray, jumps: Sequence[float]) -> np.ndarray:
+    """:func:`left_limits` of a block (n, n_t)."""
     cl = c.copy()
     rows = _rows_at(t, jumps)
     jumpset = set(rows)
     for j in rows:
         if j == 0:
             continue
-        c1 = c[j - 1]
+        c1 = c[:, j - 1]
         if j >= 2 and (j - 1) not in jumpset:
-            c0 = c[j - 2]
+            c0 = c[:, j - 2]
             ratio = (t[j] - t[j - 1]) / (t[j - 1] - t[j - 2])
-            if c0 > c1 > 0:
-                cl[j] = c1 * (c1 / c0) ** ratio
-            else:
-                cl[j] = max(c1 + (c1 - c0) * ratio, 0.0)
+            down = (c0 > c1) & (c1 > 0)
+            with np.errstate(all="ignore"):
+                cl[:, j] = np.where(down, c1 * (c1 / c0) ** ratio, np.maximum(c1 + (c1 - c0) * ratio, 0.0))
         else:
-            cl[j] = c1
+            cl[:, j] = c1
     return cl
 
 
 def _segment_areas(t: np.ndarray, c: np.ndarray, cl: np.ndarray) -> np.ndarray:
-    """Area of each segment [t_j, t_j+1]: linear up, log down."""
-    c1, c2 = c[:-1], cl[1:]
+    """Area of each segment [t_j, t_j+1] of each row of a block: linear up, log down."""
+    c1, c2 = c[:, :-1], cl[:, 1:]
     dt = np.diff(t)
-    lin = 0.5 * (c1 + c2) * dt
+    out = 0.5 * (c1 + c2) * dt
     down = (c2 < c1) & (c2 > 0) & (c1 > 0)
-    out = lin.copy()
     if np.any(down):
-        a, b = c1[down], c2[down]
-        out[down] = (a - b) * dt[down] / np.log(a / b)
+        with np.errstate(all="ignore"):
+            log_down = (c1 - c2) * dt / np.log(np.where(down, c1 / c2, 2.0))
+        out = np.where(down, log_down, out)
     return out
+
+
+def _cumulative(t: np.ndarray, c: np.ndarray, cl: np.ndarray) -> np.ndarray:
+    """AUC from the first output time to each output time, (n, n_t)."""
+    zero = np.zeros((c.shape[0], 1))
+    if len(t) < 2:
+        return zero
+    return np.concatenate((zero, np.cumsum(_segment_areas(t, c, cl), axis=1)), axis=1)
 
 
 def auc(t: Sequence[float], c: Sequence[float], jumps: Sequence[float] = (),
@@ -225,22 +262,21 @@ def auc(t: Sequence[float], c: Sequence[float], jumps: Sequence[float] = (),
     >>> round(auc([0, 1, 2], [0, 2, 1]), 6)
     2.442695
     """
-    t, c = _asarray(t), _asarray(c)
+    t, c = _asarray(t), _block(c)
     if len(t) < 2:
         return 0.0
-    cl = left_limits(t, c, jumps)
-    seg = _segment_areas(t, c, cl)
-    cum = np.concatenate(([0.0], np.cumsum(seg)))
+    cl = _left_limits(t, c, jumps)
+    cum = _cumulative(t, c, cl)
     lo = float(t[0]) if start is None else float(start)
     hi = float(t[-1]) if end is None else float(end)
-    return _auc_between(t, c, cl, cum, lo, hi)
+    return float(_auc_between(t, c, cl, cum, lo, hi)[0])
 
 
-def _auc_between(t: np.ndarray, c: np.ndarray, cl: np.ndarray, cum: np.ndarray, lo: float, hi: float) -> float:
-    """AUC over [lo, hi] from the cumulative segment areas, partial segments interpolated."""
+def _auc_between(t: np.ndarray, c: np.ndarray, cl: np.ndarray, cum: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """AUC over [lo, hi] of each row of a block from the cumulative areas, partial segments interpolated."""
     lo, hi = max(lo, float(t[0])), min(hi, float(t[-1]))
     if hi <= lo:
-        return 0.0
+        return np.zeros(c.shape[0])
     tol = 1e-12 * max(abs(float(t[-1])), 1.0)
     i = int(t.searchsorted(lo - tol))           # first row >= lo
     k = int(t.searchsorted(hi + tol, "right")) - 1   # last row <= hi
@@ -250,34 +286,49 @@ def _auc_between(t: np.ndarray, c: np.ndarray, cl: np.ndarray, cum: np.ndarray, 
         hi = float(t[k])
     if k < i:  # lo and hi inside one segment
         j = k
-        y0 = _interp(t[j], t[j + 1], c[j], cl[j + 1], lo)
-        y1 = _interp(t[j], t[j + 1], c[j], cl[j + 1], hi)
+        y0 = _interp(t[j], t[j + 1], c[:, j], cl[:, j + 1], lo)
+        y1 = _interp(t[j], t[j + 1], c[:, j], cl[:, j + 1], hi)
         return _one_segment(lo, hi, y0, y1)
-    total = float(cum[k] - cum[i])
+    total = cum[:, k] - cum[:, i]
     if t[i] > lo:  # partial segment [lo, t_i] of segment i-1
         j = i - 1
-        total += _one_segment(lo, t[i], _interp(t[j], t[i], c[j], cl[i], lo), cl[i])
+        total = total + _one_segment(lo, t[i], _interp(t[j], t[i], c[:, j], cl[:, i], lo), cl[:, i])
     if t[k] < hi:  # partial segment [t_k, hi] of segment k
-        total += _one_segment(t[k], hi, c[k], _interp(t[k], t[k + 1], c[k], cl[k + 1], hi))
+        total = total + _one_segment(t[k], hi, c[:, k], _interp(t[k], t[k + 1], c[:, k], cl[:, k + 1], hi))
     return total
 
 
-def _one_segment(a: float, b: float, ya: float, yb: float) -> float:
-    """One segment by the rule of :func:`_segment_areas` (on plain numbers: it runs for every interval)."""
+def _one_segment(a: float, b: float, ya: np.ndarray, yb: np.ndarray) -> np.ndarray:
+    """One segment of each subject by the rule of :func:`_segment_areas`."""
     dt = float(b) - float(a)
-    ya, yb = float(ya), float(yb)
-    if yb < ya and yb > 0 and ya > 0:
-        return (ya - yb) * dt / math.log(ya / yb)
-    return 0.5 * (ya + yb) * dt
+    down = (yb < ya) & (yb > 0) & (ya > 0)
+    with np.errstate(all="ignore"):
+        return np.where(down, (ya - yb) * dt / np.log(np.where(down, ya / yb, 2.0)), 0.5 * (ya + yb) * dt)
 
 
-def _interp(a: float, b: float, ya: float, yb: float, x: float) -> float:
+def _interp(a: float, b: float, ya: np.ndarray, yb: np.ndarray, x: float) -> np.ndarray:
+    """The value at ``x`` of each subject on the segment from (a, ya) to (b, yb): log-linear where it falls."""
+    ya, yb = np.asarray(ya, dtype=float), np.asarray(yb, dtype=float)
     if b == a:
-        return ya
+        return ya.copy()
     f = (x - a) / (b - a)
-    if yb < ya and yb > 0 and ya > 0:
-        return float(ya * (yb / ya) ** f)
-    return float(ya + (yb - ya) * f)
+    down = (yb < ya) & (yb > 0) & (ya > 0)
+    with np.errstate(all="ignore"):
+        return np.where(down, ya * (yb / ya) ** f, ya + (yb - ya) * f)
+
+
+
+
+
+
+
+
+
+
+
+
+
+
 
 
 @dataclass(frozen=True)
@@ -344,50 +395,73 @@ def terminal_fit(t: Sequence[float], c: Sequence[float], *, after: float | None 
     """
     if min_points < 3:
         raise ValueError(f"min_points: got {min_points}; must be >= 3 (the adjusted R^2 needs 3 points)")
-    t, c = _asarray(t), _asarray(c)
+    t, c = _asarray(t), _block(c)
     if len(t) == 0:
         return _NO_FIT
     if after is None:
-        after = float(t[int(np.argmax(c))])
-    use = (t > after) & (c > 0) & np.isfinite(c)
-    idx = np.nonzero(use)[0]
-    if len(idx) < min_points:
-        return _NO_FIT
-    # only the trailing run of usable points (a zero in the middle ends the terminal phase)
-    breaks = np.nonzero(np.diff(idx) != 1)[0]
-    if len(breaks):
-        idx = idx[breaks[-1] + 1:]
-    if len(idx) < min_points:
-        return _NO_FIT
-    x = t[idx][::-1]
-    y = np.log(c[idx])[::-1]
+        after = float(t[int(np.argmax(c[0]))])
+    lam, icpt, points, start, adj = (x[0] for x in _terminal_fits(t, c, np.full(1, float(after)), min_points,
+                                                                    adj_r2_tolerance))
+    return TerminalFit(float(lam), float(icpt), int(points), float(start), float(adj))
+
+
+def _terminal_fits(t: np.ndarray, c: np.ndarray, after: np.ndarray, min_points: int,
+                   adj_r2_tolerance: float) -> tuple[np.ndarray, ...]:
+    """:func:`terminal_fit` of each row of a block (n, n_t), each after its own time ``after`` (n,).
+
+    Returns lambda_z, intercept, points, start and adjusted R^2, each (n,) (NaN and 0 points
+    where there is no fit).
+    """
+    n, n_t = c.shape
+    lam, icpt, start, adj_out = (np.full(n, NAN) for _ in range(4))
+    points = np.zeros(n, dtype=np.int64)
+    with np.errstate(invalid="ignore"):
+        use = (t > after[:, None]) & (c > 0) & np.isfinite(c)
+    # only the trailing run of usable points of each row (a zero in the middle ends the terminal phase)
+    cols = np.arange(n_t)
+    last = n_t - 1 - np.argmax(use[:, ::-1], axis=1)
+    gap = np.max(np.where(~use & (cols <= last[:, None]), cols, -1), axis=1)
+    length = np.where(use.any(axis=1), last - gap, 0)
+    rows = np.flatnonzero(length >= min_points)
+    if not len(rows):
+        return lam, icpt, points, start, adj_out
     # fits over the last n points, n = 1..N, by cumulative sums from the end; shifting by the
     # last point keeps the sums small (no cancellation for the short fits)
-    x0, y0 = x[0], y[0]
-    xs, ys = x - x0, y - y0
-    n = np.arange(1, len(x) + 1, dtype=float)
-    xm = np.cumsum(xs) / n
-    ym = np.cumsum(ys) / n
-    sxx = np.cumsum(xs * xs) - n * xm * xm
-    sxy = np.cumsum(xs * ys) - n * xm * ym
-    syy = np.cumsum(ys * ys) - n * ym * ym
-    k = np.arange(min_points - 1, len(x))
-    slope = sxy[k] / np.where(sxx[k] > 0, sxx[k], np.inf)
-    ss_res = np.maximum(syy[k] - slope * sxy[k], 0.0)
-    r2 = np.where(syy[k] > 0, 1.0 - ss_res / np.where(syy[k] > 0, syy[k], 1.0), 1.0)
-    nk = n[k]
-    adj = 1.0 - (1.0 - r2) * (nk - 1.0) / (nk - 2.0)
-    ok = slope < 0
-    if not np.any(ok):
-        return _NO_FIT
+    end, size = last[rows], length[rows]
+    m = np.arange(int(size.max()))
+    valid = m < size[:, None]
+    at = np.where(valid, end[:, None] - m, end[:, None])
+    x = t[at]
+    y = np.log(c[rows[:, None], at])
+    x0, y0 = x[:, :1], y[:, :1]
+    xs = np.where(valid, x - x0, 0.0)
+    ys = np.where(valid, y - y0, 0.0)
+    num = m + 1.0
+    xm = np.cumsum(xs, axis=1) / num
+    ym = np.cumsum(ys, axis=1) / num
+    sxx = np.cumsum(xs * xs, axis=1) - num * xm * xm
+    sxy = np.cumsum(xs * ys, axis=1) - num * xm * ym
+    syy = np.cumsum(ys * ys, axis=1) - num * ym * ym
+    slope = sxy / np.where(sxx > 0, sxx, np.inf)
+    ss_res = np.maximum(syy - slope * sxy, 0.0)
+    r2 = np.where(syy > 0, 1.0 - ss_res / np.where(syy > 0, syy, 1.0), 1.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        adj = 1.0 - (1.0 - r2) * (num - 1.0) / (num - 2.0)
+    ok = (slope < 0) & valid & (m >= min_points - 1)
+    fitted = ok.any(axis=1)
     adj_ok = np.where(ok, adj, -np.inf)
-    best = float(np.max(adj_ok))
-    choice = int(np.nonzero(adj_ok >= best - adj_r2_tolerance)[0][-1])
-    npts = int(nk[choice])
-    lam = float(-slope[choice])
-    kc = k[choice]
-    icpt = float(y0 + ym[kc] - slope[choice] * (x0 + xm[kc]))
-    return TerminalFit(lam, icpt, npts, float(x[npts - 1]), float(adj[choice]))
+    best = np.max(adj_ok, axis=1)
+    near = adj_ok >= (best - adj_r2_tolerance)[:, None]
+    choice = len(m) - 1 - np.argmax(near[:, ::-1], axis=1)
+    r = np.arange(len(rows))
+    slope_c = slope[r, choice]
+    into = rows[fitted]
+    lam[into] = -slope_c[fitted]
+    icpt[into] = (y0[:, 0] + ym[r, choice] - slope_c * (x0[:, 0] + xm[r, choice]))[fitted]
+    points[into] = choice[fitted] + 1
+    start[into] = x[r, choice][fitted]
+    adj_out[into] = adj[r, choice][fitted]
+    return lam, icpt, points, start, adj_out
 
 
 def time_above(t: Sequence[float], c: Sequence[float], threshold: float, jumps: Sequence[float] = ()) -> float:
@@ -410,24 +484,35 @@ def time_above(t: Sequence[float], c: Sequence[float], threshold: float, jumps: 
     >>> time_above([0, 1, 2, 3], [0, 2, 2, 0], 1.0)
     2.0
     """
-    t, c = _asarray(t), _asarray(c)
-    cl = left_limits(t, c, jumps)
-    a, b = c[:-1] - threshold, cl[1:] - threshold
+    t, c = _asarray(t), _block(c)
+    return float(_time_above(t, c, _left_limits(t, c, jumps), threshold)[0])
+
+
+def _time_above(t: np.ndarray, c: np.ndarray, cl: np.ndarray, threshold: float) -> np.ndarray:
+    """:func:`time_above` of each row of a block, with its left limits ``cl``."""
+    a, b = c[:, :-1] - threshold, cl[:, 1:] - threshold
     dt = np.diff(t)
     both = (a > 0) & (b > 0)
     one = (a > 0) ^ (b > 0)
-    part = np.zeros_like(dt)
-    part[one] = dt[one] * np.maximum(a[one], b[one]) / (np.abs(a[one]) + np.abs(b[one]))
-    return float(np.sum(dt[both]) + np.sum(part))
+    with np.errstate(all="ignore"):
+        part = np.where(one, dt * np.maximum(a, b) / (np.abs(a) + np.abs(b)), 0.0)
+    return np.sum(np.where(both, dt, 0.0), axis=1) + np.sum(part, axis=1)
+
+
 
 
 def application_times(scenario: Scenario, end: float | None = None) -> tuple[float, ...]:
     """Times at which substance is applied: time 0 if a compartment or a barrier layer starts
     loaded, and the start of every bolus, infusion, hold and replace dose up to ``end`` (default:
-    the duration), h."""
+    the duration), h.
+
+    The same for every subject of a stacked scenario (:func:`barrierflow.model.cohort.stacked`);
+    a starting content that is zero for some subjects only raises
+    :class:`~barrierflow.model.cohort.Diverging`."""
     end = scenario.duration if end is None else end
     times = set()
-    if any(c.starting_concentration > 0 for c in scenario.compartments) or any(b.loaded for b in scenario.barriers):
+    if (any(decide(c.starting_concentration > 0) for c in scenario.compartments)
+            or any(decide(layer.initial_concentration > 0) for b in scenario.barriers for layer in b.layers)):
         times.add(0.0)
     for d in scenario.doses:
         if d.kind in _ADDING:
@@ -449,8 +534,8 @@ def _ends_application(d: Any) -> bool:
     """A dose that takes an applied formulation off: a full remove, one that ends contact, or a
     replace or hold at zero (a wash with blank vehicle)."""
     if d.kind == "remove":
-        return d.removed_fraction >= 1.0 or d.closes
-    return d.kind in ("replace", "hold") and d.concentration == 0
+        return decide(d.removed_fraction >= 1.0) or d.closes
+    return d.kind in ("replace", "hold") and decide(d.concentration == 0)
 
 
 def last_input_end(scenario: Scenario, result: Any = None, end: float | None = None) -> tuple[float | None, str]:
@@ -477,32 +562,40 @@ def last_input_end(scenario: Scenario, result: Any = None, end: float | None = N
     reason : str
         Which input still acts at the end ("" when ``time`` is a number).
     """
-    end = scenario.duration if end is None else end
+    ends, reasons = _input_ends(scenario, result, scenario.duration if end is None else end, 1)
+    return (None if math.isnan(ends[0]) else float(ends[0])), str(reasons[0])
+
+
+def _input_ends(scenario: Scenario, result: Any, end: float, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`last_input_end` of each of ``n`` subjects (a stacked scenario and a block of
+    traces): the times (n,), NaN where an input still acts, and the reasons (n,) ("" where none)."""
     sites = {b.from_id for b in scenario.barriers}
-    ends: list[float] = [0.0]
+    ends: list[Any] = [0.0]
     ongoing: list[str] = []
     applied: dict[str, list[float]] = {}
     for c in scenario.compartments:
         if c.held:
-            if c.held_concentration > 0:
+            if decide(c.held_concentration > 0):
                 ongoing.append(f"compartment '{c.id}' is held above zero (an infinite dose)")
-        elif c.initial_concentration > 0 and c.id in sites:
+        elif decide(c.initial_concentration > 0) and c.id in sites:
             applied.setdefault(c.id, []).append(0.0)
     for i, d in enumerate(scenario.doses, start=1):
         times = d.start_times(end)
         if not times:
             continue
-        adds = d.kind == "bolus" or (d.kind == "replace" and d.concentration > 0)
+        adds = d.kind == "bolus" or (d.kind == "replace" and decide(d.concentration > 0))
         if adds and d.target in sites:
             applied.setdefault(d.target, []).extend(times)
         elif d.kind == "bolus":
             ends.append(max(times))
-        elif d.kind in ("infusion", "hold") and (d.kind == "infusion" or d.concentration > 0):
+        elif d.kind in ("infusion", "hold") and (d.kind == "infusion" or decide(d.concentration > 0)):
             stop = max(times) + d.duration
-            if stop >= end * (1 - 1e-12):
+            if decide(stop >= end * (1 - 1e-12)):
                 ongoing.append(f"dose {i} ({d.kind} on '{d.target}') runs to the end of the run")
             else:
                 ends.append(stop)
+    # an applied formulation that is neither taken off nor exhausted: for some subjects only
+    pending: list[tuple[np.ndarray, str]] = []
     for cid, starts in applied.items():
         last = max(starts)
         offs = [t for d in scenario.doses if d.target == cid and _ends_application(d)
@@ -510,27 +603,49 @@ def last_input_end(scenario: Scenario, result: Any = None, end: float | None = N
         if offs:
             ends.append(min(offs))
             continue
-        gone = _exhausted(result, cid, last) if result is not None else None
-        if gone is not None:
-            ends.append(gone)
-        else:
-            ongoing.append(f"the formulation applied to '{cid}' at {last:.4g} h is neither taken off nor exhausted "
-                           "by the end of the run")
-    if ongoing:
-        return None, "; ".join(ongoing)
-    return max(ends), ""
+        gone = _exhausted(result, cid, last, n) if result is not None else np.full(n, NAN)
+        never = np.isnan(gone)
+        ends.append(np.where(never, -np.inf, gone))
+        if never.any():
+            pending.append((never, f"the formulation applied to '{cid}' at {last:.4g} h is neither taken off nor "
+                                   "exhausted by the end of the run"))
+    times = _each(ends[0], n)
+    for e in ends[1:]:
+        times = np.maximum(times, _each(e, n))
+    reasons = _texts(n)
+    code = np.zeros(n, dtype=np.int64)
+    for k, (mask, _) in enumerate(pending):
+        code |= mask.astype(np.int64) << k
+    acting = (code > 0) | bool(ongoing)
+    if acting.any():
+        times = np.where(acting, NAN, times)
+        for which in np.unique(code[acting]).tolist():
+            reasons[acting & (code == which)] = "; ".join(ongoing + [text for k, (_, text) in enumerate(pending)
+                                                                     if which >> k & 1])
+    return times, reasons
 
 
-def _exhausted(result: Any, cid: str, start: float) -> float | None:
-    """The first output time from ``start`` on at which ``cid`` holds less than
-    :data:`EXHAUSTED_FRACTION` of what it held at ``start``, or None."""
+def _exhausted(result: Any, cid: str, start: float, n: int) -> np.ndarray:
+    """For each subject, the first output time from ``start`` on at which ``cid`` holds less than
+    :data:`EXHAUSTED_FRACTION` of what it held at ``start``, or NaN."""
     t = np.asarray(result.times, dtype=float)
-    m = np.asarray(result.amount(cid), dtype=float)
+    m = _block(result.amount(cid))
     rows = np.nonzero(t >= start - 1e-9 * max(abs(float(t[-1])), 1.0))[0]
-    if not len(rows) or not m[rows[0]] > 0:
-        return None
-    low = np.nonzero(m[rows] < EXHAUSTED_FRACTION * m[rows[0]])[0]
-    return float(t[rows[low[0]]]) if len(low) else None
+    if not len(rows):
+        return np.full(n, NAN)
+    held = m[:, rows[0]]
+    with np.errstate(invalid="ignore"):
+        low = m[:, rows] < EXHAUSTED_FRACTION * held[:, None]
+    found = (held > 0) & low.any(axis=1)
+    return np.where(found, t[rows[np.argmax(low, axis=1)]], NAN)
+
+
+
+
+
+
+
+
 
 
 def dosing_intervals(applications: Sequence[float], end: float) -> tuple[tuple[float, float], ...]:
@@ -636,55 +751,80 @@ def time_lag_fit(t: Sequence[float], permeated: Sequence[float], flux: Sequence[
     >>> fit.lag_time != fit.lag_time, fit.reason.startswith("no steady line")
     (True, True)
     """
-    t, q, j = _asarray(t), _asarray(permeated), _asarray(flux)
+    lag, slope, w0, w1, points, r2, reason = (x[0] for x in _lag_fits(
+        _asarray(t), _block(permeated), _block(flux), origin, end, tolerance, window_lags))
+    return LagFit(float(lag), float(slope), (float(w0), float(w1)), int(points), float(r2), str(reason))
+
+
+def _lag_fits(t: np.ndarray, q: np.ndarray, j: np.ndarray, origin: float, end: float | None, tolerance: float,
+              window_lags: float) -> tuple[np.ndarray, ...]:
+    """:func:`time_lag_fit` of each row of the blocks ``q`` and ``j`` (n, n_t).
+
+    Returns the lag times, steady fluxes, window starts and ends, points, R^2 and reasons, each (n,).
+    """
+    n = q.shape[0]
+    lag, steady, w0, w1, r2_out = (np.full(n, NAN) for _ in range(5))
+    points = np.zeros(n, dtype=np.int64)
+    reason = _texts(n)
+    out = (lag, steady, w0, w1, points, r2_out, reason)
     hi = t[-1] if end is None else end
     sel = np.nonzero((t >= origin) & (t <= hi * (1 + 1e-12) + 1e-12))[0]
     if len(sel) < 3:
-        return dataclasses.replace(_NO_LAG, reason="fewer than 3 output times in the first dosing interval")
-    js = j[sel]
-    k = int(np.argmax(js))
-    peak = js[k]
-    if not peak > 0:
-        return dataclasses.replace(_NO_LAG, reason="nothing crossed the barrier (the flux never rises above 0)")
-    good = js >= (1.0 - tolerance) * peak
-    lo_k = k
-    while lo_k > 0 and good[lo_k - 1]:
-        lo_k -= 1
-    hi_k = k
-    while hi_k < len(js) - 1 and good[hi_k + 1]:
-        hi_k += 1
-    rows = sel[lo_k:hi_k + 1]
-    if len(rows) < 3:
-        return dataclasses.replace(_NO_LAG, reason=f"no steady line: the flux stays within {tolerance:.0%} of its "
-                                   f"peak at fewer than 3 output times")
-    x, y = t[rows], q[rows]
-    # the least-squares line (the normal equations about the means; numpy.polyfit gives the same
-    # line through a general least-squares solver, ten times slower on these few points)
-    xm, ym = float(x.mean()), float(y.mean())
-    dx = x - xm
-    sxx = float(dx @ dx)
-    if not sxx > 0:
-        return _NO_LAG
-    slope = float(dx @ (y - ym)) / sxx
-    icpt = ym - slope * xm
-    resid = y - (slope * x + icpt)
-    ss = float(np.sum((y - y.mean()) ** 2))
-    r2 = 1.0 - float(np.sum(resid**2)) / ss if ss > 0 else 1.0
-    if not slope > 0:
-        return dataclasses.replace(_NO_LAG, reason="no steady line: the cumulative amount does not rise")
-    lag = float(-icpt / slope - origin)
-    span = float(x[-1] - x[0])
-    blank = dataclasses.replace(_NO_LAG, window=(float(x[0]), float(x[-1])), points=len(rows), r2=r2)
-    if hi_k < len(js) - 1:
-        return dataclasses.replace(blank, reason=(
-            f"no steady line: the flux falls more than {tolerance:.0%} below its peak (at {t[sel[k]]:.4g} h) again "
-            f"by {t[sel[hi_k + 1]]:.4g} h, within the first dosing interval: a transient peak (a finite dose running "
-            "out, a receptor filling up), not a steady state"))
-    if span < window_lags * abs(lag):
-        return dataclasses.replace(blank, reason=(
-            f"no steady line yet: the flux is steady only from {x[0]:.4g} h to {x[-1]:.4g} h, shorter than the "
-            f"apparent lag ({abs(lag):.4g} h); a longer run (or first dosing interval) would show one"))
-    return LagFit(lag, float(slope), (float(x[0]), float(x[-1])), len(rows), r2)
+        reason[:] = "fewer than 3 output times in the first dosing interval"
+        return out
+    js = j[:, sel]
+    ns = len(sel)
+    k = np.argmax(js, axis=1)
+    peak = js[np.arange(n), k]
+    nothing = ~(peak > 0)
+    reason[nothing] = "nothing crossed the barrier (the flux never rises above 0)"
+    # the run of points around the peak within the tolerance
+    with np.errstate(invalid="ignore"):
+        good = js >= ((1.0 - tolerance) * peak)[:, None]
+    cols = np.arange(ns)
+    lo_k = np.max(np.where(~good & (cols < k[:, None]), cols, -1), axis=1) + 1
+    hi_k = np.min(np.where(~good & (cols > k[:, None]), cols, ns), axis=1) - 1
+    size = hi_k - lo_k + 1
+    few = ~nothing & (size < 3)
+    reason[few] = f"no steady line: the flux stays within {tolerance:.0%} of its peak at fewer than 3 output times"
+    rows = np.flatnonzero(~nothing & ~few)
+    if not len(rows):
+        return out
+    lo_k, hi_k, size, k = lo_k[rows], hi_k[rows], size[rows], k[rows]
+    inside = (cols >= lo_k[:, None]) & (cols <= hi_k[:, None])
+    x, y = t[sel], q[rows][:, sel]
+    # the least-squares line of each window (the normal equations about the means)
+    xm = np.sum(np.where(inside, x, 0.0), axis=1) / size
+    ym = np.sum(np.where(inside, y, 0.0), axis=1) / size
+    dx = np.where(inside, x - xm[:, None], 0.0)
+    sxx = np.sum(dx * dx, axis=1)
+    with np.errstate(all="ignore"):
+        slope = np.sum(dx * np.where(inside, y - ym[:, None], 0.0), axis=1) / sxx
+        icpt = ym - slope * xm
+        resid = np.where(inside, y - (slope[:, None] * x + icpt[:, None]), 0.0)
+        ss = np.sum(np.where(inside, (y - ym[:, None]) ** 2, 0.0), axis=1)
+        r2 = np.where(ss > 0, 1.0 - np.sum(resid**2, axis=1) / ss, 1.0)
+        lags = -icpt / slope - origin
+    line = sxx > 0
+    rising = line & (slope > 0)
+    reason[rows[line & ~rising]] = "no steady line: the cumulative amount does not rise"
+    first, final = x[lo_k], x[hi_k]
+    transient = rising & (hi_k < ns - 1)
+    short = rising & ~transient & (final - first < window_lags * np.abs(lags))
+    for i in np.flatnonzero(transient).tolist():
+        reason[rows[i]] = (
+            f"no steady line: the flux falls more than {tolerance:.0%} below its peak (at {t[sel[k[i]]]:.4g} h) again "
+            f"by {t[sel[hi_k[i] + 1]]:.4g} h, within the first dosing interval: a transient peak (a finite dose "
+            "running out, a receptor filling up), not a steady state")
+    for i in np.flatnonzero(short).tolist():
+        reason[rows[i]] = (
+            f"no steady line yet: the flux is steady only from {first[i]:.4g} h to {final[i]:.4g} h, shorter than "
+            f"the apparent lag ({abs(lags[i]):.4g} h); a longer run (or first dosing interval) would show one")
+    shown = rows[rising]
+    w0[shown], w1[shown], points[shown], r2_out[shown] = first[rising], final[rising], size[rising], r2[rising]
+    fitted = rising & ~transient & ~short
+    lag[rows[fitted]], steady[rows[fitted]] = lags[fitted], slope[fitted]
+    return out
 
 
 # ----------------------------------------------------------------------------- typed table
@@ -810,7 +950,6 @@ class BarrierMetrics:
     notes: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
-
 # unit kinds of every field, for the rows in output units
 _C_UNITS = {
     "cmax": "conc", "tmax": "time", "cmin": "conc", "cmax_interval": "conc", "auc": "auc", "auc_inf": "auc",
@@ -823,6 +962,8 @@ _B_UNITS = {
     "lag_time": "time", "steady_flux": "flux", "lag_points": "count", "lag_r2": "1", "applied": "amount",
     "fraction_absorbed": "1", "content": "amount", "content_fraction": "1",
 }
+_C_FIELDS = tuple(f.name for f in fields(CompartmentMetrics) if f.name in _C_UNITS)
+_B_FIELDS = tuple(f.name for f in fields(BarrierMetrics) if f.name in _B_UNITS)
 _INTERNAL = {"conc": "mg/mL", "time": "h", "auc": "mg*h/mL", "rate": "1/h", "flux": "mg/(cm^2*h)",
              "per_area": "mg/cm^2", "amount": "mg", "%": "%", "1": "", "count": "", "bool": ""}
 
@@ -899,19 +1040,29 @@ class Metrics:
             "input_end_h": clean(self.input_end) if self.input_end is not None else None,
         }
 
-    def _factors(self, units: OutputUnits | None) -> dict[str, tuple[float, str]]:
+    def _factors(self, units: OutputUnits | None) -> dict[str, tuple[Any, str]]:
         u = units or self.output_units
         mm = self.molar_mass
-        ft = unit_factor("time", u.time)
-        fc = unit_factor("concentration", u.concentration, mm)
-        fa = unit_factor("amount", u.amount, mm)
-        farea = unit_factor("area", u.area)
-        return {
-            "conc": (fc, u.concentration), "time": (ft, u.time), "auc": (fc * ft, f"{u.concentration}*{u.time}"),
-            "rate": (1.0 / ft, f"1/{u.time}"), "flux": (fa / farea / ft, f"{u.amount}/({u.area}*{u.time})"),
-            "per_area": (fa / farea, f"{u.amount}/{u.area}"), "amount": (fa, u.amount),
-            "%": (1.0, "%"), "1": (1.0, ""), "count": (1.0, ""), "bool": (1.0, ""),
-        }
+        if isinstance(mm, np.ndarray):  # many subjects, each its own molar mass: a factor per subject
+            each, which = np.unique(np.asarray(mm, dtype=float).reshape(-1), return_inverse=True)
+            per = [_unit_factors(u, float(x)) for x in each]
+            return {k: (np.array([p[k][0] for p in per])[which], unit) for k, (_, unit) in per[0].items()}
+        return _unit_factors(u, mm)
+
+    def _entries(self) -> Any:
+        """Every metric as ``(kind, id, metric, value, unit kind, notes)``, in the order of the rows."""
+        for m in self.compartments:
+            for name in _C_FIELDS:
+                yield "compartment", m.id, name, getattr(m, name), _C_UNITS[name], m.notes
+            yield "compartment", m.id, "interval_start", m.interval[0], "time", m.notes
+            yield "compartment", m.id, "interval_end", m.interval[1], "time", m.notes
+            for i, a in enumerate(m.interval_aucs, start=1):
+                yield "compartment", m.id, f"auc_interval_{i}", a, "auc", m.notes
+        for m in self.barriers:
+            for name in _B_FIELDS:
+                yield "barrier", m.id, name, getattr(m, name), _B_UNITS[name], m.notes
+            yield "barrier", m.id, "lag_window_start", m.lag_window[0], "time", m.notes
+            yield "barrier", m.id, "lag_window_end", m.lag_window[1], "time", m.notes
 
     def to_rows(self, units: OutputUnits | None = None) -> list[tuple[str, str, str, Any, str, str]]:
         """Rows ``(kind, id, metric, value, unit, note)`` in ``units`` (default: the scenario's output units).
@@ -922,8 +1073,7 @@ class Metrics:
         """
         fac = self._factors(units)
         rows: list[tuple[str, str, str, Any, str, str]] = []
-
-        def put(kind: str, ident: str, name: str, value: Any, ukind: str, notes: Mapping[str, str]) -> None:
+        for kind, ident, name, value, ukind, notes in self._entries():
             f, unit = fac[ukind]
             note = notes.get(name, "")
             if value is None or (isinstance(value, float) and math.isnan(value)):
@@ -934,24 +1084,44 @@ class Metrics:
                 rows.append((kind, ident, name, int(value), unit, note))
             else:
                 rows.append((kind, ident, name, float(value) * f, unit, note))
-
-        for m in self.compartments:
-            for fld in fields(m):
-                name = fld.name
-                if name in _C_UNITS:
-                    put("compartment", m.id, name, getattr(m, name), _C_UNITS[name], m.notes)
-            put("compartment", m.id, "interval_start", m.interval[0], "time", m.notes)
-            put("compartment", m.id, "interval_end", m.interval[1], "time", m.notes)
-            for i, a in enumerate(m.interval_aucs, start=1):
-                put("compartment", m.id, f"auc_interval_{i}", a, "auc", m.notes)
-        for m in self.barriers:
-            for fld in fields(m):
-                name = fld.name
-                if name in _B_UNITS:
-                    put("barrier", m.id, name, getattr(m, name), _B_UNITS[name], m.notes)
-            put("barrier", m.id, "lag_window_start", m.lag_window[0], "time", m.notes)
-            put("barrier", m.id, "lag_window_end", m.lag_window[1], "time", m.notes)
         return rows
+
+    def columns(self, units: OutputUnits | None = None) -> tuple[tuple[str, ...], tuple[str, ...], np.ndarray]:
+        """The metrics as a table with one row per subject (one row for a single run).
+
+        Returns
+        -------
+        names : tuple of str
+            ``"<metric>:<id>"`` in the order of :meth:`to_rows`.
+        units : tuple of str
+            The unit of each, in ``units`` (default: the scenario's output units).
+        values : ndarray (n_subjects, n_metrics)
+            The values of :meth:`to_rows`; NaN where a metric is blank, yes/no as 1 and 0.
+        """
+        fac = self._factors(units)
+        entries = list(self._entries())
+        n = np.size(self.compartments[0].cmax) if self.compartments else np.size(self.barriers[0].peak_flux)
+        values = np.full((n, len(entries)), np.nan)
+        for col, (_, _, _, value, ukind, _) in enumerate(entries):
+            if value is None:
+                continue
+            if ukind in ("bool", "count"):
+                values[:, col] = value
+            else:
+                values[:, col] = value * fac[ukind][0]
+        return (tuple(f"{name}:{ident}" for _, ident, name, *_ in entries),
+                tuple(fac[ukind][1] for *_, ukind, _ in entries), values)
+
+    def subject(self, i: int) -> Metrics:
+        """Subject ``i``'s metrics from those of many subjects (:func:`compute_metrics` on a block):
+        what its own run gives."""
+        mm = self.molar_mass
+        end = np.asarray(self.input_end, dtype=float).reshape(-1)[i]
+        return Metrics(tuple(_subject_of(m, i) for m in self.compartments),
+                       tuple(_subject_of(m, i) for m in self.barriers), self.application_times, self.intervals,
+                       self.duration, self.output_units,
+                       float(np.reshape(mm, -1)[i]) if isinstance(mm, np.ndarray) else mm,
+                       None if math.isnan(end) else float(end))
 
     def to_csv(self, units: OutputUnits | None = None) -> str:
         """The rows of :meth:`to_rows` as CSV text with the columns :data:`CSV_COLUMNS`.
@@ -1006,6 +1176,42 @@ class Metrics:
         return "\n".join(lines)
 
 
+def _unit_factors(u: OutputUnits, mm: float | None) -> dict[str, tuple[float, str]]:
+    """Internal unit -> ``u`` for each unit kind of the metrics: (factor, unit)."""
+    ft = unit_factor("time", u.time)
+    fc = unit_factor("concentration", u.concentration, mm)
+    fa = unit_factor("amount", u.amount, mm)
+    farea = unit_factor("area", u.area)
+    return {
+        "conc": (fc, u.concentration), "time": (ft, u.time), "auc": (fc * ft, f"{u.concentration}*{u.time}"),
+        "rate": (1.0 / ft, f"1/{u.time}"), "flux": (fa / farea / ft, f"{u.amount}/({u.area}*{u.time})"),
+        "per_area": (fa / farea, f"{u.amount}/{u.area}"), "amount": (fa, u.amount),
+        "%": (1.0, "%"), "1": (1.0, ""), "count": (1.0, ""), "bool": (1.0, ""),
+    }
+
+
+def _subject_of(m: Any, i: int) -> Any:
+    """Subject ``i``'s :class:`CompartmentMetrics` or :class:`BarrierMetrics` (plain numbers and its
+    own notes) from those of many subjects (an array per field)."""
+    kw: dict[str, Any] = {}
+    for f in fields(m):
+        v = getattr(m, f.name)
+        if f.name == "notes":
+            kw["notes"] = {k: str(x[i]) for k, x in v.items() if x[i]}
+        elif f.name == "steady_state_reached":
+            kw[f.name] = None if math.isnan(v[i]) else bool(v[i])
+        elif isinstance(v, tuple):
+            kw[f.name] = tuple(float(x[i]) if isinstance(x, np.ndarray) else float(x) for x in v)
+        elif isinstance(v, np.ndarray):
+            kw[f.name] = int(v[i]) if f.name in _WHOLE else float(v[i])
+        else:
+            kw[f.name] = v
+    return type(m)(**kw)
+
+
+_WHOLE = ("terminal_points", "lag_points")
+
+
 def _table(first: str, rows: list[tuple[str, list[str]]], heads: list[str]) -> list[str]:
     cols = [[first] + [r[0] for r in rows]] + [[h] + [r[1][i] for r in rows] for i, h in enumerate(heads)]
     widths = [max(len(x) for x in col) for col in cols]
@@ -1058,84 +1264,101 @@ def exposure_metrics(
     CompartmentMetrics
         Blank (NaN) metrics carry their reason in ``notes``.
     """
-    t, c = _asarray(t), _asarray(c)
+    t, c = _asarray(t), _block(c)
+    if input_end == _LAST_APPLICATION:
+        input_end = max([x for x in applications if x <= float(t[-1])], default=float(t[0]))
+    ends = np.full(1, NAN if input_end is None else float(input_end))
+    block = _exposure(t, c, applications, jumps, threshold, cid, adj_r2_tolerance, ends, _texts(1, input_reason))
+    return _subject_of(block, 0)
+
+
+def _exposure(t: np.ndarray, c: np.ndarray, applications: Sequence[float], jumps: Sequence[float],
+              threshold: float | None, cid: str, adj_r2_tolerance: float, input_end: np.ndarray,
+              input_reason: np.ndarray) -> CompartmentMetrics:
+    """:func:`exposure_metrics` of each row of a block (n, n_t): every field an array (n,), the
+    notes arrays of texts (``""`` where a subject has none). ``input_end`` (n,) is NaN where an
+    input still acts at the end."""
+    n = c.shape[0]
     end = float(t[-1])
-    k = int(np.argmax(c))
-    cmax, tmax = float(c[k]), float(t[k])
+    k = np.argmax(c, axis=1)
+    cmax, tmax = c[np.arange(n), k], t[k]
     intervals = dosing_intervals(applications, end) or ((float(t[0]), end),)
-    cl = left_limits(t, c, jumps)
-    cum = np.concatenate(([0.0], np.cumsum(_segment_areas(t, c, cl)))) if len(t) > 1 else np.zeros(1)
-    total = float(cum[-1])
+    cl = _left_limits(t, c, jumps)
+    cum = _cumulative(t, c, cl)
+    total = cum[:, -1]
     aucs = tuple(_auc_between(t, c, cl, cum, a, b) for a, b in intervals)
     a, b = intervals[-1]
     inside = (t >= a - 1e-12) & (t < b - 1e-9 * max(b, 1.0))
-    vals = list(c[inside])
     end_rows = _rows_at(t, [b])
-    if end_rows:
-        vals.append(cl[end_rows[0]])
-    else:
-        vals.append(_interp_trace(t, c, b))
-    cmin = float(min(vals)) if vals else NAN
-    cmax_i = float(max(vals)) if vals else NAN
+    last = cl[:, end_rows[0]] if end_rows else _interp_trace(t, c, b)
+    vals = np.concatenate((c[:, inside], last[:, None]), axis=1)
+    cmin, cmax_i = np.min(vals, axis=1), np.max(vals, axis=1)
     # terminal phase: after the last input has ended and after the Cmax that follows it
-    notes: dict[str, str] = {}
-    if input_end == _LAST_APPLICATION:
-        input_end = max([x for x in applications if x <= end], default=float(t[0]))
-    fit = _NO_FIT
-    if input_end is None:
-        why = f"no terminal phase: an input still acts at the end of the run ({input_reason})"
-    else:
-        after_mask = t >= float(input_end) - 1e-9 * max(abs(end), 1.0)
-        why = ""
-        if np.any(after_mask):
-            j0 = int(np.nonzero(after_mask)[0][0])
-            kk = j0 + int(np.argmax(c[j0:]))
-            fit = terminal_fit(t, c, after=float(t[kk]), adj_r2_tolerance=adj_r2_tolerance)
-        if not fit.lambda_z > 0:
-            why = (f"no terminal phase: fewer than 3 falling, positive points after the last input ended "
-                   f"({float(input_end):.4g} h) and the highest value after it")
-    if why:
+    lam, icpt, points, start, adj = (np.full(n, NAN) for _ in range(5))
+    points = np.zeros(n, dtype=np.int64)
+    with np.errstate(invalid="ignore"):
+        after_end = t >= (input_end - 1e-9 * max(abs(end), 1.0))[:, None]
+    ended = ~np.isnan(input_end)
+    rows = np.flatnonzero(ended & after_end.any(axis=1))
+    if len(rows):
+        j0 = np.argmax(after_end[rows], axis=1)
+        kk = np.argmax(np.where(np.arange(len(t)) >= j0[:, None], c[rows], -np.inf), axis=1)
+        fits = _terminal_fits(t, c[rows], t[kk], 3, adj_r2_tolerance)
+        for whole, part in zip((lam, icpt, points, start, adj), fits, strict=True):
+            whole[rows] = part
+    notes: dict[str, np.ndarray] = {}
+    why = _texts(n)
+    for text in sorted(set(input_reason[~ended].tolist())):
+        why[~ended & (input_reason == text)] = f"no terminal phase: an input still acts at the end of the run ({text})"
+    for i in np.flatnonzero(ended & ~(lam > 0)).tolist():
+        why[i] = (f"no terminal phase: fewer than 3 falling, positive points after the last input ended "
+                  f"({float(input_end[i]):.4g} h) and the highest value after it")
+    if (why != "").any():
         for name in ("auc_inf", "auc_extrapolated_percent", "lambda_z", "half_life", "terminal_start",
                      "terminal_adj_r2"):
             notes[name] = why
-    if fit.lambda_z > 0:
-        auc_inf = total + float(c[-1]) / fit.lambda_z
-        extra = 100.0 * (auc_inf - total) / auc_inf if auc_inf > 0 else NAN
-    else:
-        auc_inf, extra = NAN, NAN
+    fitted = lam > 0
+    with np.errstate(all="ignore"):
+        auc_inf = np.where(fitted, total + c[:, -1] / lam, NAN)
+        extra = np.where(fitted & (auc_inf > 0), 100.0 * (auc_inf - total) / auc_inf, NAN)
+        half_life = np.where(fitted, math.log(2.0) / lam, NAN)
     span = end - float(t[0])
     n_int = len(aucs)
-    if n_int >= 2 and aucs[0] > 0:
-        acc = aucs[-1] / aucs[0]
-    else:
-        acc = NAN
-    steady = None
-    if n_int >= 2 and aucs[-1] > 0:
-        steady = bool(abs(aucs[-1] - aucs[-2]) <= STEADY_STATE_TOLERANCE * abs(aucs[-1]))
+    acc, steady = np.full(n, NAN), np.full(n, NAN)   # steady state: 1 yes, 0 no, NaN not known
+    if n_int >= 2:
+        with np.errstate(all="ignore"):
+            acc = np.where(aucs[0] > 0, aucs[-1] / aucs[0], NAN)
+            steady = np.where(aucs[-1] > 0, np.abs(aucs[-1] - aucs[-2]) <= STEADY_STATE_TOLERANCE * np.abs(aucs[-1]),
+                              NAN)
     if threshold is None:
-        notes["threshold"] = notes["time_above"] = "no threshold given"
+        notes["threshold"] = notes["time_above"] = _texts(n, "no threshold given")
     if n_int < 2:
-        notes["accumulation_ratio"] = notes["steady_state_reached"] = "a single dosing interval"
-    elif acc != acc or steady is None:
-        notes.setdefault("accumulation_ratio", "no exposure in the first dosing interval")
-        if steady is None:
-            notes["steady_state_reached"] = "no exposure in the last dosing interval"
+        notes["accumulation_ratio"] = notes["steady_state_reached"] = _texts(n, "a single dosing interval")
+    else:
+        unknown = np.isnan(steady)
+        if (np.isnan(acc) | unknown).any():
+            notes["accumulation_ratio"] = np.where(np.isnan(acc) | unknown, "no exposure in the first dosing interval",
+                                                   "").astype(object)
+        if unknown.any():
+            notes["steady_state_reached"] = np.where(unknown, "no exposure in the last dosing interval",
+                                                     "").astype(object)
     return CompartmentMetrics(
         id=cid, cmax=cmax, tmax=tmax, cmin=cmin, cmax_interval=cmax_i, interval=(float(a), float(b)),
-        auc=total, auc_inf=auc_inf, auc_extrapolated_percent=extra, lambda_z=fit.lambda_z,
-        half_life=fit.half_life, terminal_points=fit.points, terminal_start=fit.start,
-        terminal_adj_r2=fit.adj_r2, c_avg=total / span if span > 0 else NAN,
-        c_avg_interval=aucs[-1] / (b - a) if b > a else NAN,
-        threshold=threshold, time_above=None if threshold is None else time_above(t, c, threshold, jumps),
+        auc=total, auc_inf=auc_inf, auc_extrapolated_percent=extra, lambda_z=lam,
+        half_life=half_life, terminal_points=points, terminal_start=start,
+        terminal_adj_r2=adj, c_avg=total / span if span > 0 else np.full(n, NAN),
+        c_avg_interval=aucs[-1] / (b - a) if b > a else np.full(n, NAN),
+        threshold=threshold, time_above=None if threshold is None else _time_above(t, c, cl, threshold),
         interval_aucs=aucs, accumulation_ratio=acc, steady_state_reached=steady, notes=notes,
     )
 
 
-def _interp_trace(t: np.ndarray, c: np.ndarray, x: float) -> float:
-    j = int(np.clip(np.searchsorted(t, x) - 1, 0, len(t) - 2)) if len(t) > 1 else 0
+def _interp_trace(t: np.ndarray, c: np.ndarray, x: float) -> np.ndarray:
+    """The value of each row of a block at ``x``, on its segment (log-linear where it falls)."""
     if len(t) < 2:
-        return float(c[0])
-    return _interp(t[j], t[j + 1], c[j], c[j + 1], x)
+        return c[:, 0].copy()
+    j = int(np.clip(np.searchsorted(t, x) - 1, 0, len(t) - 2))
+    return _interp(t[j], t[j + 1], c[:, j], c[:, j + 1], x)
 
 
 def barrier_metrics(
@@ -1182,33 +1405,48 @@ def barrier_metrics(
     BarrierMetrics
         Blank (NaN) metrics carry their reason in ``notes``.
     """
-    t, j, q, m = _asarray(t), _asarray(flux), _asarray(permeated), _asarray(content)
+    block = _barrier(_asarray(t), _block(flux), _block(permeated), _block(content), _each(area, 1),
+                     _each(applied, 1), applications, bid, lag_tolerance, _texts(1, lag_flag), lag_end)
+    return _subject_of(block, 0)
+
+
+def _barrier(t: np.ndarray, j: np.ndarray, q: np.ndarray, m: np.ndarray, area: np.ndarray, applied: np.ndarray,
+             applications: Sequence[float], bid: str, lag_tolerance: float, lag_flag: np.ndarray,
+             lag_end: float | None) -> BarrierMetrics:
+    """:func:`barrier_metrics` of each row of the blocks (n, n_t), with the area, applied amount and
+    flag of each subject (n,): every field an array (n,), the notes arrays of texts."""
+    n = q.shape[0]
     # the first time the flux comes within PEAK_TOLERANCE of its peak (a plateau has no single top)
-    top = float(np.max(j))
-    k = int(np.nonzero(j >= top - PEAK_TOLERANCE * abs(top))[0][0])
+    top = np.max(j, axis=1)
+    k = np.argmax(j >= (top - PEAK_TOLERANCE * np.abs(top))[:, None], axis=1)
     apps = sorted(x for x in applications if x <= t[-1])
     origin = apps[0] if apps else float(t[0])
     nxt = apps[1] if len(apps) > 1 else None
     if lag_end is not None and (nxt is None or lag_end < nxt):
         nxt = lag_end
-    fit = time_lag_fit(t, q, j, origin=origin, end=nxt, tolerance=lag_tolerance)
-    perm_amount = float(q[-1]) * area
-    finite = math.isfinite(applied) and applied > 0
-    notes: dict[str, str] = {}
-    lag_notes = "; ".join(x for x in (fit.reason, lag_flag) if x)
-    if lag_notes:
+    lag, steady, w0, w1, points, r2, reason = _lag_fits(t, q, j, origin, nxt, lag_tolerance, STEADY_WINDOW_LAGS)
+    perm_amount = q[:, -1] * area
+    finite = np.isfinite(applied) & (applied > 0)
+    notes: dict[str, np.ndarray] = {}
+    lag_notes = _texts(n)
+    for i in np.flatnonzero((reason != "") | (lag_flag != "")).tolist():
+        lag_notes[i] = "; ".join(x for x in (reason[i], lag_flag[i]) if x)
+    if (lag_notes != "").any():
         for name in ("lag_time", "steady_flux", "lag_window_start", "lag_window_end", "lag_points", "lag_r2"):
             notes[name] = lag_notes
-    if not finite:
-        why = ("an infinite dose (a held source): no applied amount to divide by" if applied == math.inf
-               else "nothing was applied to the barrier's 'from' side")
+    if not finite.all():
+        why = np.where(finite, "", np.where(applied == math.inf, "an infinite dose (a held source): no applied "
+                                            "amount to divide by", "nothing was applied to the barrier's 'from' "
+                                            "side")).astype(object)
         notes["fraction_absorbed"] = notes["content_fraction"] = why
+    with np.errstate(all="ignore"):
+        fraction = np.where(finite, perm_amount / applied, NAN)
+        content_fraction = np.where(finite, m[:, -1] / applied, NAN)
     return BarrierMetrics(
-        id=bid, peak_flux=top, peak_flux_time=float(t[k]), permeated=float(q[-1]),
-        permeated_amount=perm_amount, lag_time=fit.lag_time, steady_flux=fit.steady_flux,
-        lag_window=fit.window, lag_points=fit.points, lag_r2=fit.r2, applied=float(applied),
-        fraction_absorbed=perm_amount / applied if finite else NAN, content=float(m[-1]),
-        content_fraction=float(m[-1]) / applied if finite else NAN, notes=notes,
+        id=bid, peak_flux=top, peak_flux_time=t[k], permeated=q[:, -1],
+        permeated_amount=perm_amount, lag_time=lag, steady_flux=steady,
+        lag_window=(w0, w1), lag_points=points, lag_r2=r2, applied=np.array(applied, dtype=float),
+        fraction_absorbed=fraction, content=m[:, -1], content_fraction=content_fraction, notes=notes,
     )
 
 
@@ -1234,46 +1472,59 @@ def applied_to(result: Any, cid: str, barrier: Any = None) -> float:
     -------
     float, mg
     """
+    return float(_applied(result, cid, barrier, 1)[0])
+
+
+def _applied(result: Any, cid: str, barrier: Any, n: int) -> np.ndarray:
+    """:func:`applied_to` of each of ``n`` subjects (a stacked scenario and a block of traces), (n,)."""
     sc = result.scenario
     comp = sc.compartment(cid)
     if comp.held:
-        return math.inf if comp.held_concentration > 0 else 0.0
-    total = comp.initial_concentration * (comp.volume or 0.0)
+        return np.where(_each(comp.held_concentration, n) > 0, math.inf, 0.0)
+    total = comp.initial_concentration * (0.0 if comp.volume is None else comp.volume)
     if barrier is not None:
         total += sum(layer.initial_concentration * layer.thickness * barrier.area for layer in barrier.layers)
-    events, infused, supply = (np.asarray(x, dtype=float) for x in result.dose_parts(cid))
-    if not len(events):
-        return float(total)
-    events = np.diff(np.concatenate(([0.0], events)))
-    supply = np.diff(np.concatenate(([0.0], supply)))
-    return float(total + np.sum(np.maximum(events, 0.0)) + np.sum(np.maximum(supply, 0.0)) + infused[-1])
+    events, infused, supply = (_block(x) for x in result.dose_parts(cid))
+    total = _each(total, n)
+    if not events.shape[1]:
+        return total.copy()
+    events = np.diff(events, axis=1, prepend=0.0)
+    supply = np.diff(supply, axis=1, prepend=0.0)
+    return total + np.sum(np.maximum(events, 0.0), axis=1) + np.sum(np.maximum(supply, 0.0), axis=1) + infused[:, -1]
 
 
 def closed_receptor_time(result: Any, barrier: Any, start: float, stop: float) -> float | None:
     """The first output time in [start, stop] at which barrier's closed ``to`` compartment holds
     a C/K above :data:`CLOSED_RECEPTOR_FRACTION` of the ``from`` side's (None when it never does,
     or when ``to`` is held, a sink)."""
+    when = float(_closed_receptor_times(result, barrier, start, stop, 1)[0])
+    return None if math.isnan(when) else when
+
+
+def _closed_receptor_times(result: Any, barrier: Any, start: float, stop: float, n: int) -> np.ndarray:
+    """:func:`closed_receptor_time` of each of ``n`` subjects, (n,), NaN where never."""
     sc = result.scenario
     to, frm = sc.compartment(barrier.to_id), sc.compartment(barrier.from_id)
     if to.held:
-        return None
+        return np.full(n, NAN)
     t = np.asarray(result.times, dtype=float)
-    u_to = np.asarray(result.concentration(to.id), dtype=float) / to.partition
-    u_from = np.asarray(result.concentration(frm.id), dtype=float) / frm.partition
+    u_to = _block(result.concentration(to.id)) / _each(to.partition, n)[:, None]
+    u_from = _block(result.concentration(frm.id)) / _each(frm.partition, n)[:, None]
     tol = 1e-9 * max(abs(float(t[-1])), 1.0)
-    rows = np.nonzero((t >= start - tol) & (t <= stop + tol) & (u_from > 0)
-                      & (u_to > CLOSED_RECEPTOR_FRACTION * u_from))[0]
-    return float(t[rows[0]]) if len(rows) else None
+    found = ((t >= start - tol) & (t <= stop + tol)) & (u_from > 0) & (u_to > CLOSED_RECEPTOR_FRACTION * u_from)
+    return np.where(found.any(axis=1), t[np.argmax(found, axis=1)], NAN)
 
 
 def compute_metrics(result: Any, threshold: float | Mapping[str, float] | None = None, *,
                     lag_tolerance: float = LAG_TOLERANCE, adj_r2_tolerance: float = ADJ_R2_TOLERANCE) -> Metrics:
-    """Metrics of a simulated run.
+    """Metrics of a simulated run, or of many subjects at once.
 
     Parameters
     ----------
     result : Result
-        From :func:`barrierflow.simulate`.
+        From :func:`barrierflow.simulate`; or many subjects of one scenario: traces with a
+        subject axis (n, n_t) and a stacked ``scenario`` (:func:`barrierflow.model.cohort.stacked`),
+        as :func:`barrierflow.analysis.population.population_metrics` gives it.
     threshold : float, mapping or None, mg/mL
         Concentration for the time above threshold, one for every compartment or a mapping
         from compartment id to its own.
@@ -1285,35 +1536,47 @@ def compute_metrics(result: Any, threshold: float | Mapping[str, float] | None =
     Returns
     -------
     Metrics
+        Of the run; for many subjects every value is an array with one entry per subject and
+        every note an array of texts (:meth:`Metrics.subject` gives one subject's, as its own
+        run would; :meth:`Metrics.columns` the table).
+
+    Raises
+    ------
+    barrierflow.model.cohort.Diverging
+        For many subjects whose dosing differs in a way the rules decide on (a starting content
+        zero for some only): compute each part on its own.
     """
     sc: Scenario = result.scenario
     t = np.asarray(result.times, dtype=float)
     end = float(t[-1])
     apps = application_times(sc, end)
     intervals = dosing_intervals(apps, end) or ((float(t[0]), end),)
-    input_end, input_reason = last_input_end(sc, result, end)
+    first = np.asarray(result.concentration(sc.compartments[0].id), dtype=float)
+    many = first.ndim == 2
+    n = first.shape[0] if many else 1
+    input_end, input_reason = _input_ends(sc, result, end, n)
     comps = []
     for comp in sc.compartments:
         thr = threshold.get(comp.id) if isinstance(threshold, Mapping) else threshold
-        comps.append(exposure_metrics(t, result.concentration(comp.id), apps or (float(t[0]),),
-                                      jumps=jump_times(sc, comp.id, end), threshold=thr, cid=comp.id,
-                                      adj_r2_tolerance=adj_r2_tolerance, input_end=input_end,
-                                      input_reason=input_reason))
+        comps.append(_exposure(t, _block(result.concentration(comp.id)), apps or (float(t[0]),),
+                               jump_times(sc, comp.id, end), thr, comp.id, adj_r2_tolerance, input_end, input_reason))
     bars = []
     for b in sc.barriers:
-        dose = applied_to(result, b.from_id, b)
-        flux, perm = result.flux(b.id), result.permeated(b.id)
+        dose = _applied(result, b.from_id, b, n)
         origin = min(apps) if apps else float(t[0])
         stop = first_interval_end(sc, b.from_id, apps, end)
-        when = closed_receptor_time(result, b, origin, stop)
-        flag = "" if when is None else (
-            f"biased: the closed receptor '{b.to_id}' rises above {CLOSED_RECEPTOR_FRACTION:.0%} of the donor side's "
-            f"concentration (partition considered) at {when:.4g} h, so it is no sink")
-        m = barrier_metrics(t, flux, perm, result.content(b.id), b.area, dose, apps or (float(t[0]),), bid=b.id,
-                            lag_tolerance=lag_tolerance, lag_flag=flag, lag_end=stop)
-        bars.append(m)
-    return Metrics(tuple(comps), tuple(bars), tuple(apps), tuple(intervals), end - float(t[0]),
-                   sc.output_units, sc.substance.molar_mass, input_end)
+        when = _closed_receptor_times(result, b, origin, stop, n)
+        flag = _texts(n)
+        for i in np.flatnonzero(~np.isnan(when)).tolist():
+            flag[i] = (f"biased: the closed receptor '{b.to_id}' rises above {CLOSED_RECEPTOR_FRACTION:.0%} of the "
+                       f"donor side's concentration (partition considered) at {when[i]:.4g} h, so it is no sink")
+        bars.append(_barrier(t, _block(result.flux(b.id)), _block(result.permeated(b.id)),
+                             _block(result.content(b.id)), _each(b.area, n), dose, apps or (float(t[0]),), b.id,
+                             lag_tolerance, flag, stop))
+    block = Metrics(tuple(comps), tuple(bars), tuple(apps), tuple(intervals), end - float(t[0]),
+                    sc.output_units, sc.substance.molar_mass, input_end)
+    return block if many else block.subject(0)
+
 
 
 def first_interval_end(scenario: Scenario, cid: str, apps: Sequence[float], end: float) -> float:

@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from ..model.cohort import Diverging
 from .metrics import auc, compute_metrics, jump_times
 from .result import trace_columns
 
@@ -142,33 +143,34 @@ def population_columns(population: Population, scenario: Scenario) -> list[tuple
     return trace_columns(population, scenario)
 
 
-class _Subject:
-    """One subject of a population, with the trace methods :func:`compute_metrics` reads."""
+class _Block:
+    """Subjects of a population as one run with a subject axis: the trace methods
+    :func:`compute_metrics` reads, each giving (n_subjects, n_t)."""
 
-    def __init__(self, traces: _Traces, row: int, scenario: Scenario):
-        self._t, self._row, self.scenario = traces, row, scenario
+    def __init__(self, traces: _Traces, rows: np.ndarray, scenario: Scenario):
+        self._t, self._rows, self.scenario = traces, rows, scenario
         self.times = traces.population.times
 
     def concentration(self, cid: str) -> np.ndarray:
-        return self._t.get("concentration", cid)[self._row]
+        return self._t.get("concentration", cid)[self._rows]
 
     def flux(self, bid: str) -> np.ndarray:
-        return self._t.get("flux", bid)[self._row]
+        return self._t.get("flux", bid)[self._rows]
 
     def permeated(self, bid: str) -> np.ndarray:
-        return self._t.get("permeated", bid)[self._row]
+        return self._t.get("permeated", bid)[self._rows]
 
     def content(self, bid: str) -> np.ndarray:
-        return self._t.get("content", bid)[self._row]
+        return self._t.get("content", bid)[self._rows]
 
     def dosed(self, cid: str) -> np.ndarray:
-        return self._t.get("dosed", cid)[self._row]
+        return self._t.get("dosed", cid)[self._rows]
 
     def amount(self, cid: str) -> np.ndarray:
-        return self._t.get("amount", cid)[self._row]
+        return self._t.get("amount", cid)[self._rows]
 
     def dose_parts(self, cid: str) -> tuple[np.ndarray, ...]:
-        return tuple(part[self._row] for part in self._t.get("dose_parts", cid))
+        return tuple(part[self._rows] for part in self._t.get("dose_parts", cid))
 
 
 class _Traces:
@@ -176,9 +178,9 @@ class _Traces:
 
     def __init__(self, population: Population):
         self.population = population
-        self._made: dict[tuple[str, str], np.ndarray] = {}
+        self._made: dict[tuple[str, str], Any] = {}
 
-    def get(self, what: str, ident: str) -> np.ndarray:
+    def get(self, what: str, ident: str) -> Any:
         key = (what, ident)
         if key not in self._made:
             self._made[key] = getattr(self.population, what)(ident)
@@ -216,11 +218,19 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
                        rows: Sequence[int] | None = None) -> MetricTable:
     """The metrics of each subject, by the rules of a single run (:func:`compute_metrics`).
 
+    The subjects are measured all at once: :func:`compute_metrics` on their traces with a subject
+    axis and their stacked scenario (the rules are written element-wise over the subjects, so
+    subject i's values are those of its own run). Subjects on which the rules decide differently
+    (:class:`~barrierflow.model.cohort.Diverging`) are measured in parts.
+
     Parameters
     ----------
     population : Population
     scenarios : sequence of Scenario
-        Each subject's own scenario (the applied dose reads its volumes and amounts).
+        Each subject's own scenario (the applied dose reads its volumes and amounts). A sequence
+        with a method ``stacked(rows)`` (:class:`barrierflow.studies.runner.Subjects`) gives the
+        stacked scenario of those subjects (:func:`barrierflow.model.cohort.stacked`) and no
+        scenario per subject is built; for a plain sequence each subject is measured alone.
     rows : sequence of int, optional
         The subjects to take (default all); a failed subject gives NaN.
 
@@ -230,28 +240,34 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
         Values in the ``[output]`` units of the first scenario.
     """
     traces = _Traces(population)
-    rows = range(population.n_subjects) if rows is None else rows
-    names: tuple[str, ...] | None = None
-    units: tuple[str, ...] = ()
-    out: list[list[float]] = []
-    failed: list[int] = []
-    for i in rows:
-        if population.status[i] != 0:
-            failed.append(len(out))
-            out.append([])
-            continue
-        table = compute_metrics(_Subject(traces, i, scenarios[i])).to_rows()
-        if names is None:
-            names = tuple(f"{metric}:{ident}" for _, ident, metric, *_ in table)
-            units = tuple(row[4] for row in table)
-        out.append([_number(row[3]) for row in table])
-    if names is None:
-        names, units = metric_names(scenarios[0] if scenarios else population.scenario)
-    width = len(names)
-    values = np.full((len(out), width), np.nan)
-    for k, row in enumerate(out):
-        if row:
-            values[k] = row
+    rows = np.arange(population.n_subjects) if rows is None else np.asarray(rows, dtype=np.int64).reshape(-1)
+    stack = getattr(scenarios, "stacked", None)
+    parts: list[tuple[np.ndarray, tuple[str, ...], tuple[str, ...], np.ndarray]] = []
+
+    def measure(at: np.ndarray) -> None:
+        subjects = rows[at]
+        if stack is None:
+            for k, i in zip(at.tolist(), subjects.tolist(), strict=True):
+                parts.append((np.array([k]), *compute_metrics(_Block(traces, np.array([i]), scenarios[i])).columns()))
+            return
+        try:
+            table = compute_metrics(_Block(traces, subjects, stack(subjects)))
+        except Diverging as split:
+            measure(at[split.mask])
+            measure(at[~split.mask])
+            return
+        parts.append((at, *table.columns()))
+
+    finished = np.flatnonzero(population.status[rows] == 0)
+    if len(finished):
+        measure(finished)
+    if parts:
+        names, units = parts[0][1], parts[0][2]
+    else:
+        names, units = metric_names(scenarios[0] if len(scenarios) else population.scenario)
+    values = np.full((len(rows), len(names)), np.nan)
+    for at, _, _, block in parts:
+        values[at] = block
     return MetricTable(names, units, values)
 
 
@@ -276,9 +292,3 @@ def metric_names(scenario: Scenario) -> tuple[tuple[str, ...], tuple[str, ...]]:
                     tuple(blank(BarrierMetrics, b.id) for b in scenario.barriers), tuple(apps), (), times[-1],
                     scenario.output_units, scenario.substance.molar_mass).to_rows()
     return tuple(f"{m}:{i}" for _, i, m, *_ in table), tuple(row[4] for row in table)
-
-
-def _number(v: Any) -> float:
-    if v is None:
-        return float("nan")
-    return float(v)

@@ -42,7 +42,7 @@ from ..engine.integrators import integrator_from_name
 from ..engine.population import Population, simulate_values, take_rows
 from ..errors import BarrierflowError, ScenarioError
 from ..model import Scenario
-from ..model.cohort import refused
+from ..model.cohort import refused, stacked
 from ..model.paths import Param, with_values
 from ..units import unit_factor
 
@@ -208,6 +208,23 @@ class Subjects(Sequence):
             self._made[i] = with_values(self._base, dict(zip(self._params, self._values[i].tolist(), strict=True)))
         return self._made[i]
 
+    @property
+    def built(self) -> np.ndarray:
+        """The subjects the model accepts (the rows of the population), in order."""
+        return np.array([i for i in range(len(self)) if i not in self._refused], dtype=np.int64)
+
+    def accepted(self) -> Subjects:
+        """The subjects the model accepts, in order (as the population's rows)."""
+        return Subjects(self._base, self._params, self._values[self.built], frozenset())
+
+    def stacked(self, rows: Sequence[int]) -> Scenario:
+        """The scenario of the subjects ``rows`` (none refused) with a value per subject
+        (:func:`barrierflow.model.cohort.stacked`), without building a scenario per subject."""
+        rows = np.asarray(rows, dtype=np.int64)
+        if any(int(i) in self._refused for i in rows):
+            raise ValueError("stacked: a refused subject has no values the model accepts")
+        return stacked(self._base, self._params, self._values[rows])
+
 
 _GRID = Grid()
 
@@ -230,10 +247,10 @@ def run_chunk(task: ChunkTask) -> ChunkOutcome:
     pop, scenarios, messages = simulate_subjects(task.base, task.params, task.values, integrator=task.integrator)
     n = task.count
     ok = np.array([m == "" for m in messages], dtype=bool)
-    first_ok = next((s for s in scenarios if s is not None), task.base)
+    built = scenarios.built
+    first_ok = scenarios[int(built[0])] if len(built) else task.base
     if pop is not None:
-        built = [i for i, s in enumerate(scenarios) if s is not None]
-        table = population_metrics(pop, [s for s in scenarios if s is not None])
+        table = population_metrics(pop, scenarios.accepted())
         values = np.full((n, len(table.names)), np.nan)
         values[built] = table.values
         metrics = MetricTable(table.names, table.units, values)
@@ -254,7 +271,7 @@ def run_chunk(task: ChunkTask) -> ChunkOutcome:
         times = np.asarray(first_ok.output_grid(), dtype=float) * unit_factor("time", unit)
         time_header = f"time [{unit}]"
     if task.traces and columns is not None:
-        built_ok = ok[[i for i, s in enumerate(scenarios) if s is not None]]
+        built_ok = ok[built]
         for header, block in columns[1:]:
             names.append(header)
             counts.append(count_values(block[built_ok], task.accuracy, task.bins))

@@ -53,7 +53,7 @@ def from_document(doc: Mapping[str, Any], file: str | None = None) -> Scenario:
     Parameters
     ----------
     doc : mapping
-        The document as :mod:`tomllib` returns it.
+        The document as :func:`barrierflow.io.read_toml` returns it.
     file : str or None
         The file name shown in messages.
 

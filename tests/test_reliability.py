@@ -218,8 +218,10 @@ def test_a_result_that_fails_its_check_is_recomputed(monkeypatch):
 
     def broken(model, integrator, *args):
         tr = original(model, integrator, *args)
-        if integrator.name == "exact":
-            tr.states[-1, model.comp_index["c1"]] = 1e-3  # substance from nothing
+        if integrator.name == "exact":  # substance from nothing, in the rows the check reads and the states
+            c1 = model.comp_index["c1"]
+            tr.rows.cols[-1, tr.rows.taps.pos[c1]] = 1e-3
+            tr.states[-1, c1] = 1e-3
         return tr
 
     monkeypatch.setattr(engine_solve, "_run", broken)

@@ -19,7 +19,7 @@ import numpy as np
 from ..caution import CAUTION
 from ..engine import Trajectory
 from ..engine.compiled import limited_compartments
-from ..engine.ledger import ledger
+from ..engine.ledger import rows_ledger
 from ..io import traces_digest, write_traces
 from ..model import Scenario
 from ..units import unit_factor
@@ -181,7 +181,7 @@ class Result:
             One value per output time.
         """
         i = self._c(cid)
-        return np.maximum(np.minimum(self.trajectory.states[:, i], self.trajectory.model.solubility[i]), 0.0)
+        return np.maximum(np.minimum(self.trajectory.column(i), self.trajectory.model.solubility[i]), 0.0)
 
     def volume(self, cid: str) -> np.ndarray:
         """Volume of compartment ``cid`` (it changes with evaporation and samples without
@@ -220,7 +220,7 @@ class Result:
             One value per output time.
         """
         i = self._c(cid)
-        return np.maximum(self.trajectory.states[:, i], 0.0) * self.volume(cid)
+        return np.maximum(self.trajectory.column(i), 0.0) * self.volume(cid)
 
     def solid(self, cid: str) -> np.ndarray:
         """Undissolved amount in compartment ``cid``: what exceeds the solubility (times its
@@ -237,7 +237,7 @@ class Result:
             One value per output time.
         """
         i = self._c(cid)
-        excess = np.maximum(self.trajectory.states[:, i] - self.trajectory.model.solubility[i], 0.0)
+        excess = np.maximum(self.trajectory.column(i) - self.trajectory.model.solubility[i], 0.0)
         return np.nan_to_num(excess * self.volume(cid), nan=0.0)
 
     def sampled(self, cid: str) -> np.ndarray:
@@ -254,7 +254,7 @@ class Result:
             One value per output time.
         """
         m = self.trajectory.model
-        return self.trajectory.states[:, m.q_sampled + self._c(cid)].copy()
+        return self.trajectory.column(m.q_sampled + self._c(cid)).copy()
 
     def lost(self, cid: str) -> np.ndarray:
         """Cumulative amount lost from ``cid`` to the air (its ``loss_rate``).
@@ -270,7 +270,7 @@ class Result:
             One value per output time.
         """
         m = self.trajectory.model
-        return self.trajectory.states[:, m.q_lost + self._c(cid)].copy()
+        return self.trajectory.column(m.q_lost + self._c(cid)).copy()
 
     def eliminated(self, cid: str) -> np.ndarray:
         """Cumulative amount eliminated from ``cid`` (clearance and saturable).
@@ -286,7 +286,7 @@ class Result:
             One value per output time.
         """
         m = self.trajectory.model
-        return self.trajectory.states[:, m.q_elim + self._c(cid)].copy()
+        return self.trajectory.column(m.q_elim + self._c(cid)).copy()
 
     def removed(self, cid: str) -> np.ndarray:
         """Cumulative amount taken out of ``cid`` by replace and remove doses.
@@ -311,8 +311,8 @@ class Result:
         """
         m = self.trajectory.model
         i = self._c(cid)
-        s = self.trajectory.states
-        return self.trajectory.event_dosed[:, i] + s[:, m.q_infused + i] + s[:, m.q_supply + i]
+        col = self.trajectory.column
+        return self.trajectory.event_dosed[:, i] + col(m.q_infused + i) + col(m.q_supply + i)
 
     def dose_parts(self, cid: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """What entered ``cid`` by each route, cumulative, mg: the instantaneous events (boluses,
@@ -321,8 +321,8 @@ class Result:
         :meth:`dosed` is their sum."""
         m = self.trajectory.model
         i = self._c(cid)
-        s = self.trajectory.states
-        return self.trajectory.event_dosed[:, i].copy(), s[:, m.q_infused + i].copy(), s[:, m.q_supply + i].copy()
+        col = self.trajectory.column
+        return self.trajectory.event_dosed[:, i].copy(), col(m.q_infused + i).copy(), col(m.q_supply + i).copy()
 
     def _link_rate(self, link: int, into: bool) -> np.ndarray:
         m = self.trajectory.model
@@ -336,7 +336,7 @@ class Result:
         compartment holds solid (a held, saturated reservoir has its potential in its partition
         entry already)."""
         m = self.trajectory.model
-        y = self.trajectory.states[:, i]
+        y = self.trajectory.column(i)
         if i < m.n_comp and not m.held[i]:
             y = np.minimum(y, m.solubility[i])
         return y * m.inv_partition[i]
@@ -409,7 +409,7 @@ class Result:
         """
         b = self._b(bid)
         m = self.trajectory.model
-        return self.trajectory.states[:, m.q_perm + b] / m.area[b]
+        return self.trajectory.column(m.q_perm + b) / m.area[b]
 
     def content(self, bid: str) -> np.ndarray:
         """Amount held inside the layers of ``bid`` (0 for a steady barrier).
@@ -424,19 +424,8 @@ class Result:
         ndarray, mg
             One value per output time.
         """
-        b = self._b(bid)
-        known = self._contents.get(b)
-        if known is None:  # found once (the traces and the metrics both use it)
-            g = self.trajectory.model.grids[b]
-            cells = self.trajectory.states[:, g.start:g.stop]
-            if g.stop > self.trajectory.model.n_dyn or self.most_negative < 0.0:  # (else nothing to clip)
-                cells = np.maximum(cells, 0.0)
-            known = self._contents[b] = cells @ self.trajectory.model.capacity[g.start:g.stop]
-        return known.copy()
-
-    @cached_property
-    def _contents(self) -> dict[int, np.ndarray]:
-        return {}
+        # each cell counted at 0 where it is negative (kept by the run at every row)
+        return self.trajectory.rows.clipped[:, self._b(bid)].copy()
 
     def degraded(self, bid: str) -> np.ndarray:
         """Cumulative amount degraded inside ``bid``.
@@ -452,10 +441,13 @@ class Result:
             One value per output time.
         """
         m = self.trajectory.model
-        return self.trajectory.states[:, m.q_degr + self._b(bid)].copy()
+        return self.trajectory.column(m.q_degr + self._b(bid)).copy()
 
     def profile(self, bid: str, time: float) -> BarrierProfile:
         """Concentration profile through ``bid`` at the output time nearest to ``time``.
+
+        The run keeps only what it exports; the first profile asked of it computes every state
+        again (:attr:`barrierflow.engine.Trajectory.states`), the later ones read them.
 
         Parameters
         ----------
@@ -477,15 +469,9 @@ class Result:
 
     @cached_property
     def most_negative(self) -> float:
-        """The most negative raw concentration met (mg/mL; 0 when none), before clipping."""
-        m = self.trajectory.model
-        s = self.trajectory.states[:, : m.n_dyn]
-        if not s.size:
-            return 0.0
-        low = float(s.min())
-        if low != low:  # a state that is not a number (a held compartment without a volume)
-            low = float(np.nanmin(s))
-        return min(0.0, low)
+        """The most negative raw concentration met (mg/mL; 0 when none), before clipping (over
+        every state at every output time, kept by the run)."""
+        return float(min(0.0, self.trajectory.rows.most_negative))
 
     # ----------------------------------------------------------------- mass balance
     @cached_property
@@ -493,7 +479,7 @@ class Result:
         """The ledger of the run (see :class:`MassBalance`; computed by :func:`barrierflow.engine.ledger`,
         the same ledger the engine checks every run against)."""
         tr = self.trajectory
-        led = ledger(tr.model, tr.states, tr.event_dosed, tr.event_removed, tr.initial_amount, tr.volumes)
+        led = rows_ledger(tr.model, tr.rows, tr.event_dosed, tr.event_removed, tr.initial_amount, tr.volumes)
 
         def last(x: np.ndarray) -> float:
             return float(x[-1]) if len(x) else 0.0

@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -140,12 +141,12 @@ class CompiledModel:
         """Offset of the amounts lost to the air."""
         return self.n_dyn + 3 * self.n_comp + 2 * self.n_bar
 
-    @property
+    @cached_property
     def is_linear(self) -> bool:
         """True without saturable elimination (and without the terms of :attr:`vehicle_terms`)."""
         return len(self.mm_state) == 0 and not self.vehicle_terms
 
-    @property
+    @cached_property
     def vehicle_terms(self) -> bool:
         """True when a volume changes over time (evaporation, samples without replacement) or a
         compartment that is not held may hold undissolved solid (a solubility limit): only the
@@ -373,7 +374,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     invk_parts = [_row([1.0 / c.partition for c in comps])]
     # volumes that change (evaporation, samples without replacement) and losses to the air take
     # the first-order loss of their compartment; its clearance then goes to a link of its own
-    shrinking = np.array([c.id in regimen_bounds(scenario).shrink for c in comps], dtype=np.bool_)
+    shrink = regimen_bounds(scenario).shrink
+    shrinking = np.array([c.id in shrink for c in comps], dtype=np.bool_)
     own_loss = np.array([c.evaporates or bool(shrinking[i]) or decide(c.loss_rate > 0) for i, c in enumerate(comps)],
                         dtype=np.bool_)
     loss_parts = [_row([c.loss_rate if own_loss[i] else (c.clearance / c.volume if c.volume is not None else 0.0)

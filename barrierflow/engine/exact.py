@@ -42,6 +42,7 @@ from ..errors import ScenarioError
 from .arrays import working_copy
 from .compiled import CompiledModel
 from .exact_chain import _phi1, _phi2, chain_order, chain_schedule
+from .exported import Rows, empty_taps, new_buffers, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, refuse_vehicle_terms
 from .kernels import jacobian_coo, jacobian_size, rates
 from .schedule import apply_events, new_event_state, rows_until
@@ -499,21 +500,30 @@ class ExactIntegrator(Integrator):
                                        "needs a network whose states form chains (no transfers, at most two "
                                        "neighbours per state, no loops)")
         if order is not None:
-            states = np.empty((n_t, m.n_state))
+            full = plan.full
+            if full:
+                states = np.empty((n_t, m.n_state))
+                taps = empty_taps(m.n_state)
+            else:
+                states = np.empty((1, m.n_state))  # work space of one row
+                taps = new_buffers(taps_of(m), n_t, m.n_state)
             ev_dosed = np.empty((n_t, nc))
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
             code = chain_schedule(marks, times, ev, work, base, s, order, _FAST / mode_time(times, marks),
-                                  jacobian_size(m), m.y0.copy(), states, ev_dosed, ev_removed, st)
+                                  jacobian_size(m), m.y0.copy(), states, ev_dosed, ev_removed, st, full, taps)
             stats.add(st)
             if code != 0:
-                return Integration(states[:0], ev_dosed[:0], ev_removed[:0], -1,
+                return Integration(states[:0] if full else None, ev_dosed[:0], ev_removed[:0], -1,
                                    "the exact path does not apply: the network's modes are too ill-conditioned to "
                                    "separate (time scales too far apart within one connected part)", stats,
-                                   s.moved.copy())
+                                   s.moved.copy(), rows=None if full else Rows.from_buffers(m, taps, 0))
             if plan.progress is not None:
                 plan.progress(1.0)
-            return Integration(states, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy())
+            if full:
+                return Integration(states, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy())
+            return Integration(None, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy(),
+                               rows=Rows.from_buffers(m, taps, n_t), last=taps[8])
         use_modes = self.method in ("auto", "modes") and structurally_symmetric(m)
         if self.method == "modes" and not use_modes:
             raise ScenarioError.single("integrator method", "'modes'",

@@ -37,6 +37,7 @@ import numpy as np
 from numba import njit
 
 from .compiled import CompiledModel
+from .exported import take_row
 from .kernels import INNER, jacobian_kernel, rates_kernel
 from .schedule import apply_events, rows_until
 
@@ -715,9 +716,12 @@ def _rational_row(dd, ee, n, tj, x0, tg, has_g, poles, residues, c0, xs, xi, cw)
 
 @njit(**INNER)
 def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd, clamp,
-              nc, out, work, t_end, last, t_thr):
+              nc, out, work, t_end, last, t_thr, full, taps, row0, cap):
     """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``, and the
     state at the interval's end ``t_end`` (> 0) into ``last``.
+
+    With ``full`` False, ``out`` is one row of work space: each row is computed there and kept by
+    :func:`~barrierflow.engine.exported.take_row` in ``taps`` (as row ``row0`` plus its index).
 
     Times below ``t_thr`` (h), at which more modes than were computed have not yet decayed, go
     through :func:`_rational_row`; the others through the modes, keeping those not decayed at the
@@ -727,8 +731,10 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
     n_t = tau.shape[0]
     j0 = 0
     while j0 < n_t and tau[j0] <= 0.0:
+        dst = out[j0 if full else 0]
         for r in range(n_state):
-            out[j0, r] = y0[r]
+            dst[r] = y0[r]
+        take_row(dst, row0 + j0, taps, cap, nd)
         j0 += 1
     x0 = work[0]
     tg = work[1]
@@ -753,7 +759,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
             tj = tau[j0] if j0 < n_t else t_end
             if tj >= t_thr:
                 break
-            dst = out[j0] if j0 < n_t else last
+            dst = out[j0 if full else 0] if j0 < n_t else last
             _rational_row(dd, ee, n, tj, x0, tg, has_g, RATIONAL_POLES, RATIONAL_RESIDUES, RATIONAL_CONSTANT, xs,
                           xi, cw)
             for q in range(nd):
@@ -767,6 +773,8 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
                 a = qc[j]
                 if a >= 0:
                     dst[qr[j]] += qv[j] * (xi[a] / tv[a])
+            if j0 < n_t:
+                take_row(dst, row0 + j0, taps, cap, nd)
             j0 += 1
         if j0 > n_t:
             return
@@ -923,7 +931,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         for r in range(nb):
             jr = j + r
             tj = tb[r]
-            dst = out[jr] if jr < n_t else last
+            dst = out[jr if full else 0] if jr < n_t else last
             zi = zib[r]
             ys = ysb[r]
             for q in range(nqd):
@@ -939,19 +947,23 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
             dq = dst[nd:]
             for q in range(nqd):
                 dq[q] = y0[nd + q] + qs[q] + g[nd + q] * tj
+            if jr < n_t:
+                take_row(dst, row0 + jr, taps, cap, nd)
         j += nb
 
 
 # ---------------------------------------------------------------- the whole regimen
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats):
+def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
     """Run the regimen exactly on a chain network; returns a status code (0 when done).
 
     ``m`` is the run's copy of the model's arrays (:func:`~barrierflow.engine.arrays.working_copy`),
     ``base`` the model's own, ``s`` the run's :class:`~barrierflow.engine.schedule.EventState`.
     The events ``ev`` (EventArrays) apply by :func:`~barrierflow.engine.schedule.apply_events` (a
     closed face changes the links, and the modes are computed again); the states
-    at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``.
+    at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``; with
+    ``full`` False ``states`` is one row of work space and each row is kept in ``taps`` instead
+    (:func:`~barrierflow.engine.exported.take_row`: the exported columns and the guard).
     ``stats`` counts [steps, rejected, rhs evaluations, Jacobians, decompositions, intervals].
     ``cut`` (1/h, < 0) is -60 over the time from an interval's start from which on the modes serve
     (:func:`~barrierflow.engine.exact.mode_time`): the modes above it are computed (at most
@@ -1103,7 +1115,8 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         tau[m_out] = t1 - t0
         _interval(y, g, tau[:m_out], n_c[slot], idx_c[slot], tv_c[slot], dd_c[slot], ee_c[slot], ediag_c[slot],
                   msq_c[slot], comp_c[slot], lam_c[slot], vec_c[slot], k_c[slot], qr_c[slot], qc_c[slot], qv_c[slot],
-                  nq_c[slot], nd, clamp, nc, states[row:sel_end], work, tau[m_out], last, thr_c[slot])
+                  nq_c[slot], nd, clamp, nc, states[row:sel_end] if full else states, work, tau[m_out], last,
+                  thr_c[slot], full, taps, row, m.capacity)
         for r in range(m_out):
             for p in range(nc):
                 ev_dosed[row + r, p] = dosed[p]

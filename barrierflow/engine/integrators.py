@@ -40,6 +40,7 @@ import numpy as np
 from ..errors import ScenarioError, SolverError
 from .arrays import working_copy
 from .compiled import CompiledModel
+from .exported import Rows
 from .ledger import busiest_part
 from .problem import IntervalProblem, IntervalSettings
 from .schedule import EventArrays, apply_events, new_event_state, rows_until
@@ -94,6 +95,10 @@ class RunPlan:
         Output times (increasing, from 0 to the end; a time at an event shows the state after it).
     progress : callable or None
         Called with the fraction of the run done (0 to 1), as often as the integrator can.
+    full : bool
+        Keep every state at every row (``Integration.states``). Without it an integrator may keep
+        only what a result exports (``Integration.rows``, :mod:`barrierflow.engine.exported`);
+        the driver asks for the full states again when they are wanted.
     """
 
     model: CompiledModel
@@ -101,6 +106,7 @@ class RunPlan:
     marks: np.ndarray
     times: np.ndarray
     progress: Callable[[float], None] | None = None
+    full: bool = False
 
     @property
     def duration(self) -> float:
@@ -119,9 +125,10 @@ class Integration:
 
     Attributes
     ----------
-    states : ndarray (n_rows, n_state)
+    states : ndarray (n_rows, n_state) or None
         The states at the output times reached (all of them when ``status`` is 0), internal
-        units (see :mod:`barrierflow.engine.compiled`).
+        units (see :mod:`barrierflow.engine.compiled`); None when the integrator kept only
+        ``rows`` (a plan without ``full``).
     event_dosed, event_removed : ndarray (n_rows, n_comp), mg
         Cumulative amounts added and taken out by events up to each row.
     status : int
@@ -138,9 +145,14 @@ class Integration:
     failed_at : float or None, h
         Where a failed run stopped, when the integrator knows (the driver otherwise takes the
         first output time not reached).
+    rows : Rows or None
+        What a result exports at each row reached, with the guard over every state
+        (:class:`~barrierflow.engine.exported.Rows`), when ``states`` is None.
+    last : ndarray (n_state,) or None
+        The full state of the last row, when ``states`` is None and the run finished.
     """
 
-    states: np.ndarray
+    states: np.ndarray | None
     event_dosed: np.ndarray
     event_removed: np.ndarray
     status: int
@@ -149,6 +161,13 @@ class Integration:
     event_amounts: np.ndarray
     volumes: np.ndarray | None = None
     failed_at: float | None = None
+    rows: Rows | None = None
+    last: np.ndarray | None = None
+
+    @property
+    def n_rows(self) -> int:
+        """The output rows reached."""
+        return len(self.states) if self.states is not None else len(self.rows.cols)
 
 
 def refuse_vehicle_terms(model: CompiledModel, name: str) -> None:

@@ -41,6 +41,7 @@ from .arrays import SHARED, ModelArrays, stack_arrays, subject, working_copy
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _shortest_time
 from .exact_chain import chain_order, chain_schedule
+from .exported import empty_taps
 from .grid import Grid, response_time
 from .kernels import INNER, jacobian_size
 from .ledger import judge, ledger_weights, passes, relative_error_of
@@ -301,7 +302,7 @@ def _run_population(lo, hi, marks, times, ev, ev_values, stack, work, sargs, coe
         # the first interval as an int64, as the single run gives it (a literal 0 would compile
         # run_marks a second time)
         code, k = run_marks(np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac, rtol, atol,
-                            max_steps, hold, y, ptr, states, evd, evr, st)
+                            max_steps, hold, y, ptr, states, evd, evr, st, True, empty_taps(n))
         status[i] = code
         fail_k[i] = k
         for j in range(6):
@@ -326,7 +327,7 @@ def _run_population_exact(lo, hi, marks, times, ev, ev_values, stack, work, orde
         st = np.zeros(6, dtype=np.int64)
         s = new_event_state(base, ev.time.shape[0])
         status[i] = chain_schedule(marks, times, evi, m, base, s, order, cut, n_jac, base.y0.copy(), states, evd, evr,
-                                   st)
+                                   st, True, empty_taps(n))
         for j in range(6):
             stats[i, j] = st[j]
         _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i], out_removed[i],

@@ -53,6 +53,7 @@ from numba import njit
 from ..errors import ScenarioError
 from .arrays import working_copy
 from .compiled import CompiledModel
+from .exported import Rows, empty_taps, new_buffers, take_row, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
 from .kernels import INNER, jacobian_finish, jacobian_linear, jacobian_nonlinear, jacobian_size, rates_kernel
 from .schedule import apply_events, new_event_state, rows_until
@@ -567,10 +568,13 @@ def _workspace(nc, nx, n, n_w, n_jac, n_be):
 
 
 @njit(inline="always", error_model="numpy")
-def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol, max_steps, stats, ws, hold):
+def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol, max_steps, stats, ws, hold, full,
+              taps, row0, lw):
     """RODAS4 from local time 0 to ``t_end`` (h); dense output into ``out`` at ``t_out``.
 
-    ``y`` is advanced in place. Returns the status code.
+    With ``full`` False ``out`` is one row of work space and the rows are kept in ``taps``
+    instead (:func:`_take_step`; ``row0`` the global index of the first). ``y`` is advanced in
+    place. Returns the status code.
     """
     (rows, cols, vals, tri, jcc, jxc, jcx, qr, qc, qv, w, smat, perm, kk, vec, u, rr) = ws
     ca, cc, cd = coef
@@ -585,10 +589,13 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
     mm_s = m.mm_state
     linear = mm_s.shape[0] == 0
     n_out = t_out.shape[0]
+    cap = m.capacity
     io = 0
     while io < n_out and t_out[io] <= 0.0:
+        dst = out[io if full else 0]
         for i in range(n):
-            out[io, i] = y[i]
+            dst[i] = y[i]
+        take_row(dst, row0 + io, taps, cap, nd)
         io += 1
     if t_end <= 0.0:
         return OK
@@ -601,8 +608,10 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
             yn[i] = y[i] + t_end * f0[i]
         while io < n_out:
             s = t_out[io] / t_end
+            dst = out[io if full else 0]
             for i in range(n):
-                out[io, i] = y[i] + s * (yn[i] - y[i])
+                dst[i] = y[i] + s * (yn[i] - y[i])
+            take_row(dst, row0 + io, taps, cap, nd)
             io += 1
         for i in range(n):
             y[i] = yn[i]
@@ -773,6 +782,8 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
                     a3 += cd[1, j] * kk[j, i]
                 c2[i] = a2
                 c3[i] = a3
+            if not full:
+                io = _take_step(y, yn, c2, c3, t, h, t_new, t_out, io, row0, taps, cap, nc, nd, lw)
             while io < n_out and t_out[io] <= t_new:
                 s = (t_out[io] - t) / h
                 if s >= 1.0:
@@ -809,27 +820,124 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
             h_new = h  # keep the factorisation of a linear problem while the step would grow little
         h = min(h_new, t_end)
     while io < n_out:
+        dst = out[io if full else 0]
         for i in range(n):
-            out[io, i] = y[i]
+            dst[i] = y[i]
+        take_row(dst, row0 + io, taps, cap, nd)
         io += 1
     return OK
 
 
+@njit(**INNER)
+def _take_step(y, yn, c2, c3, t, h, t_new, t_out, io, row0, taps, cap, nc, nd, lw):
+    """Keep the output rows inside the accepted step (t, t_new] (local times ``t_out`` from
+    ``io`` on) in ``taps`` without forming their full states; returns the next output index.
+
+    The dense output of each state is the cubic ``y + s (yn - y) + s (1 - s) (c2 + s c3)``,
+    s = (t_out - t) / h, linear in (y, yn, c2, c3): the kept states are evaluated by it as the
+    full output would be (the same numbers), each barrier's content from the contents of the four
+    vectors (one pass over the cells per step, not per row). The guard stays exact over every
+    state: on [0, 1] the cubic is at least ``min(y, yn) - (|c2| + |c3|) / 4``, so a state whose
+    bound (less a margin for rounding) is positive cannot be negative at any row of the step; the
+    others (the suspects) are evaluated at every row, for the lowest scaled value, the most
+    negative value and the clipped contents. The last row of the run is kept whole
+    (:func:`~barrierflow.engine.exported.take_row`).
+    """
+    keep, bstart, bstop, inv_scale, cols, cont, clip, guard, last = taps
+    susp, rowbuf, fb = lw
+    n = y.shape[0]
+    n_out = t_out.shape[0]
+    nb = bstart.shape[0]
+    n_last = cols.shape[0] - 1
+    fin = 0.0
+    for i in range(n):
+        fin += (y[i] + yn[i] + c2[i] + c3[i]) * 0.0  # NaN for a NaN or an infinity
+    guard[2] += fin
+    ns = 0
+    for i in range(nd):
+        a = y[i]
+        b = yn[i]
+        e = abs(c2[i]) + abs(c3[i])
+        if not min(a, b) - 0.25 * e > 4e-15 * (abs(a) + abs(b) + e):
+            susp[ns] = i
+            ns += 1
+    for b in range(nb):
+        f0 = 0.0
+        f1 = 0.0
+        f2 = 0.0
+        f3 = 0.0
+        for i in range(bstart[b], bstop[b]):
+            ci = cap[i]
+            f0 += ci * y[i]
+            f1 += ci * yn[i]
+            f2 += ci * c2[i]
+            f3 += ci * c3[i]
+        fb[0, b] = f0
+        fb[1, b] = f1
+        fb[2, b] = f2
+        fb[3, b] = f3
+    low = guard[0]
+    neg = guard[1]
+    while io < n_out and t_out[io] <= t_new:
+        r = row0 + io
+        s = (t_out[io] - t) / h
+        s1 = 1.0 - s
+        if r == n_last:
+            for i in range(n):
+                rowbuf[i] = yn[i] if s >= 1.0 else y[i] + s * ((yn[i] - y[i]) + s1 * (c2[i] + s * c3[i]))
+            take_row(rowbuf, r, taps, cap, nd)
+            io += 1
+            continue
+        cr = cols[r]
+        if s >= 1.0:
+            for j in range(keep.shape[0]):
+                cr[j] = yn[keep[j]]
+            for b in range(nb):
+                cont[r, b] = fb[1, b]
+        else:
+            for j in range(keep.shape[0]):
+                i = keep[j]
+                cr[j] = y[i] + s * ((yn[i] - y[i]) + s1 * (c2[i] + s * c3[i]))
+            for b in range(nb):
+                cont[r, b] = fb[0, b] + s * ((fb[1, b] - fb[0, b]) + s1 * (fb[2, b] + s * fb[3, b]))
+        for b in range(nb):
+            clip[r, b] = cont[r, b]
+        b = 0
+        for k in range(ns):
+            i = susp[k]
+            v = yn[i] if s >= 1.0 else y[i] + s * ((yn[i] - y[i]) + s1 * (c2[i] + s * c3[i]))
+            if v < 0.0:
+                low = min(low, v * inv_scale[i])
+                neg = min(neg, v)
+                if i >= nc:
+                    while b < nb and bstop[b] <= i:
+                        b += 1
+                    if b < nb and bstart[b] <= i:
+                        clip[r, b] -= cap[i] * v
+        io += 1
+    guard[0] = low
+    guard[1] = neg
+    return io
+
+
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def run_marks(k0, k1, marks, times, ev, m, base, s, sargs, coef, n_w, n_jac, rtol, atol, max_steps, hold, y, ptr,
-              states, ev_dosed, ev_removed, stats):
+              states, ev_dosed, ev_removed, stats, full, taps):
     """Run the dosing intervals ``k0 .. k1 - 1`` (between ``marks``) of a model, applying the events
     ``ev`` (EventArrays) by :func:`~barrierflow.engine.schedule.apply_events`.
 
     ``m`` is the run's copy of the model's arrays (:func:`~barrierflow.engine.arrays.working_copy`;
     a closed face changes its links), ``base`` the model's own. The carried state (``y``, the
     :class:`~barrierflow.engine.schedule.EventState` ``s`` and ``ptr = [next output row, next
-    event]``) is updated in place, so a run can be done in pieces. Returns (status, index of the
-    failed interval or -1).
+    event]``) is updated in place, so a run can be done in pieces. With ``full`` False ``states``
+    is one row of work space and the rows are kept in ``taps`` instead (the exported columns and
+    the guard, :mod:`barrierflow.engine.exported`). Returns (status, index of the failed interval
+    or -1).
     """
     n = y.shape[0]
     nc = m.n_comp
     ws = _workspace(nc, m.n_dyn - nc, n, n_w, n_jac, sargs[3].shape[0])
+    lw = (np.zeros(m.n_dyn, dtype=np.int64), np.zeros(n), np.zeros((4, taps[1].shape[0])))
     n_marks = marks.shape[0]
     row = ptr[0]
     ei = ptr[1]
@@ -839,8 +947,8 @@ def run_marks(k0, k1, marks, times, ev, m, base, s, sargs, coef, n_w, n_jac, rto
         ei = apply_events(t0, ei, ev, m, base, y, s)
         sel_end = rows_until(times, row, t1, k == n_marks - 2)
         t_local = times[row:sel_end] - t0
-        status = _interval(y, t1 - t0, t_local, states[row:sel_end], m, s.infusion, s.clamp, sargs, coef, rtol, atol,
-                           max_steps, stats, ws, hold)
+        status = _interval(y, t1 - t0, t_local, states[row:sel_end] if full else states, m, s.infusion, s.clamp, sargs,
+                           coef, rtol, atol, max_steps, stats, ws, hold, full, taps, row, lw)
         if status != OK:
             ptr[0] = row
             ptr[1] = ei
@@ -925,7 +1033,13 @@ class RosenbrockIntegrator(Integrator):
         base = model.arrays
         m = working_copy(base)
         n_t, n_c = len(times), model.n_comp
-        states = np.full((n_t, model.n_state), np.nan)
+        full = plan.full
+        if full:
+            states = np.full((n_t, model.n_state), np.nan)
+            taps = empty_taps(model.n_state)
+        else:
+            states = np.zeros((1, model.n_state))  # work space of one row
+            taps = new_buffers(taps_of(model), n_t, model.n_state)
         ev_dosed = np.zeros((n_t, n_c))
         ev_removed = np.zeros((n_t, n_c))
         struct = build_structure(model)
@@ -941,7 +1055,7 @@ class RosenbrockIntegrator(Integrator):
         for k0, k1 in chunks:
             code, k_fail = run_marks(k0, k1, marks, times, plan.events, m, base, s, struct.args(), COEF, struct.n_w,
                                      n_jac, rtol, atol, self.max_steps, self.hold, y, ptr, states, ev_dosed, ev_removed,
-                                     st)
+                                     st, full, taps)
             if code != OK:
                 row = int(ptr[0])
                 t0, t1 = marks[k_fail], marks[k_fail + 1]
@@ -950,9 +1064,13 @@ class RosenbrockIntegrator(Integrator):
                            f"{_FAILURES.get(int(code), 'unknown failure')}. Try a tighter tolerance, fewer cells "
                            "in very thin layers, or check for extreme values (diffusivity, clearance, partition).")
                 states, ev_dosed, ev_removed = states[:row], ev_dosed[:row], ev_removed[:row]
+                n_t = row
                 break
             if plan.progress is not None:
                 plan.progress(float(marks[k1]) / plan.duration if plan.duration > 0 else 1.0)
         stats = RunStats()
         stats.add(st)
-        return Integration(states, ev_dosed, ev_removed, status, message, stats, s.moved.copy())
+        if full:
+            return Integration(states, ev_dosed, ev_removed, status, message, stats, s.moved.copy())
+        return Integration(None, ev_dosed, ev_removed, status, message, stats, s.moved.copy(),
+                           rows=Rows.from_buffers(model, taps, n_t), last=taps[8] if status == 0 else None)

@@ -13,6 +13,7 @@ import dataclasses
 import time as _time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -20,9 +21,10 @@ from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
 from .arrays import working_copy
 from .compiled import CompiledModel, compile_scenario
+from .exported import Rows
 from .grid import Grid
 from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
-from .ledger import busiest_part, check
+from .ledger import busiest_part, check_rows
 from .rosenbrock import RosenbrockIntegrator
 from .schedule import Event, apply_events, build_schedule, encode_events, new_event_state
 
@@ -31,15 +33,21 @@ __all__ = ["ROBUST", "ROBUST_VEHICLE", "Trajectory", "check_memory", "robust_for
 
 @dataclass(frozen=True, eq=False)
 class Trajectory:
-    """What the engine computed: states at the output times plus the event ledger.
+    """What the engine computed: what a result exports at the output times, the event ledger,
+    and every state on request.
 
     Attributes
     ----------
     model : CompiledModel
         The layout of ``states``.
     times : ndarray (n_t,), h
+    rows : Rows
+        The exported columns at each output time, the barriers' contents and the guard over
+        every state (:class:`~barrierflow.engine.exported.Rows`); :meth:`column` reads them.
     states : ndarray (n_t, n_state)
-        Internal units (see :mod:`barrierflow.engine.compiled`).
+        Every state, internal units (see :mod:`barrierflow.engine.compiled`): kept by the paths
+        that compute them anyway, otherwise computed when first asked for by running the same
+        path again with every state kept (deterministic: the same numbers as the rows).
     event_dosed : ndarray (n_t, n_comp), mg
         Cumulative amounts added by instantaneous events (bolus, refills, hold starts).
     event_removed : ndarray (n_t, n_comp), mg
@@ -67,11 +75,15 @@ class Trajectory:
         The volume of each compartment at each output time, for a model whose volumes change
         (evaporation, samples without replacement); None when every volume stays the model's
         ``capacity``.
+    kept : ndarray (n_t, n_state) or None
+        The full states when the path kept them.
+    recompute : FullStates or None
+        How to compute the full states when they were not kept.
     """
 
     model: CompiledModel
     times: np.ndarray
-    states: np.ndarray
+    rows: Rows
     event_dosed: np.ndarray
     event_removed: np.ndarray
     initial_amount: float
@@ -86,6 +98,43 @@ class Trajectory:
     failed_at: float | None = None
     event_amounts: np.ndarray = field(default_factory=lambda: np.zeros(0))
     volumes: np.ndarray | None = None
+    kept: np.ndarray | None = None
+    recompute: FullStates | None = None
+
+    @cached_property
+    def states(self) -> np.ndarray:
+        """Every state at every output time (n_t, n_state), internal units (see the class docstring)."""
+        if self.kept is not None:
+            return self.kept
+        if self.recompute is None:
+            raise SolverError("the full states of this run were not kept and cannot be computed again")
+        return self.recompute(len(self.times))
+
+    def column(self, i: int) -> np.ndarray:
+        """State ``i`` at every output time (from the rows when exported, else from :attr:`states`)."""
+        col = self.rows.column(i)
+        return col if col is not None else self.states[:, i]
+
+
+@dataclass(frozen=True, eq=False)
+class FullStates:
+    """Computes a run's full states again: the same integrator on the same plan with every state
+    kept (``RunPlan.full``), and the events at the very end applied to the last row, as the run
+    that kept only its rows did. Deterministic, so the numbers are those of the rows."""
+
+    model: CompiledModel
+    integrator: Integrator
+    plan: RunPlan
+    at_end: tuple[Event, ...]
+
+    def __call__(self, n_rows: int) -> np.ndarray:
+        """The states of the first ``n_rows`` output rows (those the run reached)."""
+        out = self.integrator.run(dataclasses.replace(self.plan, progress=None, full=True))
+        states = out.states[:n_rows]
+        if self.at_end and out.status == 0 and len(states) == len(self.plan.times):
+            _apply_at_end(self.model, list(self.at_end), states, out.event_dosed.copy(), out.event_removed.copy(),
+                          out.volumes)
+        return states
 
 
 def _snap(times: np.ndarray, marks: np.ndarray, tol: float) -> np.ndarray:
@@ -188,8 +237,8 @@ def solve(
         traj = _run(model, integ, plan if k == 0 else dataclasses.replace(plan, progress=None), at_end, all_events,
                     grid)
         if traj.status == 0:
-            found = check(model, traj.states, traj.event_dosed, traj.event_removed, traj.initial_amount,
-                          volumes=traj.volumes)
+            found = check_rows(model, traj.rows, traj.event_dosed, traj.event_removed, traj.initial_amount,
+                               traj.volumes, lambda traj=traj: traj.states)
             if not found:
                 stats = {**traj.stats, "fallbacks": k}
                 message = traj.message if not notes else f"{traj.message}; " + "; ".join(notes)
@@ -201,7 +250,7 @@ def solve(
         notes.append(note + (f", so it was computed again with {attempts[k + 1].name} at tighter tolerances"
                              if k + 1 < len(attempts) else ""))
     assert traj is not None
-    part = busiest_part(model, traj.states[-1] if len(traj.states) else model.y0)
+    part = busiest_part(model, traj.states[-1] if len(traj.times) else model.y0)
     message = ("the solution could not be trusted: " + "; ".join(notes) + ". "
                "Check the network for extreme values near that part (a very thin or very fast layer beside a very "
                "slow one, a huge clearance or flow, a partition far from the others); give its layers fewer cells, "
@@ -225,16 +274,24 @@ def _run(model: CompiledModel, integrator: Integrator, plan: RunPlan, at_end: li
     times = plan.times
     out = integrator.run(plan)
     states, ev_dosed, ev_removed, volumes = out.states, out.event_dosed, out.event_removed, out.volumes
+    n_rows = out.n_rows
     failed_at = None
     amounts = np.concatenate([out.event_amounts, np.zeros(len(at_end))])
     if out.status != 0:
-        failed_at = out.failed_at if out.failed_at is not None else float(times[min(len(states), len(times) - 1)])
-        times = times[: len(states)]
-    elif at_end and len(states):
-        amounts[len(out.event_amounts):] = _apply_at_end(model, at_end, states, ev_dosed, ev_removed, volumes)
-    return Trajectory(model, times, states, ev_dosed, ev_removed, _present(model, model.y0), tuple(all_events),
+        failed_at = out.failed_at if out.failed_at is not None else float(times[min(n_rows, len(times) - 1)])
+        times = times[:n_rows]
+    elif at_end and n_rows:
+        last = states if states is not None else out.last[None, :]  # the last row, changed in place
+        amounts[len(out.event_amounts):] = _apply_at_end(model, at_end, last, ev_dosed, ev_removed, volumes)
+    if states is not None:
+        rows, recompute = Rows.from_states(model, states), None
+    else:
+        rows = out.rows.finished(model, out.last) if out.status == 0 and n_rows else out.rows
+        recompute = FullStates(model, integrator, plan, tuple(at_end))
+    return Trajectory(model, times, rows, ev_dosed, ev_removed, _present(model, model.y0), tuple(all_events),
                       out.stats.as_dict(), out.status, out.message, integrator.name,
-                      _time.perf_counter() - start_clock, grid, integrator.options, failed_at, amounts, volumes)
+                      _time.perf_counter() - start_clock, grid, integrator.options, failed_at, amounts, volumes,
+                      states, recompute)
 
 
 def _apply_at_end(model: CompiledModel, events: list[Event], states: np.ndarray, ev_dosed: np.ndarray,

@@ -377,6 +377,8 @@ def _single_runs() -> None:
                 continue  # a path that refuses this network (an exact path, a nonlinear one)
             result.csv_text()
             result.metrics()
+            for bid in result.barrier_ids[:1]:
+                result.profile(bid, 0.0)  # the full states, computed again on request
 
 
 EXACT_METHODS = ("chain", "modes", "expm")

@@ -1,0 +1,230 @@
+"""What a run keeps at every output row: the exported columns, the barriers' contents, the guard.
+
+A result's traces and its mass balance need, at each output time, only the compartments, the
+cells at each barrier's two faces (the fluxes), the cumulative amounts (the quadratures) and each
+barrier's content (a sum of its cells, a linear functional of the state). The compiled paths
+(the exact chain, RODAS4) keep just these in a :class:`Rows` instead of every state at every row
+(a star of 64 barriers has 8,204 states per row), together with the guard every result passes:
+the lowest dynamic state relative to its scale, the most negative raw concentration, and whether
+every value is finite, each taken over *every* state at every row. The full states are computed
+only when asked for (:attr:`barrierflow.engine.Trajectory.states`: barrier profiles, the whole
+array), by running the same deterministic path again with every state kept; the numbers are the
+same to the last bit.
+
+:class:`Taps` says which states are kept (one per compiled model); :func:`take_row` is the one
+rule by which a full state vector of a row becomes the row's kept values, used by the compiled
+paths inside their loops and by :meth:`Rows.from_states` for the paths that return full states.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+
+from .arrays import INNER
+from .compiled import CompiledModel
+
+__all__ = ["Rows", "Taps", "empty_taps", "take_row", "taps_of"]
+
+
+@dataclass(frozen=True, eq=False)
+class Taps:
+    """Which states a run keeps at every row (built once per compiled model by :func:`taps_of`).
+
+    Attributes
+    ----------
+    keep : ndarray of int
+        The kept states, increasing: every compartment, the two states of each barrier's face
+        links, every cumulative amount.
+    pos : ndarray of int (n_state,)
+        The column of each state in :attr:`Rows.cols` (-1 when not kept).
+    bstart, bstop : ndarray of int (n_bar,)
+        The cells of each barrier (an empty range for a steady barrier).
+    inv_scale : ndarray (n_state,)
+        1 / the magnitude scale of each state (the guard's yardstick).
+    """
+
+    keep: np.ndarray
+    pos: np.ndarray
+    bstart: np.ndarray
+    bstop: np.ndarray
+    inv_scale: np.ndarray
+
+
+def taps_of(model: CompiledModel) -> Taps:
+    """The :class:`Taps` of ``model`` (built once: the model is immutable)."""
+    memo = model.__dict__.get("_taps")
+    if memo is not None:
+        return memo
+    m = model
+    faces = []
+    for g in m.grids:
+        for link in (g.in_link, g.out_link):
+            faces += [int(m.link_p[link]), int(m.link_q[link])]
+    keep = np.unique(np.concatenate([np.arange(m.n_comp), np.array(faces, dtype=np.int64),
+                                     np.arange(m.n_dyn, m.n_state)]).astype(np.int64))
+    pos = np.full(m.n_state, -1, dtype=np.int64)
+    pos[keep] = np.arange(len(keep))
+    bstart = np.array([g.start for g in m.grids], dtype=np.int64)
+    bstop = np.array([max(g.start, min(g.stop, m.n_dyn)) for g in m.grids], dtype=np.int64)
+    taps = Taps(keep, pos, bstart, bstop, 1.0 / m.scale)
+    model.__dict__["_taps"] = taps
+    return taps
+
+
+def new_buffers(taps: Taps, n_t: int, n_state: int) -> tuple:
+    """The kernels' output arrays of a run of ``n_t`` rows: ``(keep, bstart, bstop, inv_scale, cols,
+    content, clipped, guard, last)``, ``guard = [lowest scaled, most negative, finite (0 or NaN)]``,
+    ``last`` the full state of the last row."""
+    nb = len(taps.bstart)
+    return (taps.keep, taps.bstart, taps.bstop, taps.inv_scale, np.empty((n_t, len(taps.keep))),
+            np.empty((n_t, nb)), np.empty((n_t, nb)), np.zeros(3), np.zeros(n_state))
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def empty_taps(n_state):
+    """Output arrays that keep nothing (for a caller that keeps the full states itself)."""
+    z = np.zeros(0, dtype=np.int64)
+    return (z, z, z, np.zeros(0), np.zeros((0, 0)), np.zeros((0, 0)), np.zeros((0, 0)), np.zeros(3),
+            np.zeros(n_state))
+
+
+#: The row rule's sums and minima may be reordered, so that its loops run in vector lanes (NaN
+#: and infinity keep their meaning: no finite-math assumption).
+_LANES = dict(INNER, fastmath={"reassoc", "nsz", "arcp", "contract"})
+
+
+@njit(**_LANES)
+def take_row(y, r, taps, cap, nd):
+    """Keep row ``r`` of the full state ``y`` in the buffers ``taps`` (see :func:`new_buffers`).
+
+    The last row (``r`` the buffers' last) is kept whole in ``last`` and left out of the guard:
+    the driver applies the events at the very end of the run to it first
+    (:meth:`Rows.finished`).
+    """
+    keep, bstart, bstop, inv_scale, cols, cont, clip, guard, last = taps
+    if keep.shape[0] == 0:
+        return
+    for j in range(keep.shape[0]):
+        cols[r, j] = y[keep[j]]
+    for b in range(bstart.shape[0]):
+        yc = y[bstart[b]:bstop[b]]
+        cc = cap[bstart[b]:bstop[b]]
+        acc = 0.0
+        pos = 0.0
+        for i in range(yc.shape[0]):
+            v = yc[i] * cc[i]
+            acc += v
+            pos += max(v, 0.0)
+        cont[r, b] = acc
+        clip[r, b] = pos
+    if r == cols.shape[0] - 1:
+        for i in range(y.shape[0]):
+            last[i] = y[i]
+        return
+    yd = y[:nd]
+    sd = inv_scale[:nd]
+    low = 0.0
+    neg = 0.0
+    for i in range(nd):
+        low = min(low, yd[i] * sd[i])
+        neg = min(neg, yd[i])
+    fin = 0.0
+    for i in range(y.shape[0]):
+        fin += y[i] * 0.0  # NaN for a NaN or an infinity
+    guard[0] = min(guard[0], low)
+    guard[1] = min(guard[1], neg)
+    guard[2] += fin
+
+
+@dataclass(frozen=True, eq=False)
+class Rows:
+    """What a run keeps at each output row (see the module docstring).
+
+    Attributes
+    ----------
+    taps : Taps
+    cols : ndarray (n_t, len(taps.keep))
+        The kept states (internal units).
+    content : ndarray (n_t, n_bar), mg
+        Amount in each barrier's cells.
+    clipped : ndarray (n_t, n_bar), mg
+        The same with each cell's negative values counted as 0 (what the traces show).
+    low : float
+        The lowest dynamic state over the rows, relative to its scale (0 when none is negative).
+    most_negative : float, mg/mL
+        The most negative raw dynamic state (0 when none is).
+    finite : bool
+        Every state at every row is finite.
+    """
+
+    taps: Taps
+    cols: np.ndarray
+    content: np.ndarray
+    clipped: np.ndarray
+    low: float
+    most_negative: float
+    finite: bool
+
+    def column(self, i: int) -> np.ndarray | None:
+        """State ``i`` at every row (a view), or None when it is not kept."""
+        j = int(self.taps.pos[i])
+        return self.cols[:, j] if j >= 0 else None
+
+    @property
+    def cells(self) -> np.ndarray:
+        """Amount in every barrier cell together at each row, mg (the ledger's share of the cells)."""
+        return self.content.sum(axis=1)
+
+    @classmethod
+    def from_buffers(cls, model: CompiledModel, buf: tuple, n_rows: int) -> Rows:
+        """The rows a kernel filled in the buffers of :func:`new_buffers` (the first ``n_rows``;
+        the guard over them, the last row's included only when it is the buffers' last, through
+        :meth:`finished`)."""
+        _k, _s, _e, _i, cols, cont, clip, guard, _last = buf
+        fin = not bool(np.isnan(guard[2]))
+        rows = cls(taps_of(model), cols[:n_rows], cont[:n_rows], clip[:n_rows], float(guard[0]), float(guard[1]),
+                   fin)
+        return rows
+
+    def finished(self, model: CompiledModel, last: np.ndarray) -> Rows:
+        """These rows with the last one kept from its full state ``last`` (after the events at the
+        very end of the run), and the guard taken over it too."""
+        t = self.taps
+        n = len(self.cols)
+        buf = (t.keep, t.bstart, t.bstop, t.inv_scale, self.cols, self.content, self.clipped,
+               np.array([self.low, self.most_negative, 0.0 if self.finite else np.nan]), np.zeros(len(last)))
+        _finish(np.ascontiguousarray(last, dtype=np.float64), n - 1, buf, model.capacity, model.n_dyn)
+        g = buf[7]
+        return Rows(t, self.cols, self.content, self.clipped, float(g[0]), float(g[1]), not bool(np.isnan(g[2])))
+
+    @classmethod
+    def from_states(cls, model: CompiledModel, states: np.ndarray) -> Rows:
+        """The rows of a run that kept its full states (n_t, n_state), by the same rule."""
+        n_t = len(states)
+        buf = new_buffers(taps_of(model), n_t, model.n_state)
+        _fill(np.ascontiguousarray(states), buf, model.capacity, model.n_dyn)
+        rows = cls.from_buffers(model, buf, n_t)
+        return rows.finished(model, states[-1]) if n_t else rows
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _finish(y, r, taps, cap, nd):
+    """Keep the last row ``r`` from ``y`` and take the guard over it too (:func:`take_row` leaves
+    the buffers' last row out of the guard)."""
+    guard = taps[7]
+    inv_scale = taps[3]
+    for i in range(nd):
+        guard[0] = min(guard[0], y[i] * inv_scale[i])
+        guard[1] = min(guard[1], y[i])
+    for i in range(y.shape[0]):
+        guard[2] += y[i] * 0.0
+    take_row(y, r, taps, cap, nd)
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _fill(states, taps, cap, nd):
+    for r in range(states.shape[0]):
+        take_row(states[r], r, taps, cap, nd)

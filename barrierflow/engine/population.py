@@ -765,11 +765,10 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
             content[i] = np.nan
             messages[i] = f"{note}; computed again on its own it failed too: {err}"
             continue
-        out[i] = tr.states[:, keep]
+        out[i] = np.stack([tr.column(int(j)) for j in keep], axis=1)  # from its rows (no full states)
         out_dosed[i] = tr.event_dosed
         out_removed[i] = tr.event_removed
-        for b, g in enumerate(m0.grids):
-            content[i, :, b] = np.maximum(tr.states[:, g.start:g.stop], 0.0) @ cap[i, g.start:g.stop]
+        content[i] = tr.rows.clipped  # each cell counted at 0 where negative, as in a single run
         stats[i, ST_STEPS] = tr.stats.get("steps", 0)
         st[i] = 0
         messages[i] = f"{note}; computed again on its own with {tr.integrator}"

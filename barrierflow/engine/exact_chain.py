@@ -827,6 +827,16 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         w = qv[j] / tv[a]
         for s in range(ks):
             wt[s, r] += w * vec[s, a]
+    # the quadratures that some slow mode moves (most do not: the lost, sampled, degraded amounts
+    # of a network without those terms); the others are their constant and slope alone
+    moved = np.zeros(nqd, dtype=np.int64)
+    n_moved = 0
+    for q in range(nqd):
+        for s in range(ks):
+            if wt[s, q] != 0.0:
+                moved[n_moved] = q
+                n_moved += 1
+                break
     # the states of each slow mode (y = x / t)
     vy = np.empty((ks, n))
     for s in range(ks):
@@ -935,7 +945,10 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
             zi = zib[r]
             ys = ysb[r]
             for q in range(nqd):
-                acc = qconst[q] + qslope[q] * tj
+                qs[q] = qconst[q] + qslope[q] * tj
+            for i in range(n_moved):
+                q = moved[i]
+                acc = qs[q]
                 for s in range(ks):
                     acc += wt[s, q] * zi[s]
                 qs[q] = acc

@@ -201,6 +201,12 @@ def relative_error_of(conc, cells, quad, dosed, removed, capacity, has_volume, y
     return worst / max(max(big_left, big_right), 1e-300)
 
 
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _relative_error(conc, cells, quad, dosed, removed, capacity, has_volume, y0, nd, w):
+    """:func:`relative_error_of` called from Python (a run's kept rows)."""
+    return relative_error_of(conc, cells, quad, dosed, removed, capacity, has_volume, y0, nd, w)
+
+
 def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
     """Which cumulative amounts make each ledger term (a 0/1 matrix, quadratures x 4) and the
     volumes that count as present (0 for a held compartment without one), built once per model."""
@@ -290,8 +296,17 @@ def check_rows(model: CompiledModel, rows: Rows, event_dosed: np.ndarray, event_
     to name where each finding is worst."""
     if not len(rows.cols):
         return []
-    led = rows_ledger(model, rows, event_dosed, event_removed, initial, volumes) if rows.finite else None
-    found = verdict(led, rows.low, rows.finite)
+    if volumes is None and rows.finite:
+        # the ledger's relative error in one compiled pass, as for each subject of a population
+        m = model
+        nc, nd = m.n_comp, m.n_dyn
+        rel = _relative_error(rows.cols[:, :nc], rows.cells, rows.cols[:, rows.taps.pos[nd]:] if m.n_state > nd else
+                              np.zeros((len(rows.cols), 0)), event_dosed, event_removed, m.capacity, m.has_volume,
+                              m.y0, nd, ledger_weights(m))
+        found = judge(float(rel), rows.low, True)
+    else:
+        led = rows_ledger(model, rows, event_dosed, event_removed, initial, volumes) if rows.finite else None
+        found = verdict(led, rows.low, rows.finite)
     if not found:
         return []
     return check(model, states(), event_dosed, event_removed, initial, volumes) or found

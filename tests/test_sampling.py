@@ -191,3 +191,22 @@ def test_sketch_merges_exactly_whatever_the_chunks():
     assert np.array_equal(a.percentiles(q), ref, equal_nan=True)
     with pytest.raises(ValueError, match="cannot join"):
         QuantileSketch(25, accuracy=0.02).add(count_values(x))
+
+
+def test_sketch_bins_are_those_of_the_c_library_logarithm():
+    # The bin of x is ceil(ln|x| / ln gamma) (Masson, Rim & Lee 2019, section 2) with ln from
+    # the C library (math.log); the counting takes numpy's vectorised logarithm, which differs
+    # from it by a unit in the last place for some values, and goes back to math.log near a bin
+    # edge. Values at the edges gamma^k, one step either side of them, and random ones: each
+    # value alone in its cell, its one bin must be the math.log one.
+    gamma = 1.01
+    edges = gamma ** np.arange(-2000.0, 2000.0)
+    x = np.concatenate([edges, np.nextafter(edges, 0.0), np.nextafter(edges, np.inf),
+                        np.random.default_rng(9).lognormal(0.0, 6.0, 100_000)])
+    x = np.concatenate([x, -x[::7]])
+    c = count_values(x[None, :], gamma - 1.0)
+    inv = 1.0 / math.log(gamma)
+    want_pos = [math.ceil(math.log(v) * inv) for v in x if v > 0]
+    want_neg = [math.ceil(math.log(-v) * inv) for v in x if v < 0]
+    assert c.pos_n.tolist() == [1 if v > 0 else 0 for v in x] and c.pos.tolist() == [1] * len(want_pos)
+    assert c.pos_bin.tolist() == want_pos and c.neg_bin.tolist() == want_neg

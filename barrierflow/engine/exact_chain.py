@@ -222,8 +222,9 @@ def _slow_modes(dd, ee, n, cut, gedge, ediag, msq, comp_of, lam, vec):
     """
     if n == 0:
         return 0
-    k = 0
-    start = 0
+    # not literal zeros: _part_modes would be compiled for them as well (seconds)
+    k = np.int64(0)
+    start = np.int64(0)
     while start < n:
         stop = start
         while stop + 1 < n and comp_of[stop + 1] == comp_of[start]:
@@ -738,7 +739,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         j0 += 1
     x0 = work[0]
     tg = work[1]
-    has_g = False
+    has_g = np.bool_(False)  # not a literal False: _rational_row would be compiled for it as well
     for a in range(n):
         x0[a] = tv[a] * y0[idx[a]]
         tg[a] = tv[a] * g[idx[a]]

@@ -74,6 +74,24 @@ warm_up()
     assert not changed, f"compiled after `barrierflow prepare`: {changed}"
 
 
+@pytest.mark.slow
+def test_no_kernel_is_compiled_for_a_literal_argument():
+    # numba compiles a kernel again for each new combination of argument types, and a constant
+    # handed to a compiled callee (0, True) is typed as a literal of its own: the callee is then
+    # compiled twice, once for the literal and once for the plain type the other calls give
+    # (seconds each for a run loop). After prepare, no cached signature holds a literal.
+    prep.prepare()
+    literal = {}
+    for name, dispatcher in prep._dispatchers().items():
+        if name in prep.NOT_REACHED:
+            continue
+        for key in dispatcher._cache._cache_file._load_index():
+            found = [str(t) for t in key[0] if "Literal" in str(t)]
+            if found:
+                literal[name] = found
+    assert not literal, f"compiled for a literal argument: {literal}"
+
+
 def test_a_cache_prepared_from_other_sources_is_not_ready(monkeypatch):
     # numba checks a cached function against its own file only: a kernel that inlines a changed
     # kernel of another file would load stale, so a changed source makes the cache not ready

@@ -353,7 +353,7 @@ def _quantiles(qs, neg_top, neg, neg_low, zeros, pos_top, pos, pos_low, vmin, vm
     """Percentiles of every cell. A store that was never made is given with no bins (shape (n, 0))."""
     n_cells = zeros.shape[0]
     for c in range(n_cells):
-        n_neg = 0
+        n_neg = np.int64(0)  # not a literal 0: _rank_value would be compiled for it as well
         for j in range(neg.shape[1]):
             n_neg += neg[c, j]
         n_pos = 0

@@ -299,10 +299,10 @@ def _run_population(lo, hi, marks, times, ev, ev_values, stack, work, sargs, coe
         ptr = np.zeros(2, dtype=np.int64)
         st = np.zeros(6, dtype=np.int64)
         atol = atol_rel * base.scale
-        # the first interval as an int64, as the single run gives it (a literal 0 would compile
-        # run_marks a second time)
+        # the first interval and ``full`` of the types the single run gives them (an int64, a bool):
+        # a literal 0 or True would compile run_marks a second time
         code, k = run_marks(np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac, rtol, atol,
-                            max_steps, hold, y, ptr, states, evd, evr, st, True, empty_taps(n))
+                            max_steps, hold, y, ptr, states, evd, evr, st, np.bool_(True), empty_taps(n))
         status[i] = code
         fail_k[i] = k
         for j in range(6):
@@ -327,7 +327,7 @@ def _run_population_exact(lo, hi, marks, times, ev, ev_values, stack, work, orde
         st = np.zeros(6, dtype=np.int64)
         s = new_event_state(base, ev.time.shape[0])
         status[i] = chain_schedule(marks, times, evi, m, base, s, order, cut, n_jac, base.y0.copy(), states, evd, evr,
-                                   st, True, empty_taps(n))
+                                   st, np.bool_(True), empty_taps(n))  # not a literal True (as in _run_population)
         for j in range(6):
             stats[i, j] = st[j]
         _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i], out_removed[i],

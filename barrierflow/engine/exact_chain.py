@@ -844,6 +844,21 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
         for a in range(n):
             vy[s, a] = vec[s, a] / tv[a]
     qs = np.empty(nqd)
+    # the dynamic states outside the chain (held or clamped: they keep their value) and whether a
+    # state of the chain is alone (then the rows need the branch below)
+    on_chain = np.zeros(nd, dtype=np.bool_)
+    for a in range(n):
+        on_chain[idx[a]] = True
+    fixed = np.empty(nd, dtype=np.int64)
+    n_fixed = 0
+    for q in range(nd):
+        if not on_chain[q]:
+            fixed[n_fixed] = q
+            n_fixed += 1
+    any_alone = False
+    for a in range(n):
+        if alone[a]:
+            any_alone = True
     # equally spaced output times (the usual output_step): exp(lam tau) by recurrence, one
     # multiplication per mode and time instead of a call of exp; the times' rounding deviations
     # from the even grid (~1e-15 h) enter to first order, exp(lam d) = 1 + lam d
@@ -953,11 +968,15 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
                 for s in range(ks):
                     acc += wt[s, q] * zi[s]
                 qs[q] = acc
-            for q in range(nd):
-                dst[q] = y0[q]
-            for a in range(n):
-                ia = idx[a]
-                dst[ia] = y0[ia] + g[ia] * tj if alone[a] else ys[a]
+            for q in range(n_fixed):
+                dst[fixed[q]] = y0[fixed[q]]
+            if any_alone:
+                for a in range(n):
+                    ia = idx[a]
+                    dst[ia] = y0[ia] + g[ia] * tj if alone[a] else ys[a]
+            else:
+                for a in range(n):
+                    dst[idx[a]] = ys[a]
             dq = dst[nd:]
             for q in range(nqd):
                 dq[q] = y0[nd + q] + qs[q] + g[nd + q] * tj

@@ -221,7 +221,9 @@ def solve(
     events = [e for e in all_events if e.time < duration]
     at_end = [e for e in all_events if e.time >= duration]
     marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
-    times = np.unique(_snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(duration, 1.0)))
+    times = _snap(scenario.output_array(), marks, 1e-9 * max(duration, 1.0))
+    if not np.all(times[1:] > times[:-1]):  # times snapped onto one event merge
+        times = np.unique(times)
     chosen = resolve_integrator(integrator, model, float(np.diff(marks).max()), len(times), len(marks) - 1)
     check_memory(scenario, model, len(times), chosen)
     plan = RunPlan(model, encode_events(events), marks, times, progress)

@@ -11,6 +11,8 @@ from dataclasses import dataclass, field
 from functools import cached_property
 from typing import TYPE_CHECKING, Any, ClassVar
 
+import numpy as np
+
 from ..errors import Problem, ScenarioError, UnitsError
 from ..units import KINDS, parse_quantity
 from ._fields import FieldSpec, finite
@@ -443,15 +445,21 @@ class Scenario:
         """The output times, h: as given, or every ``output_step`` from 0 and the end, or 500 steps."""
         if self.output_times is not None:
             return self.output_times
+        return tuple(self.output_array().tolist())
+
+    def output_array(self) -> np.ndarray:
+        """:meth:`output_grid` as an array, h (the same numbers: each time ``i * output_step``, or
+        ``duration * i / 500``, computed as a whole)."""
+        if self.output_times is not None:
+            return np.array(self.output_times, dtype=np.float64)
         if self.output_step is not None:
             n = int(math.floor(self.duration / self.output_step * (1 + 1e-12)))
-            times = [i * self.output_step for i in range(n + 1)]
+            times = np.arange(n + 1, dtype=np.float64) * self.output_step
             if self.duration - times[-1] > 1e-9 * self.duration:
-                times.append(self.duration)
-            else:
-                times[-1] = self.duration
-            return tuple(times)
-        return tuple(self.duration * i / DEFAULT_OUTPUT_POINTS for i in range(DEFAULT_OUTPUT_POINTS + 1))
+                return np.append(times, self.duration)
+            times[-1] = self.duration
+            return times
+        return self.duration * np.arange(DEFAULT_OUTPUT_POINTS + 1, dtype=np.float64) / DEFAULT_OUTPUT_POINTS
 
     def components(self) -> list[list[str]]:
         """Compartment ids of each connected part of the network (more than one is allowed)."""

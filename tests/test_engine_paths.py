@@ -723,6 +723,28 @@ def test_scipy_compartment_fed_by_many_barriers_keeps_its_accuracy(method):
     assert np.max(np.abs(c - c_ref)) / np.max(c_ref) < 1e-5
 
 
+def test_scipy_that_keeps_its_tolerance_elsewhere_gets_every_state_as_tight(monkeypatch):
+    """Should a scipy BDF not keep its relative tolerance as a float in ``rtol`` (where the
+    integrator sets one per state), the integrator makes it again with every state as tight as
+    the compartments: the star of 64 keeps its accuracy (and no tolerance is silently lost)."""
+    import scipy.integrate
+
+    class OtherBDF(scipy.integrate.BDF):
+        def __init__(self, *args, **kwargs):
+            super().__init__(*args, **kwargs)
+            self.made_with = kwargs["rtol"]
+            self.rtol = np.asarray(self.rtol)  # not a float: left alone by the integrator
+            made.append(self)
+
+    made: list = []
+    monkeypatch.setattr(scipy.integrate, "BDF", OtherBDF)
+    s, c_ref = _star_of_64()
+    c = bf.simulate(s, integrator=ScipyIntegrator("BDF")).concentration("central")
+    assert np.max(np.abs(c - c_ref)) / np.max(c_ref) < 1e-5
+    assert made and all(np.ndim(m.rtol) == 0 for m in made)
+    assert min(m.made_with for m in made) < 1e-6 / 30  # made again: every state at 1e-6 / sqrt(n), n ~ 1,300
+
+
 def test_compartment_tolerances_weigh_each_compartment_like_all_states():
     """The per-state tolerances that the scipy integrators get: a compartment's error at its own
     tolerance alone makes scipy's root mean square (scipy.integrate._ivp.common.norm) reach 1."""

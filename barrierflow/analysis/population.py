@@ -145,10 +145,13 @@ def population_columns(population: Population, scenario: Scenario) -> list[tuple
 
 class _Block:
     """Subjects of a population as one run with a subject axis: the trace methods
-    :func:`compute_metrics` reads, each giving (n_subjects, n_t)."""
+    :func:`compute_metrics` reads, each giving (n_subjects, n_t) (the population's own arrays
+    when the block is every subject in order)."""
 
     def __init__(self, traces: _Traces, rows: np.ndarray, scenario: Scenario):
-        self._t, self._rows, self.scenario = traces, rows, scenario
+        self._t, self.scenario = traces, scenario
+        every = len(rows) == traces.population.n_subjects and np.array_equal(rows, np.arange(len(rows)))
+        self._rows = slice(None) if every else rows
         self.times = traces.population.times
 
     def concentration(self, cid: str) -> np.ndarray:

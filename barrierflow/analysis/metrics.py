@@ -987,6 +987,15 @@ class Metrics:
     molar_mass : float or None, mg/mmol
     input_end : float or None, h
         When the last input ended (see :func:`last_input_end`; None when one acts to the end).
+
+    Notes
+    -----
+    The metrics of many subjects at once (:func:`compute_metrics` on a block) have the same form
+    with an array (n_subjects,) in place of every number of the compartments and barriers, and of
+    ``input_end`` (NaN for None) and ``molar_mass`` (when it varies), and an array of texts per
+    note (``""`` for a subject without it); ``steady_state_reached`` is then 1, 0 or NaN.
+    :meth:`subject` gives one subject's metrics in the form of a single run, :meth:`columns` the
+    table of all; the other exports are for a single run.
     """
 
     compartments: tuple[CompartmentMetrics, ...]

@@ -246,24 +246,24 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
     rows = np.arange(population.n_subjects) if rows is None else np.asarray(rows, dtype=np.int64).reshape(-1)
     stack = getattr(scenarios, "stacked", None)
     parts: list[tuple[np.ndarray, tuple[str, ...], tuple[str, ...], np.ndarray]] = []
-
-    def measure(at: np.ndarray) -> None:
+    # positions in ``rows`` still to measure, as a work list (a recursive closure would hold the
+    # traces in a reference cycle until the collector runs)
+    pending = [np.flatnonzero(population.status[rows] == 0)]
+    while pending:
+        at = pending.pop()
+        if not len(at):
+            continue
         subjects = rows[at]
         if stack is None:
             for k, i in zip(at.tolist(), subjects.tolist(), strict=True):
                 parts.append((np.array([k]), *compute_metrics(_Block(traces, np.array([i]), scenarios[i])).columns()))
-            return
+            continue
         try:
             table = compute_metrics(_Block(traces, subjects, stack(subjects)))
         except Diverging as split:
-            measure(at[split.mask])
-            measure(at[~split.mask])
-            return
+            pending += [at[~split.mask], at[split.mask]]
+            continue
         parts.append((at, *table.columns()))
-
-    finished = np.flatnonzero(population.status[rows] == 0)
-    if len(finished):
-        measure(finished)
     if parts:
         names, units = parts[0][1], parts[0][2]
     else:

@@ -841,8 +841,9 @@ def _take_step(y, yn, c2, c3, t, h, t_new, t_out, io, row0, taps, cap, nc, nd, l
     s = (t_out - t) / h, linear in (y, yn, c2, c3): the kept states are evaluated by it as the
     full output would be (the same numbers), each barrier's content from the contents of the four
     vectors (one pass over the cells per step, not per row). The guard stays exact over every
-    state: on [0, 1] the cubic is at least ``min(y, yn) - (|c2| + |c3|) / 4``, so a state whose
-    bound (less a margin for rounding) is positive cannot be negative at any row of the step; the
+    state: on [0, 1] the cubic is at least ``min(y, yn) + min(0, c2, c2 + c3) / 4`` (s (1 - s) is
+    at most 1/4 and c2 + s c3 is linear in s), so a state whose bound (less a margin for rounding)
+    is positive cannot be negative at any row of the step; the
     others (the suspects) are evaluated at every row, for the lowest scaled value, the most
     negative value and the clipped contents. The last row of the run is kept whole
     (:func:`~barrierflow.engine.exported.take_row`).
@@ -861,8 +862,11 @@ def _take_step(y, yn, c2, c3, t, h, t_new, t_out, io, row0, taps, cap, nc, nd, l
     for i in range(nd):
         a = y[i]
         b = yn[i]
-        e = abs(c2[i]) + abs(c3[i])
-        if not min(a, b) - 0.25 * e > 4e-15 * (abs(a) + abs(b) + e):
+        d2 = c2[i]
+        d3 = c3[i]
+        # s (1 - s) is in [0, 1/4] and c2 + s c3 at least min(c2, c2 + c3) on [0, 1]
+        low_i = min(a, b) + 0.25 * min(0.0, min(d2, d2 + d3))
+        if not low_i > 4e-15 * (abs(a) + abs(b) + abs(d2) + abs(d3)):
             susp[ns] = i
             ns += 1
     for b in range(nb):

@@ -42,9 +42,14 @@ def same_rows(tr) -> None:
     assert got.cols.shape == ref.cols.shape
     big = np.maximum(np.abs(ref.cols).max(axis=0, initial=0.0), 1e-300)
     assert np.all(np.abs(got.cols - ref.cols) <= REL * big), tr.integrator
+    # a barrier's content against the larger of its largest value and its magnitude scale (the sum
+    # of its cells' scales times their capacities, the yardstick of every error in the project):
+    # RODAS4 forms the contents from the step's four vectors, whose rounding is relative to their
+    # own size, which can exceed a nearly empty barrier's content
+    m_scale = np.array([m.scale[g.start:g.stop] @ m.capacity[g.start:g.stop] for g in m.grids]).reshape(-1)
     for name in ("content", "clipped"):
         a, b = getattr(got, name), getattr(ref, name)
-        size = np.maximum(np.abs(b).max(axis=0, initial=0.0), 1e-300)
+        size = np.maximum(np.maximum(np.abs(b).max(axis=0, initial=0.0), m_scale), 1e-300)
         assert np.all(np.abs(a - b) <= REL * size), (name, tr.integrator)
     scale_low = max(abs(ref.low), 1e-300)
     assert abs(got.low - ref.low) <= REL * scale_low
@@ -78,7 +83,7 @@ def test_kept_rows_equal_the_full_states_on_every_shipped_scenario(path):
         assert result.most_negative == float(min(0.0, np.min(tr.states[:, :tr.model.n_dyn], initial=0.0)))
 
 
-@settings(max_examples=40)
+@settings(max_examples=40, deadline=None, derandomize=True, database=None)
 @given(st.randoms(use_true_random=False))
 def test_kept_rows_equal_the_full_states_on_random_networks(rng: random.Random):
     s = random_scenario(rng, small_grid=True)

@@ -922,6 +922,8 @@ def _take_step(y, yn, c2, c3, t, h, t_new, t_out, io, row0, taps, cap, nc, nd, l
                         b += 1
                     if b < nb and bstart[b] <= i:
                         clip[r, b] -= cap[i] * v
+        for b in range(nb):  # a sum of cells counted at 0 or more is not below 0 (rounding of the four contents)
+            clip[r, b] = max(clip[r, b], 0.0)
         io += 1
     guard[0] = low
     guard[1] = neg

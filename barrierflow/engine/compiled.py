@@ -439,7 +439,9 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         dif = _row([x.diffusivity for x in b.layers])[..., lay_idx]
         half_res = w / (2 * dif * part)  # h/cm
         nb = w.shape[-1]
-        g = np.empty(half_res.shape[:-1] + (nb + 1,))
+        # one row per subject when the cells or the area hold one value per subject (the area
+        # alone may: its cells are then shared)
+        g = np.empty(np.broadcast_shapes(np.shape(b.area)[:-1], half_res.shape[:-1]) + (nb + 1,))
         g[..., :1] = b.area / half_res[..., :1]
         g[..., 1:nb] = b.area / (half_res[..., :-1] + half_res[..., 1:])
         g[..., nb:] = b.area / half_res[..., -1:]

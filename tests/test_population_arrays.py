@@ -18,7 +18,7 @@ from barrierflow.engine import arrays, compile_scenario
 from barrierflow.engine.grid import Grid
 from barrierflow.engine.ledger import ledger_rows, ledger_weights, relative_error_of
 from barrierflow.engine.population import simulate_many, simulate_values
-from barrierflow.errors import BarrierflowError
+from barrierflow.errors import BarrierflowError, ScenarioError
 from barrierflow.model.cohort import Diverging, refused, stacked
 from barrierflow.model.paths import parameter_paths, with_values
 from barrierflow.studies.runner import simulate_subjects
@@ -178,3 +178,64 @@ def _error_of(conc, cells, quad, dosed, removed, m, w):
 
     return call(conc, cells, quad, np.ascontiguousarray(dosed), np.ascontiguousarray(removed), m.capacity,
                 m.has_volume, m.y0, m.n_dyn, w)
+
+
+WITH_BARRIERS = [n for n in ALL if bf.load(SCENARIOS / n).barriers]
+
+
+@pytest.mark.parametrize("name", WITH_BARRIERS)
+def test_the_area_alone_varied_compiles_as_each_subjects_own(name):
+    # only a barrier's area holds one value per subject (its cells are shared): the stacked
+    # model's row i is subject i's own compiled model (with_values), field by field, bit for bit
+    s = bf.load(SCENARIOS / name)
+    for b in s.barriers:
+        params = [bf.model.paths.parse_param(f"barrier.{b.id}.area", s)]
+        values = b.area * np.array([[0.7], [1.0], [1.6]])
+        assert not refused(s, params, values)
+        model = compile_scenario(stacked(s, params, values), Grid())
+        for i in range(len(values)):
+            own = compile_scenario(with_values(s, {params[0]: values[i, 0]}), Grid())
+            for field in arrays.ModelArrays._fields:
+                got, want = getattr(model.arrays, field), getattr(own.arrays, field)
+                if isinstance(want, np.ndarray):
+                    got = got if field in arrays.SHARED else got[i]
+                    assert got.dtype == want.dtype and np.array_equal(got, want), (name, b.id, field, i)
+                else:
+                    assert got == want, (name, field)
+
+
+@pytest.mark.parametrize("name, varied", [("daily_patch.toml", "barrier.skin.area"),
+                                          ("membrane_washoff.toml", "dose.1.fraction")])
+def test_one_value_alone_varied_runs_as_each_subjects_single_run(name, varied):
+    # the area alone (the patch's cells shared by every subject), and the share a wash-off
+    # removes (one event value per subject, 1 for some: the whole content): each subject equals
+    # its own single run (barrierflow.simulate of with_values) to 1e-12
+    s = bf.load(SCENARIOS / name)
+    if varied == "dose.1.fraction":
+        s = with_values(s, {varied: 0.9})
+    params = [bf.model.paths.parse_param(varied, s)]
+    base = params[0].get(s)
+    values = np.array([[0.5], [0.9], [1.0], [0.99]]) if varied == "dose.1.fraction" else base * np.array(
+        [[0.6], [1.0], [1.7]])
+    pop = simulate_values(s, params, values)
+    assert (pop.status == 0).all(), pop.messages
+    for i, row in enumerate(values.tolist()):
+        alone = bf.simulate(with_values(s, {params[0]: row[0]}))
+        for c in s.compartments:
+            want = alone.concentration(c.id)
+            assert np.max(np.abs(pop.concentration(c.id)[i] - want)) <= 1e-12 * np.max(np.abs(want)), (c.id, i)
+        for b in s.barriers:
+            want = alone.permeated(b.id)
+            assert np.max(np.abs(pop.permeated(b.id)[i] - want)) <= 1e-12 * np.max(np.abs(want)), (b.id, i)
+
+
+@pytest.mark.parametrize("varied, values", [("dose.2.fraction", [[0.9], [0.95]]),
+                                            ("barrier.skin.area", [[0.8], [1.0]])])
+def test_a_scenario_populations_do_not_run_is_refused_whatever_is_varied(varied, values):
+    # the in-vitro protocol evaporates its vehicle: the compiled paths do not run it, and the
+    # population says so (a ScenarioError naming the reason) before building any event from the
+    # values, whichever value varies alone
+    s = bf.load(SCENARIOS / "finite_dose_in_vitro.toml")
+    params = [bf.model.paths.parse_param(varied, s)]
+    with pytest.raises(ScenarioError, match="do not run evaporation"):
+        simulate_subjects(s, params, np.array(values) * (s.barrier("skin").area if "area" in varied else 1.0))

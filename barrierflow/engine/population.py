@@ -613,7 +613,7 @@ def simulate_values(scenario: Scenario, params: Sequence[Param], values: np.ndar
     grid = grid or Grid()
     params = tuple(params)
     try:
-        batch = _values_batch(scenario, params, values, grid)
+        batch, order = _values_batch(scenario, params, values, grid, integrator)
     except Diverging as split:
         parts = [np.flatnonzero(split.mask), np.flatnonzero(~split.mask)]
         pops = [simulate_values(scenario, params, values[rows], integrator=integrator, grid=grid, threads=threads)
@@ -623,13 +623,17 @@ def simulate_values(scenario: Scenario, params: Sequence[Param], values: np.ndar
             for j, i in enumerate(rows.tolist()):
                 taken[i] = (pop, j)
         return take_rows(taken, factors=factors, wall_time=_time.perf_counter() - start)
-    order = _check_model(batch.model, integrator)
     return _run(batch, order, integrator, grid, threads, factors, start)
 
 
-def _values_batch(scenario: Scenario, params: tuple[Param, ...], values: np.ndarray, grid: Grid) -> _Batch:
+def _values_batch(scenario: Scenario, params: tuple[Param, ...], values: np.ndarray, grid: Grid,
+                  integrator) -> tuple[_Batch, np.ndarray | None]:
+    """The subjects' batch and the chain order of the exact path (see :func:`_check_model`)."""
     view = stacked(scenario, params, values)
     model = compile_scenario(view, grid)
+    # a model no compiled path runs is refused before its events are built: the rules of those
+    # events (the time a vehicle dries) take one value, not one per subject
+    order = _check_model(model, integrator)
     n = len(values)
     schedule = build_schedule(view, model.comp_index)
     ev = encode_events([dataclasses.replace(e, value=0.0) if isinstance(e.value, np.ndarray) else e for e in schedule])
@@ -642,7 +646,7 @@ def _values_batch(scenario: Scenario, params: tuple[Param, ...], values: np.ndar
         return with_values(scenario, dict(zip(params, values[i].tolist(), strict=True)))
 
     return _Batch(model, model.arrays, ev, ev_v, schedule, marks, _output_times(scenario, marks), scenario.duration,
-                  scenario_of(0) if params else scenario, scenario_of)
+                  scenario_of(0) if params else scenario, scenario_of), order
 
 
 def take_rows(rows: Sequence[tuple[Population | None, int | str]], *, factors: Mapping[str, np.ndarray] | None = None,

@@ -14,6 +14,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
+import numpy as np
+
 from ..errors import Problem, ScenarioError
 from ._fields import Checker, FieldSpec, build, finite
 
@@ -641,9 +643,12 @@ class Dose:
         return self.replace is not False
 
     @property
-    def removed_fraction(self) -> float:
-        """A remove: the share of the content it takes (1 by default)."""
-        return 1.0 if self.fraction is None else float(self.fraction)
+    def removed_fraction(self) -> float | np.ndarray:
+        """A remove: the share of the content it takes (1 by default; one value per subject in a
+        stacked scenario, :func:`barrierflow.model.cohort.stacked`)."""
+        if self.fraction is None:
+            return 1.0
+        return self.fraction if isinstance(self.fraction, np.ndarray) else float(self.fraction)
 
     @property
     def closes(self) -> bool:

@@ -11,6 +11,7 @@ on every shipped scenario that a population runs, with every free value varied.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from pathlib import Path
 
@@ -19,11 +20,11 @@ import pytest
 
 import barrierflow as bf
 from barrierflow.analysis.metrics import compute_metrics
-from barrierflow.analysis.population import population_metrics
+from barrierflow.analysis.population import metric_layout, population_metrics
 from barrierflow.errors import ScenarioError
 from barrierflow.model.cohort import Diverging
-from barrierflow.model.paths import parameter_paths, parse_param
-from barrierflow.studies.runner import simulate_subjects
+from barrierflow.model.paths import parameter_paths, parse_param, with_values
+from barrierflow.studies.runner import ChunkTask, evaluate, run_chunk, simulate_subjects
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 ALL = sorted(p.name for p in SCENARIOS.glob("*.toml"))
@@ -141,3 +142,56 @@ def test_subjects_on_whom_a_rule_decides_differently_are_measured_in_parts():
         compute_metrics(_Run(pop, np.arange(4), subjects.accepted().stacked(np.arange(4))))
     checked, _ = _check(s, params, values)
     assert checked == 4
+
+
+def _empty_patch_subjects():
+    """The demo patch with its reservoir empty at the start for subjects 2 and 4 (their first
+    patch comes at 24 h): their runs have one dosing interval fewer than those of 1 and 3."""
+    s = dataclasses.replace(bf.load(SCENARIOS / "daily_patch.toml"), output_step=2.0)
+    params = (parse_param("compartment.patch.initial_concentration", s), parse_param("compartment.central.clearance",
+                                                                                     s))
+    values = np.array([[20.0, 20000.0], [0.0, 25000.0], [10.0, 15000.0], [0.0, 20000.0]])
+    return s, params, values
+
+
+def test_subjects_with_different_numbers_of_dosing_intervals_share_one_set_of_columns():
+    # one column set for the whole population (the union: the 7 intervals of a loaded start);
+    # each subject's values are those of its own single run (barrierflow.simulate of with_values,
+    # whose metric rules tests/test_metrics.py checks against published worked values), blank
+    # (NaN) in the columns its own run does not have
+    s, params, values = _empty_patch_subjects()
+    pop, subjects, messages = simulate_subjects(s, params, values)
+    assert messages == [""] * 4
+    layout = metric_layout(s, params)
+    table = population_metrics(pop, subjects.accepted(), layout=layout)
+    assert table.names == layout[0] == population_metrics(pop, subjects.accepted()).names
+    assert "auc_interval_7:central" in table.names
+    widths = set()
+    for i, row in enumerate(values.tolist()):
+        alone = bf.simulate(with_values(s, dict(zip(params, row, strict=True)))).metrics().to_rows()
+        own = {f"{m}:{ident}": v for _, ident, m, v, *_ in alone}
+        widths.add(sum(name.startswith("auc_interval_") for name in own))
+        for name, got in zip(table.names, table.values[i], strict=True):
+            want = own.get(name)
+            if want is None:
+                assert math.isnan(got), (i, name)
+            else:
+                assert got == pytest.approx(float(want), rel=1e-9, abs=1e-12), (i, name)
+    assert widths == {6 * 3, 7 * 3}  # three compartments, 6 and 7 intervals
+
+
+def test_the_columns_do_not_depend_on_how_the_subjects_are_chunked():
+    # every chunk has the columns of metric_layout whichever subjects it holds (loaded, empty,
+    # or all refused): the chunks join in any chunking, bit for bit
+    s, params, values = _empty_patch_subjects()
+    whole = evaluate(s, params, values, chunk=4)
+    for size in (1, 2, 3):
+        part = evaluate(s, params, values, chunk=size)
+        assert part.metrics.names == whole.metrics.names and part.metrics.units == whole.metrics.units
+        assert np.array_equal(part.metrics.values, whole.metrics.values, equal_nan=True)
+    refused_chunk = run_chunk(ChunkTask(s, params, 1, np.array([[0.0, -1.0]]), traces=False))
+    empty_chunk = run_chunk(ChunkTask(s, params, 1, values[1:2], traces=False))
+    loaded_chunk = run_chunk(ChunkTask(s, params, 1, values[:1], traces=False))
+    assert not refused_chunk.ok.any() and np.isnan(refused_chunk.metrics.values).all()
+    assert refused_chunk.metrics.names == empty_chunk.metrics.names == loaded_chunk.metrics.names == \
+        whole.metrics.names

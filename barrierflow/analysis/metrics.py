@@ -97,6 +97,7 @@ __all__ = [
     "exposure_metrics",
     "jump_times",
     "last_input_end",
+    "loaded_at_start",
     "terminal_fit",
     "time_above",
     "time_lag_fit",
@@ -511,13 +512,30 @@ def application_times(scenario: Scenario, end: float | None = None) -> tuple[flo
     :class:`~barrierflow.model.cohort.Diverging`."""
     end = scenario.duration if end is None else end
     times = set()
-    if (any(decide(c.starting_concentration > 0) for c in scenario.compartments)
-            or any(decide(layer.initial_concentration > 0) for b in scenario.barriers for layer in b.layers)):
+    if decide(loaded_at_start(scenario)):
         times.add(0.0)
     for d in scenario.doses:
         if d.kind in _ADDING:
             times.update(d.start_times(end))
     return tuple(sorted(times))
+
+
+def loaded_at_start(scenario: Scenario) -> bool | np.ndarray:
+    """Whether a compartment or a barrier layer holds substance at time 0 (an application at 0).
+
+    Returns
+    -------
+    bool, or ndarray of bool (n, 1)
+        One answer per subject for a stacked scenario (:func:`barrierflow.model.cohort.stacked`)
+        whose starting contents hold one value per subject.
+    """
+    loaded: bool | np.ndarray = False
+    for c in scenario.compartments:
+        loaded = loaded | (c.starting_concentration > 0)
+    for b in scenario.barriers:
+        for layer in b.layers:
+            loaded = loaded | (layer.initial_concentration > 0)
+    return loaded
 
 
 def jump_times(scenario: Scenario, cid: str, end: float | None = None) -> tuple[float, ...]:

@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ..model.cohort import Diverging
+from ..model.cohort import Diverging, stacked
 from .metrics import auc, compute_metrics, jump_times
 from .result import trace_columns
 
@@ -30,8 +30,8 @@ if TYPE_CHECKING:
     from ..engine.population import Population
     from ..model import Scenario
 
-__all__ = ["MetricTable", "PopulationExposure", "percentile_bands", "population_columns", "population_exposure",
-           "population_metrics", "subject_exposure"]
+__all__ = ["MetricTable", "PopulationExposure", "metric_layout", "percentile_bands", "population_columns",
+           "population_exposure", "population_metrics", "subject_exposure"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -202,7 +202,11 @@ class MetricTable:
     units : tuple of str
         The unit of each, in the scenario's ``[output]`` units (``""`` for a number).
     values : ndarray (n_subjects, n_metrics)
-        In those units; NaN where a metric has no value (booleans as 1 and 0).
+        In those units; NaN where a metric has no value (booleans as 1 and 0), by the rules of a
+        single run, and where a metric does not apply to a subject: the columns are the same for
+        every subject of a population (:func:`metric_layout`), so a subject whose run has fewer
+        dosing intervals than another (nothing loaded at time 0) is blank in the last
+        ``auc_interval_<n>`` columns, the metrics its own run does not have.
     """
 
     names: tuple[str, ...]
@@ -218,7 +222,8 @@ class MetricTable:
 
 
 def population_metrics(population: Population, scenarios: Sequence[Scenario],
-                       rows: Sequence[int] | None = None) -> MetricTable:
+                       rows: Sequence[int] | None = None,
+                       layout: tuple[tuple[str, ...], tuple[str, ...]] | None = None) -> MetricTable:
     """The metrics of each subject, by the rules of a single run (:func:`compute_metrics`).
 
     The subjects are measured all at once: :func:`compute_metrics` on their traces with a subject
@@ -236,6 +241,11 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
         scenario per subject is built; for a plain sequence each subject is measured alone.
     rows : sequence of int, optional
         The subjects to take (default all); a failed subject gives NaN.
+    layout : (names, units), optional
+        The columns of the table (:func:`metric_layout` of the population's scenario and varied
+        parameters, so that every chunk of a population has the same columns); default: the
+        union of the subjects' own metrics, in the order of :func:`metric_layout`. A subject is
+        blank (NaN) in a column its own run does not have.
 
     Returns
     -------
@@ -264,18 +274,71 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
             pending += [at[~split.mask], at[split.mask]]
             continue
         parts.append((at, *table.columns()))
-    if parts:
-        names, units = parts[0][1], parts[0][2]
+    if layout is not None:
+        names, units = tuple(layout[0]), tuple(layout[1])
+    elif parts:
+        names, units = _union([p[1] for p in parts], [p[2] for p in parts])
     else:
         names, units = metric_names(scenarios[0] if len(scenarios) else population.scenario)
+    for _, part_names, part_units, _ in parts:  # a column no layout foresaw still gets its place
+        extra = [(n, u) for n, u in zip(part_names, part_units, strict=True) if n not in names]
+        names, units = names + tuple(n for n, _ in extra), units + tuple(u for _, u in extra)
+    column = {name: k for k, name in enumerate(names)}
     values = np.full((len(rows), len(names)), np.nan)
-    for at, _, _, block in parts:
-        values[at] = block
+    for at, part_names, _, block in parts:
+        values[np.ix_(at, [column[n] for n in part_names])] = block
     return MetricTable(names, units, values)
 
 
-def metric_names(scenario: Scenario) -> tuple[tuple[str, ...], tuple[str, ...]]:
-    """The metric names and units of a scenario's runs, without running it (when every subject failed)."""
+def _union(names: Sequence[tuple[str, ...]],
+           units: Sequence[tuple[str, ...]]) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """Every name of the parts once: those of the part with most dosing intervals (whose names
+    hold those of the others), in its order, then any other in the order met."""
+    widest = max(range(len(names)), key=lambda k: (len(names[k]), -k))
+    out_n, out_u = list(names[widest]), list(units[widest])
+    seen = set(out_n)
+    for part_n, part_u in zip(names, units, strict=True):
+        for n, u in zip(part_n, part_u, strict=True):
+            if n not in seen:
+                seen.add(n)
+                out_n.append(n)
+                out_u.append(u)
+    return tuple(out_n), tuple(out_u)
+
+
+def metric_layout(scenario: Scenario, params: Sequence[Any] = ()) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The metric columns of every subject of a population: names and units, fixed by the scenario
+    and the varied parameters alone (not by the values drawn, nor by how the subjects are chunked).
+
+    A subject's own metrics differ from another's only in the number of dosing intervals (one
+    ``auc_interval_<n>`` each): a subject with nothing loaded at time 0 has no interval from 0.
+    When a varied parameter decides whether something is loaded at time 0 (a starting
+    concentration), the layout is that of a run loaded at time 0, which holds every interval a
+    subject can have; otherwise it is the scenario's own (:func:`metric_names`).
+
+    Parameters
+    ----------
+    scenario : Scenario
+        What every subject shares (its variability tables are not read).
+    params : sequence of Param
+        The parameters varied per subject.
+    """
+    from .metrics import loaded_at_start
+
+    loaded = False
+    if params:
+        # each parameter in turn at a positive value, the others at the scenario's: loaded at
+        # time 0 for one of them means a subject may be
+        base = np.array([[float(p.get(scenario) or 0.0) for p in params]])
+        probe = np.repeat(base, len(params), axis=0)
+        probe[np.arange(len(params)), np.arange(len(params))] = 1.0
+        loaded = bool(np.any(loaded_at_start(stacked(scenario, params, probe))))
+    return metric_names(scenario, loaded_at_zero=loaded)
+
+
+def metric_names(scenario: Scenario, *, loaded_at_zero: bool = False) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The metric names and units of a scenario's runs, without running it (when every subject
+    failed); with ``loaded_at_zero``, those of a run with an application at time 0 as well."""
     from dataclasses import fields
 
     from .metrics import BarrierMetrics, CompartmentMetrics, Metrics, application_times, dosing_intervals
@@ -283,10 +346,12 @@ def metric_names(scenario: Scenario) -> tuple[tuple[str, ...], tuple[str, ...]]:
     nan = float("nan")
     times = scenario.output_grid()
     apps = application_times(scenario, times[-1])
+    if loaded_at_zero and 0.0 not in apps:
+        apps = (0.0, *apps)
     n_int = len(dosing_intervals(apps, times[-1]) or ((0.0, times[-1]),))
     shaped = {"interval": (nan, nan), "interval_aucs": (nan,) * n_int, "lag_window": (nan, nan),
               "terminal_points": 0, "lag_points": 0, "threshold": None, "time_above": None,
-              "steady_state_reached": None}
+              "steady_state_reached": None, "notes": {}}
 
     def blank(cls: type, ident: str) -> Any:
         return cls(**{f.name: ident if f.name == "id" else shaped.get(f.name, nan) for f in fields(cls)})

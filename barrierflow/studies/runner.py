@@ -35,7 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..analysis.population import MetricTable, population_columns, population_metrics
+from ..analysis.population import MetricTable, metric_layout, population_columns, population_metrics
 from ..analysis.sketch import ACCURACY, BINS, Counts, count_values
 from ..engine.grid import Grid
 from ..engine.integrators import integrator_from_name
@@ -249,16 +249,16 @@ def run_chunk(task: ChunkTask) -> ChunkOutcome:
     ok = np.array([m == "" for m in messages], dtype=bool)
     built = scenarios.built
     first_ok = scenarios[int(built[0])] if len(built) else task.base
+    # the same columns in every chunk, whichever subjects it holds (the header of SUBJECTS.csv,
+    # the sketches of the metrics and the chunks joined in order rely on it)
+    layout = metric_layout(task.base, task.params)
     if pop is not None:
-        table = population_metrics(pop, scenarios.accepted())
+        table = population_metrics(pop, scenarios.accepted(), layout=layout)
         values = np.full((n, len(table.names)), np.nan)
         values[built] = table.values
         metrics = MetricTable(table.names, table.units, values)
     else:
-        from ..analysis.population import metric_names
-
-        names, units = metric_names(task.base)
-        metrics = MetricTable(names, units, np.full((n, len(names)), np.nan))
+        metrics = MetricTable(*layout, np.full((n, len(layout[0])), np.nan))
     metrics.values[~ok] = np.nan
     metric_counts = count_values(metrics.values[ok], task.accuracy, task.bins)
     names: list[str] = []

@@ -147,10 +147,27 @@ class UI:
     def click_node(self, label_start: str) -> None:
         """Click the compartment whose canvas label starts with ``label_start``."""
         # the canvas in the middle of the window: never under the page's sticky header
+        self.idle()
         self.page.evaluate("() => document.getElementById('network-canvas').scrollIntoView({block: 'center'})")
-        pos = self.page.evaluate(
-            """(start) => { const n = window.cy.nodes().filter(n => n.data('label').startsWith(start))[0];
-                           const p = n.renderedPosition(); return {x: p.x, y: p.y}; }""", label_start)
+        # the canvas lays its nodes out again after a change (a new node, a new label): click only
+        # once the node has stood still for two reads 150 ms apart, or the click lands where the
+        # node was (a click on empty canvas, which does nothing)
+        deadline = time.monotonic() + TIMEOUT_MS / 1000
+        last = None
+        while True:
+            pos = self.page.evaluate(
+                """(start) => { const n = window.cy.nodes().filter(n => n.data('label').startsWith(start))[0];
+                               if (!n) { return null; }
+                               const p = n.renderedPosition();
+                               return {x: p.x, y: p.y, moving: window.cy.nodes().some(m => m.animated())}; }""",
+                label_start)
+            if (pos is not None and last is not None and not pos["moving"]
+                    and abs(pos["x"] - last["x"]) < 0.5 and abs(pos["y"] - last["y"]) < 0.5):
+                break
+            if time.monotonic() > deadline:
+                raise AssertionError(f"the compartment {label_start!r} never stood still on the canvas; last {pos}")
+            last = pos
+            self.page.wait_for_timeout(150)
         box = self.page.locator("#network-canvas").bounding_box()
         self.page.mouse.click(box["x"] + pos["x"], box["y"] + pos["y"])
 

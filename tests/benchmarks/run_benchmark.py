@@ -376,6 +376,24 @@ def time_rounds(runners: dict, quick: bool) -> tuple[dict, dict[str, Timing], di
     return last, eng, tot
 
 
+def file_to_traces(path: Path, traces: Path, integ) -> tuple[float, float, object]:
+    """One timed run of the product's whole path, as `barrierflow run` takes it.
+
+    Read the file, simulate, write the traces CSV and its sidecar (both complete on disk, then
+    renamed into place). Every value of the file is read again (the memo of whole value texts is
+    emptied); the unit texts, which a process reads once, stay known (a process's first file:
+    file_to_traces_parts). Returns (engine seconds, file-to-traces seconds, the Result).
+    """
+    units._PARSED.clear()
+    t_a = time.perf_counter()
+    s = bf.load(path)
+    t_b = time.perf_counter()
+    r = bf.simulate(s, integrator=integ)
+    t_c = time.perf_counter()
+    r.to_csv(traces)
+    return t_c - t_b, time.perf_counter() - t_a, r
+
+
 def run_variant(v: Variant, paths: list[str], quick: bool, tmp: Path) -> list[Row]:
     hand = HandModel(v)
     path = tmp / f"bench_{v.total_cells}_{v.patch_volume_ml:g}_{int(v.saturable)}_{len(v.extra_times)}.toml"
@@ -398,18 +416,7 @@ def run_variant(v: Variant, paths: list[str], quick: bool, tmp: Path) -> list[Ro
     traces = tmp / f"{path.stem}.csv"
 
     def product(integ, path=path):
-        # the product's whole path, as `barrierflow run` takes it: read the file, simulate, write
-        # the traces CSV and its sidecar (both complete on disk, then renamed into place). Every
-        # value of the file is read again (the memo of whole value texts is emptied); the unit
-        # texts, which a process reads once, stay known (a process's first file: file_to_traces_parts)
-        units._PARSED.clear()
-        t_a = time.perf_counter()
-        s = bf.load(path)
-        t_b = time.perf_counter()
-        r = bf.simulate(s, integrator=integ)
-        t_c = time.perf_counter()
-        r.to_csv(traces)
-        return t_c - t_b, time.perf_counter() - t_a, r
+        return file_to_traces(path, traces, integ)
 
     def baseline(method, **kw):
         t_a = time.perf_counter()
@@ -602,14 +609,7 @@ def run_star(label: str, n_barriers: int, paths: list[str], quick: bool, tmp: Pa
     traces = tmp / f"{path.stem}.csv"
 
     def product(integ):
-        units._PARSED.clear()
-        t_a = time.perf_counter()
-        s = bf.load(path)
-        t_b = time.perf_counter()
-        r = bf.simulate(s, integrator=integ)
-        t_c = time.perf_counter()
-        r.to_csv(traces)
-        return t_c - t_b, time.perf_counter() - t_a, r
+        return file_to_traces(path, traces, integ)
 
     def baseline():
         t_a = time.perf_counter()

@@ -195,23 +195,31 @@ def left_limits(t: Sequence[float], c: Sequence[float] | np.ndarray, jumps: Sequ
     return _left_limits(t, _block(c), jumps).reshape(c.shape)
 
 
-def _left_limits(t: np.ndarray, c: np.ndarray, jumps: Sequence[float]) -> np.ndarray:
-    """:func:`left_limits` of a block (n, n_t)."""
-    cl = c.copy()
-    rows = _rows_at(t, jumps)
-    jumpset = set(rows)
-    for j in rows:
-        if j == 0:
-            continue
-        c1 = c[:, j - 1]
-        if j >= 2 and (j - 1) not in jumpset:
-            c0 = c[:, j - 2]
-            ratio = (t[j] - t[j - 1]) / (t[j - 1] - t[j - 2])
-            down = (c0 > c1) & (c1 > 0)
-            with np.errstate(all="ignore"):
-                cl[:, j] = np.where(down, c1 * (c1 / c0) ** ratio, np.maximum(c1 + (c1 - c0) * ratio, 0.0))
-        else:
-            cl[:, j] = c1
+def _left_limits(t: np.ndarray, c: np.ndarray, jumps: Sequence[float], cl: np.ndarray | None = None) -> np.ndarray:
+    """:func:`left_limits` of a block (n, n_t), written into ``cl`` (a copy of ``c`` by default,
+    else an array holding ``c``'s values: only the rows at ``jumps`` are written)."""
+    if cl is None:
+        cl = c.copy()
+    at = _rows_at(t, jumps)
+    jumpset = set(at)
+    rows = [j for j in at if j > 0]
+    if not rows:
+        return cl
+    # every jump row at once: the value before from the two rows before (both before the jump
+    # before, if any), else the row before
+    r = np.array(rows)
+    before = c[:, r - 1]
+    two = np.array([j >= 2 and (j - 1) not in jumpset for j in rows])
+    if two.any():
+        f = r[two]
+        c0, c1 = c[:, f - 2], before[:, two]
+        ratio = (t[f] - t[f - 1]) / (t[f - 1] - t[f - 2])
+        if (ratio == ratio[0]).all():
+            ratio = ratio[0]  # (one number: the same arithmetic as for a single row)
+        down = (c0 > c1) & (c1 > 0)
+        with np.errstate(all="ignore"):
+            before[:, two] = np.where(down, c1 * (c1 / c0) ** ratio, np.maximum(c1 + (c1 - c0) * ratio, 0.0))
+    cl[:, r] = before
     return cl
 
 
@@ -275,28 +283,42 @@ def auc(t: Sequence[float], c: Sequence[float], jumps: Sequence[float] = (),
 
 def _auc_between(t: np.ndarray, c: np.ndarray, cl: np.ndarray, cum: np.ndarray, lo: float, hi: float) -> np.ndarray:
     """AUC over [lo, hi] of each row of a block from the cumulative areas, partial segments interpolated."""
-    lo, hi = max(lo, float(t[0])), min(hi, float(t[-1]))
-    if hi <= lo:
-        return np.zeros(c.shape[0])
-    tol = 1e-12 * max(abs(float(t[-1])), 1.0)
-    i = int(t.searchsorted(lo - tol))           # first row >= lo
-    k = int(t.searchsorted(hi + tol, "right")) - 1   # last row <= hi
-    if abs(t[i] - lo) <= tol:
-        lo = float(t[i])
-    if abs(t[k] - hi) <= tol:
-        hi = float(t[k])
-    if k < i:  # lo and hi inside one segment
-        j = k
-        y0 = _interp(t[j], t[j + 1], c[:, j], cl[:, j + 1], lo)
-        y1 = _interp(t[j], t[j + 1], c[:, j], cl[:, j + 1], hi)
-        return _one_segment(lo, hi, y0, y1)
-    total = cum[:, k] - cum[:, i]
-    if t[i] > lo:  # partial segment [lo, t_i] of segment i-1
-        j = i - 1
-        total = total + _one_segment(lo, t[i], _interp(t[j], t[i], c[:, j], cl[:, i], lo), cl[:, i])
-    if t[k] < hi:  # partial segment [t_k, hi] of segment k
-        total = total + _one_segment(t[k], hi, c[:, k], _interp(t[k], t[k + 1], c[:, k], cl[:, k + 1], hi))
-    return total
+    return _aucs_between(t, c, cl, cum, ((lo, hi),))[0]
+
+
+def _aucs_between(t: np.ndarray, c: np.ndarray, cl: np.ndarray, cum: np.ndarray,
+                  spans: Sequence[tuple[float, float]]) -> list[np.ndarray]:
+    """AUC over each span [lo, hi] of each row of a block, (n,) per span, from the cumulative
+    areas; partial segments interpolated. The spans that begin and end on output rows (the dosing
+    intervals, as a rule) are taken together, by one difference of the cumulative areas."""
+    t0, t1 = float(t[0]), float(t[-1])
+    lo = np.maximum(np.array([a for a, _ in spans], dtype=float), t0)
+    hi = np.minimum(np.array([b for _, b in spans], dtype=float), t1)
+    empty = (hi <= lo).tolist()
+    tol = 1e-12 * max(abs(t1), 1.0)
+    i = t.searchsorted(lo - tol)                 # first row >= lo
+    k = t.searchsorted(hi + tol, "right") - 1    # last row <= hi
+    ti, tk = t[np.minimum(i, len(t) - 1)], t[k]
+    lo = np.where(np.abs(ti - lo) <= tol, ti, lo)
+    hi = np.where(np.abs(tk - hi) <= tol, tk, hi)
+    whole = cum[:, k] - cum[:, np.minimum(i, len(t) - 1)]   # (n, n_spans)
+    out = []
+    for s, (a, b, ia, kb) in enumerate(zip(lo.tolist(), hi.tolist(), i.tolist(), k.tolist(), strict=True)):
+        if empty[s]:
+            out.append(np.zeros(c.shape[0]))
+        elif kb < ia:  # a and b inside one segment
+            y0 = _interp(t[kb], t[kb + 1], c[:, kb], cl[:, kb + 1], a)
+            y1 = _interp(t[kb], t[kb + 1], c[:, kb], cl[:, kb + 1], b)
+            out.append(_one_segment(a, b, y0, y1))
+        else:
+            total = whole[:, s]
+            if t[ia] > a:  # partial segment [a, t_i] of segment i-1
+                j = ia - 1
+                total = total + _one_segment(a, t[ia], _interp(t[j], t[ia], c[:, j], cl[:, ia], a), cl[:, ia])
+            if t[kb] < b:  # partial segment [t_k, b] of segment k
+                total = total + _one_segment(t[kb], b, c[:, kb], _interp(t[kb], t[kb + 1], c[:, kb], cl[:, kb + 1], b))
+            out.append(total)
+    return out
 
 
 def _one_segment(a: float, b: float, ya: np.ndarray, yb: np.ndarray) -> np.ndarray:
@@ -1221,18 +1243,18 @@ def _subject_of(m: Any, i: int) -> Any:
     """Subject ``i``'s :class:`CompartmentMetrics` or :class:`BarrierMetrics` (plain numbers and its
     own notes) from those of many subjects (an array per field)."""
     kw: dict[str, Any] = {}
-    for f in fields(m):
-        v = getattr(m, f.name)
-        if f.name == "notes":
+    for name, v in m.__dict__.items():
+        if name == "notes":
             kw["notes"] = {k: str(x[i]) for k, x in v.items() if x[i]}
-        elif f.name == "steady_state_reached":
-            kw[f.name] = None if math.isnan(v[i]) else bool(v[i])
+        elif name == "steady_state_reached":
+            x = v.item(i)
+            kw[name] = None if x != x else bool(x)
         elif isinstance(v, tuple):
-            kw[f.name] = tuple(float(x[i]) if isinstance(x, np.ndarray) else float(x) for x in v)
+            kw[name] = tuple(x.item(i) if isinstance(x, np.ndarray) else float(x) for x in v)
         elif isinstance(v, np.ndarray):
-            kw[f.name] = int(v[i]) if f.name in _WHOLE else float(v[i])
+            kw[name] = int(v.item(i)) if name in _WHOLE else float(v.item(i))
         else:
-            kw[f.name] = v
+            kw[name] = v
     return type(m)(**kw)
 
 
@@ -1295,25 +1317,39 @@ def exposure_metrics(
     if input_end == _LAST_APPLICATION:
         input_end = max([x for x in applications if x <= float(t[-1])], default=float(t[0]))
     ends = np.full(1, NAN if input_end is None else float(input_end))
-    block = _exposure(t, c, applications, jumps, threshold, cid, adj_r2_tolerance, ends, _texts(1, input_reason))
+    block, = _exposures(t, c, applications, ((cid, jumps, threshold),), adj_r2_tolerance, ends,
+                        _texts(1, input_reason))
     return _subject_of(block, 0)
 
 
-def _exposure(t: np.ndarray, c: np.ndarray, applications: Sequence[float], jumps: Sequence[float],
-              threshold: float | None, cid: str, adj_r2_tolerance: float, input_end: np.ndarray,
-              input_reason: np.ndarray) -> CompartmentMetrics:
-    """:func:`exposure_metrics` of each row of a block (n, n_t): every field an array (n,), the
-    notes arrays of texts (``""`` where a subject has none). ``input_end`` (n,) is NaN where an
-    input still acts at the end."""
-    n = c.shape[0]
+def _exposures(t: np.ndarray, c: np.ndarray, applications: Sequence[float],
+               groups: Sequence[tuple[str, Sequence[float], float | None]], adj_r2_tolerance: float,
+               input_end: np.ndarray, input_reason: np.ndarray) -> tuple[CompartmentMetrics, ...]:
+    """:func:`exposure_metrics` of each row of a block, for several compartments at once.
+
+    ``c`` holds the traces of every compartment of ``groups`` ((id, jump times, threshold) each)
+    one after the other, each a block of the same n subjects ((len(groups) * n, n_t)); the rules
+    are element-wise over the rows, so the compartments are measured in one pass (the jumps and
+    the threshold, which differ by compartment, are applied to the rows of their own).
+    ``input_end`` (n,) is NaN where an input still acts at the end. Returns one
+    :class:`CompartmentMetrics` per group: every field an array (n,), the notes arrays of texts
+    (a note that no subject of a compartment has is left out).
+    """
+    rows_all, n_t = c.shape
+    n = rows_all // max(len(groups), 1)
+    if len(groups) > 1:
+        input_end, input_reason = np.tile(input_end, len(groups)), np.tile(input_reason, len(groups))
     end = float(t[-1])
     k = np.argmax(c, axis=1)
-    cmax, tmax = c[np.arange(n), k], t[k]
+    cmax, tmax = c[np.arange(rows_all), k], t[k]
     intervals = dosing_intervals(applications, end) or ((float(t[0]), end),)
-    cl = _left_limits(t, c, jumps)
+    cl = c.copy()
+    for g, (_, jumps, _) in enumerate(groups):
+        if jumps:
+            _left_limits(t, c[g * n:(g + 1) * n], jumps, cl[g * n:(g + 1) * n])
     cum = _cumulative(t, c, cl)
     total = cum[:, -1]
-    aucs = tuple(_auc_between(t, c, cl, cum, a, b) for a, b in intervals)
+    aucs = tuple(_aucs_between(t, c, cl, cum, intervals))
     a, b = intervals[-1]
     inside = (t >= a - 1e-12) & (t < b - 1e-9 * max(b, 1.0))
     end_rows = _rows_at(t, [b])
@@ -1321,29 +1357,27 @@ def _exposure(t: np.ndarray, c: np.ndarray, applications: Sequence[float], jumps
     vals = np.concatenate((c[:, inside], last[:, None]), axis=1)
     cmin, cmax_i = np.min(vals, axis=1), np.max(vals, axis=1)
     # terminal phase: after the last input has ended and after the Cmax that follows it
-    lam, icpt, points, start, adj = (np.full(n, NAN) for _ in range(5))
-    points = np.zeros(n, dtype=np.int64)
+    lam, icpt, start, adj = (np.full(rows_all, NAN) for _ in range(4))
+    points = np.zeros(rows_all, dtype=np.int64)
     with np.errstate(invalid="ignore"):
         after_end = t >= (input_end - 1e-9 * max(abs(end), 1.0))[:, None]
     ended = ~np.isnan(input_end)
     rows = np.flatnonzero(ended & after_end.any(axis=1))
     if len(rows):
         j0 = np.argmax(after_end[rows], axis=1)
-        kk = np.argmax(np.where(np.arange(len(t)) >= j0[:, None], c[rows], -np.inf), axis=1)
+        kk = np.argmax(np.where(np.arange(n_t) >= j0[:, None], c[rows], -np.inf), axis=1)
         fits = _terminal_fits(t, c[rows], t[kk], 3, adj_r2_tolerance)
         for whole, part in zip((lam, icpt, points, start, adj), fits, strict=True):
             whole[rows] = part
     notes: dict[str, np.ndarray] = {}
-    why = _texts(n)
-    for text in sorted(set(input_reason[~ended].tolist())):
-        why[~ended & (input_reason == text)] = f"no terminal phase: an input still acts at the end of the run ({text})"
+    why = _texts(rows_all)
+    if not ended.all():
+        for text in sorted(set(input_reason[~ended].tolist())):
+            why[~ended & (input_reason == text)] = (f"no terminal phase: an input still acts at the end of the run "
+                                                    f"({text})")
     for i in np.flatnonzero(ended & ~(lam > 0)).tolist():
         why[i] = (f"no terminal phase: fewer than 3 falling, positive points after the last input ended "
                   f"({float(input_end[i]):.4g} h) and the highest value after it")
-    if (why != "").any():
-        for name in ("auc_inf", "auc_extrapolated_percent", "lambda_z", "half_life", "terminal_start",
-                     "terminal_adj_r2"):
-            notes[name] = why
     fitted = lam > 0
     with np.errstate(all="ignore"):
         auc_inf = np.where(fitted, total + c[:, -1] / lam, NAN)
@@ -1351,16 +1385,14 @@ def _exposure(t: np.ndarray, c: np.ndarray, applications: Sequence[float], jumps
         half_life = np.where(fitted, math.log(2.0) / lam, NAN)
     span = end - float(t[0])
     n_int = len(aucs)
-    acc, steady = np.full(n, NAN), np.full(n, NAN)   # steady state: 1 yes, 0 no, NaN not known
+    acc, steady = np.full(rows_all, NAN), np.full(rows_all, NAN)   # steady state: 1 yes, 0 no, NaN not known
     if n_int >= 2:
         with np.errstate(all="ignore"):
             acc = np.where(aucs[0] > 0, aucs[-1] / aucs[0], NAN)
             steady = np.where(aucs[-1] > 0, np.abs(aucs[-1] - aucs[-2]) <= STEADY_STATE_TOLERANCE * np.abs(aucs[-1]),
                               NAN)
-    if threshold is None:
-        notes["threshold"] = notes["time_above"] = _texts(n, "no threshold given")
     if n_int < 2:
-        notes["accumulation_ratio"] = notes["steady_state_reached"] = _texts(n, "a single dosing interval")
+        notes["accumulation_ratio"] = notes["steady_state_reached"] = _texts(rows_all, "a single dosing interval")
     else:
         unknown = np.isnan(steady)
         if (np.isnan(acc) | unknown).any():
@@ -1369,15 +1401,34 @@ def _exposure(t: np.ndarray, c: np.ndarray, applications: Sequence[float], jumps
         if unknown.any():
             notes["steady_state_reached"] = np.where(unknown, "no exposure in the last dosing interval",
                                                      "").astype(object)
-    return CompartmentMetrics(
-        id=cid, cmax=cmax, tmax=tmax, cmin=cmin, cmax_interval=cmax_i, interval=(float(a), float(b)),
-        auc=total, auc_inf=auc_inf, auc_extrapolated_percent=extra, lambda_z=lam,
-        half_life=half_life, terminal_points=points, terminal_start=start,
-        terminal_adj_r2=adj, c_avg=total / span if span > 0 else np.full(n, NAN),
-        c_avg_interval=aucs[-1] / (b - a) if b > a else np.full(n, NAN),
-        threshold=threshold, time_above=None if threshold is None else _time_above(t, c, cl, threshold),
-        interval_aucs=aucs, accumulation_ratio=acc, steady_state_reached=steady, notes=notes,
-    )
+    c_avg = total / span if span > 0 else np.full(rows_all, NAN)
+    c_avg_i = aucs[-1] / (b - a) if b > a else np.full(rows_all, NAN)
+    out = []
+    for g, (cid, _, threshold) in enumerate(groups):
+        part = slice(g * n, (g + 1) * n)
+        own: dict[str, np.ndarray] = {}
+        blank = why[part]
+        if (blank != "").any():
+            own.update(dict.fromkeys(_TERMINAL, blank))
+        if threshold is None:
+            own["threshold"] = own["time_above"] = _texts(n, "no threshold given")
+        for name, x in notes.items():
+            if (x[part] != "").any():
+                own[name] = x[part]
+        out.append(CompartmentMetrics(
+            id=cid, cmax=cmax[part], tmax=tmax[part], cmin=cmin[part], cmax_interval=cmax_i[part],
+            interval=(float(a), float(b)), auc=total[part], auc_inf=auc_inf[part],
+            auc_extrapolated_percent=extra[part], lambda_z=lam[part], half_life=half_life[part],
+            terminal_points=points[part], terminal_start=start[part], terminal_adj_r2=adj[part],
+            c_avg=c_avg[part], c_avg_interval=c_avg_i[part], threshold=threshold,
+            time_above=None if threshold is None else _time_above(t, c[part], cl[part], threshold),
+            interval_aucs=tuple(x[part] for x in aucs), accumulation_ratio=acc[part],
+            steady_state_reached=steady[part], notes=own))
+    return tuple(out)
+
+
+_TERMINAL = ("auc_inf", "auc_extrapolated_percent", "lambda_z", "half_life", "terminal_start", "terminal_adj_r2")
+"""The metrics of the terminal phase (blank together, with one reason)."""
 
 
 def _interp_trace(t: np.ndarray, c: np.ndarray, x: float) -> np.ndarray:
@@ -1582,11 +1633,12 @@ def compute_metrics(result: Any, threshold: float | Mapping[str, float] | None =
     many = first.ndim == 2
     n = first.shape[0] if many else 1
     input_end, input_reason = _input_ends(sc, result, end, n)
-    comps = []
-    for comp in sc.compartments:
-        thr = threshold.get(comp.id) if isinstance(threshold, Mapping) else threshold
-        comps.append(_exposure(t, _block(result.concentration(comp.id)), apps or (float(t[0]),),
-                               jump_times(sc, comp.id, end), thr, comp.id, adj_r2_tolerance, input_end, input_reason))
+    groups = [(comp.id, jump_times(sc, comp.id, end),
+               threshold.get(comp.id) if isinstance(threshold, Mapping) else threshold) for comp in sc.compartments]
+    traces = [first if many else first[None, :]]
+    traces += [_block(result.concentration(comp.id)) for comp in sc.compartments[1:]]
+    comps = _exposures(t, np.concatenate(traces) if len(traces) > 1 else traces[0], apps or (float(t[0]),), groups,
+                       adj_r2_tolerance, input_end, input_reason)
     bars = []
     for b in sc.barriers:
         dose = _applied(result, b.from_id, b, n)

@@ -7,6 +7,7 @@ import csv
 import dataclasses
 import io
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -16,6 +17,8 @@ import barrierflow as bf
 from barrierflow.cli import main
 from barrierflow.model.paths import with_values
 from barrierflow.studies import run_population
+
+ROOT = Path(__file__).resolve().parents[1]
 
 BOLUS = """
 # An invented one-compartment body for the tests.
@@ -241,3 +244,15 @@ def test_subjects_whose_grids_differ_are_still_the_same_in_any_chunk():
     alone = bf.simulate(with_values(bare(s), dict(zip(var.params, values[4].tolist(), strict=True))))
     assert a.subjects.metrics.column("permeated:membrane")[4] == pytest.approx(
         alone.metrics().barrier("membrane").permeated, rel=1e-6)
+
+
+def test_a_population_the_model_refuses_names_the_scenario_file(tmp_path, capsys):
+    # an evaporating vehicle (its volume changes with time): the compiled population paths refuse
+    # it for every subject; the message follows '<file>: <field path>: got <value>; <expected>'
+    f = tmp_path / "volatile.toml"
+    f.write_text((ROOT / "scenarios" / "finite_dose_in_vitro.toml").read_text())
+    assert main(["population", str(f), "-n", "3", "--vary", "barrier.skin.layer.1.diffusivity=lognormal:cv=0.3",
+                 "--no-progress", "-o", str(tmp_path / "b.csv")]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith(f"{f.name}: population: got a volume that changes with time, or undissolved solid; "), err
+    assert "simulate the subjects one by one" in err and "every subject" not in err

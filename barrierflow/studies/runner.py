@@ -181,7 +181,13 @@ def simulate_subjects(base: Scenario, params: Sequence[Param], values: np.ndarra
         except BarrierflowError as err:
             # the population runner refused the set as a whole: run each subject alone, so
             # that only the subjects at fault fail
-            pop = take_rows([_alone(base, params, values[i:i + 1], engine, err) for i in built.tolist()])
+            rows = [_alone(base, params, values[i:i + 1], engine, err) for i in built.tolist()]
+            try:
+                pop = take_rows(rows)
+            except ScenarioError as none_ran:
+                # no subject ran alone either: the set's own error (the model's rule), naming the
+                # scenario's file as every refusal of an input does
+                raise (err if isinstance(err, ScenarioError) else none_ran).within(file=base.source) from None
     for k, i in enumerate(built.tolist()):
         if pop.status[k] != 0:
             messages[i] = pop.messages[k]

@@ -555,8 +555,9 @@ def _add_population(p: argparse.ArgumentParser) -> None:
                    help="percentile bands of every trace at every output time (default: the scenario's file name "
                         "with -bands.csv, in the current folder)")
     p.add_argument("--subjects", metavar="SUBJECTS.csv", default=None,
-                   help="every subject's parameter values (in the file's units) and metrics (default: the "
-                        "scenario's file name with -subjects.csv, in the current folder)")
+                   help="every subject's parameter values (in the file's units), metrics, notes (why a metric "
+                        "is blank) and status (default: the scenario's file name with -subjects.csv, in the "
+                        "current folder)")
     p.add_argument("--percentiles", metavar="Q", type=float, nargs="+", default=[5.0, 50.0, 95.0],
                    help="percentiles of the bands and the metrics, from 0 to 100 (default: 5 50 95)")
     p.add_argument("--integrator", metavar="NAME", default=None,

@@ -256,3 +256,26 @@ def test_a_population_the_model_refuses_names_the_scenario_file(tmp_path, capsys
     err = capsys.readouterr().err
     assert err.startswith(f"{f.name}: population: got a volume that changes with time, or undissolved solid; "), err
     assert "simulate the subjects one by one" in err and "every subject" not in err
+
+
+def test_subjects_csv_says_why_a_metric_is_blank(tmp_path):
+    # the bolus falls from the start (no input after 0 h): every subject has a terminal phase, but
+    # no threshold was given (time_above blank) and there is one dosing interval (no accumulation
+    # ratio); the notes column gives those reasons, as the note column of a single run's metrics
+    s = bf.loads(BOLUS, "bolus.toml")
+    pop = run_population(s, 20, seed=5, keep_subjects=True, subjects_csv=tmp_path / "s.csv")
+    rows = list(csv.reader(io.StringIO((tmp_path / "s.csv").read_text())))
+    assert rows[0][-2:] == ["notes", "status"]
+    alone = bf.simulate(with_values(dataclasses.replace(s, vary=()),
+                                    {"compartment.central.clearance": pop.subjects.values[0, 0] * 1000.0}))
+    single = {name: note for _, _, name, _, _, note in alone.metrics().to_rows() if note}
+    assert set(single) == {"threshold", "time_above", "accumulation_ratio", "steady_state_reached"}
+    assert rows[1][-2] == ("threshold:central, time_above:central: no threshold given / accumulation_ratio:central, "
+                           "steady_state_reached:central: a single dosing interval")
+    assert rows[1][-2] == pop.subjects.metrics.notes[0] == alone.metrics().note_texts()[0]
+    # every blank metric of every subject is named in its notes
+    names = pop.subjects.metrics.names
+    for values, text in zip(pop.subjects.metrics.values, pop.subjects.metrics.notes, strict=True):
+        for name, x in zip(names, values, strict=True):
+            if np.isnan(x):
+                assert name in text

@@ -1161,6 +1161,46 @@ class Metrics:
         return (tuple(f"{name}:{ident}" for _, ident, name, *_ in entries),
                 tuple(fac[ukind][1] for *_, ukind, _ in entries), values)
 
+    def note_texts(self) -> np.ndarray:
+        """Each subject's notes (why a metric is blank, or a flag on one that needs care) as one
+        text, the ``note`` column of :meth:`to_rows` gathered in a row of a table (the per-subject
+        table of a population, SUBJECTS.csv).
+
+        The metrics that share a note are named together before it, ``"<metric>:<id>, ...:
+        <note>"``, compartments first, then barriers; notes are joined by ``" / "``.
+
+        Returns
+        -------
+        ndarray of str (n_subjects,)
+            ``""`` for a subject without notes; one entry for a single run.
+        """
+        n = np.size(self.compartments[0].cmax) if self.compartments else np.size(self.barriers[0].peak_flux)
+        labels: list[str] = []
+        codes: list[np.ndarray] = []
+        texts: list[np.ndarray] = []
+        for m in (*self.compartments, *self.barriers):
+            for name, note in m.notes.items():
+                each = np.broadcast_to(np.asarray(note, dtype=object).reshape(-1), (n,))
+                known, code = np.unique(each.astype(str), return_inverse=True)
+                labels.append(f"{name}:{m.id}")
+                texts.append(known)
+                codes.append(code.reshape(-1))
+        out = np.full(n, "", dtype=object)
+        if not labels:
+            return out
+        # the distinct combinations of notes (few: subjects differ in a handful of ways), each
+        # written once
+        combos, which = np.unique(np.stack(codes, axis=1), axis=0, return_inverse=True)
+        made = []
+        for combo in combos.tolist():
+            shared: dict[str, list[str]] = {}
+            for label, known, k in zip(labels, texts, combo, strict=True):
+                if known[k]:
+                    shared.setdefault(str(known[k]), []).append(label)
+            made.append(" / ".join(f"{', '.join(names)}: {note}" for note, names in shared.items()))
+        out[:] = np.array(made, dtype=object)[which.reshape(-1)]
+        return out
+
     def subject(self, i: int) -> Metrics:
         """Subject ``i``'s metrics from those of many subjects (:func:`compute_metrics` on a block):
         what its own run gives."""

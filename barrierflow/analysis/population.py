@@ -207,11 +207,16 @@ class MetricTable:
         every subject of a population (:func:`metric_layout`), so a subject whose run has fewer
         dosing intervals than another (nothing loaded at time 0) is blank in the last
         ``auc_interval_<n>`` columns, the metrics its own run does not have.
+    notes : ndarray of str (n_subjects,) or None
+        Each subject's notes: why a metric is blank, or a flag on one that needs care
+        (:meth:`barrierflow.analysis.metrics.Metrics.note_texts`; ``""`` for none); None where
+        not kept (the percentiles of a population).
     """
 
     names: tuple[str, ...]
     units: tuple[str, ...]
     values: np.ndarray
+    notes: np.ndarray | None = None
 
     def column(self, name: str) -> np.ndarray:
         """The values of one metric, by name."""
@@ -255,7 +260,7 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
     traces = _Traces(population)
     rows = np.arange(population.n_subjects) if rows is None else np.asarray(rows, dtype=np.int64).reshape(-1)
     stack = getattr(scenarios, "stacked", None)
-    parts: list[tuple[np.ndarray, tuple[str, ...], tuple[str, ...], np.ndarray]] = []
+    parts: list[tuple[np.ndarray, tuple[str, ...], tuple[str, ...], np.ndarray, np.ndarray]] = []
     # positions in ``rows`` still to measure, as a work list (a recursive closure would hold the
     # traces in a reference cycle until the collector runs)
     pending = [np.flatnonzero(population.status[rows] == 0)]
@@ -266,28 +271,31 @@ def population_metrics(population: Population, scenarios: Sequence[Scenario],
         subjects = rows[at]
         if stack is None:
             for k, i in zip(at.tolist(), subjects.tolist(), strict=True):
-                parts.append((np.array([k]), *compute_metrics(_Block(traces, np.array([i]), scenarios[i])).columns()))
+                one = compute_metrics(_Block(traces, np.array([i]), scenarios[i]))
+                parts.append((np.array([k]), *one.columns(), one.note_texts()))
             continue
         try:
             table = compute_metrics(_Block(traces, subjects, stack(subjects)))
         except Diverging as split:
             pending += [at[~split.mask], at[split.mask]]
             continue
-        parts.append((at, *table.columns()))
+        parts.append((at, *table.columns(), table.note_texts()))
     if layout is not None:
         names, units = tuple(layout[0]), tuple(layout[1])
     elif parts:
         names, units = _union([p[1] for p in parts], [p[2] for p in parts])
     else:
         names, units = metric_names(scenarios[0] if len(scenarios) else population.scenario)
-    for _, part_names, part_units, _ in parts:  # a column no layout foresaw still gets its place
+    for _, part_names, part_units, _, _ in parts:  # a column no layout foresaw still gets its place
         extra = [(n, u) for n, u in zip(part_names, part_units, strict=True) if n not in names]
         names, units = names + tuple(n for n, _ in extra), units + tuple(u for _, u in extra)
     column = {name: k for k, name in enumerate(names)}
     values = np.full((len(rows), len(names)), np.nan)
-    for at, part_names, _, block in parts:
+    notes = np.full(len(rows), "", dtype=object)
+    for at, part_names, _, block, texts in parts:
         values[np.ix_(at, [column[n] for n in part_names])] = block
-    return MetricTable(names, units, values)
+        notes[at] = texts
+    return MetricTable(names, units, values, notes)
 
 
 def _union(names: Sequence[tuple[str, ...]],

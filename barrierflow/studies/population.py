@@ -10,7 +10,9 @@
   relative 1 % of the exact one over the same subjects, bit-identical however the subjects were
   chunked);
 - every subject's parameter values and metrics, streamed to ``SUBJECTS.csv`` as the chunks
-  come (and kept in memory only when asked, for the dashboard);
+  come (and kept in memory only when asked, for the dashboard), with the subject's notes (why a
+  metric is blank, or a flag on one that needs care: the ``note`` column of a single run's
+  metrics CSV, :meth:`~barrierflow.analysis.metrics.Metrics.note_texts`) and its status;
 - the failed subjects: counted, listed with their parameter values and the reason, left out of
   the bands; a failure never stops the run.
 
@@ -287,7 +289,8 @@ def run_population(scenario: Scenario, n: int, seed: int = 0, *, vary: Sequence[
     percentiles : sequence of float
         Of the bands and the metrics (default 5, 50, 95).
     subjects_csv : path-like, optional
-        Write every subject's values and metrics there (atomically, row by row as the chunks come).
+        Write every subject's values and metrics there (atomically, row by row as the chunks come),
+        then its notes (why a metric is blank) and its status (``ok`` or why it failed).
     keep_subjects : bool
         Keep every subject's values and metrics in the result (memory grows with ``n``).
     scheduler : str or distributed.Client, optional
@@ -335,6 +338,7 @@ def run_population(scenario: Scenario, n: int, seed: int = 0, *, vary: Sequence[
     failures: list[Failure] = []
     kept_values: list[np.ndarray] = []
     kept_metrics: list[np.ndarray] = []
+    kept_notes: list[np.ndarray] = []
     kept_ok: list[np.ndarray] = []
     drawn: dict[int, np.ndarray] = {}  # the values of the chunks in flight, by first subject
     done = 0
@@ -370,6 +374,7 @@ def run_population(scenario: Scenario, n: int, seed: int = 0, *, vary: Sequence[
             if keep_subjects:
                 kept_values.append(file_values)
                 kept_metrics.append(out.metrics.values)
+                kept_notes.append(out.metrics.notes)
                 kept_ok.append(out.ok)
             done += out.count
             if progress is not None:
@@ -382,7 +387,8 @@ def run_population(scenario: Scenario, n: int, seed: int = 0, *, vary: Sequence[
     subjects = None
     if keep_subjects:
         subjects = SubjectTable(np.concatenate(kept_values),
-                                MetricTable(metric_meta[0], metric_meta[1], np.concatenate(kept_metrics)),
+                                MetricTable(metric_meta[0], metric_meta[1], np.concatenate(kept_metrics),
+                                            np.concatenate(kept_notes)),
                                 np.concatenate(kept_ok))
     return PopulationResult(
         scenario=full, n=n, seed=seed, percentiles=tuple(qs), params=params, param_units=units,
@@ -475,11 +481,13 @@ class _SubjectsWriter:
             heads = ["subject"] + [f"{p.text} [{u}]" if u else p.text for p, u in zip(self.params, self.units,
                                                                                         strict=True)]
             heads += [f"{n} [{u}]" if u else n for n, u in zip(out.metrics.names, out.metrics.units, strict=True)]
-            heads.append("status")
+            heads += ["notes", "status"]
             w.writerow(heads)
+        notes = out.metrics.notes
         for i in range(out.count):
             row = [str(out.first + i)] + [format(float(x), ".10g") for x in values[i]]
             row += [_fmt(x) for x in out.metrics.values[i]]
+            row.append("" if notes is None else notes[i])
             row.append("ok" if out.ok[i] else f"failed: {out.messages[i]}")
             w.writerow(row)
 

@@ -262,10 +262,13 @@ def run_chunk(task: ChunkTask) -> ChunkOutcome:
         table = population_metrics(pop, scenarios.accepted(), layout=layout)
         values = np.full((n, len(table.names)), np.nan)
         values[built] = table.values
-        metrics = MetricTable(table.names, table.units, values)
+        notes = np.full(n, "", dtype=object)
+        notes[built] = table.notes
+        metrics = MetricTable(table.names, table.units, values, notes)
     else:
-        metrics = MetricTable(*layout, np.full((n, len(layout[0])), np.nan))
+        metrics = MetricTable(*layout, np.full((n, len(layout[0])), np.nan), np.full(n, "", dtype=object))
     metrics.values[~ok] = np.nan
+    metrics.notes[~ok] = ""  # (a failed subject's status says why)
     metric_counts = count_values(metrics.values[ok], task.accuracy, task.bins)
     names: list[str] = []
     counts: list[Counts] = []

@@ -164,16 +164,29 @@ def relative_error_of(conc, cells, quad, dosed, removed, capacity, has_volume, y
     finite = True
     big_left = 0.0
     big_right = 0.0
+    # the (amount, term) pairs that count, listed once, so that a row visits only those (the
+    # same sums in the same order as a pass over every amount and term)
+    n_q = quad.shape[1]
+    kept = np.zeros(6 * n_q, dtype=np.int64)
+    term = np.zeros(6 * n_q, dtype=np.int64)
+    n_kept = 0
+    for j in range(n_q):
+        for k in range(6):
+            if w[j, k] != 0.0:
+                kept[n_kept] = j
+                term[n_kept] = k
+                n_kept += 1
     for r in range(conc.shape[0]):
         for k in range(6):
             t[k] = 0.0
         gross = 0.0  # the held supplies each counted positive (sources and sinks may cancel)
-        for j in range(quad.shape[1]):
-            for k in range(6):
-                if w[j, k] != 0.0:
-                    t[k] += quad[r, j] * w[j, k]
-            if w[j, 1] != 0.0:
-                gross += abs(quad[r, j])
+        qr = quad[r]
+        for i in range(n_kept):
+            j = kept[i]
+            k = term[i]
+            t[k] += qr[j] * w[j, k]
+            if k == 1:
+                gross += abs(qr[j])
         present = 0.0
         ev_in = 0.0
         ev_out = 0.0

@@ -444,74 +444,6 @@ def _tw_solve(r, off, a, b, tri):
 
 
 @njit(inline="always", error_model="numpy")
-def _tw_solve2(r, off, a0, b0, a1, b1, tri):
-    """:func:`_tw_solve` on two barriers (cells a0 .. b0-1 and a1 .. b1-1) at once.
-
-    The same arithmetic cell by cell (the same numbers), with the four dependent chains of the
-    two barriers in one loop, so that each hides the others' latency.
-    """
-    k0 = (a0 + b0) // 2
-    nt0 = k0 - a0
-    nb0 = b0 - 1 - k0
-    k1 = (a1 + b1) // 2
-    nt1 = k1 - a1
-    nb1 = b1 - 1 - k1
-    m = max(max(nt0, nb0), max(nt1, nb1))
-    yt0 = r[off + a0]
-    yb0 = r[off + b0 - 1]
-    yt1 = r[off + a1]
-    yb1 = r[off + b1 - 1]
-    for j in range(1, m):
-        if j < nt0:
-            yt0 = r[off + a0 + j] - tri[3, a0 + j] * yt0
-            r[off + a0 + j] = yt0
-        if j < nb0:
-            yb0 = r[off + b0 - 1 - j] - tri[7, b0 - 1 - j] * yb0
-            r[off + b0 - 1 - j] = yb0
-        if j < nt1:
-            yt1 = r[off + a1 + j] - tri[3, a1 + j] * yt1
-            r[off + a1 + j] = yt1
-        if j < nb1:
-            yb1 = r[off + b1 - 1 - j] - tri[7, b1 - 1 - j] * yb1
-            r[off + b1 - 1 - j] = yb1
-    x0 = r[off + k0]
-    if k0 > a0:
-        x0 -= tri[3, k0] * r[off + k0 - 1]
-    if k0 < b0 - 1:
-        x0 -= tri[7, k0] * r[off + k0 + 1]
-    x0 *= tri[4, k0]
-    r[off + k0] = x0
-    x1 = r[off + k1]
-    if k1 > a1:
-        x1 -= tri[3, k1] * r[off + k1 - 1]
-    if k1 < b1 - 1:
-        x1 -= tri[7, k1] * r[off + k1 + 1]
-    x1 *= tri[4, k1]
-    r[off + k1] = x1
-    xu0 = x0
-    xd0 = x0
-    xu1 = x1
-    xd1 = x1
-    for j in range(1, m + 1):
-        i = k0 - j
-        if i >= a0:
-            xu0 = r[off + i] * tri[4, i] - tri[5, i] * xu0
-            r[off + i] = xu0
-        i = k0 + j
-        if i < b0:
-            xd0 = r[off + i] * tri[4, i] - tri[5, i] * xd0
-            r[off + i] = xd0
-        i = k1 - j
-        if i >= a1:
-            xu1 = r[off + i] * tri[4, i] - tri[5, i] * xu1
-            r[off + i] = xu1
-        i = k1 + j
-        if i < b1:
-            xd1 = r[off + i] * tri[4, i] - tri[5, i] * xd1
-            r[off + i] = xd1
-
-
-@njit(inline="always", error_model="numpy")
 def _tw_responses(w, nx, a, b, tri):
     """w[a..b) = T^{-1} e_a (first cell) and w[nx + a..nx + b) = T^{-1} e_(b-1) (last cell).
 
@@ -657,11 +589,8 @@ def _solve(r, fac, nc, tri, jxc, jcx, sargs, w, smat, piv, qr, qc, qv, nq):
     nd = nc + nx
     n = r.shape[0]
     # z = T^{-1} r_x, barrier by barrier
-    ns = segs.shape[0]
-    for s in range(0, ns - 1, 2):  # two barriers at a time (see _tw_solve2)
-        _tw_solve2(r, nc, segs[s, 0], segs[s, 1], segs[s + 1, 0], segs[s + 1, 1], tri)
-    if ns % 2 == 1:
-        _tw_solve(r, nc, segs[ns - 1, 0], segs[ns - 1, 1], tri)
+    for s in range(segs.shape[0]):
+        _tw_solve(r, nc, segs[s, 0], segs[s, 1], tri)
     # compartments: S kc = r_c - M_cx z  (M_cx = -J_cx)
     for e in range(be_cell.shape[0]):
         r[be_comp[e]] += jcx[e] * r[be_cell[e]]

@@ -367,28 +367,42 @@ def _scatter(rows, cols, vals, k, nc, nd, cell_be, be_comp, tri, jcc, jxc, jcx, 
 
 
 @njit(inline="always", error_model="numpy")
-def _tw_factor(fac, a, b, tri):
-    """Twisted factorisation of fac I - J on the cells a .. b-1 of one barrier; False on a zero pivot."""
+def _tw_top(fac, tri, i, j, pt, h, w, nx):
+    """One step of the elimination from the top of a barrier (cell ``i``, the ``j``-th from its
+    first cell), with the head response T^{-1} e_first eliminated alongside; returns the new
+    reciprocal pivot and the response's running value."""
+    v = 1.0 / (fac - tri[0, i] - (tri[6, i] * pt if j > 0 else 0.0))
+    m3 = -tri[1, i] * pt if j > 0 else 0.0
+    tri[3, i] = m3
+    tri[4, i] = v
+    tri[5, i] = -tri[2, i] * v
+    if j > 0:
+        h = -m3 * h
+    w[i] = h
+    w[nx + i] = 0.0
+    return v, h
+
+
+@njit(inline="always", error_model="numpy")
+def _tw_bottom(fac, tri, i, j, pb, t, w, nx):
+    """As :func:`_tw_top` from the bottom of a barrier, with the tail response T^{-1} e_last."""
+    v = 1.0 / (fac - tri[0, i] - (tri[6, i + 1] * pb if j > 0 else 0.0))
+    m7 = -tri[2, i] * pb if j > 0 else 0.0
+    tri[7, i] = m7
+    tri[4, i] = v
+    tri[5, i] = -tri[1, i] * v
+    if j > 0:
+        t = -m7 * t
+    w[nx + i] = t
+    w[i] = 0.0
+    return v, t
+
+
+@njit(inline="always", error_model="numpy")
+def _tw_middle(fac, a, b, tri, pt, pb):
+    """The middle cell of the twisted factorisation of cells a .. b-1; False on a zero pivot
+    anywhere in the barrier."""
     k = (a + b) // 2
-    n_top = k - a
-    n_bot = b - 1 - k
-    pt = 0.0
-    pb = 0.0
-    for j in range(max(n_top, n_bot)):
-        if j < n_top:  # from the top: cells a, a+1, .., k-1
-            i = a + j
-            v = 1.0 / (fac - tri[0, i] - (tri[6, i] * pt if j > 0 else 0.0))
-            tri[3, i] = -tri[1, i] * pt if j > 0 else 0.0
-            tri[4, i] = v
-            tri[5, i] = -tri[2, i] * v
-            pt = v
-        if j < n_bot:  # from the bottom: cells b-1, b-2, .., k+1
-            i = b - 1 - j
-            v = 1.0 / (fac - tri[0, i] - (tri[6, i + 1] * pb if j > 0 else 0.0))
-            tri[7, i] = -tri[2, i] * pb if j > 0 else 0.0
-            tri[4, i] = v
-            tri[5, i] = -tri[1, i] * v
-            pb = v
     g = fac - tri[0, k]
     tri[3, k] = 0.0
     tri[7, k] = 0.0
@@ -403,6 +417,45 @@ def _tw_factor(fac, a, b, tri):
     for i in range(a, b):
         if not (math.isfinite(tri[4, i]) and tri[4, i] != 0.0):
             ok = False
+    return ok
+
+
+@njit(inline="always", error_model="numpy")
+def _tw_factor2(fac, a0, b0, a1, b1, tri, w, nx):
+    """Twisted factorisation of fac I - J on two barriers (cells a0 .. b0-1 and a1 .. b1-1; the
+    second may be empty, a1 == b1), eliminated from both ends toward each middle cell, with the
+    first half of each barrier's two responses (:func:`_tw_responses`); False on a zero pivot.
+
+    Each barrier's elimination is a chain of divisions, each waiting for the one before: the
+    four chains of two barriers in one loop hide each other's latency (the divider stays busy),
+    about half the time of one barrier after the other. The same arithmetic cell by cell.
+    """
+    k0 = (a0 + b0) // 2
+    nt0 = k0 - a0
+    nb0 = b0 - 1 - k0
+    k1 = (a1 + b1) // 2
+    nt1 = k1 - a1
+    nb1 = b1 - 1 - k1
+    pt0 = 0.0
+    pb0 = 0.0
+    pt1 = 0.0
+    pb1 = 0.0
+    h0 = 1.0
+    t0 = 1.0
+    h1 = 1.0
+    t1 = 1.0
+    for j in range(max(max(nt0, nb0), max(nt1, nb1))):
+        if j < nt0:  # from the top: cells a0, a0+1, .., k0-1
+            pt0, h0 = _tw_top(fac, tri, a0 + j, j, pt0, h0, w, nx)
+        if j < nb0:  # from the bottom: cells b0-1, b0-2, .., k0+1
+            pb0, t0 = _tw_bottom(fac, tri, b0 - 1 - j, j, pb0, t0, w, nx)
+        if j < nt1:
+            pt1, h1 = _tw_top(fac, tri, a1 + j, j, pt1, h1, w, nx)
+        if j < nb1:
+            pb1, t1 = _tw_bottom(fac, tri, b1 - 1 - j, j, pb1, t1, w, nx)
+    ok = _tw_middle(fac, a0, b0, tri, pt0, pb0)
+    if b1 > a1:
+        ok = _tw_middle(fac, a1, b1, tri, pt1, pb1) and ok
     return ok
 
 
@@ -445,7 +498,8 @@ def _tw_solve(r, off, a, b, tri):
 
 @njit(inline="always", error_model="numpy")
 def _tw_responses(w, nx, a, b, tri):
-    """w[a..b) = T^{-1} e_a (first cell) and w[nx + a..nx + b) = T^{-1} e_(b-1) (last cell).
+    """w[a..b) = T^{-1} e_a (first cell) and w[nx + a..nx + b) = T^{-1} e_(b-1) (last cell), given
+    their elimination toward the middle cell done alongside the factorisation (:func:`_tw_factor2`).
 
     The same as two calls of :func:`_tw_solve` on unit vectors, with the zero halves skipped
     and the four remaining chains run side by side.
@@ -453,21 +507,6 @@ def _tw_responses(w, nx, a, b, tri):
     k = (a + b) // 2
     n_top = k - a
     n_bot = b - 1 - k
-    h = 1.0  # head: elimination from the top of e_a
-    t = 1.0  # tail: elimination from the bottom of e_(b-1)
-    for j in range(max(n_top, n_bot)):
-        if j < n_top:
-            i = a + j
-            if j > 0:
-                h = -tri[3, i] * h
-            w[i] = h
-            w[nx + i] = 0.0
-        if j < n_bot:
-            i = b - 1 - j
-            if j > 0:
-                t = -tri[7, i] * t
-            w[nx + i] = t
-            w[i] = 0.0
     xh = 1.0 if k == a else 0.0
     xt = 1.0 if k == b - 1 else 0.0
     if k > a:
@@ -510,12 +549,17 @@ def _factor(fac, nc, tri, jcc, jxc, jcx, sargs, w, smat, piv):
     seg_lo, seg_hi, cell_be, be_cell, be_comp, w_off, pair_e, pair_f, segs, pos, seg_be = sargs
     perm, lu_ptr, lu_col, _ = piv
     nx = tri.shape[1]
-    for s in range(segs.shape[0]):
-        a = segs[s, 0]
-        b = segs[s, 1]
-        if not _tw_factor(fac, a, b, tri):
+    ns = segs.shape[0]
+    for s in range(0, ns, 2):  # two barriers at a time (the last alone when their number is odd)
+        a0 = segs[s, 0]
+        b0 = segs[s, 1]
+        a1 = segs[s + 1, 0] if s + 1 < ns else b0
+        b1 = segs[s + 1, 1] if s + 1 < ns else b0
+        if not _tw_factor2(fac, a0, b0, a1, b1, tri, w, nx):
             return False
-        _tw_responses(w, nx, a, b, tri)
+        _tw_responses(w, nx, a0, b0, tri)
+        if b1 > a1:
+            _tw_responses(w, nx, a1, b1, tri)
     # Schur complement on the compartments, in the elimination order
     for i in range(nc):
         for j in range(nc):

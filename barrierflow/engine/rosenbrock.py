@@ -15,7 +15,9 @@ Every stage needs one solve with ``M = I/(h gamma) - J``. The Jacobian has a fix
 
 ``M`` is solved by block elimination: a tridiagonal factorisation of each barrier's cells, the
 responses of each barrier to its two end couplings, the Schur complement on the compartments
-(dense, partial pivoting, size n_comp), and back-substitution. Cost O(n) per factorisation and
+(size n_comp, partial pivoting, in a fill-reducing order so that a star of many patches around
+one compartment costs O(n_comp), not O(n_comp^3); the solves skip the zeros of its factors), and
+back-substitution. Cost O(n) per factorisation and
 per solve, no general sparse LU. The tridiagonal block is ``diag(1/V) P diag(1/K)`` with ``P``
 symmetric and diagonally dominant (V the cell capacities, K the partition coefficients), so
 elimination needs no pivoting. It is *twisted*: eliminated from both ends of a barrier toward

@@ -37,7 +37,7 @@ import numpy as np
 from numba import njit
 
 from .compiled import CompiledModel
-from .exported import take_row
+from .exported import flush_chain_guard, take_chain_row, take_row
 from .kernels import INNER, jacobian_kernel, rates_kernel
 from .schedule import apply_events, rows_until
 
@@ -859,6 +859,39 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
     for a in range(n):
         if alone[a]:
             any_alone = True
+    # rows kept in chain order (take_chain_row) when only the kept values are asked for and each
+    # barrier's cells are neighbours on the chain (they are: a barrier is a path of cells)
+    pos = np.full(nd, -1, dtype=np.int64)
+    for a in range(n):
+        pos[idx[a]] = a
+    bstart = taps[1]
+    bstop = taps[2]
+    n_bar = bstart.shape[0]
+    plo = np.zeros(n_bar, dtype=np.int64)
+    phi = np.zeros(n_bar, dtype=np.int64)
+    chained = not full and taps[0].shape[0] > 0
+    for b in range(n_bar):
+        if bstop[b] <= bstart[b] or not chained:
+            continue
+        lo_p = n
+        hi_p = -1
+        for i in range(bstart[b], bstop[b]):
+            lo_p = min(lo_p, pos[i])
+            hi_p = max(hi_p, pos[i])
+        if lo_p < 0 or hi_p - lo_p + 1 != bstop[b] - bstart[b]:
+            chained = False
+        plo[b] = lo_p
+        phi[b] = hi_p + 1
+    capc = np.empty(n)
+    isc = np.empty(n)
+    mins = np.zeros((3, n))
+    last_row = taps[4].shape[0] - 1
+    n_chained = 0
+    if chained:
+        inv_scale = taps[3]
+        for a in range(n):
+            capc[a] = cap[idx[a]]
+            isc[a] = inv_scale[idx[a]]
     # equally spaced output times (the usual output_step): exp(lam tau) by recurrence, one
     # multiplication per mode and time instead of a call of exp; the times' rounding deviations
     # from the even grid (~1e-15 h) enter to first order, exp(lam d) = 1 + lam d
@@ -900,7 +933,19 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
             dev = tj - (tau[j0] + (jr - j0) * step) if use_rec else 0.0
             zs = zsb[r]
             zi = zib[r]
-            for s in range(ks):
+            # without forcing, a mode decayed below exp(-60) at the block's first time adds nothing
+            # to the states (see below) and its integral has reached its limit: -z0 / lam, the value
+            # the formula gives once exp(x) - 1 rounds to -1
+            kz = ks
+            if not has_g:
+                kz = 0
+                while kz < ks and lam[kz] * tb[0] > -60.0:
+                    kz += 1
+                kz = min((kz + 3) // 4 * 4, ks)
+            for s in range(kz, ks):
+                zs[s] = 0.0
+                zi[s] = (-1.0 / lam[s]) * z0[s]
+            for s in range(kz):
                 el = lam[s]
                 x = el * tj
                 if use_rec:
@@ -972,17 +1017,23 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
                 dst[fixed[q]] = y0[fixed[q]]
             if any_alone:
                 for a in range(n):
-                    ia = idx[a]
-                    dst[ia] = y0[ia] + g[ia] * tj if alone[a] else ys[a]
-            else:
-                for a in range(n):
-                    dst[idx[a]] = ys[a]
+                    if alone[a]:
+                        ia = idx[a]
+                        ys[a] = y0[ia] + g[ia] * tj
             dq = dst[nd:]
             for q in range(nqd):
                 dq[q] = y0[nd + q] + qs[q] + g[nd + q] * tj
+            if chained and jr < n_t and row0 + jr != last_row:
+                take_chain_row(ys, dst, row0 + jr, taps, pos, capc, isc, plo, phi, mins)
+                n_chained += 1
+                continue
+            for a in range(n):
+                dst[idx[a]] = ys[a]
             if jr < n_t:
                 take_row(dst, row0 + jr, taps, cap, nd)
         j += nb
+    if n_chained:
+        flush_chain_guard(mins, taps, y0, pos)
 
 
 # ---------------------------------------------------------------- the whole regimen

@@ -26,7 +26,7 @@ from numba import njit
 from .arrays import INNER
 from .compiled import CompiledModel
 
-__all__ = ["Rows", "Taps", "empty_taps", "take_row", "taps_of"]
+__all__ = ["Rows", "Taps", "empty_taps", "flush_chain_guard", "take_chain_row", "take_row", "taps_of"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -134,6 +134,80 @@ def take_row(y, r, taps, cap, nd):
     fin = 0.0
     for i in range(y.shape[0]):
         fin += y[i] * 0.0  # NaN for a NaN or an infinity
+    guard[0] = min(guard[0], low)
+    guard[1] = min(guard[1], neg)
+    guard[2] += fin
+
+
+@njit(**_LANES)
+def take_chain_row(ys, dst, r, taps, pos, capc, isc, plo, phi, mins):
+    """:func:`take_row` for a row whose chain states are at hand in chain order (the exact chain
+    path): the same values kept by the same rule, without first scattering them into a full state.
+
+    ``ys`` holds the states of the chain's positions, ``pos`` the position of each dynamic state
+    (-1 off the chain: those and the quadratures are read from ``dst``, the full row), ``capc`` and
+    ``isc`` the capacity and the inverse scale of each position, ``plo, phi`` each barrier's range
+    of positions (its cells are neighbours on the chain). The guard over the chain's states goes
+    element by element into ``mins`` (3 x positions: lowest scaled value, most negative value,
+    finite), so that its loop runs in vector lanes; :func:`flush_chain_guard` folds it into the
+    guard (with the states off the chain, which keep their value over an interval). Not for the
+    buffers' last row (:func:`take_row` keeps it whole).
+    """
+    keep, bstart, _bstop, _inv_scale, cols, cont, clip, guard, _last = taps
+    nd = pos.shape[0]
+    for j in range(keep.shape[0]):
+        i = keep[j]
+        p = pos[i] if i < nd else -1
+        cols[r, j] = ys[p] if p >= 0 else dst[i]
+    for b in range(bstart.shape[0]):
+        yc = ys[plo[b]:phi[b]]
+        cc = capc[plo[b]:phi[b]]
+        acc = 0.0
+        tot = 0.0
+        for a in range(yc.shape[0]):
+            v = yc[a] * cc[a]
+            acc += v
+            tot += max(v, 0.0)
+        cont[r, b] = acc
+        clip[r, b] = tot
+    low = mins[0]
+    neg = mins[1]
+    fin = mins[2]
+    for a in range(capc.shape[0]):
+        v = ys[a]
+        w = v * isc[a]
+        low[a] = w if w < low[a] else low[a]
+        neg[a] = v if v < neg[a] else neg[a]
+        fin[a] += v * 0.0  # NaN for a NaN or an infinity
+    f = 0.0
+    for i in range(nd, dst.shape[0]):
+        f += dst[i] * 0.0
+    guard[2] += f
+
+
+@njit(**_LANES)
+def flush_chain_guard(mins, taps, y0, pos):
+    """Fold the guard that :func:`take_chain_row` kept element by element into ``taps``' guard,
+    with the dynamic states off the chain (held or clamped: their values in ``y0``, the state at
+    the interval's start, the same at every row of it), and start ``mins`` again."""
+    guard = taps[7]
+    low = 0.0
+    neg = 0.0
+    fin = 0.0
+    for a in range(mins.shape[1]):
+        low = min(low, mins[0, a])
+        neg = min(neg, mins[1, a])
+        fin += mins[2, a]
+        mins[0, a] = 0.0
+        mins[1, a] = 0.0
+        mins[2, a] = 0.0
+    inv_scale = taps[3]
+    for i in range(pos.shape[0]):
+        if pos[i] < 0:
+            v = y0[i]
+            low = min(low, v * inv_scale[i])
+            neg = min(neg, v)
+            fin += v * 0.0
     guard[0] = min(guard[0], low)
     guard[1] = min(guard[1], neg)
     guard[2] += fin

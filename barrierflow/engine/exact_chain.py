@@ -187,6 +187,25 @@ def _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of):
 
 
 @njit(**INNER)
+def _dot(a, b, n):
+    """sum a[i] b[i] over i < n, in four interleaved partial sums (not one chain of dependent
+    additions: the loop runs at the speed of the multiplications)."""
+    s0 = 0.0
+    s1 = 0.0
+    s2 = 0.0
+    s3 = 0.0
+    m = n - n % 4
+    for i in range(0, m, 4):
+        s0 += a[i] * b[i]
+        s1 += a[i + 1] * b[i + 1]
+        s2 += a[i + 2] * b[i + 2]
+        s3 += a[i + 3] * b[i + 3]
+    for i in range(m, n):
+        s0 += a[i] * b[i]
+    return (s0 + s1) + (s2 + s3)
+
+
+@njit(**INNER)
 def _sturm(dd, ee, n, x, pivmin):
     """Number of eigenvalues of the tridiagonal (dd, ee) below ``x``."""
     cnt = 0
@@ -325,40 +344,108 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
     lo = np.empty(kb)
     hi = np.empty(kb)
     lower = -tnorm - 1.0
+    # mode s (slowest first) is eigenvalue number n - 1 - s (ascending); the eigenvalues from
+    # number ``below`` up lie above the cut: brackets [lo, hi] with the counts at their ends
+    below = _sturm(dd, ee, n, cut, pivmin) if math.isfinite(cut) else 0
+    clo = np.empty(kb, dtype=np.int64)
+    chi = np.empty(kb, dtype=np.int64)
     for s in range(kb):
-        lo[s] = lower
-        hi[s] = upper
-    # bisection in lockstep; mode s (slowest first) is eigenvalue number n - 1 - s (ascending)
-    q = np.empty(kb)
+        if n - 1 - s >= below and below > 0:
+            lo[s] = cut
+            clo[s] = below
+            hi[s] = upper
+            chi[s] = n
+        elif n - 1 - s >= below:
+            lo[s] = lower
+            clo[s] = 0
+            hi[s] = upper
+            chi[s] = n
+        else:
+            lo[s] = lower
+            clo[s] = 0
+            hi[s] = cut
+            chi[s] = below
+    # In lockstep over the modes: the Sturm count at each mode's point (how many eigenvalues lie
+    # below it) narrows the brackets of every mode; a bracket that holds one eigenvalue only takes
+    # Newton's step on det(T - x I), whose logarithmic derivative the same recurrence gives
+    # (q_i' = -1 + e_i^2 q_(i-1)' / q_(i-1)^2, d log|det| / dx = sum q_i' / q_i), while it stays
+    # inside the bracket, else the bracket's midpoint: quadratic convergence instead of one bit
+    # per pass. Done when the bracket is below the bisection's tolerance; a step of Newton's below
+    # it is confirmed by the counts just below and above its limit, which close the bracket (the
+    # logarithmic derivative could be spoiled by cancellation near a pole of one q_i).
+    xq = np.empty(kb)
+    rq = np.empty(kb)
+    dq = np.empty(kb)
+    dl = np.empty(kb)
     cnt = np.empty(kb, dtype=np.int64)
-    mid = np.empty(kb)
+    fin = np.zeros(kb, dtype=np.bool_)
+    phase = np.zeros(kb, dtype=np.int64)
+    xv = np.empty(kb)
     tol = 4e-16 * tnorm
+    for s in range(kb):
+        xq[s] = 0.5 * (lo[s] + hi[s])
     for _it in range(200):
         done = True
         for s in range(kb):
-            mid[s] = 0.5 * (lo[s] + hi[s])
-            if hi[s] - lo[s] > tol + 4e-16 * abs(mid[s]):
+            if not fin[s]:
                 done = False
         if done:
             break
         for s in range(kb):
-            q[s] = dd[0] - mid[s]
-            if abs(q[s]) < pivmin:
-                q[s] = -pivmin
-            cnt[s] = 1 if q[s] < 0.0 else 0
+            v = dd[0] - xq[s]
+            v = v if abs(v) >= pivmin else -pivmin
+            rq[s] = 1.0 / v
+            dq[s] = -1.0
+            dl[s] = -rq[s]
+            cnt[s] = 1 if v < 0.0 else 0
         for i in range(1, n):
             e2 = ee[i - 1] * ee[i - 1]
             di = dd[i]
             for s in range(kb):  # branch-free, so that the shifts run in vector lanes
-                v = di - mid[s] - e2 / q[s]
+                r = rq[s]
+                v = di - xq[s] - e2 * r
                 v = v if abs(v) >= pivmin else -pivmin
-                q[s] = v
+                d = -1.0 + e2 * dq[s] * r * r
+                r = 1.0 / v
+                rq[s] = r
+                dq[s] = d
+                dl[s] += d * r
                 cnt[s] += v < 0.0
+        for p in range(kb):  # every point narrows every bracket
+            xp = xq[p]
+            c = cnt[p]
+            for s in range(kb):
+                if c > n - 1 - s:
+                    if xp < hi[s]:
+                        hi[s] = xp
+                        chi[s] = c
+                elif xp > lo[s]:
+                    lo[s] = xp
+                    clo[s] = c
         for s in range(kb):
-            if cnt[s] > n - 1 - s:
-                hi[s] = mid[s]
-            else:
-                lo[s] = mid[s]
+            if fin[s]:
+                continue
+            mid = 0.5 * (lo[s] + hi[s])
+            if hi[s] - lo[s] <= tol + 4e-16 * abs(mid):
+                fin[s] = True
+                continue
+            if phase[s] == 1:  # the counts just below and above Newton's limit confirm it
+                xq[s] = min(xv[s] + 0.45 * (tol + 4e-16 * abs(xv[s])), hi[s])
+                phase[s] = 2
+                continue
+            if phase[s] == 2:  # not confirmed: bisection from here on
+                phase[s] = 3
+            if phase[s] == 0 and chi[s] - clo[s] == 1 and math.isfinite(dl[s]) and dl[s] != 0.0:
+                xn = xq[s] - 1.0 / dl[s]
+                if abs(xn - xq[s]) <= 0.5 * (tol + 4e-16 * abs(xn)):
+                    xv[s] = min(max(xn, lo[s]), hi[s])
+                    xq[s] = max(xv[s] - 0.45 * (tol + 4e-16 * abs(xv[s])), lo[s])
+                    phase[s] = 1
+                    continue
+                if lo[s] < xn < hi[s]:
+                    xq[s] = xn
+                    continue
+            xq[s] = mid
     lam = lam_all[k0:k0 + k]
     vec = np.zeros((k, n))
     # inverse iteration with partial pivoting, re-orthogonalised against the slower modes
@@ -418,17 +505,15 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
                 v[n - 2] = (v[n - 2] - a1[n - 2] * v[n - 1]) / a0[n - 2]
             for i in range(n - 3, -1, -1):
                 v[i] = (v[i] - a1[i] * v[i + 1] - a2[i] * v[i + 2]) / a0[i]
-            for _gs in range(2):
+            # re-orthogonalised (twice) after the last solve: after the first, the slower modes'
+            # share is already down to about |lam - sig| / gap
+            for _gs in range(2 * _rep):
                 for r in range(s):
-                    dot = 0.0
+                    vr = vec[r]
+                    dot = _dot(vr, v, n)
                     for i in range(n):
-                        dot += vec[r, i] * v[i]
-                    for i in range(n):
-                        v[i] -= dot * vec[r, i]
-            nrm = 0.0
-            for i in range(n):
-                nrm += v[i] * v[i]
-            nrm = math.sqrt(nrm)
+                        v[i] -= dot * vr[i]
+            nrm = math.sqrt(_dot(v, v, n))
             if nrm == 0.0 or not math.isfinite(nrm):
                 for i in range(n):
                     v[i] = 1.0 / math.sqrt(n)
@@ -564,19 +649,17 @@ def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
         w[i] = v[i]
     for _rep in range(2):
         for s in range(ks):
-            dot = 0.0
+            vs = vec[s]
+            dot = _dot(vs, w, n)
             for i in range(n):
-                dot += vec[s, i] * w[i]
-            for i in range(n):
-                w[i] -= dot * vec[s, i]
+                w[i] -= dot * vs[i]
     _solve_t(dd, ee, n, ediag, msq, comp_of, w, out)
     for _rep in range(2):
         for s in range(ks):
-            dot = 0.0
+            vs = vec[s]
+            dot = _dot(vs, out, n)
             for i in range(n):
-                dot += vec[s, i] * out[i]
-            for i in range(n):
-                out[i] -= dot * vec[s, i]
+                out[i] -= dot * vs[i]
 
 
 # ---------------------------------------------------------------- outputs of one interval
@@ -789,13 +872,8 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
     z0 = np.zeros(ks)
     gz = np.zeros(ks)
     for s in range(ks):
-        a0 = 0.0
-        b0 = 0.0
-        for a in range(n):
-            a0 += vec[s, a] * x0[a]
-            b0 += vec[s, a] * tg[a]
-        z0[s] = a0
-        gz[s] = b0
+        z0[s] = _dot(vec[s], x0, n)
+        gz[s] = _dot(vec[s], tg, n) if has_g else 0.0
     # decayed modes: constants (states) and constant + slope (quadratures), through T^+
     yfast = np.zeros(n)
     qconst = np.zeros(nqd)

@@ -20,7 +20,8 @@ from ..caution import CAUTION
 from ..engine import Trajectory
 from ..engine.compiled import limited_compartments
 from ..engine.ledger import rows_ledger
-from ..io import traces_digest, write_traces
+from ..io import in_background, traces_digest, write_traces
+from ..io.csv_numbers import csv_row_bytes
 from ..model import Scenario
 from ..units import unit_factor
 
@@ -536,14 +537,18 @@ class Result:
         Every value is written as ``format(x, ".12g")`` writes it; a value that is not a number
         (the amount of a held compartment without a volume) leaves its cell empty.
         """
-        from ..io.csv_numbers import csv_rows
+        return self.csv_bytes().decode("utf-8")
 
+    def csv_bytes(self) -> bytes:
+        """:meth:`csv_text` as UTF-8 bytes (what :meth:`to_csv` writes)."""
+        return _csv_bytes(*self._csv_parts())
+
+    def _csv_parts(self) -> tuple[bytes, np.ndarray | None]:
+        """The header line of the traces CSV (UTF-8) and the table of its values (None without columns)."""
         cols = self.columns()
         buf = io.StringIO()
         csv.writer(buf, lineterminator="\n").writerow([name for name, _ in cols])
-        if cols:
-            buf.write(csv_rows(np.column_stack([v for _, v in cols])))
-        return buf.getvalue()
+        return buf.getvalue().encode("utf-8"), (np.column_stack([v for _, v in cols]) if cols else None)
 
     def sidecar(self, csv_text: str | bytes | None = None) -> dict[str, Any]:
         """The JSON sidecar: scenario, software version, solver settings, grid, mass balance, and
@@ -554,6 +559,10 @@ class Result:
         csv_text : str or bytes, optional
             The CSV text (:meth:`csv_text`, or its UTF-8 bytes), when already made.
         """
+        return self._sidecar(traces_digest(self.csv_bytes() if csv_text is None else csv_text))
+
+    def _sidecar(self, digest: dict[str, object]) -> dict[str, Any]:
+        """:meth:`sidecar` with the CSV's ``traces_digest`` given."""
         from .. import __version__
 
         tr = self.trajectory
@@ -583,7 +592,7 @@ class Result:
             "mass_balance_mg": self.mass_balance.as_dict(),
             "most_negative_concentration_mg_per_mL": self.most_negative,
             "warnings": list(self.warnings()),
-            "traces": traces_digest(self.csv_text() if csv_text is None else csv_text),
+            "traces": digest,
         }
         doc["metrics"] = self.metrics().as_dict()
         return doc
@@ -610,15 +619,32 @@ class Result:
         if path is None:
             stem = Path(self.scenario.source).stem if self.scenario.source else "barrierflow-run"
             path = Path(f"{stem}.csv")
-        raw = self.csv_text().encode("utf-8")
-        # the sidecar is made while the CSV's temporary file is flushed to disk
-        return write_traces(path, raw, lambda: self.sidecar_text(raw))
+        # the values are formatted and hashed in another thread (compiled code and hashing let
+        # the interpreter's lock go) while this one computes what the sidecar shows; the sidecar's
+        # text is made while the CSV's temporary file is flushed to disk
+        made = in_background(_csv_bytes_and_digest, *self._csv_parts())
+        self.metrics(), self.warnings(), self.mass_balance
+        raw, digest = made.result()
+        return write_traces(path, raw, lambda: self._sidecar_text(digest))
 
     def sidecar_text(self, csv_text: str | bytes | None = None) -> str:
         """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""
+        return self._sidecar_text(traces_digest(self.csv_bytes() if csv_text is None else csv_text))
+
+    def _sidecar_text(self, digest: dict[str, object]) -> str:
         from ..io.json_text import indented_json
 
-        return indented_json(self.sidecar(csv_text), default=_json_default) + "\n"
+        return indented_json(self._sidecar(digest), default=_json_default) + "\n"
+
+
+def _csv_bytes(head: bytes, table: np.ndarray | None) -> bytes:
+    """The traces CSV: its header line, then the rows of its values."""
+    return head if table is None else head + csv_row_bytes(table)
+
+
+def _csv_bytes_and_digest(head: bytes, table: np.ndarray | None) -> tuple[bytes, dict[str, object]]:
+    raw = _csv_bytes(head, table)
+    return raw, traces_digest(raw)
 
 
 def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray]]:

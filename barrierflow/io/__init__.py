@@ -5,15 +5,17 @@ validated models (:class:`barrierflow.Scenario`, :class:`barrierflow.model.exper
 the engine, the analysis, the studies and the dashboard never parse text.
 """
 
-from .atomic import atomic_stream, atomic_write, atomic_write_together, remove_stale_temporaries
+from .atomic import Pending, atomic_stream, atomic_write, atomic_write_together, in_background, remove_stale_temporaries
 from .experiment import load_experiment, loads_experiment
 from .scenario_files import load, loads, read_toml, save
 from .traces import sidecar_path, traces_digest, traces_match, write_traces
 
 __all__ = [
+    "Pending",
     "atomic_stream",
     "atomic_write",
     "atomic_write_together",
+    "in_background",
     "load",
     "load_experiment",
     "loads",

@@ -44,7 +44,8 @@ from typing import TextIO
 
 Content = str | bytes | Callable[[], str | bytes]
 
-__all__ = ["atomic_stream", "atomic_write", "atomic_write_together", "remove_stale_temporaries"]
+__all__ = ["Pending", "atomic_stream", "atomic_write", "atomic_write_together", "in_background",
+           "remove_stale_temporaries"]
 
 STALE_AFTER_S = 24 * 3600.0
 """Age after which a temporary file is removed even if a process of its number is running (the
@@ -211,12 +212,48 @@ def _serve(jobs: queue.SimpleQueue[_Job]) -> None:
 
 _FLUSHER = _Worker("barrierflow-flush")
 _RELEASER = _Worker("barrierflow-release")
+_MAKER = _Worker("barrierflow-make")
+
+
+class Pending:
+    """A call made in another thread of this process (:func:`in_background`); :meth:`result`
+    waits for it and gives what it returned, or raises what it raised."""
+
+    def __init__(self, call: Callable[..., object], *args: object) -> None:
+        self._value: object = None
+        self._job = _Job(self._keep, call, args)
+        if not _MAKER.submit(self._job):  # no thread can be had: made here
+            try:
+                self._job.call(*self._job.args)
+            except BaseException as err:  # raised by result(), as from the thread
+                self._job.error = err
+            self._job.done.set()
+
+    def _keep(self, call: Callable[..., object], args: tuple[object, ...]) -> None:
+        self._value = call(*args)
+
+    def result(self) -> object:
+        self._job.done.wait()
+        if self._job.error is not None:
+            raise self._job.error
+        return self._value
+
+
+def in_background(call: Callable[..., object], *args: object) -> Pending:
+    """Start ``call(*args)`` in another thread of this process (one that waits for such work).
+
+    Worth it for work that lets the interpreter's lock go (compiled code without it, hashing,
+    waits for the disk), so that the caller makes something else meanwhile: the traces CSV is
+    formatted and hashed that way while the sidecar's metrics are computed. Calls run one at a
+    time, in the order given.
+    """
+    return Pending(call, *args)
 
 
 def _after_fork() -> None:
     # a forked child has none of the parent's threads, and a lock held by one of them at the
     # fork would stay held: the child starts its own workers, with new locks
-    for worker in (_FLUSHER, _RELEASER):
+    for worker in (_FLUSHER, _RELEASER, _MAKER):
         worker.lock = threading.Lock()
         worker.pid = 0
 

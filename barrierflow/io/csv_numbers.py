@@ -32,7 +32,7 @@ import math
 import numpy as np
 from numba import njit
 
-__all__ = ["csv_rows"]
+__all__ = ["csv_row_bytes", "csv_rows"]
 
 _LOG10_2 = 0.30102999566398120
 
@@ -57,6 +57,16 @@ def csv_rows(data: np.ndarray, digits: int = 12) -> str:
     >>> csv_rows(np.array([[0.0, 1 / 3], [float("nan"), 2.5e-7]]))
     '0,0.333333333333\\n,2.5e-07\\n'
     """
+    return csv_row_bytes(data, digits).decode("ascii")
+
+
+def csv_row_bytes(data: np.ndarray, digits: int = 12) -> bytes:
+    """:func:`csv_rows` as the bytes of the text (ASCII), without a text object in between.
+
+    The compiled writer runs without the interpreter's lock (``nogil``), so another thread may
+    make something else meanwhile (:meth:`barrierflow.Result.to_csv` computes the sidecar's
+    metrics while the traces are formatted).
+    """
     if not 1 <= int(digits) <= 17:
         raise ValueError(f"digits: got {digits}; a whole number from 1 to 17")
     table = np.ascontiguousarray(data, dtype=np.float64)
@@ -64,13 +74,13 @@ def csv_rows(data: np.ndarray, digits: int = 12) -> str:
         raise ValueError(f"data: got an array of {table.ndim} dimensions; a table of rows and columns (2)")
     rows, cols = table.shape
     if rows == 0 or cols == 0:
-        return "\n" * rows if cols == 0 else ""
+        return b"\n" * rows if cols == 0 else b""
     # at most 24 bytes a cell ("-1.2345678901234567e-308") and its separator
     out = np.empty(rows * cols * 25, dtype=np.uint8)
     left = np.empty(rows * cols, dtype=np.int64)
     at = np.empty(rows * cols, dtype=np.int64)
     n, n_left = _write_rows(table, int(digits), out, left, at)
-    text = out[:n].tobytes().decode("ascii")
+    text = out[:n].tobytes()
     if not n_left:
         return text
     # the few values the compiled writer leaves to Python, put in where their cells are
@@ -80,13 +90,13 @@ def csv_rows(data: np.ndarray, digits: int = 12) -> str:
     for k in range(n_left):
         pos = int(at[k])
         pieces.append(text[prev:pos])
-        pieces.append(format(float(flat[left[k]]), f".{digits}g"))
+        pieces.append(format(float(flat[left[k]]), f".{digits}g").encode("ascii"))
         prev = pos
     pieces.append(text[prev:])
-    return "".join(pieces)
+    return b"".join(pieces)
 
 
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True, boundscheck=False)
+@njit(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True, boundscheck=False)
 def _write_rows(data, digits, out, left, at):  # pragma: no cover - compiled (tested through csv_rows)
     """Write ``data`` row by row into ``out``; return (bytes written, cells left to Python).
 

@@ -26,6 +26,9 @@ What is promised, and how the waits for the disk are arranged:
   no promise depends on it, so the old files are opened before the renames and closed by a
   background thread while the folder is flushed; their space is freed when that thread (or, at
   the latest, the end of the process) closes them.
+
+:func:`in_background` hands other work that lets the interpreter's lock go to a thread of the
+same kind (the traces CSV is formatted and hashed that way while the sidecar's content is made).
 """
 
 from __future__ import annotations

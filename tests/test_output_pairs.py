@@ -22,6 +22,7 @@ from barrierflow.cli import main
 from barrierflow.io import (
     atomic_write,
     atomic_write_together,
+    in_background,
     remove_stale_temporaries,
     traces_digest,
     traces_match,
@@ -42,6 +43,25 @@ def test_sidecar_records_the_hash_of_the_csv_it_belongs_with(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cell.csv", "cell.json"]
     # the exported sidecar (the dashboard's) carries the same record
     assert json.loads(result.sidecar_text())["traces"] == side["traces"]
+
+
+def test_traces_formatted_in_another_thread_are_the_text_and_a_failure_there_leaves_no_file(tmp_path, monkeypatch):
+    # to_csv formats and hashes the table in another thread while the sidecar's content is made:
+    # the bytes written are csv_text's, and a failure in that thread reaches the caller before any
+    # file is written
+    result = barrierflow.simulate(barrierflow.load(CELL))
+    out = result.to_csv(tmp_path / "cell.csv")
+    assert out.read_bytes() == result.csv_text().encode("utf-8") == result.csv_bytes()
+    assert in_background(sum, [1, 2, 3]).result() == 6
+
+    def broken(table):
+        raise MemoryError("no room for the text")
+
+    monkeypatch.setattr("barrierflow.analysis.result.csv_row_bytes", broken)
+    fresh = barrierflow.simulate(barrierflow.load(CELL))
+    with pytest.raises(MemoryError, match="no room"):
+        fresh.to_csv(tmp_path / "other.csv")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cell.csv", "cell.json"]
 
 
 def test_a_csv_beside_a_sidecar_of_another_run_is_told_apart(tmp_path):

@@ -147,6 +147,8 @@ def _block(x: Sequence[float] | np.ndarray) -> np.ndarray:
 def _each(x: Any, n: int) -> np.ndarray:
     """A value per subject as (n,): a number (shared), or a column (n, 1) of a stacked scenario
     (:func:`barrierflow.model.cohort.stacked`)."""
+    if isinstance(x, float | int):
+        return np.full(n, float(x))
     return np.broadcast_to(np.asarray(x, dtype=float).reshape(-1), (n,))
 
 
@@ -1282,19 +1284,16 @@ def _unit_factors(u: OutputUnits, mm: float | None) -> dict[str, tuple[float, st
 def _subject_of(m: Any, i: int) -> Any:
     """Subject ``i``'s :class:`CompartmentMetrics` or :class:`BarrierMetrics` (plain numbers and its
     own notes) from those of many subjects (an array per field)."""
-    kw: dict[str, Any] = {}
-    for name, v in m.__dict__.items():
-        if name == "notes":
-            kw["notes"] = {k: str(x[i]) for k, x in v.items() if x[i]}
-        elif name == "steady_state_reached":
-            x = v.item(i)
-            kw[name] = None if x != x else bool(x)
-        elif isinstance(v, tuple):
-            kw[name] = tuple(x.item(i) if isinstance(x, np.ndarray) else float(x) for x in v)
-        elif isinstance(v, np.ndarray):
+    kw = dict(m.__dict__)
+    for name, v in kw.items():
+        if type(v) is np.ndarray:
             kw[name] = int(v.item(i)) if name in _WHOLE else float(v.item(i))
-        else:
-            kw[name] = v
+        elif type(v) is tuple:
+            kw[name] = tuple(x.item(i) if type(x) is np.ndarray else float(x) for x in v)
+    kw["notes"] = {k: str(x[i]) for k, x in m.notes.items() if x[i]}
+    if "steady_state_reached" in kw:
+        x = kw["steady_state_reached"]
+        kw["steady_state_reached"] = None if x != x else bool(x)
     return type(m)(**kw)
 
 

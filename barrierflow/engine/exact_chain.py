@@ -799,13 +799,16 @@ def _rational_row(dd, ee, n, tj, x0, tg, has_g, poles, residues, c0, xs, xi, cw)
 
 
 @njit(**INNER)
-def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_all, qr, qc, qv, nq, nd, clamp,
+def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp, k_all, qr, qc, qv, nq, nd, clamp,
               nc, out, work, t_end, last, t_thr, full, taps, row0, cap):
     """States at local times ``tau`` (h, non-decreasing, >= 0) from ``y0`` into ``out``, and the
     state at the interval's end ``t_end`` (> 0) into ``last``.
 
     With ``full`` False, ``out`` is one row of work space: each row is computed there and kept by
     :func:`~barrierflow.engine.exported.take_row` in ``taps`` (as row ``row0`` plus its index).
+
+    ``vyp`` holds the states of each mode (y = x / t, ``vec`` divided by ``tv``), at least a
+    multiple of four rows: the modes not kept here meet coefficients of zero.
 
     Times below ``t_thr`` (h), at which more modes than were computed have not yet decayed, go
     through :func:`_rational_row`; the others through the modes, keeping those not decayed at the
@@ -916,11 +919,6 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
                 moved[n_moved] = q
                 n_moved += 1
                 break
-    # the states of each slow mode (y = x / t)
-    vy = np.empty((ks, n))
-    for s in range(ks):
-        for a in range(n):
-            vy[s, a] = vec[s, a] / tv[a]
     qs = np.empty(nqd)
     # the dynamic states outside the chain (held or clamped: they keep their value) and whether a
     # state of the chain is alone (then the rows need the branch below)
@@ -989,10 +987,6 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, k_a
             rec[s] = math.exp(lam[s] * tau[j0])
             fac[s] = math.exp(lam[s] * step)
     ks4 = (ks + 3) // 4 * 4
-    vyp = np.zeros((ks4, n))  # the mode patterns, padded to a multiple of four modes
-    for s in range(ks):
-        for a in range(n):
-            vyp[s, a] = vy[s, a]
     # four rows at a time: each pass over the states applies four modes to four rows, so that a
     # pattern value loaded once serves four rows (the sums of each row in the same order as one
     # row at a time)
@@ -1153,6 +1147,7 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     comp_c = np.zeros((P, L), dtype=np.int64)
     lam_c = np.zeros((P, L))
     vec_c = np.zeros((P, 1, L))
+    vyp_c = np.zeros((P, 4, L))  # the states of each mode (vec / tv), padded to a multiple of four
     qr_c = np.zeros((P, n_jac), dtype=np.int64)
     qc_c = np.zeros((P, n_jac), dtype=np.int64)
     qv_c = np.zeros((P, n_jac))
@@ -1239,6 +1234,23 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                                 vec_c[slot])
             if k_all < 0:
                 return FAIL_CONDITION
+            k4 = (k_all + 3) // 4 * 4
+            if k4 > vyp_c.shape[1]:
+                grown = np.zeros((P, k4, L))
+                for c in range(P):
+                    for q in range(vyp_c.shape[1]):
+                        for i in range(L):
+                            grown[c, q, i] = vyp_c[c, q, i]
+                vyp_c = grown
+            tv = tv_c[slot]
+            for q in range(k4):
+                vq = vyp_c[slot, q]
+                if q < k_all:
+                    for i in range(n):
+                        vq[i] = vec_c[slot, q, i] / tv[i]
+                else:
+                    for i in range(n):
+                        vq[i] = 0.0
             kj = jacobian_kernel(yz, rows, cols, vals, m, clamp)
             nq = 0
             cmap = cmap_c[slot]
@@ -1275,10 +1287,11 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         for r in range(m_out):
             tau[r] = times[row + r] - t0
         tau[m_out] = t1 - t0
+        dest = states[row:sel_end] if full else states
         _interval(y, g, tau[:m_out], n_c[slot], idx_c[slot], tv_c[slot], dd_c[slot], ee_c[slot], ediag_c[slot],
-                  msq_c[slot], comp_c[slot], lam_c[slot], vec_c[slot], k_c[slot], qr_c[slot], qc_c[slot], qv_c[slot],
-                  nq_c[slot], nd, clamp, nc, states[row:sel_end] if full else states, work, tau[m_out], last,
-                  thr_c[slot], full, taps, row, m.capacity)
+                  msq_c[slot], comp_c[slot], lam_c[slot], vec_c[slot], vyp_c[slot], k_c[slot], qr_c[slot], qc_c[slot],
+                  qv_c[slot], nq_c[slot], nd, clamp, nc, dest, work, tau[m_out], last, thr_c[slot], full, taps, row,
+                  m.capacity)
         for r in range(m_out):
             for p in range(nc):
                 ev_dosed[row + r, p] = dosed[p]

@@ -168,6 +168,12 @@ def _two_port(barrier: Barrier) -> tuple[float, float, float, float]:
 # that a subject's row is, operation for operation, what its own scenario gives.
 def _row(values: list) -> np.ndarray:
     """One value per item as a row: (k,), or (n, k) when an item holds one value per subject."""
+    try:  # plain numbers (a single scenario): one conversion
+        out = np.array(values, dtype=np.float64)
+    except ValueError:  # numbers beside arrays of one value per subject
+        out = None
+    if out is not None and out.ndim == 1:
+        return out
     n = next((x.shape[0] for x in values if isinstance(x, np.ndarray) and x.ndim == 2), None)
     if n is None:
         return np.array(values, dtype=np.float64).reshape(len(values))
@@ -179,6 +185,8 @@ def _row(values: list) -> np.ndarray:
 
 def _join(parts: list[np.ndarray]) -> np.ndarray:
     """Rows (each (k_i,) or (n, k_i)) joined along the last axis."""
+    if all(p.ndim == 1 for p in parts):
+        return np.concatenate(parts) if parts else np.zeros(0)
     n = next((p.shape[0] for p in parts if p.ndim == 2), None)
     if n is None:
         return np.concatenate(parts) if parts else np.zeros(0)

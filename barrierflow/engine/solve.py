@@ -143,11 +143,13 @@ def _snap(times: np.ndarray, marks: np.ndarray, tol: float) -> np.ndarray:
         return times
     idx = np.searchsorted(marks, times)
     out = times.copy()
-    for k in (idx - 1, idx):
-        ok = (k >= 0) & (k < len(marks))
-        kk = np.clip(k, 0, len(marks) - 1)
-        close = ok & (np.abs(marks[kk] - times) <= tol)
-        out[close] = marks[kk][close]
+    last = len(marks) - 1
+    # the event before, then the one after (which wins when both are that close); an index off
+    # either end names the end event, which is then the other neighbour too
+    for k in (np.maximum(idx - 1, 0), np.minimum(idx, last)):
+        near = marks[k]
+        close = np.abs(near - times) <= tol
+        out[close] = near[close]
     return out
 
 

@@ -14,8 +14,9 @@ keep their relative accuracy.
 Only the modes that have not decayed below exp(-60) at the time from which the modes serve
 (:func:`~barrierflow.engine.exact.mode_time`: the shortest time from an interval's start to an
 output, unless a few are much shorter than the rest; at most :data:`MAX_MODES`) are computed, k x n,
-once per clamp pattern (up to :data:`PATTERNS` kept for the run): eigenvalues by bisection on Sturm
-counts (all of them in lockstep), eigenvectors
+once per clamp pattern (up to :data:`PATTERNS` kept for the run): eigenvalues by Sturm counts (all
+of them in lockstep, each count narrowing every bracket) and Newton's step on the characteristic
+polynomial once a bracket holds one eigenvalue, eigenvectors
 by inverse iteration with partial pivoting and re-orthogonalisation, and each eigenvalue
 polished as the Rayleigh quotient written as a sum of squares,
 ``-(sum_edges G (u_i - u_j)^2 + sum E u_i^2) / |x|^2``, which has no cancellation (Parlett,

@@ -46,6 +46,7 @@ not a literal 0 (which would compile the callee a second time).
 
 from __future__ import annotations
 
+import heapq
 import math
 from dataclasses import dataclass, field
 
@@ -236,16 +237,22 @@ def elimination_order(n: int, pairs: list[tuple[int, int]]) -> np.ndarray:
         if i != j:
             adj[i].add(j)
             adj[j].add(i)
-    left = set(range(n))
+    # a heap of (degree, index) with stale entries skipped: the least (degree, index) left each time
+    heap = [(len(adj[v]), v) for v in range(n)]
+    heapq.heapify(heap)
+    done = [False] * n
     order = []
-    while left:
-        v = min(left, key=lambda x: (len(adj[x]), x))
+    while heap:
+        d, v = heapq.heappop(heap)
+        if done[v] or d != len(adj[v]):
+            continue
+        done[v] = True
+        order.append(v)
         nb = adj[v]
         for a in nb:
             adj[a].discard(v)
             adj[a] |= nb - {a}
-        left.discard(v)
-        order.append(v)
+            heapq.heappush(heap, (len(adj[a]), a))
     return np.array(order, dtype=np.int64)
 
 

@@ -37,7 +37,7 @@ __all__ = ["COMMANDS", "build_parser", "main"]
 
 PROG = "barrierflow"
 
-INTEGRATOR_NAMES = ("auto", "exact", "rodas", "bdf", "radau", "lsoda")
+INTEGRATOR_NAMES = ("auto", "exact", "split", "rodas", "bdf", "radau", "lsoda")
 """The names of ``barrierflow.engine.INTEGRATORS`` (listed here so that --help needs no numba;
 a test holds the two equal)."""
 
@@ -116,7 +116,8 @@ def _add_run(p: argparse.ArgumentParser) -> None:
                         "(default: the scenario's file name with .csv, in the current folder)")
     p.add_argument("--integrator", metavar="NAME", default=None,
                    help=f"time integrator, one of {', '.join(INTEGRATOR_NAMES)} (default: auto, the exact "
-                        "solution for a linear network and the compiled RODAS4 integrator otherwise)")
+                        "solution for a linear network, the split path for a chain network with saturable "
+                        "elimination in one compartment, and the compiled RODAS4 integrator otherwise)")
     p.add_argument("--cells", metavar="N", type=_positive_int, default=None,
                    help="grid cells per layer for layers that do not set 'cells' "
                         "(a whole number; default: the engine's grid, refined toward interfaces)")

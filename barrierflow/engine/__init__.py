@@ -21,6 +21,7 @@ from .integrators import (
 from .population import Population, simulate_many, simulate_population
 from .rosenbrock import RosenbrockIntegrator
 from .schedule import Event, EventArrays, build_schedule
+from .split import SplitIntegrator
 from .solve import Trajectory, solve
 
 __all__ = [
@@ -41,6 +42,7 @@ __all__ = [
     "RunPlan",
     "RunStats",
     "ScipyIntegrator",
+    "SplitIntegrator",
     "Trajectory",
     "build_schedule",
     "compile_scenario",

@@ -502,7 +502,11 @@ class AutoIntegrator(Integrator):
       when its estimated cost (:func:`estimated_seconds`) is below RODAS4's: their cost grows
       with the cube of the states (a decomposition, or an exponential per step length) and with
       the square per output row, so only small networks take them;
-    * everything else (saturable elimination, larger networks, stars of many barriers): the
+    * a chain network with the saturable elimination of one compartment
+      (:func:`~barrierflow.engine.split.linear_part`) when its estimated cost is below RODAS4's:
+      the split path (the linear part exact, the slow modes by RODAS4), which computes the run
+      on RODAS4 itself when its conditions fail on the way;
+    * everything else (other saturable elimination, larger networks, stars of many barriers): the
       compiled RODAS4 integrator, O(n) per step.
 
     Parameters
@@ -526,10 +530,16 @@ class AutoIntegrator(Integrator):
         intervals (500 and 1 when not given)."""
         from .exact import ExactIntegrator, exact_plan, exact_supported
         from .rosenbrock import RosenbrockIntegrator
+        from .split import SplitIntegrator, linear_part
 
         if model.vehicle_terms:
             return VEHICLE
         rodas = RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
+        if linear_part(model) is not None:
+            n_rows, n_int = rows or 500, intervals or 1
+            if estimated_seconds("split", model, n_rows, n_int) < estimated_seconds("rodas", model, n_rows, n_int):
+                return SplitIntegrator(rtol=self.rtol, atol=self.atol)
+            return rodas
         if exact_supported(model, longest):
             exact = ExactIntegrator()
             if exact.working_memory(model) <= EXACT_MEMORY:
@@ -565,6 +575,8 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
     """A rough estimate of the seconds a path takes for ``model``, to choose between paths.
 
     ``path`` is ``"rodas"`` (per step and state, and per output row and state: O(n) each),
+    ``"split"`` (the slow modes of the chain once, O(k^2 n), steps on k modes, O(k) each, a few
+    rational evaluations after each event, O(n), and per output row O(k n)),
     ``"modes"`` (a dense symmetric decomposition, O(n^3), and every mode at every row, O(n^2)) or
     ``"expm"`` (about three exponentials of the augmented matrix per interval, O(n^3) each, and a
     product per row, O(n^2)), with what each costs per dosing interval in Python. The constants
@@ -574,6 +586,8 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
     n, nd = model.n_state, model.n_dyn
     if path == "rodas":
         return 3e-4 + n * (RODAS_STEPS * intervals * 7e-8 + rows * 5e-9)
+    if path == "split":
+        return 3e-4 + 1.5e-4 * intervals + n * (rows * 4e-9 + 2e-6)
     if path == "modes":
         return 1.5e-4 * intervals + 1.4e-9 * nd ** 3 + 1e-9 * rows * nd * min(nd, 40)
     if path == "expm":
@@ -619,10 +633,17 @@ def _exact(**kw) -> Integrator:
     return ExactIntegrator(**kw)
 
 
+def _split(**kw) -> Integrator:
+    from .split import SplitIntegrator
+
+    return SplitIntegrator(**kw)
+
+
 INTEGRATORS: dict[str, Callable[..., Integrator]] = {
     "auto": lambda **kw: AutoIntegrator(**kw),
     "rodas": _rodas,
     "exact": _exact,
+    "split": _split,
     "bdf": lambda **kw: ScipyIntegrator("BDF", **kw),
     "radau": lambda **kw: ScipyIntegrator("Radau", **kw),
     "lsoda": lambda **kw: ScipyIntegrator("LSODA", **kw),

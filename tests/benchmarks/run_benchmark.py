@@ -1164,7 +1164,7 @@ def main(argv: list[str] | None = None) -> int:
     with tempfile.TemporaryDirectory() as d:
         tmp = Path(d)
         for v in variants:
-            paths = (["default", "rodas", "bdf"] if v.saturable else ["default"] if v.extra_times
+            paths = (["default", "split", "rodas", "bdf"] if v.saturable else ["default"] if v.extra_times
                      else ["default", "exact", "rodas", "bdf"])
             rows += run_variant(v, paths, args.quick, tmp)
         for label, nb, cells, transfer, paths in stars:

@@ -1,0 +1,1079 @@
+"""Saturable elimination on a chain network: the linear part exact, only the slow modes integrated.
+
+A network that would be a chain (:mod:`barrierflow.engine.exact_chain`) but for the saturable
+(Michaelis-Menten) elimination of one compartment ``c`` is linear in every state but that
+compartment's concentration. In the symmetrised free states x of the chain (``x' = T x + tg``,
+see :mod:`barrierflow.engine.exact_chain`) the elimination enters as one column::
+
+    x' = T x + tg + beta u(c),   u(c) = -vmax c / ((km + |c|) V_c),   beta = sqrt(V_c / K_c) e_c
+
+Between two events the state is split, y = y_lin + z:
+
+* ``y_lin``: the exact solution of the linear network (the elimination left out) from the state
+  after the event minus z(0), by the chain path's slow modes, the decayed modes' constants
+  through solves with T, and the rational approximation of the exponential before the modes
+  serve (the chain path's own pieces);
+* ``z = V_S a + s_F u(c)``: the slow modes of T (|lambda| <= :data:`CUT_SLOW`) carry amplitudes
+  ``a' = Lambda_S a + V_S^T beta u(c)``, integrated by RODAS4 (Hairer and Wanner, *Solving
+  Ordinary Differential Equations II*, 2nd ed., 1996, sec. IV.7; the coefficients of
+  :mod:`barrierflow.engine.rosenbrock` in their non-autonomous form: the stage times and the
+  d_i of their code RODAS); the fast modes by their static response ``s_F u(c)``, s_F = -P T^+ P
+  beta with P the projection on the fast modes (modal truncation with a static correction; common
+  practice in structural dynamics, from memory: Craig and Kurdila, *Fundamentals of Structural
+  Dynamics*, 2nd ed., 2006, ch. 11);
+* ``c = c_lin(t) + (V_S a)_c + s_f u(c)``: one scalar equation, increasing in c (s_f >= 0,
+  u' <= 0), solved by Newton;
+* the cumulative amounts: the linear ones of z through the integrals of a and of u (two more
+  quadratures in the integrated system), the eliminated amount -V_c int u.
+
+At every event the split is made again (a = 0, the static part from the concentration after the
+event): z(0) = s_F u(c(0)), y_lin(0) = y(0) - z(0), so the fast modes start in step with the
+elimination and y_lin carries their decay after the jump.
+
+The integrated system (a, its integral, the integral of u) has a Jacobian diag(Lambda_S) plus a
+rank-one term: each stage is solved in O(k) (Sherman and Morrison). The error of a step is
+measured as the product's RODAS4 measures it: the embedded estimate mapped onto every state
+(the slow modes' patterns, the static part's response, the cumulative amounts), the larger of the
+root mean square over all states and the largest over the compartments of error / (atol + rtol
+max(|y(t)|, |y(t + h)|)). What the static correction leaves out is bounded: each fast mode's lag
+e_s obeys e_s' = lambda_s e_s + beta_s u'(t) / lambda_s from e_s(0) = 0, so every free state's
+error is at most max|du/dt| |P T^+ P T^+ P beta| / sqrt(V/K) (Cauchy-Schwarz over the fast
+modes); with du/dt taken at every stage point, a run in which that bound exceeds
+:data:`STATIC_SHARE` of a state's absolute tolerance stops, and the integrator computes it on
+RODAS4 over all states instead. So does a run whose Newton iteration fails, whose saturable
+compartment is clamped, or whose modes fail their check.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numba import njit
+
+from ..errors import ScenarioError
+from .arrays import INNER, working_copy
+from .compiled import CompiledModel
+from .exact_chain import (
+    MAX_MODES,
+    RATIONAL_CONSTANT,
+    RATIONAL_POLES,
+    RATIONAL_RESIDUES,
+    _build,
+    _count_slow,
+    _phi1,
+    _phi2,
+    _project_fast,
+    _rational_row,
+    _slow_modes,
+    chain_order,
+)
+from .exported import Rows, empty_taps, new_buffers, take_row, taps_of
+from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
+from .kernels import jacobian_kernel, jacobian_size, rates_kernel, saturable_rate, saturable_slope
+from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator
+from .schedule import apply_events, new_event_state, rows_until
+
+__all__ = ["CUT_SLOW", "STATIC_SHARE", "SplitIntegrator", "linear_part", "split_schedule"]
+
+CUT_SLOW = 100.0
+"""1/h: the modes of the chain no faster than this are integrated (the slow modes), and so are
+all the modes the chain path would compute for the output times (up to
+:data:`~barrierflow.engine.exact_chain.MAX_MODES`); the faster ones follow the elimination by
+their static response."""
+
+STATIC_SHARE = 0.1
+"""A run stops (and goes to RODAS4 over all states) when the bound of what the static correction
+leaves out exceeds this share of any free state's absolute tolerance."""
+
+# the stage times c_i and the sums gamma_i of RODAS (Hairer and Wanner 1996, their code RODAS,
+# METH = 1): the non-autonomous terms of the stages
+STAGE_TIME = np.array([0.0, 0.386, 0.21, 0.63, 1.0, 1.0])
+STAGE_GAMMA = np.array([0.25, -0.1043, 0.1035, -0.0362, 0.0, 0.0])
+
+# status codes of the compiled run (0: done)
+OK, FAIL_STEP, FAIL_MODES, FAIL_NEWTON, FAIL_STATIC, FAIL_CLAMPED, FAIL_NONFINITE, FAIL_MAXSTEPS = range(8)
+_FAILURES = {
+    FAIL_STEP: "the step size became too small",
+    FAIL_MODES: "the chain's modes failed their check",
+    FAIL_NEWTON: "the concentration under saturable elimination could not be solved for",
+    FAIL_STATIC: "the static response of the fast modes was not accurate enough",
+    FAIL_CLAMPED: "the compartment with saturable elimination is held",
+    FAIL_NONFINITE: "the solution became non-finite",
+    FAIL_MAXSTEPS: "the step limit was reached",
+}
+
+
+def linear_part(model: CompiledModel) -> CompiledModel | None:
+    """``model`` without its saturable elimination, when the split applies: exactly one
+    compartment with saturable elimination, not held, no vehicle terms, and the rest a chain
+    network (:func:`~barrierflow.engine.exact_chain.chain_order`) of at most
+    :data:`~barrierflow.engine.exact.CHAIN_STATES` states. None otherwise."""
+    memo = model.__dict__.get("_linear_part", False)  # the model is immutable: decide once
+    if memo is not False:
+        return memo
+    out = None
+    if not model.vehicle_terms and len(model.mm_state) == 1 and not model.held[int(model.mm_state[0])]:
+        from .exact import CHAIN_STATES
+
+        empty = np.zeros(0)
+        lin = model.with_arrays(model.arrays._replace(mm_state=np.zeros(0, dtype=np.int64), mm_vmax=empty,
+                                                      mm_km=empty.copy()))
+        order = chain_order(lin)
+        if order is not None and 0 < len(order) <= CHAIN_STATES:
+            out = lin
+    model.__dict__["_linear_part"] = out
+    return out
+
+
+# ---------------------------------------------------------------- the scalar concentration
+@njit(inline="always", error_model="numpy")
+def _conc(b, s_f, vmax, km, icap):
+    """The root c of c = b + s_f u(c) (u = -saturable_rate / V); returns (c, ok)."""
+    c = b
+    for _it in range(60):
+        u = -saturable_rate(vmax, km, c) * icap
+        du = -saturable_slope(vmax, km, c) * icap
+        dc = (c - b - s_f * u) / (1.0 - s_f * du)
+        c -= dc
+        if abs(dc) <= 1e-15 * (abs(c) + km) or not math.isfinite(c):
+            return c, math.isfinite(c)
+    return c, False
+
+
+# ---------------------------------------------------------------- the linear part
+@njit(inline="always", error_model="numpy")
+def _rational_central(dd, ee, n, t, x0, tg, r0, has_g, pc, poles, residues, c0, wk):
+    """x(t) and dx/dt at position ``pc`` of the chain, by the rational approximation of the
+    exponential of :func:`~barrierflow.engine.exact_chain._rational_row` (x(t) = exp(tT) x0 +
+    t phi1(tT) tg, dx/dt = exp(tT) r0 with r0 = T x0 + tg), computing only what that position
+    needs: per pole, the elimination of T - p/t from the chain's first position to its last and
+    the back substitution down to ``pc``. No pivoting: the imaginary part of every pivot is at
+    least Im(p)/t in size (each is -Im(p)/t minus e^2 Im(1/previous pivot), of the same sign), so
+    none vanishes. The poles run side by side in vector lanes, in real arithmetic; ``wk`` is work
+    space (8, n, number of poles).
+    """
+    kp = poles.shape[0]
+    sr = np.empty(kp)
+    si = np.empty(kp)
+    for k in range(kp):
+        sg = poles[k] / t
+        sr[k] = sg.real
+        si[k] = sg.imag
+    pr = wk[0]
+    pq = wk[1]
+    ar = wk[2]
+    ai = wk[3]
+    br = wk[4]
+    bi = wk[5]
+    cr = wk[6]
+    ci = wk[7]
+    p0r = pr[0]
+    p0i = pq[0]
+    a0r = ar[0]
+    a0i = ai[0]
+    b0r = br[0]
+    b0i = bi[0]
+    c0r = cr[0]
+    c0i = ci[0]
+    for k in range(kp):
+        p0r[k] = dd[0] - sr[k]
+        p0i[k] = -si[k]
+        a0r[k] = x0[0]
+        a0i[k] = 0.0
+        b0r[k] = tg[0]
+        b0i[k] = 0.0
+        c0r[k] = r0[0]
+        c0i[k] = 0.0
+    for i in range(1, n):
+        e = ee[i - 1]
+        d = dd[i]
+        xv = x0[i]
+        gv = tg[i]
+        rv = r0[i]
+        qpr = pr[i - 1]
+        qpi = pq[i - 1]
+        qar = ar[i - 1]
+        qai = ai[i - 1]
+        qbr = br[i - 1]
+        qbi = bi[i - 1]
+        qcr = cr[i - 1]
+        qci = ci[i - 1]
+        npr = pr[i]
+        npi = pq[i]
+        nar = ar[i]
+        nai = ai[i]
+        nbr = br[i]
+        nbi = bi[i]
+        ncr = cr[i]
+        nci = ci[i]
+        for k in range(kp):
+            u = qpr[k]
+            v = qpi[k]
+            q = e / (u * u + v * v)
+            mr = q * u  # the multiplier e / pivot
+            mi = -q * v
+            npr[k] = d - sr[k] - mr * e
+            npi[k] = -si[k] - mi * e
+            nar[k] = xv - (mr * qar[k] - mi * qai[k])
+            nai[k] = -(mr * qai[k] + mi * qar[k])
+            nbr[k] = gv - (mr * qbr[k] - mi * qbi[k])
+            nbi[k] = -(mr * qbi[k] + mi * qbr[k])
+            ncr[k] = rv - (mr * qcr[k] - mi * qci[k])
+            nci[k] = -(mr * qci[k] + mi * qcr[k])
+    xs = c0 * x0[pc]
+    dx = c0 * r0[pc]
+    for k in range(kp):
+        w1 = complex(ar[n - 1, k], ai[n - 1, k]) / complex(pr[n - 1, k], pq[n - 1, k])
+        w2 = complex(br[n - 1, k], bi[n - 1, k]) / complex(pr[n - 1, k], pq[n - 1, k])
+        w3 = complex(cr[n - 1, k], ci[n - 1, k]) / complex(pr[n - 1, k], pq[n - 1, k])
+        for i in range(n - 2, pc - 1, -1):
+            pv = complex(pr[i, k], pq[i, k])
+            w1 = (complex(ar[i, k], ai[i, k]) - ee[i] * w1) / pv
+            w2 = (complex(br[i, k], bi[i, k]) - ee[i] * w2) / pv
+            w3 = (complex(cr[i, k], ci[i, k]) - ee[i] * w3) / pv
+        rk = residues[k]
+        ce = 2.0 * rk / t
+        xs += (ce * w1).real
+        dx += (ce * w3).real
+        if has_g:
+            xs += (2.0 * rk / poles[k] * w2).real
+    return xs, dx
+
+
+@njit(inline="always", error_model="numpy")
+def _central(t, t_thr, k_all, lam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc, tvc, cw):
+    """c_lin(t) and its time derivative (the linear solution at the saturable compartment)."""
+    if t <= 0.0:
+        return x0[pc] / tvc, r0[pc] / tvc
+    if t < t_thr:
+        xc, dx = _rational_central(dd, ee, n, t, x0, tg, r0, has_g, pc, RATIONAL_POLES, RATIONAL_RESIDUES,
+                                   RATIONAL_CONSTANT, cw)
+        return xc / tvc, dx / tvc
+    c = cfast
+    dc = 0.0
+    s = 0
+    while s < k_all:
+        el = lam[s]
+        x = el * t
+        if x < -60.0:
+            break  # decayed, and so are the faster ones: their forcing constants in csum
+        ex = math.exp(x)
+        p1 = (ex - 1.0) / el if abs(x) > 0.5 else t * _phi1(x)
+        c += vyc[s] * (ex * z0[s] + p1 * gz[s])
+        dc += vyc[s] * ex * (el * z0[s] + gz[s])
+        s += 1
+    if s < k_all:
+        c += csum[s]
+    return c, dc
+
+
+@njit(inline="always", error_model="numpy")
+def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
+    """The full state at local time ``t`` into ``dst`` from the amplitudes ``wa`` of the slow
+    modes, their integrals ``wb`` and the integral ``wu`` of u; ``out_c[0]`` gets the saturable
+    compartment's concentration. Returns False when its Newton iteration fails."""
+    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
+     fixed, n_fixed, nq, qr, qc, qv) = L
+    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
+    nqd = dst.shape[0] - nd
+    if t > 0.0 and t < t_thr:
+        _rational_row(dd, ee, n, t, x0, tg, has_g, RATIONAL_POLES, RATIONAL_RESIDUES, RATIONAL_CONSTANT, xs, xi, cw)
+        for a in range(n):
+            v = xs[a] / tv[a]
+            for s in range(kz):
+                v += vy[s, a] * wa[s]
+            ys[a] = v
+        for q in range(nqd):
+            qs[q] = 0.0
+        for j in range(nq):
+            a = qc[j]
+            if a >= 0:
+                qs[qr[j] - nd] += qv[j] * (xi[a] / tv[a])
+        for q in range(nqd):
+            acc = qs[q]
+            for s in range(kz):
+                acc += wt[s, q] * wb[s]
+            qs[q] = acc
+    elif t <= 0.0:
+        for a in range(n):
+            v = x0[a] / tv[a]
+            for s in range(kz):
+                v += vy[s, a] * wa[s]
+            ys[a] = v
+        for q in range(nqd):
+            acc = 0.0
+            for s in range(kz):
+                acc += wt[s, q] * wb[s]
+            qs[q] = acc
+    else:
+        for s in range(k_all):
+            el = lam[s]
+            x = el * t
+            ex = math.exp(x) if x > -700.0 else 0.0
+            p1 = (ex - 1.0) / el if abs(x) > 0.5 else t * _phi1(x)
+            zs[s] = ex * z0[s]
+            zi[s] = p1 * z0[s]
+            if has_g:
+                zs[s] += p1 * gz[s]
+                zi[s] += t * t * _phi2(x) * gz[s]
+            if s < kz:
+                zs[s] += wa[s]
+                zi[s] += wb[s]
+        # the modes decayed below exp(-60) add nothing to the states (without forcing), nor do
+        # the slow ones beyond those integrated
+        kb = k_all
+        if not has_g:
+            kb = kz
+            while kb < k_all and lam[kb] * t > -60.0:
+                kb += 1
+        for a in range(n):
+            ys[a] = yfast[a]
+        for s in range(kb):
+            z = zs[s]
+            v = vy[s]
+            for a in range(n):
+                ys[a] += v[a] * z
+        for q in range(nqd):
+            acc = qconst[q] + qslope[q] * t
+            for s in range(k_all):
+                acc += wt[s, q] * zi[s]
+            qs[q] = acc
+    c, ok = _conc(ys[pc], s_f, vmax, km, icap)
+    out_c[0] = c
+    u = -saturable_rate(vmax, km, c) * icap
+    for q in range(n_fixed):
+        dst[fixed[q]] = y0[fixed[q]]
+    for a in range(n):
+        ia = idx[a]
+        dst[ia] = y0[ia] + g[ia] * t if alone[a] else ys[a] + sfy[a] * u
+    for q in range(nqd):
+        dst[nd + q] = y0[nd + q] + g[nd + q] * t + qs[q] + uq[q] * wu
+    return ok
+
+
+# ---------------------------------------------------------------- the slow modes' system
+@njit(inline="always", error_model="numpy")
+def _rates(t, wa, kz, fa, L, P, R):
+    """The rates of the integrated system at local time ``t``: fa (the amplitudes' rates) in place;
+    returns (u, du/dc / (1 - s_f du/dc), dc_lin/dt, ok)."""
+    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
+     fixed, n_fixed, nq, qr, qc, qv) = L
+    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
+    (beta, vyc, csum, cfast, tvc, r0, cw4, t_lim) = R
+    cl, dcl = _central(t, t_lim, k_all, lam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc, tvc, cw4)
+    b = cl
+    for s in range(kz):
+        b += vyc[s] * wa[s]
+    c, ok = _conc(b, s_f, vmax, km, icap)
+    u = -saturable_rate(vmax, km, c) * icap
+    du = -saturable_slope(vmax, km, c) * icap
+    gam = du / (1.0 - s_f * du)
+    for s in range(kz):
+        fa[s] = lam[s] * wa[s] + beta[s] * u
+    return u, gam, dcl, ok
+
+
+@njit(inline="always", error_model="numpy")
+def _lin_solve(fac, kz, lam, beta, vyc, gam, ra, rb, ru, ka, kb):
+    """Solve (fac I - J) k = r for the integrated system (J: diag(lam) + beta gam vyc^T on the
+    amplitudes, the identity into their integrals, gam vyc^T into the integral of u) by Sherman and
+    Morrison; returns the component of the integral of u."""
+    num = 0.0
+    den = 1.0
+    for s in range(kz):
+        d = fac - lam[s]
+        num += vyc[s] * ra[s] / d
+        den -= gam * vyc[s] * beta[s] / d
+    sig = num / den  # vyc . ka
+    for s in range(kz):
+        ka[s] = (ra[s] + beta[s] * gam * sig) / (fac - lam[s])
+        kb[s] = (rb[s] + ka[s]) / fac
+    return (ru + gam * sig) / fac
+
+
+@njit(inline="always", error_model="numpy")
+def _norm(dst_old, dst_new, ka, kb, ku, kz, gam, L, P, atol, rtol, nc, err_state):
+    """The product's RODAS4 error measure of the step estimate (ka, kb, ku) mapped onto every state."""
+    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
+     fixed, n_fixed, nq, qr, qc, qv) = L
+    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
+    n_state = dst_old.shape[0]
+    for i in range(n_state):
+        err_state[i] = 0.0
+    sig = 0.0
+    for s in range(kz):
+        sig += vy[s, pc] * ka[s]
+    du = gam * sig  # the static part's response: u' dc, dc = vyc . ka / (1 - s_f u')
+    for a in range(n):
+        if alone[a]:
+            continue
+        v = sfy[a] * du
+        for s in range(kz):
+            v += vy[s, a] * ka[s]
+        err_state[idx[a]] = v
+    nqd = n_state - nd
+    for q in range(nqd):
+        v = uq[q] * ku
+        for s in range(kz):
+            v += wt[s, q] * kb[s]
+        err_state[nd + q] = v
+    acc = 0.0
+    for i in range(n_state):
+        qv_ = err_state[i] / (atol[i] + rtol * max(abs(dst_old[i]), abs(dst_new[i])))
+        acc += qv_ * qv_
+    err = math.sqrt(acc / n_state)
+    for i in range(nc):
+        err = max(err, abs(err_state[i]) / (atol[i] + rtol * max(abs(dst_old[i]), abs(dst_new[i]))))
+    return err
+
+
+@njit(**INNER)
+def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol, atol, nc, h, max_steps, stats,
+              static_w, info, g, carry):
+    """RODAS4 on the slow modes from local time 0 to ``t_end``; rows at ``tau`` kept (as the chain
+    path keeps them), the state at ``t_end`` into ``y``. The amplitudes start from ``carry`` and
+    end there. Returns (status, the next step size)."""
+    nd = P[7]
+    n_state = y.shape[0]
+    ca, cc, cd = coef
+    n_t = tau.shape[0]
+    y0 = y.copy()
+    nw = max(kz, 1)
+    wa = np.zeros(nw)
+    for i in range(kz):
+        wa[i] = carry[i]
+    wb = np.zeros(nw)
+    wu = 0.0
+    kka = np.zeros((6, nw))
+    kkb = np.zeros((6, nw))
+    kku = np.zeros(6)
+    ya = np.zeros(nw)
+    yb = np.zeros(nw)
+    fa = np.zeros(nw)
+    fa0 = np.zeros(nw)
+    na = np.zeros(nw)
+    nb = np.zeros(nw)
+    ra = np.zeros(nw)
+    rb = np.zeros(nw)
+    c2a = np.zeros(nw)
+    c3a = np.zeros(nw)
+    c2b = np.zeros(nw)
+    c3b = np.zeros(nw)
+    cur = np.zeros(n_state)
+    new = np.zeros(n_state)
+    err_state = np.zeros(n_state)
+    row = out[0] if out.shape[0] > 0 else cur
+    cbuf = np.zeros(1)
+    lam = L[5]
+    beta = R[0]
+    vyc = R[1]
+    io = 0
+    while io < n_t and tau[io] <= 0.0:
+        dst = out[io] if full else row
+        for i in range(n_state):
+            dst[i] = y0[i]
+        take_row(dst, row0 + io, taps, cap, nd)
+        io += 1
+    if not _state(0.0, wa, wb, wu, kz, cur, y0, g, L, P, cbuf):
+        return FAIL_NEWTON, h
+    t = 0.0
+    h_min = 1e-14 * t_end
+    h = min(h, t_end)
+    h_acc = 0.0
+    err_acc = 0.0
+    reject = False
+    n_steps = 0
+    h_carry = h
+    lag = 0.0  # the bound of the fast modes' lag behind their static response (x units)
+    while t < t_end:
+        if n_steps >= max_steps:
+            return FAIL_MAXSTEPS, h
+        if h < h_min:
+            return FAIL_STEP, h
+        last = False
+        h_carry = h  # the next interval starts from the step the controller proposed, not a last
+        if t + 1.0001 * h >= t_end:  # step cut short at the interval's end
+            h = t_end - t
+            last = True
+        u0, gam0, dcl0, ok = _rates(t, wa, kz, fa0, L, P, R)
+        if not ok:
+            return FAIL_NEWTON, h
+        # the time derivative of the rates (the linear solution moves c): non-autonomous RODAS4
+        ft = gam0 * dcl0
+        umax = 0.0
+        while True:
+            fac = 1.0 / (h * GAMMA)
+            ih = 1.0 / h
+            for st in range(6):
+                ts = t + STAGE_TIME[st] * h
+                for s in range(kz):
+                    va = wa[s]
+                    for j in range(st):
+                        va += ca[st, j] * kka[j, s]
+                    ya[s] = va
+                if st == 0:
+                    for s in range(kz):
+                        fa[s] = fa0[s]
+                    u_s = u0
+                    gam_s = gam0
+                    dcl_s = dcl0
+                else:
+                    u_s, gam_s, dcl_s, ok = _rates(ts, ya, kz, fa, L, P, R)
+                    if not ok:
+                        return FAIL_NEWTON, h
+                # du/dt at the stage point: u' dc/dt, dc/dt = (dc_lin/dt + vyc . a') / (1 - s_f u')
+                dsum = dcl_s
+                for s in range(kz):
+                    dsum += vyc[s] * fa[s]
+                umax = max(umax, abs(gam_s * dsum))
+                hd = h * STAGE_GAMMA[st]
+                ru = u_s + hd * ft
+                for s in range(kz):
+                    vb = ya[s]  # the integral's rate is the stage's amplitude
+                    va = fa[s] + hd * beta[s] * ft
+                    for j in range(st):
+                        cj = cc[st, j] * ih
+                        va += cj * kka[j, s]
+                        vb += cj * kkb[j, s]
+                    ra[s] = va
+                    rb[s] = vb
+                for j in range(st):
+                    ru += cc[st, j] * ih * kku[j]
+                kku[st] = _lin_solve(fac, kz, lam, beta, vyc, gam0, ra, rb, ru, kka[st], kkb[st])
+            # the new solution: the last stage's point plus k_6 (RODAS4 is stiffly accurate)
+            for s in range(kz):
+                va = wa[s]
+                vb = wb[s]
+                for j in range(5):
+                    va += ca[5, j] * kka[j, s]
+                    vb += ca[5, j] * kkb[j, s]
+                na[s] = va + kka[5, s]
+                nb[s] = vb + kkb[5, s]
+            nu = wu
+            for j in range(5):
+                nu += ca[5, j] * kku[j]
+            nu += kku[5]
+            t_new = t_end if last else t + h
+            ok = _state(t_new, na, nb, nu, kz, new, y0, g, L, P, cbuf)
+            err = _norm(cur, new, kka[5], kkb[5], kku[5], kz, gam0, L, P, atol, rtol, nc, err_state) if ok else np.inf
+            if not math.isfinite(err):
+                h *= 0.25
+                last = False
+                reject = True
+                stats[1] += 1
+                if h < h_min:
+                    return FAIL_NONFINITE, h
+                continue
+            fac_h = max(1.0 / 6.0, min(5.0, err ** 0.25 / 0.9))
+            h_new = h / fac_h
+            if err <= 1.0:
+                if h_acc > 0.0:  # predictive controller of Gustafsson (as in RODAS)
+                    fg = max(1.0 / 6.0, min(5.0, h_acc / h * (err * err / err_acc) ** 0.25 / 0.9))
+                    fac_h = max(fac_h, fg)
+                    h_new = h / fac_h
+                h_acc = h
+                err_acc = max(1e-2, err)
+                break
+            reject = True
+            last = False
+            stats[1] += 1
+            h = h_new
+            if h < h_min:
+                return FAIL_STEP, h
+        # what the static correction leaves out: each fast mode's lag e_s obeys e_s' = lam_s e_s +
+        # beta_s u'(t) / lam_s, so over the step |e_s| shrinks by exp(lam_s h) <= exp(cut h) and
+        # gains at most |beta_s / lam_s| max|du/dt| min(h, 1 / |lam_s|); the 2-norm over the fast
+        # modes bounds every free state (Cauchy-Schwarz), against its absolute tolerance
+        lag = math.exp(static_w[3] * (t_new - t)) * lag + umax * min((t_new - t) * static_w[0], static_w[1])
+        info[0] = max(info[0], lag * static_w[2])
+        if lag * static_w[2] > STATIC_SHARE:
+            return FAIL_STATIC, h
+        if io < n_t and tau[io] <= t_new:
+            for s in range(kz):
+                a2 = 0.0
+                a3 = 0.0
+                b2 = 0.0
+                b3 = 0.0
+                for j in range(5):
+                    a2 += cd[0, j] * kka[j, s]
+                    a3 += cd[1, j] * kka[j, s]
+                    b2 += cd[0, j] * kkb[j, s]
+                    b3 += cd[1, j] * kkb[j, s]
+                c2a[s] = a2
+                c3a[s] = a3
+                c2b[s] = b2
+                c3b[s] = b3
+            u2 = 0.0
+            u3 = 0.0
+            for j in range(5):
+                u2 += cd[0, j] * kku[j]
+                u3 += cd[1, j] * kku[j]
+            while io < n_t and tau[io] <= t_new:
+                dst = out[io] if full else row
+                sx = (tau[io] - t) / h
+                if sx >= 1.0:
+                    for i in range(n_state):
+                        dst[i] = new[i]
+                else:
+                    s1 = 1.0 - sx
+                    for s in range(kz):
+                        ya[s] = wa[s] + sx * ((na[s] - wa[s]) + s1 * (c2a[s] + sx * c3a[s]))
+                        yb[s] = wb[s] + sx * ((nb[s] - wb[s]) + s1 * (c2b[s] + sx * c3b[s]))
+                    uo = wu + sx * ((nu - wu) + s1 * (u2 + sx * u3))
+                    if not _state(tau[io], ya, yb, uo, kz, dst, y0, g, L, P, cbuf):
+                        return FAIL_NEWTON, h
+                take_row(dst, row0 + io, taps, cap, nd)
+                io += 1
+        for s in range(kz):
+            wa[s] = na[s]
+            wb[s] = nb[s]
+        wu = nu
+        for i in range(n_state):
+            cur[i] = new[i]
+        t = t_new
+        n_steps += 1
+        stats[0] += 1
+        stats[2] += 6
+        if reject:
+            h_new = min(h_new, h)
+        reject = False
+        h_carry = h_new if not last else max(h_new, h_carry)
+        h = h_new
+    for i in range(n_state):
+        y[i] = cur[i]
+    for i in range(kz):
+        carry[i] = wa[i]
+    return OK, h_carry
+
+
+# ---------------------------------------------------------------- the whole regimen
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full,
+                   taps, ic, vmax, km, coef, rtol, atol, max_steps, info):
+    """Run the regimen of a chain network with the saturable elimination of compartment ``ic``
+    (``vmax`` mg/h, ``km`` mg/mL) by the split of the module docstring; returns a status code (0
+    when done) and fills the rows as :func:`~barrierflow.engine.exact_chain.chain_schedule` does.
+
+    ``m`` and ``base`` are the arrays of the network without the saturable elimination (``m`` the
+    run's working copy, which the events change), ``cut`` (1/h, < 0) the chain path's cut of its
+    modes (:func:`~barrierflow.engine.exact.mode_time`), ``info[0]`` gets the largest ratio of the
+    static correction's bound to the absolute tolerances met.
+    """
+    nc = m.n_comp
+    nd = m.n_dyn
+    n_state = y.shape[0]
+    nqd = n_state - nd
+    n_ord = order.shape[0]
+    Lz = max(n_ord, 1)
+    idx = np.zeros(Lz, dtype=np.int64)
+    cmap = np.zeros(nd, dtype=np.int64)
+    msq = np.zeros(Lz)
+    tv = np.zeros(Lz)
+    dd = np.zeros(Lz)
+    ee = np.zeros(Lz)
+    gedge = np.zeros(Lz)
+    ediag = np.zeros(Lz)
+    comp_of = np.zeros(Lz, dtype=np.int64)
+    lam = np.zeros(Lz)
+    vec = np.zeros((1, Lz))
+    rows = np.zeros(n_jac, dtype=np.int64)
+    cols = np.zeros(n_jac, dtype=np.int64)
+    vals = np.zeros(n_jac)
+    qr = np.zeros(n_jac, dtype=np.int64)
+    qc = np.zeros(n_jac, dtype=np.int64)
+    qv = np.zeros(n_jac)
+    key_clamp = np.zeros(nc, dtype=np.bool_)
+    key_closed = np.zeros(nc, dtype=np.bool_)
+    have = False
+    n = np.int64(0)
+    k_all = np.int64(0)
+    kz = np.int64(0)
+    nq = np.int64(0)
+    t_thr = 0.0
+    cut_now = -CUT_SLOW
+    pc = np.int64(0)
+    s_f = 0.0
+    static_w = np.zeros(4)
+    sfy = np.zeros(Lz)
+    uq = np.zeros(nqd)
+    beta = np.zeros(1)
+    vy = np.zeros((1, Lz))
+    wt = np.zeros((1, nqd))
+    icap = 1.0 / m.capacity[ic]
+    carry = np.zeros(MAX_MODES + 1)
+    yz = np.zeros(n_state)
+    uz = np.zeros(nd)
+    g = np.zeros(n_state)
+    x0 = np.zeros(Lz)
+    tg = np.zeros(Lz)
+    px = np.zeros(Lz)
+    pg = np.zeros(Lz)
+    ppg = np.zeros(Lz)
+    e1 = np.zeros(Lz)
+    pe = np.zeros(Lz)
+    pe2 = np.zeros(Lz)
+    yfast = np.zeros(Lz)
+    qconst = np.zeros(nqd)
+    qslope = np.zeros(nqd)
+    qsum = np.zeros(nqd)
+    xs = np.zeros(Lz)
+    xi = np.zeros(Lz)
+    cw = np.zeros((6, Lz), dtype=np.complex128)
+    cw4 = np.zeros((8, Lz, RATIONAL_POLES.shape[0]))
+    ys = np.zeros(Lz)
+    alone = np.zeros(Lz, dtype=np.bool_)
+    fixed = np.zeros(nd, dtype=np.int64)
+    n_fixed = np.int64(0)
+    infusion = s.infusion
+    clamp = s.clamp
+    closed = s.closed
+    dosed = s.dosed
+    removed = s.removed
+    n_marks = marks.shape[0]
+    n_t = times.shape[0]
+    row = np.int64(0)
+    ei = np.int64(0)
+    h = 1e-4 * (marks[1] - marks[0]) if n_marks > 1 else 1.0
+    for k in range(n_marks - 1):
+        t0 = marks[k]
+        t1 = marks[k + 1]
+        ei = apply_events(t0, ei, ev, m, base, y, s)
+        if clamp[ic]:
+            return FAIL_CLAMPED
+        same = have
+        for p in range(nc):
+            if clamp[p] != key_clamp[p] or closed[p] != key_closed[p]:
+                same = False
+        if not same:
+            for s_ in range(carry.shape[0]):
+                carry[s_] = 0.0  # new modes: the split starts with the slow part in y_lin
+            # the chain of this clamp pattern, its slow modes and the static response
+            n = _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
+            pc = cmap[ic]
+            cut_now = min(cut, -CUT_SLOW)
+            k_need = _count_slow(dd, ee, n, cut_now, comp_of)
+            if k_need > MAX_MODES:  # at most MAX_MODES: the cut moves up (bisection on the counts)
+                lo_c = cut_now
+                hi_c = 0.0
+                for _it in range(200):
+                    mid_c = 0.5 * (lo_c + hi_c)
+                    if _count_slow(dd, ee, n, mid_c, comp_of) > MAX_MODES:
+                        lo_c = mid_c
+                    else:
+                        hi_c = mid_c
+                    if hi_c - lo_c <= 1e-3 * abs(hi_c):
+                        break
+                cut_now = hi_c
+                k_need = _count_slow(dd, ee, n, cut_now, comp_of)
+            t_thr = -60.0 / cut_now
+            if k_need > vec.shape[0]:
+                vec = np.zeros((k_need, Lz))
+            k_all = _slow_modes(dd, ee, n, cut_now, gedge, ediag, msq, comp_of, lam, vec)
+            if k_all < 0:
+                return FAIL_MODES
+            kz = k_all  # every computed mode is integrated: the static part takes only the decayed ones
+            # the quadrature rates (rows of the cumulative amounts) acting on the chain's states
+            kj = jacobian_kernel(yz, rows, cols, vals, m, clamp)
+            nq = 0
+            for j in range(kj):
+                if rows[j] >= nd:
+                    qr[nq] = rows[j]
+                    qc[nq] = cmap[cols[j]] if cols[j] < nd else -1
+                    qv[nq] = vals[j]
+                    nq += 1
+            vy = np.zeros((max(k_all, 1), Lz))
+            for s_ in range(k_all):
+                for a in range(n):
+                    vy[s_, a] = vec[s_, a] / tv[a]
+            wt = np.zeros((max(k_all, 1), nqd))
+            for j in range(nq):
+                a = qc[j]
+                if a < 0:
+                    continue
+                for s_ in range(k_all):
+                    wt[s_, qr[j] - nd] += qv[j] * vy[s_, a]
+            # static response of the fast modes to u: s_F = -P T^+ P beta (beta = tv_c e_c)
+            for a in range(n):
+                e1[a] = 0.0
+            e1[pc] = 1.0
+            _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, kz, e1, pe)
+            _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, kz, pe, pe2)
+            for a in range(n):
+                sfy[a] = -pe[a] * tv[pc] / tv[a]
+            s_f = sfy[pc]
+            for q in range(nqd):
+                uq[q] = 0.0
+            for j in range(nq):
+                a = qc[j]
+                if a >= 0:
+                    uq[qr[j] - nd] += qv[j] * sfy[a]
+            uq[ic] -= m.capacity[ic]  # the eliminated amount: -V_c int u
+            beta = np.zeros(max(kz, 1))
+            for s_ in range(kz):
+                beta[s_] = vec[s_, pc] * tv[pc]
+            # the bound of the static correction's lag at each free state, per unit |du/dt|,
+            # against its absolute tolerance
+            w1 = 0.0
+            w2 = 0.0
+            for a in range(n):
+                w1 += pe[a] * pe[a]
+                w2 += pe2[a] * pe2[a]
+            static_w[0] = math.sqrt(w1) * tv[pc]
+            static_w[1] = math.sqrt(w2) * tv[pc]
+            static_w[2] = 0.0
+            for a in range(n):
+                static_w[2] = max(static_w[2], 1.0 / (tv[a] * atol[idx[a]]))
+            static_w[3] = cut_now
+            on_chain = np.zeros(nd, dtype=np.bool_)
+            for a in range(n):
+                on_chain[idx[a]] = True
+            n_fixed = 0
+            for q in range(nd):
+                if not on_chain[q]:
+                    fixed[n_fixed] = q
+                    n_fixed += 1
+            for a in range(n):
+                alone[a] = ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
+                    a == n - 1 or comp_of[a + 1] != comp_of[a])
+            for p in range(nc):
+                key_clamp[p] = clamp[p]
+                key_closed[p] = closed[p]
+            have = True
+            stats[3] += 1
+            stats[4] += 1
+        # forcing: the rates of the linear network with the free dynamic states at zero
+        for r in range(n_state):
+            yz[r] = 0.0
+        for p in range(nc):
+            if clamp[p]:
+                yz[p] = y[p]
+        rates_kernel(yz, g, m, infusion, clamp, uz)
+        for r in range(n_state):
+            yz[r] = 0.0
+        stats[2] += 1
+        # the split: z(0) = V_S a + s_F u(c(0)) with the slow amplitudes a carried over the event
+        # (the slow modes near the cut would otherwise start far from their response to u, and
+        # both parts would carry that transient), y_lin(0) = y(0) - z(0)
+        u0 = -saturable_rate(vmax, km, y[ic]) * icap
+        has_g = np.bool_(False)
+        for a in range(n):
+            v = 0.0
+            for s_ in range(kz):
+                v += vec[s_, a] * carry[s_]
+            x0[a] = tv[a] * (y[idx[a]] - sfy[a] * u0) - v
+            tg[a] = tv[a] * g[idx[a]]
+            if tg[a] != 0.0:
+                has_g = True
+        z0 = np.zeros(max(k_all, 1))
+        gz = np.zeros(max(k_all, 1))
+        for s_ in range(k_all):
+            a0 = 0.0
+            b0 = 0.0
+            for a in range(n):
+                a0 += vec[s_, a] * x0[a]
+                b0 += vec[s_, a] * tg[a]
+            z0[s_] = a0
+            gz[s_] = b0
+        # the modes not computed (decayed by t_thr): constants (states), constant and slope
+        # (cumulative amounts), through T^+ (as the chain path)
+        for a in range(n):
+            yfast[a] = 0.0
+        for q in range(nqd):
+            qconst[q] = 0.0
+            qslope[q] = 0.0
+        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, k_all, x0, px)
+        if has_g:
+            _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, k_all, tg, pg)
+            _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, k_all, pg, ppg)
+            for a in range(n):
+                yfast[a] = -pg[a] / tv[a]
+        for j in range(nq):
+            a = qc[j]
+            if a < 0:
+                continue
+            r = qr[j] - nd
+            w = qv[j] / tv[a]
+            if has_g:
+                qconst[r] -= w * (px[a] + ppg[a])
+                qslope[r] -= w * pg[a]
+            else:
+                qconst[r] -= w * px[a]
+        # the central row: the decayed modes' forcing constants, summed from the fastest
+        csum = np.zeros(max(k_all, 1) + 1)
+        vyc_all = np.zeros(max(k_all, 1))
+        for s_ in range(k_all):
+            vyc_all[s_] = vy[s_, pc]
+        for s_ in range(k_all - 1, -1, -1):
+            term = 0.0
+            if has_g and lam[s_] != 0.0:
+                term = vyc_all[s_] * (-gz[s_] / lam[s_])
+            csum[s_] = csum[s_ + 1] + term
+        P = (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, np.zeros(max(k_all, 1)),
+             np.zeros(max(k_all, 1)), np.zeros(nqd))
+        # r0 = T x0 + tg: the rate of the linear solution at the start (its derivative at the
+        # saturable compartment before the modes serve)
+        r0 = np.empty(max(n, 1))
+        for a in range(n):
+            v = dd[a] * x0[a] + tg[a]
+            if a > 0:
+                v += ee[a - 1] * x0[a - 1]
+            if a + 1 < n:
+                v += ee[a] * x0[a + 1]
+            r0[a] = v
+        # before t_thr the modes not computed have not decayed: the rational approximation serves
+        # there, unless their whole part at the saturable compartment, e_c^T exp(t T_F) (P_F x0 +
+        # P T^+ P tg) (the forcing's part measured from its steady value), is below a thousandth
+        # of its absolute tolerance: at most |P_F e_c| exp(cut t) |P_F x0 + P T^+ P tg|
+        # (Cauchy-Schwarz; every mode not computed is at or below the cut)
+        pf = 0.0
+        for a in range(n):
+            v = x0[a] + (pg[a] if has_g else 0.0)
+            for s_ in range(k_all):
+                v -= z0[s_] * vec[s_, a]
+            pf += v * v
+        pe_c = 1.0
+        for s_ in range(k_all):
+            pe_c -= vec[s_, pc] * vec[s_, pc]
+        bound0 = math.sqrt(max(pe_c, 0.0) + 1e-15) * math.sqrt(pf) / tv[pc]
+        target = 1e-3 * atol[ic]
+        t_lim = t_thr
+        if bound0 > target:
+            t_lim = min(t_thr, math.log(bound0 / target) / -cut_now)
+        else:
+            t_lim = 0.0
+        # the same for every state (the full states at step ends and rows): each free state's part
+        # is at most exp(cut t) |v| / sqrt(V/K), each cumulative amount's (the integral of the
+        # difference from its constant) exp(cut t) |v| / |cut| times the sum of its rates' weights
+        t_all = t_lim
+        vn = math.sqrt(pf)
+        for a in range(n):
+            b_a = vn / tv[a]
+            tgt = 1e-3 * atol[idx[a]]
+            if b_a > tgt:
+                t_all = max(t_all, math.log(b_a / tgt) / -cut_now)
+        for q in range(nqd):
+            qsum[q] = 0.0
+        for j in range(nq):
+            a = qc[j]
+            if a >= 0:
+                qsum[qr[j] - nd] += abs(qv[j]) / tv[a]
+        for q in range(nqd):
+            b_q = qsum[q] * vn / -cut_now
+            tgt = 1e-3 * atol[nd + q]
+            if b_q > tgt:
+                t_all = max(t_all, math.log(b_q / tgt) / -cut_now)
+        t_all = min(t_all, t_thr)
+        L = (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_all,
+             alone, fixed, n_fixed, nq, qr, qc, qv)
+        R = (beta, vyc_all, csum, yfast[pc], tv[pc], r0, cw4, t_lim)
+        sel_end = rows_until(times, row, t1, k == n_marks - 2)
+        m_out = sel_end - row
+        tau = np.empty(m_out)
+        for r in range(m_out):
+            tau[r] = times[row + r] - t0
+        status, h = _interval(y, t1 - t0, tau, states[row:sel_end] if full else states, full, taps, row,
+                              m.capacity, L, P, R, kz, coef, rtol, atol, nc, h, max_steps, stats, static_w, info, g,
+                              carry)
+        if status != OK:
+            return status
+        for r in range(m_out):
+            for p in range(nc):
+                ev_dosed[row + r, p] = dosed[p]
+                ev_removed[row + r, p] = removed[p]
+        row = sel_end
+        stats[5] += 1
+    if row < n_t:
+        return FAIL_STEP
+    return OK
+
+
+@dataclass(frozen=True)
+class SplitIntegrator(Integrator):
+    """The linear part exact, the slow modes by RODAS4: chain networks with the saturable
+    elimination of one compartment (see the module docstring).
+
+    A run whose conditions fail on the way (the bound of the static correction, the Newton
+    iteration of the saturable concentration, a hold on that compartment, the modes' check) is
+    computed on :class:`~barrierflow.engine.rosenbrock.RosenbrockIntegrator` at the same
+    tolerances instead, and its message says so.
+
+    Parameters
+    ----------
+    rtol, atol : float
+        As :class:`~barrierflow.engine.rosenbrock.RosenbrockIntegrator` (3e-6 and 3e-9 of each
+        state's magnitude scale), applied to every state.
+    max_steps : int
+        Largest number of steps in one dosing interval (default 1,000,000).
+    """
+
+    rtol: float = 3e-6
+    atol: float = 3e-9
+    max_steps: int = 1_000_000
+    name: str = field(init=False, default="split")
+
+    def __post_init__(self) -> None:
+        check_tolerances(self.rtol, self.atol)
+        if not (isinstance(self.max_steps, int) and self.max_steps >= 1):
+            raise ScenarioError.single("integrator max_steps", self.max_steps, "must be a whole number >= 1")
+
+    def working_memory(self, model: CompiledModel) -> int:
+        """Bytes of working arrays: the chain's slow modes (k x n) and O(n) vectors."""
+        n = model.n_state
+        return 8 * (2 * MAX_MODES + 60) * n + 8 * 12 * len(model.link_p)
+
+    def run(self, plan: RunPlan) -> Integration:
+        """Run the whole regimen (:func:`split_schedule`).
+
+        Raises
+        ------
+        ScenarioError
+            For a model the split does not apply to (:func:`linear_part`).
+        """
+        from .exact import _FAST, mode_time
+
+        model = plan.model
+        refuse_vehicle_terms(model, self.name)
+        lin = linear_part(model)
+        if lin is None:
+            raise ScenarioError.single("integrator", "'split'",
+                                       "needs a chain network (no transfers, at most two neighbours per state) with "
+                                       "saturable elimination (vmax, km) in exactly one compartment that is not held; "
+                                       "use auto or rodas")
+        times, marks, ev = plan.times, plan.marks, plan.events
+        n_t, nc = len(times), model.n_comp
+        base = lin.arrays
+        work = working_copy(base)
+        s = new_event_state(base, len(ev.time))
+        full = plan.full
+        if full:
+            states = np.empty((n_t, model.n_state))
+            taps = empty_taps(model.n_state)
+        else:
+            states = np.empty((1, model.n_state))
+            taps = new_buffers(taps_of(model), n_t, model.n_state)
+        ev_dosed = np.empty((n_t, nc))
+        ev_removed = np.empty((n_t, nc))
+        st = np.zeros(6, dtype=np.int64)
+        info = np.zeros(1)
+        code = split_schedule(marks, times, ev, work, base, s, chain_order(lin), _FAST / mode_time(times, marks),
+                              jacobian_size(lin), model.y0.copy(), states, ev_dosed, ev_removed, st, full, taps,
+                              int(model.mm_state[0]), float(model.mm_vmax[0]), float(model.mm_km[0]), COEF,
+                              float(self.rtol), self.atol * model.scale, self.max_steps, info)
+        if code != OK:
+            rodas = RosenbrockIntegrator(rtol=self.rtol, atol=self.atol, max_steps=self.max_steps)
+            out = rodas.run(plan)
+            note = (f"computed on {rodas.name} over all states: the split of the saturable elimination did not "
+                    f"apply ({_FAILURES.get(int(code), 'unknown failure')})")
+            return Integration(out.states, out.event_dosed, out.event_removed, out.status,
+                               f"{out.message} ({note})", out.stats, out.event_amounts, out.volumes, out.failed_at,
+                               out.rows, out.last)
+        stats = RunStats()
+        stats.add(st)
+        if plan.progress is not None:
+            plan.progress(1.0)
+        if full:
+            return Integration(states, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy())
+        return Integration(None, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy(),
+                           rows=Rows.from_buffers(model, taps, n_t), last=taps[8])

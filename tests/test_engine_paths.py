@@ -274,7 +274,8 @@ def test_rodas_saturable_held_and_infused_against_radau():
 
 def test_auto_choice():
     assert solve(patch_body()).integrator == "exact"
-    assert solve(patch_body(saturable=True)).integrator == "split"
+    # six cells a layer: the estimate of cost prefers RODAS4 to the split path on so small a network
+    assert solve(patch_body(saturable=True)).integrator == "rodas4"
     assert solve(with_transfer()).integrator == "exact"  # small: matrix exponentials
     assert exact_supported(compile_scenario(two_barriers()))
 

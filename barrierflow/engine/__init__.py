@@ -21,8 +21,8 @@ from .integrators import (
 from .population import Population, simulate_many, simulate_population
 from .rosenbrock import RosenbrockIntegrator
 from .schedule import Event, EventArrays, build_schedule
-from .split import SplitIntegrator
 from .solve import Trajectory, solve
+from .split import SplitIntegrator
 
 __all__ = [
     "INTEGRATORS",

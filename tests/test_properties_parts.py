@@ -61,7 +61,9 @@ def assert_separate_network_changes_nothing(s, other) -> None:
     # run: the nearest row)
     rows = np.abs(b.times[:, None] - a.times[None, :]).argmin(axis=0)
     assert np.allclose(b.times[rows], a.times, rtol=0.0, atol=2e-9 * max(s.duration, 1.0))
-    tol = DEFAULT_TOL if "rodas" in a.integrator + b.integrator else 1e-9
+    # an integrator with error control (RODAS4, or the split path's RODAS4 on the slow modes) steps
+    # differently with the other network's states in its error measure: its tolerance
+    tol = DEFAULT_TOL if "rodas" in a.integrator + b.integrator or "split" in (a.integrator, b.integrator) else 1e-9
     for cid, i in ma.comp_index.items():
         j = mb.comp_index[cid]
         assert np.max(np.abs(b.states[rows, j] - a.states[:, i])) <= tol * ma.scale[i], cid

@@ -407,12 +407,15 @@ def _norm(dst_old, dst_new, ka, kb, ku, kz, gam, L, P, atol, rtol, nc, err_state
         sig += vy[s, pc] * ka[s]
     du = gam * sig  # the static part's response: u' dc, dc = vyc . ka / (1 - s_f u')
     for a in range(n):
-        if alone[a]:
-            continue
-        v = sfy[a] * du
-        for s in range(kz):
-            v += vy[s, a] * ka[s]
-        err_state[idx[a]] = v
+        ys[a] = sfy[a] * du
+    for s in range(kz):  # mode by mode over the states (the loop runs in vector lanes)
+        v = vy[s]
+        e = ka[s]
+        for a in range(n):
+            ys[a] += v[a] * e
+    for a in range(n):
+        if not alone[a]:
+            err_state[idx[a]] = ys[a]
     nqd = n_state - nd
     for q in range(nqd):
         v = uq[q] * ku

@@ -663,6 +663,60 @@ def _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, v, out):
                 out[i] -= dot * vs[i]
 
 
+@njit(**INNER)
+def _fast_constants(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, x0, tg, has_g, tv, qr, qc, qv, nq, nd, px, pg, ppg,
+                    yfast, qconst, qslope):
+    """The decayed modes' part of an interval (those from ``ks`` on), through T^+: constants at the
+    states, constant and slope at the cumulative amounts. The one home of these constants for the
+    chain path and the split path (:mod:`.split`).
+
+    With P the projection of :func:`_project_fast`: px = P x0, pg = P tg, ppg = P pg; a free state's
+    value is -pg / t (the forcing's steady value; zero without forcing); each cumulative amount
+    gains -A (px + ppg) + (-A pg) t, with A its rates on y = x / t (COO entries qr, qc, qv; qr
+    counted from nd). ``yfast``, ``qconst`` and ``qslope`` are overwritten; px, pg, ppg are left
+    holding the projections (pg and ppg only when ``has_g``).
+    """
+    for a in range(n):
+        yfast[a] = 0.0
+    for q in range(qconst.shape[0]):
+        qconst[q] = 0.0
+        qslope[q] = 0.0
+    _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, x0, px)
+    if has_g:
+        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, tg, pg)
+        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, pg, ppg)
+        for a in range(n):
+            yfast[a] = -pg[a] / tv[a]
+    # quadrature rates: A_QD (COO entries qr, qc, qv) acting on y = x / t
+    for j in range(nq):
+        a = qc[j]
+        if a < 0:
+            continue
+        r = qr[j] - nd
+        w = qv[j] / tv[a]
+        if has_g:
+            qconst[r] -= w * (px[a] + ppg[a])
+            qslope[r] -= w * pg[a]
+        else:
+            qconst[r] -= w * px[a]
+
+
+@njit(**INNER)
+def _forcing(y, m, infusion, clamp, nc, yz, uz, g):
+    """The forcing of an interval into ``g``: the rates with the free dynamic states at zero (the
+    clamped ones at their values, the infusions on), the one home of it for the chain path and
+    the split path (:mod:`.split`). ``yz`` is left at zero; ``uz`` is the rates kernel's work array.
+    """
+    for r in range(yz.shape[0]):
+        yz[r] = 0.0
+    for p in range(nc):
+        if clamp[p]:
+            yz[p] = y[p]
+    rates_kernel(yz, g, m, infusion, clamp, uz)
+    for r in range(yz.shape[0]):
+        yz[r] = 0.0
+
+
 # ---------------------------------------------------------------- outputs of one interval
 @njit(**INNER)
 def _phi1(x):
@@ -689,6 +743,37 @@ PATTERNS = 4
 #: rational approximation of the exponential instead (:func:`_rational_row`): a few solves with the
 #: chain matrix, O(n), where the modes would cost O(k^2 n) to compute and O(k n) per row.
 MAX_MODES = 64
+
+
+@njit(**INNER)
+def _mode_cut(dd, ee, n, cut, comp_of):
+    """The cut of the computed modes and how many lie above it: ``cut`` itself (1/h) unless more
+    than :data:`MAX_MODES` modes lie above it; then the cut moves up to between the slowest
+    MAX_MODES and the rest (bisection on the counts, to a thousandth of the cut). The one home of
+    that choice for the chain path and the split path (:mod:`.split`).
+
+    Returns
+    -------
+    cut_now : float (1/h)
+        The cut used; every mode computed lies above it.
+    k_need : int
+        How many modes :func:`_slow_modes` computes above ``cut_now``.
+    """
+    k_need = _count_slow(dd, ee, n, cut, comp_of)
+    if k_need <= MAX_MODES:
+        return cut, k_need
+    lo_c = cut
+    hi_c = 0.0
+    for _it in range(200):
+        mid_c = 0.5 * (lo_c + hi_c)
+        if _count_slow(dd, ee, n, mid_c, comp_of) > MAX_MODES:
+            lo_c = mid_c
+        else:
+            hi_c = mid_c
+        if hi_c - lo_c <= 1e-3 * abs(hi_c):
+            break
+    return hi_c, _count_slow(dd, ee, n, hi_c, comp_of)
+
 
 #: Poles and residues of a rational approximation of exp(z) on the negative real axis, of type
 #: (16, 16) with the constant ``RATIONAL_CONSTANT``: exp(z) ~ c0 + 2 Re sum_k r_k / (z - p_k), one
@@ -882,24 +967,8 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
     yfast = np.zeros(n)
     qconst = np.zeros(nqd)
     qslope = np.zeros(nqd)
-    _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, x0, px)
-    if has_g:
-        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, tg, pg)
-        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, pg, ppg)
-        for a in range(n):
-            yfast[a] = -pg[a] / tv[a]
-    # quadrature rates: A_QD (COO entries qr, qc, qv) acting on y = x / t
-    for j in range(nq):
-        a = qc[j]
-        if a < 0:
-            continue
-        r = qr[j] - nd
-        w = qv[j] / tv[a]
-        if has_g:
-            qconst[r] -= w * (px[a] + ppg[a])
-            qslope[r] -= w * pg[a]
-        else:
-            qconst[r] -= w * px[a]
+    _fast_constants(dd, ee, n, ediag, msq, comp_of, lam, vec, ks, x0, tg, has_g, tv, qr, qc, qv, nq, nd, px, pg,
+                    ppg, yfast, qconst, qslope)
     # per-mode quadrature patterns of the slow modes
     wt = np.zeros((ks, nqd))
     for j in range(nq):
@@ -1204,26 +1273,10 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             dd = dd_c[slot]
             ee = ee_c[slot]
             comp_of = comp_c[slot]
-            k_need = _count_slow(dd, ee, n, cut, comp_of)
-            cut_now = cut
-            t_thr = -60.0 / cut  # the times before it go through the rational approximation
-            if k_need > MAX_MODES:
-                # at most MAX_MODES modes: the cut moves up to between the slowest MAX_MODES and
-                # the rest (bisection on the counts); the times before they decay take the
-                # rational approximation
-                lo_c = cut
-                hi_c = 0.0
-                for _it in range(200):
-                    mid_c = 0.5 * (lo_c + hi_c)
-                    if _count_slow(dd, ee, n, mid_c, comp_of) > MAX_MODES:
-                        lo_c = mid_c
-                    else:
-                        hi_c = mid_c
-                    if hi_c - lo_c <= 1e-3 * abs(hi_c):
-                        break
-                cut_now = hi_c
-                t_thr = -60.0 / cut_now
-                k_need = _count_slow(dd, ee, n, cut_now, comp_of)
+            # at most MAX_MODES modes; the times before the others decay take the rational
+            # approximation
+            cut_now, k_need = _mode_cut(dd, ee, n, cut, comp_of)
+            t_thr = -60.0 / cut_now
             if k_need > vec_c.shape[1]:
                 grown = np.zeros((P, k_need, L))
                 for c in range(P):
@@ -1272,15 +1325,7 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             stats[3] += 1
             stats[4] += 1
         used[slot] = k + 1
-        # forcing: the rates with the free dynamic states at zero
-        for r in range(n_state):
-            yz[r] = 0.0
-        for p in range(nc):
-            if clamp[p]:
-                yz[p] = y[p]
-        rates_kernel(yz, g, m, infusion, clamp, uz)
-        for r in range(n_state):
-            yz[r] = 0.0
+        _forcing(y, m, infusion, clamp, nc, yz, uz, g)
         stats[2] += 1
         sel_end = rows_until(times, row, t1, k == n_marks - 2)
         m_out = sel_end - row

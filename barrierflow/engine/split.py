@@ -61,7 +61,9 @@ from .exact_chain import (
     RATIONAL_POLES,
     RATIONAL_RESIDUES,
     _build,
-    _count_slow,
+    _fast_constants,
+    _forcing,
+    _mode_cut,
     _phi1,
     _phi2,
     _project_fast,
@@ -71,7 +73,7 @@ from .exact_chain import (
 )
 from .exported import Rows, empty_taps, new_buffers, take_row, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
-from .kernels import jacobian_kernel, jacobian_size, rates_kernel, saturable_rate, saturable_slope
+from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_slope
 from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator
 from .schedule import apply_events, new_event_state, rows_until
 
@@ -755,21 +757,7 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             # the chain of this clamp pattern, its slow modes and the static response
             n = _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
             pc = cmap[ic]
-            cut_now = min(cut, -CUT_SLOW)
-            k_need = _count_slow(dd, ee, n, cut_now, comp_of)
-            if k_need > MAX_MODES:  # at most MAX_MODES: the cut moves up (bisection on the counts)
-                lo_c = cut_now
-                hi_c = 0.0
-                for _it in range(200):
-                    mid_c = 0.5 * (lo_c + hi_c)
-                    if _count_slow(dd, ee, n, mid_c, comp_of) > MAX_MODES:
-                        lo_c = mid_c
-                    else:
-                        hi_c = mid_c
-                    if hi_c - lo_c <= 1e-3 * abs(hi_c):
-                        break
-                cut_now = hi_c
-                k_need = _count_slow(dd, ee, n, cut_now, comp_of)
+            cut_now, k_need = _mode_cut(dd, ee, n, min(cut, -CUT_SLOW), comp_of)  # at most MAX_MODES
             t_thr = -60.0 / cut_now
             if k_need > vec.shape[0]:
                 vec = np.zeros((k_need, Lz))
@@ -846,15 +834,7 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             have = True
             stats[3] += 1
             stats[4] += 1
-        # forcing: the rates of the linear network with the free dynamic states at zero
-        for r in range(n_state):
-            yz[r] = 0.0
-        for p in range(nc):
-            if clamp[p]:
-                yz[p] = y[p]
-        rates_kernel(yz, g, m, infusion, clamp, uz)
-        for r in range(n_state):
-            yz[r] = 0.0
+        _forcing(y, m, infusion, clamp, nc, yz, uz, g)
         stats[2] += 1
         # the split: z(0) = V_S a + s_F u(c(0)) with the slow amplitudes a carried over the event
         # (the slow modes near the cut would otherwise start far from their response to u, and
@@ -881,28 +861,8 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             gz[s_] = b0
         # the modes not computed (decayed by t_thr): constants (states), constant and slope
         # (cumulative amounts), through T^+ (as the chain path)
-        for a in range(n):
-            yfast[a] = 0.0
-        for q in range(nqd):
-            qconst[q] = 0.0
-            qslope[q] = 0.0
-        _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, k_all, x0, px)
-        if has_g:
-            _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, k_all, tg, pg)
-            _project_fast(dd, ee, n, ediag, msq, comp_of, lam, vec, k_all, pg, ppg)
-            for a in range(n):
-                yfast[a] = -pg[a] / tv[a]
-        for j in range(nq):
-            a = qc[j]
-            if a < 0:
-                continue
-            r = qr[j] - nd
-            w = qv[j] / tv[a]
-            if has_g:
-                qconst[r] -= w * (px[a] + ppg[a])
-                qslope[r] -= w * pg[a]
-            else:
-                qconst[r] -= w * px[a]
+        _fast_constants(dd, ee, n, ediag, msq, comp_of, lam, vec, k_all, x0, tg, has_g, tv, qr, qc, qv, nq, nd, px,
+                        pg, ppg, yfast, qconst, qslope)
         # the central row: the decayed modes' forcing constants, summed from the fastest
         csum = np.zeros(max(k_all, 1) + 1)
         vyc_all = np.zeros(max(k_all, 1))

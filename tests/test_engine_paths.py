@@ -479,6 +479,85 @@ def test_chain_modes_against_dense_eigh():
         assert abs(abs(q @ vs) - 1.0) < 1e-9
 
 
+
+def _stack_chain(rng: np.random.Generator) -> tuple[np.ndarray, ...]:
+    """(dd, ee, gedge, ediag, msq) of a chain built as _build builds one: capacities, conductances
+    and losses of copies of one stack (mirrored or repeated, joined by a link from 1e-16 to 1 of
+    the others) or of layers 1e-6 to 1e6 apart, scaled as a whole by 1e-6 to 1e6 (invented)."""
+    half = int(rng.choice([2, 5, 20, 80, 200]))
+    uniform = rng.random() < 0.25
+    cap_a = np.ones(half) if uniform else np.exp(rng.uniform(-3.0, 3.0, half))
+    g_a = np.ones(half - 1) if uniform else np.exp(rng.uniform(-3.0, 3.0, half - 1))
+    if rng.random() < 0.3:  # two layers far apart in capacity and conductance
+        cut_at = half // 2
+        cap_a[cut_at:] *= 10.0 ** rng.uniform(-6.0, 6.0)
+        g_a[cut_at - 1:] *= 10.0 ** rng.uniform(-6.0, 6.0)
+    e_a = np.zeros(half)
+    e_a[0] = np.exp(rng.uniform(-8.0, 3.0))
+    copies = int(rng.choice([1, 2, 3]))
+    link = 10.0 ** rng.uniform(-16.0, 0.0)
+    caps, gs, es = [cap_a], [g_a], [e_a]
+    for c in range(1, copies):
+        mirror = c % 2 == 1 and rng.random() < 0.7
+        caps.append(cap_a[::-1] if mirror else cap_a)
+        gs += [np.array([link]), g_a[::-1] if mirror else g_a]
+        es.append(e_a[::-1] if mirror else e_a)
+    cap, g, e = np.concatenate(caps), np.concatenate(gs), np.concatenate(es)
+    if rng.random() < 0.2:
+        e[:] = 0.0  # a closed chain: its equilibrium mode at 0
+    scale = 10.0 ** rng.uniform(-6.0, 6.0)
+    g, e = g * scale, e * scale
+    n = cap.shape[0]
+    msq = np.sqrt(cap)
+    gsum = np.zeros(n)
+    gsum[:-1] += g
+    gsum[1:] += g
+    dd = -(gsum + e) / cap
+    ee = np.zeros(n)
+    ee[:-1] = g / (msq[:-1] * msq[1:])
+    gedge = np.zeros(n)
+    gedge[:-1] = g
+    return dd, ee, gedge, e, msq
+
+
+def test_chain_modes_are_right_or_refused_on_clustered_and_scaled_chains():
+    # The slow modes (Sturm counts, Newton's step, inverse iteration) against scipy.linalg.
+    # eigh_tridiagonal (LAPACK stemr) on chains with near-equal eigenvalues (copies of one stack
+    # weakly joined), layers 1e-6 to 1e6 apart and cuts on or near an eigenvalue: each call either
+    # refuses (-1: the run goes to the robust integrator) or returns every eigenvalue above the cut
+    # with an orthonormal basis of their eigenvectors. LAPACK's eigenvalues are accurate to about
+    # 1e-16 of the largest, so they are compared to 1e-13 of it (and 1e-8 of their own size), and
+    # the computed vectors must lie in the span of LAPACK's where the next eigenvalue is clear.
+    from scipy.linalg import eigh_tridiagonal
+
+    rng = np.random.default_rng(20261205)
+    answered = 0
+    for _case in range(150):
+        dd, ee, gedge, ediag, msq = _stack_chain(rng)
+        n = dd.shape[0]
+        w, v = eigh_tridiagonal(dd, ee[:-1])
+        w, v = w[::-1], v[:, ::-1]  # slowest first
+        tnorm = float(np.max(np.abs(dd) + np.abs(ee) + np.abs(np.r_[0.0, ee[:-1]])))
+        j = int(rng.integers(0, min(n, 64)))
+        cut = min(w[j] * (1.0 + float(rng.choice([1e-12, 1e-6, 1e-3]))), -1e-300)
+        want = int(np.sum(w > cut))
+        if want > 64:
+            continue
+        lam, vec = np.zeros(n), np.zeros((65, n))
+        k = _call_slow_modes(dd, ee, np.int64(n), cut, gedge, ediag, msq, np.zeros(n, dtype=np.int64), lam, vec)
+        if k < 0:
+            continue
+        answered += 1
+        if np.min(np.abs(w - cut)) > 1e-12 * tnorm:
+            assert k == want
+        q = vec[:k]
+        assert np.max(np.abs(q @ q.T - np.eye(k)), initial=0.0) < 1e-6
+        assert np.all(np.abs(lam[:k] - w[:k]) <= 1e-8 * np.abs(w[:k]) + 1e-13 * tnorm)
+        if k and (k == n or w[k - 1] - w[k] > 1e-8 * tnorm):
+            p = v[:, :k]
+            assert np.max(np.linalg.norm(q - (q @ p) @ p.T, axis=1)) < 1e-6
+    assert answered >= 30  # the sweep reaches the modes, not only their refusal
+
 def test_phi_functions_near_zero():
     # phi1(x) = (e^x - 1)/x and phi2(x) = (e^x - 1 - x)/x^2 against their Taylor series
     # sum x^j / (j+1)! and sum x^j / (j+2)! (30 terms) where those converge fast, and math.expm1

@@ -74,7 +74,7 @@ from .exact_chain import (
 from .exported import Rows, empty_taps, new_buffers, take_row, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
 from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_slope
-from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator
+from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator, step_size
 from .schedule import apply_events, new_event_state, rows_until
 
 __all__ = ["CUT_SLOW", "STATIC_SHARE", "SplitIntegrator", "linear_part", "split_schedule"]
@@ -571,13 +571,8 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
                 if h < h_min:
                     return FAIL_NONFINITE, h
                 continue
-            fac_h = max(1.0 / 6.0, min(5.0, err ** 0.25 / 0.9))
-            h_new = h / fac_h
+            h_new = step_size(h, err, h_acc, err_acc)
             if err <= 1.0:
-                if h_acc > 0.0:  # predictive controller of Gustafsson (as in RODAS)
-                    fg = max(1.0 / 6.0, min(5.0, h_acc / h * (err * err / err_acc) ** 0.25 / 0.9))
-                    fac_h = max(fac_h, fg)
-                    h_new = h / fac_h
                 h_acc = h
                 err_acc = max(1e-2, err)
                 break

@@ -1178,6 +1178,14 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
         flush_chain_guard(mins, taps, y0, pos)
 
 
+@njit(inline="always", error_model="numpy")
+def _more_modes(a, k):
+    """``a`` (patterns x modes x states) with room for ``k`` modes per pattern, those kept in front."""
+    grown = np.zeros((a.shape[0], k, a.shape[2]))
+    grown[:, :a.shape[1], :] = a
+    return grown
+
+
 # ---------------------------------------------------------------- the whole regimen
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
@@ -1278,24 +1286,14 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             cut_now, k_need = _mode_cut(dd, ee, n, cut, comp_of)
             t_thr = -60.0 / cut_now
             if k_need > vec_c.shape[1]:
-                grown = np.zeros((P, k_need, L))
-                for c in range(P):
-                    for q in range(vec_c.shape[1]):
-                        for i in range(L):
-                            grown[c, q, i] = vec_c[c, q, i]
-                vec_c = grown
+                vec_c = _more_modes(vec_c, k_need)
             k_all = _slow_modes(dd, ee, n, cut_now, gedge_c[slot], ediag_c[slot], msq_c[slot], comp_of, lam_c[slot],
                                 vec_c[slot])
             if k_all < 0:
                 return FAIL_CONDITION
             k4 = (k_all + 3) // 4 * 4
             if k4 > vyp_c.shape[1]:
-                grown = np.zeros((P, k4, L))
-                for c in range(P):
-                    for q in range(vyp_c.shape[1]):
-                        for i in range(L):
-                            grown[c, q, i] = vyp_c[c, q, i]
-                vyp_c = grown
+                vyp_c = _more_modes(vyp_c, k4)
             tv = tv_c[slot]
             for q in range(k4):
                 vq = vyp_c[slot, q]

@@ -64,6 +64,38 @@ def test_traces_formatted_in_another_thread_are_the_text_and_a_failure_there_lea
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cell.csv", "cell.json"]
 
 
+def test_a_staged_csv_is_removed_when_the_sidecar_or_its_own_flush_fails(tmp_path, monkeypatch):
+    # to_csv writes and flushes the CSV's temporary file in another thread while the sidecar's
+    # content is computed: a failure of that content, or of the CSV's own flush, leaves the
+    # folder as it was (no temporary file, the older pair untouched)
+    from barrierflow.analysis import Result
+
+    result = barrierflow.simulate(barrierflow.load(CELL))
+    out = result.to_csv(tmp_path / "cell.csv")
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+
+    def broken(self):
+        raise ValueError("the warnings failed")
+
+    with monkeypatch.context() as m:
+        m.setattr(Result, "warnings", broken)
+        with pytest.raises(ValueError, match="warnings failed"):
+            barrierflow.simulate(barrierflow.load(CELL)).to_csv(out)
+    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
+    real_fsync = os.fsync
+
+    def fail_for_the_csv(fd):
+        if os.path.basename(os.readlink(f"/proc/self/fd/{fd}")).startswith(".cell.csv."):
+            raise OSError(28, "No space left on device")
+        real_fsync(fd)
+
+    monkeypatch.setattr(os, "fsync", fail_for_the_csv)
+    with pytest.raises(OSError, match="No space left") as info:
+        barrierflow.simulate(barrierflow.load(CELL)).to_csv(out)
+    assert info.value.filename == str(out)
+    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
+
+
 def test_a_csv_beside_a_sidecar_of_another_run_is_told_apart(tmp_path):
     write_traces(tmp_path / "a.csv", "time [h]\n0\n", _sidecar("time [h]\n0\n"))
     assert traces_match(tmp_path / "a.csv")

@@ -20,7 +20,7 @@ from ..caution import CAUTION
 from ..engine import Trajectory
 from ..engine.compiled import limited_compartments
 from ..engine.ledger import rows_ledger
-from ..io import in_background, traces_digest, write_traces
+from ..io import stage_traces, traces_digest, write_traces
 from ..io.csv_numbers import csv_row_bytes
 from ..model import Scenario
 from ..units import unit_factor
@@ -600,9 +600,10 @@ class Result:
     def to_csv(self, path: str | os.PathLike[str] | None = None) -> Path:
         """Write the traces CSV and its JSON sidecar ``<name>.json`` beside it, atomically, as a pair.
 
-        The CSV text is made first and written to a temporary file; the sidecar is made while
-        that file is flushed to disk, then written to its own; only then are both renamed into
-        place, the CSV first and the sidecar last (a failure before leaves no file). The sidecar
+        The CSV is made, written to a temporary file and flushed to disk in another thread while
+        the sidecar's content is computed; the sidecar is then written to its own temporary file
+        and flushed; only then are both renamed into place, the CSV first and the sidecar last
+        (a failure before leaves no file). The sidecar
         records the CSV's SHA-256 (``traces``), so :func:`barrierflow.io.traces_match` tells
         whether the two belong together, even after a run killed between the renames.
 
@@ -619,13 +620,17 @@ class Result:
         if path is None:
             stem = Path(self.scenario.source).stem if self.scenario.source else "barrierflow-run"
             path = Path(f"{stem}.csv")
-        # the values are formatted and hashed in another thread (compiled code and hashing let
-        # the interpreter's lock go) while this one computes what the sidecar shows; the sidecar's
-        # text is made while the CSV's temporary file is flushed to disk
-        made = in_background(_csv_bytes_and_digest, *self._csv_parts())
-        self.metrics(), self.warnings(), self.mass_balance
-        raw, digest = made.result()
-        return write_traces(path, raw, lambda: self._sidecar_text(digest))
+        # the values are formatted and hashed, and the CSV written to its temporary file and
+        # flushed to disk, in another thread (compiled code, hashing and the waits for the disk let
+        # the interpreter's lock go) while this one computes what the sidecar shows
+        staged = stage_traces(path, _csv_bytes_and_digest, *self._csv_parts())
+        try:
+            self.metrics(), self.warnings(), self.mass_balance
+            digest = staged.value()
+        except BaseException:
+            staged.discard()
+            raise
+        return write_traces(path, staged, lambda: self._sidecar_text(digest))
 
     def sidecar_text(self, csv_text: str | bytes | None = None) -> str:
         """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""

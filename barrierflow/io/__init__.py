@@ -5,13 +5,23 @@ validated models (:class:`barrierflow.Scenario`, :class:`barrierflow.model.exper
 the engine, the analysis, the studies and the dashboard never parse text.
 """
 
-from .atomic import Pending, atomic_stream, atomic_write, atomic_write_together, in_background, remove_stale_temporaries
+from .atomic import (
+    Pending,
+    Staged,
+    atomic_stream,
+    atomic_write,
+    atomic_write_together,
+    in_background,
+    remove_stale_temporaries,
+    stage,
+)
 from .experiment import load_experiment, loads_experiment
 from .scenario_files import load, loads, read_toml, save
-from .traces import sidecar_path, traces_digest, traces_match, write_traces
+from .traces import sidecar_path, stage_traces, traces_digest, traces_match, write_traces
 
 __all__ = [
     "Pending",
+    "Staged",
     "atomic_stream",
     "atomic_write",
     "atomic_write_together",
@@ -24,6 +34,8 @@ __all__ = [
     "remove_stale_temporaries",
     "save",
     "sidecar_path",
+    "stage",
+    "stage_traces",
     "traces_digest",
     "traces_match",
     "write_traces",

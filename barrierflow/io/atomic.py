@@ -28,7 +28,9 @@ What is promised, and how the waits for the disk are arranged:
   the latest, the end of the process) closes them.
 
 :func:`in_background` hands other work that lets the interpreter's lock go to a thread of the
-same kind (the traces CSV is formatted and hashed that way while the sidecar's content is made).
+same kind; :func:`stage` hands it a whole file: made, written to its temporary file and flushed
+to disk there, then given to :func:`atomic_write_together` as that file's content (the traces CSV
+is made that way while the sidecar's content is computed).
 """
 
 from __future__ import annotations
@@ -43,12 +45,12 @@ import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
-from typing import TextIO
+from typing import TextIO, TypeAlias
 
-Content = str | bytes | Callable[[], str | bytes]
+Content: TypeAlias = "str | bytes | Callable[[], str | bytes] | Staged"
 
-__all__ = ["Pending", "atomic_stream", "atomic_write", "atomic_write_together", "in_background",
-           "remove_stale_temporaries"]
+__all__ = ["Pending", "Staged", "atomic_stream", "atomic_write", "atomic_write_together", "in_background",
+           "remove_stale_temporaries", "stage"]
 
 STALE_AFTER_S = 24 * 3600.0
 """Age after which a temporary file is removed even if a process of its number is running (the
@@ -103,13 +105,19 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
         The destinations.
     """
     targets = [Path(p) for p, _ in files]
-    _remove_stale(targets)
+    staged = [data for _, data in files if isinstance(data, Staged)]
+    tidied = {t for s in staged for t in s.tidied}
+    _remove_stale([t for t in targets if t not in tidied])
     temps: list[str] = []
     replaced: list[int] = []
-    flushing: list[_Flush] = []  # files being flushed to disk in other threads
+    flushing: list[_Flush | Staged] = []  # files being flushed to disk in other threads
     current = targets[0] if targets else Path(".")
     try:
         for i, (target, (_, data)) in enumerate(zip(targets, files, strict=True)):
+            if isinstance(data, Staged):  # written and flushed in the other thread (temporary named when done)
+                temps.append("")
+                flushing.append(data)
+                continue
             if callable(data):
                 data = data()  # (while the file before it is flushed)
             current = target
@@ -129,7 +137,11 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
                     os.close(fd)
         while flushing:  # every file complete on disk before the first rename
             current = flushing[0].target
-            flushing.pop(0).finish()
+            done = flushing.pop(0)
+            if isinstance(done, Staged):
+                temps[targets.index(done.target)] = done.finish()
+            else:
+                done.finish()
         if os.name == "posix":
             replaced = _open_existing(targets)
         for i, target in enumerate(targets):
@@ -144,7 +156,10 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
             _sync_folder(folder)
     except BaseException as err:
         for flush in flushing:
-            flush.finish(quiet=True)
+            if isinstance(flush, Staged):
+                flush.discard()
+            else:
+                flush.finish(quiet=True)
         for tmp in temps:
             if tmp:
                 try:
@@ -251,6 +266,107 @@ def in_background(call: Callable[..., object], *args: object) -> Pending:
     time, in the order given.
     """
     return Pending(call, *args)
+
+
+class Staged:
+    """A file made, written to its temporary file and flushed to disk in another thread
+    (:func:`stage`), to be renamed into place by :func:`atomic_write_together` (give it as the
+    file's content) or removed by :meth:`discard`.
+
+    Attributes
+    ----------
+    target : pathlib.Path
+        The destination.
+    tidied : tuple of pathlib.Path
+        The destinations whose stale temporary files the other thread removed first.
+    """
+
+    def __init__(self, target: str | os.PathLike[str], make: Callable[..., tuple[str | bytes, object]],
+                 args: tuple[object, ...], tidy: Sequence[str | os.PathLike[str]], encoding: str) -> None:
+        self.target = Path(target)
+        self.tidied = tuple(dict.fromkeys([self.target, *(Path(p) for p in tidy)]))
+        self._tmp = ""
+        self._value: object = None
+        self._failed: BaseException | None = None
+        self._made = threading.Event()
+        self._taken = False
+        self._job = _Job(self._run, make, args, encoding)
+        if not _MAKER.submit(self._job):  # no thread can be had: done here
+            _serve_one(self._job)
+
+    def _run(self, make: Callable[..., tuple[str | bytes, object]], args: tuple[object, ...], encoding: str) -> None:
+        try:
+            data, self._value = make(*args)
+        except BaseException as err:
+            self._failed = err
+            raise
+        finally:
+            self._made.set()
+        raw = data.encode(encoding) if isinstance(data, str) else data
+        _remove_stale(self.tidied)
+        tmp, fd = _create_temporary(self.target)
+        self._tmp = tmp
+        try:
+            _write_all(fd, raw)
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+
+    def value(self) -> object:
+        """What ``make`` gave besides the content, once made (the file may still be being written);
+        raises what making it raised."""
+        self._made.wait()
+        if self._failed is not None:
+            raise self._failed
+        return self._value
+
+    def finish(self) -> str:
+        """Wait until the file is complete on disk; its temporary file (the caller renames or removes
+        it); raises what failed."""
+        self._job.done.wait()
+        self._taken = True
+        if self._job.error is not None:
+            self._unlink()
+            raise self._job.error
+        return self._tmp
+
+    def discard(self) -> None:
+        """Wait for the other thread and remove the temporary file (nothing is renamed)."""
+        self._job.done.wait()
+        if not self._taken:
+            self._unlink()
+        self._taken = True
+
+    def _unlink(self) -> None:
+        if self._tmp:
+            try:
+                os.unlink(self._tmp)
+            except FileNotFoundError:
+                pass
+            self._tmp = ""
+
+
+def stage(target: str | os.PathLike[str], make: Callable[..., tuple[str | bytes, object]], *args: object,
+          tidy: Sequence[str | os.PathLike[str]] = (), encoding: str = "utf-8") -> Staged:
+    """Make a file's content and write it to a temporary file beside ``target``, flushed to disk,
+    in another thread (the one of :func:`in_background`), while the caller does something else.
+
+    ``make(*args)`` returns ``(content, value)``: the text or bytes of the file, and anything the
+    caller needs from the making (:meth:`Staged.value` gives it as soon as it is made, before the
+    file is on disk). Stale temporary files of ``target`` and of ``tidy`` (other destinations of
+    the same write) are removed first. Hand the result to :func:`atomic_write_together` as the
+    file's content: the file is renamed into place with the others, after all are complete on
+    disk; or call :meth:`Staged.discard` when the write is given up (a failure before it).
+    """
+    return Staged(target, make, args, tidy, encoding)
+
+
+def _serve_one(job: _Job) -> None:
+    try:
+        job.call(*job.args)
+    except BaseException as err:  # handed to whoever waits for the job
+        job.error = err
+    job.done.set()
 
 
 def _after_fork() -> None:

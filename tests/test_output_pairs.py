@@ -24,6 +24,7 @@ from barrierflow.io import (
     atomic_write_together,
     in_background,
     remove_stale_temporaries,
+    stage,
     traces_digest,
     traces_match,
     write_traces,
@@ -94,6 +95,20 @@ def test_a_staged_csv_is_removed_when_the_sidecar_or_its_own_flush_fails(tmp_pat
         barrierflow.simulate(barrierflow.load(CELL)).to_csv(out)
     assert info.value.filename == str(out)
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
+
+
+def test_a_staged_file_is_renamed_with_the_others_or_removed(tmp_path):
+    staged = stage(tmp_path / "a.csv", lambda: (b"t\n1\n", "made"))
+    assert staged.value() == "made"
+    atomic_write_together([(tmp_path / "a.csv", staged), (tmp_path / "a.json", "{}")])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.csv", "a.json"]
+    assert (tmp_path / "a.csv").read_bytes() == b"t\n1\n"
+    stage(tmp_path / "a.csv", lambda: (b"t\n2\n", None)).discard()  # given up: its temporary file goes
+    wrong = stage(tmp_path / "a.csv", lambda: (b"t\n3\n", None))
+    with pytest.raises(ValueError, match="staged for"):  # staged for another destination
+        atomic_write_together([(tmp_path / "b.csv", wrong)])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.csv", "a.json"]
+    assert (tmp_path / "a.csv").read_bytes() == b"t\n1\n"
 
 
 def test_a_csv_beside_a_sidecar_of_another_run_is_told_apart(tmp_path):

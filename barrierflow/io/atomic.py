@@ -106,6 +106,11 @@ def atomic_write_together(files: Sequence[tuple[str | os.PathLike[str], Content]
     """
     targets = [Path(p) for p, _ in files]
     staged = [data for _, data in files if isinstance(data, Staged)]
+    for target, (_, data) in zip(targets, files, strict=True):
+        if isinstance(data, Staged) and data.target != target:
+            for s in staged:
+                s.discard()
+            raise ValueError(f"{target}: got a file staged for {data.target}; a file staged for this destination")
     tidied = {t for s in staged for t in s.tidied}
     _remove_stale([t for t in targets if t not in tidied])
     temps: list[str] = []

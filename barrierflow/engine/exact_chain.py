@@ -38,7 +38,7 @@ import numpy as np
 from numba import njit
 
 from .compiled import CompiledModel
-from .exported import flush_chain_guard, take_chain_row, take_row
+from .exported import chain_taps, flush_chain_guard, take_chain_row, take_row
 from .kernels import INNER, jacobian_kernel, rates_kernel
 from .schedule import apply_events, rows_until
 
@@ -884,6 +884,36 @@ def _rational_row(dd, ee, n, tj, x0, tg, has_g, poles, residues, c0, xs, xi, cw)
                 xi[a] += (c2 * b2[a]).real
 
 
+@njit(inline="always", error_model="numpy")
+def add_modes(vyp, zsb, ysb, n, kb4):
+    """Four rows at a time: ``ysb[r, :n] += sum_s zsb[r, s] vyp[s, :n]`` over the first ``kb4``
+    (a multiple of four) patterns, four patterns per pass over the states, so that a pattern
+    value loaded once serves four rows (the sums of each row in the same order as one row at a
+    time)."""
+    y_0 = ysb[0]
+    y_1 = ysb[1]
+    y_2 = ysb[2]
+    y_3 = ysb[3]
+    for s in range(0, kb4, 4):  # four modes per pass over the states
+        v0 = vyp[s]
+        v1 = vyp[s + 1]
+        v2 = vyp[s + 2]
+        v3 = vyp[s + 3]
+        z00, z01, z02, z03 = zsb[0, s], zsb[0, s + 1], zsb[0, s + 2], zsb[0, s + 3]
+        z10, z11, z12, z13 = zsb[1, s], zsb[1, s + 1], zsb[1, s + 2], zsb[1, s + 3]
+        z20, z21, z22, z23 = zsb[2, s], zsb[2, s + 1], zsb[2, s + 2], zsb[2, s + 3]
+        z30, z31, z32, z33 = zsb[3, s], zsb[3, s + 1], zsb[3, s + 2], zsb[3, s + 3]
+        for a in range(n):
+            va = v0[a]
+            vb = v1[a]
+            vc = v2[a]
+            vd = v3[a]
+            y_0[a] += va * z00 + vb * z01 + vc * z02 + vd * z03
+            y_1[a] += va * z10 + vb * z11 + vc * z12 + vd * z13
+            y_2[a] += va * z20 + vb * z21 + vc * z22 + vd * z23
+            y_3[a] += va * z30 + vb * z31 + vc * z32 + vd * z33
+
+
 @njit(**INNER)
 def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp, k_all, qr, qc, qv, nq, nd, clamp,
               nc, out, work, t_end, last, t_thr, full, taps, row0, cap):
@@ -1005,39 +1035,11 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
     for a in range(n):
         if alone[a]:
             any_alone = True
-    # rows kept in chain order (take_chain_row) when only the kept values are asked for and each
-    # barrier's cells are neighbours on the chain (they are: a barrier is a path of cells)
-    pos = np.full(nd, -1, dtype=np.int64)
-    for a in range(n):
-        pos[idx[a]] = a
-    bstart = taps[1]
-    bstop = taps[2]
-    n_bar = bstart.shape[0]
-    plo = np.zeros(n_bar, dtype=np.int64)
-    phi = np.zeros(n_bar, dtype=np.int64)
-    chained = not full and taps[0].shape[0] > 0
-    for b in range(n_bar):
-        if bstop[b] <= bstart[b] or not chained:
-            continue
-        lo_p = n
-        hi_p = -1
-        for i in range(bstart[b], bstop[b]):
-            lo_p = min(lo_p, pos[i])
-            hi_p = max(hi_p, pos[i])
-        if lo_p < 0 or hi_p - lo_p + 1 != bstop[b] - bstart[b]:
-            chained = False
-        plo[b] = lo_p
-        phi[b] = hi_p + 1
-    capc = np.empty(n)
-    isc = np.empty(n)
+    # rows kept in chain order (take_chain_row) when only the kept values are asked for
+    chained, pos, plo, phi, capc, isc = chain_taps(idx, n, nd, taps, cap, full)
     mins = np.zeros((3, n))
     last_row = taps[4].shape[0] - 1
     n_chained = 0
-    if chained:
-        inv_scale = taps[3]
-        for a in range(n):
-            capc[a] = cap[idx[a]]
-            isc[a] = inv_scale[idx[a]]
     # equally spaced output times (the usual output_step): exp(lam tau) by recurrence, one
     # multiplication per mode and time instead of a call of exp; the times' rounding deviations
     # from the even grid (~1e-15 h) enter to first order, exp(lam d) = 1 + lam d
@@ -1111,10 +1113,6 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
             yr = ysb[r]
             for a in range(n):
                 yr[a] = yfast[a]
-        y_0 = ysb[0]
-        y_1 = ysb[1]
-        y_2 = ysb[2]
-        y_3 = ysb[3]
         # without forcing, a mode decayed below exp(-60) at the block's first time adds nothing to
         # the states of its rows: later rows need fewer modes
         kb4 = ks4
@@ -1123,24 +1121,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
             while kb < ks and lam[kb] * tb[0] > -60.0:
                 kb += 1
             kb4 = (kb + 3) // 4 * 4
-        for s in range(0, kb4, 4):  # four modes per pass over the states
-            v0 = vyp[s]
-            v1 = vyp[s + 1]
-            v2 = vyp[s + 2]
-            v3 = vyp[s + 3]
-            z00, z01, z02, z03 = zsb[0, s], zsb[0, s + 1], zsb[0, s + 2], zsb[0, s + 3]
-            z10, z11, z12, z13 = zsb[1, s], zsb[1, s + 1], zsb[1, s + 2], zsb[1, s + 3]
-            z20, z21, z22, z23 = zsb[2, s], zsb[2, s + 1], zsb[2, s + 2], zsb[2, s + 3]
-            z30, z31, z32, z33 = zsb[3, s], zsb[3, s + 1], zsb[3, s + 2], zsb[3, s + 3]
-            for a in range(n):
-                va = v0[a]
-                vb = v1[a]
-                vc = v2[a]
-                vd = v3[a]
-                y_0[a] += va * z00 + vb * z01 + vc * z02 + vd * z03
-                y_1[a] += va * z10 + vb * z11 + vc * z12 + vd * z13
-                y_2[a] += va * z20 + vb * z21 + vc * z22 + vd * z23
-                y_3[a] += va * z30 + vb * z31 + vc * z32 + vd * z33
+        add_modes(vyp, zsb, ysb, n, kb4)
         for r in range(nb):
             jr = j + r
             tj = tb[r]

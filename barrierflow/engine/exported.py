@@ -26,7 +26,7 @@ from numba import njit
 from .arrays import INNER
 from .compiled import CompiledModel
 
-__all__ = ["Rows", "Taps", "empty_taps", "flush_chain_guard", "take_chain_row", "take_row", "taps_of"]
+__all__ = ["Rows", "Taps", "chain_taps", "empty_taps", "flush_chain_guard", "take_chain_row", "take_row", "taps_of"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -183,6 +183,43 @@ def take_chain_row(ys, dst, r, taps, pos, capc, isc, plo, phi, mins):
     for i in range(nd, dst.shape[0]):
         f += dst[i] * 0.0
     guard[2] += f
+
+
+@njit(inline="always", error_model="numpy")
+def chain_taps(idx, n, nd, taps, cap, full):
+    """What :func:`take_chain_row` needs for a chain of ``n`` positions (``idx``: the state at each
+    position): ``(chained, pos, plo, phi, capc, isc)``, ``chained`` False when the rows cannot be
+    kept in chain order (the full states asked for, nothing kept, or a barrier whose cells are not
+    neighbours on the chain; they are: a barrier is a path of cells)."""
+    pos = np.full(nd, -1, dtype=np.int64)
+    for a in range(n):
+        pos[idx[a]] = a
+    bstart = taps[1]
+    bstop = taps[2]
+    n_bar = bstart.shape[0]
+    plo = np.zeros(n_bar, dtype=np.int64)
+    phi = np.zeros(n_bar, dtype=np.int64)
+    chained = not full and taps[0].shape[0] > 0
+    for b in range(n_bar):
+        if bstop[b] <= bstart[b] or not chained:
+            continue
+        lo_p = n
+        hi_p = -1
+        for i in range(bstart[b], bstop[b]):
+            lo_p = min(lo_p, pos[i])
+            hi_p = max(hi_p, pos[i])
+        if lo_p < 0 or hi_p - lo_p + 1 != bstop[b] - bstart[b]:
+            chained = False
+        plo[b] = lo_p
+        phi[b] = hi_p + 1
+    capc = np.empty(n)
+    isc = np.empty(n)
+    if chained:
+        inv_scale = taps[3]
+        for a in range(n):
+            capc[a] = cap[idx[a]]
+            isc[a] = inv_scale[idx[a]]
+    return chained, pos, plo, phi, capc, isc
 
 
 @njit(**_LANES)

@@ -69,9 +69,10 @@ from .exact_chain import (
     _project_fast,
     _rational_row,
     _slow_modes,
+    add_modes,
     chain_order,
 )
-from .exported import Rows, empty_taps, new_buffers, take_row, taps_of
+from .exported import Rows, chain_taps, empty_taps, flush_chain_guard, new_buffers, take_chain_row, take_row, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
 from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_slope
 from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator, step_size
@@ -245,7 +246,7 @@ def _rational_central(dd, ee, n, t, x0, tg, r0, has_g, pc, poles, residues, c0, 
 
 
 @njit(inline="always", error_model="numpy")
-def _central(t, t_thr, k_all, lam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc, tvc, cw):
+def _central(t, t_thr, k_all, lam, ilam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc, tvc, cw):
     """c_lin(t) and its time derivative (the linear solution at the saturable compartment)."""
     if t <= 0.0:
         return x0[pc] / tvc, r0[pc] / tvc
@@ -262,7 +263,7 @@ def _central(t, t_thr, k_all, lam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, 
         if x < -60.0:
             break  # decayed, and so are the faster ones: their forcing constants in csum
         ex = math.exp(x)
-        p1 = (ex - 1.0) / el if abs(x) > 0.5 else t * _phi1(x)
+        p1 = (ex - 1.0) * ilam[s] if abs(x) > 0.5 else t * _phi1(x)
         c += vyc[s] * (ex * z0[s] + p1 * gz[s])
         dc += vyc[s] * ex * (el * z0[s] + gz[s])
         s += 1
@@ -272,12 +273,115 @@ def _central(t, t_thr, k_all, lam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, 
 
 
 @njit(inline="always", error_model="numpy")
+def _amplitudes(t, wa, wb, kz, L, zs, zi):
+    """The amplitudes ``zs`` of every computed mode at local time ``t`` (> 0, past the rational
+    approximation's times) and their integrals ``zi``: the linear part's exact ones plus the
+    integrated amplitudes ``wa`` and their integrals ``wb`` of the first ``kz``."""
+    k_all = L[9]
+    lam = L[5]
+    z0 = L[10]
+    gz = L[11]
+    has_g = L[17]
+    ilam = L[26]
+    for s in range(k_all):
+        el = lam[s]
+        x = el * t
+        ex = math.exp(x) if x > -700.0 else 0.0
+        p1 = (ex - 1.0) * ilam[s] if abs(x) > 0.5 else t * _phi1(x)
+        zs[s] = ex * z0[s]
+        zi[s] = p1 * z0[s]
+        if has_g:
+            zs[s] += p1 * gz[s]
+            zi[s] += t * t * _phi2(x) * gz[s]
+        if s < kz:
+            zs[s] += wa[s]
+            zi[s] += wb[s]
+
+
+@njit(inline="always", error_model="numpy")
+def _row_values(t, wa, wb, wu, kz, r, y0, g, L, P, W):
+    """Row ``r`` of the block of rows ``W`` (see :func:`_flush_rows`) at local time ``t`` (past the
+    rational approximation's times): the amplitudes of the modes and of the static part (the
+    elimination u, whose pattern follows the modes') and the cumulative amounts. Returns False
+    when the Newton iteration of the saturable concentration fails."""
+    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
+     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
+    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
+    zsb = W[1]
+    qb = W[3]
+    zr = zsb[r]
+    _amplitudes(t, wa, wb, kz, L, zr, zi)
+    b = yfast[pc]  # the state at the saturable compartment before the static part, in the order of _state
+    for s in range(k_all):
+        b += vy[s, pc] * zr[s]
+    c, ok = _conc(b, s_f, vmax, km, icap)
+    zr[k_all] = -saturable_rate(vmax, km, c) * icap
+    qr_ = qb[r]
+    for q in range(qr_.shape[0]):
+        qs[q] = qconst[q] + qslope[q] * t
+    for q in qm:  # the cumulative amounts that some mode moves (the others: their weights are 0)
+        acc = qs[q]
+        for s in range(k_all):
+            acc += wt[s, q] * zi[s]
+        qs[q] = acc
+    for q in range(qr_.shape[0]):
+        qr_[q] = y0[nd + q] + g[nd + q] * t + qs[q] + uq[q] * wu
+    W[4][r] = t
+    return ok
+
+
+@njit(inline="always", error_model="numpy")
+def _flush_rows(nb, y0, g, out, full, row, taps, row0, cap, L, P, W):
+    """Keep the ``nb`` rows of the block ``W`` = (patterns, amplitudes, states, cumulative amounts,
+    times, row indices, (chained, pos, plo, phi, capc, isc), guard minima): their states in chain
+    order four at a time (:func:`~barrierflow.engine.exact_chain.add_modes`, the static part's
+    pattern after the modes'), kept from there as the chain path keeps its rows
+    (:func:`~barrierflow.engine.exported.take_chain_row`), or scattered into the full state where
+    that is asked for, for the buffers' last row, or where the barriers are not neighbours on the
+    chain. Returns the number of rows kept in chain order."""
+    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
+     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
+    nd = P[7]
+    vyp, zsb, ysb, qb, tb, rix, ct, mins = W
+    chained, pos, plo, phi, capc, isc = ct
+    last_row = taps[4].shape[0] - 1
+    for r in range(4):
+        yr = ysb[r]
+        for a in range(n):
+            yr[a] = yfast[a]
+    add_modes(vyp, zsb, ysb, n, vyp.shape[0])
+    kept = 0
+    for r in range(nb):
+        t = tb[r]
+        io = rix[r]
+        ys = ysb[r]
+        for a in range(n):
+            if alone[a]:
+                ia = idx[a]
+                ys[a] = y0[ia] + g[ia] * t
+        dst = out[io] if full else row
+        qr_ = qb[r]
+        for q in range(qr_.shape[0]):
+            dst[nd + q] = qr_[q]
+        if chained and row0 + io != last_row:
+            take_chain_row(ys, dst, row0 + io, taps, pos, capc, isc, plo, phi, mins)
+            kept += 1
+            continue
+        for q in range(n_fixed):
+            dst[fixed[q]] = y0[fixed[q]]
+        for a in range(n):
+            dst[idx[a]] = ys[a]
+        take_row(dst, row0 + io, taps, cap, nd)
+    return kept
+
+
+@njit(inline="always", error_model="numpy")
 def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
     """The full state at local time ``t`` into ``dst`` from the amplitudes ``wa`` of the slow
     modes, their integrals ``wb`` and the integral ``wu`` of u; ``out_c[0]`` gets the saturable
     compartment's concentration. Returns False when its Newton iteration fails."""
     (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv) = L
+     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
     (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
     nqd = dst.shape[0] - nd
     if t > 0.0 and t < t_thr:
@@ -310,19 +414,7 @@ def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
                 acc += wt[s, q] * wb[s]
             qs[q] = acc
     else:
-        for s in range(k_all):
-            el = lam[s]
-            x = el * t
-            ex = math.exp(x) if x > -700.0 else 0.0
-            p1 = (ex - 1.0) / el if abs(x) > 0.5 else t * _phi1(x)
-            zs[s] = ex * z0[s]
-            zi[s] = p1 * z0[s]
-            if has_g:
-                zs[s] += p1 * gz[s]
-                zi[s] += t * t * _phi2(x) * gz[s]
-            if s < kz:
-                zs[s] += wa[s]
-                zi[s] += wb[s]
+        _amplitudes(t, wa, wb, kz, L, zs, zi)
         # the modes decayed below exp(-60) add nothing to the states (without forcing), nor do
         # the slow ones beyond those integrated
         kb = k_all
@@ -338,7 +430,9 @@ def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
             for a in range(n):
                 ys[a] += v[a] * z
         for q in range(nqd):
-            acc = qconst[q] + qslope[q] * t
+            qs[q] = qconst[q] + qslope[q] * t
+        for q in qm:  # the cumulative amounts that some mode moves
+            acc = qs[q]
             for s in range(k_all):
                 acc += wt[s, q] * zi[s]
             qs[q] = acc
@@ -357,14 +451,24 @@ def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
 
 # ---------------------------------------------------------------- the slow modes' system
 @njit(inline="always", error_model="numpy")
-def _rates(t, wa, kz, fa, L, P, R):
-    """The rates of the integrated system at local time ``t``: fa (the amplitudes' rates) in place;
+def _central_at(t, L, P, R):
+    """c_lin(t) and dc_lin/dt (:func:`_central`) from the run's tuples."""
+    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
+     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
+    pc = P[0]
+    (beta, vyc, csum, cfast, tvc, r0, cw4, t_lim) = R
+    return _central(t, t_lim, k_all, lam, ilam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc, tvc, cw4)
+
+
+@njit(inline="always", error_model="numpy")
+def _rates(cl, dcl, wa, kz, fa, L, P, R):
+    """The rates of the integrated system where the linear solution's concentration is ``cl``
+    (its time derivative ``dcl``; :func:`_central_at`): fa (the amplitudes' rates) in place;
     returns (u, du/dc / (1 - s_f du/dc), dc_lin/dt, ok)."""
     (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv) = L
+     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
     (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
     (beta, vyc, csum, cfast, tvc, r0, cw4, t_lim) = R
-    cl, dcl = _central(t, t_lim, k_all, lam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc, tvc, cw4)
     b = cl
     for s in range(kz):
         b += vyc[s] * wa[s]
@@ -378,28 +482,26 @@ def _rates(t, wa, kz, fa, L, P, R):
 
 
 @njit(inline="always", error_model="numpy")
-def _lin_solve(fac, kz, lam, beta, vyc, gam, ra, rb, ru, ka, kb):
+def _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam, ra, rb, ru, ka, kb):
     """Solve (fac I - J) k = r for the integrated system (J: diag(lam) + beta gam vyc^T on the
     amplitudes, the identity into their integrals, gam vyc^T into the integral of u) by Sherman and
-    Morrison; returns the component of the integral of u."""
+    Morrison; ``ifac`` = 1 / fac, ``inv_d`` = 1 / (fac - lam), ``den`` = 1 - gam vyc . (inv_d
+    beta) (the same for every stage of a step); returns the component of the integral of u."""
     num = 0.0
-    den = 1.0
     for s in range(kz):
-        d = fac - lam[s]
-        num += vyc[s] * ra[s] / d
-        den -= gam * vyc[s] * beta[s] / d
+        num += vyc[s] * ra[s] * inv_d[s]
     sig = num / den  # vyc . ka
     for s in range(kz):
-        ka[s] = (ra[s] + beta[s] * gam * sig) / (fac - lam[s])
-        kb[s] = (rb[s] + ka[s]) / fac
-    return (ru + gam * sig) / fac
+        ka[s] = (ra[s] + beta[s] * gam * sig) * inv_d[s]
+        kb[s] = (rb[s] + ka[s]) * ifac
+    return (ru + gam * sig) * ifac
 
 
 @njit(inline="always", error_model="numpy")
 def _norm(dst_old, dst_new, ka, kb, ku, kz, gam, L, P, atol, rtol, nc, err_state):
     """The product's RODAS4 error measure of the step estimate (ka, kb, ku) mapped onto every state."""
     (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv) = L
+     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
     (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
     n_state = dst_old.shape[0]
     for i in range(n_state):
@@ -420,7 +522,9 @@ def _norm(dst_old, dst_new, ka, kb, ku, kz, gam, L, P, atol, rtol, nc, err_state
             err_state[idx[a]] = ys[a]
     nqd = n_state - nd
     for q in range(nqd):
-        v = uq[q] * ku
+        err_state[nd + q] = uq[q] * ku
+    for q in qm:  # the cumulative amounts that some mode moves
+        v = err_state[nd + q]
         for s in range(kz):
             v += wt[s, q] * kb[s]
         err_state[nd + q] = v
@@ -435,11 +539,12 @@ def _norm(dst_old, dst_new, ka, kb, ku, kz, gam, L, P, atol, rtol, nc, err_state
 
 
 @njit(**INNER)
-def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol, atol, nc, h, max_steps, stats,
+def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, rtol, atol, nc, h, max_steps, stats,
               static_w, info, g, carry):
     """RODAS4 on the slow modes from local time 0 to ``t_end``; rows at ``tau`` kept (as the chain
     path keeps them), the state at ``t_end`` into ``y``. The amplitudes start from ``carry`` and
-    end there. Returns (status, the next step size)."""
+    end there. ``W`` is the block of rows (:func:`_flush_rows`). Returns (status, the next step
+    size)."""
     nd = P[7]
     n_state = y.shape[0]
     ca, cc, cd = coef
@@ -462,6 +567,7 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
     nb = np.zeros(nw)
     ra = np.zeros(nw)
     rb = np.zeros(nw)
+    inv_d = np.zeros(nw)
     c2a = np.zeros(nw)
     c3a = np.zeros(nw)
     c2b = np.zeros(nw)
@@ -474,6 +580,11 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
     lam = L[5]
     beta = R[0]
     vyc = R[1]
+    t_rat = L[18]
+    rix = W[5]
+    n_pend = 0
+    n_kept = 0
+    uo = 0.0
     io = 0
     while io < n_t and tau[io] <= 0.0:
         dst = out[io] if full else row
@@ -502,7 +613,8 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
         if t + 1.0001 * h >= t_end:  # step cut short at the interval's end
             h = t_end - t
             last = True
-        u0, gam0, dcl0, ok = _rates(t, wa, kz, fa0, L, P, R)
+        cl0, dcl0 = _central_at(t, L, P, R)
+        u0, gam0, dcl0, ok = _rates(cl0, dcl0, wa, kz, fa0, L, P, R)
         if not ok:
             return FAIL_NEWTON, h
         # the time derivative of the rates (the linear solution moves c): non-autonomous RODAS4
@@ -510,7 +622,15 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
         umax = 0.0
         while True:
             fac = 1.0 / (h * GAMMA)
+            ifac = h * GAMMA
             ih = 1.0 / h
+            den = 1.0
+            for s in range(kz):
+                inv_d[s] = 1.0 / (fac - lam[s])
+                den -= gam0 * vyc[s] * beta[s] * inv_d[s]
+            t_cl = -1.0
+            cl_s = 0.0
+            dcl_s = 0.0
             for st in range(6):
                 ts = t + STAGE_TIME[st] * h
                 for s in range(kz):
@@ -525,7 +645,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
                     gam_s = gam0
                     dcl_s = dcl0
                 else:
-                    u_s, gam_s, dcl_s, ok = _rates(ts, ya, kz, fa, L, P, R)
+                    if ts != t_cl:  # the last two stages share their time
+                        cl_s, dcl_s = _central_at(ts, L, P, R)
+                        t_cl = ts
+                    u_s, gam_s, dcl_s, ok = _rates(cl_s, dcl_s, ya, kz, fa, L, P, R)
                     if not ok:
                         return FAIL_NEWTON, h
                 # du/dt at the stage point: u' dc/dt, dc/dt = (dc_lin/dt + vyc . a') / (1 - s_f u')
@@ -546,7 +669,7 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
                     rb[s] = vb
                 for j in range(st):
                     ru += cc[st, j] * ih * kku[j]
-                kku[st] = _lin_solve(fac, kz, lam, beta, vyc, gam0, ra, rb, ru, kka[st], kkb[st])
+                kku[st] = _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam0, ra, rb, ru, kka[st], kkb[st])
             # the new solution: the last stage's point plus k_6 (RODAS4 is stiffly accurate)
             for s in range(kz):
                 va = wa[s]
@@ -611,20 +734,33 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
                 u2 += cd[0, j] * kku[j]
                 u3 += cd[1, j] * kku[j]
             while io < n_t and tau[io] <= t_new:
-                dst = out[io] if full else row
                 sx = (tau[io] - t) / h
-                if sx >= 1.0:
-                    for i in range(n_state):
-                        dst[i] = new[i]
-                else:
-                    s1 = 1.0 - sx
+                s1 = 1.0 - sx
+                if sx < 1.0:
                     for s in range(kz):
                         ya[s] = wa[s] + sx * ((na[s] - wa[s]) + s1 * (c2a[s] + sx * c3a[s]))
                         yb[s] = wb[s] + sx * ((nb[s] - wb[s]) + s1 * (c2b[s] + sx * c3b[s]))
                     uo = wu + sx * ((nu - wu) + s1 * (u2 + sx * u3))
-                    if not _state(tau[io], ya, yb, uo, kz, dst, y0, g, L, P, cbuf):
+                if tau[io] < t_rat:  # the rational approximation's times: one row at a time
+                    dst = out[io] if full else row
+                    if sx >= 1.0:
+                        for i in range(n_state):
+                            dst[i] = new[i]
+                    elif not _state(tau[io], ya, yb, uo, kz, dst, y0, g, L, P, cbuf):
                         return FAIL_NEWTON, h
-                take_row(dst, row0 + io, taps, cap, nd)
+                    take_row(dst, row0 + io, taps, cap, nd)
+                else:  # the others four at a time, in chain order
+                    if sx >= 1.0:
+                        ok = _row_values(t_new, na, nb, nu, kz, n_pend, y0, g, L, P, W)
+                    else:
+                        ok = _row_values(tau[io], ya, yb, uo, kz, n_pend, y0, g, L, P, W)
+                    if not ok:
+                        return FAIL_NEWTON, h
+                    rix[n_pend] = io
+                    n_pend += 1
+                    if n_pend == 4:
+                        n_kept += _flush_rows(n_pend, y0, g, out, full, row, taps, row0, cap, L, P, W)
+                        n_pend = 0
                 io += 1
         for s in range(kz):
             wa[s] = na[s]
@@ -641,6 +777,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, kz, coef, rtol
         reject = False
         h_carry = h_new if not last else max(h_new, h_carry)
         h = h_new
+    if n_pend:
+        n_kept += _flush_rows(n_pend, y0, g, out, full, row, taps, row0, cap, L, P, W)
+    if n_kept:
+        flush_chain_guard(W[7], taps, y0, W[6][1])
     for i in range(n_state):
         y[i] = cur[i]
     for i in range(kz):
@@ -697,6 +837,16 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     s_f = 0.0
     static_w = np.zeros(4)
     sfy = np.zeros(Lz)
+    vyp = np.zeros((4, Lz))
+    qm = np.zeros(0, dtype=np.int64)
+    ilam = np.zeros(1)
+    rows_z = np.zeros((4, 4))
+    chain_t = chain_taps(idx, 0, nd, taps, m.capacity, full)
+    rows_y = np.zeros((4, Lz))
+    rows_q = np.zeros((4, nqd))
+    rows_t = np.zeros(4)
+    rows_i = np.zeros(4, dtype=np.int64)
+    mins = np.zeros((3, Lz))
     uq = np.zeros(nqd)
     beta = np.zeros(1)
     vy = np.zeros((1, Lz))
@@ -780,6 +930,24 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                     continue
                 for s_ in range(k_all):
                     wt[s_, qr[j] - nd] += qv[j] * vy[s_, a]
+            # the cumulative amounts that some mode moves (the others take their constant and slope)
+            n_qm = 0
+            for q in range(nqd):
+                for s_ in range(k_all):
+                    if wt[s_, q] != 0.0:
+                        n_qm += 1
+                        break
+            qm = np.zeros(n_qm, dtype=np.int64)
+            n_qm = 0
+            for q in range(nqd):
+                for s_ in range(k_all):
+                    if wt[s_, q] != 0.0:
+                        qm[n_qm] = q
+                        n_qm += 1
+                        break
+            ilam = np.zeros(max(k_all, 1))
+            for s_ in range(k_all):
+                ilam[s_] = 1.0 / lam[s_]
             # static response of the fast modes to u: s_F = -P T^+ P beta (beta = tv_c e_c)
             for a in range(n):
                 e1[a] = 0.0
@@ -789,6 +957,16 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             for a in range(n):
                 sfy[a] = -pe[a] * tv[pc] / tv[a]
             s_f = sfy[pc]
+            # the rows' patterns: the modes' states, then the static part's (per unit u), padded
+            # to a multiple of four with zeros
+            vyp = np.zeros(((k_all + 4) // 4 * 4, Lz))
+            for s_ in range(k_all):
+                for a in range(n):
+                    vyp[s_, a] = vy[s_, a]
+            for a in range(n):
+                vyp[k_all, a] = sfy[a]
+            rows_z = np.zeros((4, vyp.shape[0]))
+            chain_t = chain_taps(idx, n, nd, taps, m.capacity, full)
             for q in range(nqd):
                 uq[q] = 0.0
             for j in range(nq):
@@ -924,15 +1102,16 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                 t_all = max(t_all, math.log(b_q / tgt) / -cut_now)
         t_all = min(t_all, t_thr)
         L = (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_all,
-             alone, fixed, n_fixed, nq, qr, qc, qv)
+             alone, fixed, n_fixed, nq, qr, qc, qv, ilam, qm)
         R = (beta, vyc_all, csum, yfast[pc], tv[pc], r0, cw4, t_lim)
         sel_end = rows_until(times, row, t1, k == n_marks - 2)
         m_out = sel_end - row
         tau = np.empty(m_out)
         for r in range(m_out):
             tau[r] = times[row + r] - t0
+        W = (vyp, rows_z, rows_y, rows_q, rows_t, rows_i, chain_t, mins)
         status, h = _interval(y, t1 - t0, tau, states[row:sel_end] if full else states, full, taps, row,
-                              m.capacity, L, P, R, kz, coef, rtol, atol, nc, h, max_steps, stats, static_w, info, g,
+                              m.capacity, L, P, R, W, kz, coef, rtol, atol, nc, h, max_steps, stats, static_w, info, g,
                               carry)
         if status != OK:
             return status

@@ -449,65 +449,89 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
             xq[s] = mid
     lam = lam_all[k0:k0 + k]
     vec = np.zeros((k, n))
-    # inverse iteration with partial pivoting, re-orthogonalised against the slower modes
-    a0 = np.empty(n)
-    a1 = np.empty(n)
-    a2 = np.empty(n)
-    piv = np.empty(n, dtype=np.bool_)
-    x = np.empty(n)
+    # inverse iteration with partial pivoting, re-orthogonalised against the slower modes; the
+    # factorisations and solves of all the modes in lockstep (position by position, the modes
+    # side by side: their chains of divisions overlap and run in vector lanes; each mode's
+    # arithmetic is that of a solve of its own), the re-orthogonalisation mode by mode
+    sig = np.empty(k)
+    a0 = np.empty((n, k))
+    a1 = np.empty((n, k))
+    a2 = np.empty((n, k))
+    mult = np.empty((n, k))
+    piv = np.empty((n, k), dtype=np.bool_)
+    vt = np.empty((n, k))
+    uu0 = np.empty(k)
+    uu1 = np.empty(k)
     for s in range(k):
-        sig = 0.5 * (lo[s] + hi[s])
+        sig[s] = 0.5 * (lo[s] + hi[s])
         # factor T - sig I: rows kept as (a0 diag, a1 super, a2 second super)
-        u0 = dd[0] - sig
-        u1 = ee[0] if n > 1 else 0.0
+        uu0[s] = dd[0] - sig[s]
+        uu1[s] = ee[0] if n > 1 else 0.0
+    for i in range(n - 1):
+        lsub = ee[i]
+        nsup = ee[i + 1] if i + 2 < n else 0.0
+        alsub = abs(lsub)
+        d1 = dd[i + 1]
+        r0 = a0[i]
+        r1 = a1[i]
+        r2 = a2[i]
+        rm = mult[i]
+        rp = piv[i]
+        for s in range(k):  # branch-free: the two cases of the pivoting side by side
+            u0 = uu0[s]
+            u1 = uu1[s]
+            nd_ = d1 - sig[s]
+            swap = not abs(u0) >= alsub  # (a NaN takes the swap, as before)
+            u0k = pivmin if u0 == 0.0 else u0  # kept (no row swap): a zero pivot moved off zero
+            mlt = (u0 / lsub) if swap else (lsub / u0k)
+            rp[s] = swap
+            r0[s] = lsub if swap else u0k
+            r1[s] = nd_ if swap else u1
+            r2[s] = nsup if swap else 0.0
+            rm[s] = mlt
+            uu0[s] = (u1 - mlt * nd_) if swap else (nd_ - mlt * u1)
+            uu1[s] = (-mlt * nsup) if swap else nsup
+    for s in range(k):
+        u0 = uu0[s]
+        a0[n - 1, s] = pivmin if u0 == 0.0 else u0
+    for i in range(n):
+        for s in range(k):
+            vt[i, s] = 1.0 + 0.01 * ((i * 7919 + s * 104729) % 101) / 101.0
+    for _rep in range(2):
+        # forward: apply the row operations
         for i in range(n - 1):
-            lsub = ee[i]
-            nd_ = dd[i + 1] - sig
-            nsup = ee[i + 1] if i + 2 < n else 0.0
-            if abs(u0) >= abs(lsub):
-                piv[i] = False
-                if u0 == 0.0:
-                    u0 = pivmin
-                mlt = lsub / u0
-                a0[i] = u0
-                a1[i] = u1
-                a2[i] = 0.0
-                x[i] = mlt  # multiplier
-                u0 = nd_ - mlt * u1
-                u1 = nsup
-            else:
-                piv[i] = True
-                mlt = u0 / lsub
-                a0[i] = lsub
-                a1[i] = nd_
-                a2[i] = nsup
-                x[i] = mlt
-                u0 = u1 - mlt * nd_
-                u1 = -mlt * nsup
-        if u0 == 0.0:
-            u0 = pivmin
-        a0[n - 1] = u0
-        mult = x.copy()
-        v = vec[s]
-        for i in range(n):
-            v[i] = 1.0 + 0.01 * ((i * 7919 + s * 104729) % 101) / 101.0
-        for _rep in range(2):
-            # forward: apply the row operations
-            for i in range(n - 1):
-                if piv[i]:
-                    tmp = v[i]
-                    v[i] = v[i + 1]
-                    v[i + 1] = tmp - mult[i] * v[i]
-                else:
-                    v[i + 1] -= mult[i] * v[i]
-            # back substitution
-            v[n - 1] /= a0[n - 1]
-            if n > 1:
-                v[n - 2] = (v[n - 2] - a1[n - 2] * v[n - 1]) / a0[n - 2]
-            for i in range(n - 3, -1, -1):
-                v[i] = (v[i] - a1[i] * v[i + 1] - a2[i] * v[i + 2]) / a0[i]
-            # re-orthogonalised (twice) after the last solve: after the first, the slower modes'
-            # share is already down to about |lam - sig| / gap
+            vi = vt[i]
+            vj = vt[i + 1]
+            rm = mult[i]
+            rp = piv[i]
+            for s in range(k):
+                upper_ = vi[s]
+                lower_ = vj[s]
+                first = lower_ if rp[s] else upper_
+                second = upper_ if rp[s] else lower_
+                vi[s] = first
+                vj[s] = second - rm[s] * first
+        # back substitution
+        for s in range(k):
+            vt[n - 1, s] /= a0[n - 1, s]
+        if n > 1:
+            for s in range(k):
+                vt[n - 2, s] = (vt[n - 2, s] - a1[n - 2, s] * vt[n - 1, s]) / a0[n - 2, s]
+        for i in range(n - 3, -1, -1):
+            vi = vt[i]
+            v1 = vt[i + 1]
+            v2 = vt[i + 2]
+            r0 = a0[i]
+            r1 = a1[i]
+            r2 = a2[i]
+            for s in range(k):
+                vi[s] = (vi[s] - r1[s] * v1[s] - r2[s] * v2[s]) / r0[s]
+        # mode by mode: re-orthogonalised (twice) after the last solve (after the first, the
+        # slower modes' share is already down to about |lam - sig| / gap), normalised
+        for s in range(k):
+            v = vec[s]
+            for i in range(n):
+                v[i] = vt[i, s]
             for _gs in range(2 * _rep):
                 for r in range(s):
                     vr = vec[r]
@@ -521,6 +545,11 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
                 nrm = 1.0
             for i in range(n):
                 v[i] /= nrm
+            if _rep == 0:
+                for i in range(n):
+                    vt[i, s] = v[i]
+    for s in range(k):
+        v = vec[s]
         # Rayleigh quotient as a sum of squares (no cancellation)
         acc = 0.0
         for i in range(n):

@@ -274,8 +274,9 @@ def test_rodas_saturable_held_and_infused_against_radau():
 
 def test_auto_choice():
     assert solve(patch_body()).integrator == "exact"
-    # six cells a layer: the estimate of cost prefers RODAS4 to the split path on so small a network
-    assert solve(patch_body(saturable=True)).integrator == "rodas4"
+    # six cells a layer: the estimate of cost prefers the split path to RODAS4 (1.06 and 1.23 ms
+    # measured, the shortest of 21 runs, load 4)
+    assert solve(patch_body(saturable=True)).integrator == "split"
     assert solve(with_transfer()).integrator == "exact"  # small: matrix exponentials
     assert exact_supported(compile_scenario(two_barriers()))
 

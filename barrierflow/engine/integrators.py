@@ -562,36 +562,50 @@ class AutoIntegrator(Integrator):
         return self.resolve(model).working_memory(model)
 
 
-EXACT_PREFERENCE = 1.5
+EXACT_PREFERENCE = 1.0
 """The default takes the modes or matrix-exponential path while its estimated cost is at most this
-many times RODAS4's (the exact paths are exact to rounding; the estimates are rough)."""
+many times RODAS4's. No preference beyond the estimate: both are accurate within the benchmark's
+contract, the default should lose no more than 1.3x to the fastest path on any network, and the
+estimates are off by about 10 % at the median (at 1.5, with the earlier constants, the default
+took the modes on the benchmark's star of 4 barriers, 1.26x slower than RODAS4)."""
 
-RODAS_STEPS = 60
-"""Steps per dosing interval that :func:`estimated_seconds` expects of RODAS4 (the benchmark's
-networks take 35 to 140 at the default tolerances)."""
+RODAS_STEPS = (61.0, 49.5)
+"""Steps that :func:`estimated_seconds` expects of RODAS4 at the default tolerances: the first
+number once per run, the second per dosing interval (a least-squares line through 288 runs of
+stars of 2 to 12 barriers of 2 to 8 cells a layer over 1 to 14 dosing intervals, 106 to 1,020
+steps each)."""
 
 
 def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int) -> float:
     """A rough estimate of the seconds a path takes for ``model``, to choose between paths.
 
-    ``path`` is ``"rodas"`` (per step and state, and per output row and state: O(n) each),
-    ``"split"`` (the slow modes of the chain once, O(k^2 n), steps on k modes, O(k) each, a few
-    rational evaluations after each event, O(n), and per output row O(k n)),
-    ``"modes"`` (a dense symmetric decomposition, O(n^3), and every mode at every row, O(n^2)) or
-    ``"expm"`` (about three exponentials of the augmented matrix per interval, O(n^3) each, and a
-    product per row, O(n^2)), with what each costs per dosing interval in Python. The constants
-    were measured on small stars of barriers, with and without a transfer (one thread; only their
-    ratios matter).
+    ``path`` is ``"rodas"`` (a set-up, then per step O(n) and per output row O(n), the steps as
+    :data:`RODAS_STEPS`), ``"split"`` (the slow modes of the chain once, O(k^2 n), steps on k
+    modes, O(k) each, a few rational evaluations after each event, O(n), and per output row
+    O(k n)), ``"modes"`` (a set-up, a dense symmetric decomposition, O(n^3), and per output row
+    the modes not decayed, O(n min(n, 40))) or ``"expm"`` (a set-up, about three exponentials of
+    the augmented matrix per interval, O(n^3) each, and per output row about 2 us and a product,
+    O(n^2)). Only the
+    ratios between paths matter. The constants of ``rodas`` and ``modes`` are a least-squares
+    fit (weighted by 1/time) to the shortest of 11 runs of each path on 288 stars of barriers
+    (2 to 12 barriers, 2 to 8 cells a layer, 1 to 14 dosing intervals, 169 to 4,033 output
+    rows; median error of the fit 9-10 %, 95th percentile 28 %); on those, choosing by them puts
+    the default within 1.3x of the faster path on 286 of the 288 (with the constants they
+    replace, on 229). ``expm``'s cost per output row was measured on 22 stars with a transfer
+    (1,009 rows; RODAS4 1.4 to 300 times faster) and a patch on a two-compartment body with a
+    transfer (49 rows; expm 0.55 ms, RODAS4 0.68 ms); ``split``'s constants come from reasoning
+    about its operation counts.
     """
     n, nd = model.n_state, model.n_dyn
     if path == "rodas":
-        return 3e-4 + n * (RODAS_STEPS * intervals * 7e-8 + rows * 5e-9)
+        steps = RODAS_STEPS[0] + RODAS_STEPS[1] * intervals
+        return 6.2e-4 + steps * (2.1e-6 + 1.54e-8 * n) + 2e-9 * rows * n
     if path == "split":
         return 3e-4 + 1.5e-4 * intervals + n * (rows * 4e-9 + 2e-6)
     if path == "modes":
-        return 1.5e-4 * intervals + 1.4e-9 * nd ** 3 + 1e-9 * rows * nd * min(nd, 40)
+        return 8.6e-4 + 3.8e-5 * intervals + 3e-10 * nd ** 3 + 8.1e-10 * rows * nd * min(nd, 40)
     if path == "expm":
-        return 1.5e-4 * intervals + 3e-9 * intervals * (n + 1) ** 3 + 1e-9 * rows * n * n
+        return 3e-4 + 1.5e-4 * intervals + 3e-9 * intervals * (n + 1) ** 3 + rows * (2e-6 + 1e-9 * n * n)
     raise ValueError(f"unknown path {path!r}")
 
 

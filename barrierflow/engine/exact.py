@@ -45,7 +45,7 @@ from .exact_chain import _phi1, _phi2, chain_order, chain_schedule
 from .exported import Rows, empty_taps, new_buffers, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, refuse_vehicle_terms
 from .kernels import jacobian_coo, jacobian_size, rates
-from .schedule import apply_events, new_event_state, rows_until
+from .schedule import apply_events, rows_until, start_events
 
 __all__ = ["ExactIntegrator", "exact_supported", "phi1", "phi2"]
 
@@ -357,14 +357,17 @@ def mode_time(times: np.ndarray, marks: np.ndarray) -> float:
     output just after a dose, a short interval) are computed by the rational approximation, a few
     solves with the chain matrix each.
     """
-    k = np.clip(np.searchsorted(marks, times, side="right") - 1, 0, len(marks) - 2)
-    local = times - marks[k]
-    gaps = np.diff(marks)
-    cand = np.concatenate([local[local > 0.0], gaps[gaps > 0.0]])
+    k = np.searchsorted(marks, times, side="right")
+    k -= 1
+    np.minimum(k, len(marks) - 2, out=k)
+    np.maximum(k, 0, out=k)
+    cand = np.concatenate((times - marks[k], marks[1:] - marks[:-1]))  # the local times, the gaps
+    cand = cand[cand > 0.0]
     if not len(cand):
         return 1.0
     r = min(RATIONAL_ROWS, len(cand) - 1)
-    return max(float(cand.min()), 0.25 * float(np.partition(cand, r)[r]))
+    part = np.partition(cand, r)  # the r + 1 shortest first, the (r + 1)-th at r
+    return max(float(part[:r + 1].min()), 0.25 * float(part[r]))
 
 
 _shortest_time = mode_time  # the name the population runner imports
@@ -493,7 +496,7 @@ class ExactIntegrator(Integrator):
         stats = RunStats()
         base = m.arrays
         work = working_copy(base)  # the links as the events leave them (a closed face)
-        s = new_event_state(base, len(ev.time))
+        s = start_events(base, len(ev.time))
         order = chain_order(m) if self.method in ("auto", "chain") else None
         if order is None and self.method == "chain":
             raise ScenarioError.single("integrator method", "'chain'",

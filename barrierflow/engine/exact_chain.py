@@ -374,6 +374,9 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
     # per pass. Done when the bracket is below the bisection's tolerance; a step of Newton's below
     # it is confirmed by the counts just below and above its limit, which close the bracket (the
     # logarithmic derivative could be spoiled by cancellation near a pole of one q_i).
+    # A bracket that holds several eigenvalues is cut at as many points, one per mode in it, not
+    # at its midpoint by each of them (multisection: the modes' points in one pass no longer
+    # fall on the same value while their eigenvalues are not yet apart).
     xq = np.empty(kb)
     rq = np.empty(kb)
     dq = np.empty(kb)
@@ -385,6 +388,11 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
     tol = 4e-16 * tnorm
     for s in range(kb):
         xq[s] = 0.5 * (lo[s] + hi[s])
+        j = chi[s] - clo[s]
+        if j > 1:  # mode s is eigenvalue n - 1 - s, number (n - 1 - s) - clo[s] of those in its bracket
+            x = lo[s] + (hi[s] - lo[s]) * (min(max(n - 1 - s - clo[s], 0), j - 1) + 1) / (j + 1)
+            if lo[s] < x < hi[s]:
+                xq[s] = x
     for _it in range(200):
         done = True
         for s in range(kb):
@@ -447,6 +455,11 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
                     xq[s] = xn
                     continue
             xq[s] = mid
+            j = chi[s] - clo[s]
+            if j > 1:  # several eigenvalues in the bracket: mode s's share of it (see above)
+                x = lo[s] + (hi[s] - lo[s]) * (min(max(n - 1 - s - clo[s], 0), j - 1) + 1) / (j + 1)
+                if lo[s] < x < hi[s]:
+                    xq[s] = x
     lam = lam_all[k0:k0 + k]
     vec = np.zeros((k, n))
     # inverse iteration with partial pivoting, re-orthogonalised against the slower modes; the

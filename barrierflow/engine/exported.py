@@ -63,8 +63,7 @@ def taps_of(model: CompiledModel) -> Taps:
     for g in m.grids:
         for link in (g.in_link, g.out_link):
             faces += [int(m.link_p[link]), int(m.link_q[link])]
-    keep = np.unique(np.concatenate([np.arange(m.n_comp), np.array(faces, dtype=np.int64),
-                                     np.arange(m.n_dyn, m.n_state)]).astype(np.int64))
+    keep = np.array(sorted({*range(m.n_comp), *faces, *range(m.n_dyn, m.n_state)}), dtype=np.int64)
     pos = np.full(m.n_state, -1, dtype=np.int64)
     pos[keep] = np.arange(len(keep))
     bstart = np.array([g.start for g in m.grids], dtype=np.int64)

@@ -43,7 +43,7 @@ from .compiled import CompiledModel
 from .exported import Rows
 from .ledger import busiest_part
 from .problem import IntervalProblem, IntervalSettings
-from .schedule import EventArrays, apply_events, new_event_state, rows_until
+from .schedule import EventArrays, apply_events, rows_until, start_events
 from .vehicle import VehicleProblem
 
 __all__ = ["INTEGRATORS", "VEHICLE", "AutoIntegrator", "Integration", "IntervalIntegrator", "Integrator", "RunPlan",
@@ -283,7 +283,7 @@ class IntervalIntegrator(Integrator):
         model, times, marks = plan.model, plan.times, plan.marks
         base = model.arrays
         m = working_copy(base)
-        s = new_event_state(base, len(plan.events.time))
+        s = start_events(base, len(plan.events.time))
         n_t, n_c = len(times), model.n_comp
         stats = RunStats()
         states = np.full((n_t, model.n_state), np.nan)
@@ -534,12 +534,11 @@ class AutoIntegrator(Integrator):
 
         if model.vehicle_terms:
             return VEHICLE
-        rodas = RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
         if linear_part(model) is not None:
             n_rows, n_int = rows or 500, intervals or 1
             if estimated_seconds("split", model, n_rows, n_int) < estimated_seconds("rodas", model, n_rows, n_int):
                 return SplitIntegrator(rtol=self.rtol, atol=self.atol)
-            return rodas
+            return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
         if exact_supported(model, longest):
             exact = ExactIntegrator()
             if exact.working_memory(model) <= EXACT_MEMORY:
@@ -551,7 +550,7 @@ class AutoIntegrator(Integrator):
                 if (estimated_seconds(plan, model, n_rows, n_int)
                         <= EXACT_PREFERENCE * estimated_seconds("rodas", model, n_rows, n_int)):
                     return exact
-        return rodas
+        return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
 
     def run(self, plan: RunPlan) -> Integration:
         """Run ``plan`` on the integrator :meth:`resolve` picks."""

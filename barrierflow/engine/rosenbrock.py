@@ -59,7 +59,7 @@ from .compiled import CompiledModel
 from .exported import Rows, empty_taps, new_buffers, take_row, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
 from .kernels import INNER, jacobian_finish, jacobian_linear, jacobian_nonlinear, jacobian_size, rates_kernel
-from .schedule import apply_events, new_event_state, rows_until
+from .schedule import apply_events, rows_until, start_events
 
 __all__ = ["RosenbrockIntegrator", "Structure", "build_structure"]
 
@@ -1339,7 +1339,7 @@ class RosenbrockIntegrator(Integrator):
         rtol, atol = self.tolerances(model)
         n_jac = jacobian_size(model)
         y = base.y0.copy()
-        s = new_event_state(base, len(plan.events.time))
+        s = start_events(base, len(plan.events.time))
         ptr = np.zeros(2, dtype=np.int64)
         st = np.zeros(6, dtype=np.int64)
         n_int = len(marks) - 1

@@ -24,7 +24,7 @@ from ..model import Scenario
 from .arrays import INNER
 
 __all__ = ["KIND_CODE", "Event", "EventArrays", "EventState", "apply_events", "build_schedule", "closed_rows",
-           "RegimenBounds", "encode_events", "new_event_state", "regimen_bounds", "rows_until"]
+           "RegimenBounds", "encode_events", "new_event_state", "regimen_bounds", "rows_until", "start_events"]
 
 # kinds that end something come first at a shared time, then the file's own events in order
 _END_KINDS = ("infusion_end", "hold_end", "dry")
@@ -276,7 +276,7 @@ class EventState(NamedTuple):
     moved: np.ndarray
 
 
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def new_event_state(m, n_events):
     """The :class:`EventState` at the start of a run of ``m`` (ModelArrays) with ``n_events`` events."""
     nc = m.n_comp
@@ -285,6 +285,15 @@ def new_event_state(m, n_events):
         evaporating[p] = m.evap_rate[p] > 0.0
     return EventState(np.zeros(nc), m.held.copy(), np.zeros(nc, dtype=np.int64), np.zeros(nc), np.zeros(nc),
                       np.zeros(nc, dtype=np.bool_), evaporating, np.zeros(n_events))
+
+
+def start_events(m, n_events) -> EventState:
+    """:func:`new_event_state` called from Python: the same rule, run by the interpreter (a
+    compiled call boxes the named tuple it returns, which costs more than the rule itself)."""
+    return _NEW_EVENT_STATE(m, n_events)
+
+
+_NEW_EVENT_STATE = getattr(new_event_state, "py_func", new_event_state)  # (plain Python with the compiler off)
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)  # also called from Python

@@ -26,7 +26,7 @@ from .grid import Grid
 from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
 from .ledger import busiest_part, check_rows
 from .rosenbrock import RosenbrockIntegrator
-from .schedule import Event, apply_events, build_schedule, encode_events, new_event_state
+from .schedule import Event, apply_events, build_schedule, encode_events, start_events
 
 __all__ = ["ROBUST", "ROBUST_VEHICLE", "Trajectory", "check_memory", "robust_for", "solve"]
 
@@ -310,7 +310,7 @@ def _apply_at_end(model: CompiledModel, events: list[Event], states: np.ndarray,
         m.capacity[:n_c] = volumes[-1]
         m.inv_capacity[:n_c] = 1.0 / volumes[-1]
     y = states[-1].copy()
-    s = new_event_state(base, len(events))
+    s = start_events(base, len(events))
     s.dosed[:], s.removed[:] = ev_dosed[-1], ev_removed[-1]
     apply_events(np.inf, 0, encode_events(events), m, base, y, s)
     states[-1], ev_dosed[-1], ev_removed[-1] = y, s.dosed, s.removed

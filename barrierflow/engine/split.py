@@ -76,7 +76,7 @@ from .exported import Rows, chain_taps, empty_taps, flush_chain_guard, new_buffe
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
 from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_slope
 from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator, step_size
-from .schedule import apply_events, new_event_state, rows_until
+from .schedule import apply_events, rows_until, start_events
 
 __all__ = ["CUT_SLOW", "STATIC_SHARE", "SplitIntegrator", "linear_part", "split_schedule"]
 
@@ -1182,7 +1182,7 @@ class SplitIntegrator(Integrator):
         n_t, nc = len(times), model.n_comp
         base = lin.arrays
         work = working_copy(base)
-        s = new_event_state(base, len(ev.time))
+        s = start_events(base, len(ev.time))
         full = plan.full
         if full:
             states = np.empty((n_t, model.n_state))

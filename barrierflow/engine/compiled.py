@@ -36,6 +36,7 @@ with time or it holds undissolved solid, which only the scipy integrators run
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass, field
 from functools import cached_property
 
@@ -153,6 +154,11 @@ class CompiledModel:
         scipy integrators, through :mod:`barrierflow.engine.vehicle`, run such a model. (A held
         compartment above the solubility is a saturated reservoir: its potential is the solubility,
         which its partition entry gives; it stays linear.)"""
+        if self.evap_rate.ndim == 1:  # one model: a few compartments, read as plain numbers
+            return (any(x > 0 for x in self.evap_rate.tolist())
+                    or any(math.isfinite(x) and not h for x, h in zip(self.solubility.tolist(), self.held.tolist(),
+                                                                       strict=True))
+                    or any(self.shrinking.tolist()))
         return bool(np.any(self.evap_rate > 0) or np.any(np.isfinite(self.solubility) & ~self.held)
                     or np.any(self.shrinking))
 

@@ -67,18 +67,20 @@ def _chain_order(model: CompiledModel) -> np.ndarray | None:
     m = model
     if not m.is_linear or len(m.tr_from):
         return None
-    nd = m.n_dyn
-    b, c = m.link_b, m.link_c
-    if np.any(np.abs(b - c) > 1e-12 * np.maximum(np.abs(b), np.abs(c))):
-        return None
-    order = _chain_walk(nd, m.held, m.link_p, m.link_q)
+    # (the rates of every subject of a stacked model in one row: any that differ refuse the chain)
+    order = _chain_walk(m.n_dyn, m.held, m.link_p, m.link_q, np.ravel(m.link_b), np.ravel(m.link_c))
     return order if len(order) == 0 or order[0] >= 0 else None
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _chain_walk(nd, held, link_p, link_q):
+def _chain_walk(nd, held, link_p, link_q, link_b, link_c):
     """The dynamic states (``nd``) not held (``held``: of the compartments) in chain order, walking
-    each chain from an end; ``[-1]`` when a state has a third neighbour or the links close a loop."""
+    each chain from an end; ``[-1]`` when a link's two rates differ (``link_b``, ``link_c``, beyond
+    rounding: the network is not symmetric), a state has a third neighbour or the links close a
+    loop."""
+    for j in range(link_b.shape[0]):
+        if abs(link_b[j] - link_c[j]) > 1e-12 * max(abs(link_b[j]), abs(link_c[j])):
+            return np.full(1, -1, dtype=np.int64)
     nbr = np.full((nd, 2), -1, dtype=np.int64)
     off = np.zeros(nd, dtype=np.bool_)
     for i in range(held.shape[0]):

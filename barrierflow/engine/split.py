@@ -38,10 +38,12 @@ root mean square over all states and the largest over the compartments of error 
 max(|y(t)|, |y(t + h)|)). What the static correction leaves out is bounded: each fast mode's lag
 e_s obeys e_s' = lambda_s e_s + beta_s u'(t) / lambda_s from e_s(0) = 0, so every free state's
 error is at most max|du/dt| |P T^+ P T^+ P beta| / sqrt(V/K) (Cauchy-Schwarz over the fast
-modes); with du/dt taken at every stage point, a run in which that bound exceeds
-:data:`STATIC_SHARE` of a state's absolute tolerance stops, and the integrator computes it on
-RODAS4 over all states instead. So does a run whose Newton iteration fails, whose saturable
-compartment is clamped, or whose modes fail their check.
+modes); with du/dt taken at every stage point, an interval in which that bound exceeds
+:data:`STATIC_SHARE` of a state's absolute tolerance stops and is split again with more modes
+integrated (:data:`RESPLIT`; the bound shrinks with the fast modes' rates), from the state at its
+start; only when :data:`~barrierflow.engine.exact_chain.MAX_MODES` modes are integrated already
+does the integrator compute the run on RODAS4 over all states instead. So does a run whose Newton
+iteration fails, whose saturable compartment is clamped, or whose modes fail their check.
 """
 
 from __future__ import annotations
@@ -78,7 +80,7 @@ from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_s
 from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator, step_size
 from .schedule import apply_events, rows_until, start_events
 
-__all__ = ["CUT_SLOW", "STATIC_SHARE", "SplitIntegrator", "linear_part", "split_schedule"]
+__all__ = ["CUT_SLOW", "RESPLIT", "STATIC_SHARE", "SplitIntegrator", "linear_part", "split_schedule"]
 
 CUT_SLOW = 100.0
 """1/h: the modes of the chain no faster than this are integrated (the slow modes), and so are
@@ -87,8 +89,16 @@ all the modes the chain path would compute for the output times (up to
 their static response."""
 
 STATIC_SHARE = 0.1
-"""A run stops (and goes to RODAS4 over all states) when the bound of what the static correction
-leaves out exceeds this share of any free state's absolute tolerance."""
+"""An interval stops when the bound of what the static correction leaves out exceeds this share of
+any free state's absolute tolerance; it is split again with more modes integrated
+(:data:`RESPLIT`), and once no more can be (:data:`~barrierflow.engine.exact_chain.MAX_MODES`),
+the run goes to RODAS4 over all states."""
+
+RESPLIT = 2.0
+"""When the bound of the static correction fails, the interval is computed again with the modes
+up to this many times faster than the cut integrated (a diffusion's modes up to a rate lambda
+number about sqrt(lambda): about 1.4 times the modes; the bound, led by the slowest fast modes'
+|beta_s| / lambda_s^2, falls by 2 to 5 times on the benchmark's networks)."""
 
 # the stage times c_i and the sums gamma_i of RODAS (Hairer and Wanner 1996, their code RODAS,
 # METH = 1): the non-autonomous terms of the stages
@@ -799,7 +809,8 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     ``m`` and ``base`` are the arrays of the network without the saturable elimination (``m`` the
     run's working copy, which the events change), ``cut`` (1/h, < 0) the chain path's cut of its
     modes (:func:`~barrierflow.engine.exact.mode_time`), ``info[0]`` gets the largest ratio of the
-    static correction's bound to the absolute tolerances met.
+    static correction's bound to the absolute tolerances met, ``info[1]`` the number of intervals
+    split again with more modes (:data:`RESPLIT`).
     """
     nc = m.n_comp
     nd = m.n_dyn
@@ -886,13 +897,18 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     row = np.int64(0)
     ei = np.int64(0)
     h = 1e-4 * (marks[1] - marks[0]) if n_marks > 1 else 1.0
-    for k in range(n_marks - 1):
+    cut_req = min(cut, -CUT_SLOW)
+    again = False  # the interval is computed again, its events applied already
+    guard0 = np.zeros(3)
+    k = 0
+    while k < n_marks - 1:
         t0 = marks[k]
         t1 = marks[k + 1]
-        ei = apply_events(t0, ei, ev, m, base, y, s)
-        if clamp[ic]:
-            return FAIL_CLAMPED
-        same = have
+        if not again:
+            ei = apply_events(t0, ei, ev, m, base, y, s)
+            if clamp[ic]:
+                return FAIL_CLAMPED
+        same = have and not again
         for p in range(nc):
             if clamp[p] != key_clamp[p] or closed[p] != key_closed[p]:
                 same = False
@@ -902,7 +918,7 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             # the chain of this clamp pattern, its slow modes and the static response
             n = _build(order, clamp, m, idx, cmap, msq, tv, dd, ee, gedge, ediag, comp_of)
             pc = cmap[ic]
-            cut_now, k_need = _mode_cut(dd, ee, n, min(cut, -CUT_SLOW), comp_of)  # at most MAX_MODES
+            cut_now, k_need = _mode_cut(dd, ee, n, cut_req, comp_of)  # at most MAX_MODES
             t_thr = -60.0 / cut_now
             if k_need > vec.shape[0]:
                 vec = np.zeros((k_need, Lz))
@@ -1110,9 +1126,32 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         for r in range(m_out):
             tau[r] = times[row + r] - t0
         W = (vyp, rows_z, rows_y, rows_q, rows_t, rows_i, chain_t, mins)
+        guard = taps[7]
+        for i in range(3):
+            guard0[i] = guard[i]
+        info0 = info[0]
+        h0 = h
         status, h = _interval(y, t1 - t0, tau, states[row:sel_end] if full else states, full, taps, row,
                               m.capacity, L, P, R, W, kz, coef, rtol, atol, nc, h, max_steps, stats, static_w, info, g,
                               carry)
+        if status == FAIL_STATIC and cut_now == cut_req:
+            # the fast modes lag too far behind their static response: split this interval again
+            # with the modes up to RESPLIT times faster integrated (the state at its start, its
+            # rows and the guard as before it; the interval's failed steps stay counted), and keep
+            # that cut for the rest of the run. Only once MAX_MODES modes are integrated does the
+            # run go to RODAS4.
+            cut_req *= RESPLIT
+            again = True
+            h = h0
+            for i in range(3):
+                guard[i] = guard0[i]
+            for i in range(mins.shape[0]):
+                for a in range(mins.shape[1]):
+                    mins[i, a] = 0.0
+            info[0] = info0
+            info[1] += 1.0
+            continue
+        again = False
         if status != OK:
             return status
         for r in range(m_out):
@@ -1121,6 +1160,7 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                 ev_removed[row + r, p] = removed[p]
         row = sel_end
         stats[5] += 1
+        k += 1
     if row < n_t:
         return FAIL_STEP
     return OK
@@ -1193,7 +1233,7 @@ class SplitIntegrator(Integrator):
         ev_dosed = np.empty((n_t, nc))
         ev_removed = np.empty((n_t, nc))
         st = np.zeros(6, dtype=np.int64)
-        info = np.zeros(1)
+        info = np.zeros(2)
         code = split_schedule(marks, times, ev, work, base, s, chain_order(lin), _FAST / mode_time(times, marks),
                               jacobian_size(lin), model.y0.copy(), states, ev_dosed, ev_removed, st, full, taps,
                               int(model.mm_state[0]), float(model.mm_vmax[0]), float(model.mm_km[0]), COEF,

@@ -35,6 +35,7 @@ from barrierflow.analysis.population import percentile_bands, population_exposur
 from barrierflow.engine import ScipyIntegrator, arrays, compile_scenario, exact_chain, solve
 from barrierflow.engine.exact import ExactIntegrator, exact_supported
 from barrierflow.engine.exact_chain import chain_order
+from barrierflow.engine.integrators import SPLIT_BY_DEFAULT
 from barrierflow.engine.kernels import jacobian_coo, jacobian_size, rates
 from barrierflow.engine.population import sample_scenarios, simulate_many, simulate_population
 from barrierflow.engine.problem import IntervalProblem, IntervalSettings
@@ -274,9 +275,8 @@ def test_rodas_saturable_held_and_infused_against_radau():
 
 def test_auto_choice():
     assert solve(patch_body()).integrator == "exact"
-    # six cells a layer: the estimate of cost prefers the split path to RODAS4 (1.06 and 1.23 ms
-    # measured, the shortest of 21 runs, load 4)
-    assert solve(patch_body(saturable=True)).integrator == "split"
+    # saturable elimination: RODAS4 while the split path is off by default (SPLIT_BY_DEFAULT)
+    assert solve(patch_body(saturable=True)).integrator == ("split" if SPLIT_BY_DEFAULT else "rodas4")
     assert solve(with_transfer()).integrator == "exact"  # small: matrix exponentials
     assert exact_supported(compile_scenario(two_barriers()))
 

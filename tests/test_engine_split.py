@@ -19,6 +19,7 @@ import barrierflow as bf
 from barrierflow import Barrier, Compartment, Dose, Exchange, Layer, Scenario, ScenarioError
 from barrierflow.engine import AutoIntegrator, ScipyIntegrator, SplitIntegrator, compile_scenario, solve
 from barrierflow.engine.exported import Rows
+from barrierflow.engine.integrators import SPLIT_BY_DEFAULT
 from barrierflow.engine.rosenbrock import RosenbrockIntegrator
 from barrierflow.engine.split import linear_part
 
@@ -165,9 +166,11 @@ def test_rows_are_the_full_states():
 
 
 def test_default_takes_the_split_where_it_applies(bench):
+    # only while SPLIT_BY_DEFAULT is on (off until the split passes the random networks)
     s, _ = bench
-    assert solve(s).integrator == "split"
-    assert solve(two_layer_finite_doses()).integrator == "split"
+    want = "split" if SPLIT_BY_DEFAULT else "rodas4"
+    assert solve(s).integrator == want
+    assert solve(two_layer_finite_doses()).integrator == want
 
 
 def test_default_and_split_refuse_other_networks():

@@ -503,9 +503,9 @@ class AutoIntegrator(Integrator):
       with the cube of the states (a decomposition, or an exponential per step length) and with
       the square per output row, so only small networks take them;
     * a chain network with the saturable elimination of one compartment
-      (:func:`~barrierflow.engine.split.linear_part`) when its estimated cost is below RODAS4's:
-      the split path (the linear part exact, the slow modes by RODAS4), which computes the run
-      on RODAS4 itself when its conditions fail on the way;
+      (:func:`~barrierflow.engine.split.linear_part`) when :data:`SPLIT_BY_DEFAULT` allows it and
+      its estimated cost is below RODAS4's: the split path (the linear part exact, the slow modes
+      by RODAS4), which computes the run on RODAS4 itself when its conditions fail on the way;
     * everything else (other saturable elimination, larger networks, stars of many barriers): the
       compiled RODAS4 integrator, O(n) per step.
 
@@ -536,7 +536,8 @@ class AutoIntegrator(Integrator):
             return VEHICLE
         if linear_part(model) is not None:
             n_rows, n_int = rows or 500, intervals or 1
-            if estimated_seconds("split", model, n_rows, n_int) < estimated_seconds("rodas", model, n_rows, n_int):
+            if SPLIT_BY_DEFAULT and (estimated_seconds("split", model, n_rows, n_int)
+                                     < estimated_seconds("rodas", model, n_rows, n_int)):
                 return SplitIntegrator(rtol=self.rtol, atol=self.atol)
             return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
         if exact_supported(model, longest):
@@ -560,6 +561,16 @@ class AutoIntegrator(Integrator):
         """What the integrator :meth:`resolve` picks needs."""
         return self.resolve(model).working_memory(model)
 
+
+SPLIT_BY_DEFAULT = False
+"""Whether the default may take the split path (:mod:`~barrierflow.engine.split`) for a chain
+network with saturable elimination. Off: on random networks (the generator of
+tests/test_properties_refined.py) it returned two wrong results without failing its checks:
+the eliminated amount of a saturable compartment linked to nothing, counted again at each event
+of the run (5x its content after four holds elsewhere), and a sharp elimination (km 3.4e-5 mg/mL
+against concentrations up to 250) whose concentrations drifted 2.6 % from Radau's. Until the
+split passes that comparison, the default runs these models on RODAS4; ``--integrator split``
+still runs it on request."""
 
 EXACT_PREFERENCE = 1.0
 """The default takes the modes or matrix-exponential path while its estimated cost is at most this

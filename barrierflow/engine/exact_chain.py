@@ -1207,7 +1207,10 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
 def _more_modes(a, k):
     """``a`` (patterns x modes x states) with room for ``k`` modes per pattern, those kept in front."""
     grown = np.zeros((a.shape[0], k, a.shape[2]))
-    grown[:, :a.shape[1], :] = a
+    for p in range(a.shape[0]):  # a loop, not a slice assignment (see DEVELOPERS.md, "Speed")
+        for q in range(a.shape[1]):
+            for i in range(a.shape[2]):
+                grown[p, q, i] = a[p, q, i]
     return grown
 
 

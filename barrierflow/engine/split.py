@@ -156,7 +156,7 @@ def _conc(b, s_f, vmax, km, icap):
 
 
 # ---------------------------------------------------------------- the linear part
-@njit(inline="always", error_model="numpy")
+@njit(**INNER)
 def _rational_central(dd, ee, n, t, x0, tg, r0, has_g, pc, poles, residues, c0, wk):
     """x(t) and dx/dt at position ``pc`` of the chain, by the rational approximation of the
     exponential of :func:`~barrierflow.engine.exact_chain._rational_row` (x(t) = exp(tT) x0 +
@@ -385,7 +385,7 @@ def _flush_rows(nb, y0, g, out, full, row, taps, row0, cap, L, P, W):
     return kept
 
 
-@njit(inline="always", error_model="numpy")
+@njit(**INNER)
 def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
     """The full state at local time ``t`` into ``dst`` from the amplitudes ``wa`` of the slow
     modes, their integrals ``wb`` and the integral ``wu`` of u; ``out_c[0]`` gets the saturable

@@ -586,14 +586,28 @@ stars of 2 to 12 barriers of 2 to 8 cells a layer over 1 to 14 dosing intervals,
 steps each)."""
 
 
+SPLIT_RATIO = (1.28, -0.375)
+"""The split path's estimated cost as a ratio to RODAS4's on the same network (both run the same
+saturable chain networks): ``SPLIT_RATIO[0] * intervals ** SPLIT_RATIO[1]``. A robust fit (least
+squares with a soft-L1 loss on the logarithm of the measured ratio) to 224 timed pairs, the
+shortest of 7 and of 15 runs of each path (load 5-6), on the benchmark's saturable patch with 2
+to 200 cells a layer, 1 to 14 applications over 7 days, 169 and 1,009 output rows, a patch of 1
+and 0.1 mL. The split's steps (about 150 for one application, 380 for 14) grow more slowly than
+RODAS4's (160-270, 750-1,530): RODAS4 is about 1.3 times faster on a single application (the
+same number of steps, each cheaper) and slower from two applications on (ratio 0.4-0.9 from 4).
+The number of states and of output rows changed the ratio less than the noise of the timings.
+Choosing by this ratio puts the default within 1.3x of the faster path on 108 and 109 of the
+two sets of 112 (the earlier estimate, from operation counts: 94 and 93)."""
+
+
 def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int) -> float:
     """A rough estimate of the seconds a path takes for ``model``, to choose between paths.
 
     ``path`` is ``"rodas"`` (a set-up, then per step O(n) and per output row O(n), the steps as
-    :data:`RODAS_STEPS`), ``"split"`` (the slow modes of the chain once, O(k^2 n), steps on k
-    modes, O(k) each, a few rational evaluations after each event, O(n), and per output row
-    O(k n)), ``"modes"`` (a set-up, a dense symmetric decomposition, O(n^3), and per output row
-    the modes not decayed, O(n min(n, 40))) or ``"expm"`` (a set-up, about three exponentials of
+    :data:`RODAS_STEPS`), ``"split"`` (RODAS4's estimate times a ratio fitted to timed pairs,
+    :data:`SPLIT_RATIO`: the split's steps grow more slowly with the dosing intervals),
+    ``"modes"`` (a set-up, a dense symmetric decomposition, O(n^3), and per output row the modes
+    not decayed, O(n min(n, 40))) or ``"expm"`` (a set-up, about three exponentials of
     the augmented matrix per interval, O(n^3) each, and per output row about 2 us and a product,
     O(n^2)). Only the
     ratios between paths matter. The constants of ``rodas`` and ``modes`` are a least-squares
@@ -603,15 +617,14 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
     the default within 1.3x of the faster path on 286 of the 288 (with the constants they
     replace, on 229). ``expm``'s cost per output row was measured on 22 stars with a transfer
     (1,009 rows; RODAS4 1.4 to 300 times faster) and a patch on a two-compartment body with a
-    transfer (49 rows; expm 0.55 ms, RODAS4 0.68 ms); ``split``'s constants come from reasoning
-    about its operation counts.
+    transfer (49 rows; expm 0.55 ms, RODAS4 0.68 ms).
     """
     n, nd = model.n_state, model.n_dyn
     if path == "rodas":
         steps = RODAS_STEPS[0] + RODAS_STEPS[1] * intervals
         return 6.2e-4 + steps * (2.1e-6 + 1.54e-8 * n) + 2e-9 * rows * n
     if path == "split":
-        return 3e-4 + 1.5e-4 * intervals + n * (rows * 4e-9 + 2e-6)
+        return SPLIT_RATIO[0] * intervals ** SPLIT_RATIO[1] * estimated_seconds("rodas", model, rows, intervals)
     if path == "modes":
         return 8.6e-4 + 3.8e-5 * intervals + 3e-10 * nd ** 3 + 8.1e-10 * rows * nd * min(nd, 40)
     if path == "expm":

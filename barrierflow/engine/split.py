@@ -1014,8 +1014,10 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                 if not on_chain[q]:
                     fixed[n_fixed] = q
                     n_fixed += 1
+            # states that nothing touches keep their value plus what is infused; never the
+            # saturable compartment, which the elimination empties even when linked to nothing
             for a in range(n):
-                alone[a] = ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
+                alone[a] = a != pc and ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
                     a == n - 1 or comp_of[a + 1] != comp_of[a])
             for p in range(nc):
                 key_clamp[p] = clamp[p]

@@ -33,7 +33,8 @@ elimination and y_lin carries their decay after the jump.
 The integrated system (a, its integral, the integral of u) has a Jacobian diag(Lambda_S) plus a
 rank-one term: each stage is solved in O(k) (Sherman and Morrison). The error of a step is
 measured as the product's RODAS4 measures it: the embedded estimate mapped onto every state
-(the slow modes' patterns, the static part's response, the cumulative amounts), the larger of the
+(the slow modes' patterns, the static part's response, the cumulative amounts; in one pass over
+the states with the step's end, in chain order), the larger of the
 root mean square over all states and the largest over the compartments of error / (atol + rtol
 max(|y(t)|, |y(t + h)|)); a step over which the Jacobian of its start no longer holds (the slope of
 the elimination changing within it, :data:`DRIFT`) is refused and made shorter, since the embedded
@@ -523,53 +524,96 @@ def _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam, ra, rb, ru, ka, kb):
 
 
 @njit(inline="always", error_model="numpy")
-def _norm(dst_old, dst_new, ka, kb, ku, kz, gam, L, P, atol, rtol, nc, err_state):
-    """The product's RODAS4 error measure of the step estimate (ka, kb, ku) mapped onto every state."""
+def _step_end(t, na, nb, nu, ka, kb, ku, gam, kz, y0, g, L, P, S, atol, rtol, nc, n_state, out_c):
+    """The state at the end of a step (local time ``t``, amplitudes ``na``, integrals ``nb`` and
+    ``nu``) in chain order into ``S``'s ``new_c`` and ``new_q``, and the error of the step's
+    estimate (ka, kb, ku) mapped onto every state, both in one pass over the states: the state
+    and the error map share the patterns (the modes', then the static part's: its error is u'
+    dc, dc = vyc . ka / (1 - s_f u')). Returns (the product's RODAS4 error measure: the larger of
+    the root mean square over all states and the largest over the compartments of error / (atol
+    + rtol max(|y(t)|, |y(t + h)|)); the states off the chain and those alone carry no error,
+    whether the Newton iteration of the saturable concentration converged); ``out_c[0]`` gets the
+    saturable compartment's concentration."""
     (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
      fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
     (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
-    n_state = dst_old.shape[0]
-    for i in range(n_state):
-        err_state[i] = 0.0
+    vyp, zse, yse, atc, alone_at, comp_at, cur_c, new_c, cur_q, new_q, err_q = S
+    zr = zse[0]
+    er = zse[1]
+    _amplitudes(t, na, nb, kz, L, zr, zi)
+    b = yfast[pc]  # the state at the saturable compartment before the static part
+    for s in range(k_all):
+        b += vy[s, pc] * zr[s]
+    c, ok = _conc(b, s_f, vmax, km, icap)
+    out_c[0] = c
+    zr[k_all] = -saturable_rate(vmax, km, c) * icap
     sig = 0.0
     for s in range(kz):
         sig += vy[s, pc] * ka[s]
-    du = gam * sig  # the static part's response: u' dc, dc = vyc . ka / (1 - s_f u')
+        er[s] = ka[s]
+    for s in range(kz, k_all):
+        er[s] = 0.0
+    er[k_all] = gam * sig
+    y_n = yse[0]
+    e_n = yse[1]
     for a in range(n):
-        ys[a] = sfy[a] * du
-    for s in range(kz):  # mode by mode over the states (the loop runs in vector lanes)
-        v = vy[s]
-        e = ka[s]
+        y_n[a] = yfast[a]
+        e_n[a] = 0.0
+    for s in range(0, vyp.shape[0], 4):  # four patterns per pass, the state and its error side by side
+        v0 = vyp[s]
+        v1 = vyp[s + 1]
+        v2 = vyp[s + 2]
+        v3 = vyp[s + 3]
+        z0_, z1_, z2_, z3_ = zr[s], zr[s + 1], zr[s + 2], zr[s + 3]
+        f0, f1, f2, f3 = er[s], er[s + 1], er[s + 2], er[s + 3]
         for a in range(n):
-            ys[a] += v[a] * e
+            va = v0[a]
+            vb = v1[a]
+            vc = v2[a]
+            vd = v3[a]
+            y_n[a] += va * z0_ + vb * z1_ + vc * z2_ + vd * z3_
+            e_n[a] += va * f0 + vb * f1 + vc * f2 + vd * f3
+    for a in alone_at:  # nothing touches these: their value plus what is infused, no error
+        ia = idx[a]
+        y_n[a] = y0[ia] + g[ia] * t
+        e_n[a] = 0.0
+    acc = 0.0
     for a in range(n):
-        if not alone[a]:
-            err_state[idx[a]] = ys[a]
-    nqd = n_state - nd
+        w = e_n[a] / (atc[a] + rtol * max(abs(cur_c[a]), abs(y_n[a])))
+        acc += w * w
+        new_c[a] = y_n[a]
+    err_c = 0.0
+    for a in comp_at:
+        err_c = max(err_c, abs(e_n[a]) / (atc[a] + rtol * max(abs(cur_c[a]), abs(y_n[a]))))
+    nqd = new_q.shape[0]
     for q in range(nqd):
-        err_state[nd + q] = uq[q] * ku
+        qs[q] = qconst[q] + qslope[q] * t
     for q in qm:  # the cumulative amounts that some mode moves
-        v = err_state[nd + q]
+        acc_q = qs[q]
+        for s in range(k_all):
+            acc_q += wt[s, q] * zi[s]
+        qs[q] = acc_q
+    for q in range(nqd):
+        new_q[q] = y0[nd + q] + g[nd + q] * t + qs[q] + uq[q] * nu
+        err_q[q] = uq[q] * ku  # the error of the cumulative amounts
+    for q in qm:
+        v = err_q[q]
         for s in range(kz):
             v += wt[s, q] * kb[s]
-        err_state[nd + q] = v
-    acc = 0.0
-    for i in range(n_state):
-        qv_ = err_state[i] / (atol[i] + rtol * max(abs(dst_old[i]), abs(dst_new[i])))
-        acc += qv_ * qv_
-    err = math.sqrt(acc / n_state)
-    for i in range(nc):
-        err = max(err, abs(err_state[i]) / (atol[i] + rtol * max(abs(dst_old[i]), abs(dst_new[i]))))
-    return err
+        err_q[q] = v
+    for q in range(nqd):
+        w = err_q[q] / (atol[nd + q] + rtol * max(abs(cur_q[q]), abs(new_q[q])))
+        acc += w * w
+    return max(math.sqrt(acc / n_state), err_c), ok
 
 
 @njit(**INNER)
-def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, rtol, atol, nc, h, max_steps, stats,
+def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef, rtol, atol, nc, h, max_steps, stats,
               static_w, info, g, carry):
     """RODAS4 on the slow modes from local time 0 to ``t_end``; rows at ``tau`` kept (as the chain
     path keeps them), the state at ``t_end`` into ``y``. The amplitudes start from ``carry`` and
-    end there. ``W`` is the block of rows (:func:`_flush_rows`). Returns (status, the next step
-    size)."""
+    end there. ``W`` is the block of rows (:func:`_flush_rows`), ``S`` the step ends' work space
+    (:func:`_step_end`). Returns (status, the next step size)."""
     nd = P[7]
     n_state = y.shape[0]
     ca, cc, cd = coef
@@ -598,9 +642,13 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, r
     c2b = np.zeros(nw)
     c3b = np.zeros(nw)
     cur = np.zeros(n_state)
-    new = np.zeros(n_state)
-    err_state = np.zeros(n_state)
     row = out[0] if out.shape[0] > 0 else cur
+    cur_c = S[6]
+    new_c = S[7]
+    cur_q = S[8]
+    new_q = S[9]
+    n = L[0]
+    idx = L[1]
     cbuf = np.zeros(1)
     lam = L[5]
     beta = R[0]
@@ -627,6 +675,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, r
         io += 1
     if not _state(0.0, wa, wb, wu, kz, cur, y0, g, L, P, cbuf):
         return FAIL_NEWTON, h
+    for a in range(n):
+        cur_c[a] = cur[idx[a]]
+    for q in range(cur_q.shape[0]):
+        cur_q[q] = cur[nd + q]
     t = 0.0
     h_min = 1e-14 * t_end
     h = min(h, t_end)
@@ -719,8 +771,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, r
                 nu += ca[5, j] * kku[j]
             nu += kku[5]
             t_new = t_end if last else t + h
-            ok = _state(t_new, na, nb, nu, kz, new, y0, g, L, P, cbuf)
-            err = _norm(cur, new, kka[5], kkb[5], kku[5], kz, gam0, L, P, atol, rtol, nc, err_state) if ok else np.inf
+            err, ok = _step_end(t_new, na, nb, nu, kka[5], kkb[5], kku[5], gam0, kz, y0, g, L, P, S, atol, rtol, nc,
+                                n_state, cbuf)
+            if not ok:
+                err = np.inf
             if ok:
                 du = -saturable_slope(vmax, km, cbuf[0]) * icap
                 gdev = max(gdev, abs(du / (1.0 - s_f * du) - gam0))
@@ -793,9 +847,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, r
                 if tau[io] < t_rat:  # the rational approximation's times: one row at a time
                     dst = out[io] if full else row
                     if sx >= 1.0:
-                        for i in range(n_state):
-                            dst[i] = new[i]
-                    elif not _state(tau[io], ya, yb, uo, kz, dst, y0, g, L, P, cbuf):
+                        ok = _state(t_new, na, nb, nu, kz, dst, y0, g, L, P, cbuf)
+                    else:
+                        ok = _state(tau[io], ya, yb, uo, kz, dst, y0, g, L, P, cbuf)
+                    if not ok:
                         return FAIL_NEWTON, h
                     take_row(dst, row0 + io, taps, cap, nd)
                 else:  # the others four at a time, in chain order
@@ -815,8 +870,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, r
             wa[s] = na[s]
             wb[s] = nb[s]
         wu = nu
-        for i in range(n_state):
-            cur[i] = new[i]
+        for a in range(n):
+            cur_c[a] = new_c[a]
+        for q in range(cur_q.shape[0]):
+            cur_q[q] = new_q[q]
         t = t_new
         n_steps += 1
         stats[0] += 1
@@ -830,8 +887,12 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, kz, coef, r
         n_kept += _flush_rows(n_pend, y0, g, out, full, row, taps, row0, cap, L, P, W)
     if n_kept:
         flush_chain_guard(W[7], taps, y0, W[6][1])
-    for i in range(n_state):
-        y[i] = cur[i]
+    # the state at the interval's end: off the chain as it started, the chain and the cumulative
+    # amounts from the last step's end
+    for a in range(n):
+        y[idx[a]] = cur_c[a]
+    for q in range(cur_q.shape[0]):
+        y[nd + q] = cur_q[q]
     for i in range(kz):
         carry[i] = wa[i]
     return OK, h_carry
@@ -895,6 +956,16 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     rows_y = np.zeros((4, Lz))
     rows_q = np.zeros((4, nqd))
     rows_t = np.zeros(4)
+    ends_z = np.zeros((2, 4))
+    ends_y = np.zeros((2, Lz))
+    atc = np.zeros(Lz)
+    alone_at = np.zeros(0, dtype=np.int64)
+    comp_at = np.zeros(0, dtype=np.int64)
+    cur_c = np.zeros(Lz)
+    new_c = np.zeros(Lz)
+    cur_q = np.zeros(nqd)
+    new_q = np.zeros(nqd)
+    err_q = np.zeros(nqd)
     rows_i = np.zeros(4, dtype=np.int64)
     mins = np.zeros((3, Lz))
     uq = np.zeros(nqd)
@@ -1022,6 +1093,7 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
                 vyp[k_all, a] = sfy[a]
             rows_z = np.zeros((4, vyp.shape[0]))
             chain_t = chain_taps(idx, n, nd, taps, m.capacity, full)
+            ends_z = np.zeros((2, vyp.shape[0]))
             for q in range(nqd):
                 uq[q] = 0.0
             for j in range(nq):
@@ -1058,6 +1130,24 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             for a in range(n):
                 alone[a] = a != pc and ediag[a] == 0.0 and (a == 0 or comp_of[a - 1] != comp_of[a]) and (
                     a == n - 1 or comp_of[a + 1] != comp_of[a])
+            # the step ends' tolerances in chain order, the positions alone and the compartments'
+            n_alone = 0
+            n_comp_at = 0
+            for a in range(n):
+                atc[a] = atol[idx[a]]
+                n_alone += 1 if alone[a] else 0
+                n_comp_at += 1 if idx[a] < nc else 0
+            alone_at = np.zeros(n_alone, dtype=np.int64)
+            comp_at = np.zeros(n_comp_at, dtype=np.int64)
+            n_alone = 0
+            n_comp_at = 0
+            for a in range(n):
+                if alone[a]:
+                    alone_at[n_alone] = a
+                    n_alone += 1
+                if idx[a] < nc:
+                    comp_at[n_comp_at] = a
+                    n_comp_at += 1
             for p in range(nc):
                 key_clamp[p] = clamp[p]
                 key_closed[p] = closed[p]
@@ -1172,9 +1262,10 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
             guard0[i] = guard[i]
         info0 = info[0]
         h0 = h
+        S = (vyp, ends_z, ends_y, atc, alone_at, comp_at, cur_c, new_c, cur_q, new_q, err_q)
         status, h = _interval(y, t1 - t0, tau, states[row:sel_end] if full else states, full, taps, row,
-                              m.capacity, L, P, R, W, kz, coef, rtol, atol, nc, h, max_steps, stats, static_w, info, g,
-                              carry)
+                              m.capacity, L, P, R, W, S, kz, coef, rtol, atol, nc, h, max_steps, stats, static_w, info,
+                              g, carry)
         if status == FAIL_STATIC and cut_now == cut_req:
             # the fast modes lag too far behind their static response: split this interval again
             # with the modes up to RESPLIT times faster integrated (the state at its start, its

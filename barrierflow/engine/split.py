@@ -247,20 +247,28 @@ def _rational_central(dd, ee, n, t, x0, tg, r0, has_g, pc, poles, residues, c0, 
             npi[k] = -si[k] - mi * e
             nar[k] = xv - (mr * qar[k] - mi * qai[k])
             nai[k] = -(mr * qai[k] + mi * qar[k])
-            nbr[k] = gv - (mr * qbr[k] - mi * qbi[k])
-            nbi[k] = -(mr * qbi[k] + mi * qbr[k])
             ncr[k] = rv - (mr * qcr[k] - mi * qci[k])
             nci[k] = -(mr * qci[k] + mi * qcr[k])
+        if has_g:  # the forcing's right-hand side (none without forcing)
+            for k in range(kp):
+                u = qpr[k]
+                v = qpi[k]
+                q = e / (u * u + v * v)
+                mr = q * u
+                mi = -q * v
+                nbr[k] = gv - (mr * qbr[k] - mi * qbi[k])
+                nbi[k] = -(mr * qbi[k] + mi * qbr[k])
     xs = c0 * x0[pc]
     dx = c0 * r0[pc]
     for k in range(kp):
         w1 = complex(ar[n - 1, k], ai[n - 1, k]) / complex(pr[n - 1, k], pq[n - 1, k])
-        w2 = complex(br[n - 1, k], bi[n - 1, k]) / complex(pr[n - 1, k], pq[n - 1, k])
+        w2 = complex(br[n - 1, k], bi[n - 1, k]) / complex(pr[n - 1, k], pq[n - 1, k]) if has_g else 0j
         w3 = complex(cr[n - 1, k], ci[n - 1, k]) / complex(pr[n - 1, k], pq[n - 1, k])
         for i in range(n - 2, pc - 1, -1):
             pv = complex(pr[i, k], pq[i, k])
             w1 = (complex(ar[i, k], ai[i, k]) - ee[i] * w1) / pv
-            w2 = (complex(br[i, k], bi[i, k]) - ee[i] * w2) / pv
+            if has_g:
+                w2 = (complex(br[i, k], bi[i, k]) - ee[i] * w2) / pv
             w3 = (complex(cr[i, k], ci[i, k]) - ee[i] * w3) / pv
         rk = residues[k]
         ce = 2.0 * rk / t
@@ -719,11 +727,15 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
             dcl_s = 0.0
             for st in range(6):
                 ts = t + STAGE_TIME[st] * h
+                # the stage's point (each sum over the earlier stages in their order, the loops
+                # over the modes innermost, so that they run in vector lanes)
                 for s in range(kz):
-                    va = wa[s]
-                    for j in range(st):
-                        va += ca[st, j] * kka[j, s]
-                    ya[s] = va
+                    ya[s] = wa[s]
+                for j in range(st):
+                    cj = ca[st, j]
+                    kj = kka[j]
+                    for s in range(kz):
+                        ya[s] += cj * kj[s]
                 if st == 0:
                     for s in range(kz):
                         fa[s] = fa0[s]
@@ -746,26 +758,32 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                 hd = h * STAGE_GAMMA[st]
                 ru = u_s + hd * ft
                 for s in range(kz):
-                    vb = ya[s]  # the integral's rate is the stage's amplitude
-                    va = fa[s] + hd * beta[s] * ft
-                    for j in range(st):
-                        cj = cc[st, j] * ih
-                        va += cj * kka[j, s]
-                        vb += cj * kkb[j, s]
-                    ra[s] = va
-                    rb[s] = vb
+                    rb[s] = ya[s]  # the integral's rate is the stage's amplitude
+                    ra[s] = fa[s] + hd * beta[s] * ft
+                for j in range(st):
+                    cj = cc[st, j] * ih
+                    kj = kka[j]
+                    bj = kkb[j]
+                    for s in range(kz):
+                        ra[s] += cj * kj[s]
+                        rb[s] += cj * bj[s]
                 for j in range(st):
                     ru += cc[st, j] * ih * kku[j]
                 kku[st] = _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam0, ra, rb, ru, kka[st], kkb[st])
             # the new solution: the last stage's point plus k_6 (RODAS4 is stiffly accurate)
             for s in range(kz):
-                va = wa[s]
-                vb = wb[s]
-                for j in range(5):
-                    va += ca[5, j] * kka[j, s]
-                    vb += ca[5, j] * kkb[j, s]
-                na[s] = va + kka[5, s]
-                nb[s] = vb + kkb[5, s]
+                na[s] = wa[s]
+                nb[s] = wb[s]
+            for j in range(5):
+                cj = ca[5, j]
+                kj = kka[j]
+                bj = kkb[j]
+                for s in range(kz):
+                    na[s] += cj * kj[s]
+                    nb[s] += cj * bj[s]
+            for s in range(kz):
+                na[s] += kka[5, s]
+                nb[s] += kkb[5, s]
             nu = wu
             for j in range(5):
                 nu += ca[5, j] * kku[j]

@@ -357,17 +357,44 @@ def mode_time(times: np.ndarray, marks: np.ndarray) -> float:
     output just after a dose, a short interval) are computed by the rational approximation, a few
     solves with the chain matrix each.
     """
-    k = np.searchsorted(marks, times, side="right")
-    k -= 1
-    np.minimum(k, len(marks) - 2, out=k)
-    np.maximum(k, 0, out=k)
-    cand = np.concatenate((times - marks[k], marks[1:] - marks[:-1]))  # the local times, the gaps
-    cand = cand[cand > 0.0]
-    if not len(cand):
+    return float(_mode_time(np.ascontiguousarray(times, dtype=np.float64),
+                            np.ascontiguousarray(marks, dtype=np.float64), np.int64(RATIONAL_ROWS)))
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _mode_time(times, marks, rr):
+    """:func:`mode_time` in one compiled pass (``rr`` is :data:`RATIONAL_ROWS`): the local times
+    and the gaps between the marks that are above zero, the ``rr + 1`` shortest of them kept in
+    order; their shortest, or a quarter of the (r + 1)-th shortest, r = min(rr, their number - 1),
+    when that is longer; 1 h when there is none."""
+    nm = marks.shape[0]
+    n_t = times.shape[0]
+    best = np.empty(rr + 1)
+    nb = 0
+    count = 0
+    for i in range(n_t + max(nm - 1, 0)):
+        if i < n_t:  # a local time: from the start of its interval (the last mark at or before it)
+            k = min(max(np.searchsorted(marks, times[i], side="right") - 1, 0), nm - 2)
+            v = times[i] - marks[k]
+        else:  # a gap between two marks
+            v = marks[i - n_t + 1] - marks[i - n_t]
+        if not v > 0.0:
+            continue
+        count += 1
+        if nb <= rr:
+            p = nb
+            nb += 1
+        elif v < best[rr]:
+            p = rr
+        else:
+            continue
+        while p > 0 and best[p - 1] > v:
+            best[p] = best[p - 1]
+            p -= 1
+        best[p] = v
+    if count == 0:
         return 1.0
-    r = min(RATIONAL_ROWS, len(cand) - 1)
-    part = np.partition(cand, r)  # the r + 1 shortest first, the (r + 1)-th at r
-    return max(float(part[:r + 1].min()), 0.25 * float(part[r]))
+    return max(best[0], 0.25 * best[min(rr, count - 1)])
 
 
 _shortest_time = mode_time  # the name the population runner imports

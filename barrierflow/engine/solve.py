@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
+from numba import njit
 
 from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
@@ -141,15 +142,26 @@ def _snap(times: np.ndarray, marks: np.ndarray, tol: float) -> np.ndarray:
     """Move output times within ``tol`` of an event time onto it (rows at events show the after-state)."""
     if len(marks) == 0:
         return times
-    idx = np.searchsorted(marks, times)
+    return _snapped(np.ascontiguousarray(times, dtype=np.float64), np.ascontiguousarray(marks, dtype=np.float64),
+                    float(tol))
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _snapped(times, marks, tol):
+    """:func:`_snap` in one compiled pass (``marks`` not empty)."""
     out = times.copy()
-    last = len(marks) - 1
-    # the event before, then the one after (which wins when both are that close); an index off
-    # either end names the end event, which is then the other neighbour too
-    for k in (np.maximum(idx - 1, 0), np.minimum(idx, last)):
-        near = marks[k]
-        close = np.abs(near - times) <= tol
-        out[close] = near[close]
+    last = marks.shape[0] - 1
+    for i in range(times.shape[0]):
+        t = times[i]
+        idx = np.searchsorted(marks, t)
+        # the event before, then the one after (which wins when both are that close); an index off
+        # either end names the end event, which is then the other neighbour too
+        before = marks[max(idx - 1, 0)]
+        if abs(before - t) <= tol:
+            out[i] = before
+        after = marks[min(idx, last)]
+        if abs(after - t) <= tol:
+            out[i] = after
     return out
 
 

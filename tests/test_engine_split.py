@@ -156,6 +156,20 @@ def test_bound_of_the_static_response_hands_the_run_to_rodas4(single):
     assert central < 1e-8 and absorbed < 1e-9 and scaled < 1e-8, (central, absorbed, scaled)
 
 
+def test_rows_of_a_held_compartment_are_the_full_states():
+    # A hold on the tissue takes it off the chain for 6 h: the rows kept in chain order read it
+    # from the row buffer, which held a value of an earlier row (the mass balance of the kept rows
+    # was off by 0.83 of the amount moved on a random network with a hold); the kept columns are
+    # the full states', and the run passes its check
+    s = two_layer_finite_doses()
+    s = dataclasses.replace(s, doses=(*s.doses, Dose("tissue", "hold", at=20.0, duration=6.0, concentration=2e-3)))
+    tr = solve(s, SplitIntegrator(), fallback=False)
+    assert tr.message == "the run finished"
+    full = Rows.from_states(tr.model, tr.states)
+    assert np.array_equal(full.cols, tr.rows.cols)
+    assert np.allclose(full.content, tr.rows.content, rtol=1e-13, atol=0.0)
+
+
 def test_rows_are_the_full_states():
     # the kept rows (columns, contents, guard) are those of the full states, by the one rule
     s = two_layer_finite_doses()

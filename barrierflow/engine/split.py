@@ -397,12 +397,12 @@ def _flush_rows(nb, y0, g, out, full, row, taps, row0, cap, L, P, W):
         qr_ = qb[r]
         for q in range(qr_.shape[0]):
             dst[nd + q] = qr_[q]
+        for q in range(n_fixed):  # the states off the chain (held): take_chain_row reads them from dst
+            dst[fixed[q]] = y0[fixed[q]]
         if chained and row0 + io != last_row:
             take_chain_row(ys, dst, row0 + io, taps, pos, capc, isc, plo, phi, mins)
             kept += 1
             continue
-        for q in range(n_fixed):
-            dst[fixed[q]] = y0[fixed[q]]
         for a in range(n):
             dst[idx[a]] = ys[a]
         take_row(dst, row0 + io, taps, cap, nd)

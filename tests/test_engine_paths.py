@@ -275,7 +275,8 @@ def test_rodas_saturable_held_and_infused_against_radau():
 
 def test_auto_choice():
     assert solve(patch_body()).integrator == "exact"
-    # saturable elimination: RODAS4 while the split path is off by default (SPLIT_BY_DEFAULT)
+    # saturable elimination: the split path where its estimate is below RODAS4's, while
+    # SPLIT_BY_DEFAULT is on (RODAS4 when it is off)
     assert solve(patch_body(saturable=True)).integrator == ("split" if SPLIT_BY_DEFAULT else "rodas4")
     assert solve(with_transfer()).integrator == "exact"  # small: matrix exponentials
     assert exact_supported(compile_scenario(two_barriers()))

@@ -180,10 +180,11 @@ def test_rows_are_the_full_states():
 
 
 def test_default_takes_the_split_where_it_is_faster(bench):
-    # only while SPLIT_BY_DEFAULT is on (off until the split passes the random networks); the
-    # estimate itself: from two applications on the split takes fewer steps than RODAS4 (the
-    # benchmark's 7 patches: 337 against 903); on a single application about as many, each
-    # dearer, and RODAS4 was about 1.3 times faster at 2 to 200 cells a layer (SPLIT_RATIO)
+    # only while SPLIT_BY_DEFAULT is on (on since the split passes the random networks of
+    # tests/test_split_random.py); the estimate itself: from two applications on the split takes
+    # fewer steps than RODAS4 (the benchmark's 7 patches: 337 against 903); on a single
+    # application about as many, each dearer, and RODAS4 was about 1.3 times faster at 2 to 200
+    # cells a layer (SPLIT_RATIO)
     s, _ = bench
     want = "split" if SPLIT_BY_DEFAULT else "rodas4"
     assert solve(s).integrator == want

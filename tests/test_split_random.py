@@ -32,7 +32,15 @@ def radau(scenario):
 
 
 def scaled_error(tr, ref) -> float:
-    return float(np.max(np.abs(tr.states - ref.states) / ref.model.scale, initial=0.0))
+    """Over every state (the full states, computed again) and over the columns the run kept (its
+    rows, what the product reports)."""
+    scale = ref.model.scale
+    err = float(np.max(np.abs(tr.states - ref.states) / scale, initial=0.0))
+    for i in range(len(scale)):
+        col = tr.rows.column(i)
+        if col is not None:
+            err = max(err, float(np.max(np.abs(col - ref.states[:, i])) / scale[i]))
+    return err
 
 
 def sharp_elimination() -> Scenario:
@@ -133,7 +141,10 @@ def split_networks(count: int, first_seed: int = 0):
 
 def test_seeded_random_networks_stay_within_the_tolerance_or_fall_back():
     # each run on the split itself, or computed on RODAS4 (the split's conditions failed on the
-    # way, or its result failed the result check): within SPLIT_TOL of the reference either way
+    # way, or its result failed the result check): within SPLIT_TOL of the reference either way.
+    # The kept rows of a held compartment were stale (an earlier row's value) before the rows in
+    # chain order took the held states from the interval's start: seed 5 of the property tests'
+    # generator failed the result check (0.11 of the amount moved) and went to RODAS4
     kept = 0
     for seed, s in split_networks(30):
         tr = solve(s, SplitIntegrator())

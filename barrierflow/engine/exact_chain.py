@@ -928,6 +928,22 @@ def _rational_row(dd, ee, n, tj, x0, tg, has_g, poles, residues, c0, xs, xi, cw)
                 xi[a] += (c2 * b2[a]).real
 
 
+@njit(inline="always", error_model="numpy")  # in the rows' loops: a call per row cost the split path 8 %
+def cumulative_at(t, qconst, qslope, moved, n_moved, wt, zi, k, nqd, qs):
+    """The cumulative amounts (mg) at local time ``t`` (h) into ``qs[:nqd]``: each one's constant
+    and slope through the decayed modes (``qconst``, ``qslope``), plus, for the ``n_moved`` ones
+    listed in ``moved`` that some mode moves, the weights ``wt`` (k x nqd) times the modes' integrals
+    ``zi`` (the one rule of the chain path's and the split path's rows and steps)."""
+    for q in range(nqd):
+        qs[q] = qconst[q] + qslope[q] * t
+    for i in range(n_moved):
+        q = moved[i]
+        acc = qs[q]
+        for s in range(k):
+            acc += wt[s, q] * zi[s]
+        qs[q] = acc
+
+
 @njit(inline="always", error_model="numpy")
 def add_modes(vyp, zsb, ysb, n, kb4):
     """Four rows at a time: ``ysb[r, :n] += sum_s zsb[r, s] vyp[s, :n]`` over the first ``kb4``
@@ -1056,7 +1072,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
     # the quadratures that some slow mode moves (most do not: the lost, sampled, degraded amounts
     # of a network without those terms); the others are their constant and slope alone
     moved = np.zeros(nqd, dtype=np.int64)
-    n_moved = 0
+    n_moved = np.int64(0)
     for q in range(nqd):
         for s in range(ks):
             if wt[s, q] != 0.0:
@@ -1172,14 +1188,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
             dst = out[jr if full else 0] if jr < n_t else last
             zi = zib[r]
             ys = ysb[r]
-            for q in range(nqd):
-                qs[q] = qconst[q] + qslope[q] * tj
-            for i in range(n_moved):
-                q = moved[i]
-                acc = qs[q]
-                for s in range(ks):
-                    acc += wt[s, q] * zi[s]
-                qs[q] = acc
+            cumulative_at(tj, qconst, qslope, moved, n_moved, wt, zi, ks, nqd, qs)
             for q in range(n_fixed):
                 dst[fixed[q]] = y0[fixed[q]]
             if any_alone:

@@ -77,6 +77,7 @@ from .exact_chain import (
     _slow_modes,
     add_modes,
     chain_order,
+    cumulative_at,
 )
 from .exported import Rows, chain_taps, empty_taps, flush_chain_guard, new_buffers, take_chain_row, take_row, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
@@ -351,13 +352,7 @@ def _row_values(t, wa, wb, wu, kz, r, y0, g, L, P, W):
     c, ok = _conc(b, s_f, vmax, km, icap)
     zr[k_all] = -saturable_rate(vmax, km, c) * icap
     qr_ = qb[r]
-    for q in range(qr_.shape[0]):
-        qs[q] = qconst[q] + qslope[q] * t
-    for q in qm:  # the cumulative amounts that some mode moves (the others: their weights are 0)
-        acc = qs[q]
-        for s in range(k_all):
-            acc += wt[s, q] * zi[s]
-        qs[q] = acc
+    cumulative_at(t, qconst, qslope, qm, qm.shape[0], wt, zi, k_all, qr_.shape[0], qs)
     for q in range(qr_.shape[0]):
         qr_[q] = y0[nd + q] + g[nd + q] * t + qs[q] + uq[q] * wu
     W[4][r] = t
@@ -463,13 +458,7 @@ def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
             v = vy[s]
             for a in range(n):
                 ys[a] += v[a] * z
-        for q in range(nqd):
-            qs[q] = qconst[q] + qslope[q] * t
-        for q in qm:  # the cumulative amounts that some mode moves
-            acc = qs[q]
-            for s in range(k_all):
-                acc += wt[s, q] * zi[s]
-            qs[q] = acc
+        cumulative_at(t, qconst, qslope, qm, qm.shape[0], wt, zi, k_all, nqd, qs)
     c, ok = _conc(ys[pc], s_f, vmax, km, icap)
     out_c[0] = c
     u = -saturable_rate(vmax, km, c) * icap
@@ -594,13 +583,7 @@ def _step_end(t, na, nb, nu, ka, kb, ku, gam, kz, y0, g, L, P, S, atol, rtol, nc
     for a in comp_at:
         err_c = max(err_c, abs(e_n[a]) / (atc[a] + rtol * max(abs(cur_c[a]), abs(y_n[a]))))
     nqd = new_q.shape[0]
-    for q in range(nqd):
-        qs[q] = qconst[q] + qslope[q] * t
-    for q in qm:  # the cumulative amounts that some mode moves
-        acc_q = qs[q]
-        for s in range(k_all):
-            acc_q += wt[s, q] * zi[s]
-        qs[q] = acc_q
+    cumulative_at(t, qconst, qslope, qm, qm.shape[0], wt, zi, k_all, nqd, qs)
     for q in range(nqd):
         new_q[q] = y0[nd + q] + g[nd + q] * t + qs[q] + uq[q] * nu
         err_q[q] = uq[q] * ku  # the error of the cumulative amounts

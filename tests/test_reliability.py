@@ -135,6 +135,40 @@ def extreme(check_ranges: bool, clearance=1e34 * 1000, diffusivity=1e-9 * H) -> 
                     barriers=(Barrier("m", "b", "c", 1.0, (Layer(10e-4, diffusivity),)),))
 
 
+def hold_beside_a_small_compartment() -> Scenario:
+    """A hold on one compartment beside a 1.25 uL one through an exchange of 82 L/h and a thin
+    degrading layer (found by tests/benchmarks/adversarial_sweep.py, random seed 166, reduced)."""
+    return Scenario(
+        name="hold beside a small compartment (invented)", duration=32.0,
+        compartments=(Compartment("small", volume=1.25e-3, initial_concentration=0.089, partition=1.37),
+                      Compartment("held", volume=0.0233, partition=3.9)),
+        barriers=(Barrier("b0", "held", "small", 20.0,
+                          (Layer(0.004, 1.37e-5, partition=0.19, degradation_rate=0.0116),)),),
+        exchanges=(Exchange("x0", "held", "small", 8.2e4),),
+        doses=(Dose("held", "hold", at=0.76, duration=1.62, concentration=0.0183),
+               Dose("small", "remove", at=9.9, every=1.8, count=3)))
+
+
+def test_a_hold_beside_a_small_compartment_meets_the_accuracy_contract():
+    # The magnitude scale of the part counted the steady uptake of the exchange as a sink for the
+    # whole hold (2,400 mg for 5e-4 mg moved): the tolerances, relative to it, let the default
+    # (RODAS4) leave the held concentration 1.5e-4 of its peak and the held supply (dosed) 4.5e-4
+    # of its final value off scipy's Radau (the contract of /work/shared/spec/benchmark.md: 1e-5
+    # of the peak, 1e-6 of the final value). The clamp's bound now also takes what the part can
+    # hold and lose at the clamp's potential (engine.compiled._clamp_fill): within 1.3e-7
+    s = hold_beside_a_small_compartment()
+    res = bf.simulate(s)
+    ref = bf.simulate(s, integrator=ScipyIntegrator("Radau", rtol=1e-10, atol=1e-13), grid=res.trajectory.grid,
+                      fallback=False)
+    assert res.trajectory.model.scale[0] < 10.0  # mg/mL (was 5e5 for a peak of 0.089)
+    for (name, a), (_, b) in zip(res.columns(), ref.columns(), strict=True):
+        peak = float(np.max(np.abs(b)))
+        if peak == 0.0 or name.startswith("time"):
+            continue
+        tol = 1e-6 if name.startswith(("permeated:", "removed:", "dosed:", "degraded:")) else 1e-5
+        assert np.max(np.abs(a - b)) <= tol * peak, name
+
+
 def test_absurd_magnitudes_are_refused_with_the_field_the_range_and_the_override():
     with pytest.raises(ScenarioError) as info:
         extreme(True, diffusivity=1e-30 * H)

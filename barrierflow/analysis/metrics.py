@@ -73,6 +73,7 @@ from dataclasses import dataclass, fields
 from typing import Any
 
 import numpy as np
+from numba import njit
 
 from ..model import OutputUnits, Scenario
 from ..model.cohort import decide
@@ -201,49 +202,74 @@ def _left_limits(t: np.ndarray, c: np.ndarray, jumps: Sequence[float], cl: np.nd
     """:func:`left_limits` of a block (n, n_t), written into ``cl`` (a copy of ``c`` by default,
     else an array holding ``c``'s values: only the rows at ``jumps`` are written)."""
     if cl is None:
-        cl = c.copy()
+        cl = c.copy(order="C")
     at = _rows_at(t, jumps)
-    jumpset = set(at)
-    rows = [j for j in at if j > 0]
-    if not rows:
+    if not at or at[-1] == 0:
         return cl
-    # every jump row at once: the value before from the two rows before (both before the jump
-    # before, if any), else the row before
-    r = np.array(rows)
-    before = c[:, r - 1]
-    two = np.array([j >= 2 and (j - 1) not in jumpset for j in rows])
-    if two.any():
-        f = r[two]
-        c0, c1 = c[:, f - 2], before[:, two]
-        ratio = (t[f] - t[f - 1]) / (t[f - 1] - t[f - 2])
-        if (ratio == ratio[0]).all():
-            ratio = ratio[0]  # (one number: the same arithmetic as for a single row)
-        down = (c0 > c1) & (c1 > 0)
-        with np.errstate(all="ignore"):
-            before[:, two] = np.where(down, c1 * (c1 / c0) ** ratio, np.maximum(c1 + (c1 - c0) * ratio, 0.0))
-    cl[:, r] = before
+    _jump_limits(np.ascontiguousarray(t, dtype=np.float64), np.ascontiguousarray(c, dtype=np.float64),
+                 np.array(at, dtype=np.int64), cl)
     return cl
 
 
-def _segment_areas(t: np.ndarray, c: np.ndarray, cl: np.ndarray) -> np.ndarray:
-    """Area of each segment [t_j, t_j+1] of each row of a block: linear up, log down."""
-    c1, c2 = c[:, :-1], cl[:, 1:]
-    dt = np.diff(t)
-    out = 0.5 * (c1 + c2) * dt
-    down = (c2 < c1) & (c2 > 0) & (c1 > 0)
-    if np.any(down):
-        with np.errstate(all="ignore"):
-            log_down = (c1 - c2) * dt / np.log(np.where(down, c1 / c2, 2.0))
-        out = np.where(down, log_down, out)
-    return out
+@njit(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True)
+def _jump_limits(t, c, at, cl):  # pragma: no cover - compiled (tested through left_limits)
+    """Write into ``cl`` the value just before each jump row ``at`` (sorted, distinct) of each row
+    of ``c``: from the two rows before when the row before is no jump row itself (log-linear when
+    they fall and the nearer is > 0, else linear, never below 0), else the row before."""
+    n = c.shape[0]
+    for a in range(len(at)):
+        j = at[a]
+        if j <= 0:
+            continue
+        two = j >= 2 and not (a > 0 and at[a - 1] == j - 1)
+        ratio = (t[j] - t[j - 1]) / (t[j - 1] - t[j - 2]) if two else 0.0
+        for i in range(n):
+            c1 = c[i, j - 1]
+            if two:
+                c0 = c[i, j - 2]
+                if c0 > c1 and c1 > 0.0:
+                    cl[i, j] = c1 * (c1 / c0) ** ratio
+                else:
+                    v = c1 + (c1 - c0) * ratio
+                    cl[i, j] = v if v >= 0.0 or v != v else 0.0  # (np.maximum(v, 0): NaN stays)
+            else:
+                cl[i, j] = c1
 
 
 def _cumulative(t: np.ndarray, c: np.ndarray, cl: np.ndarray) -> np.ndarray:
-    """AUC from the first output time to each output time, (n, n_t)."""
-    zero = np.zeros((c.shape[0], 1))
+    """AUC from the first output time to each output time, (n, n_t): each segment [t_j, t_j+1] of
+    each row of the block linear up, log down (:func:`_cumulative_areas`)."""
     if len(t) < 2:
-        return zero
-    return np.concatenate((zero, np.cumsum(_segment_areas(t, c, cl), axis=1)), axis=1)
+        return np.zeros((c.shape[0], 1))
+    return _cumulative_areas(np.ascontiguousarray(t, dtype=np.float64), np.ascontiguousarray(c, dtype=np.float64),
+                             np.ascontiguousarray(cl, dtype=np.float64))
+
+
+@njit(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True)
+def _cumulative_areas(t, c, cl):  # pragma: no cover - compiled (tested through auc and compute_metrics)
+    """The running sums of the segment areas of each row, a first column of 0: segment j from
+    ``c[:, j]`` to ``cl[:, j + 1]`` (the left limit at its end) is ``0.5 (c1 + c2) dt``, or
+    ``(c1 - c2) dt / ln(c1 / c2)`` where it falls and both ends are > 0 (the one pass over the
+    traces that the numpy form took a dozen calls for; the same operations in the same order)."""
+    n, n_t = c.shape
+    out = np.empty((n, n_t))
+    for i in range(n):
+        ci = c[i]
+        li = cl[i]
+        oi = out[i]
+        s = 0.0
+        oi[0] = 0.0
+        for j in range(n_t - 1):
+            c1 = ci[j]
+            c2 = li[j + 1]
+            dt = t[j + 1] - t[j]
+            if c2 < c1 and c2 > 0.0 and c1 > 0.0:
+                a = (c1 - c2) * dt / np.log(c1 / c2)
+            else:
+                a = 0.5 * (c1 + c2) * dt
+            s += a
+            oi[j + 1] = s
+    return out
 
 
 def auc(t: Sequence[float], c: Sequence[float], jumps: Sequence[float] = (),
@@ -324,7 +350,7 @@ def _aucs_between(t: np.ndarray, c: np.ndarray, cl: np.ndarray, cum: np.ndarray,
 
 
 def _one_segment(a: float, b: float, ya: np.ndarray, yb: np.ndarray) -> np.ndarray:
-    """One segment of each subject by the rule of :func:`_segment_areas`."""
+    """One segment of each subject by the rule of :func:`_cumulative_areas`."""
     dt = float(b) - float(a)
     down = (yb < ya) & (yb > 0) & (ya > 0)
     with np.errstate(all="ignore"):
@@ -814,18 +840,13 @@ def _lag_fits(t: np.ndarray, q: np.ndarray, j: np.ndarray, origin: float, end: f
     if len(sel) < 3:
         reason[:] = "fewer than 3 output times in the first dosing interval"
         return out
-    js = j[:, sel]
     ns = len(sel)
-    k = np.argmax(js, axis=1)
-    peak = js[np.arange(n), k]
+    x = np.ascontiguousarray(t[sel], dtype=np.float64)
+    k, peak, lo_k, hi_k, slope, icpt, r2, sxx = _lag_windows(
+        np.ascontiguousarray(j[:, sel], dtype=np.float64), x, np.ascontiguousarray(q[:, sel], dtype=np.float64),
+        float(tolerance))
     nothing = ~(peak > 0)
     reason[nothing] = "nothing crossed the barrier (the flux never rises above 0)"
-    # the run of points around the peak within the tolerance
-    with np.errstate(invalid="ignore"):
-        good = js >= ((1.0 - tolerance) * peak)[:, None]
-    cols = np.arange(ns)
-    lo_k = np.max(np.where(~good & (cols < k[:, None]), cols, -1), axis=1) + 1
-    hi_k = np.min(np.where(~good & (cols > k[:, None]), cols, ns), axis=1) - 1
     size = hi_k - lo_k + 1
     few = ~nothing & (size < 3)
     reason[few] = f"no steady line: the flux stays within {tolerance:.0%} of its peak at fewer than 3 output times"
@@ -833,19 +854,8 @@ def _lag_fits(t: np.ndarray, q: np.ndarray, j: np.ndarray, origin: float, end: f
     if not len(rows):
         return out
     lo_k, hi_k, size, k = lo_k[rows], hi_k[rows], size[rows], k[rows]
-    inside = (cols >= lo_k[:, None]) & (cols <= hi_k[:, None])
-    x, y = t[sel], q[rows][:, sel]
-    # the least-squares line of each window (the normal equations about the means)
-    xm = np.sum(np.where(inside, x, 0.0), axis=1) / size
-    ym = np.sum(np.where(inside, y, 0.0), axis=1) / size
-    dx = np.where(inside, x - xm[:, None], 0.0)
-    sxx = np.sum(dx * dx, axis=1)
+    slope, icpt, r2, sxx = slope[rows], icpt[rows], r2[rows], sxx[rows]
     with np.errstate(all="ignore"):
-        slope = np.sum(dx * np.where(inside, y - ym[:, None], 0.0), axis=1) / sxx
-        icpt = ym - slope * xm
-        resid = np.where(inside, y - (slope[:, None] * x + icpt[:, None]), 0.0)
-        ss = np.sum(np.where(inside, (y - ym[:, None]) ** 2, 0.0), axis=1)
-        r2 = np.where(ss > 0, 1.0 - np.sum(resid**2, axis=1) / ss, 1.0)
         lags = -icpt / slope - origin
     line = sxx > 0
     rising = line & (slope > 0)
@@ -867,6 +877,83 @@ def _lag_fits(t: np.ndarray, q: np.ndarray, j: np.ndarray, origin: float, end: f
     fitted = rising & ~transient & ~short
     lag[rows[fitted]], steady[rows[fitted]] = lags[fitted], slope[fitted]
     return out
+
+
+@njit(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True)
+def _lag_windows(j, x, q, tolerance):  # pragma: no cover - compiled (tested through time_lag_fit)
+    """The window and the least-squares line of the time-lag method for each row, in one pass.
+
+    ``j`` and ``q`` (n, ns): flux and cumulative amount at the times ``x`` (ns,) of the interval
+    considered. For each row: the (first) peak of the flux ``k`` and its value, the run of
+    points around it within ``tolerance`` of the peak (``lo``, ``hi``, inclusive), and the line
+    of ``q`` on ``x`` over that run by the normal equations about the means (slope, intercept,
+    R^2 and the sum of squares of x about its mean; R^2 is 1 for a flat run). Rows whose peak is
+    not > 0 or whose run has fewer than 3 points are left to the caller (their line is not used).
+    """
+    n, ns = j.shape
+    k = np.zeros(n, dtype=np.int64)
+    peak = np.empty(n)
+    lo = np.zeros(n, dtype=np.int64)
+    hi = np.zeros(n, dtype=np.int64)
+    slope = np.full(n, np.nan)
+    icpt = np.full(n, np.nan)
+    r2 = np.full(n, np.nan)
+    sxx = np.zeros(n)
+    for i in range(n):
+        ji = j[i]
+        qi = q[i]
+        best = ji[0]
+        at = 0
+        for m in range(ns):  # the first largest value (a NaN counts as largest, as np.argmax)
+            v = ji[m]
+            if v != v:
+                at = m
+                break
+            if v > best:
+                best = v
+                at = m
+        top = ji[at]
+        k[i] = at
+        peak[i] = top
+        level = (1.0 - tolerance) * top
+        a = at
+        while a > 0 and ji[a - 1] >= level:
+            a -= 1
+        b = at
+        while b < ns - 1 and ji[b + 1] >= level:
+            b += 1
+        lo[i] = a
+        hi[i] = b
+        if not top > 0 or b - a + 1 < 3:
+            continue
+        size = b - a + 1
+        sx = 0.0
+        sy = 0.0
+        for m in range(a, b + 1):
+            sx += x[m]
+            sy += qi[m]
+        xm = sx / size
+        ym = sy / size
+        s_xx = 0.0
+        s_xy = 0.0
+        s_yy = 0.0
+        for m in range(a, b + 1):
+            dx = x[m] - xm
+            dy = qi[m] - ym
+            s_xx += dx * dx
+            s_xy += dx * dy
+            s_yy += dy * dy
+        sl = s_xy / s_xx
+        c0 = ym - sl * xm
+        s_rr = 0.0
+        for m in range(a, b + 1):
+            e = qi[m] - (sl * x[m] + c0)
+            s_rr += e * e
+        slope[i] = sl
+        icpt[i] = c0
+        r2[i] = 1.0 - s_rr / s_yy if s_yy > 0 else 1.0
+        sxx[i] = s_xx
+    return k, peak, lo, hi, slope, icpt, r2, sxx
 
 
 # ----------------------------------------------------------------------------- typed table
@@ -1382,7 +1469,7 @@ def _exposures(t: np.ndarray, c: np.ndarray, applications: Sequence[float],
     k = np.argmax(c, axis=1)
     cmax, tmax = c[np.arange(rows_all), k], t[k]
     intervals = dosing_intervals(applications, end) or ((float(t[0]), end),)
-    cl = c.copy()
+    cl = c.copy(order="C")
     for g, (_, jumps, _) in enumerate(groups):
         if jumps:
             _left_limits(t, c[g * n:(g + 1) * n], jumps, cl[g * n:(g + 1) * n])

@@ -669,11 +669,8 @@ def format_quantity(value: float, kind: str, unit: str | tuple[str, ...] | None 
     '0.16666666666666666 h'
     """
     internal = KINDS[kind].internal
-    units = (unit,) if isinstance(unit, str) else tuple(unit or ())
-    extra = _ALTERNATIVES.get(kind, ())
-    units = units + tuple(u for u in (*extra, internal) if u not in units)
     best = None
-    for u in units:
+    for u in _candidates(kind, unit if isinstance(unit, str) or unit is None else tuple(unit)):
         if best is not None and len(u) + 2 > len(best) - 3:
             continue  # even one digit in this unit could not win
         number = value if u == internal else _tidy(convert(value, kind, u))
@@ -687,6 +684,14 @@ def format_quantity(value: float, kind: str, unit: str | tuple[str, ...] | None 
         if exact:
             best = text
     return best if best is not None else f"{_num(value)} {internal}"
+
+
+@lru_cache(maxsize=256)
+def _candidates(kind: str, unit: str | tuple[str, ...] | None) -> tuple[str, ...]:
+    """The units :func:`format_quantity` tries, in order: those given, the usual ones of the kind,
+    the internal unit (each once; the same few for every scenario, so found once)."""
+    units = (unit,) if isinstance(unit, str) else tuple(unit or ())
+    return units + tuple(u for u in (*_ALTERNATIVES.get(kind, ()), KINDS[kind].internal) if u not in units)
 
 
 _ALTERNATIVES = {

@@ -1381,7 +1381,11 @@ def _subject_of(m: Any, i: int) -> Any:
     if "steady_state_reached" in kw:
         x = kw["steady_state_reached"]
         kw["steady_state_reached"] = None if x != x else bool(x)
-    return type(m)(**kw)
+    # every field is set from the block's own (a frozen dataclass without checks in its __init__,
+    # which would set them one by one through object.__setattr__)
+    out = object.__new__(type(m))
+    out.__dict__.update(kw)
+    return out
 
 
 _WHOLE = ("terminal_points", "lag_points")

@@ -78,14 +78,12 @@ def _step_text(t: float, down: bool = False) -> str:
     return _h(t)
 
 
-def _shortest_lag(scenario: Scenario) -> tuple[float, str]:
+def _shortest_lag(lags: dict[str, float]) -> tuple[float, str]:
+    """The shortest positive lag time of the resolved barriers (``lags``: by barrier id) and whose."""
     best, who = math.inf, ""
-    for b in scenario.barriers:
-        if b.model != "resolved":
-            continue
-        lag = lag_time(b.layers)
+    for bid, lag in lags.items():
         if 0 < lag < best:
-            best, who = lag, b.id
+            best, who = lag, bid
     return best, who
 
 
@@ -119,10 +117,11 @@ def scenario_warnings(scenario: Scenario, *, solubility: bool = True,
     tuple of str
     """
     out: list[str] = []
+    lags = {b.id: lag_time(b.layers) for b in scenario.barriers if b.model == "resolved"}
     for b in scenario.barriers:
         if b.model != "resolved":
             continue
-        lag = lag_time(b.layers)
+        lag = lags[b.id]
         if lag > scenario.duration:
             out.append(f"barrier '{b.id}': the lag time ({_h(lag)}) exceeds the simulated duration "
                        f"({_h(scenario.duration)}); the run never sees steady state, so flux and permeated "
@@ -133,7 +132,7 @@ def scenario_warnings(scenario: Scenario, *, solubility: bool = True,
                    f"(0 h to {_h(scenario.duration)}); Cmax, AUC and the other metrics see only those rows")
     if len(grid) > 1:
         step = float(np.max(np.diff(grid)))
-        lag, who = _shortest_lag(scenario)
+        lag, who = _shortest_lag(lags)
         tau = _shortest_interval(scenario)
         if step > COARSE_FRACTION * lag and lag <= tau:
             out.append(f"the output step ({_step_text(step)}) is coarser than a tenth of the shortest lag time "

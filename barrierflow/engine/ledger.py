@@ -22,6 +22,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from numba import njit
@@ -81,9 +82,10 @@ class Ledger:
             big = max(float(np.nanmax(left, initial=0.0)), float(np.nanmax(right, initial=0.0)))
         return max(big, 1e-300)
 
-    @property
+    @cached_property
     def absolute_error(self) -> float:
-        """Largest |left - right| over the rows, mg (NaN when a term is not finite)."""
+        """Largest |left - right| over the rows, mg (NaN when a term is not finite; found once:
+        :attr:`relative_error` divides it)."""
         err = self.absolute_errors
         if not np.all(np.isfinite(err)):
             return float("nan")

@@ -9,8 +9,8 @@ the job of :mod:`barrierflow.io`.
 from __future__ import annotations
 
 import dataclasses
-import json
 from collections.abc import Mapping
+from json.encoder import encode_basestring
 from typing import Any
 
 from ..errors import Problem, ScenarioError, UnitsError
@@ -308,7 +308,8 @@ def _scalar(value: Any) -> str:
         return repr(value)
     if isinstance(value, str):
         # JSON escapes what TOML forbids in a basic string, except DEL (U+007F), which TOML also forbids
-        return json.dumps(value, ensure_ascii=False).replace("\x7f", "\\u007f")
+        # (json's own compiled quoting, what json.dumps(value, ensure_ascii=False) gives for a text)
+        return encode_basestring(value).replace("\x7f", "\\u007f")
     if isinstance(value, (list, tuple)):
         return "[" + ", ".join(_scalar(v) for v in value) + "]"
     raise TypeError(f"cannot write {value!r} to TOML")

@@ -48,7 +48,7 @@ from .vehicle import VehicleProblem
 
 __all__ = ["INTEGRATORS", "VEHICLE", "AutoIntegrator", "Integration", "IntervalIntegrator", "Integrator", "RunPlan",
            "RunStats", "ScipyIntegrator", "check_tolerances", "estimated_seconds", "integrator_from_name",
-           "refuse_vehicle_terms", "resolve_integrator", "working_memory"]
+           "refuse_vehicle_terms", "resolve_integrator", "sharpness", "split_budget", "working_memory"]
 
 
 @dataclass
@@ -504,8 +504,10 @@ class AutoIntegrator(Integrator):
       the square per output row, so only small networks take them;
     * a chain network with the saturable elimination of one compartment
       (:func:`~barrierflow.engine.split.linear_part`) when :data:`SPLIT_BY_DEFAULT` allows it and
-      its estimated cost is below RODAS4's: the split path (the linear part exact, the slow modes
-      by RODAS4), which computes the run on RODAS4 itself when its conditions fail on the way;
+      its estimated cost is below RODAS4's (an estimate that knows how sharp the elimination is
+      over a dosing interval, :data:`SPLIT_SHARPNESS`): the split path (the linear part exact, the
+      slow modes by RODAS4), which computes the run on RODAS4 itself when its conditions fail on
+      the way or when it needs more steps than its budget (:func:`split_budget`);
     * everything else (other saturable elimination, larger networks, stars of many barriers): the
       compiled RODAS4 integrator, O(n) per step.
 
@@ -536,9 +538,9 @@ class AutoIntegrator(Integrator):
             return VEHICLE
         if linear_part(model) is not None:
             n_rows, n_int = rows or 500, intervals or 1
-            if SPLIT_BY_DEFAULT and (estimated_seconds("split", model, n_rows, n_int)
+            if SPLIT_BY_DEFAULT and (estimated_seconds("split", model, n_rows, n_int, longest)
                                      < estimated_seconds("rodas", model, n_rows, n_int)):
-                return SplitIntegrator(rtol=self.rtol, atol=self.atol)
+                return SplitIntegrator(rtol=self.rtol, atol=self.atol, step_budget=split_budget(n_int))
             return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
         if exact_supported(model, longest):
             exact = ExactIntegrator()
@@ -589,26 +591,78 @@ stars of 2 to 12 barriers of 2 to 8 cells a layer over 1 to 14 dosing intervals,
 steps each)."""
 
 
-SPLIT_RATIO = (1.28, -0.375)
-"""The split path's estimated cost as a ratio to RODAS4's on the same network (both run the same
-saturable chain networks): ``SPLIT_RATIO[0] * intervals ** SPLIT_RATIO[1]``. A robust fit (least
-squares with a soft-L1 loss on the logarithm of the measured ratio) to 224 timed pairs, the
-shortest of 7 and of 15 runs of each path (load 5-6), on the benchmark's saturable patch with 2
-to 200 cells a layer, 1 to 14 applications over 7 days, 169 and 1,009 output rows, a patch of 1
-and 0.1 mL. The split's steps (about 150 for one application, 380 for 14) grow more slowly than
-RODAS4's (160-270, 750-1,530): RODAS4 is about 1.3 times faster on a single application (the
-same number of steps, each cheaper) and slower from two applications on (ratio 0.4-0.9 from 4).
-The number of states and of output rows changed the ratio less than the noise of the timings.
-Choosing by this ratio puts the default within 1.3x of the faster path on 108 and 109 of the
-two sets of 112 (the earlier estimate, from operation counts: 94 and 93)."""
+SPLIT_RATIO = (0.65, -0.2)
+"""The split path's estimated cost as a ratio to RODAS4's on the same network:
+``SPLIT_RATIO[0] * intervals ** SPLIT_RATIO[1] * (1 + (sharpness / SPLIT_SHARPNESS[0]) **
+SPLIT_SHARPNESS[1])`` (:func:`sharpness`: the elimination's rate below km, vmax / (km V), times
+the longest dosing interval), for a single interval at least :data:`SPLIT_SINGLE`. The split's
+steps grow more slowly with the dosing intervals than RODAS4's, and very much faster with the
+sharpness: where a concentration meets a km far below its scale, the split's step check
+(:data:`~barrierflow.engine.split.DRIFT`) holds each step short (40,116 steps against RODAS4's
+647 on the benchmark's patch with km 1e-7 of central's concentration scale). The constants are
+those of a search over a grid that keeps the most of 263 timed pairs (the shortest of 5 or 7 runs
+of each path, load 4-6) within 1.3x of the faster path: tests/benchmarks/saturable_sweep.py (the
+benchmark's patch at 10 and 50 cells a layer with km from 1e-7 to 1e2 of the scale, three
+strengths of vmax, two dose sizes, one application or the daily replacements; the benchmark's
+saturable variant with 1 to 14 applications; 22 random networks of the property tests' generator)
+and tests/benchmarks/split_choice.py (the saturable variant at 2 to 200 cells a layer). By it,
+258 of the 263 (all 241 but the random networks, the worst 1.26x); by the earlier ratio
+1.28 * intervals ** -0.375, which did not know the sharpness, 223 (the worst 30x). The five
+others are random networks: four whose split spends most of its time setting up each interval's
+modes (1.9x to 5.4x slower than RODAS4 at 220 to 500 states, with 8 to 60 steps), which no term
+of the estimate sees, and one on RODAS4 that the split runs in 0.65 of its time. (A robust
+least-squares fit of the same form put the patches with sharpness about 1,000 on the split, 1.5x
+to 1.8x slower than RODAS4.)"""
+
+SPLIT_SHARPNESS = (100.0, 2.0)
+"""The sharpness (:func:`sharpness`) at which the split's estimated cost doubles, and the power of
+its growth beyond (see :data:`SPLIT_RATIO`): in effect the split only up to a sharpness of about
+100 (the patches at 96 were within 1.05x either way, those at 960 1.5x to 1.8x slower on the
+split)."""
+
+SPLIT_SINGLE = 1.35
+"""The split path's estimated cost as a ratio to RODAS4's for a single dosing interval (at least;
+the larger of this and :data:`SPLIT_RATIO`'s form): the median of the 98 single-interval pairs of
+the sweeps (the smallest 0.79): the same number of steps or more, each dearer, and the split's
+set-up besides; the default runs RODAS4."""
+
+SPLIT_BUDGET = 2.0
+"""The default gives the split path a step budget of this many times the steps RODAS4 is expected
+to take (:data:`RODAS_STEPS`; :func:`split_budget`): :data:`~barrierflow.engine.split.BUDGET_START`
+of it from the start, the rest in proportion to the simulated time. Past it, the run is computed
+on RODAS4: a split that needs far more steps than its estimate said costs a bounded share of work
+before it gives up (the sharp elimination of tests/test_split_random.py, three intervals: 3,672
+steps in full; with its budget of 419 it gives up after 83, and with RODAS4's run takes 0.70 ms
+against RODAS4's 0.6 ms alone). The benchmark's saturable variant takes 370 steps against its
+budget of 815 (it would give up with a budget of 300, not of 400)."""
 
 
-def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int) -> float:
+def split_budget(intervals: int) -> float:
+    """The step budget the default gives the split path (:attr:`~barrierflow.engine.split.
+    SplitIntegrator.step_budget`) for a run of ``intervals`` dosing intervals: :data:`SPLIT_BUDGET`
+    times the steps RODAS4 is expected to take (:data:`RODAS_STEPS`)."""
+    return SPLIT_BUDGET * (RODAS_STEPS[0] + RODAS_STEPS[1] * intervals)
+
+
+def sharpness(model: CompiledModel, longest: float) -> float:
+    """How sharp the saturable elimination of ``model`` (its first) is over a dosing interval:
+    its rate below km, vmax / (km V) (1/h), times the longest interval ``longest`` (h); 0 for a
+    model without one."""
+    if not len(model.mm_state):
+        return 0.0
+    ic = int(model.mm_state[0])
+    return float(model.mm_vmax[0] / (model.mm_km[0] * model.capacity[ic])) * longest
+
+
+def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int,
+                      longest: float | None = None) -> float:
     """A rough estimate of the seconds a path takes for ``model``, to choose between paths.
 
     ``path`` is ``"rodas"`` (a set-up, then per step O(n) and per output row O(n), the steps as
     :data:`RODAS_STEPS`), ``"split"`` (RODAS4's estimate times a ratio fitted to timed pairs,
-    :data:`SPLIT_RATIO`: the split's steps grow more slowly with the dosing intervals),
+    :data:`SPLIT_RATIO`: the split's steps grow more slowly with the dosing intervals, and faster
+    with the sharpness of the elimination over the longest dosing interval ``longest`` (h),
+    :data:`SPLIT_SHARPNESS`, without ``longest`` taken as 0; a single interval :data:`SPLIT_SINGLE`),
     ``"modes"`` (a set-up, a dense symmetric decomposition, O(n^3), and per output row the modes
     not decayed, O(n min(n, 40))) or ``"expm"`` (a set-up, about three exponentials of
     the augmented matrix per interval, O(n^3) each, and per output row about 2 us and a product,
@@ -627,7 +681,12 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
         steps = RODAS_STEPS[0] + RODAS_STEPS[1] * intervals
         return 6.2e-4 + steps * (2.1e-6 + 1.54e-8 * n) + 2e-9 * rows * n
     if path == "split":
-        return SPLIT_RATIO[0] * intervals ** SPLIT_RATIO[1] * estimated_seconds("rodas", model, rows, intervals)
+        sharp = 0.0 if longest is None else sharpness(model, longest)
+        ratio = SPLIT_RATIO[0] * intervals ** SPLIT_RATIO[1]
+        ratio *= 1.0 + (sharp / SPLIT_SHARPNESS[0]) ** SPLIT_SHARPNESS[1]
+        if intervals < 2:
+            ratio = max(ratio, SPLIT_SINGLE)
+        return ratio * estimated_seconds("rodas", model, rows, intervals)
     if path == "modes":
         return 8.6e-4 + 3.8e-5 * intervals + 3e-10 * nd ** 3 + 8.1e-10 * rows * nd * min(nd, 40)
     if path == "expm":

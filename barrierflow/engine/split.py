@@ -47,7 +47,8 @@ modes); with du/dt taken at every stage point, an interval in which that bound e
 integrated (:data:`RESPLIT`; the bound shrinks with the fast modes' rates), from the state at its
 start; only when :data:`~barrierflow.engine.exact_chain.MAX_MODES` modes are integrated already
 does the integrator compute the run on RODAS4 over all states instead. So does a run whose Newton
-iteration fails, whose saturable compartment is clamped, or whose modes fail their check.
+iteration fails, whose saturable compartment is clamped, whose modes fail their check, or that
+needs more steps than its budget (:attr:`SplitIntegrator.step_budget`, which the default sets).
 """
 
 from __future__ import annotations
@@ -85,7 +86,8 @@ from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_s
 from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator, step_size
 from .schedule import apply_events, rows_until, start_events
 
-__all__ = ["CUT_SLOW", "DRIFT", "RESPLIT", "STATIC_SHARE", "SplitIntegrator", "linear_part", "split_schedule"]
+__all__ = ["BUDGET_START", "CUT_SLOW", "DRIFT", "RESPLIT", "STATIC_SHARE", "SplitIntegrator", "linear_part",
+           "split_schedule"]
 
 CUT_SLOW = 100.0
 """1/h: the modes of the chain no faster than this are integrated (the slow modes), and so are
@@ -117,13 +119,19 @@ up to this many times faster than the cut integrated (a diffusion's modes up to 
 number about sqrt(lambda): about 1.4 times the modes; the bound, led by the slowest fast modes'
 |beta_s| / lambda_s^2, falls by 2 to 5 times on the benchmark's networks)."""
 
+BUDGET_START = 0.2
+"""A run with a step budget (:attr:`SplitIntegrator.step_budget`) may take this share of it from
+its start, and the rest in proportion to the simulated time: a split that needs many more steps
+than expected (a concentration crossing a small km, each step held short by :data:`DRIFT`) gives
+up early, with little work spent, and not only at the budget's end."""
+
 # the stage times c_i and the sums gamma_i of RODAS (Hairer and Wanner 1996, their code RODAS,
 # METH = 1): the non-autonomous terms of the stages
 STAGE_TIME = np.array([0.0, 0.386, 0.21, 0.63, 1.0, 1.0])
 STAGE_GAMMA = np.array([0.25, -0.1043, 0.1035, -0.0362, 0.0, 0.0])
 
 # status codes of the compiled run (0: done)
-OK, FAIL_STEP, FAIL_MODES, FAIL_NEWTON, FAIL_STATIC, FAIL_CLAMPED, FAIL_NONFINITE, FAIL_MAXSTEPS = range(8)
+OK, FAIL_STEP, FAIL_MODES, FAIL_NEWTON, FAIL_STATIC, FAIL_CLAMPED, FAIL_NONFINITE, FAIL_MAXSTEPS, FAIL_BUDGET = range(9)
 _FAILURES = {
     FAIL_STEP: "the step size became too small",
     FAIL_MODES: "the chain's modes failed their check",
@@ -132,6 +140,7 @@ _FAILURES = {
     FAIL_CLAMPED: "the compartment with saturable elimination is held",
     FAIL_NONFINITE: "the solution became non-finite",
     FAIL_MAXSTEPS: "the step limit was reached",
+    FAIL_BUDGET: "it needed more steps than its budget",
 }
 
 
@@ -679,9 +688,15 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
     n_steps = 0
     h_carry = h
     lag = 0.0  # the bound of the fast modes' lag behind their static response (x units)
+    budget = info[2]
+    t_run = info[3]  # the run's time at the interval's start, h
+    i_dur = 1.0 / info[4]
     while t < t_end:
         if n_steps >= max_steps:
             return FAIL_MAXSTEPS, h
+        # the step budget: BUDGET_START of it from the start, the rest in proportion to the time
+        if stats[0] + stats[1] > budget * min(1.0, BUDGET_START + (1.0 - BUDGET_START) * (t_run + t) * i_dur):
+            return FAIL_BUDGET, h
         if h < h_min:
             return FAIL_STEP, h
         last = False
@@ -911,7 +926,9 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     run's working copy, which the events change), ``cut`` (1/h, < 0) the chain path's cut of its
     modes (:func:`~barrierflow.engine.exact.mode_time`), ``info[0]`` gets the largest ratio of the
     static correction's bound to the absolute tolerances met, ``info[1]`` the number of intervals
-    split again with more modes (:data:`RESPLIT`).
+    split again with more modes (:data:`RESPLIT`); ``info[2]`` is the step budget (inf for none;
+    :attr:`SplitIntegrator.step_budget`), ``info[3]`` gets each interval's start (h) and ``info[4]``
+    is the run's duration (h).
     """
     nc = m.n_comp
     nd = m.n_dyn
@@ -1262,6 +1279,7 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         for i in range(3):
             guard0[i] = guard[i]
         info0 = info[0]
+        info[3] = t0
         h0 = h
         S = (vyp, ends_z, ends_y, atc, alone_at, comp_at, cur_c, new_c, cur_q, new_q, err_q)
         status, h = _interval(y, t1 - t0, tau, states[row:sel_end] if full else states, full, taps, row,
@@ -1305,9 +1323,9 @@ class SplitIntegrator(Integrator):
     elimination of one compartment (see the module docstring).
 
     A run whose conditions fail on the way (the bound of the static correction, the Newton
-    iteration of the saturable concentration, a hold on that compartment, the modes' check) is
-    computed on :class:`~barrierflow.engine.rosenbrock.RosenbrockIntegrator` at the same
-    tolerances instead, and its message says so.
+    iteration of the saturable concentration, a hold on that compartment, the modes' check, the
+    step budget) is computed on :class:`~barrierflow.engine.rosenbrock.RosenbrockIntegrator` at
+    the same tolerances instead, and its message says so.
 
     Parameters
     ----------
@@ -1316,17 +1334,28 @@ class SplitIntegrator(Integrator):
         state's magnitude scale), applied to every state.
     max_steps : int
         Largest number of steps in one dosing interval (default 1,000,000).
+    step_budget : float or None
+        Most steps, accepted and rejected, over the whole run (None: no budget): :data:`BUDGET_START`
+        of it from the start, the rest in proportion to the simulated time; past it the run is
+        computed on RODAS4. The default (:class:`~barrierflow.engine.integrators.AutoIntegrator`)
+        sets it from RODAS4's estimated steps (:data:`~barrierflow.engine.integrators.SPLIT_BUDGET`),
+        so that a split that turns out slower than its estimate costs a bounded share of work more
+        than RODAS4 alone.
     """
 
     rtol: float = 3e-6
     atol: float = 3e-9
     max_steps: int = 1_000_000
+    step_budget: float | None = None
     name: str = field(init=False, default="split")
 
     def __post_init__(self) -> None:
         check_tolerances(self.rtol, self.atol)
         if not (isinstance(self.max_steps, int) and self.max_steps >= 1):
             raise ScenarioError.single("integrator max_steps", self.max_steps, "must be a whole number >= 1")
+        b = self.step_budget
+        if b is not None and not (isinstance(b, float | int) and not isinstance(b, bool) and b > 0):
+            raise ScenarioError.single("integrator step_budget", b, "must be a number of steps > 0, or none")
 
     def working_memory(self, model: CompiledModel) -> int:
         """Bytes of working arrays: the chain's slow modes (k x n) and O(n) vectors."""
@@ -1366,7 +1395,9 @@ class SplitIntegrator(Integrator):
         ev_dosed = np.empty((n_t, nc))
         ev_removed = np.empty((n_t, nc))
         st = np.zeros(6, dtype=np.int64)
-        info = np.zeros(2)
+        info = np.zeros(5)
+        info[2] = np.inf if self.step_budget is None else float(self.step_budget)
+        info[4] = max(plan.duration, 1e-300)
         code = split_schedule(marks, times, ev, work, base, s, chain_order(lin), _FAST / mode_time(times, marks),
                               jacobian_size(lin), model.y0.copy(), states, ev_dosed, ev_removed, st, full, taps,
                               int(model.mm_state[0]), float(model.mm_vmax[0]), float(model.mm_km[0]), COEF,
@@ -1374,8 +1405,11 @@ class SplitIntegrator(Integrator):
         if code != OK:
             rodas = RosenbrockIntegrator(rtol=self.rtol, atol=self.atol, max_steps=self.max_steps)
             out = rodas.run(plan)
+            why = _FAILURES.get(int(code), "unknown failure")
+            if code == FAIL_BUDGET:
+                why = f"{why}, {self.step_budget:.0f}, after {int(st[0] + st[1])} steps"
             note = (f"computed on {rodas.name} over all states: the split of the saturable elimination did not "
-                    f"apply ({_FAILURES.get(int(code), 'unknown failure')})")
+                    f"apply ({why})")
             return Integration(out.states, out.event_dosed, out.event_removed, out.status,
                                f"{out.message} ({note})", out.stats, out.event_amounts, out.volumes, out.failed_at,
                                out.rows, out.last)

@@ -5,10 +5,12 @@ and km 2e-5 mg/mL on central, an invented scenario) with 2 to 200 cells a layer,
 applications over its 7 days (the first at 0 h, the others evenly spaced), output every 10 min or
 every hour, and a patch of 1 mL or 0.1 mL. Each path runs ``--runs`` times per shape, the two
 alternating; the shortest counts. Prints one line per shape, then the robust fit (least squares
-with a soft-L1 loss) of log(split / RODAS4) against log(intervals), the constants of
-``integrators.SPLIT_RATIO``, and how often choosing by the fitted ratio and by the product's
-current estimate keeps the choice within 1.3x of the faster path (whether the default may take
-the split at all is ``integrators.SPLIT_BY_DEFAULT``).
+with a soft-L1 loss) of log(split / RODAS4) against log(intervals) on these shapes alone (whose
+elimination's sharpness changes only with the intervals; ``integrators.SPLIT_RATIO`` and
+``SPLIT_SHARPNESS`` are fitted to the wider sweep of tests/benchmarks/saturable_sweep.py), and
+how often choosing by the fitted ratio and by the product's current estimate keeps the choice
+within 1.3x of the faster path (whether the default may take the split at all is
+``integrators.SPLIT_BY_DEFAULT``).
 
 Usage: ``.venv/bin/python tests/benchmarks/split_choice.py [--runs N]``. The machine is shared:
 state its load (``uptime``) with the figures.
@@ -67,7 +69,7 @@ def main() -> None:
                             best[name] = min(best.get(name, np.inf), time.perf_counter() - t0)
                     rows = len(solve(s, paths[1][1]).times)
                     m = compile_scenario(s)
-                    cheaper = (estimated_seconds("split", m, rows, doses + 1)
+                    cheaper = (estimated_seconds("split", m, rows, doses + 1, 168.0 / (doses + 1))
                                < estimated_seconds("rodas", m, rows, doses + 1))
                     chosen = "split" if cheaper else "rodas4"  # by the estimate (SPLIT_BY_DEFAULT aside)
                     recs.append((doses + 1, best["split"], best["rodas"], chosen))

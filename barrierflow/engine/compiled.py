@@ -46,7 +46,7 @@ from ..model import Barrier, Scenario
 from ..model.cohort import Diverging, cohort_size, decide
 from .arrays import ModelArrays
 from .grid import Grid, response_time
-from .schedule import regimen_bounds
+from .schedule import RegimenBounds, regimen_bounds
 from .twoport import stack_two_port
 
 __all__ = ["BarrierGrid", "CompiledModel", "ModelArrays", "compile_scenario", "limited_compartments"]
@@ -99,8 +99,8 @@ class CompiledModel:
 
     def __post_init__(self) -> None:
         # every field of ``arrays`` is also an attribute of the model, under the same name
-        for name, value in zip(ModelArrays._fields, self.arrays, strict=True):
-            object.__setattr__(self, name, value)
+        # (the instance dictionary at once: a frozen dataclass's setattr costs a call per field)
+        self.__dict__.update(zip(ModelArrays._fields, self.arrays, strict=True))
 
     def with_arrays(self, arrays: ModelArrays) -> CompiledModel:
         """The same model with other numbers (for example the links as a run's events left them)."""
@@ -246,7 +246,7 @@ def _part_of_compartments(s: Scenario) -> list[int]:
     return [find(i) for i in range(len(s.compartments))]
 
 
-def _mass_scale(s: Scenario) -> list:
+def _mass_scale(s: Scenario, doses: RegimenBounds) -> list:
     """An amount per compartment, mg, that bounds what its connected part of the network can move.
 
     Present at start plus every dose; each clamped level (a held compartment over the run, a hold
@@ -255,7 +255,8 @@ def _mass_scale(s: Scenario) -> list:
     transfers, clearance and saturable elimination could take from it meanwhile. Where the part
     can hold and lose less than that (its links' steady uptake counts a finite neighbour as a
     sink), the clamp adds instead what filling the part to its potential and the part's sinks
-    could take (:func:`_clamp_fill`). A part that moves nothing gets 1 mg.
+    could take (:func:`_clamp_fill`). A part that moves nothing gets 1 mg. ``doses``:
+    :func:`~barrierflow.engine.schedule.regimen_bounds` of ``s``.
     """
     comps = {c.id: c for c in s.compartments}
     part = _part_of_compartments(s)
@@ -274,7 +275,6 @@ def _mass_scale(s: Scenario) -> list:
     for c in s.compartments:
         if c.held:
             clamps.append((c.id, c.held_concentration, s.duration))
-    doses = regimen_bounds(s)
     for cid, amount in doses.added:
         add(cid, amount)
     clamps.extend(doses.clamps)
@@ -382,7 +382,7 @@ def _smaller(a, b):
     return min(a, b)
 
 
-def limited_compartments(s: Scenario) -> set[str]:
+def limited_compartments(s: Scenario, doses: RegimenBounds | None = None) -> set[str]:
     """The compartments whose solute may exceed the solubility (times their partition), so that
     the limit must be computed there; empty without ``[substance] solubility``.
 
@@ -392,12 +392,13 @@ def limited_compartments(s: Scenario) -> set[str]:
     or hold puts it above; when a bolus, infusion or transfer feeds it and either a clamp above
     zero could supply without end or all the substance of the run (every initial amount and dose)
     in its smallest volume would exceed it; or when a layer starts above its own solubility and
-    that amount could. A held compartment is limited when held above it.
+    that amount could. A held compartment is limited when held above it. ``doses``:
+    :func:`~barrierflow.engine.schedule.regimen_bounds` of ``s`` when the caller has it.
     """
     sol = s.substance.solubility
     if sol is None:
         return set()
-    doses = regimen_bounds(s)
+    doses = doses or regimen_bounds(s)
     total = 0.0
     clamps = any(c.held and decide(c.held_concentration > 0) for c in s.compartments)
     clamps |= any(held and decide(conc > 0) for _, conc, held in doses.levels)
@@ -465,7 +466,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     invk_parts = [_row([1.0 / c.partition for c in comps])]
     # volumes that change (evaporation, samples without replacement) and losses to the air take
     # the first-order loss of their compartment; its clearance then goes to a link of its own
-    shrink = regimen_bounds(scenario).shrink
+    doses = regimen_bounds(scenario)
+    shrink = doses.shrink
     shrinking = np.array([c.id in shrink for c in comps], dtype=np.bool_)
     own_loss = np.array([c.evaporates or bool(shrinking[i]) or decide(c.loss_rate > 0) for i, c in enumerate(comps)],
                         dtype=np.bool_)
@@ -515,7 +517,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         b = bars[bi]
         p_from = comp_index[b.from_id]
         p_to = comp_index[b.to_id]
-        interfaces = (0.0, *np.moveaxis(np.cumsum(_row([x.thickness for x in b.layers]), axis=-1), -1, 0))
+        ends_at = np.cumsum(_row([x.thickness for x in b.layers]), axis=-1)
+        interfaces = (0.0, *(ends_at if ends_at.ndim == 1 else np.moveaxis(ends_at, -1, 0)))
         if b.model == "steady":
             a, bb, c, d = (v * b.area for v in _two_port(b))
             ends.append(np.array([[p_from, p_to, q_degr0 + bi if decide(a != c) else -1, q_perm0 + bi]],
@@ -573,7 +576,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     y0[..., :n_comp] = _row([c.starting_concentration for c in comps])
     for (bi, start, stop, _, lay_idx, _) in grids_tmp:  # loaded layers
         y0[..., start:stop] = _row([x.initial_concentration for x in bars[bi].layers])[..., lay_idx]
-    m_list = _mass_scale(scenario)
+    m_list = _mass_scale(scenario, doses)
     m_ref = _row(m_list)  # per compartment: its part's bound
     cap = _join(cap_parts)
     inv_k = _join(invk_parts)
@@ -599,7 +602,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         scale[..., q_supply0 + k * n_comp:q_supply0 + (k + 1) * n_comp] = m_ref
     for (_, start, stop, _, _, _) in grids_tmp:  # a loaded layer: at least its own concentration
         scale[..., start:stop] = np.maximum(scale[..., start:stop], y0[..., start:stop])
-    limited = limited_compartments(scenario)
+    limited = limited_compartments(scenario, doses)
     sol = scenario.substance.solubility
     if lead and inv_k.ndim == 1:
         inv_k = np.broadcast_to(inv_k, lead + inv_k.shape).copy()

@@ -106,6 +106,8 @@ class Grid:
         checked (infinite: the steady checks alone).
         """
         if layer.cells is not None:
+            if not isinstance(layer.thickness, np.ndarray):  # one value: no broadcast (a few us a layer)
+                return np.full(layer.cells, layer.thickness / layer.cells)
             return np.broadcast_to(layer.thickness / layer.cells, _shape(layer.thickness, layer.cells)).copy()
         return self.relative_to(layer, timescale) * layer.thickness
 

@@ -161,52 +161,49 @@ def relative_error_of(conc, cells, quad, dosed, removed, capacity, has_volume, y
     for j in range(nc, nd):
         cell0 += y0[j] * capacity[j]
     initial += cell0
-    t = np.zeros(6)
+    # each term's sum at every row, column by column: the rows are independent, so each pass over
+    # them runs at the speed of the loads instead of along one chain of additions per row; each
+    # row's sums take the same values in the same order as a pass over every amount and term
+    n_t = conc.shape[0]
+    n_q = quad.shape[1]
+    col = np.zeros((10, n_t))  # the six terms, the held supplies counted positive, present, in, out
+    for k in range(6):
+        tk = col[k]
+        for j in range(n_q):
+            wk = w[j, k]
+            if wk != 0.0:
+                for r in range(n_t):
+                    tk[r] += quad[r, j] * wk
+                if k == 1:  # (sources and sinks among the held supplies may cancel)
+                    gross = col[6]
+                    for r in range(n_t):
+                        gross[r] += abs(quad[r, j])
+    present = col[7]
+    ev_in = col[8]
+    ev_out = col[9]
+    for p in range(nc):
+        cp = capacity[p]
+        if has_volume[p]:
+            for r in range(n_t):
+                present[r] += conc[r, p] * cp
+        for r in range(n_t):
+            ev_in[r] += dosed[r, p]
+            ev_out[r] += removed[r, p]
     worst = 0.0
     finite = True
     big_left = 0.0
     big_right = 0.0
-    # the (amount, term) pairs that count, listed once, so that a row visits only those (the
-    # same sums in the same order as a pass over every amount and term)
-    n_q = quad.shape[1]
-    kept = np.zeros(6 * n_q, dtype=np.int64)
-    term = np.zeros(6 * n_q, dtype=np.int64)
-    n_kept = 0
-    for j in range(n_q):
-        for k in range(6):
-            if w[j, k] != 0.0:
-                kept[n_kept] = j
-                term[n_kept] = k
-                n_kept += 1
-    for r in range(conc.shape[0]):
-        for k in range(6):
-            t[k] = 0.0
-        gross = 0.0  # the held supplies each counted positive (sources and sinks may cancel)
-        qr = quad[r]
-        for i in range(n_kept):
-            j = kept[i]
-            k = term[i]
-            t[k] += qr[j] * w[j, k]
-            if k == 1:
-                gross += abs(qr[j])
-        present = 0.0
-        ev_in = 0.0
-        ev_out = 0.0
-        for p in range(nc):
-            if has_volume[p]:
-                present += conc[r, p] * capacity[p]
-            ev_in += dosed[r, p]
-            ev_out += removed[r, p]
-        present += cells[r]
-        dosed_all = ev_in + t[0]
-        left = initial + dosed_all + t[1]
-        right = present + t[2] + t[3] + ev_out + t[5] + t[4]
+    for r in range(n_t):
+        dosed_all = ev_in[r] + col[0, r]
+        t1 = col[1, r]
+        left = initial + dosed_all + t1
+        right = (present[r] + cells[r]) + col[2, r] + col[3, r] + ev_out[r] + col[5, r] + col[4, r]
         err = abs(left - right)
         if not np.isfinite(err):
             finite = False
         elif err > worst:
             worst = err
-        into = abs(initial + dosed_all) + max(abs(t[1]), gross)
+        into = abs(initial + dosed_all) + max(abs(t1), col[6, r])
         if into > big_left:  # NaN compares false: left out, as numpy.nanmax
             big_left = into
         if right > big_right:

@@ -698,14 +698,14 @@ def _exhausted(result: Any, cid: str, start: float, n: int) -> np.ndarray:
     :data:`EXHAUSTED_FRACTION` of what it held at ``start``, or NaN."""
     t = np.asarray(result.times, dtype=float)
     m = _block(result.amount(cid))
-    rows = np.nonzero(t >= start - 1e-9 * max(abs(float(t[-1])), 1.0))[0]
-    if not len(rows):
+    first = int(t.searchsorted(start - 1e-9 * max(abs(float(t[-1])), 1.0)))  # the rows from start on (t rises)
+    if first == len(t):
         return np.full(n, NAN)
-    held = m[:, rows[0]]
+    held = m[:, first]
     with np.errstate(invalid="ignore"):
-        low = m[:, rows] < EXHAUSTED_FRACTION * held[:, None]
+        low = m[:, first:] < EXHAUSTED_FRACTION * held[:, None]
     found = (held > 0) & low.any(axis=1)
-    return np.where(found, t[rows[np.argmax(low, axis=1)]], NAN)
+    return np.where(found, t[first + np.argmax(low, axis=1)], NAN)
 
 
 
@@ -1470,8 +1470,6 @@ def _exposures(t: np.ndarray, c: np.ndarray, applications: Sequence[float],
     if len(groups) > 1:
         input_end, input_reason = np.tile(input_end, len(groups)), np.tile(input_reason, len(groups))
     end = float(t[-1])
-    k = np.argmax(c, axis=1)
-    cmax, tmax = c[np.arange(rows_all), k], t[k]
     intervals = dosing_intervals(applications, end) or ((float(t[0]), end),)
     cl = c.copy(order="C")
     for g, (_, jumps, _) in enumerate(groups):
@@ -1484,15 +1482,19 @@ def _exposures(t: np.ndarray, c: np.ndarray, applications: Sequence[float],
     inside = (t >= a - 1e-12) & (t < b - 1e-9 * max(b, 1.0))
     end_rows = _rows_at(t, [b])
     last = cl[:, end_rows[0]] if end_rows else _interp_trace(t, c, b)
-    vals = np.concatenate((c[:, inside], last[:, None]), axis=1)
-    cmin, cmax_i = np.min(vals, axis=1), np.max(vals, axis=1)
+    # Cmax (its first row), and Cmin and Cmax over the last interval and the value just before its end
+    k, cmax, cmin, cmax_i = _peaks(np.ascontiguousarray(c, dtype=np.float64), inside,
+                                   np.ascontiguousarray(last, dtype=np.float64))
+    tmax = t[k]
     # terminal phase: after the last input has ended and after the Cmax that follows it
     lam, icpt, start, adj = (np.full(rows_all, NAN) for _ in range(4))
     points = np.zeros(rows_all, dtype=np.int64)
-    with np.errstate(invalid="ignore"):
-        after_end = t >= (input_end - 1e-9 * max(abs(end), 1.0))[:, None]
     ended = ~np.isnan(input_end)
-    rows = np.flatnonzero(ended & after_end.any(axis=1))
+    rows = np.zeros(0, dtype=np.int64)
+    if ended.any():
+        with np.errstate(invalid="ignore"):
+            after_end = t >= (input_end - 1e-9 * max(abs(end), 1.0))[:, None]
+        rows = np.flatnonzero(ended & after_end.any(axis=1))
     if len(rows):
         j0 = np.argmax(after_end[rows], axis=1)
         kk = np.argmax(np.where(np.arange(n_t) >= j0[:, None], c[rows], -np.inf), axis=1)
@@ -1555,6 +1557,48 @@ def _exposures(t: np.ndarray, c: np.ndarray, applications: Sequence[float],
             interval_aucs=tuple(x[part] for x in aucs), accumulation_ratio=acc[part],
             steady_state_reached=steady[part], notes=own))
     return tuple(out)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True)
+def _peaks(c, inside, last):  # pragma: no cover - compiled (tested through exposure_metrics)
+    """For each row of ``c``: the row of its first largest value and that value (a NaN counts as
+    largest, as np.argmax does), and the smallest and largest of its values at the rows ``inside``
+    and ``last`` (NaN when any is NaN, as np.min and np.max)."""
+    n, n_t = c.shape
+    k = np.zeros(n, dtype=np.int64)
+    top = np.empty(n)
+    low = np.empty(n)
+    high = np.empty(n)
+    for i in range(n):
+        ci = c[i]
+        at = 0
+        best = ci[0]
+        for j in range(n_t):
+            v = ci[j]
+            if v != v:
+                at = j
+                break
+            if v > best:
+                best = v
+                at = j
+        k[i] = at
+        top[i] = ci[at]
+        lo = last[i]
+        hi = lo
+        for j in range(n_t):
+            if inside[j]:
+                v = ci[j]
+                if v != v or lo != lo:
+                    lo = np.nan
+                    hi = np.nan
+                    break
+                if v < lo:
+                    lo = v
+                if v > hi:
+                    hi = v
+        low[i] = lo
+        high[i] = hi
+    return k, top, low, high
 
 
 _TERMINAL = ("auc_inf", "auc_extrapolated_percent", "lambda_z", "half_life", "terminal_start", "terminal_adj_r2")

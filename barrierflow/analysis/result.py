@@ -575,7 +575,7 @@ class Result:
                 continue
             grid[g.barrier_id] = {
                 "model": "resolved",
-                "cells_per_layer": [int(np.sum(g.layer_of_cell == i)) for i in range(len(b.layers))],
+                "cells_per_layer": np.bincount(g.layer_of_cell, minlength=len(b.layers)).tolist(),
                 "smallest_cell_um": float(g.widths.min() * 1e4),
                 "largest_cell_um": float(g.widths.max() * 1e4),
             }

@@ -181,8 +181,19 @@ class Result:
         ndarray, mg/mL
             One value per output time.
         """
-        i = self._c(cid)
-        return np.maximum(np.minimum(self.trajectory.column(i), self.trajectory.model.solubility[i]), 0.0)
+        clipped = self._concentrations.get(cid)
+        if clipped is None:
+            i = self._c(cid)
+            clipped = np.maximum(np.minimum(self.trajectory.column(i), self.trajectory.model.solubility[i]), 0.0)
+            clipped.flags.writeable = False
+            self._concentrations[cid] = clipped
+        return clipped.copy()
+
+    @cached_property
+    def _concentrations(self) -> dict[str, np.ndarray]:
+        """Each compartment's clipped concentrations once found (read-only; :meth:`concentration`
+        gives copies): the export, the metrics and the warnings of a run read them several times."""
+        return {}
 
     def volume(self, cid: str) -> np.ndarray:
         """Volume of compartment ``cid`` (it changes with evaporation and samples without

@@ -37,6 +37,7 @@ import math
 import numpy as np
 from numba import njit
 
+from .arrays import ModelArrays
 from .compiled import CompiledModel
 from .exported import chain_taps, flush_chain_guard, take_chain_row, take_row
 from .kernels import INNER, jacobian_kernel, rates_kernel
@@ -45,7 +46,7 @@ from .schedule import apply_events, rows_until
 FAIL_CONDITION = 5
 """Status of a chain run whose modes failed their a posteriori check (the path is not exact there)."""
 
-__all__ = ["FAIL_CONDITION", "MODE_ANGLE_LIMIT", "chain_order", "chain_schedule"]
+__all__ = ["FAIL_CONDITION", "MODE_ANGLE_LIMIT", "chain_order", "chain_run", "chain_schedule"]
 
 
 def chain_order(model: CompiledModel) -> np.ndarray | None:
@@ -1385,3 +1386,13 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     if row < n_t:
         return 1
     return 0
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def chain_run(marks, times, ev, mt, bt, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
+    """:func:`chain_schedule` called from Python (a single run): the model's arrays ``mt`` (the
+    run's copy) and ``bt`` (the model's own) as plain tuples, named again here. numba types a
+    named tuple from Python field by field at every call (about 4 us for these two); a plain
+    tuple it types in C (see :mod:`~barrierflow.engine.arrays`)."""
+    return chain_schedule(marks, times, ev, ModelArrays(*mt), ModelArrays(*bt), s, order, cut, n_jac, y, states,
+                          ev_dosed, ev_removed, stats, full, taps)

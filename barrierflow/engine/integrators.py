@@ -248,7 +248,14 @@ class Integrator(ABC):
     @property
     def options(self) -> dict:
         """The settings, for the record (the dataclass fields)."""
-        return dataclasses.asdict(self) if dataclasses.is_dataclass(self) else {}
+        if not dataclasses.is_dataclass(self):
+            return {}
+        out = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
+        # plain values as they are (what asdict gives them, without its deep copy); anything else
+        # through asdict
+        if all(v is None or isinstance(v, (bool, int, float, str)) for v in out.values()):
+            return out
+        return dataclasses.asdict(self)
 
 
 class IntervalIntegrator(Integrator):

@@ -227,15 +227,17 @@ def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
         return memo
     m = model
     nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
+    # (each offset read once: the model's offsets are properties)
+    sup, inf, lost, smp = m.q_supply - nd, m.q_infused - nd, m.q_lost - nd, m.q_sampled - nd
     w = np.zeros((m.n_state - nd, 6))
     held = m.held
-    w[m.q_infused - nd:m.q_infused - nd + nc, 0] = 1.0
-    w[m.q_supply - nd:m.q_supply - nd + nc, 0] = np.where(held, 0.0, 1.0)
-    w[m.q_supply - nd:m.q_supply - nd + nc, 1] = np.where(held, 1.0, 0.0)
+    w[inf:inf + nc, 0] = 1.0
+    w[sup:sup + nc, 0] = ~held  # (booleans as 0.0 / 1.0)
+    w[sup:sup + nc, 1] = held
     w[:nc, 2] = 1.0
     w[nc:nc + nb, 3] = 1.0
-    w[m.q_lost - nd:m.q_lost - nd + nc, 4] = 1.0
-    w[m.q_sampled - nd:m.q_sampled - nd + nc, 5] = 1.0
+    w[lost:lost + nc, 4] = 1.0
+    w[smp:smp + nc, 5] = 1.0
     out = (w, np.where(m.has_volume, m.capacity[..., :nc], 0.0))
     model.__dict__["_ledger_weights"] = out
     return out

@@ -189,7 +189,7 @@ def extreme_kind(seed: int) -> tuple[Scenario, list[str]]:
             layers = [dict(thickness=_log(rng, 1e-4, 1e-1), diffusivity=_log(rng, 1e-10, 1e-5) * H,
                            partition=_log(rng, 0.01, 100.0)) for _ in range(n)]
             notes.append(f"{n} layers")
-        elif what == "mixed":
+        elif what == "mixed" and not extra_comps:
             extra_comps.append(Compartment("depot", volume=_log(rng, 0.1, 100.0),
                                            initial_concentration=_log(rng, 1e-3, 10.0)))
             extra_barriers.append(Barrier("wall", "depot", "central", _log(rng, 0.1, 100.0),

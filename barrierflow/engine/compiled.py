@@ -191,7 +191,10 @@ def _row(values: list) -> np.ndarray:
 
 def _join(parts: list[np.ndarray]) -> np.ndarray:
     """Rows (each (k_i,) or (n, k_i)) joined along the last axis."""
-    if all(p.ndim == 1 for p in parts):
+    for p in parts:
+        if p.ndim != 1:
+            break
+    else:
         return np.concatenate(parts) if parts else np.zeros(0)
     n = next((p.shape[0] for p in parts if p.ndim == 2), None)
     if n is None:
@@ -535,7 +538,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         nb = w.shape[-1]
         # one row per subject when the cells or the area hold one value per subject (the area
         # alone may: its cells are then shared)
-        g = np.empty(np.broadcast_shapes(np.shape(b.area)[:-1], half_res.shape[:-1]) + (nb + 1,))
+        g = np.empty((nb + 1,) if half_res.ndim == 1 and not isinstance(b.area, np.ndarray) else
+                     np.broadcast_shapes(np.shape(b.area)[:-1], half_res.shape[:-1]) + (nb + 1,))
         g[..., :1] = b.area / half_res[..., :1]
         g[..., 1:nb] = b.area / (half_res[..., :-1] + half_res[..., 1:])
         g[..., nb:] = b.area / half_res[..., -1:]

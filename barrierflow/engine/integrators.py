@@ -237,11 +237,13 @@ class Integrator(ABC):
         trajectory), which the driver checks before it runs."""
 
     def resolve(self, model: CompiledModel, longest: float | None = None, rows: int | None = None,
-                intervals: int | None = None) -> Integrator:
+                intervals: int | None = None, shortest: float | None = None) -> Integrator:
         """The integrator that runs ``model``: this one (a chooser returns its choice).
 
-        ``longest`` (h) is the longest dosing interval of the run, ``rows`` its output times and
-        ``intervals`` its dosing intervals (a chooser's estimates of cost use them when given).
+        ``longest`` (h) is the longest dosing interval of the run, ``rows`` its output times,
+        ``intervals`` its dosing intervals and ``shortest`` (h) the time from an interval's start
+        at which the exact chain path cuts its modes (:func:`~barrierflow.engine.exact.mode_time`);
+        a chooser's estimates of cost use them when given.
         """
         return self
 
@@ -533,10 +535,11 @@ class AutoIntegrator(Integrator):
         check_tolerances(self.rtol, self.atol)
 
     def resolve(self, model: CompiledModel, longest: float | None = None, rows: int | None = None,
-                intervals: int | None = None) -> Integrator:
+                intervals: int | None = None, shortest: float | None = None) -> Integrator:
         """The integrator that runs ``model`` (see the class docstring); ``longest`` (h) is the
         longest dosing interval, ``rows`` and ``intervals`` the run's output times and dosing
-        intervals (500 and 1 when not given)."""
+        intervals (500 and 1 when not given), ``shortest`` (h) the time at which the chain's modes
+        are cut (:func:`~barrierflow.engine.exact.mode_time`; the split's set-up)."""
         from .exact import ExactIntegrator, exact_plan, exact_supported
         from .rosenbrock import RosenbrockIntegrator
         from .split import SplitIntegrator, linear_part
@@ -545,7 +548,7 @@ class AutoIntegrator(Integrator):
             return VEHICLE
         if linear_part(model) is not None:
             n_rows, n_int = rows or 500, intervals or 1
-            if SPLIT_BY_DEFAULT and (estimated_seconds("split", model, n_rows, n_int, longest)
+            if SPLIT_BY_DEFAULT and (estimated_seconds("split", model, n_rows, n_int, longest, shortest)
                                      < estimated_seconds("rodas", model, n_rows, n_int)):
                 return SplitIntegrator(rtol=self.rtol, atol=self.atol, step_budget=split_budget(n_int))
             return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
@@ -564,7 +567,10 @@ class AutoIntegrator(Integrator):
 
     def run(self, plan: RunPlan) -> Integration:
         """Run ``plan`` on the integrator :meth:`resolve` picks."""
-        return self.resolve(plan.model, plan.longest, len(plan.times), len(plan.marks) - 1).run(plan)
+        from .exact import mode_time
+
+        return self.resolve(plan.model, plan.longest, len(plan.times), len(plan.marks) - 1,
+                            mode_time(plan.times, plan.marks)).run(plan)
 
     def working_memory(self, model: CompiledModel) -> int:
         """What the integrator :meth:`resolve` picks needs."""
@@ -633,15 +639,25 @@ the larger of this and :data:`SPLIT_RATIO`'s form): the median of the 98 single-
 the sweeps (the smallest 0.79): the same number of steps or more, each dearer, and the split's
 set-up besides; the default runs RODAS4."""
 
-SPLIT_BUDGET = 2.0
+SPLIT_SETUP = 1e-8
+"""Seconds of the split path's set-up per interval, per state and per mode of the chain
+(:func:`chain_modes`; :func:`estimated_seconds`): the low end of what random networks of the
+property tests' generator took beyond :data:`SPLIT_RATIO`'s part (1e-8 to 6e-8 s on seven of them
+at 220 to 500 states, 2 to 5 intervals and 140 to 250 modes, where the split, with 8 to 144
+steps, was 1.9x to 6x slower than RODAS4; the benchmark's saturable variant: 7 intervals, 170
+states, about 19 modes, 0.23 ms of its 2.5 ms)."""
+
+SPLIT_BUDGET = 4.0
 """The default gives the split path a step budget of this many times the steps RODAS4 is expected
 to take (:data:`RODAS_STEPS`; :func:`split_budget`): :data:`~barrierflow.engine.split.BUDGET_START`
 of it from the start, the rest in proportion to the simulated time. Past it, the run is computed
-on RODAS4: a split that needs far more steps than its estimate said costs a bounded share of work
-before it gives up (the sharp elimination of tests/test_split_random.py, three intervals: 3,672
-steps in full; with its budget of 419 it gives up after 83, and with RODAS4's run takes 0.70 ms
-against RODAS4's 0.6 ms alone). The benchmark's saturable variant takes 370 steps against its
-budget of 815 (it would give up with a budget of 300, not of 400)."""
+on RODAS4: a split that needs far more steps than the estimate allowed for costs a bounded share
+of work before it gives up (the sharp elimination of tests/test_split_random.py, three intervals:
+3,672 steps in full; with its budget of 838 it gives up after 197). Not lower: RODAS4's steps run
+to twice :data:`RODAS_STEPS` on the benchmark's patch (647 to 1,386 for 7 applications), and at
+twice them a split of 892 steps that would have been 1.15x slower than RODAS4 gave up near its
+end, 3.3x slower. The benchmark's saturable variant takes 370 steps against its budget of 1,630
+(it would give up with a budget of 300, not of 400)."""
 
 
 def split_budget(intervals: int) -> float:
@@ -661,15 +677,38 @@ def sharpness(model: CompiledModel, longest: float) -> float:
     return float(model.mm_vmax[0] / (model.mm_km[0] * model.capacity[ic])) * longest
 
 
+def chain_modes(model: CompiledModel, rate: float) -> float:
+    """About how many modes of the chain of ``model``'s free states decay no faster than ``rate``
+    (1/h): each state counts the share of a uniform diffusion's modes below that rate,
+    (2 / pi) asin(min(1, sqrt(rate / (2 r)))), r its conductances over its capacity M = V K (the
+    largest rate of a uniform chain is 2 r; its modes' rates are 2 r (1 - cos(j pi / m)), j < m;
+    a count of this kind is common practice, from memory), summed over the states. The cost of
+    computing the modes, which the split path does at every event, grows with it."""
+    nd = model.n_dyn
+    p, q = model.link_p, model.link_q
+    w = 0.5 * (model.link_b + model.link_c)
+    g = np.zeros(nd + 1)  # a last slot for the links to other states
+    np.add.at(g, np.where(p < nd, p, nd), w)
+    np.add.at(g, np.where((q < nd) & (q != p), q, nd), w)
+    r = g[:nd] * model.inv_partition[:nd] / model.capacity[:nd]
+    share = np.ones(nd)
+    on = r > 0
+    share[on] = (2.0 / math.pi) * np.arcsin(np.minimum(1.0, np.sqrt(rate / (2.0 * r[on]))))
+    return float(share.sum())
+
+
 def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int,
-                      longest: float | None = None) -> float:
+                      longest: float | None = None, shortest: float | None = None) -> float:
     """A rough estimate of the seconds a path takes for ``model``, to choose between paths.
 
     ``path`` is ``"rodas"`` (a set-up, then per step O(n) and per output row O(n), the steps as
     :data:`RODAS_STEPS`), ``"split"`` (RODAS4's estimate times a ratio fitted to timed pairs,
     :data:`SPLIT_RATIO`: the split's steps grow more slowly with the dosing intervals, and faster
     with the sharpness of the elimination over the longest dosing interval ``longest`` (h),
-    :data:`SPLIT_SHARPNESS`, without ``longest`` taken as 0; a single interval :data:`SPLIT_SINGLE`),
+    :data:`SPLIT_SHARPNESS`, without ``longest`` taken as 0; a single interval :data:`SPLIT_SINGLE`;
+    plus its set-up at each interval, :data:`SPLIT_SETUP` per state and per mode of the chain
+    (:func:`chain_modes`) no faster than the larger of the split's cut and the rate the chain
+    path's cut at ``shortest`` (h, :func:`~barrierflow.engine.exact.mode_time`) asks for),
     ``"modes"`` (a set-up, a dense symmetric decomposition, O(n^3), and per output row the modes
     not decayed, O(n min(n, 40))) or ``"expm"`` (a set-up, about three exponentials of
     the augmented matrix per interval, O(n^3) each, and per output row about 2 us and a product,
@@ -693,7 +732,12 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
         ratio *= 1.0 + (sharp / SPLIT_SHARPNESS[0]) ** SPLIT_SHARPNESS[1]
         if intervals < 2:
             ratio = max(ratio, SPLIT_SINGLE)
-        return ratio * estimated_seconds("rodas", model, rows, intervals)
+        from .exact import _FAST
+        from .split import CUT_SLOW
+
+        rate = CUT_SLOW if shortest is None else max(CUT_SLOW, -_FAST / shortest)
+        setup = SPLIT_SETUP * intervals * model.n_state * chain_modes(model, rate)
+        return ratio * estimated_seconds("rodas", model, rows, intervals) + setup
     if path == "modes":
         return 8.6e-4 + 3.8e-5 * intervals + 3e-10 * nd ** 3 + 8.1e-10 * rows * nd * min(nd, 40)
     if path == "expm":
@@ -718,13 +762,17 @@ def working_memory(integrator: Integrator, model: CompiledModel) -> int:
 
 
 def resolve_integrator(integrator: Integrator | None, model: CompiledModel, longest: float | None = None,
-                       rows: int | None = None, intervals: int | None = None) -> Integrator:
+                       rows: int | None = None, intervals: int | None = None,
+                       shortest: float | None = None) -> Integrator:
     """``integrator`` itself, or what an :class:`AutoIntegrator` (the default, for None) picks for ``model``.
 
     ``longest`` (h) is the longest dosing interval of the run (the exact paths' conditions use it),
-    ``rows`` and ``intervals`` its output times and dosing intervals (the estimates of cost).
+    ``rows`` and ``intervals`` its output times and dosing intervals and ``shortest`` (h) the time
+    at which the chain's modes are cut (:func:`~barrierflow.engine.exact.mode_time`) (the
+    estimates of cost).
     """
-    return (AutoIntegrator() if integrator is None else integrator).resolve(model, longest, rows, intervals)
+    return (AutoIntegrator() if integrator is None else integrator).resolve(model, longest, rows, intervals,
+                                                                            shortest)
 
 
 def _rodas(**kw) -> Integrator:

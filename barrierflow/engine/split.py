@@ -84,7 +84,7 @@ from .exported import Rows, chain_taps, empty_taps, flush_chain_guard, new_buffe
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
 from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_slope
 from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator, step_size
-from .schedule import apply_events, rows_until, start_events
+from .schedule import EV_HOLD_START, apply_events, rows_until, start_events
 
 __all__ = ["BUDGET_START", "CUT_SLOW", "DRIFT", "RESPLIT", "STATIC_SHARE", "SplitIntegrator", "linear_part",
            "split_schedule"]
@@ -1409,10 +1409,14 @@ class SplitIntegrator(Integrator):
         info = np.zeros(5)
         info[2] = np.inf if self.step_budget is None else float(self.step_budget)
         info[4] = max(plan.duration, 1e-300)
-        code = split_schedule(marks, times, ev, work, base, s, chain_order(lin), _FAST / mode_time(times, marks),
-                              jacobian_size(lin), model.y0.copy(), states, ev_dosed, ev_removed, st, full, taps,
-                              int(model.mm_state[0]), float(model.mm_vmax[0]), float(model.mm_km[0]), COEF,
-                              float(self.rtol), self.atol * model.scale, self.max_steps, info)
+        ic = int(model.mm_state[0])
+        if np.any((ev.kind == EV_HOLD_START) & (ev.comp == ic)):
+            code = FAIL_CLAMPED  # a hold on the compartment, known before the run: no split work spent on it
+        else:
+            code = split_schedule(marks, times, ev, work, base, s, chain_order(lin), _FAST / mode_time(times, marks),
+                                  jacobian_size(lin), model.y0.copy(), states, ev_dosed, ev_removed, st, full, taps,
+                                  ic, float(model.mm_vmax[0]), float(model.mm_km[0]), COEF, float(self.rtol),
+                                  self.atol * model.scale, self.max_steps, info)
         if code != OK:
             rodas = RosenbrockIntegrator(rtol=self.rtol, atol=self.atol, max_steps=self.max_steps)
             out = rodas.run(plan)

@@ -18,7 +18,8 @@ elimination of one compartment it chooses between the split path (``engine/split
 
 Each path runs once to compile and warm, then ``--runs`` rounds in a shuffled order; the shortest
 of each counts. Prints per case the path the default took, the steps of each, the times and
-default / fastest, then the cases above 1.3x. The machine is shared: state its load (``uptime``),
+default / fastest (measured, and with the default's path timed as that path: less noisy), then the
+cases above 1.3x by the second. The machine is shared: state its load (``uptime``),
 compare ratios within one run.
 
 Usage: ``.venv/bin/python tests/benchmarks/saturable_sweep.py [--runs N] [--quick] [--random N]``
@@ -127,7 +128,7 @@ def main() -> None:
     args = ap.parse_args()
     worst = []
     print(f"{'case':72s} {'default':>7s} {'steps d/s/r':>17s} {'default':>9s} {'split':>9s} {'RODAS4':>9s} "
-          f"{'def/fast':>8s}")
+          f"{'def/fast':>8s} {'path/fast':>9s}")
     for label, s in cases(args.quick, args.random, tuple(args.cells) if args.cells else None, args.min_km):
         if args.match not in label:
             continue
@@ -143,14 +144,20 @@ def main() -> None:
         fast = min(r["split"]["t"], r["rodas"]["t"])
         ratio = r["default"]["t"] / fast
         took = r["default"]["took"] + (">" if r["default"]["fell"] else "")
+        # the default's path timed as that path (the same run, without the noise of a third
+        # timing), unless it went to RODAS4 on the way (then its own time counts)
+        own = {"split": "split", "rodas4": "rodas"}.get(r["default"]["took"]) if not r["default"]["fell"] else None
+        by_path = r[own]["t"] / fast if own else ratio
         print(f"{label:72s} {took:>7s} {r['default']['steps']:5d}/{r['split']['steps']:5d}/{r['rodas']['steps']:5d} "
               f"{r['default']['t'] * 1e3:7.2f}ms {r['split']['t'] * 1e3:7.2f}ms {r['rodas']['t'] * 1e3:7.2f}ms "
-              f"{ratio:7.2f}x  rate x interval {sharp * float(np.diff(marks).max()):8.2e}, {len(marks) - 1} intervals, "
-              f"{m.n_state} states" + ("  <-- above 1.3x" if ratio > 1.3 else ""), flush=True)
-        worst.append((ratio, label))
+              f"{ratio:7.2f}x {by_path:8.2f}x  rate x interval {sharp * float(np.diff(marks).max()):8.2e}, "
+              f"{len(marks) - 1} intervals, {m.n_state} states" + ("  <-- above 1.3x" if by_path > 1.3 else ""),
+              flush=True)
+        worst.append((by_path, label))
     worst.sort(reverse=True)
     above = [w for w in worst if w[0] > 1.3]
-    print(f"\n{len(above)} of {len(worst)} cases above 1.3x; largest default / fastest: "
+    print(f"\n{len(above)} of {len(worst)} cases above 1.3x (the default's path as timed on its own, or the "
+          f"default's time where it went to RODAS4 on the way); largest: "
           + ", ".join(f"{r:.2f}x ({lab.strip()})" for r, lab in worst[:5]))
 
 

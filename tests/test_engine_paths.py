@@ -80,9 +80,9 @@ def test_reference_case_on_every_path(case, kwargs, path, monkeypatch):
     integrator = PATHS[path]
     original = engine_solve.resolve_integrator
 
-    def pick(given, model, longest=None, rows=None, intervals=None, shortest=None):
+    def pick(given, model, longest=None, rows=None, intervals=None, shortest=None, times=None, marks=None):
         if given is not None:
-            return original(given, model, longest, rows, intervals, shortest)
+            return original(given, model, longest, rows, intervals, shortest, times, marks)
         if isinstance(integrator, ExactIntegrator):
             if not model.is_linear:
                 pytest.skip("exact paths need a linear model")

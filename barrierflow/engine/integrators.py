@@ -237,12 +237,14 @@ class Integrator(ABC):
         trajectory), which the driver checks before it runs."""
 
     def resolve(self, model: CompiledModel, longest: float | None = None, rows: int | None = None,
-                intervals: int | None = None, shortest: float | None = None) -> Integrator:
+                intervals: int | None = None, shortest: float | None = None, times: np.ndarray | None = None,
+                marks: np.ndarray | None = None) -> Integrator:
         """The integrator that runs ``model``: this one (a chooser returns its choice).
 
         ``longest`` (h) is the longest dosing interval of the run, ``rows`` its output times,
-        ``intervals`` its dosing intervals and ``shortest`` (h) the time from an interval's start
-        at which the exact chain path cuts its modes (:func:`~barrierflow.engine.exact.mode_time`);
+        ``intervals`` its dosing intervals, ``shortest`` (h) the time from an interval's start
+        at which the exact chain path cuts its modes (:func:`~barrierflow.engine.exact.mode_time`)
+        and ``times`` and ``marks`` (h) its output times and the bounds of its dosing intervals;
         a chooser's estimates of cost use them when given.
         """
         return self
@@ -535,11 +537,15 @@ class AutoIntegrator(Integrator):
         check_tolerances(self.rtol, self.atol)
 
     def resolve(self, model: CompiledModel, longest: float | None = None, rows: int | None = None,
-                intervals: int | None = None, shortest: float | None = None) -> Integrator:
+                intervals: int | None = None, shortest: float | None = None, times: np.ndarray | None = None,
+                marks: np.ndarray | None = None) -> Integrator:
         """The integrator that runs ``model`` (see the class docstring); ``longest`` (h) is the
         longest dosing interval, ``rows`` and ``intervals`` the run's output times and dosing
         intervals (500 and 1 when not given), ``shortest`` (h) the time at which the chain's modes
-        are cut (:func:`~barrierflow.engine.exact.mode_time`; the split's set-up)."""
+        are cut (:func:`~barrierflow.engine.exact.mode_time`; the split's set-up and the chain's
+        estimate), ``times`` and ``marks`` (h) the output times and the bounds of the dosing
+        intervals (the chain's rows computed by its rational approximation, :func:`chain_rows`;
+        none when not given)."""
         from .exact import ExactIntegrator, exact_plan, exact_supported
         from .rosenbrock import RosenbrockIntegrator
         from .split import SplitIntegrator, linear_part
@@ -556,12 +562,16 @@ class AutoIntegrator(Integrator):
             exact = ExactIntegrator()
             if exact.working_memory(model) <= EXACT_MEMORY:
                 plan, _size = exact_plan(model)
-                if plan == "chain":
-                    return exact
                 n_rows, n_int = rows or 500, intervals or 1
+                if plan == "chain":
+                    cut = 1.0 if shortest is None else shortest
+                    modes = chain_modes(model, 60.0 / cut)
+                    early = 0 if times is None or marks is None else chain_rows(model, times, marks, cut, modes)
+                    own = estimated_seconds("chain", model, n_rows, n_int, shortest=cut, early=early, modes=modes)
+                else:
+                    own = estimated_seconds(plan, model, n_rows, n_int)
                 # exact to rounding: taken while no more than EXACT_PREFERENCE times RODAS4's estimate
-                if (estimated_seconds(plan, model, n_rows, n_int)
-                        <= EXACT_PREFERENCE * estimated_seconds("rodas", model, n_rows, n_int)):
+                if own <= EXACT_PREFERENCE * estimated_seconds("rodas", model, n_rows, n_int):
                     return exact
         return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
 
@@ -570,7 +580,7 @@ class AutoIntegrator(Integrator):
         from .exact import mode_time
 
         return self.resolve(plan.model, plan.longest, len(plan.times), len(plan.marks) - 1,
-                            mode_time(plan.times, plan.marks)).run(plan)
+                            mode_time(plan.times, plan.marks), plan.times, plan.marks).run(plan)
 
     def working_memory(self, model: CompiledModel) -> int:
         """What the integrator :meth:`resolve` picks needs."""
@@ -602,6 +612,23 @@ RODAS_STEPS = (61.0, 49.5)
 number once per run, the second per dosing interval (a least-squares line through 288 runs of
 stars of 2 to 12 barriers of 2 to 8 cells a layer over 1 to 14 dosing intervals, 106 to 1,020
 steps each)."""
+
+
+CHAIN_COST = (2.6e-4, 4.5e-10, 1.16e-8, 3.7e-11, 5e-7)
+"""The constants of the exact chain path's estimated cost (:func:`estimated_seconds`, ``"chain"``):
+seconds once per run, per state and square of the modes computed, per interval, state and mode,
+per output row, state and mode, and per state of each row computed by the rational
+approximation (:func:`chain_rows`; about 60 ns per state and pole, 8 poles). A least-squares fit
+(weighted by 1/time) to the shortest of 5 runs of the chain path on 64 linear chain networks
+(tests/benchmarks/chain_sweep.py: the benchmark's chain variants, the patch with output every
+minute and replaced every 2 h, rows of 2 to 8 barriers, 50 random networks of the property tests'
+generator made linear; median error 10 %). The rational rows are what made the chain path slow
+on random networks: a short run (0.5 to 7 h) through layers whose slowest modes take days has
+100 to 320 modes not decayed at its output times, more than the path computes
+(:data:`~barrierflow.engine.exact_chain.MAX_MODES`), so every row goes through 8 complex
+tridiagonal solves (6 to 10 ms at 400 to 500 states and 30 to 40 rows against RODAS4's 1 to 4
+ms); the default, which took the chain path on every chain network, was 3x to 6x slower than
+RODAS4 on those, and now runs them on RODAS4."""
 
 
 SPLIT_RATIO = (0.65, -0.2)
@@ -687,9 +714,9 @@ def chain_modes(model: CompiledModel, rate: float) -> float:
     nd = model.n_dyn
     p, q = model.link_p, model.link_q
     w = 0.5 * (model.link_b + model.link_c)
-    g = np.zeros(nd + 1)  # a last slot for the links to other states
-    np.add.at(g, np.where(p < nd, p, nd), w)
-    np.add.at(g, np.where((q < nd) & (q != p), q, nd), w)
+    # a last slot for the links to other states (bincount: np.add.at's sums, 8x faster)
+    g = (np.bincount(np.where(p < nd, p, nd), weights=w, minlength=nd + 1)
+         + np.bincount(np.where((q < nd) & (q != p), q, nd), weights=w, minlength=nd + 1))
     r = g[:nd] * model.inv_partition[:nd] / model.capacity[:nd]
     share = np.ones(nd)
     on = r > 0
@@ -697,8 +724,32 @@ def chain_modes(model: CompiledModel, rate: float) -> float:
     return float(share.sum())
 
 
+def chain_rows(model: CompiledModel, times: np.ndarray, marks: np.ndarray, shortest: float,
+               modes: float | None = None) -> int:
+    """About how many of the run's output rows and interval ends the exact chain path computes by
+    the rational approximation (:func:`~barrierflow.engine.exact_chain._rational_row`, a few
+    complex tridiagonal solves per row, O(n) each) rather than from its modes: those at local
+    times (from the start of their interval, h) before the cut of the modes. The cut is the mode
+    time ``shortest`` (h, :func:`~barrierflow.engine.exact.mode_time`) while at most
+    :data:`~barrierflow.engine.exact_chain.MAX_MODES` modes decay more slowly than ``60 /
+    shortest`` (:func:`chain_modes`); beyond, the path computes only that many modes and the cut
+    moves later: a diffusion's modes below a rate number about its square root, so to ``shortest
+    (k / MAX_MODES)^2`` for k modes. ``times`` and ``marks`` (h) are the run's output times and
+    the bounds of its dosing intervals; ``modes`` is ``chain_modes(model, 60 / shortest)`` when
+    known."""
+    from .exact_chain import MAX_MODES
+
+    k = chain_modes(model, 60.0 / shortest) if modes is None else modes
+    thr = shortest * max(1.0, k / MAX_MODES) ** 2
+    starts = marks[:-1]
+    # the rows after each interval's start and before thr from it (sorted times: two searches)
+    rows = np.searchsorted(times, np.minimum(starts + thr, marks[1:])) - np.searchsorted(times, starts, side="right")
+    return int(rows.sum() + np.count_nonzero(marks[1:] - starts < thr))
+
+
 def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int,
-                      longest: float | None = None, shortest: float | None = None) -> float:
+                      longest: float | None = None, shortest: float | None = None, early: int = 0,
+                      modes: float | None = None) -> float:
     """A rough estimate of the seconds a path takes for ``model``, to choose between paths.
 
     ``path`` is ``"rodas"`` (a set-up, then per step O(n) and per output row O(n), the steps as
@@ -738,6 +789,14 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
         rate = CUT_SLOW if shortest is None else max(CUT_SLOW, -_FAST / shortest)
         setup = SPLIT_SETUP * intervals * model.n_state * chain_modes(model, rate)
         return ratio * estimated_seconds("rodas", model, rows, intervals) + setup
+    if path == "chain":
+        from .exact_chain import MAX_MODES
+
+        if modes is None:
+            modes = chain_modes(model, 60.0 / (1.0 if shortest is None else shortest))
+        k = min(modes, MAX_MODES)
+        return (CHAIN_COST[0] + CHAIN_COST[1] * nd * k * k + CHAIN_COST[2] * intervals * nd * (k + 4)
+                + CHAIN_COST[3] * rows * (n + nd * (k + 4)) + CHAIN_COST[4] * early * nd)
     if path == "modes":
         return 8.6e-4 + 3.8e-5 * intervals + 3e-10 * nd ** 3 + 8.1e-10 * rows * nd * min(nd, 40)
     if path == "expm":
@@ -763,16 +822,18 @@ def working_memory(integrator: Integrator, model: CompiledModel) -> int:
 
 def resolve_integrator(integrator: Integrator | None, model: CompiledModel, longest: float | None = None,
                        rows: int | None = None, intervals: int | None = None,
-                       shortest: float | None = None) -> Integrator:
+                       shortest: float | None = None, times: np.ndarray | None = None,
+                       marks: np.ndarray | None = None) -> Integrator:
     """``integrator`` itself, or what an :class:`AutoIntegrator` (the default, for None) picks for ``model``.
 
     ``longest`` (h) is the longest dosing interval of the run (the exact paths' conditions use it),
     ``rows`` and ``intervals`` its output times and dosing intervals and ``shortest`` (h) the time
-    at which the chain's modes are cut (:func:`~barrierflow.engine.exact.mode_time`) (the
-    estimates of cost).
+    at which the chain's modes are cut (:func:`~barrierflow.engine.exact.mode_time`), ``times``
+    and ``marks`` (h) the output times and the bounds of the dosing intervals (the estimates of
+    cost).
     """
     return (AutoIntegrator() if integrator is None else integrator).resolve(model, longest, rows, intervals,
-                                                                            shortest)
+                                                                            shortest, times, marks)
 
 
 def _rodas(**kw) -> Integrator:

@@ -240,7 +240,7 @@ def solve(
     if not np.all(times[1:] > times[:-1]):  # times snapped onto one event merge
         times = np.unique(times)
     chosen = resolve_integrator(integrator, model, float(np.diff(marks).max()), len(times), len(marks) - 1,
-                                mode_time(times, marks))
+                                mode_time(times, marks), times, marks)
     check_memory(scenario, model, len(times), chosen)
     plan = RunPlan(model, encode_events(events), marks, times, progress)
     attempts = [chosen]

@@ -1,0 +1,96 @@
+"""The default's choice between the exact chain path and RODAS4 on linear chain networks: on clear
+cases, the path taken (not timed; the times are tests/benchmarks/chain_sweep.py's) and the result
+against scipy's Radau integrator (Hairer and Wanner, Solving Ordinary Differential Equations II,
+2nd ed., 1996, sec. IV.8; ``scipy.integrate.Radau``, the reference) at rtol 1e-10, each state's
+largest deviation over its magnitude scale within ``SPLIT_TOL`` as in tests/test_split_choice.py.
+
+The networks: the benchmark's patch (scenarios/benchmark_patch.toml, an invented scenario) at 10
+cells a layer, where the chain path computes 19 modes and RODAS4 takes hundreds of steps; and
+random network 19 of the property tests' generator made linear (as tests/benchmarks/chain_sweep.py
+draws it, an invented scenario): a run of 0.6 h through layers whose slowest modes take thousands
+of hours, so that about 290 modes have not decayed at its output times, more than the chain path
+computes, and every row of its 34 goes through the rational approximation (9.2 ms at the last
+measurement against RODAS4's 2.6 ms).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import random
+import sys
+from pathlib import Path
+
+import numpy as np
+from random_networks import random_scenario
+from test_split_random import SPLIT_TOL, radau, scaled_error
+
+import barrierflow as bf
+from barrierflow.engine import compile_scenario, solve
+from barrierflow.engine.exact import exact_plan, mode_time
+from barrierflow.engine.exact_chain import MAX_MODES
+from barrierflow.engine.integrators import chain_modes, chain_rows, estimated_seconds
+from barrierflow.engine.schedule import build_schedule
+
+sys.path.insert(0, str(Path(__file__).resolve().parent / "benchmarks"))
+from run_benchmark import CELLS_800, NEAR_EVENT, Variant  # noqa: E402
+
+SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
+
+
+def patch(cells: int) -> bf.Scenario:
+    """The benchmark's patch with ``cells`` cells a layer."""
+    s = bf.load(SCENARIOS / "benchmark_patch.toml")
+    return dataclasses.replace(s, barriers=tuple(
+        dataclasses.replace(b, layers=tuple(dataclasses.replace(layer, cells=cells) for layer in b.layers))
+        for b in s.barriers))
+
+
+def short_run_through_slow_layers() -> bf.Scenario:
+    """Random network 19 of the generator, linear (tests/benchmarks/chain_sweep.py)."""
+    return random_scenario(random.Random(19), max_comp=4, small_grid=True, default_grid=True, max_barriers=2,
+                           min_barriers=1, linear=True)
+
+
+def chosen(s: bf.Scenario):
+    tr = solve(s, fallback=False)
+    assert tr.status == 0, tr.message
+    return tr
+
+
+def test_the_benchmark_patch_takes_the_chain_path_and_matches_radau():
+    s = patch(10)
+    m = compile_scenario(s)
+    assert exact_plan(m)[0] == "chain"
+    assert chain_modes(m, 60.0 / (1.0 / 6.0)) < MAX_MODES
+    tr = chosen(s)
+    assert tr.integrator == "exact"
+    assert scaled_error(tr, radau(s)) < SPLIT_TOL
+
+
+def test_many_modes_not_decayed_go_to_rodas4_and_match_radau():
+    s = short_run_through_slow_layers()
+    m = compile_scenario(s)
+    assert exact_plan(m)[0] == "chain"
+    times = s.output_array()
+    marks = np.array(sorted({e.time for e in build_schedule(s, m.comp_index) if e.time < s.duration}
+                            | {0.0, s.duration}))
+    shortest = mode_time(times, marks)
+    assert chain_modes(m, 60.0 / shortest) > 4 * MAX_MODES
+    early = chain_rows(m, times, marks, shortest)
+    assert early >= len(times) - 1  # every row after the start by the rational approximation
+    assert (estimated_seconds("chain", m, len(times), len(marks) - 1, shortest=shortest, early=early)
+            > 2.0 * estimated_seconds("rodas", m, len(times), len(marks) - 1))
+    tr = chosen(s)
+    assert tr.integrator == "rodas4"
+    assert scaled_error(tr, radau(s)) < SPLIT_TOL
+
+
+def test_the_benchmarks_chain_variants_keep_the_chain_path(tmp_path):
+    # the chain path is 5 to 10 times faster than RODAS4 on each (tests/benchmarks/run_benchmark.py)
+    f = tmp_path / "v.toml"
+    for v in (Variant("50 cells", 50), Variant("20 cells", 20), Variant("200 cells", 200),
+              Variant("finite dose 0.1 mL", patch_volume_ml=0.1), Variant(CELLS_800, (267, 267, 266)),
+              Variant(NEAR_EVENT, 200, extra_times=(24.0 + 1e-4,))):
+        f.write_text(v.toml())
+        assert chosen(bf.load(f)).integrator == "exact", v.label
+

@@ -26,9 +26,11 @@ Between two events the state is split, y = y_lin + z:
 * the cumulative amounts: the linear ones of z through the integrals of a and of u (two more
   quadratures in the integrated system), the eliminated amount -V_c int u.
 
-At every event the split is made again (a = 0, the static part from the concentration after the
-event): z(0) = s_F u(c(0)), y_lin(0) = y(0) - z(0), so the fast modes start in step with the
-elimination and y_lin carries their decay after the jump.
+At every event the split is made again (the static part from the concentration after the event):
+z(0) = V_S a(0) + s_F u(c(0)), y_lin(0) = y(0) - z(0), so the fast modes start in step with the
+elimination and y_lin carries their decay after the jump. The slow amplitudes a are carried over
+the event (0 where the modes are new); the integrated modes faster than :data:`CUT_SLOW` start at
+their static response -beta_s u(c(0)) / lambda_s, as the fast modes of the static part do.
 
 The integrated system (a, its integral, the integral of u) has a Jacobian diag(Lambda_S) plus a
 rank-one term: each stage is solved in O(k) (Sherman and Morrison). The error of a step is
@@ -662,6 +664,7 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
         rho += vyc[s] * beta[s]
     rho = abs(rho)
     t_rat = L[18]
+    t_lim = R[7]  # before it the modes not computed add to the saturable compartment
     rix = W[5]
     n_pend = 0
     n_kept = 0
@@ -792,7 +795,19 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
             if not ok:
                 err = np.inf
             if ok:
-                du = -saturable_slope(vmax, km, cbuf[0]) * icap
+                c_end = cbuf[0]
+                if t_new < t_lim:
+                    # the step ends take the modes not computed as decayed, which they are not yet
+                    # at the compartment: its concentration there as the stages have it (the
+                    # rational approximation), as the interval's end state and the rows
+                    cl_e, dcl_e = _central_at(t_new, L, P, R)
+                    for s in range(kz):
+                        cl_e += vyc[s] * na[s]
+                    c_end, ok = _conc(cl_e, s_f, vmax, km, icap)
+                    if not ok:
+                        err = np.inf
+            if ok:
+                du = -saturable_slope(vmax, km, c_end) * icap
                 gdev = max(gdev, abs(du / (1.0 - s_f * du) - gam0))
                 # the Jacobian of the step's start must hold over the step (see DRIFT): its
                 # change, through the stages' solve with (I - h GAMMA J), relative to that solve
@@ -1189,6 +1204,15 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         # (the slow modes near the cut would otherwise start far from their response to u, and
         # both parts would carry that transient), y_lin(0) = y(0) - z(0)
         u0 = -saturable_rate(vmax, km, y[ic]) * icap
+        # the integrated modes faster than CUT_SLOW (integrated for the output times or after a
+        # RESPLIT) start in step with the elimination too, at their static response -beta u / lam,
+        # as they would in the static part: from 0 (or from the response to u before the event),
+        # each would carry a transient over 1 / |lam|, and y_lin the opposite one; the two cancel
+        # at the step ends, but a step of thousands of times 1 / |lam| sees no error in its
+        # estimate, and the rows inside it, interpolated, keep all of that transient
+        for s_ in range(kz):
+            if lam[s_] < -CUT_SLOW:
+                carry[s_] = -beta[s_] * u0 / lam[s_]
         has_g = np.bool_(False)
         for a in range(n):
             v = 0.0

@@ -4,7 +4,8 @@
 resolves the integrator (:mod:`barrierflow.engine.integrators` holds the contract every
 integrator follows), runs it on a :class:`~barrierflow.engine.integrators.RunPlan`, applies the
 events at the very end of the run to the last row, and checks the result
-(:func:`~barrierflow.engine.ledger.check`), computing a failed run again on :data:`ROBUST`.
+(:func:`~barrierflow.engine.ledger.check`, then
+:func:`~barrierflow.engine.ledger.check_magnitudes`), computing a failed run again on :data:`ROBUST`.
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ from .exact import mode_time
 from .exported import Rows
 from .grid import Grid
 from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
-from .ledger import busiest_part, check_rows
+from .ledger import busiest_part, check_magnitudes, check_rows, observed_scale
 from .rosenbrock import RosenbrockIntegrator
 from .schedule import Event, apply_events, build_schedule, encode_events, start_events
 
@@ -202,8 +203,13 @@ def solve(
     closed to 1e-6, no concentration below zero beyond round-off) before it is returned. A run
     that fails the check, or whose integrator fails, is computed again on the robust integrator
     (:data:`ROBUST`: compiled RODAS4 at rtol 1e-8, atol 1e-11 of each state's scale); the
-    trajectory's ``message`` and ``stats["fallbacks"]`` say so. If that run fails too, the
-    failure is reported (``SolverError``, or a trajectory with status -1).
+    trajectory's ``message`` and ``stats["fallbacks"]`` say so. A run that passes it then passes
+    :func:`~barrierflow.engine.ledger.check_magnitudes` (no kept quantity far below the scale its
+    absolute tolerance came from, no one-way cumulative amount below zero); one that does not is
+    computed again on the robust integrator with scales from the magnitudes it reached
+    (:func:`~barrierflow.engine.ledger.observed_scale`), at most :data:`MAX_RESCALES` times. If
+    the last run fails too, the failure is reported (``SolverError``, or a trajectory with status
+    -1).
 
     Parameters
     ----------
@@ -220,7 +226,8 @@ def solve(
     progress : callable, optional
         Called with the fraction of the run done (0 to 1).
     fallback : bool
-        Recompute a failed run on the robust integrator (default True).
+        Recompute a failed run on the robust integrator (default True); without, a run that fails
+        either check is refused.
 
     Raises
     ------
@@ -243,30 +250,47 @@ def solve(
                                 mode_time(times, marks), times, marks)
     check_memory(scenario, model, len(times), chosen)
     plan = RunPlan(model, encode_events(events), marks, times, progress)
-    attempts = [chosen]
     robust = robust_for(model)
-    if fallback and not _same_integrator(chosen, robust):
-        attempts.append(robust)
     notes: list[str] = []
     traj = None
-    for k, integ in enumerate(attempts):
+    integ, run_model, rescaled = chosen, model, 0
+    plain_robust = _same_integrator(chosen, robust)  # the robust integrator on the model's own scales tried
+    for k in range(2 + MAX_RESCALES):  # the run, the robust one, the rescaled ones (each at most once)
         if k:
             check_memory(scenario, model, len(times), integ)
-        traj = _run(model, integ, plan if k == 0 else dataclasses.replace(plan, progress=None), at_end, all_events,
-                    grid)
+        run_plan = plan if k == 0 else dataclasses.replace(plan, model=run_model, progress=None)
+        traj = _run(run_model, integ, run_plan, at_end, all_events, grid)
+        small = False
         if traj.status == 0:
-            found = check_rows(model, traj.rows, traj.event_dosed, traj.event_removed, traj.initial_amount,
+            found = check_rows(run_model, traj.rows, traj.event_dosed, traj.event_removed, traj.initial_amount,
                                traj.volumes, lambda traj=traj: traj.states)
+            if not found:
+                found = check_magnitudes(run_model, traj.rows, traj.initial_amount, traj.event_dosed,
+                                         traj.event_removed, getattr(integ, "atol", None))
+                small = bool(found)
             if not found:
                 stats = {**traj.stats, "fallbacks": k}
                 message = traj.message if not notes else f"{traj.message}; " + "; ".join(notes)
-                return dataclasses.replace(traj, stats=stats, message=message,
+                return dataclasses.replace(traj, model=model, stats=stats, message=message,
                                            wall_time=_time.perf_counter() - start_clock)
             note = f"the {traj.integrator} result failed its check ({'; '.join(found)})"
         else:
             note = f"the {traj.integrator} run failed ({traj.message})"
-        notes.append(note + (f", so it was computed again with {attempts[k + 1].name} at tighter tolerances"
-                             if k + 1 < len(attempts) else ""))
+        nxt = None
+        if fallback and small and rescaled < MAX_RESCALES:
+            # absolute tolerances from what the run reached, on the robust integrator
+            scale = observed_scale(run_model, traj.states, traj.initial_amount, traj.event_dosed,
+                                   traj.event_removed)
+            nxt = (robust, run_model.with_arrays(run_model.arrays._replace(scale=scale)),
+                   "at tighter tolerances, with absolute tolerances from the magnitudes it reached")
+            rescaled += 1
+        elif fallback and not small and not plain_robust:
+            nxt = (robust, model, "at tighter tolerances")
+            plain_robust = True
+        notes.append(note + (f", so it was computed again with {nxt[0].name} {nxt[2]}" if nxt else ""))
+        if nxt is None:
+            break
+        integ, run_model = nxt[0], nxt[1]
     assert traj is not None
     part = busiest_part(model, traj.states[-1] if len(traj.times) else model.y0)
     message = ("the solution could not be trusted: " + "; ".join(notes) + ". "
@@ -276,9 +300,15 @@ def solve(
     if raise_on_failure:
         when = traj.failed_at if traj.failed_at is not None else float(traj.times[-1]) if len(traj.times) else 0.0
         raise SolverError(message, time=when, part=part)
-    stats = {**traj.stats, "fallbacks": len(attempts) - 1}
+    stats = {**traj.stats, "fallbacks": len(notes) - 1}
     return dataclasses.replace(traj, status=-1, message=message, stats=stats,
                                wall_time=_time.perf_counter() - start_clock)
+
+
+MAX_RESCALES = 2
+"""How many times a run whose absolute tolerances let a small quantity through
+(:func:`~barrierflow.engine.ledger.check_magnitudes`) is computed again with scales from the
+magnitudes it reached (:func:`~barrierflow.engine.ledger.observed_scale`) before it is refused."""
 
 
 def _same_integrator(a: Integrator, b: Integrator) -> bool:

@@ -37,8 +37,8 @@ from .exported import Rows, taps_of
 
 __all__ = ["FINAL_TOLERANCE", "MAGNITUDE_FLOOR", "MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT", "PEAK_TOLERANCE",
            "RESCALE_LIMIT", "TOLERANCE_EXCESS", "Ledger", "busiest_part", "check", "check_magnitudes", "check_rows",
-           "describe_state", "judge", "largest_amount", "ledger", "ledger_rows", "ledger_weights", "observed_scale",
-           "overshoot", "parts", "passes", "relative_error_of", "rows_ledger", "verdict"]
+           "describe_state", "judge", "ledger", "ledger_rows", "ledger_weights", "observed_scale",
+           "parts", "passes", "relative_error_of", "rows_ledger", "verdict"]
 
 MASS_BALANCE_LIMIT = 1e-6
 """Largest relative mass-balance error of a result reported as a success."""
@@ -486,57 +486,18 @@ integrator's atol (1e-11) times 1e-3 of a scale is still some 45 times the round
 that scale (a state that stays at rounding level, held to less, stops the run)."""
 
 
-def _yardsticks(model: CompiledModel) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """For each kept state (``taps.keep``): the promised accuracy (:data:`PEAK_TOLERANCE` or
-    :data:`FINAL_TOLERANCE`), the factor from an amount to its units (1 / volume; 0 where a state
-    is not judged: a compartment without a volume) and whether it is a one-way cumulative amount
-    (eliminated, degraded, lost, sampled: never below zero). Built once per model."""
-    memo = model.__dict__.get("_yardsticks")
-    if memo is not None:
-        return memo
-    m = model
-    keep = taps_of(m).keep
-    per = _per_amount(m)
-    tol = np.where(keep < m.n_dyn, PEAK_TOLERANCE, FINAL_TOLERANCE)
-    one_way = np.zeros(m.n_state, dtype=np.bool_)
-    one_way[m.q_elim:m.q_perm] = True  # eliminated, degraded
-    one_way[m.q_lost:m.q_lost + m.n_comp] = True
-    one_way[m.q_sampled:m.q_sampled + m.n_comp] = True
-    out = (tol, per[keep], one_way[keep])
-    model.__dict__["_yardsticks"] = out
-    return out
-
-
 def _per_amount(model: CompiledModel) -> np.ndarray:
     """Per state, the factor from an amount to its units: 1 / the compartment's volume, 1 / the
     volume of the state's barrier for a cell, 1 for a cumulative amount; 0 for a compartment
     without a volume (its concentration is given, not computed)."""
     m = model
     per = np.ones(m.n_state)
-    per[:m.n_comp] = np.where(m.has_volume, 1.0 / m.capacity[:m.n_comp], 0.0)
+    per[:m.n_comp] = np.where(m.has_volume, 1.0 / np.where(m.has_volume, m.capacity[:m.n_comp], 1.0), 0.0)
     t = taps_of(m)
     for b0, b1 in zip(t.bstart.tolist(), t.bstop.tolist(), strict=True):
         if b1 > b0:
             per[b0:b1] = 1.0 / float(m.capacity[b0:b1].sum())
     return per
-
-
-def largest_amount(model: CompiledModel, rows: Rows, initial: float, event_dosed: np.ndarray,
-                   event_removed: np.ndarray) -> float:
-    """The run's largest amount, mg: what it started with, dosed or removed by events, and the
-    largest compartment amount, barrier content or cumulative amount it reached."""
-    m = model
-    t = rows.taps
-    big = max(abs(initial), float(np.abs(event_dosed).sum(axis=1).max(initial=0.0)),
-              float(np.abs(event_removed).sum(axis=1).max(initial=0.0)),
-              float(np.abs(rows.content).max(initial=0.0)))
-    if len(rows.cols):
-        peak = np.abs(rows.cols).max(axis=0)
-        comp = t.keep < m.n_comp
-        vol = np.where(m.has_volume, m.capacity[:m.n_comp], 0.0)
-        big = max(big, float((peak[comp] * vol[t.keep[comp]]).max(initial=0.0)),
-                  float(peak[t.keep >= m.n_dyn].max(initial=0.0)))
-    return big
 
 
 def check_magnitudes(model: CompiledModel, rows: Rows, initial: float, event_dosed: np.ndarray,
@@ -549,53 +510,115 @@ def check_magnitudes(model: CompiledModel, rows: Rows, initial: float, event_dos
     it: for each whose peak over the rows reaches :data:`MAGNITUDE_FLOOR` of the run's largest
     amount in its units (below, it stays at rounding level), a tolerance above
     :data:`TOLERANCE_EXCESS` times the accuracy promised on that peak (:data:`PEAK_TOLERANCE`,
-    :data:`FINAL_TOLERANCE`) is reported (:func:`overshoot`); so is a one-way cumulative amount
+    :data:`FINAL_TOLERANCE`) is reported; so is a one-way cumulative amount
     (eliminated, degraded, lost, sampled; removed by events) below zero by more than the accuracy
     promised on its peak (floored), which no solution has. ``atol`` None (an exact path) checks
-    the signs only.
+    the signs only. One compiled pass over the kept rows.
     """
     if not len(rows.cols):
         return []
     m = model
     t = rows.taps
-    tol, per, one_way = _yardsticks(m)
-    big = largest_amount(m, rows, initial, event_dosed, event_removed)
-    peak = np.abs(rows.cols).max(axis=0)
-    need = np.maximum(peak, MAGNITUDE_FLOOR * big * per) * tol
+    out = _magnitudes(rows.cols, t.keep, t.bstart, t.bstop, m.capacity, m.has_volume, m.scale, m.n_comp, m.n_dyn,
+                      m.q_elim, m.q_perm, m.q_lost, m.q_sampled, rows.content, np.ascontiguousarray(event_dosed),
+                      np.ascontiguousarray(event_removed), float(initial), -1.0 if atol is None else float(atol))
+    n_over, worst, j, neg_j, neg_v, rem_i, rem_v, _big = out.tolist()
     found = []
-    if atol is not None:
-        ratio = overshoot(m, rows, peak, big, atol)
-        over = ratio > 1.0
-        if over.any():
-            j = int(np.argmax(ratio))
-            found.append(f"{int(over.sum())} quantities far below the magnitude their absolute tolerance came from "
-                         f"(worst: {describe_state(m, int(t.keep[j]))}, tolerance "
-                         f"{ratio[j] * TOLERANCE_EXCESS:.3g} times the accuracy promised on its peak)")
-    low = rows.cols.min(axis=0)
-    neg = one_way & (low < -need)
-    if neg.any():
-        j = int(np.argmax(np.where(neg, -low / np.maximum(need, 1e-300), 0.0)))
-        found.append(f"{describe_state(m, int(t.keep[j]))} went below zero ({low[j]:.3g} mg)")
-    if len(event_removed):
-        floor = MAGNITUDE_FLOOR * big * FINAL_TOLERANCE
-        r_low = event_removed.min(axis=0)
-        r_need = np.maximum(np.abs(event_removed).max(axis=0) * FINAL_TOLERANCE, floor)
-        bad = r_low < -r_need
-        if bad.any():
-            i = int(np.argmax(np.where(bad, -r_low / r_need, 0.0)))
-            found.append(f"what was removed from compartment '{m.comp_ids[i]}' went below zero ({r_low[i]:.3g} mg)")
+    if n_over:
+        found.append(f"{int(n_over)} quantities far below the magnitude their absolute tolerance came from "
+                     f"(worst: {describe_state(m, int(t.keep[int(j)]))}, tolerance {worst:.3g} times the accuracy "
+                     "promised on its peak)")
+    if neg_j >= 0:
+        found.append(f"{describe_state(m, int(t.keep[int(neg_j)]))} went below zero ({neg_v:.3g} mg)")
+    if rem_i >= 0:
+        found.append(f"what was removed from compartment '{m.comp_ids[int(rem_i)]}' went below zero ({rem_v:.3g} mg)")
     return found
 
 
-def overshoot(model: CompiledModel, rows: Rows, peak: np.ndarray, big: float, atol: float) -> np.ndarray:
-    """Per kept state, its absolute tolerance ``atol * scale`` over :data:`TOLERANCE_EXCESS` times
-    the accuracy promised on its ``peak`` (above 1: too loose); 0 for a state not judged (its peak
-    below :data:`MAGNITUDE_FLOOR` of the run's largest amount ``big`` in its units, or a
-    compartment without a volume)."""
-    tol, per, _ = _yardsticks(model)
-    keep = rows.taps.keep
-    judged = (per > 0) & (peak >= MAGNITUDE_FLOOR * big * per) & (peak > 0)
-    return np.where(judged, atol * model.scale[keep] / (TOLERANCE_EXCESS * tol * np.where(judged, peak, 1.0)), 0.0)
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _magnitudes(cols, keep, bstart, bstop, cap, has_volume, scale, n_comp, n_dyn, q_elim, q_perm, q_lost, q_sampled,
+                content, dosed, removed, initial, atol):
+    """:func:`check_magnitudes` in one pass: ``[quantities over, worst tolerance over its promise,
+    its column, column of the worst one-way amount below zero (-1: none), its lowest value,
+    compartment of the worst removed amount below zero (-1: none), its lowest value, the run's
+    largest amount]``; ``atol`` below 0 checks the signs only. The run's largest amount, mg: what
+    it started with, dosed or removed by events, and the largest compartment amount, barrier
+    content or cumulative amount it reached."""
+    n_t, n_k = cols.shape
+    n_c = dosed.shape[1] if dosed.ndim == 2 else 0
+    # the run's largest amount (see the docstring)
+    big = abs(initial)
+    for r in range(dosed.shape[0]):
+        a = 0.0
+        b = 0.0
+        for c in range(n_c):
+            a += abs(dosed[r, c])
+            b += abs(removed[r, c])
+        big = max(big, a, b)
+    for r in range(content.shape[0]):
+        for c in range(content.shape[1]):
+            big = max(big, abs(content[r, c]))
+    peak = np.zeros(n_k)
+    low = np.zeros(n_k)
+    for r in range(n_t):
+        for j in range(n_k):
+            v = cols[r, j]
+            peak[j] = max(peak[j], abs(v))
+            low[j] = min(low[j], v)
+    n_b = bstart.shape[0]
+    bvol = np.zeros(n_b)
+    for b in range(n_b):
+        for k in range(bstart[b], bstop[b]):
+            bvol[b] += cap[k]
+    per = np.zeros(n_k)
+    for j in range(n_k):
+        i = keep[j]
+        if i < n_comp:
+            if has_volume[i]:
+                per[j] = 1.0 / cap[i]
+                big = max(big, peak[j] * cap[i])
+        elif i < n_dyn:
+            for b in range(n_b):
+                if bstart[b] <= i < bstop[b]:
+                    per[j] = 1.0 / bvol[b]
+        else:
+            per[j] = 1.0
+            big = max(big, peak[j])
+    out = np.array([0.0, 0.0, -1.0, -1.0, 0.0, -1.0, 0.0, big])
+    worst_neg = 0.0
+    for j in range(n_k):
+        if per[j] == 0.0:
+            continue
+        i = keep[j]
+        tol = PEAK_TOLERANCE if i < n_dyn else FINAL_TOLERANCE
+        floor = MAGNITUDE_FLOOR * big * per[j]
+        if atol >= 0.0 and peak[j] >= floor and peak[j] > 0.0:
+            ratio = atol * scale[i] / (tol * peak[j])
+            if ratio > TOLERANCE_EXCESS:
+                out[0] += 1.0
+                if ratio > out[1]:
+                    out[1] = ratio
+                    out[2] = j
+        one_way = q_elim <= i < q_perm or q_lost <= i < q_lost + n_comp or q_sampled <= i < q_sampled + n_comp
+        if one_way:
+            need = max(peak[j], floor) * tol
+            if low[j] < -need and -low[j] / need > worst_neg:
+                worst_neg = -low[j] / need
+                out[3] = j
+                out[4] = low[j]
+    worst_rem = 0.0
+    for c in range(n_c):
+        lo = 0.0
+        pk = 0.0
+        for r in range(removed.shape[0]):
+            lo = min(lo, removed[r, c])
+            pk = max(pk, abs(removed[r, c]))
+        need = max(pk, MAGNITUDE_FLOOR * big) * FINAL_TOLERANCE
+        if lo < -need and -lo / need > worst_rem:
+            worst_rem = -lo / need
+            out[5] = c
+            out[6] = lo
+    return out
 
 
 def observed_scale(model: CompiledModel, states: np.ndarray, initial: float, event_dosed: np.ndarray,
@@ -605,11 +628,16 @@ def observed_scale(model: CompiledModel, states: np.ndarray, initial: float, eve
     :data:`RESCALE_LIMIT` of the model's scale, and never above the model's scale (a tolerance is
     only ever made tighter)."""
     m = model
+    if not len(states):
+        return m.scale
     rows = Rows.from_states(m, states)
-    big = largest_amount(m, rows, initial, event_dosed, event_removed)
+    t = rows.taps
+    big = float(_magnitudes(rows.cols, t.keep, t.bstart, t.bstop, m.capacity, m.has_volume, m.scale, m.n_comp,
+                            m.n_dyn, m.q_elim, m.q_perm, m.q_lost, m.q_sampled, rows.content,
+                            np.ascontiguousarray(event_dosed), np.ascontiguousarray(event_removed), float(initial),
+                            -1.0)[7])
     per = _per_amount(m)
-    peak = np.abs(states).max(axis=0) if len(states) else np.zeros(m.n_state)
+    peak = np.abs(states).max(axis=0)
     floor = np.maximum(MAGNITUDE_FLOOR * big * per, RESCALE_LIMIT * m.scale)
     new = np.minimum(m.scale, np.maximum(peak, floor))
-    judged = per > 0
-    return np.where(judged & (new > 0), new, m.scale)
+    return np.where((per > 0) & (new > 0), new, m.scale)

@@ -267,9 +267,3 @@ def test_the_bolus_and_remove_are_computed_again_and_named():
     assert tr.status == 0 and tr.stats["fallbacks"] >= 1
     assert "far below the magnitude their absolute tolerance came from" in tr.message or "below zero" in tr.message
     assert "absolute tolerances from the magnitudes it reached" in tr.message
-
-
-def test_without_the_second_attempt_a_tolerance_that_lets_a_small_quantity_through_is_refused():
-    s = bf.loads(SMALL_BESIDE_A_RESERVOIR)
-    with pytest.raises(SolverError, match="far below the magnitude their absolute tolerance came from"):
-        solve(s, fallback=False)

@@ -226,8 +226,10 @@ def solve(
     progress : callable, optional
         Called with the fraction of the run done (0 to 1).
     fallback : bool
-        Recompute a failed run on the robust integrator (default True); without, a run that fails
-        either check is refused.
+        Recompute a failed run on the robust integrator (default True). Without (tests of one
+        path), a run that fails :func:`~barrierflow.engine.ledger.check` is refused and
+        :func:`~barrierflow.engine.ledger.check_magnitudes`, whose remedy is that second run, is
+        not applied.
 
     Raises
     ------
@@ -264,7 +266,7 @@ def solve(
         if traj.status == 0:
             found = check_rows(run_model, traj.rows, traj.event_dosed, traj.event_removed, traj.initial_amount,
                                traj.volumes, lambda traj=traj: traj.states)
-            if not found:
+            if not found and fallback:  # its remedy is the second attempt
                 found = check_magnitudes(run_model, traj.rows, traj.initial_amount, traj.event_dosed,
                                          traj.event_removed, getattr(integ, "atol", None))
                 small = bool(found)

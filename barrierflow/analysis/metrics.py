@@ -879,6 +879,21 @@ def _lag_fits(t: np.ndarray, q: np.ndarray, j: np.ndarray, origin: float, end: f
     return out
 
 
+@njit(inline="always", error_model="numpy")
+def _first_largest(row):  # pragma: no cover - compiled (inlined in _lag_windows and _peaks)
+    """The index of the first largest value of ``row`` (a NaN counts as largest, as np.argmax)."""
+    at = 0
+    best = row[0]
+    for m in range(row.shape[0]):
+        v = row[m]
+        if v != v:
+            return m
+        if v > best:
+            best = v
+            at = m
+    return at
+
+
 @njit(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True)
 def _lag_windows(j, x, q, tolerance):  # pragma: no cover - compiled (tested through time_lag_fit)
     """The window and the least-squares line of the time-lag method for each row, in one pass.
@@ -902,16 +917,7 @@ def _lag_windows(j, x, q, tolerance):  # pragma: no cover - compiled (tested thr
     for i in range(n):
         ji = j[i]
         qi = q[i]
-        best = ji[0]
-        at = 0
-        for m in range(ns):  # the first largest value (a NaN counts as largest, as np.argmax)
-            v = ji[m]
-            if v != v:
-                at = m
-                break
-            if v > best:
-                best = v
-                at = m
+        at = _first_largest(ji)
         top = ji[at]
         k[i] = at
         peak[i] = top
@@ -1571,16 +1577,7 @@ def _peaks(c, inside, last):  # pragma: no cover - compiled (tested through expo
     high = np.empty(n)
     for i in range(n):
         ci = c[i]
-        at = 0
-        best = ci[0]
-        for j in range(n_t):
-            v = ci[j]
-            if v != v:
-                at = j
-                break
-            if v > best:
-                best = v
-                at = j
+        at = _first_largest(ci)
         k[i] = at
         top[i] = ci[at]
         lo = last[i]

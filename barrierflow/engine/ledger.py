@@ -19,7 +19,8 @@ every subject, and :class:`barrierflow.Result` reports the same ledger.
 :func:`check_magnitudes` compares what a run's kept quantities reached with the scales their
 absolute tolerances came from; :func:`~barrierflow.engine.solve` applies it after :func:`check`
 and computes a run it finds fault with again with scales from what it reached
-(:func:`observed_scale`).
+(:func:`observed_scale`); the population runs apply it to every subject
+(:func:`population_magnitudes`) and compute a subject it finds fault with again alone.
 """
 
 from __future__ import annotations
@@ -37,8 +38,9 @@ from .exported import Rows, taps_of
 
 __all__ = ["FINAL_TOLERANCE", "MAGNITUDE_FLOOR", "MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT", "PEAK_TOLERANCE",
            "RESCALE_LIMIT", "TOLERANCE_EXCESS", "Ledger", "busiest_part", "check", "check_magnitudes", "check_rows",
-           "describe_state", "judge", "ledger", "ledger_rows", "ledger_weights", "observed_scale",
-           "parts", "passes", "relative_error_of", "rows_ledger", "verdict"]
+           "describe_state", "judge", "ledger", "ledger_rows", "ledger_weights", "magnitude_findings",
+           "magnitudes_failed", "observed_scale", "parts", "passes", "population_magnitudes", "relative_error_of",
+           "rows_ledger", "verdict"]
 
 MASS_BALANCE_LIMIT = 1e-6
 """Largest relative mass-balance error of a result reported as a success."""
@@ -522,14 +524,21 @@ def check_magnitudes(model: CompiledModel, rows: Rows, initial: float, event_dos
     out = _magnitudes(rows.cols, t.keep, t.bstart, t.bstop, m.capacity, m.has_volume, m.scale, m.n_comp, m.n_dyn,
                       m.q_elim, m.q_perm, m.q_lost, m.q_sampled, rows.content, np.ascontiguousarray(event_dosed),
                       np.ascontiguousarray(event_removed), float(initial), -1.0 if atol is None else float(atol))
+    return magnitude_findings(m, t.keep, out)
+
+
+def magnitude_findings(model: CompiledModel, keep: np.ndarray, out: np.ndarray) -> list[str]:
+    """The findings of :func:`check_magnitudes` in words, from its compiled pass's summary ``out``
+    (:func:`_magnitudes`) over the columns ``keep`` of ``model``'s states."""
+    m = model
     n_over, worst, j, neg_j, neg_v, rem_i, rem_v, _big = out.tolist()
     found = []
     if n_over:
         found.append(f"{int(n_over)} quantities far below the magnitude their absolute tolerance came from "
-                     f"(worst: {describe_state(m, int(t.keep[int(j)]))}, tolerance {worst:.3g} times the accuracy "
+                     f"(worst: {describe_state(m, int(keep[int(j)]))}, tolerance {worst:.3g} times the accuracy "
                      "promised on its peak)")
     if neg_j >= 0:
-        found.append(f"{describe_state(m, int(t.keep[int(neg_j)]))} went below zero ({neg_v:.3g} mg)")
+        found.append(f"{describe_state(m, int(keep[int(neg_j)]))} went below zero ({neg_v:.3g} mg)")
     if rem_i >= 0:
         found.append(f"what was removed from compartment '{m.comp_ids[int(rem_i)]}' went below zero ({rem_v:.3g} mg)")
     return found
@@ -619,6 +628,39 @@ def _magnitudes(cols, keep, bstart, bstop, cap, has_volume, scale, n_comp, n_dyn
             out[5] = c
             out[6] = lo
     return out
+
+
+@njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def population_magnitudes(lo, hi, cols, content, dosed, removed, keep, bstart, bstop, capacity, has_volume, scale, y0,
+                          n_comp, n_dyn, q_elim, q_perm, q_lost, q_sampled, atol, status, found):
+    """:func:`check_magnitudes` of the subjects ``lo`` to ``hi - 1`` of a population, in compiled
+    code: subject i's kept columns ``cols[i]`` (n_t, len(keep)), its barriers' contents, its
+    events' cumulative amounts, its own ``capacity[i]``, ``scale[i]`` and starting state
+    ``y0[i]`` (what it held at time 0, as a single run's ``initial_amount``); the same pass as a
+    single run's (:func:`_magnitudes`), its summary into ``found[i]``. Only subjects whose run
+    finished (``status[i]`` 0) are judged; ``atol`` below 0 (an exact path) checks the signs
+    only. Releases the GIL (a population hands blocks of subjects to a few threads)."""
+    for i in range(lo, hi):
+        if status[i] != 0:
+            continue
+        cap = capacity[i]
+        y = y0[i]
+        initial = 0.0  # what the compartments with a volume and the cells held at time 0
+        for p in range(n_comp):
+            if has_volume[p]:
+                initial += y[p] * cap[p]
+        for p in range(n_comp, n_dyn):
+            initial += y[p] * cap[p]
+        res = _magnitudes(cols[i], keep, bstart, bstop, cap, has_volume, scale[i], n_comp, n_dyn, q_elim, q_perm,
+                          q_lost, q_sampled, content[i], dosed[i], removed[i], initial, atol)
+        for k in range(res.shape[0]):
+            found[i, k] = res[k]
+
+
+def magnitudes_failed(found: np.ndarray) -> np.ndarray:
+    """Per subject, whether the summaries ``found`` (n, 8) of :func:`population_magnitudes` hold a
+    finding (a quantity far below its scale, a one-way amount below zero)."""
+    return (found[:, 0] > 0) | (found[:, 3] >= 0) | (found[:, 5] >= 0)
 
 
 def observed_scale(model: CompiledModel, states: np.ndarray, initial: float, event_dosed: np.ndarray,

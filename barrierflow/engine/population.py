@@ -6,8 +6,13 @@ thicknesses, diffusivities, partition coefficients, areas, flows, rates, dose si
 subject is compiled to flat arrays, the arrays are stacked, and blocks of subjects run on one
 thread per core, each block in one call of a compiled kernel that releases the GIL and runs the
 exact chain solution or the compiled RODAS4 integrator subject after subject; the Python
-interpreter does nothing per subject. One failed subject does not stop the others: it is reported in
-:attr:`Population.status` and its traces end where it failed (NaN after).
+interpreter does nothing per subject. Every subject passes the single run's guard
+(:func:`~barrierflow.engine.ledger.passes`, then the magnitude check,
+:func:`~barrierflow.engine.ledger.population_magnitudes`, compiled over the subjects); a subject
+that fails it is computed again alone through :func:`~barrierflow.engine.solve.solve`, as its
+single run would be. One failed subject does not stop the others: it is reported in
+:attr:`Population.status` (-1) with the reason in :attr:`Population.messages`, and its traces end
+where it failed (NaN after; all NaN when its check failed and its own run was refused).
 
 :func:`simulate_population` draws the subjects: each varied parameter is the scenario's value
 times a log-normal factor exp(omega z), z standard normal, omega = sqrt(ln(1 + cv^2)), so that
@@ -44,7 +49,15 @@ from .exact_chain import chain_order, chain_schedule
 from .exported import empty_taps
 from .grid import Grid, response_time
 from .kernels import INNER, jacobian_size
-from .ledger import judge, ledger_weights, passes, relative_error_of
+from .ledger import (
+    judge,
+    ledger_weights,
+    magnitude_findings,
+    magnitudes_failed,
+    passes,
+    population_magnitudes,
+    relative_error_of,
+)
 from .rosenbrock import _FAILURES, COEF, OK, ST_STEPS, RosenbrockIntegrator, build_structure, run_marks
 from .schedule import EventArrays, apply_events, build_schedule, closed_rows, encode_events, new_event_state
 from .solve import _snap, solve
@@ -137,8 +150,11 @@ class Population:
     factors : dict of str to ndarray (n_subjects,)
         The parameter factors of each subject (empty for :func:`simulate_many`).
     status : ndarray of int (n_subjects,)
-        0 when the subject's run finished, -1 when it failed.
+        0 when the subject's run finished and passed the guard (on its own run when the
+        population's failed it: its message says so), -1 when it failed.
     messages : tuple of str
+        Per subject, what happened: "the run finished", or why it was computed again alone and
+        with what, or why it failed.
     steps : ndarray of int (n_subjects,)
         Integration steps per subject.
     integrator : str
@@ -717,7 +733,12 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     integ = integrator if isinstance(integrator, RosenbrockIntegrator) else RosenbrockIntegrator()
     nc, nd, n = m0.n_comp, m0.n_dyn, m0.n_state
     out_cells = [int(m0.link_p[g.out_link]) for g in m0.grids]
-    keep = np.array(list(range(nc)) + out_cells + list(range(nd, n)), dtype=np.int64)
+    # the other face cells, which the guard's magnitude check judges as in a single run
+    # (exported.taps_of keeps both states of each face link)
+    faces = {int(m0.link_p[j]) for g in m0.grids for j in (g.in_link, g.out_link)}
+    faces |= {int(m0.link_q[j]) for g in m0.grids for j in (g.in_link, g.out_link)}
+    face_cells = out_cells + sorted(k for k in faces if nc <= k < nd and k not in out_cells)
+    keep = np.array(list(range(nc)) + face_cells + list(range(nd, n)), dtype=np.int64)
     n_sub, n_t = batch.n, len(times)
     out = np.empty((n_sub, n_t, len(keep)))
     out_dosed = np.zeros((n_sub, n_t, nc))
@@ -727,7 +748,7 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     content = np.zeros((n_sub, n_t, m0.n_bar))
     low = np.zeros(n_sub)
     rel = np.zeros(n_sub)
-    n_out = len(out_cells)
+    n_out = len(face_cells)
     w = ledger_weights(m0)
     status = np.zeros(n_sub, dtype=np.int64)
     fail_k = np.zeros(n_sub, dtype=np.int64)
@@ -746,14 +767,24 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
                    n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, fail_k, stats)
     _apply_at_end_kept(batch, keep, status, out, out_dosed, out_removed)
     # the guard of every run (barrierflow.engine.ledger.verdict), for every subject (its ledger
-    # computed in the kernel)
+    # computed in the kernel), then its magnitudes against their scales (ledger.check_magnitudes,
+    # compiled over the subjects in blocks)
     cap = arrays.capacity
     finite = np.isfinite(out).all(axis=(1, 2))
     good = (status == OK) & passes(rel, low, finite)
+    found = np.zeros((n_sub, 8))
+    bstop = np.array([max(g.start, min(g.stop, nd)) for g in m0.grids], dtype=np.int64)
+    _in_blocks(population_magnitudes, n_sub, threads, out, content, out_dosed, out_removed, keep, bar_lo, bstop,
+               cap, arrays.has_volume, arrays.scale, arrays.y0, nc, nd, m0.q_elim, m0.q_perm, m0.q_lost,
+               m0.q_sampled, -1.0 if order is not None else float(integ.atol), np.where(good, OK, -1), found)
+    small = good & magnitudes_failed(found)
+    good &= ~small
     messages = ["the run finished"] * n_sub
     st = np.where(good, 0, -1)
     for i in np.flatnonzero(~good).tolist():
-        if status[i] == OK:
+        if small[i]:
+            note = f"the {name} result failed its check ({'; '.join(magnitude_findings(m0, keep, found[i]))})"
+        elif status[i] == OK:
             note = f"the {name} result failed its check ({'; '.join(judge(float(rel[i]), float(low[i]), finite[i]))})"
         elif order is not None:
             note = "the exact path does not apply to this subject (its modes are too ill-conditioned)"

@@ -94,3 +94,27 @@ def test_the_benchmarks_chain_variants_keep_the_chain_path(tmp_path):
         f.write_text(v.toml())
         assert chosen(bf.load(f)).integrator == "exact", v.label
 
+
+
+def test_small_quantities_on_a_chain_network_are_computed_exactly_and_meet_the_contract():
+    """Random network 21 of the generator made linear (tests/benchmarks/chain_sweep.py, an invented
+    scenario): the estimate puts RODAS4 first (344 states, 10 rows: 1.4 ms against the chain
+    path's 2.6), whose result lets what barrier 'b0' passed through its absolute tolerance (10.9
+    times the contract's promise on its peak, ledger.check_magnitudes). The default's remedy on a
+    chain network the exact path takes is that path, which has no tolerances (1.8 ms), instead of
+    the robust integrator at scales from what the run reached (16 ms); each exported column within
+    the contract of scipy's Radau at rtol 1e-10 (tests/test_small_columns.contract_errors), and
+    every state within SPLIT_TOL of its scale."""
+    from test_small_columns import contract_errors, reference
+
+    s = random_scenario(random.Random(21), max_comp=4, small_grid=True, default_grid=True, max_barriers=2,
+                        min_barriers=1, linear=True)
+    assert solve(s, fallback=False).integrator == "rodas4"  # the estimate's choice
+    res = bf.simulate(s)
+    tr = res.trajectory
+    assert tr.integrator == "exact" and tr.stats["fallbacks"] == 1, tr.message
+    assert "far below the magnitude" in tr.message and "computed again with exact" in tr.message
+    errors = contract_errors(res, reference(s, res))
+    worst = max(errors, key=errors.get)
+    assert errors[worst] <= 1.0, (worst, errors[worst])
+    assert scaled_error(tr, radau(s)) < SPLIT_TOL

@@ -540,7 +540,7 @@ class ExactIntegrator(Integrator):
             ev_dosed = np.empty((n_t, nc))
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
-            code = chain_run(marks, times, ev, tuple(work), tuple(base), s, order, _FAST / mode_time(times, marks),
+            code = chain_run(marks, times, ev, tuple(work), tuple(base), s, order, _FAST / plan.mode_time,
                                   jacobian_size(m), m.y0.copy(), states, ev_dosed, ev_removed, st, full, taps)
             stats.add(st)
             if code != 0:
@@ -580,7 +580,7 @@ class ExactIntegrator(Integrator):
         linked: dict[bytes, CompiledModel] = {s.closed.tobytes(): m}  # the model with the faces as they are
         row, ei = 0, 0
         n_int = len(marks) - 1
-        tau_min = mode_time(times, marks)
+        tau_min = plan.mode_time
         full = m
         for k in range(n_int):
             t0, t1 = marks[k], marks[k + 1]

@@ -34,8 +34,10 @@ import math
 from abc import ABC, abstractmethod
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
+from numba import njit
 
 from ..errors import ScenarioError, SolverError
 from .arrays import working_copy
@@ -117,6 +119,15 @@ class RunPlan:
     def longest(self) -> float:
         """The longest dosing interval, h."""
         return float(np.diff(self.marks).max(initial=0.0))
+
+    @cached_property
+    def mode_time(self) -> float:
+        """The time from the start of an interval at which the exact chain path cuts its modes, h
+        (:func:`~barrierflow.engine.exact.mode_time`; computed once per plan: the chooser and the
+        chain and split paths read it)."""
+        from .exact import mode_time
+
+        return mode_time(self.times, self.marks)
 
 
 @dataclass(frozen=True, eq=False)
@@ -565,8 +576,8 @@ class AutoIntegrator(Integrator):
                 n_rows, n_int = rows or 500, intervals or 1
                 if plan == "chain":
                     cut = 1.0 if shortest is None else shortest
-                    modes = chain_modes(model, 60.0 / cut)
-                    early = 0 if times is None or marks is None else chain_rows(model, times, marks, cut, modes)
+                    modes, early = _chain_counts(model, 60.0 / cut, _NO_TIMES if times is None else times,
+                                                 _NO_TIMES if marks is None else marks, cut, -1.0)
                     own = estimated_seconds("chain", model, n_rows, n_int, shortest=cut, early=early, modes=modes)
                 else:
                     own = estimated_seconds(plan, model, n_rows, n_int)
@@ -577,10 +588,8 @@ class AutoIntegrator(Integrator):
 
     def run(self, plan: RunPlan) -> Integration:
         """Run ``plan`` on the integrator :meth:`resolve` picks."""
-        from .exact import mode_time
-
         return self.resolve(plan.model, plan.longest, len(plan.times), len(plan.marks) - 1,
-                            mode_time(plan.times, plan.marks), plan.times, plan.marks).run(plan)
+                            plan.mode_time, plan.times, plan.marks).run(plan)
 
     def working_memory(self, model: CompiledModel) -> int:
         """What the integrator :meth:`resolve` picks needs."""
@@ -711,17 +720,7 @@ def chain_modes(model: CompiledModel, rate: float) -> float:
     largest rate of a uniform chain is 2 r; its modes' rates are 2 r (1 - cos(j pi / m)), j < m;
     a count of this kind is common practice, from memory), summed over the states. The cost of
     computing the modes, which the split path does at every event, grows with it."""
-    nd = model.n_dyn
-    p, q = model.link_p, model.link_q
-    w = 0.5 * (model.link_b + model.link_c)
-    # a last slot for the links to other states (bincount: np.add.at's sums, 8x faster)
-    g = (np.bincount(np.where(p < nd, p, nd), weights=w, minlength=nd + 1)
-         + np.bincount(np.where((q < nd) & (q != p), q, nd), weights=w, minlength=nd + 1))
-    r = g[:nd] * model.inv_partition[:nd] / model.capacity[:nd]
-    share = np.ones(nd)
-    on = r > 0
-    share[on] = (2.0 / math.pi) * np.arcsin(np.minimum(1.0, np.sqrt(rate / (2.0 * r[on]))))
-    return float(share.sum())
+    return _chain_counts(model, rate, _NO_TIMES, _NO_TIMES, 1.0, -1.0)[0]
 
 
 def chain_rows(model: CompiledModel, times: np.ndarray, marks: np.ndarray, shortest: float,
@@ -737,14 +736,51 @@ def chain_rows(model: CompiledModel, times: np.ndarray, marks: np.ndarray, short
     (k / MAX_MODES)^2`` for k modes. ``times`` and ``marks`` (h) are the run's output times and
     the bounds of its dosing intervals; ``modes`` is ``chain_modes(model, 60 / shortest)`` when
     known."""
+    return _chain_counts(model, 60.0 / shortest, times, marks, shortest, -1.0 if modes is None else modes)[1]
+
+
+_NO_TIMES = np.zeros(0)
+
+
+def _chain_counts(model: CompiledModel, rate: float, times: np.ndarray, marks: np.ndarray, shortest: float,
+                  modes: float) -> tuple[float, int]:
+    """(:func:`chain_modes` at ``rate``, unless ``modes`` >= 0 gives it; :func:`chain_rows` of
+    ``times`` and ``marks`` at the cut ``shortest``, 0 when ``marks`` bound no interval) in one
+    compiled pass (a stage of every default run on a chain network)."""
     from .exact_chain import MAX_MODES
 
-    k = chain_modes(model, 60.0 / shortest) if modes is None else modes
-    thr = shortest * max(1.0, k / MAX_MODES) ** 2
-    starts = marks[:-1]
-    # the rows after each interval's start and before thr from it (sorted times: two searches)
-    rows = np.searchsorted(times, np.minimum(starts + thr, marks[1:])) - np.searchsorted(times, starts, side="right")
-    return int(rows.sum() + np.count_nonzero(marks[1:] - starts < thr))
+    return _counts(model.n_dyn, model.link_p, model.link_q, model.link_b, model.link_c, model.inv_partition,
+                   model.capacity, float(rate), np.ascontiguousarray(times, dtype=np.float64),
+                   np.ascontiguousarray(marks, dtype=np.float64), float(shortest), float(modes), float(MAX_MODES))
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _counts(nd, p, q, b, c, inv_k, cap, rate, times, marks, shortest, modes, max_modes):
+    """:func:`_chain_counts`: the conductances of each free state from its links (to another state
+    or not: the same sums as two bincounts, the links' 'from' ends, then their 'to' ends), each
+    state's share of modes, then the rows before the cut, two sorted searches per interval."""
+    if modes < 0.0:
+        g_from = np.zeros(nd)
+        g_to = np.zeros(nd)
+        for j in range(p.shape[0]):
+            w = 0.5 * (b[j] + c[j])
+            if p[j] < nd:
+                g_from[p[j]] += w
+            if q[j] < nd and q[j] != p[j]:
+                g_to[q[j]] += w
+        modes = 0.0
+        for i in range(nd):
+            r = (g_from[i] + g_to[i]) * inv_k[i] / cap[i]
+            modes += (2.0 / math.pi) * math.asin(min(1.0, math.sqrt(rate / (2.0 * r)))) if r > 0 else 1.0
+    early = 0
+    if marks.shape[0] > 1:
+        thr = shortest * max(1.0, modes / max_modes) ** 2
+        for k in range(marks.shape[0] - 1):
+            start, stop = marks[k], marks[k + 1]
+            early += (np.searchsorted(times, min(start + thr, stop)) - np.searchsorted(times, start, side="right"))
+            if stop - start < thr:
+                early += 1
+    return modes, early
 
 
 def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int,

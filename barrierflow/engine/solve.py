@@ -23,7 +23,7 @@ from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
 from .arrays import working_copy
 from .compiled import CompiledModel, compile_scenario
-from .exact import ExactIntegrator, exact_plan, exact_supported, mode_time
+from .exact import ExactIntegrator, exact_plan, exact_supported
 from .exported import Rows
 from .grid import Grid
 from .integrators import EXACT_MEMORY, Integrator, RunPlan, ScipyIntegrator, resolve_integrator
@@ -249,10 +249,10 @@ def solve(
     times = _snap(scenario.output_array(), marks, 1e-9 * max(duration, 1.0))
     if not np.all(times[1:] > times[:-1]):  # times snapped onto one event merge
         times = np.unique(times)
-    chosen = resolve_integrator(integrator, model, float(np.diff(marks).max()), len(times), len(marks) - 1,
-                                mode_time(times, marks), times, marks)
-    check_memory(scenario, model, len(times), chosen)
     plan = RunPlan(model, encode_events(events), marks, times, progress)
+    chosen = resolve_integrator(integrator, model, float(np.diff(marks).max()), len(times), len(marks) - 1,
+                                plan.mode_time, times, marks)
+    check_memory(scenario, model, len(times), chosen)
     robust = robust_for(model)
     notes: list[str] = []
     traj = None

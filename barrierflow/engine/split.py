@@ -1405,7 +1405,7 @@ class SplitIntegrator(Integrator):
         ScenarioError
             For a model the split does not apply to (:func:`linear_part`).
         """
-        from .exact import _FAST, mode_time
+        from .exact import _FAST
 
         model = plan.model
         refuse_vehicle_terms(model, self.name)
@@ -1437,7 +1437,7 @@ class SplitIntegrator(Integrator):
         if np.any((ev.kind == EV_HOLD_START) & (ev.comp == ic)):
             code = FAIL_CLAMPED  # a hold on the compartment, known before the run: no split work spent on it
         else:
-            code = split_schedule(marks, times, ev, work, base, s, chain_order(lin), _FAST / mode_time(times, marks),
+            code = split_schedule(marks, times, ev, work, base, s, chain_order(lin), _FAST / plan.mode_time,
                                   jacobian_size(lin), model.y0.copy(), states, ev_dosed, ev_removed, st, full, taps,
                                   ic, float(model.mm_vmax[0]), float(model.mm_km[0]), COEF, float(self.rtol),
                                   self.atol * model.scale, self.max_steps, info)

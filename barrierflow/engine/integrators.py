@@ -125,9 +125,7 @@ class RunPlan:
         """The time from the start of an interval at which the exact chain path cuts its modes, h
         (:func:`~barrierflow.engine.exact.mode_time`; computed once per plan: the chooser and the
         chain and split paths read it)."""
-        from .exact import mode_time
-
-        return mode_time(self.times, self.marks)
+        return _exact_m.mode_time(self.times, self.marks)
 
 
 @dataclass(frozen=True, eq=False)
@@ -557,22 +555,18 @@ class AutoIntegrator(Integrator):
         estimate), ``times`` and ``marks`` (h) the output times and the bounds of the dosing
         intervals (the chain's rows computed by its rational approximation, :func:`chain_rows`;
         none when not given)."""
-        from .exact import ExactIntegrator, exact_plan, exact_supported
-        from .rosenbrock import RosenbrockIntegrator
-        from .split import SplitIntegrator, linear_part
-
         if model.vehicle_terms:
             return VEHICLE
-        if linear_part(model) is not None:
+        if _split_m.linear_part(model) is not None:
             n_rows, n_int = rows or 500, intervals or 1
             if SPLIT_BY_DEFAULT and (estimated_seconds("split", model, n_rows, n_int, longest, shortest)
                                      < estimated_seconds("rodas", model, n_rows, n_int)):
-                return SplitIntegrator(rtol=self.rtol, atol=self.atol, step_budget=split_budget(n_int))
-            return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
-        if exact_supported(model, longest):
-            exact = ExactIntegrator()
+                return _split_m.SplitIntegrator(rtol=self.rtol, atol=self.atol, step_budget=split_budget(n_int))
+            return _rodas_m.RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
+        if _exact_m.exact_supported(model, longest):
+            exact = _exact_m.ExactIntegrator()
             if exact.working_memory(model) <= EXACT_MEMORY:
-                plan, _size = exact_plan(model)
+                plan, _size = _exact_m.exact_plan(model)
                 n_rows, n_int = rows or 500, intervals or 1
                 if plan == "chain":
                     cut = 1.0 if shortest is None else shortest
@@ -584,7 +578,7 @@ class AutoIntegrator(Integrator):
                 # exact to rounding: taken while no more than EXACT_PREFERENCE times RODAS4's estimate
                 if own <= EXACT_PREFERENCE * estimated_seconds("rodas", model, n_rows, n_int):
                     return exact
-        return RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
+        return _rodas_m.RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
 
     def run(self, plan: RunPlan) -> Integration:
         """Run ``plan`` on the integrator :meth:`resolve` picks."""
@@ -747,11 +741,10 @@ def _chain_counts(model: CompiledModel, rate: float, times: np.ndarray, marks: n
     """(:func:`chain_modes` at ``rate``, unless ``modes`` >= 0 gives it; :func:`chain_rows` of
     ``times`` and ``marks`` at the cut ``shortest``, 0 when ``marks`` bound no interval) in one
     compiled pass (a stage of every default run on a chain network)."""
-    from .exact_chain import MAX_MODES
-
     return _counts(model.n_dyn, model.link_p, model.link_q, model.link_b, model.link_c, model.inv_partition,
                    model.capacity, float(rate), np.ascontiguousarray(times, dtype=np.float64),
-                   np.ascontiguousarray(marks, dtype=np.float64), float(shortest), float(modes), float(MAX_MODES))
+                   np.ascontiguousarray(marks, dtype=np.float64), float(shortest), float(modes),
+                   float(_chain_m.MAX_MODES))
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
@@ -819,18 +812,13 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
         ratio *= 1.0 + (sharp / SPLIT_SHARPNESS[0]) ** SPLIT_SHARPNESS[1]
         if intervals < 2:
             ratio = max(ratio, SPLIT_SINGLE)
-        from .exact import _FAST
-        from .split import CUT_SLOW
-
-        rate = CUT_SLOW if shortest is None else max(CUT_SLOW, -_FAST / shortest)
+        rate = _split_m.CUT_SLOW if shortest is None else max(_split_m.CUT_SLOW, -_exact_m._FAST / shortest)
         setup = SPLIT_SETUP * intervals * model.n_state * chain_modes(model, rate)
         return ratio * estimated_seconds("rodas", model, rows, intervals) + setup
     if path == "chain":
-        from .exact_chain import MAX_MODES
-
         if modes is None:
             modes = chain_modes(model, 60.0 / (1.0 if shortest is None else shortest))
-        k = min(modes, MAX_MODES)
+        k = min(modes, _chain_m.MAX_MODES)
         return (CHAIN_COST[0] + CHAIN_COST[1] * nd * k * k + CHAIN_COST[2] * intervals * nd * (k + 4)
                 + CHAIN_COST[3] * rows * (n + nd * (k + 4)) + CHAIN_COST[4] * early * nd)
     if path == "modes":
@@ -909,3 +897,12 @@ def integrator_from_name(name: str, **options: float) -> Integrator:
     except KeyError:
         raise ScenarioError.single("integrator", repr(name), f"must be one of {', '.join(INTEGRATORS)}") from None
     return make(**options)
+
+
+# The paths the chooser names, as module references (each of them imports this module for the
+# contract, so they are bound here, at the end, where every name above is defined; their
+# attributes are read at call time).
+from . import exact as _exact_m  # noqa: E402
+from . import exact_chain as _chain_m  # noqa: E402
+from . import rosenbrock as _rodas_m  # noqa: E402
+from . import split as _split_m  # noqa: E402

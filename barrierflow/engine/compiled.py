@@ -39,6 +39,7 @@ import dataclasses
 import math
 from dataclasses import dataclass, field
 from functools import cached_property
+from itertools import accumulate
 
 import numpy as np
 
@@ -682,8 +683,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     for i, c in enumerate(comps):  # a saturated reservoir: its potential C/K is the solubility
         if c.held and c.id in limited:
             inv_k[..., i:i + 1] = _row([sol / c.held_concentration])
-    face_ptr = np.zeros(n_comp + 1, dtype=np.int64)
-    face_ptr[1:] = np.cumsum([len(f) for f in faces])
+    face_ptr = np.array([0, *accumulate(len(f) for f in faces)], dtype=np.int64)
 
     other = np.ones(len(lk), dtype=np.bool_)
     for j0, j1 in in_chain:
@@ -691,6 +691,8 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     loss_rate = _join(loss_parts)
 
     def full(x: np.ndarray) -> np.ndarray:  # a value field: one contiguous, writable row per subject
+        if not lead and type(x) is np.ndarray and x.dtype == np.float64:  # one scenario: as it is
+            return x
         x = np.asarray(x, dtype=np.float64)
         return np.array(np.broadcast_to(x, lead + x.shape[-1:]), order="C") if lead else x
 

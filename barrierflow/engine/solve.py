@@ -140,19 +140,23 @@ class FullStates:
         return states
 
 
-def _snap(times: np.ndarray, marks: np.ndarray, tol: float) -> np.ndarray:
-    """Move output times within ``tol`` of an event time onto it (rows at events show the after-state)."""
+def _snap(times: np.ndarray, marks: np.ndarray, tol: float, merge: bool = False) -> np.ndarray:
+    """Move output times within ``tol`` of an event time onto it (rows at events show the after-state);
+    with ``merge``, times snapped onto one event merge."""
     if len(marks) == 0:
         return times
-    return _snapped(np.ascontiguousarray(times, dtype=np.float64), np.ascontiguousarray(marks, dtype=np.float64),
-                    float(tol))
+    out, increasing = _snapped(np.ascontiguousarray(times, dtype=np.float64),
+                               np.ascontiguousarray(marks, dtype=np.float64), float(tol))
+    return out if increasing or not merge else np.unique(out)
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _snapped(times, marks, tol):
-    """:func:`_snap` in one compiled pass (``marks`` not empty)."""
+    """:func:`_snap` in one compiled pass (``marks`` not empty): the times, and whether they
+    increase strictly (else some merged)."""
     out = times.copy()
     last = marks.shape[0] - 1
+    increasing = True
     for i in range(times.shape[0]):
         t = times[i]
         idx = np.searchsorted(marks, t)
@@ -164,7 +168,9 @@ def _snapped(times, marks, tol):
         after = marks[min(idx, last)]
         if abs(after - t) <= tol:
             out[i] = after
-    return out
+        if i and not out[i] > out[i - 1]:
+            increasing = False
+    return out, increasing
 
 
 def _present(model: CompiledModel, y: np.ndarray) -> float:
@@ -246,9 +252,7 @@ def solve(
     events = [e for e in all_events if e.time < duration]
     at_end = [e for e in all_events if e.time >= duration]
     marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
-    times = _snap(scenario.output_array(), marks, 1e-9 * max(duration, 1.0))
-    if not np.all(times[1:] > times[:-1]):  # times snapped onto one event merge
-        times = np.unique(times)
+    times = _snap(scenario.output_array(), marks, 1e-9 * max(duration, 1.0), merge=True)
     plan = RunPlan(model, encode_events(events), marks, times, progress)
     chosen = resolve_integrator(integrator, model, float(np.diff(marks).max()), len(times), len(marks) - 1,
                                 plan.mode_time, times, marks)
@@ -351,7 +355,7 @@ def _run(model: CompiledModel, integrator: Integrator, plan: RunPlan, at_end: li
     states, ev_dosed, ev_removed, volumes = out.states, out.event_dosed, out.event_removed, out.volumes
     n_rows = out.n_rows
     failed_at = None
-    amounts = np.concatenate([out.event_amounts, np.zeros(len(at_end))])
+    amounts = np.concatenate([out.event_amounts, np.zeros(len(at_end))]) if at_end else out.event_amounts
     if out.status != 0:
         failed_at = out.failed_at if out.failed_at is not None else float(times[min(n_rows, len(times) - 1)])
         times = times[:n_rows]

@@ -637,6 +637,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
             for k, v in enumerate((c.clearance * c.partition, 0.0, 0.0, 0.0)):
                 rates[k].append(_row([v]))
     lk = np.concatenate(ends) if ends else np.zeros((0, 4), dtype=np.int64)
+    link_p, link_q, link_loss, link_track = np.ascontiguousarray(lk.T)  # one copy, a row per column
     link_a, link_b, link_c, link_d = (_join(r) if r else np.zeros(0) for r in rates)
 
     mm = [(i, c.vmax, c.km) for i, c in enumerate(comps) if c.vmax is not None and decide(c.vmax != 0)]
@@ -699,12 +700,12 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     arrays = ModelArrays(
         n_comp=n_comp, n_dyn=n_dyn, q_supply=q_supply0, q_infused=q_supply0 + n_comp,
         q_sampled=q_supply0 + 3 * n_comp, capacity=full(cap), inv_capacity=full(1.0 / cap),
-        inv_partition=full(inv_k), link_p=lk[:, 0].copy(), link_q=lk[:, 1].copy(),
+        inv_partition=full(inv_k), link_p=link_p, link_q=link_q,
         link_a=full(link_a), link_b=full(link_b), link_c=full(link_c), link_d=full(link_d),
-        link_loss=lk[:, 2].copy(), link_track=lk[:, 3].copy(),
-        chain_g=full(chain_g), other_links=np.flatnonzero(other).astype(np.int64),
+        link_loss=link_loss, link_track=link_track,
+        chain_g=full(chain_g), other_links=np.flatnonzero(other).astype(np.int64, copy=False),
         loss_rate=full(loss_rate), loss_to=np.concatenate(loss_to_parts),
-        lossy=np.flatnonzero(_common(loss_rate != 0.0)).astype(np.int64),
+        lossy=np.flatnonzero(_common(loss_rate != 0.0)).astype(np.int64, copy=False),
         mm_state=np.array([m[0] for m in mm], dtype=np.int64),
         mm_vmax=full(_row([m[1] for m in mm])),
         mm_km=full(_row([m[2] for m in mm])),

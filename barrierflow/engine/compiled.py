@@ -554,7 +554,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         widths = [layer_widths[(bi, li)] * layer.thickness if (bi, li) in layer_widths else grid.widths(layer, tau)
                   for li, layer in enumerate(b.layers)]
         w = _join(widths)
-        lay_idx = np.repeat(np.arange(len(widths), dtype=np.int64), [x.shape[-1] for x in widths])
+        lay_idx = np.arange(len(widths), dtype=np.int64).repeat([x.shape[-1] for x in widths])
         part = _row([x.partition for x in b.layers])[..., lay_idx]
         grids_tmp.append((bi, offset, offset + w.shape[-1], w, lay_idx, part))
         cap_parts.append(b.area * w)
@@ -586,7 +586,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         b = bars[bi]
         p_from = comp_index[b.from_id]
         p_to = comp_index[b.to_id]
-        ends_at = np.cumsum(_row([x.thickness for x in b.layers]), axis=-1)
+        ends_at = _row([x.thickness for x in b.layers]).cumsum(axis=-1)
         interfaces = (0.0, *(ends_at if ends_at.ndim == 1 else np.moveaxis(ends_at, -1, 0)))
         if b.model == "steady":
             a, bb, c, d = (v * b.area for v in _two_port(b))
@@ -621,7 +621,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         chain_g[..., start - n_comp:stop - n_comp - 1] = g[..., 1:nb]
         in_chain.append((n_link + 1, n_link + nb))
         loss_to_parts.append(np.full(nb, q_degr0 + bi, dtype=np.int64))
-        centres = np.cumsum(w, axis=-1) - w / 2
+        centres = w.cumsum(axis=-1) - w / 2
         grids.append(BarrierGrid(b.id, start, stop, w, centres, lay_idx, interfaces, n_link, n_link + nb))
         faces[p_from].append(n_link)
         faces[p_to].append(n_link + nb)
@@ -703,9 +703,9 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         inv_partition=full(inv_k), link_p=link_p, link_q=link_q,
         link_a=full(link_a), link_b=full(link_b), link_c=full(link_c), link_d=full(link_d),
         link_loss=link_loss, link_track=link_track,
-        chain_g=full(chain_g), other_links=np.flatnonzero(other).astype(np.int64, copy=False),
+        chain_g=full(chain_g), other_links=other.nonzero()[0].astype(np.int64, copy=False),
         loss_rate=full(loss_rate), loss_to=np.concatenate(loss_to_parts),
-        lossy=np.flatnonzero(_common(loss_rate != 0.0)).astype(np.int64, copy=False),
+        lossy=_common(loss_rate != 0.0).nonzero()[0].astype(np.int64, copy=False),
         mm_state=np.array([m[0] for m in mm], dtype=np.int64),
         mm_vmax=full(_row([m[1] for m in mm])),
         mm_km=full(_row([m[2] for m in mm])),

@@ -254,7 +254,7 @@ def solve(
     marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
     times = _snap(scenario.output_array(), marks, 1e-9 * max(duration, 1.0), merge=True)
     plan = RunPlan(model, encode_events(events), marks, times, progress)
-    chosen = resolve_integrator(integrator, model, float(np.diff(marks).max()), len(times), len(marks) - 1,
+    chosen = resolve_integrator(integrator, model, float((marks[1:] - marks[:-1]).max()), len(times), len(marks) - 1,
                                 plan.mode_time, times, marks)
     check_memory(scenario, model, len(times), chosen)
     robust = robust_for(model)

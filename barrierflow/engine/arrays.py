@@ -145,6 +145,8 @@ CHANGING = ("capacity", "inv_capacity", "link_a", "link_b", "link_c", "link_d")
 
 #: The fields that give the structure (which states, links, losses): subjects of one population
 #: share them; every other array field holds values, one row per subject when stacked.
+_CHANGING_AT = tuple(ModelArrays._fields.index(k) for k in CHANGING)  # their positions in the tuple
+
 SHARED = ("link_p", "link_q", "link_loss", "link_track", "other_links", "loss_to", "lossy", "mm_state", "tr_from",
           "tr_to", "held", "has_volume", "face_ptr", "face_link", "shrinking")
 
@@ -152,7 +154,10 @@ SHARED = ("link_p", "link_q", "link_loss", "link_track", "other_links", "loss_to
 def working_copy(arrays: ModelArrays) -> ModelArrays:
     """``arrays`` with its own copies of the fields events change (:data:`CHANGING`), for one run;
     the original stays the reference the event rules restore from."""
-    return arrays._replace(**{k: getattr(arrays, k).copy() for k in CHANGING})
+    fields = list(arrays)
+    for i in _CHANGING_AT:
+        fields[i] = fields[i].copy()
+    return ModelArrays._make(fields)
 
 
 def stack_arrays(arrays: Sequence[ModelArrays]) -> ModelArrays:

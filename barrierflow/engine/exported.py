@@ -59,15 +59,17 @@ def taps_of(model: CompiledModel) -> Taps:
     if memo is not None:
         return memo
     m = model
+    nd, n_state, grids = m.n_dyn, m.n_state, m.grids
+    lp, lq = m.link_p, m.link_q
     faces = []
-    for g in m.grids:
+    for g in grids:
         for link in (g.in_link, g.out_link):
-            faces += [int(m.link_p[link]), int(m.link_q[link])]
-    keep = np.array(sorted({*range(m.n_comp), *faces, *range(m.n_dyn, m.n_state)}), dtype=np.int64)
-    pos = np.full(m.n_state, -1, dtype=np.int64)
+            faces += [int(lp[link]), int(lq[link])]
+    keep = np.array(sorted({*range(m.n_comp), *faces, *range(nd, n_state)}), dtype=np.int64)
+    pos = np.full(n_state, -1, dtype=np.int64)
     pos[keep] = np.arange(len(keep))
-    bstart = np.array([g.start for g in m.grids], dtype=np.int64)
-    bstop = np.array([max(g.start, min(g.stop, m.n_dyn)) for g in m.grids], dtype=np.int64)
+    bstart = np.array([g.start for g in grids], dtype=np.int64)
+    bstop = np.array([max(g.start, min(g.stop, nd)) for g in grids], dtype=np.int64)
     taps = Taps(keep, pos, bstart, bstop, 1.0 / m.scale)
     model.__dict__["_taps"] = taps
     return taps

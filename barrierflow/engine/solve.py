@@ -174,9 +174,9 @@ def _snapped(times, marks, tol):
 
 
 def _present(model: CompiledModel, y: np.ndarray) -> float:
-    comp = y[: model.n_comp] * model.capacity[: model.n_comp]
-    comp = np.where(model.has_volume, comp, 0.0)
-    return float(comp.sum() + (y[model.n_comp: model.n_dyn] * model.capacity[model.n_comp: model.n_dyn]).sum())
+    nc, nd, cap = model.n_comp, model.n_dyn, model.capacity
+    comp = np.where(model.has_volume, y[:nc] * cap[:nc], 0.0)
+    return float(comp.sum() + (y[nc:nd] * cap[nc:nd]).sum())
 
 
 

@@ -250,7 +250,7 @@ def _part_of_compartments(s: Scenario) -> list[int]:
     return [find(i) for i in range(len(s.compartments))]
 
 
-def _mass_scale(s: Scenario, doses: RegimenBounds) -> list:
+def _mass_scale(s: Scenario, doses: RegimenBounds, part: list[int]) -> list:
     """An amount per compartment, mg, that bounds what its connected part of the network can move.
 
     Present at start plus every dose; each clamped level (a held compartment over the run, a hold
@@ -260,10 +260,10 @@ def _mass_scale(s: Scenario, doses: RegimenBounds) -> list:
     can hold and lose less than that (its links' steady uptake counts a finite neighbour as a
     sink), the clamp adds instead what filling the part to its potential and the part's sinks
     could take (:func:`_clamp_fill`). A part that moves nothing gets 1 mg. ``doses``:
-    :func:`~barrierflow.engine.schedule.regimen_bounds` of ``s``.
+    :func:`~barrierflow.engine.schedule.regimen_bounds` of ``s``; ``part``:
+    :func:`_part_of_compartments` of ``s``.
     """
     comps = {c.id: c for c in s.compartments}
-    part = _part_of_compartments(s)
     pos = {c.id: i for i, c in enumerate(s.compartments)}
     total: list = [0.0] * len(s.compartments)
 
@@ -386,10 +386,11 @@ tolerances stay as they were: the benchmark's star of 64, whose patches' potenti
 3.85e3 against 4.48e3 mg/mL, keeps its scales and its steps)."""
 
 
-def _potential_bound(s: Scenario, doses) -> list | None:
+def _potential_bound(s: Scenario, doses, part: list[int]) -> list | None:
     """A bound of each compartment's concentration, mg/mL, from the potentials its part's sources
     can reach (math.inf where none holds), or None when no part has one. ``doses``:
-    :func:`~barrierflow.engine.schedule.regimen_bounds` of ``s``.
+    :func:`~barrierflow.engine.schedule.regimen_bounds` of ``s``; ``part``:
+    :func:`_part_of_compartments` of ``s``.
 
     Without transfers (which move amount whatever the potentials) and vehicle terms, every link is
     driven by the potential u = C/K and every other loss only lowers it, so by superposition (the
@@ -408,7 +409,6 @@ def _potential_bound(s: Scenario, doses) -> list | None:
     comps = {c.id: c for c in s.compartments}
     if any(comps[cid].volume is None for cid, _ in doses.added):
         return None
-    part = _part_of_compartments(s)
     pos = {c.id: i for i, c in enumerate(s.compartments)}
     n = len(s.compartments)
     start: list = [0.0] * n  # the largest starting potential of each part
@@ -647,13 +647,14 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     y0[..., :n_comp] = _row([c.starting_concentration for c in comps])
     for (bi, start, stop, _, lay_idx, _) in grids_tmp:  # loaded layers
         y0[..., start:stop] = _row([x.initial_concentration for x in bars[bi].layers])[..., lay_idx]
-    m_list = _mass_scale(scenario, doses)
+    part_of = _part_of_compartments(scenario)  # the connected part of each compartment
+    m_list = _mass_scale(scenario, doses, part_of)
     m_ref = _row(m_list)  # per compartment: its part's bound
     cap = _join(cap_parts)
     inv_k = _join(invk_parts)
     scale = np.empty(lead + (n_state,))
     scale[..., :n_comp] = m_ref / cap[..., :n_comp]
-    bound = _potential_bound(scenario, doses)
+    bound = _potential_bound(scenario, doses, part_of)
     if bound is not None:  # where it is far tighter (see POTENTIAL_MARGIN)
         tight = _row(bound)
         scale[..., :n_comp] = np.where(tight * POTENTIAL_MARGIN < scale[..., :n_comp], tight, scale[..., :n_comp])

@@ -626,7 +626,10 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
     kind = -1
     which = -1
     for b in range(n_b):
-        ratio = tol[b] / (PEAK_TOLERANCE * max(peak[b], flux_floor, 1e-300))
+        judged = max(peak[b], flux_floor)
+        if judged == 0.0:  # nothing moved in the run: no flux to promise
+            continue
+        ratio = tol[b] / (PEAK_TOLERANCE * judged)
         if ratio > DERIVED_EXCESS:
             n_over += 1
             if ratio > worst:
@@ -641,7 +644,7 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
             top = max(top, abs(removed[r, c]))
         if top == 0.0:  # nothing removed: no column to promise
             continue
-        ratio = atol * cap[c] * scale[c] / (FINAL_TOLERANCE * max(top, amount_floor, 1e-300))
+        ratio = atol * cap[c] * scale[c] / (FINAL_TOLERANCE * max(top, amount_floor))
         if ratio > DERIVED_EXCESS:
             n_over += 1
             if ratio > worst:

@@ -617,10 +617,17 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
         wq = 0.0 if q < n_c and not has_volume[q] else abs(fq[b]) * scale[q]
         tol[b] = atol * (wp + wq)
     peak = np.zeros(n_b)
+    reach = np.zeros(n_b)  # the tolerance the flux would have with the face states' peaks as scales
+    top_c = np.zeros(n_c)  # each compartment's peak
     for r in range(n_t):  # row by row: each row's kept states lie together
         row = cols[r]
         for b in range(n_b):
+            a = abs(fp[b] * row[jp[b]])
+            z = abs(fq[b] * row[jq[b]])
             peak[b] = max(peak[b], abs(fp[b] * row[jp[b]] - fq[b] * row[jq[b]]))
+            reach[b] = max(reach[b], a + z)
+        for c in range(n_c):  # (the compartments lead the kept states)
+            top_c[c] = max(top_c[c], abs(row[c]))
     n_over = 0
     worst = 0.0
     kind = -1
@@ -629,7 +636,10 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
         judged = max(peak[b], flux_floor)
         if judged == 0.0:  # nothing moved in the run: no flux to promise
             continue
-        ratio = tol[b] / (PEAK_TOLERANCE * judged)
+        # far above its promise, and far above what scales from the states' peaks would give
+        # (a flux between two faces near one potential is a small difference of large terms at
+        # any scale: rescaling does not change it)
+        ratio = min(tol[b] / (PEAK_TOLERANCE * judged), tol[b] / max(atol * reach[b], 1e-300))
         if ratio > DERIVED_EXCESS:
             n_over += 1
             if ratio > worst:
@@ -644,7 +654,8 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
             top = max(top, abs(removed[r, c]))
         if top == 0.0:  # nothing removed: no column to promise
             continue
-        ratio = atol * cap[c] * scale[c] / (FINAL_TOLERANCE * max(top, amount_floor))
+        ratio = min(atol * cap[c] * scale[c] / (FINAL_TOLERANCE * max(top, amount_floor)),
+                    scale[c] / max(top_c[c], 1e-300))
         if ratio > DERIVED_EXCESS:
             n_over += 1
             if ratio > worst:

@@ -548,9 +548,9 @@ def check_magnitudes(model: CompiledModel, rows: Rows, initial: float, event_dos
     found = magnitude_findings(m, t.keep, out)
     if atol is not None:
         n_der, dworst, kind, which = _derived_promise(
-            rows.cols, _out_links(m), t.pos, m.link_p, m.link_q, m.link_c, m.link_d, m.inv_partition, m.scale,
-            m.has_volume, m.capacity, np.ascontiguousarray(event_removed), float(atol),
-            MAGNITUDE_FLOOR * out[7] / duration if duration > 0.0 else np.inf, MAGNITUDE_FLOOR * out[7])
+            rows.cols, _out_links(m), t.pos, t.bstart, t.bstop, m.link_p, m.link_q, m.link_c, m.link_d,
+            m.inv_partition, m.scale, m.has_volume, m.capacity, np.ascontiguousarray(event_removed), float(atol),
+            float(out[7]), float(duration))
         if n_der:
             what = (f"the flux of barrier '{m.barrier_ids[int(which)]}'" if kind == 0 else
                     f"what events removed from compartment '{m.comp_ids[int(which)]}'")
@@ -585,8 +585,8 @@ def _out_links(model: CompiledModel) -> np.ndarray:
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, scale, has_volume, cap, removed, atol,
-                     flux_floor, amount_floor):
+def _derived_promise(cols, outs, pos, bstart, bstop, link_p, link_q, link_c, link_d, inv_k, scale, has_volume, cap,
+                     removed, atol, big, duration):
     """The derived columns of :func:`check_magnitudes` (fluxes, amounts events removed): ``(how
     many have a tolerance above DERIVED_EXCESS times their promise, the worst such ratio, its kind
     (0 a flux, 1 a removed amount), its barrier or compartment (-1: none))``.
@@ -594,9 +594,14 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
     The flux through barrier ``b``'s out face (link ``outs[b]`` from state p to q) is
     ``c / K_p y_p - d / K_q y_q`` (mg/h) and its absolute tolerance ``atol`` times the two
     coefficients times the states' scales (a compartment whose concentration is given adds none),
-    judged on its peak over the kept rows ``cols`` (columns ``pos``), at least ``flux_floor``
-    (mg/h); what events removed from a compartment (``removed``, mg) has ``atol`` times its volume
-    times its scale, judged on its peak, at least ``amount_floor`` (mg)."""
+    judged on its peak over the kept rows ``cols`` (columns ``pos``), at least MAGNITUDE_FLOOR of
+    the run's largest amount ``big`` (mg) over ``duration`` (h; 0: fluxes not judged); what events
+    removed from a compartment (``removed``, mg) has ``atol`` times its volume times its scale,
+    judged on its peak, at least MAGNITUDE_FLOOR of ``big``. A column is reported only where
+    scales from what its states reached (each state's peak, at least MAGNITUDE_FLOOR of ``big`` in
+    its units: what :func:`observed_scale` gives) would make its tolerance DERIVED_EXCESS times
+    smaller too: elsewhere computing it again cannot help (a flux between two faces near one
+    potential is a small difference of large terms at any scale)."""
     n_t = cols.shape[0]
     n_b = outs.shape[0]
     n_c = removed.shape[1]
@@ -604,28 +609,24 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
     jq = np.empty(n_b, dtype=np.int64)
     fp = np.empty(n_b)
     fq = np.empty(n_b)
-    tol = np.empty(n_b)
     for b in range(n_b):
         k = outs[b]
-        p = link_p[k]
-        q = link_q[k]
-        jp[b] = pos[p]
-        jq[b] = pos[q]
-        fp[b] = link_c[k] * inv_k[p]
-        fq[b] = link_d[k] * inv_k[q]
-        wp = 0.0 if p < n_c and not has_volume[p] else abs(fp[b]) * scale[p]
-        wq = 0.0 if q < n_c and not has_volume[q] else abs(fq[b]) * scale[q]
-        tol[b] = atol * (wp + wq)
+        jp[b] = pos[link_p[k]]
+        jq[b] = pos[link_q[k]]
+        fp[b] = link_c[k] * inv_k[link_p[k]]
+        fq[b] = link_d[k] * inv_k[link_q[k]]
     peak = np.zeros(n_b)
-    reach = np.zeros(n_b)  # the tolerance the flux would have with the face states' peaks as scales
+    top_p = np.zeros(n_b)
+    top_q = np.zeros(n_b)
     top_c = np.zeros(n_c)  # each compartment's peak
     for r in range(n_t):  # row by row: each row's kept states lie together
         row = cols[r]
         for b in range(n_b):
-            a = abs(fp[b] * row[jp[b]])
-            z = abs(fq[b] * row[jq[b]])
-            peak[b] = max(peak[b], abs(fp[b] * row[jp[b]] - fq[b] * row[jq[b]]))
-            reach[b] = max(reach[b], a + z)
+            a = row[jp[b]]
+            z = row[jq[b]]
+            peak[b] = max(peak[b], abs(fp[b] * a - fq[b] * z))
+            top_p[b] = max(top_p[b], abs(a))
+            top_q[b] = max(top_q[b], abs(z))
         for c in range(n_c):  # (the compartments lead the kept states)
             top_c[c] = max(top_c[c], abs(row[c]))
     n_over = 0
@@ -633,13 +634,30 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
     kind = -1
     which = -1
     for b in range(n_b):
-        judged = max(peak[b], flux_floor)
-        if judged == 0.0:  # nothing moved in the run: no flux to promise
+        judged = max(peak[b], MAGNITUDE_FLOOR * big / duration) if duration > 0.0 else 0.0
+        if judged == 0.0:  # nothing moved in the run (or no duration): no flux to promise
             continue
-        # far above its promise, and far above what scales from the states' peaks would give
-        # (a flux between two faces near one potential is a small difference of large terms at
-        # any scale: rescaling does not change it)
-        ratio = min(tol[b] / (PEAK_TOLERANCE * judged), tol[b] / max(atol * reach[b], 1e-300))
+        k = outs[b]
+        tol = 0.0
+        reach = 0.0
+        for side in range(2):
+            i = link_p[k] if side == 0 else link_q[k]
+            f = abs(fp[b]) if side == 0 else abs(fq[b])
+            top = top_p[b] if side == 0 else top_q[b]
+            if i < n_c:
+                if not has_volume[i]:
+                    continue  # a concentration given, not computed
+                per = 1.0 / cap[i]
+            else:
+                vol = 0.0
+                for g in range(bstart.shape[0]):
+                    if bstart[g] <= i < bstop[g]:
+                        for x in range(bstart[g], bstop[g]):
+                            vol += cap[x]
+                per = 1.0 / vol if vol > 0.0 else 0.0
+            tol += atol * f * scale[i]
+            reach += atol * f * min(scale[i], max(top, MAGNITUDE_FLOOR * big * per))
+        ratio = min(tol / (PEAK_TOLERANCE * judged), tol / max(reach, 1e-300))
         if ratio > DERIVED_EXCESS:
             n_over += 1
             if ratio > worst:
@@ -654,8 +672,8 @@ def _derived_promise(cols, outs, pos, link_p, link_q, link_c, link_d, inv_k, sca
             top = max(top, abs(removed[r, c]))
         if top == 0.0:  # nothing removed: no column to promise
             continue
-        ratio = min(atol * cap[c] * scale[c] / (FINAL_TOLERANCE * max(top, amount_floor)),
-                    scale[c] / max(top_c[c], 1e-300))
+        ratio = min(atol * cap[c] * scale[c] / (FINAL_TOLERANCE * max(top, MAGNITUDE_FLOOR * big)),
+                    scale[c] / max(top_c[c], MAGNITUDE_FLOOR * big / cap[c], 1e-300))
         if ratio > DERIVED_EXCESS:
             n_over += 1
             if ratio > worst:

@@ -372,10 +372,16 @@ def _mode_time(times, marks, rr):
     best = np.empty(rr + 1)
     nb = 0
     count = 0
+    j = 0  # np.searchsorted(marks, t, side="right"): a pointer that moves forward on sorted times
     for i in range(n_t + max(nm - 1, 0)):
         if i < n_t:  # a local time: from the start of its interval (the last mark at or before it)
-            k = min(max(np.searchsorted(marks, times[i], side="right") - 1, 0), nm - 2)
-            v = times[i] - marks[k]
+            t = times[i]
+            if i and t < times[i - 1]:
+                j = 0
+            while j < nm and marks[j] <= t:
+                j += 1
+            k = min(max(j - 1, 0), nm - 2)
+            v = t - marks[k]
         else:  # a gap between two marks
             v = marks[i - n_t + 1] - marks[i - n_t]
         if not v > 0.0:

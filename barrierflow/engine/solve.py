@@ -155,11 +155,18 @@ def _snapped(times, marks, tol):
     """:func:`_snap` in one compiled pass (``marks`` not empty): the times, and whether they
     increase strictly (else some merged)."""
     out = times.copy()
-    last = marks.shape[0] - 1
+    n_m = marks.shape[0]
+    last = n_m - 1
     increasing = True
+    idx = 0
     for i in range(times.shape[0]):
         t = times[i]
-        idx = np.searchsorted(marks, t)
+        # np.searchsorted(marks, t): the first mark not below t; on sorted times (the usual grid) a
+        # pointer that moves forward, otherwise a search from the start
+        if i and t < times[i - 1]:
+            idx = 0
+        while idx < n_m and marks[idx] < t:
+            idx += 1
         # the event before, then the one after (which wins when both are that close); an index off
         # either end names the end event, which is then the other neighbour too
         before = marks[max(idx - 1, 0)]

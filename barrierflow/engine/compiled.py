@@ -99,49 +99,35 @@ class CompiledModel:
     barrier_index: dict[str, int] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
-        # every field of ``arrays`` is also an attribute of the model, under the same name
-        # (the instance dictionary at once: a frozen dataclass's setattr costs a call per field)
-        self.__dict__.update(zip(ModelArrays._fields, self.arrays, strict=True))
+        # every field of ``arrays`` is also an attribute of the model, under the same name, and so
+        # are the sizes and offsets below, computed once (the instance dictionary at once: a frozen
+        # dataclass's setattr costs a call per field; a property a call per use, and a run reads
+        # them many times)
+        d = self.__dict__
+        d.update(zip(ModelArrays._fields, self.arrays, strict=True))
+        n_comp, n_dyn, n_bar = self.arrays.n_comp, self.arrays.n_dyn, self.arrays.area.shape[-1]
+        d.update(n_cells=n_dyn - n_comp, n_bar=n_bar, n_state=n_dyn + 5 * n_comp + 2 * n_bar, q_elim=n_dyn,
+                 q_degr=n_dyn + n_comp, q_perm=n_dyn + n_comp + n_bar, q_lost=n_dyn + 3 * n_comp + 2 * n_bar)
+
+    #: Number of barrier cells.
+    n_cells: int = field(init=False, repr=False, compare=False)
+    #: Number of barriers.
+    n_bar: int = field(init=False, repr=False, compare=False)
+    #: Length of the full state vector.
+    n_state: int = field(init=False, repr=False, compare=False)
+    # offsets of the cumulative amounts (q_supply, q_infused and q_sampled are fields of ``arrays``)
+    #: Offset of the eliminated amounts.
+    q_elim: int = field(init=False, repr=False, compare=False)
+    #: Offset of the degraded amounts.
+    q_degr: int = field(init=False, repr=False, compare=False)
+    #: Offset of the permeated amounts.
+    q_perm: int = field(init=False, repr=False, compare=False)
+    #: Offset of the amounts lost to the air.
+    q_lost: int = field(init=False, repr=False, compare=False)
 
     def with_arrays(self, arrays: ModelArrays) -> CompiledModel:
         """The same model with other numbers (for example the links as a run's events left them)."""
         return dataclasses.replace(self, arrays=arrays)
-
-    @property
-    def n_cells(self) -> int:
-        """Number of barrier cells."""
-        return self.n_dyn - self.n_comp
-
-    @property
-    def n_bar(self) -> int:
-        """Number of barriers."""
-        return self.area.shape[-1]
-
-    @property
-    def n_state(self) -> int:
-        """Length of the full state vector."""
-        return self.n_dyn + 5 * self.n_comp + 2 * self.n_bar
-
-    # offsets of the cumulative amounts (q_supply, q_infused and q_sampled are fields of ``arrays``)
-    @property
-    def q_elim(self) -> int:
-        """Offset of the eliminated amounts."""
-        return self.n_dyn
-
-    @property
-    def q_degr(self) -> int:
-        """Offset of the degraded amounts."""
-        return self.n_dyn + self.n_comp
-
-    @property
-    def q_perm(self) -> int:
-        """Offset of the permeated amounts."""
-        return self.n_dyn + self.n_comp + self.n_bar
-
-    @property
-    def q_lost(self) -> int:
-        """Offset of the amounts lost to the air."""
-        return self.n_dyn + 3 * self.n_comp + 2 * self.n_bar
 
     @cached_property
     def is_linear(self) -> bool:

@@ -20,12 +20,28 @@ from typing import NamedTuple
 import numpy as np
 from numba import njit
 
-__all__ = ["CHANGING", "INNER", "SHARED", "ModelArrays", "stack_arrays", "subject", "working_copy"]
+__all__ = ["CHANGING", "INNER", "SHARED", "ModelArrays", "larger", "smaller", "stack_arrays", "subject", "working_copy"]
 
 #: Options of the kernels that only compiled code calls: no Python or C-callable wrappers. Each
 #: compiled caller links in (and LLVM optimises and emits again) the whole code library of every
 #: callee, wrappers included; leaving the unused wrappers out shortens the first-ever compile.
 INNER = dict(cache=True, error_model="numpy", no_cpython_wrapper=True, no_cfunc_wrapper=True)
+
+
+@njit(inline="always")
+def larger(a, b):
+    """``max(a, b)`` of two numbers as numba's builtin gives it (``b`` where ``b > a``, else ``a``:
+    the same value for a NaN and for signed zeros), written out: numba compiles the builtin as a
+    function of its own and calls it for every element, which keeps a loop out of vector lanes (a
+    barrier's content and its clipped content over 150 cells: 53 ns with the builtin, 12 ns so)."""
+    return b if b > a else a
+
+
+@njit(inline="always")
+def smaller(a, b):
+    """``min(a, b)`` of two numbers as numba's builtin gives it (``b`` where ``b < a``, else ``a``),
+    written out for the reason of :func:`larger`."""
+    return b if b < a else a
 
 
 class ModelArrays(NamedTuple):

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
-from .arrays import INNER
+from .arrays import INNER, larger, smaller
 from .compiled import CompiledModel
 
 __all__ = ["Rows", "Taps", "chain_taps", "empty_taps", "flush_chain_guard", "take_chain_row", "take_row", "taps_of"]
@@ -118,7 +118,7 @@ def take_row(y, r, taps, cap, nd):
         for i in range(yc.shape[0]):
             v = yc[i] * cc[i]
             acc += v
-            pos += max(v, 0.0)
+            pos += larger(v, 0.0)
         cont[r, b] = acc
         clip[r, b] = pos
     if r == cols.shape[0] - 1:
@@ -130,8 +130,8 @@ def take_row(y, r, taps, cap, nd):
     low = 0.0
     neg = 0.0
     for i in range(nd):
-        low = min(low, yd[i] * sd[i])
-        neg = min(neg, yd[i])
+        low = smaller(low, yd[i] * sd[i])
+        neg = smaller(neg, yd[i])
     fin = 0.0
     for i in range(y.shape[0]):
         fin += y[i] * 0.0  # NaN for a NaN or an infinity
@@ -168,7 +168,7 @@ def take_chain_row(ys, dst, r, taps, pos, capc, isc, plo, phi, mins):
         for a in range(yc.shape[0]):
             v = yc[a] * cc[a]
             acc += v
-            tot += max(v, 0.0)
+            tot += larger(v, 0.0)
         cont[r, b] = acc
         clip[r, b] = tot
     low = mins[0]

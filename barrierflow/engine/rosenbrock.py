@@ -54,7 +54,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import ScenarioError
-from .arrays import working_copy
+from .arrays import larger, smaller, working_copy
 from .compiled import CompiledModel
 from .exported import Rows, empty_taps, new_buffers, take_row, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
@@ -1033,12 +1033,12 @@ def _interval(y, t_end, t_out, out, m, infusion, clamp, sargs, coef, rtol, atol,
             k6 = kk[5]
             for i in range(n):  # no sum in this loop, so that it vectorises (c2 is free until the output)
                 yn[i] = ya[i] + k6[i]
-                sk = atol[i] + rtol * max(abs(y[i]), abs(yn[i]))
+                sk = atol[i] + rtol * larger(abs(y[i]), abs(yn[i]))
                 q = k6[i] / sk
                 c2[i] = q * q
             err = math.sqrt(_sum4(c2) / n)
             for i in range(nc):  # apart from the loop above, which stays free of branches
-                err = max(err, abs(k6[i]) / (atol[i] + rtol * max(abs(y[i]), abs(yn[i]))))
+                err = larger(err, abs(k6[i]) / (atol[i] + rtol * larger(abs(y[i]), abs(yn[i]))))
             if not math.isfinite(err):
                 h *= 0.25
                 last = False
@@ -1198,15 +1198,15 @@ def _take_step(y, yn, c2, c3, t, h, t_new, t_out, io, row0, taps, cap, nc, nd, l
             i = susp[k]
             v = yn[i] if s >= 1.0 else y[i] + s * ((yn[i] - y[i]) + s1 * (c2[i] + s * c3[i]))
             if v < 0.0:
-                low = min(low, v * inv_scale[i])
-                neg = min(neg, v)
+                low = smaller(low, v * inv_scale[i])
+                neg = smaller(neg, v)
                 if i >= nc:
                     while b < nb and bstop[b] <= i:
                         b += 1
                     if b < nb and bstart[b] <= i:
                         clip[r, b] -= cap[i] * v
         for b in range(nb):  # a sum of cells counted at 0 or more is not below 0 (rounding of the four contents)
-            clip[r, b] = max(clip[r, b], 0.0)
+            clip[r, b] = larger(clip[r, b], 0.0)
         io += 1
     guard[0] = low
     guard[1] = neg

@@ -62,7 +62,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import ScenarioError
-from .arrays import INNER, working_copy
+from .arrays import INNER, larger, working_copy
 from .compiled import CompiledModel
 from .exact_chain import (
     MAX_MODES,
@@ -319,16 +319,10 @@ def _central(t, t_thr, k_all, lam, ilam, z0, gz, vyc, csum, cfast, dd, ee, n, x0
 
 
 @njit(inline="always", error_model="numpy")
-def _amplitudes(t, wa, wb, kz, L, zs, zi):
+def _amplitudes(t, wa, wb, kz, k_all, lam, ilam, z0, gz, has_g, zs, zi):
     """The amplitudes ``zs`` of every computed mode at local time ``t`` (> 0, past the rational
     approximation's times) and their integrals ``zi``: the linear part's exact ones plus the
     integrated amplitudes ``wa`` and their integrals ``wb`` of the first ``kz``."""
-    k_all = L[9]
-    lam = L[5]
-    z0 = L[10]
-    gz = L[11]
-    has_g = L[17]
-    ilam = L[26]
     for s in range(k_all):
         el = lam[s]
         x = el * t
@@ -345,18 +339,18 @@ def _amplitudes(t, wa, wb, kz, L, zs, zi):
 
 
 @njit(inline="always", error_model="numpy")
-def _row_values(t, wa, wb, wu, kz, r, y0, g, L, P, W):
-    """Row ``r`` of the block of rows ``W`` (see :func:`_flush_rows`) at local time ``t`` (past the
-    rational approximation's times): the amplitudes of the modes and of the static part (the
-    elimination u, whose pattern follows the modes') and the cumulative amounts. Returns False
-    when the Newton iteration of the saturable concentration fails."""
-    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
-    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
-    zsb = W[1]
-    qb = W[3]
+def _row_values(t, wa, wb, wu, kz, r, y0, g, sc, lam, ilam, z0, gz, vy, yfast, wt, qconst, qslope, qm, uq, zi, qs, zsb,
+                qb, tb):
+    """Row ``r`` of the block of rows (see :func:`_flush_rows`: ``zsb`` its amplitudes, ``qb`` its
+    cumulative amounts, ``tb`` its times) at local time ``t`` (past the rational approximation's
+    times): the amplitudes of the modes and of the static part (the elimination u, whose pattern
+    follows the modes') and the cumulative amounts. Returns False when the Newton iteration of the
+    saturable concentration fails. ``sc`` holds the run's numbers (:func:`_interval`). Arrays and
+    a tuple of numbers, not the run's tuples of arrays, as arguments: a tuple of arrays unpacked
+    in a helper inlined into a loop costs an atomic reference count per array at each call."""
+    n, k_all, has_g, pc, s_f, vmax, km, icap, nd, n_state = sc
     zr = zsb[r]
-    _amplitudes(t, wa, wb, kz, L, zr, zi)
+    _amplitudes(t, wa, wb, kz, k_all, lam, ilam, z0, gz, has_g, zr, zi)
     b = yfast[pc]  # the state at the saturable compartment before the static part, in the order of _state
     for s in range(k_all):
         b += vy[s, pc] * zr[s]
@@ -366,24 +360,22 @@ def _row_values(t, wa, wb, wu, kz, r, y0, g, L, P, W):
     cumulative_at(t, qconst, qslope, qm, qm.shape[0], wt, zi, k_all, qr_.shape[0], qs)
     for q in range(qr_.shape[0]):
         qr_[q] = y0[nd + q] + g[nd + q] * t + qs[q] + uq[q] * wu
-    W[4][r] = t
+    tb[r] = t
     return ok
 
 
 @njit(inline="always", error_model="numpy")
-def _flush_rows(nb, y0, g, out, full, row, taps, row0, cap, L, P, W):
-    """Keep the ``nb`` rows of the block ``W`` = (patterns, amplitudes, states, cumulative amounts,
-    times, row indices, (chained, pos, plo, phi, capc, isc), guard minima): their states in chain
-    order four at a time (:func:`~barrierflow.engine.exact_chain.add_modes`, the static part's
-    pattern after the modes'), kept from there as the chain path keeps its rows
+def _flush_rows(nb, y0, g, out, full, row, taps, row0, cap, n, idx, yfast, alone, fixed, n_fixed, nd, vyp, zsb, ysb,
+                qb, tb, rix, chained, pos, plo, phi, capc, isc, mins):
+    """Keep the ``nb`` rows of the block of rows (patterns ``vyp``, amplitudes ``zsb``, states
+    ``ysb``, cumulative amounts ``qb``, times ``tb``, row indices ``rix``; ``chained, pos, plo,
+    phi, capc, isc`` as :func:`~barrierflow.engine.exported.chain_taps` gives them, ``mins`` the
+    guard's minima): their states in chain order four at a time
+    (:func:`~barrierflow.engine.exact_chain.add_modes`, the static part's pattern after the
+    modes'), kept from there as the chain path keeps its rows
     (:func:`~barrierflow.engine.exported.take_chain_row`), or scattered into the full state where
     that is asked for, for the buffers' last row, or where the barriers are not neighbours on the
     chain. Returns the number of rows kept in chain order."""
-    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
-    nd = P[7]
-    vyp, zsb, ysb, qb, tb, rix, ct, mins = W
-    chained, pos, plo, phi, capc, isc = ct
     last_row = taps[4].shape[0] - 1
     for r in range(4):
         yr = ysb[r]
@@ -454,7 +446,7 @@ def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
                 acc += wt[s, q] * wb[s]
             qs[q] = acc
     else:
-        _amplitudes(t, wa, wb, kz, L, zs, zi)
+        _amplitudes(t, wa, wb, kz, k_all, lam, ilam, z0, gz, has_g, zs, zi)
         # the modes decayed below exp(-60) add nothing to the states (without forcing), nor do
         # the slow ones beyond those integrated
         kb = k_all
@@ -485,24 +477,10 @@ def _state(t, wa, wb, wu, kz, dst, y0, g, L, P, out_c):
 
 # ---------------------------------------------------------------- the slow modes' system
 @njit(inline="always", error_model="numpy")
-def _central_at(t, L, P, R):
-    """c_lin(t) and dc_lin/dt (:func:`_central`) from the run's tuples."""
-    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
-    pc = P[0]
-    (beta, vyc, csum, cfast, tvc, r0, cw4, t_lim) = R
-    return _central(t, t_lim, k_all, lam, ilam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc, tvc, cw4)
-
-
-@njit(inline="always", error_model="numpy")
-def _rates(cl, dcl, wa, kz, fa, L, P, R):
+def _rates(cl, dcl, wa, kz, fa, lam, beta, vyc, s_f, vmax, km, icap):
     """The rates of the integrated system where the linear solution's concentration is ``cl``
-    (its time derivative ``dcl``; :func:`_central_at`): fa (the amplitudes' rates) in place;
+    (its time derivative ``dcl``; :func:`_central`): fa (the amplitudes' rates) in place;
     returns (u, du/dc / (1 - s_f du/dc), dc_lin/dt, ok)."""
-    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
-    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
-    (beta, vyc, csum, cfast, tvc, r0, cw4, t_lim) = R
     b = cl
     for s in range(kz):
         b += vyc[s] * wa[s]
@@ -532,7 +510,8 @@ def _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam, ra, rb, ru, ka, kb):
 
 
 @njit(inline="always", error_model="numpy")
-def _step_end(t, na, nb, nu, ka, kb, ku, gam, kz, y0, g, L, P, S, atol, rtol, nc, n_state, out_c):
+def _step_end(t, na, nb, nu, ka, kb, ku, gam, kz, y0, g, atol, rtol, out_c, sc, idx, vy, lam, ilam, z0, gz, yfast, wt,
+              qconst, qslope, qm, uq, zi, qs, S):
     """The state at the end of a step (local time ``t``, amplitudes ``na``, integrals ``nb`` and
     ``nu``) in chain order into ``S``'s ``new_c`` and ``new_q``, and the error of the step's
     estimate (ka, kb, ku) mapped onto every state, both in one pass over the states: the state
@@ -541,14 +520,13 @@ def _step_end(t, na, nb, nu, ka, kb, ku, gam, kz, y0, g, L, P, S, atol, rtol, nc
     the root mean square over all states and the largest over the compartments of error / (atol
     + rtol max(|y(t)|, |y(t + h)|)); the states off the chain and those alone carry no error,
     whether the Newton iteration of the saturable concentration converged); ``out_c[0]`` gets the
-    saturable compartment's concentration."""
-    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
-     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
-    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
+    saturable compartment's concentration. ``sc`` holds the run's numbers (:func:`_interval`), ``S``
+    the step ends' work space."""
+    n, k_all, has_g, pc, s_f, vmax, km, icap, nd, n_state = sc
     vyp, zse, yse, atc, alone_at, comp_at, cur_c, new_c, cur_q, new_q, err_q = S
     zr = zse[0]
     er = zse[1]
-    _amplitudes(t, na, nb, kz, L, zr, zi)
+    _amplitudes(t, na, nb, kz, k_all, lam, ilam, z0, gz, has_g, zr, zi)
     b = yfast[pc]  # the state at the saturable compartment before the static part
     for s in range(k_all):
         b += vy[s, pc] * zr[s]
@@ -587,12 +565,12 @@ def _step_end(t, na, nb, nu, ka, kb, ku, gam, kz, y0, g, L, P, S, atol, rtol, nc
         e_n[a] = 0.0
     acc = 0.0
     for a in range(n):
-        w = e_n[a] / (atc[a] + rtol * max(abs(cur_c[a]), abs(y_n[a])))
+        w = e_n[a] / (atc[a] + rtol * larger(abs(cur_c[a]), abs(y_n[a])))
         acc += w * w
         new_c[a] = y_n[a]
     err_c = 0.0
     for a in comp_at:
-        err_c = max(err_c, abs(e_n[a]) / (atc[a] + rtol * max(abs(cur_c[a]), abs(y_n[a]))))
+        err_c = larger(err_c, abs(e_n[a]) / (atc[a] + rtol * larger(abs(cur_c[a]), abs(y_n[a]))))
     nqd = new_q.shape[0]
     cumulative_at(t, qconst, qslope, qm, qm.shape[0], wt, zi, k_all, nqd, qs)
     for q in range(nqd):
@@ -604,7 +582,7 @@ def _step_end(t, na, nb, nu, ka, kb, ku, gam, kz, y0, g, L, P, S, atol, rtol, nc
             v += wt[s, q] * kb[s]
         err_q[q] = v
     for q in range(nqd):
-        w = err_q[q] / (atol[nd + q] + rtol * max(abs(cur_q[q]), abs(new_q[q])))
+        w = err_q[q] / (atol[nd + q] + rtol * larger(abs(cur_q[q]), abs(new_q[q])))
         acc += w * w
     return max(math.sqrt(acc / n_state), err_c), ok
 
@@ -616,7 +594,6 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
     path keeps them), the state at ``t_end`` into ``y``. The amplitudes start from ``carry`` and
     end there. ``W`` is the block of rows (:func:`_flush_rows`), ``S`` the step ends' work space
     (:func:`_step_end`). Returns (status, the next step size)."""
-    nd = P[7]
     n_state = y.shape[0]
     ca, cc, cd = coef
     n_t = tau.shape[0]
@@ -645,28 +622,25 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
     c3b = np.zeros(nw)
     cur = np.zeros(n_state)
     row = out[0] if out.shape[0] > 0 else cur
-    cur_c = S[6]
-    new_c = S[7]
-    cur_q = S[8]
-    new_q = S[9]
-    n = L[0]
-    idx = L[1]
+    # the run's tuples unpacked once, here: the helpers inlined into the step loop take their
+    # arrays one by one (a tuple unpacked in each would cost an atomic reference count per array
+    # and per call: 130,000 per run of the benchmark's saturable variant)
+    (n, idx, tv, dd, ee, lam, vec, vy, wt, k_all, z0, gz, yfast, qconst, qslope, x0, tg, has_g, t_thr, alone,
+     fixed, n_fixed, nq, qr, qc, qv, ilam, qm) = L
+    (pc, s_f, sfy, uq, vmax, km, icap, nd, xs, xi, cw, ys, zs, zi, qs) = P
+    (beta, vyc, csum, cfast, tvc, r0, cw4, t_lim) = R
+    vyp, zse, yse, atc, alone_at, comp_at, cur_c, new_c, cur_q, new_q, err_q = S
+    _vyp, zsb, ysb, qb, tb, rix, ct, mins = W
+    chained, pos, plo, phi, capc, isc = ct
+    sc = (n, k_all, has_g, pc, s_f, vmax, km, icap, nd, n_state)  # numbers: no reference counts
     cbuf = np.zeros(1)
-    lam = L[5]
-    beta = R[0]
-    vyc = R[1]
-    s_f = P[1]
-    vmax = P[4]
-    km = P[5]
-    icap = P[6]
     rho = 0.0  # the rank-one part of the Jacobian, beta gam vyc^T, has the eigenvalue gam rho
     for s in range(kz):
         rho += vyc[s] * beta[s]
     rho = abs(rho)
-    t_rat = L[18]
-    t_lim = R[7]  # before it the modes not computed add to the saturable compartment
-    rix = W[5]
-    n_pend = 0
+    t_rat = t_thr
+    # t_lim: before it the modes not computed add to the saturable compartment
+    n_pend = np.int64(0)  # handed to _row_values and _flush_rows: not a literal
     n_kept = 0
     uo = 0.0
     io = 0
@@ -707,8 +681,9 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
         if t + 1.0001 * h >= t_end:  # step cut short at the interval's end
             h = t_end - t
             last = True
-        cl0, dcl0 = _central_at(t, L, P, R)
-        u0, gam0, dcl0, ok = _rates(cl0, dcl0, wa, kz, fa0, L, P, R)
+        cl0, dcl0 = _central(t, t_lim, k_all, lam, ilam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg, r0, has_g, pc,
+                             tvc, cw4)
+        u0, gam0, dcl0, ok = _rates(cl0, dcl0, wa, kz, fa0, lam, beta, vyc, s_f, vmax, km, icap)
         if not ok:
             return FAIL_NEWTON, h
         # the time derivative of the rates (the linear solution moves c): non-autonomous RODAS4
@@ -745,9 +720,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                     dcl_s = dcl0
                 else:
                     if ts != t_cl:  # the last two stages share their time
-                        cl_s, dcl_s = _central_at(ts, L, P, R)
+                        cl_s, dcl_s = _central(ts, t_lim, k_all, lam, ilam, z0, gz, vyc, csum, cfast, dd, ee, n, x0,
+                                               tg, r0, has_g, pc, tvc, cw4)
                         t_cl = ts
-                    u_s, gam_s, dcl_s, ok = _rates(cl_s, dcl_s, ya, kz, fa, L, P, R)
+                    u_s, gam_s, dcl_s, ok = _rates(cl_s, dcl_s, ya, kz, fa, lam, beta, vyc, s_f, vmax, km, icap)
                     if not ok:
                         return FAIL_NEWTON, h
                     gdev = max(gdev, abs(gam_s - gam0))
@@ -790,8 +766,8 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                 nu += ca[5, j] * kku[j]
             nu += kku[5]
             t_new = t_end if last else t + h
-            err, ok = _step_end(t_new, na, nb, nu, kka[5], kkb[5], kku[5], gam0, kz, y0, g, L, P, S, atol, rtol, nc,
-                                n_state, cbuf)
+            err, ok = _step_end(t_new, na, nb, nu, kka[5], kkb[5], kku[5], gam0, kz, y0, g, atol, rtol, cbuf, sc, idx,
+                                vy, lam, ilam, z0, gz, yfast, wt, qconst, qslope, qm, uq, zi, qs, S)
             if not ok:
                 err = np.inf
             if ok:
@@ -800,7 +776,8 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                     # the step ends take the modes not computed as decayed, which they are not yet
                     # at the compartment: its concentration there as the stages have it (the
                     # rational approximation), as the interval's end state and the rows
-                    cl_e, dcl_e = _central_at(t_new, L, P, R)
+                    cl_e, dcl_e = _central(t_new, t_lim, k_all, lam, ilam, z0, gz, vyc, csum, cfast, dd, ee, n, x0, tg,
+                                           r0, has_g, pc, tvc, cw4)
                     for s in range(kz):
                         cl_e += vyc[s] * na[s]
                     c_end, ok = _conc(cl_e, s_f, vmax, km, icap)
@@ -886,16 +863,20 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                     take_row(dst, row0 + io, taps, cap, nd)
                 else:  # the others four at a time, in chain order
                     if sx >= 1.0:
-                        ok = _row_values(t_new, na, nb, nu, kz, n_pend, y0, g, L, P, W)
+                        ok = _row_values(t_new, na, nb, nu, kz, n_pend, y0, g, sc, lam, ilam, z0, gz, vy, yfast, wt,
+                                         qconst, qslope, qm, uq, zi, qs, zsb, qb, tb)
                     else:
-                        ok = _row_values(tau[io], ya, yb, uo, kz, n_pend, y0, g, L, P, W)
+                        ok = _row_values(tau[io], ya, yb, uo, kz, n_pend, y0, g, sc, lam, ilam, z0, gz, vy, yfast, wt,
+                                         qconst, qslope, qm, uq, zi, qs, zsb, qb, tb)
                     if not ok:
                         return FAIL_NEWTON, h
                     rix[n_pend] = io
                     n_pend += 1
                     if n_pend == 4:
-                        n_kept += _flush_rows(n_pend, y0, g, out, full, row, taps, row0, cap, L, P, W)
-                        n_pend = 0
+                        n_kept += _flush_rows(n_pend, y0, g, out, full, row, taps, row0, cap, n, idx, yfast, alone,
+                                              fixed, n_fixed, nd, vyp, zsb, ysb, qb, tb, rix, chained, pos, plo, phi,
+                                              capc, isc, mins)
+                        n_pend = np.int64(0)
                 io += 1
         for s in range(kz):
             wa[s] = na[s]
@@ -915,9 +896,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
         h_carry = h_new if not last else max(h_new, h_carry)
         h = h_new
     if n_pend:
-        n_kept += _flush_rows(n_pend, y0, g, out, full, row, taps, row0, cap, L, P, W)
+        n_kept += _flush_rows(n_pend, y0, g, out, full, row, taps, row0, cap, n, idx, yfast, alone, fixed, n_fixed,
+                              nd, vyp, zsb, ysb, qb, tb, rix, chained, pos, plo, phi, capc, isc, mins)
     if n_kept:
-        flush_chain_guard(W[7], taps, y0, W[6][1])
+        flush_chain_guard(mins, taps, y0, pos)
     # the state at the interval's end: off the chain as it started, the chain and the cumulative
     # amounts from the last step's end; before t_rat the modes not computed have not decayed, and
     # the step ends (the decayed modes' constants) leave them out: there the rational

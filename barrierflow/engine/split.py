@@ -494,18 +494,20 @@ def _rates(cl, dcl, wa, kz, fa, lam, beta, vyc, s_f, vmax, km, icap):
 
 
 @njit(inline="always", error_model="numpy")
-def _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam, ra, rb, ru, ka, kb):
+def _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam, ra, rb, ru, kka, kkb, st):
     """Solve (fac I - J) k = r for the integrated system (J: diag(lam) + beta gam vyc^T on the
     amplitudes, the identity into their integrals, gam vyc^T into the integral of u) by Sherman and
-    Morrison; ``ifac`` = 1 / fac, ``inv_d`` = 1 / (fac - lam), ``den`` = 1 - gam vyc . (inv_d
-    beta) (the same for every stage of a step); returns the component of the integral of u."""
+    Morrison, k into row ``st`` of ``kka`` (amplitudes) and ``kkb`` (their integrals); ``ifac`` =
+    1 / fac, ``inv_d`` = 1 / (fac - lam), ``den`` = 1 - gam vyc . (inv_d beta) (the same for every
+    stage of a step); returns the component of the integral of u."""
     num = 0.0
     for s in range(kz):
         num += vyc[s] * ra[s] * inv_d[s]
     sig = num / den  # vyc . ka
     for s in range(kz):
-        ka[s] = (ra[s] + beta[s] * gam * sig) * inv_d[s]
-        kb[s] = (rb[s] + ka[s]) * ifac
+        ka = (ra[s] + beta[s] * gam * sig) * inv_d[s]
+        kka[st, s] = ka
+        kkb[st, s] = (rb[s] + ka) * ifac
     return (ru + gam * sig) * ifac
 
 
@@ -707,11 +709,10 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                 # over the modes innermost, so that they run in vector lanes)
                 for s in range(kz):
                     ya[s] = wa[s]
-                for j in range(st):
+                for j in range(st):  # kka[j, s], not a view kka[j]: a view in a loop is a reference count
                     cj = ca[st, j]
-                    kj = kka[j]
                     for s in range(kz):
-                        ya[s] += cj * kj[s]
+                        ya[s] += cj * kka[j, s]
                 if st == 0:
                     for s in range(kz):
                         fa[s] = fa0[s]
@@ -726,12 +727,12 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                     u_s, gam_s, dcl_s, ok = _rates(cl_s, dcl_s, ya, kz, fa, lam, beta, vyc, s_f, vmax, km, icap)
                     if not ok:
                         return FAIL_NEWTON, h
-                    gdev = max(gdev, abs(gam_s - gam0))
+                    gdev = larger(gdev, abs(gam_s - gam0))
                 # du/dt at the stage point: u' dc/dt, dc/dt = (dc_lin/dt + vyc . a') / (1 - s_f u')
                 dsum = dcl_s
                 for s in range(kz):
                     dsum += vyc[s] * fa[s]
-                umax = max(umax, abs(gam_s * dsum))
+                umax = larger(umax, abs(gam_s * dsum))
                 hd = h * STAGE_GAMMA[st]
                 ru = u_s + hd * ft
                 for s in range(kz):
@@ -739,25 +740,21 @@ def _interval(y, t_end, tau, out, full, taps, row0, cap, L, P, R, W, S, kz, coef
                     ra[s] = fa[s] + hd * beta[s] * ft
                 for j in range(st):
                     cj = cc[st, j] * ih
-                    kj = kka[j]
-                    bj = kkb[j]
                     for s in range(kz):
-                        ra[s] += cj * kj[s]
-                        rb[s] += cj * bj[s]
+                        ra[s] += cj * kka[j, s]
+                        rb[s] += cj * kkb[j, s]
                 for j in range(st):
                     ru += cc[st, j] * ih * kku[j]
-                kku[st] = _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam0, ra, rb, ru, kka[st], kkb[st])
+                kku[st] = _lin_solve(ifac, kz, inv_d, den, beta, vyc, gam0, ra, rb, ru, kka, kkb, st)
             # the new solution: the last stage's point plus k_6 (RODAS4 is stiffly accurate)
             for s in range(kz):
                 na[s] = wa[s]
                 nb[s] = wb[s]
             for j in range(5):
                 cj = ca[5, j]
-                kj = kka[j]
-                bj = kkb[j]
                 for s in range(kz):
-                    na[s] += cj * kj[s]
-                    nb[s] += cj * bj[s]
+                    na[s] += cj * kka[j, s]
+                    nb[s] += cj * kkb[j, s]
             for s in range(kz):
                 na[s] += kka[5, s]
                 nb[s] += kkb[5, s]

@@ -36,11 +36,11 @@ from .arrays import INNER
 from .compiled import CompiledModel
 from .exported import Rows, taps_of
 
-__all__ = ["DERIVED_EXCESS", "FINAL_TOLERANCE", "MAGNITUDE_FLOOR", "MASS_BALANCE_LIMIT", "NEGATIVE_LIMIT",
-           "PEAK_TOLERANCE", "RESCALE_LIMIT", "TOLERANCE_EXCESS", "Ledger", "busiest_part", "check",
-           "check_magnitudes", "check_rows", "describe_state", "judge", "ledger", "ledger_rows", "ledger_weights",
-           "magnitude_findings", "magnitudes_failed", "observed_scale", "parts", "passes", "population_magnitudes",
-           "relative_error_of", "rows_ledger", "verdict"]
+__all__ = ["DERIVED_EXCESS", "DERIVED_FINDING", "FINAL_TOLERANCE", "MAGNITUDE_FLOOR", "MASS_BALANCE_LIMIT",
+           "NEGATIVE_LIMIT", "PEAK_TOLERANCE", "RESCALE_LIMIT", "TOLERANCE_EXCESS", "Ledger", "busiest_part",
+           "check", "check_magnitudes", "check_rows", "describe_state", "judge", "ledger", "ledger_rows",
+           "ledger_weights", "magnitude_findings", "magnitudes_failed", "observed_scale", "parts", "passes",
+           "population_magnitudes", "relative_error_of", "rows_ledger", "verdict"]
 
 MASS_BALANCE_LIMIT = 1e-6
 """Largest relative mass-balance error of a result reported as a success."""
@@ -496,6 +496,11 @@ times the contract; 0.13 mg removed from 42 L, 55 times the contract, at 1.9e3).
 :data:`TOLERANCE_EXCESS`, a guard against estimates far off, not a proof."""
 
 
+DERIVED_FINDING = "exported columns far below the tolerance of the states they are made from"
+"""The words of :func:`check_magnitudes`' finding on derived columns (after their count), by which
+:func:`~barrierflow.engine.solve` tells it from the others."""
+
+
 RESCALE_LIMIT = 1e-3
 """The most one rescale (:func:`observed_scale`) lowers a state's scale, as a fraction: the robust
 integrator's atol (1e-11) times 1e-3 of a scale is still some 45 times the rounding of a value at
@@ -554,8 +559,8 @@ def check_magnitudes(model: CompiledModel, rows: Rows, initial: float, event_dos
         if n_der:
             what = (f"the flux of barrier '{m.barrier_ids[int(which)]}'" if kind == 0 else
                     f"what events removed from compartment '{m.comp_ids[int(which)]}'")
-            found.append(f"{int(n_der)} exported columns far below the tolerance of the states they are made from "
-                         f"(worst: {what}, tolerance {dworst:.3g} times the accuracy promised on its peak)")
+            found.append(f"{int(n_der)} {DERIVED_FINDING} (worst: {what}, tolerance {dworst:.3g} times the accuracy "
+                         "promised on its peak)")
     return found
 
 

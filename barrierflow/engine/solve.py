@@ -297,7 +297,7 @@ def solve(
         exact = None
         # (not for derived columns alone: the exact chain path's rounding, about 1e-7 of each
         # state's scale, is no better for a column far below it; extreme patch 92 of the
-        # adversarial sweep, a flux found at 173 times its promise, came back from the chain path
+        # adversarial sweep, its flux at 173 times its promise flagged at a factor of 100, came back from the chain path
         # with an eliminated amount 43 times the contract off, from RODAS4 rescaled within it)
         derived = small and all(DERIVED_FINDING in f for f in found)
         if fallback and small and not exact_tried and not derived:

@@ -539,7 +539,7 @@ def _check_integrator(integrator) -> None:
 
 
 def _output_times(scenario: Scenario, marks: np.ndarray) -> np.ndarray:
-    return _snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(scenario.duration, 1.0))
+    return _snap(np.array(scenario.output_grid(), dtype=float), marks, 1e-9 * max(scenario.duration, 1.0), merge=True)
 
 
 def simulate_many(scenarios: Sequence[Scenario], *, integrator: RosenbrockIntegrator | ExactIntegrator | None = None,

@@ -36,11 +36,11 @@ from .arrays import INNER
 from .compiled import CompiledModel
 from .exported import Rows, taps_of
 
-__all__ = ["DERIVED_EXCESS", "DERIVED_FINDING", "FINAL_TOLERANCE", "MAGNITUDE_FLOOR", "MASS_BALANCE_LIMIT",
-           "NEGATIVE_LIMIT", "PEAK_TOLERANCE", "RESCALE_LIMIT", "TOLERANCE_EXCESS", "Ledger", "busiest_part",
-           "check", "check_magnitudes", "check_rows", "describe_state", "judge", "ledger", "ledger_rows",
-           "ledger_weights", "magnitude_findings", "magnitudes_failed", "observed_scale", "parts", "passes",
-           "population_magnitudes", "relative_error_of", "rows_ledger", "verdict"]
+__all__ = ["DERIVED_EXCESS", "DERIVED_FINDING", "FINAL_TOLERANCE", "Ledger", "MAGNITUDE_FLOOR", "MASS_BALANCE_LIMIT",
+           "NEGATIVE_LIMIT", "PEAK_TOLERANCE", "POPULATION_FOUND", "RESCALE_LIMIT", "TOLERANCE_EXCESS", "busiest_part",
+           "check", "check_magnitudes", "check_rows", "derived_findings", "describe_state", "judge", "ledger",
+           "ledger_rows", "ledger_weights", "magnitude_findings", "magnitudes_failed", "observed_scale", "parts",
+           "passes", "population_magnitudes", "relative_error_of", "rows_ledger", "verdict"]
 
 MASS_BALANCE_LIMIT = 1e-6
 """Largest relative mass-balance error of a result reported as a success."""
@@ -559,19 +559,27 @@ def check_magnitudes(model: CompiledModel, rows: Rows, initial: float, event_dos
             rows.cols, _out_links(m), t.pos, t.bstart, t.bstop, m.link_p, m.link_q, m.link_c, m.link_d,
             m.inv_partition, m.scale, m.has_volume, m.capacity, np.ascontiguousarray(event_removed), float(atol),
             float(out[7]), float(duration))
-        if n_der:
-            what = (f"the flux of barrier '{m.barrier_ids[int(which)]}'" if kind == 0 else
-                    f"what events removed from compartment '{m.comp_ids[int(which)]}'")
-            found.append(f"{int(n_der)} {DERIVED_FINDING} (worst: {what}, tolerance {dworst:.3g} times the accuracy "
-                         "promised on its peak)")
+        found += derived_findings(m, n_der, dworst, kind, which)
     return found
+
+
+def derived_findings(model: CompiledModel, n_der: float, worst: float, kind: float, which: float) -> list[str]:
+    """The finding of :func:`_derived_promise` (its summary) in words (empty when none)."""
+    if not n_der:
+        return []
+    m = model
+    what = (f"the flux of barrier '{m.barrier_ids[int(which)]}'" if kind == 0 else
+            f"what events removed from compartment '{m.comp_ids[int(which)]}'")
+    return [f"{int(n_der)} {DERIVED_FINDING} (worst: {what}, tolerance {worst:.3g} times the accuracy "
+            "promised on its peak)"]
 
 
 def magnitude_findings(model: CompiledModel, keep: np.ndarray, out: np.ndarray) -> list[str]:
     """The findings of :func:`check_magnitudes` in words, from its compiled pass's summary ``out``
-    (:func:`_magnitudes`) over the columns ``keep`` of ``model``'s states."""
+    (:func:`_magnitudes`) over the columns ``keep`` of ``model``'s states; a population subject's
+    summary (:func:`population_magnitudes`) adds the second pass's (:func:`derived_findings`)."""
     m = model
-    n_over, worst, j, neg_j, neg_v, rem_i, rem_v, _big = out.tolist()
+    n_over, worst, j, neg_j, neg_v, rem_i, rem_v, _big = out[:8].tolist()
     found = []
     if n_over:
         found.append(f"{int(n_over)} quantities far below the magnitude their absolute tolerance came from "
@@ -581,6 +589,8 @@ def magnitude_findings(model: CompiledModel, keep: np.ndarray, out: np.ndarray) 
         found.append(f"{describe_state(m, int(keep[int(neg_j)]))} went below zero ({neg_v:.3g} mg)")
     if rem_i >= 0:
         found.append(f"what was removed from compartment '{m.comp_ids[int(rem_i)]}' went below zero ({rem_v:.3g} mg)")
+    if len(out) >= POPULATION_FOUND:
+        found += derived_findings(m, *out[8:POPULATION_FOUND].tolist())
     return found
 
 
@@ -779,14 +789,19 @@ def _magnitudes(cols, keep, bstart, bstop, cap, has_volume, scale, n_comp, n_dyn
 
 @njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def population_magnitudes(lo, hi, cols, content, dosed, removed, keep, bstart, bstop, capacity, has_volume, scale, y0,
-                          n_comp, n_dyn, q_elim, q_perm, q_lost, q_sampled, atol, status, found):
+                          n_comp, n_dyn, q_elim, q_perm, q_lost, q_sampled, atol, status, outs, pos, link_p, link_q,
+                          link_c, link_d, inv_k, duration, found):
     """:func:`check_magnitudes` of the subjects ``lo`` to ``hi - 1`` of a population, in compiled
-    code: subject i's kept columns ``cols[i]`` (n_t, len(keep)), its barriers' contents, its
-    events' cumulative amounts, its own ``capacity[i]``, ``scale[i]`` and starting state
-    ``y0[i]`` (what it held at time 0, as a single run's ``initial_amount``); the same pass as a
-    single run's (:func:`_magnitudes`), its summary into ``found[i]``. Only subjects whose run
-    finished (``status[i]`` 0) are judged; ``atol`` below 0 (an exact path) checks the signs
-    only. Releases the GIL (a population hands blocks of subjects to a few threads)."""
+    code: subject i's kept columns ``cols[i]`` (n_t, len(keep); ``pos`` the column of each state,
+    -1 where not kept), its barriers' contents, its events' cumulative amounts, its own
+    ``capacity[i]``, ``scale[i]``, face coefficients ``link_c[i]``, ``link_d[i]`` and
+    ``inv_k[i]`` and starting state ``y0[i]`` (what it held at time 0, as a single run's
+    ``initial_amount``); the same two passes as a single run's (:func:`_magnitudes`, then
+    :func:`_derived_promise` over the run's ``duration``, h, with ``outs`` each barrier's out
+    link), their summary into ``found[i]`` (:data:`POPULATION_FOUND` values: the first pass's 8,
+    then the second's 4). Only subjects whose run finished (``status[i]`` 0) are judged; ``atol``
+    below 0 (an exact path) checks the signs only. Releases the GIL (a population hands blocks of
+    subjects to a few threads)."""
     for i in range(lo, hi):
         if status[i] != 0:
             continue
@@ -802,12 +817,27 @@ def population_magnitudes(lo, hi, cols, content, dosed, removed, keep, bstart, b
                           q_lost, q_sampled, content[i], dosed[i], removed[i], initial, atol)
         for k in range(res.shape[0]):
             found[i, k] = res[k]
+        found[i, 10] = -1.0
+        found[i, 11] = -1.0
+        if atol >= 0.0:
+            n_der, worst, kind, which = _derived_promise(cols[i], outs, pos, bstart, bstop, link_p, link_q, link_c[i],
+                                                         link_d[i], inv_k[i], scale[i], has_volume, cap, removed[i],
+                                                         atol, res[7], duration)
+            found[i, 8] = n_der
+            found[i, 9] = worst
+            found[i, 10] = kind
+            found[i, 11] = which
+
+
+POPULATION_FOUND = 12
+"""How many values :func:`population_magnitudes` writes per subject."""
 
 
 def magnitudes_failed(found: np.ndarray) -> np.ndarray:
-    """Per subject, whether the summaries ``found`` (n, 8) of :func:`population_magnitudes` hold a
-    finding (a quantity far below its scale, a one-way amount below zero)."""
-    return (found[:, 0] > 0) | (found[:, 3] >= 0) | (found[:, 5] >= 0)
+    """Per subject, whether the summaries ``found`` (n, :data:`POPULATION_FOUND`) of
+    :func:`population_magnitudes` hold a finding (a quantity far below its scale, a one-way amount
+    below zero, a derived column far below the tolerance of its states)."""
+    return (found[:, 0] > 0) | (found[:, 3] >= 0) | (found[:, 5] >= 0) | (found[:, 8] > 0)
 
 
 def observed_scale(model: CompiledModel, states: np.ndarray, initial: float, event_dosed: np.ndarray,

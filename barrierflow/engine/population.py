@@ -50,6 +50,7 @@ from .exported import empty_taps
 from .grid import Grid, response_time
 from .kernels import INNER, jacobian_size
 from .ledger import (
+    POPULATION_FOUND,
     judge,
     ledger_weights,
     magnitude_findings,
@@ -772,11 +773,15 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     cap = arrays.capacity
     finite = np.isfinite(out).all(axis=(1, 2))
     good = (status == OK) & passes(rel, low, finite)
-    found = np.zeros((n_sub, 8))
+    found = np.zeros((n_sub, POPULATION_FOUND))
     bstop = np.array([max(g.start, min(g.stop, nd)) for g in m0.grids], dtype=np.int64)
+    pos = np.full(n, -1, dtype=np.int64)  # each state's kept column (the derived pass reads the face cells')
+    pos[keep] = np.arange(len(keep))
+    outs = np.array([g.out_link for g in m0.grids], dtype=np.int64)
     _in_blocks(population_magnitudes, n_sub, threads, out, content, out_dosed, out_removed, keep, bar_lo, bstop,
                cap, arrays.has_volume, arrays.scale, arrays.y0, nc, nd, m0.q_elim, m0.q_perm, m0.q_lost,
-               m0.q_sampled, -1.0 if order is not None else float(integ.atol), np.where(good, OK, -1), found)
+               m0.q_sampled, -1.0 if order is not None else float(integ.atol), np.where(good, OK, -1), outs, pos,
+               m0.link_p, m0.link_q, arrays.link_c, arrays.link_d, arrays.inv_partition, float(batch.duration), found)
     small = good & magnitudes_failed(found)
     good &= ~small
     messages = ["the run finished"] * n_sub

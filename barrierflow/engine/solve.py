@@ -23,11 +23,10 @@ from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
 from .arrays import working_copy
 from .compiled import CompiledModel, compile_scenario
-from .exact import ExactIntegrator, exact_plan, exact_supported
 from .exported import Rows
 from .grid import Grid
-from .integrators import EXACT_MEMORY, Integrator, RunPlan, ScipyIntegrator, resolve_integrator
-from .ledger import DERIVED_FINDING, busiest_part, check_magnitudes, check_rows, observed_scale
+from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
+from .ledger import busiest_part, check_magnitudes, check_rows, observed_scale
 from .rosenbrock import RosenbrockIntegrator
 from .schedule import Event, apply_events, build_schedule, encode_events, start_events
 
@@ -219,8 +218,7 @@ def solve(
     trajectory's ``message`` and ``stats["fallbacks"]`` say so. A run that passes it then passes
     :func:`~barrierflow.engine.ledger.check_magnitudes` (no kept quantity far below the scale its
     absolute tolerance came from, no one-way cumulative amount below zero); one that does not is
-    computed again, by the default on a linear chain network the exact path takes first on that
-    path (no tolerances), else on the robust integrator with scales from the magnitudes it reached
+    computed again on the robust integrator with scales from the magnitudes it reached
     (:func:`~barrierflow.engine.ledger.observed_scale`), at most :data:`MAX_RESCALES` times. If
     the last run fails too, the failure is reported (``SolverError``, or a trajectory with status
     -1).
@@ -269,10 +267,7 @@ def solve(
     traj = None
     integ, run_model, rescaled = chosen, model, 0
     plain_robust = _same_integrator(chosen, robust)  # the robust integrator on the model's own scales tried
-    # the default's first remedy for tolerances that let a small quantity through, on a chain
-    # network the exact path takes: that path, which has no tolerances (looked for once, when needed)
-    exact_tried = integrator is not None or getattr(chosen, "atol", None) is None
-    for k in range(3 + MAX_RESCALES):  # the run, exact, robust, rescaled (each at most once)
+    for k in range(2 + MAX_RESCALES):  # the run, robust, rescaled
         if k:
             check_memory(scenario, model, len(times), integ)
         run_plan = plan if k == 0 else dataclasses.replace(plan, model=run_model, progress=None)
@@ -294,18 +289,12 @@ def solve(
         else:
             note = f"the {traj.integrator} run failed ({traj.message})"
         nxt = None
-        exact = None
-        # (not for derived columns alone: the exact chain path's rounding, about 1e-7 of each
-        # state's scale, is no better for a column far below it; extreme patch 92 of the
-        # adversarial sweep, its flux at 173 times its promise flagged at a factor of 100, came back from the chain path
-        # with an eliminated amount 43 times the contract off, from RODAS4 rescaled within it)
-        derived = small and all(DERIVED_FINDING in f for f in found)
-        if fallback and small and not exact_tried and not derived:
-            exact_tried = True
-            exact = _exact_remedy(model, float(np.diff(marks).max()))
-        if exact is not None:  # exact to rounding, its result checked as any other
-            nxt = (exact, model, "(the exact chain path, which has no tolerances)")
-        elif fallback and small and rescaled < MAX_RESCALES:
+        # (not on the exact chain path, which has no tolerances but rounds at about 1e-7 of each
+        # state's scale: no better for a quantity far below its scale. Extreme patch 806 of the
+        # adversarial sweep, its eliminated amount flagged at 5.64 times its promise, came back
+        # from the chain path 52.6 times the contract off scipy Radau; RODAS4 rescaled refuses it,
+        # and computes within the contract the 11 sweep runs the chain path got right)
+        if fallback and small and rescaled < MAX_RESCALES:
             # absolute tolerances from what the run reached, on the robust integrator
             scale = observed_scale(run_model, traj.states, traj.initial_amount, traj.event_dosed,
                                    traj.event_removed)
@@ -331,21 +320,6 @@ def solve(
     stats = {**traj.stats, "fallbacks": len(notes) - 1}
     return dataclasses.replace(traj, status=-1, message=message, stats=stats,
                                wall_time=_time.perf_counter() - start_clock)
-
-
-def _exact_remedy(model: CompiledModel, longest: float) -> Integrator | None:
-    """The exact chain path when the default may take it for ``model`` (a linear chain network
-    within its size, memory and stiffness conditions, :func:`~barrierflow.engine.exact.
-    exact_supported`), else None: where the default's RODAS4 run let a small quantity through
-    its absolute tolerances (:func:`~barrierflow.engine.ledger.check_magnitudes`), the exact path
-    computes it without tolerances, at a fraction of the robust integrator's cost at scales from
-    what the run reached (1.8 to 7 ms against 10 to 18 ms on random networks 19, 21 and 65 of
-    tests/benchmarks/chain_sweep.py). Its result passes the same checks; one that fails them (or
-    a path that declines) goes on to the robust integrator as before."""
-    if model.vehicle_terms or not exact_supported(model, longest) or exact_plan(model)[0] != "chain":
-        return None
-    exact = ExactIntegrator()
-    return exact if exact.working_memory(model) <= EXACT_MEMORY else None
 
 
 MAX_RESCALES = 2

@@ -29,17 +29,16 @@ Usage: ``.venv/bin/python tests/benchmarks/chain_sweep.py [--runs N] [--random N
 from __future__ import annotations
 
 import argparse
-import gc
 import random
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # the tests' helpers (random networks)
+from path_timing import LIMIT, judge, min_times, summary  # noqa: E402
 from random_networks import random_scenario  # noqa: E402
 from run_benchmark import CELLS_800, NEAR_EVENT, Variant  # noqa: E402
 
@@ -121,16 +120,7 @@ def time_paths(scenario, runs: int) -> dict:
     for name, ig in PATHS.items():
         tr = solve(scenario, ig)  # compiled and warm
         out[name] = {"t": np.inf, "took": tr.integrator, "fell": tr.stats["fallbacks"] > 0}
-    for r in range(runs):
-        for name in random.Random(r).sample(list(PATHS), len(PATHS)):
-            gc.disable()
-            try:
-                t0 = time.perf_counter()
-                solve(scenario, PATHS[name])
-                dt = time.perf_counter() - t0
-            finally:
-                gc.enable()
-            out[name]["t"] = min(out[name]["t"], dt)
+    min_times(scenario, PATHS, list(PATHS), out, runs)
     return out
 
 
@@ -161,23 +151,15 @@ def main() -> None:
         early = chain_rows(m, times, marks, shortest)
         est_ex = estimated_seconds("chain", m, rows, n_int, shortest=shortest, early=early)
         est_r4 = estimated_seconds("rodas", m, rows, n_int)
-        fast = min(r["exact"]["t"], r["rodas"]["t"])
-        ratio = r["default"]["t"] / fast
-        took = r["default"]["took"] + (">" if r["default"]["fell"] else "")
-        own = {"exact": "exact", "rodas4": "rodas"}.get(r["default"]["took"]) if not r["default"]["fell"] else None
-        by_path = r[own]["t"] / fast if own else ratio
+        ratio, by_path, took = judge(r, {"exact": "exact", "rodas4": "rodas"})
         print(f"{label:52s} {took:>7s} {m.n_state:6d} {rows:5d} {n_int:3d} {early:5d} {r['default']['t'] * 1e3:7.2f}ms "
               f"{r['exact']['t'] * 1e3:7.2f}ms {r['rodas']['t'] * 1e3:7.2f}ms {est_ex * 1e3:6.2f}ms "
               f"{est_r4 * 1e3:6.2f}ms {ratio:7.2f}x {by_path:8.2f}x"
               f"  modes {chain_modes(m, 60.0 / shortest):6.1f} nd {m.n_dyn}"
-              + ("  <-- above 1.3x" if by_path > 1.3 else ""),
+              + ("  <-- above 1.3x" if by_path > LIMIT else ""),
               flush=True)
         worst.append((by_path, label))
-    worst.sort(reverse=True)
-    above = [w for w in worst if w[0] > 1.3]
-    print(f"\n{len(above)} of {len(worst)} cases above 1.3x (the default's path as timed on its own, or the "
-          f"default's time where it fell back); largest: "
-          + ", ".join(f"{r:.2f}x ({lab.strip()})" for r, lab in worst[:5]))
+    print(summary(worst, "it fell back"))
 
 
 if __name__ == "__main__":

@@ -28,8 +28,6 @@ Usage: ``.venv/bin/python tests/benchmarks/saturable_sweep.py [--runs N] [--quic
 from __future__ import annotations
 
 import argparse
-import gc
-import random
 import sys
 import tempfile
 import time
@@ -39,6 +37,7 @@ import numpy as np
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # the tests' helpers (random networks)
+from path_timing import LIMIT, judge, min_times, summary  # noqa: E402
 from run_benchmark import Variant  # noqa: E402
 from split_choice import scenario_text  # noqa: E402
 from test_split_random import saturable_alone, sharp_elimination, split_networks  # noqa: E402
@@ -74,16 +73,7 @@ def time_paths(scenario, runs: int) -> dict:
                      "took": tr.integrator, "steps": tr.stats["steps"] + tr.stats["rejected_steps"],
                      "fell": "computed on" in tr.message or tr.stats["fallbacks"] > 0}
     timed = [k for k in PATHS if out[k]["t"] == np.inf]
-    for r in range(runs):
-        for name in random.Random(r).sample(timed, len(timed)):
-            gc.disable()
-            try:
-                t0 = time.perf_counter()
-                solve(scenario, PATHS[name])
-                dt = time.perf_counter() - t0
-            finally:
-                gc.enable()
-            out[name]["t"] = min(out[name]["t"], dt)
+    min_times(scenario, PATHS, timed, out, runs)
     return out
 
 
@@ -141,24 +131,14 @@ def main() -> None:
         ic = int(m.mm_state[0])
         sharp = float(m.mm_vmax[0] / (m.mm_km[0] * m.capacity[ic]))  # 1/h, the elimination's rate below km
         marks = sorted({0.0, s.duration} | {e.time for e in solve(s, PATHS["rodas"]).events if e.time < s.duration})
-        fast = min(r["split"]["t"], r["rodas"]["t"])
-        ratio = r["default"]["t"] / fast
-        took = r["default"]["took"] + (">" if r["default"]["fell"] else "")
-        # the default's path timed as that path (the same run, without the noise of a third
-        # timing), unless it went to RODAS4 on the way (then its own time counts)
-        own = {"split": "split", "rodas4": "rodas"}.get(r["default"]["took"]) if not r["default"]["fell"] else None
-        by_path = r[own]["t"] / fast if own else ratio
+        ratio, by_path, took = judge(r, {"split": "split", "rodas4": "rodas"})
         print(f"{label:72s} {took:>7s} {r['default']['steps']:5d}/{r['split']['steps']:5d}/{r['rodas']['steps']:5d} "
               f"{r['default']['t'] * 1e3:7.2f}ms {r['split']['t'] * 1e3:7.2f}ms {r['rodas']['t'] * 1e3:7.2f}ms "
               f"{ratio:7.2f}x {by_path:8.2f}x  rate x interval {sharp * float(np.diff(marks).max()):8.2e}, "
-              f"{len(marks) - 1} intervals, {m.n_state} states" + ("  <-- above 1.3x" if by_path > 1.3 else ""),
+              f"{len(marks) - 1} intervals, {m.n_state} states" + ("  <-- above 1.3x" if by_path > LIMIT else ""),
               flush=True)
         worst.append((by_path, label))
-    worst.sort(reverse=True)
-    above = [w for w in worst if w[0] > 1.3]
-    print(f"\n{len(above)} of {len(worst)} cases above 1.3x (the default's path as timed on its own, or the "
-          f"default's time where it went to RODAS4 on the way); largest: "
-          + ", ".join(f"{r:.2f}x ({lab.strip()})" for r, lab in worst[:5]))
+    print(summary(worst, "it went to RODAS4 on the way"))
 
 
 if __name__ == "__main__":

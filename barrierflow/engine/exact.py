@@ -41,7 +41,7 @@ from numba import njit
 from ..errors import ScenarioError
 from .arrays import working_copy
 from .compiled import CompiledModel
-from .exact_chain import _phi1, _phi2, chain_order, chain_run
+from .exact_chain import _phi1, _phi2, chain_order, chain_schedule
 from .exported import Rows, empty_taps, new_buffers, taps_of
 from .integrators import Integration, Integrator, RunPlan, RunStats, refuse_vehicle_terms
 from .kernels import jacobian_coo, jacobian_size, rates
@@ -546,8 +546,9 @@ class ExactIntegrator(Integrator):
             ev_dosed = np.empty((n_t, nc))
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
-            code = chain_run(marks, times, ev, tuple(work), tuple(base), s, order, _FAST / plan.mode_time,
-                                  jacobian_size(m), m.y0.copy(), states, ev_dosed, ev_removed, st, full, taps)
+            code = chain_schedule(marks, times, ev, tuple(work), tuple(base), s, order,
+                                       _FAST / plan.mode_time, jacobian_size(m), m.y0.copy(), states, ev_dosed,
+                                       ev_removed, st, full, taps)
             stats.add(st)
             if code != 0:
                 return Integration(states[:0] if full else None, ev_dosed[:0], ev_removed[:0], -1,

@@ -46,7 +46,7 @@ from .schedule import apply_events, rows_until
 FAIL_CONDITION = 5
 """Status of a chain run whose modes failed their a posteriori check (the path is not exact there)."""
 
-__all__ = ["FAIL_CONDITION", "MODE_ANGLE_LIMIT", "chain_order", "chain_run", "chain_schedule"]
+__all__ = ["FAIL_CONDITION", "MODE_ANGLE_LIMIT", "chain_order", "chain_schedule"]
 
 
 def chain_order(model: CompiledModel) -> np.ndarray | None:
@@ -1226,11 +1226,14 @@ def _more_modes(a, k):
 
 # ---------------------------------------------------------------- the whole regimen
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
+def chain_schedule(marks, times, ev, mt, bt, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
     """Run the regimen exactly on a chain network; returns a status code (0 when done).
 
-    ``m`` is the run's copy of the model's arrays (:func:`~barrierflow.engine.arrays.working_copy`),
-    ``base`` the model's own, ``s`` the run's :class:`~barrierflow.engine.schedule.EventState`.
+    ``mt`` is the run's copy of the model's arrays (:func:`~barrierflow.engine.arrays.working_copy`),
+    ``bt`` the model's own, both as plain tuples (``tuple(m)``; named again here: numba types a
+    named tuple from Python field by field at every call, about 4 us for these two, a plain tuple
+    in C; compiled callers pass :func:`~barrierflow.engine.calls.plain`), ``s`` the run's
+    :class:`~barrierflow.engine.schedule.EventState`.
     The events ``ev`` (EventArrays) apply by :func:`~barrierflow.engine.schedule.apply_events` (a
     closed face changes the links, and the modes are computed again); the states
     at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``; with
@@ -1241,7 +1244,12 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     (:func:`~barrierflow.engine.exact.mode_time`): the modes above it are computed (at most
     :data:`MAX_MODES`, the cut moving up as needed) and the earlier times go through the rational
     approximation.
+
+    The single runs call it from Python and the population kernel through its address (one
+    compiled form serves both; see :mod:`~barrierflow.engine.calls`).
     """
+    m = ModelArrays(*mt)
+    base = ModelArrays(*bt)
     nc = m.n_comp
     nd = m.n_dyn
     n_state = y.shape[0]
@@ -1387,12 +1395,3 @@ def chain_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
         return 1
     return 0
 
-
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def chain_run(marks, times, ev, mt, bt, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
-    """:func:`chain_schedule` called from Python (a single run): the model's arrays ``mt`` (the
-    run's copy) and ``bt`` (the model's own) as plain tuples, named again here. numba types a
-    named tuple from Python field by field at every call (about 4 us for these two); a plain
-    tuple it types in C (see :mod:`~barrierflow.engine.arrays`)."""
-    return chain_schedule(marks, times, ev, ModelArrays(*mt), ModelArrays(*bt), s, order, cut, n_jac, y, states,
-                          ev_dosed, ev_removed, stats, full, taps)

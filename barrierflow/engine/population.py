@@ -43,6 +43,7 @@ from ..model import Scenario
 from ..model.cohort import Diverging, refused, stacked
 from ..model.paths import Param, parse_param, with_values
 from .arrays import SHARED, ModelArrays, stack_arrays, subject, working_copy
+from .calls import caller_of, entry, plain
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _shortest_time
 from .exact_chain import chain_order, chain_schedule
@@ -286,17 +287,20 @@ class Population:
 # Each kernel runs the subjects ``lo`` to ``hi - 1`` one after the other, writing only their own
 # rows of the outputs; :func:`_in_blocks` hands fixed blocks of subjects to a few Python threads,
 # each calling a kernel without the GIL (``nogil``). A kernel is serial code around the single
-# run's own compiled loop (``run_marks``, ``chain_schedule``), so its first compile is a few
-# seconds: a ``prange`` loop around the same code took tens (numba's parallel lowering compiles
-# the loop's body as a function of its own, into which the whole run loop is linked and
-# optimised again, then once more into the kernel).
+# run's own compiled loop (``run_marks``, ``chain_schedule``), which it calls through the loop's
+# address (``loop``, calls.entry, built by _entries from subject 0 as the kernel builds each
+# subject's arguments): the very code a single run executes, compiled once for both, so the
+# kernel's first compile is that of its own body (linked in, as a direct call would, the run
+# loop's tree was optimised and emitted again inside each kernel: seconds each; a ``prange`` loop
+# around it took tens). The per-subject copy of the kept columns and the check (_keep_rows) is
+# called the same way (``finish``), compiled once for both kernels.
 # ``stack`` is the subjects' ModelArrays stacked (arrays.stack_arrays) and ``work`` the runs' own
 # copy of what events change (arrays.working_copy); ``ev`` the shared events with ``ev_values``
 # (n_sub, n_ev) each subject's own values.
 @njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population(lo, hi, marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol, atol_rel,
-                    max_steps, hold, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel,
-                    status, fail_k, stats):
+def _run_population(lo, hi, loop, finish, marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol,
+                    atol_rel, max_steps, hold, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content,
+                    low, rel, status, fail_k, stats):
     n = stack.y0.shape[1]
     n_t = times.shape[0]
     n_int = marks.shape[0] - 1
@@ -318,19 +322,20 @@ def _run_population(lo, hi, marks, times, ev, ev_values, stack, work, sargs, coe
         atol = atol_rel * base.scale
         # the first interval and ``full`` of the types the single run gives them (an int64, a bool):
         # a literal 0 or True would compile run_marks a second time
-        code, k = run_marks(np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac, rtol, atol,
-                            max_steps, hold, y, ptr, states, evd, evr, st, np.bool_(True), empty_taps(n))
+        code, k = _call_run_marks(loop, np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac,
+                                  rtol, atol, max_steps, hold, y, ptr, states, evd, evr, st, np.bool_(True),
+                                  empty_taps(n))
         status[i] = code
         fail_k[i] = k
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i], out_removed[i],
-                   content[i], low, rel, i)
+        _call_keep_rows(finish, states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i],
+                        out_removed[i], content[i], low, rel, i)
 
 
 @njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population_exact(lo, hi, marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep, n_out, w, bar_lo,
-                          bar_hi, out, out_dosed, out_removed, content, low, rel, status, stats):
+def _run_population_exact(lo, hi, loop, finish, marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep,
+                          n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, stats):
     n = stack.y0.shape[1]
     n_t = times.shape[0]
     for i in range(lo, hi):
@@ -343,12 +348,13 @@ def _run_population_exact(lo, hi, marks, times, ev, ev_values, stack, work, orde
         evr = np.zeros((n_t, nc))
         st = np.zeros(6, dtype=np.int64)
         s = new_event_state(base, ev.time.shape[0])
-        status[i] = chain_schedule(marks, times, evi, m, base, s, order, cut, n_jac, base.y0.copy(), states, evd, evr,
-                                   st, np.bool_(True), empty_taps(n))  # not a literal True (as in _run_population)
+        status[i] = _call_chain_schedule(loop, marks, times, evi, plain(m), plain(base), s, order, cut, n_jac,
+                                         base.y0.copy(), states, evd, evr, st, np.bool_(True),
+                                         empty_taps(n))  # not a literal True (as above)
         for j in range(6):
             stats[i, j] = st[j]
-        _keep_rows(states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i], out_removed[i],
-                   content[i], low, rel, i)
+        _call_keep_rows(finish, states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i],
+                        out_removed[i], content[i], low, rel, i)
 
 
 @njit(**INNER)
@@ -410,6 +416,39 @@ def _cell_sums(row, cap, lo, hi):
         pos += a if v > 0.0 else 0.0
         neg += a if v < 0.0 else 0.0
     return amount, pos, neg
+
+
+_call_run_marks = caller_of(run_marks)
+_call_chain_schedule = caller_of(chain_schedule)
+_call_keep_rows = caller_of(_keep_rows)
+
+
+def _entries(batch: _Batch, work: ModelArrays, order, cut: float, n_jac: int, struct, integ,
+             kept: tuple) -> tuple[tuple[int, int], tuple[int, int]]:
+    """The entries (:func:`~barrierflow.engine.calls.entry`) of what a kernel calls per subject:
+    the run loop (``chain_schedule`` with ``order``, else ``run_marks``) and :func:`_keep_rows`
+    (``kept``: its arguments after the subject's model, the outputs whole); their arguments built
+    for subject 0 as :func:`_run_population_exact` and :func:`_run_population` build them for each."""
+    ev, n = batch.ev, batch.model.n_state
+    base = _subject_arrays(batch.arrays, 0)
+    m = _subject_arrays(work, 0)
+    evi = EventArrays(ev.time, ev.kind, ev.comp, batch.ev_values[0])
+    s = new_event_state(base, ev.time.shape[0])
+    states = np.empty((1, n))
+    evd = np.zeros((1, m.n_comp))
+    evr = np.zeros((1, m.n_comp))
+    st = np.zeros(6, dtype=np.int64)
+    y = base.y0.copy()
+    keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel = kept
+    finish = entry(_keep_rows, states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[0], out_dosed[0],
+                   out_removed[0], content[0], low, rel, np.int64(0))
+    if order is not None:
+        return entry(chain_schedule, batch.marks, batch.times, evi, tuple(m), tuple(base), s, order, cut, n_jac, y,
+                     states, evd, evr, st, np.bool_(True), empty_taps(n)), finish
+    return entry(run_marks, np.int64(0), np.int64(len(batch.marks) - 1), batch.marks, batch.times, evi, m, base, s,
+                 struct.args(), COEF, struct.n_w, n_jac, float(integ.rtol), float(integ.atol) * base.scale,
+                 integ.max_steps, float(integ.hold), y, np.zeros(2, dtype=np.int64), states, evd, evr, st,
+                 np.bool_(True), empty_taps(n)), finish
 
 
 def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, int], np.ndarray]:
@@ -755,17 +794,22 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     fail_k = np.zeros(n_sub, dtype=np.int64)
     stats = np.zeros((n_sub, 6), dtype=np.int64)
     n_jac = jacobian_size(m0)
+    kept = (keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel)
     if order is not None:
         name = "exact (population)"
-        _in_blocks(_run_population_exact, n_sub, threads, marks, times, ev, ev_v, arrays, work, order,
-                   -60.0 / _shortest_time(times, marks), n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed,
-                   out_removed, content, low, rel, status, stats)
+        cut = -60.0 / _shortest_time(times, marks)
+        loop, finish = _entries(batch, work, order, cut, n_jac, None, integ, kept)
+        _in_blocks(_run_population_exact, n_sub, threads, loop, finish, marks, times, ev, ev_v, arrays, work, order,
+                   cut, n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status,
+                   stats)
     else:
         name = f"{integ.name} (population)"
         struct = build_structure(m0)
-        _in_blocks(_run_population, n_sub, threads, marks, times, ev, ev_v, arrays, work, struct.args(), COEF,
-                   struct.n_w, n_jac, float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), keep,
-                   n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, fail_k, stats)
+        loop, finish = _entries(batch, work, None, 0.0, n_jac, struct, integ, kept)
+        _in_blocks(_run_population, n_sub, threads, loop, finish, marks, times, ev, ev_v, arrays, work, struct.args(),
+                   COEF, struct.n_w, n_jac, float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold),
+                   keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, fail_k,
+                   stats)
     _apply_at_end_kept(batch, keep, status, out, out_dosed, out_removed)
     # the guard of every run (barrierflow.engine.ledger.verdict), for every subject (its ledger
     # computed in the kernel), then its magnitudes against their scales (ledger.check_magnitudes,

@@ -25,10 +25,9 @@ from barrierflow.engine import solve
 from barrierflow.engine.exact import ExactIntegrator
 from barrierflow.engine.exported import Rows, taps_of
 from barrierflow.engine.integrators import RunPlan
-from barrierflow.engine.ledger import NEGATIVE_LIMIT, check, check_rows, ledger, rows_ledger
+from barrierflow.engine.ledger import NEGATIVE_LIMIT, check, check_rows, ledger, present_amount, rows_ledger
 from barrierflow.engine.rosenbrock import RosenbrockIntegrator
 from barrierflow.engine.schedule import build_schedule, encode_events
-from barrierflow.engine.solve import _present
 
 SCENARIOS = sorted((Path(__file__).parent.parent / "scenarios").glob("*.toml"))
 REL = 1e-13
@@ -124,7 +123,7 @@ def test_a_negative_state_that_no_column_shows_still_fails_the_check(integrator)
     # the guard is the lowest over every state, as from the full states
     want = float(np.min(full[:, :bad.n_dyn] / bad.scale[:bad.n_dyn]))
     assert rows.low == pytest.approx(want, rel=1e-13)
-    initial = _present(bad, bad.y0)
+    initial = present_amount(bad, bad.y0)
     found = check_rows(bad, rows, out.event_dosed, out.event_removed, initial, None, lambda: full)
     assert any(f.startswith("a negative concentration") for f in found), found
     assert found == check(bad, full, out.event_dosed, out.event_removed, initial)

@@ -111,7 +111,8 @@ def test_sharp_elimination_against_radau():
 def test_saturable_compartment_linked_to_nothing_against_radau():
     s = saturable_alone()
     tr = solve(s, SplitIntegrator(), fallback=False)
-    assert tr.integrator == "split" and tr.message == "the run finished", tr.message
+    # on the split (computed twice: its eliminated amount stays below the magnitude floor)
+    assert tr.integrator == "split" and tr.message.startswith("the run finished") and "rodas" not in tr.message
     ref = radau(s)
     m = tr.model
     i2 = m.comp_index["c2"]
@@ -179,7 +180,7 @@ def test_a_short_interval_ends_in_the_right_state():
     # serves there, as for the rows
     s = bolus_then_remove()
     tr = solve(s, SplitIntegrator(), fallback=False)
-    assert tr.integrator == "split" and tr.message == "the run finished", tr.message
+    assert tr.integrator == "split" and tr.message.startswith("the run finished") and "rodas" not in tr.message
     ref = radau(s)
     m = tr.model
     iw = m.comp_index["well"]

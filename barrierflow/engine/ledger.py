@@ -510,6 +510,14 @@ integrator's atol (1e-11) times 1e-3 of a scale is still some 45 times the round
 that scale (a state that stays at rounding level, held to less, stops the run)."""
 
 
+def present_amount(model: CompiledModel, y: np.ndarray) -> float:
+    """What state ``y`` holds in the compartments and barriers, mg (the ledger's initial amount
+    for the model's starting state)."""
+    nc, nd, cap = model.n_comp, model.n_dyn, model.capacity
+    comp = np.where(model.has_volume, y[:nc] * cap[:nc], 0.0)
+    return float(comp.sum() + (y[nc:nd] * cap[nc:nd]).sum())
+
+
 def _per_amount(model: CompiledModel) -> np.ndarray:
     """Per state, the factor from an amount to its units: 1 / the compartment's volume, 1 / the
     volume of the state's barrier for a cell, 1 for a cumulative amount; 0 for a compartment

@@ -26,7 +26,7 @@ from .compiled import CompiledModel, compile_scenario
 from .exported import Rows
 from .grid import Grid
 from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
-from .ledger import busiest_part, check_magnitudes, check_rows, observed_scale
+from .ledger import busiest_part, check_magnitudes, check_rows, observed_scale, present_amount
 from .rosenbrock import RosenbrockIntegrator
 from .schedule import Event, apply_events, build_schedule, encode_events, start_events
 
@@ -179,10 +179,6 @@ def _snapped(times, marks, tol):
     return out, increasing
 
 
-def _present(model: CompiledModel, y: np.ndarray) -> float:
-    nc, nd, cap = model.n_comp, model.n_dyn, model.capacity
-    comp = np.where(model.has_volume, y[:nc] * cap[:nc], 0.0)
-    return float(comp.sum() + (y[nc:nd] * cap[nc:nd]).sum())
 
 
 
@@ -353,7 +349,7 @@ def _run(model: CompiledModel, integrator: Integrator, plan: RunPlan, at_end: li
     else:
         rows = out.rows.finished(model, out.last) if out.status == 0 and n_rows else out.rows
         recompute = FullStates(model, integrator, plan, tuple(at_end))
-    return Trajectory(model, times, rows, ev_dosed, ev_removed, _present(model, model.y0), tuple(all_events),
+    return Trajectory(model, times, rows, ev_dosed, ev_removed, present_amount(model, model.y0), tuple(all_events),
                       out.stats.as_dict(), out.status, out.message, integrator.name,
                       _time.perf_counter() - start_clock, grid, integrator.options, failed_at, amounts, volumes,
                       states, recompute)

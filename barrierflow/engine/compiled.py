@@ -42,6 +42,7 @@ from functools import cached_property
 from itertools import accumulate
 
 import numpy as np
+from numba import njit
 
 from ..model import Barrier, Scenario
 from ..model.cohort import Diverging, cohort_size, decide
@@ -492,6 +493,11 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
                      layer_widths: dict[tuple[int, int], np.ndarray] | None = None) -> CompiledModel:
     """Turn a validated scenario into the flat arrays of a :class:`CompiledModel`.
 
+    One scenario is compiled by :func:`_compile_one` (the arrays in one compiled pass); many
+    subjects of one (a stacked scenario) by :func:`compile_elementwise`, whose arithmetic is the
+    same operation for operation, so that subject i's row is bit for bit its own scenario's model
+    (tests/test_population_arrays.py and tests/test_compile_one.py hold the two to that).
+
     Parameters
     ----------
     scenario : Scenario
@@ -506,6 +512,17 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         (barrier index, layer index) to the cell widths of that layer relative to its thickness,
         in place of the default grid (subjects compiled one by one that share one grid).
     """
+    grid = grid or Grid()
+    if cohort_size(scenario) is None:
+        return _compile_one(scenario, grid, layer_widths or {})
+    return compile_elementwise(scenario, grid, layer_widths)
+
+
+def compile_elementwise(scenario: Scenario, grid: Grid | None = None,
+                        layer_widths: dict[tuple[int, int], np.ndarray] | None = None) -> CompiledModel:
+    """:func:`compile_scenario` in element-wise numpy arithmetic: a stacked scenario (one value per
+    subject in its varied fields) or one scenario (the reference :func:`_compile_one` is held to,
+    bit for bit)."""
     grid = grid or Grid()
     layer_widths = layer_widths or {}
     n_sub = cohort_size(scenario)
@@ -711,3 +728,368 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
     return CompiledModel(arrays, comp_ids=tuple(c.id for c in comps), barrier_ids=tuple(b.id for b in bars),
                          grids=tuple(grids), comp_index=comp_index,
                          barrier_index={b.id: i for i, b in enumerate(bars)})
+
+
+# ---------------------------------------------------------------- one scenario, in one compiled pass
+# The columns of the per-compartment numbers that _compile_one hands to _assemble
+_C_CAP, _C_INVK, _C_LOSS, _C_START, _C_MREF, _C_TIGHT, _C_CLEAR, _C_EVAP, _C_RESID, _C_SOL, _C_SATK = range(11)
+_CF = 11
+_C_OWN, _C_SHRINK, _C_HELD, _C_VOL, _C_CLINK, _C_SAT = range(6)
+_CI = 6
+
+
+def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, int], np.ndarray]) -> CompiledModel:
+    """:func:`compile_scenario` of one scenario: the decisions and the per-compartment numbers in
+    Python (a few compartments, read as plain numbers), every array of the model in one compiled
+    pass (:func:`_assemble`), by the arithmetic of :func:`compile_elementwise` operation for
+    operation. A cold numpy call costs several microseconds; the element-wise build makes about
+    a hundred of them for one scenario."""
+    comps = scenario.compartments
+    bars = scenario.barriers
+    n_comp, n_bar = len(comps), len(bars)
+    comp_index = {c.id: i for i, c in enumerate(comps)}
+    doses = regimen_bounds(scenario)
+    shrink = doses.shrink
+    part_of = _part_of_compartments(scenario)
+    m_list = _mass_scale(scenario, doses, part_of)
+    bound = _potential_bound(scenario, doses, part_of)
+    limited = limited_compartments(scenario, doses)
+    sol = scenario.substance.solubility
+    inf = math.inf
+    cf: list[float] = []
+    ci: list[int] = []
+    mm_i, mm_v, mm_k = [], [], []
+    for i, c in enumerate(comps):
+        vol = c.volume
+        shrinking = c.id in shrink
+        own = c.evaporates or shrinking or c.loss_rate > 0
+        saturated = c.held and c.id in limited  # a saturated reservoir: its potential C/K is the solubility
+        cf += (vol if vol is not None else 1.0, 1.0 / c.partition,
+               c.loss_rate if own else (c.clearance / vol if vol is not None else 0.0), c.starting_concentration,
+               m_list[i], bound[i] if bound is not None else inf, c.clearance * c.partition,
+               _or_zero(c.evaporation_rate), _or_zero(c.residual_volume),
+               sol * c.partition if c.id in limited else inf, sol / c.held_concentration if saturated else 0.0)
+        ci += (own, shrinking, c.held, vol is not None, own and c.clearance != 0, saturated)
+        if c.vmax is not None and c.vmax != 0:
+            mm_i.append(i)
+            mm_v.append(c.vmax)
+            mm_k.append(c.km)
+    tau = response_time(scenario)  # the time scale the default grid resolves
+    lf: list[float] = []  # per layer of every barrier: thickness, diffusivity, partition, degradation, loading
+    bf: list[float] = []  # per barrier: area and a steady barrier's coefficients a, b, c, d
+    bi: list[int] = []    # per barrier: from, to, steady, layers, a steady barrier's degradation (a != c)
+    widths = []
+    cells: list[int] = []  # per layer (0 in a steady barrier)
+    for b_i, b in enumerate(bars):
+        steady = b.model == "steady"
+        coef = (0.0, 0.0, 0.0, 0.0)
+        if steady:
+            coef = tuple(v * b.area for v in _two_port(b))
+        bf += (b.area, *coef)
+        bi += (comp_index[b.from_id], comp_index[b.to_id], steady, len(b.layers), coef[0] != coef[2])
+        for l_i, x in enumerate(b.layers):
+            lf += (x.thickness, x.diffusivity, x.partition, x.degradation_rate, x.initial_concentration)
+            if steady:
+                cells.append(0)
+                continue
+            widths.append(layer_widths[(b_i, l_i)] * x.thickness if (b_i, l_i) in layer_widths
+                          else grid.widths(x, tau))
+            cells.append(len(widths[-1]))
+    n_lay = len(lf) // 5
+    ex = []
+    exf = []
+    for e in scenario.exchanges:
+        ex += (comp_index[e.from_id], comp_index[e.to_id])
+        exf.append(e.flow)
+    w_all = np.concatenate(widths) if widths else np.zeros(0)
+    n_cells = len(w_all)
+    n_dyn = n_comp + n_cells
+    q_supply = n_dyn + n_comp + 2 * n_bar
+    (cap, inv_cap, inv_k, link_p, link_q, link_a, link_b, link_c, link_d, link_loss, link_track, chain_g, other,
+     loss_rate, loss_to, lossy, y0, scale, face_ptr, face_link, lay_idx, centres, ends, bstart, blink, held,
+     has_volume, shrinking, evap, residual, solubility, area) = _assemble(
+        np.array(cf, dtype=np.float64).reshape(n_comp, _CF), np.array(ci, dtype=np.int64).reshape(n_comp, _CI),
+        np.array(lf, dtype=np.float64).reshape(n_lay, 5), np.array(cells, dtype=np.int64), w_all,
+        np.array(bf, dtype=np.float64).reshape(n_bar, 5),
+        np.array(bi, dtype=np.int64).reshape(n_bar, 5), np.array(ex, dtype=np.int64).reshape(-1, 2),
+        np.array(exf, dtype=np.float64), POTENTIAL_MARGIN)
+    tr = scenario.transfers
+    arrays = ModelArrays(
+        n_comp, n_dyn, q_supply, q_supply + n_comp, q_supply + 3 * n_comp, cap, inv_cap, inv_k, link_p, link_q,
+        link_a, link_b, link_c, link_d, link_loss, link_track, chain_g, other, loss_rate, loss_to, lossy,
+        np.array(mm_i, dtype=np.int64), np.array(mm_v, dtype=np.float64), np.array(mm_k, dtype=np.float64),
+        np.array([comp_index[t.from_id] for t in tr], dtype=np.int64),
+        np.array([comp_index[t.to_id] for t in tr], dtype=np.int64), np.array([t.rate for t in tr], dtype=np.float64),
+        held, has_volume, area, y0, scale, face_ptr, face_link, evap, residual, solubility, shrinking)
+    grids = []
+    lay0 = 0
+    for b_i, b in enumerate(bars):
+        n_l = len(b.layers)
+        interfaces = (0.0, *ends[lay0:lay0 + n_l])
+        lay0 += n_l
+        start, stop, link = int(bstart[b_i]), int(bstart[b_i + 1]), int(blink[b_i])
+        if b.model == "steady":
+            w = np.zeros(0)
+            grids.append(BarrierGrid(b.id, start, stop, w, w, np.zeros(0, dtype=np.int64), interfaces, link, link))
+            continue
+        lo, hi = start - n_comp, stop - n_comp
+        grids.append(BarrierGrid(b.id, start, stop, w_all[lo:hi], centres[lo:hi], lay_idx[lo:hi], interfaces, link,
+                                 link + hi - lo))
+    return CompiledModel(arrays, comp_ids=tuple(comp_index), barrier_ids=tuple(b.id for b in bars),
+                         grids=tuple(grids), comp_index=comp_index,
+                         barrier_index={b.id: i for i, b in enumerate(bars)})
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
+    """Every array of one scenario's model (see :func:`_compile_one` for the columns of the
+    arguments), by the arithmetic of :func:`compile_elementwise`, operation for operation."""
+    nc = cf.shape[0]
+    n_bar = bf.shape[0]
+    n_cells = w.shape[0]
+    nd = nc + n_cells
+    q_elim = nd
+    q_degr = nd + nc
+    q_perm = q_degr + n_bar
+    q_supply = q_perm + n_bar
+    q_lost = q_supply + 2 * nc
+    n_state = q_supply + 4 * nc
+    # the cells: each barrier's range of states, first link, layers
+    bstart = np.empty(n_bar + 1, dtype=np.int64)
+    blink = np.empty(n_bar, dtype=np.int64)
+    lay_idx = np.empty(n_cells, dtype=np.int64)
+    part = np.empty(n_cells)  # partition coefficient of each cell
+    dif = np.empty(n_cells)
+    kdeg = np.empty(n_cells)
+    c0 = np.empty(n_cells)
+    centres = np.empty(n_cells)
+    ends = np.empty(lf.shape[0])
+    n_link = 0
+    n_clink = 0
+    for p in range(nc):
+        n_clink += ci[p, _C_CLINK]
+    lay = 0
+    cell = 0
+    for b in range(n_bar):
+        bstart[b] = nc + cell
+        blink[b] = n_link
+        acc = 0.0
+        for li in range(bi[b, 3]):
+            acc = acc + lf[lay + li, 0]
+            ends[lay + li] = acc
+        if bi[b, 2]:  # steady: one link
+            n_link += 1
+            lay += bi[b, 3]
+            continue
+        c_start = cell
+        for li in range(bi[b, 3]):
+            x = lay + li
+            for _ in range(cells[x]):
+                lay_idx[cell] = li
+                part[cell] = lf[x, 2]
+                dif[cell] = lf[x, 1]
+                kdeg[cell] = lf[x, 3]
+                c0[cell] = lf[x, 4]
+                cell += 1
+        acc = 0.0
+        for a in range(c_start, cell):
+            acc = acc + w[a]
+            centres[a] = acc - w[a] / 2
+        n_link += cell - c_start + 1
+        lay += bi[b, 3]
+    bstart[n_bar] = nc + cell
+    # per-state numbers
+    cap = np.empty(nd)
+    inv_k = np.empty(nd)
+    loss_rate = np.empty(nd)
+    for p in range(nc):
+        cap[p] = cf[p, _C_CAP]
+        inv_k[p] = cf[p, _C_INVK]
+        loss_rate[p] = cf[p, _C_LOSS]
+    for b in range(n_bar):
+        area = bf[b, 0]
+        for s in range(bstart[b], bstart[b + 1]):
+            a = s - nc
+            cap[s] = area * w[a]
+            inv_k[s] = 1.0 / part[a]
+            loss_rate[s] = kdeg[a]
+    inv_cap = np.empty(nd)
+    for s in range(nd):
+        inv_cap[s] = 1.0 / cap[s]
+    # links: each barrier's (its faces and cells, or one for a steady barrier), the exchanges, the
+    # clearances that go to links of their own
+    n_ex = ex.shape[0]
+    n_all = n_link + n_ex + n_clink
+    link_p = np.empty(n_all, dtype=np.int64)
+    link_q = np.empty(n_all, dtype=np.int64)
+    link_loss = np.full(n_all, -1, dtype=np.int64)
+    link_track = np.full(n_all, -1, dtype=np.int64)
+    link_a = np.empty(n_all)
+    link_b = np.empty(n_all)
+    link_c = np.empty(n_all)
+    link_d = np.empty(n_all)
+    other = np.ones(n_all, dtype=np.bool_)
+    chain_g = np.zeros(max(n_cells, 1))
+    n_face = np.zeros(nc, dtype=np.int64)
+    for b in range(n_bar):
+        p_from = bi[b, 0]
+        p_to = bi[b, 1]
+        j0 = blink[b]
+        n_face[p_from] += 1
+        n_face[p_to] += 1
+        if bi[b, 2]:
+            link_p[j0] = p_from
+            link_q[j0] = p_to
+            link_loss[j0] = q_degr + b if bi[b, 4] else -1
+            link_track[j0] = q_perm + b
+            link_a[j0] = bf[b, 1]
+            link_b[j0] = bf[b, 2]
+            link_c[j0] = bf[b, 3]
+            link_d[j0] = bf[b, 4]
+            continue
+        area = bf[b, 0]
+        start = bstart[b]
+        stop = bstart[b + 1]
+        nb = stop - start
+        # half resistances w / (2 D K), h/cm, and the conductances area / (sum of the two halves)
+        h_prev = w[start - nc] / (2.0 * dif[start - nc] * part[start - nc])
+        g = area / h_prev
+        link_p[j0] = p_from
+        link_q[j0] = start
+        link_a[j0] = g
+        link_b[j0] = g
+        link_c[j0] = g
+        link_d[j0] = g
+        for k in range(1, nb):
+            a = start - nc + k
+            h = w[a] / (2.0 * dif[a] * part[a])
+            g = area / (h_prev + h)
+            j = j0 + k
+            link_p[j] = start + k - 1
+            link_q[j] = start + k
+            link_a[j] = g
+            link_b[j] = g
+            link_c[j] = g
+            link_d[j] = g
+            chain_g[a - 1] = g
+            other[j] = False
+            h_prev = h
+        g = area / h_prev
+        j = j0 + nb
+        link_p[j] = stop - 1
+        link_q[j] = p_to
+        link_track[j] = q_perm + b
+        link_a[j] = g
+        link_b[j] = g
+        link_c[j] = g
+        link_d[j] = g
+    for e in range(n_ex):
+        j = n_link + e
+        link_p[j] = ex[e, 0]
+        link_q[j] = ex[e, 1]
+        link_a[j] = exf[e]
+        link_b[j] = exf[e]
+        link_c[j] = exf[e]
+        link_d[j] = exf[e]
+    j = n_link + n_ex
+    for p in range(nc):
+        if ci[p, _C_CLINK]:  # clearance as a loss link: CL C = CL K u
+            link_p[j] = p
+            link_q[j] = p
+            link_loss[j] = q_elim + p
+            link_a[j] = cf[p, _C_CLEAR]
+            link_b[j] = 0.0
+            link_c[j] = 0.0
+            link_d[j] = 0.0
+            j += 1
+    # the barrier links touching each compartment, barrier after barrier
+    face_ptr = np.zeros(nc + 1, dtype=np.int64)
+    for p in range(nc):
+        face_ptr[p + 1] = face_ptr[p] + n_face[p]
+    face_link = np.empty(face_ptr[nc], dtype=np.int64)
+    fill = face_ptr[:nc].copy()
+    for b in range(n_bar):
+        j0 = blink[b]
+        face_link[fill[bi[b, 0]]] = j0
+        fill[bi[b, 0]] += 1
+        face_link[fill[bi[b, 1]]] = j0 + bstart[b + 1] - bstart[b]
+        fill[bi[b, 1]] += 1
+    n_other = 0
+    for j in range(n_all):
+        n_other += other[j]
+    other_links = np.empty(n_other, dtype=np.int64)
+    k = 0
+    for j in range(n_all):
+        if other[j]:
+            other_links[k] = j
+            k += 1
+    loss_to = np.empty(nd, dtype=np.int64)
+    for p in range(nc):
+        loss_to[p] = q_lost + p if ci[p, _C_OWN] else q_elim + p
+    for b in range(n_bar):
+        for s in range(bstart[b], bstart[b + 1]):
+            loss_to[s] = q_degr + b
+    n_lossy = 0
+    for s in range(nd):
+        n_lossy += loss_rate[s] != 0.0
+    lossy = np.empty(n_lossy, dtype=np.int64)
+    k = 0
+    for s in range(nd):
+        if loss_rate[s] != 0.0:
+            lossy[k] = s
+            k += 1
+    # the initial state and the magnitude scales
+    y0 = np.zeros(n_state)
+    scale = np.empty(n_state)
+    for p in range(nc):
+        y0[p] = cf[p, _C_START]
+        s0 = cf[p, _C_MREF] / cap[p]
+        tight = cf[p, _C_TIGHT]
+        if tight * margin < s0:  # where the potential bound is far tighter
+            s0 = tight
+        st = cf[p, _C_START]
+        scale[p] = s0 if s0 >= st or s0 != s0 else st  # np.maximum
+    for b in range(n_bar):
+        p_from = bi[b, 0]
+        p_to = bi[b, 1]
+        u_from = scale[p_from] * inv_k[p_from]
+        u_to = scale[p_to] * inv_k[p_to]
+        side_u = u_from if u_from >= u_to or u_from != u_from else u_to  # np.maximum
+        for s in range(bstart[b], bstart[b + 1]):
+            y0[s] = c0[s - nc]
+            scale[s] = side_u * part[s - nc]
+    for p in range(nc):
+        m_ref = cf[p, _C_MREF]
+        scale[q_elim + p] = m_ref
+        for k in range(4):  # supplied, infused, lost, sampled
+            scale[q_supply + k * nc + p] = m_ref
+    for b in range(n_bar):
+        bar_ref = cf[bi[b, 0], _C_MREF]
+        scale[q_degr + b] = bar_ref
+        scale[q_perm + b] = bar_ref
+    for s in range(nc, nd):  # a loaded layer: at least its own concentration
+        x = scale[s]
+        y = y0[s]
+        scale[s] = x if x >= y or x != x else y
+    for p in range(nc):
+        if ci[p, _C_SAT]:  # a saturated reservoir: its potential C/K is the solubility
+            inv_k[p] = cf[p, _C_SATK]
+    held = np.empty(nc, dtype=np.bool_)
+    has_volume = np.empty(nc, dtype=np.bool_)
+    shrinking = np.empty(nc, dtype=np.bool_)
+    evap = np.empty(nc)
+    residual = np.empty(nc)
+    solubility = np.empty(nc)
+    for p in range(nc):
+        held[p] = ci[p, _C_HELD] != 0
+        has_volume[p] = ci[p, _C_VOL] != 0
+        shrinking[p] = ci[p, _C_SHRINK] != 0
+        evap[p] = cf[p, _C_EVAP]
+        residual[p] = cf[p, _C_RESID]
+        solubility[p] = cf[p, _C_SOL]
+    area = np.empty(n_bar)
+    for b in range(n_bar):
+        area[b] = bf[b, 0]
+    return (cap, inv_cap, inv_k, link_p, link_q, link_a, link_b, link_c, link_d, link_loss, link_track, chain_g,
+            other_links, loss_rate, loss_to, lossy, y0, scale, face_ptr, face_link, lay_idx, centres, ends, bstart,
+            blink, held, has_volume, shrinking, evap, residual, solubility, area)

@@ -736,6 +736,13 @@ _C_CAP, _C_INVK, _C_LOSS, _C_START, _C_MREF, _C_TIGHT, _C_CLEAR, _C_EVAP, _C_RES
 _CF = 11
 _C_OWN, _C_SHRINK, _C_HELD, _C_VOL, _C_CLINK, _C_SAT = range(6)
 _CI = 6
+# the fields of _assemble's three buffers, in order (with the grids' centres and the layers' ends,
+# the barriers' first states and first links)
+_F_FIELDS = ("capacity", "inv_capacity", "inv_partition", "link_a", "link_b", "link_c", "link_d", "chain_g",
+             "loss_rate", "y0", "scale", "evap_rate", "residual", "solubility", "area", "centres", "ends")
+_I_FIELDS = ("link_p", "link_q", "link_loss", "link_track", "other_links", "loss_to", "lossy", "face_ptr",
+             "face_link", "layer_of_cell", "bstart", "blink")
+_B_FIELDS = ("held", "has_volume", "shrinking")
 
 
 def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, int], np.ndarray]) -> CompiledModel:
@@ -805,14 +812,31 @@ def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, i
     n_cells = len(w_all)
     n_dyn = n_comp + n_cells
     q_supply = n_dyn + n_comp + 2 * n_bar
-    (cap, inv_cap, inv_k, link_p, link_q, link_a, link_b, link_c, link_d, link_loss, link_track, chain_g, other,
-     loss_rate, loss_to, lossy, y0, scale, face_ptr, face_link, lay_idx, centres, ends, bstart, blink, held,
-     has_volume, shrinking, evap, residual, solubility, area) = _assemble(
+    n_state = q_supply + 4 * n_comp
+    n_link = n_cells + n_bar + len(exf) + sum(ci[_C_CLINK::_CI])  # (see _assemble)
+    # every array in three buffers (float, int, bool), each a run of views (a compiled call boxes
+    # each array it returns through an interpreted call, about 1 us apiece on a cold run)
+    sizes = (n_dyn, n_dyn, n_dyn, n_link, n_link, n_link, n_link, max(n_cells, 1), n_dyn, n_state, n_state, n_comp,
+             n_comp, n_comp, n_bar, n_cells, n_lay,  # floats: _F_FIELDS
+             n_link, n_link, n_link, n_link, n_link, n_dyn, n_dyn, n_comp + 1, 2 * n_bar, n_cells, n_bar + 1,
+             n_bar,  # ints: _I_FIELDS (other_links and lossy: room for all, the first n_other, n_lossy used)
+             n_comp, n_comp, n_comp)  # bools: _B_FIELDS
+    nf, ni = len(_F_FIELDS), len(_I_FIELDS)
+    off = [0, *accumulate(sizes[:nf]), 0, *accumulate(sizes[nf:nf + ni]), 0, *accumulate(sizes[nf + ni:])]
+    fo, io, bo = off[:nf + 1], off[nf + 1:nf + ni + 2], off[nf + ni + 2:]
+    fb, ib, bb = np.empty(fo[-1]), np.empty(io[-1], dtype=np.int64), np.empty(bo[-1], dtype=np.bool_)
+    n_other, n_lossy = _assemble(
         np.array(cf, dtype=np.float64).reshape(n_comp, _CF), np.array(ci, dtype=np.int64).reshape(n_comp, _CI),
         np.array(lf, dtype=np.float64).reshape(n_lay, 5), np.array(cells, dtype=np.int64), w_all,
         np.array(bf, dtype=np.float64).reshape(n_bar, 5),
         np.array(bi, dtype=np.int64).reshape(n_bar, 5), np.array(ex, dtype=np.int64).reshape(-1, 2),
-        np.array(exf, dtype=np.float64), POTENTIAL_MARGIN)
+        np.array(exf, dtype=np.float64), POTENTIAL_MARGIN, fb, ib, bb, np.array(off, dtype=np.int64))
+    (cap, inv_cap, inv_k, link_a, link_b, link_c, link_d, chain_g, loss_rate, y0, scale, evap, residual, solubility,
+     area, centres, ends) = (fb[fo[k]:fo[k + 1]] for k in range(nf))
+    (link_p, link_q, link_loss, link_track, other, loss_to, lossy, face_ptr, face_link, lay_idx, bstart,
+     blink) = (ib[io[k]:io[k + 1]] for k in range(ni))
+    other, lossy = other[:n_other], lossy[:n_lossy]
+    held, has_volume, shrinking = (bb[bo[k]:bo[k + 1]] for k in range(3))
     tr = scenario.transfers
     arrays = ModelArrays(
         n_comp, n_dyn, q_supply, q_supply + n_comp, q_supply + 3 * n_comp, cap, inv_cap, inv_k, link_p, link_q,
@@ -841,9 +865,49 @@ def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, i
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
+def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin, fb, ib, bb, off):
     """Every array of one scenario's model (see :func:`_compile_one` for the columns of the
-    arguments), by the arithmetic of :func:`compile_elementwise`, operation for operation."""
+    arguments), by the arithmetic of :func:`compile_elementwise`, operation for operation, into
+    the buffers ``fb``, ``ib``, ``bb`` (float, int, bool: the fields :data:`_F_FIELDS`,
+    :data:`_I_FIELDS`, :data:`_B_FIELDS` one after the other, from the offsets ``off``); returns
+    how many other links and lossy states there are (the first of the room given to each)."""
+    nf = len(_F_FIELDS)
+    ni = len(_I_FIELDS)
+    fo = off[:nf + 1]
+    io = off[nf + 1:nf + ni + 2]
+    bo = off[nf + ni + 2:]
+    cap = fb[fo[0]:fo[1]]
+    inv_cap = fb[fo[1]:fo[2]]
+    inv_k = fb[fo[2]:fo[3]]
+    link_a = fb[fo[3]:fo[4]]
+    link_b = fb[fo[4]:fo[5]]
+    link_c = fb[fo[5]:fo[6]]
+    link_d = fb[fo[6]:fo[7]]
+    chain_g = fb[fo[7]:fo[8]]
+    loss_rate = fb[fo[8]:fo[9]]
+    y0 = fb[fo[9]:fo[10]]
+    scale = fb[fo[10]:fo[11]]
+    evap = fb[fo[11]:fo[12]]
+    residual = fb[fo[12]:fo[13]]
+    solubility = fb[fo[13]:fo[14]]
+    area_out = fb[fo[14]:fo[15]]
+    centres = fb[fo[15]:fo[16]]
+    ends = fb[fo[16]:fo[17]]
+    link_p = ib[io[0]:io[1]]
+    link_q = ib[io[1]:io[2]]
+    link_loss = ib[io[2]:io[3]]
+    link_track = ib[io[3]:io[4]]
+    other_links = ib[io[4]:io[5]]
+    loss_to = ib[io[5]:io[6]]
+    lossy = ib[io[6]:io[7]]
+    face_ptr = ib[io[7]:io[8]]
+    face_link = ib[io[8]:io[9]]
+    lay_idx = ib[io[9]:io[10]]
+    bstart = ib[io[10]:io[11]]
+    blink = ib[io[11]:io[12]]
+    held = bb[bo[0]:bo[1]]
+    has_volume = bb[bo[1]:bo[2]]
+    shrinking = bb[bo[2]:bo[3]]
     nc = cf.shape[0]
     n_bar = bf.shape[0]
     n_cells = w.shape[0]
@@ -855,15 +919,10 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
     q_lost = q_supply + 2 * nc
     n_state = q_supply + 4 * nc
     # the cells: each barrier's range of states, first link, layers
-    bstart = np.empty(n_bar + 1, dtype=np.int64)
-    blink = np.empty(n_bar, dtype=np.int64)
-    lay_idx = np.empty(n_cells, dtype=np.int64)
     part = np.empty(n_cells)  # partition coefficient of each cell
     dif = np.empty(n_cells)
     kdeg = np.empty(n_cells)
     c0 = np.empty(n_cells)
-    centres = np.empty(n_cells)
-    ends = np.empty(lf.shape[0])
     n_link = 0
     n_clink = 0
     for p in range(nc):
@@ -899,9 +958,6 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
         lay += bi[b, 3]
     bstart[n_bar] = nc + cell
     # per-state numbers
-    cap = np.empty(nd)
-    inv_k = np.empty(nd)
-    loss_rate = np.empty(nd)
     for p in range(nc):
         cap[p] = cf[p, _C_CAP]
         inv_k[p] = cf[p, _C_INVK]
@@ -913,23 +969,18 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
             cap[s] = area * w[a]
             inv_k[s] = 1.0 / part[a]
             loss_rate[s] = kdeg[a]
-    inv_cap = np.empty(nd)
     for s in range(nd):
         inv_cap[s] = 1.0 / cap[s]
     # links: each barrier's (its faces and cells, or one for a steady barrier), the exchanges, the
     # clearances that go to links of their own
     n_ex = ex.shape[0]
     n_all = n_link + n_ex + n_clink
-    link_p = np.empty(n_all, dtype=np.int64)
-    link_q = np.empty(n_all, dtype=np.int64)
-    link_loss = np.full(n_all, -1, dtype=np.int64)
-    link_track = np.full(n_all, -1, dtype=np.int64)
-    link_a = np.empty(n_all)
-    link_b = np.empty(n_all)
-    link_c = np.empty(n_all)
-    link_d = np.empty(n_all)
+    for j in range(n_all):
+        link_loss[j] = -1
+        link_track[j] = -1
     other = np.ones(n_all, dtype=np.bool_)
-    chain_g = np.zeros(max(n_cells, 1))
+    for a in range(chain_g.shape[0]):
+        chain_g[a] = 0.0
     n_face = np.zeros(nc, dtype=np.int64)
     for b in range(n_bar):
         p_from = bi[b, 0]
@@ -1003,10 +1054,9 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
             link_d[j] = 0.0
             j += 1
     # the barrier links touching each compartment, barrier after barrier
-    face_ptr = np.zeros(nc + 1, dtype=np.int64)
+    face_ptr[0] = 0
     for p in range(nc):
         face_ptr[p + 1] = face_ptr[p] + n_face[p]
-    face_link = np.empty(face_ptr[nc], dtype=np.int64)
     fill = face_ptr[:nc].copy()
     for b in range(n_bar):
         j0 = blink[b]
@@ -1017,13 +1067,11 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
     n_other = 0
     for j in range(n_all):
         n_other += other[j]
-    other_links = np.empty(n_other, dtype=np.int64)
     k = 0
     for j in range(n_all):
         if other[j]:
             other_links[k] = j
             k += 1
-    loss_to = np.empty(nd, dtype=np.int64)
     for p in range(nc):
         loss_to[p] = q_lost + p if ci[p, _C_OWN] else q_elim + p
     for b in range(n_bar):
@@ -1032,15 +1080,14 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
     n_lossy = 0
     for s in range(nd):
         n_lossy += loss_rate[s] != 0.0
-    lossy = np.empty(n_lossy, dtype=np.int64)
     k = 0
     for s in range(nd):
         if loss_rate[s] != 0.0:
             lossy[k] = s
             k += 1
     # the initial state and the magnitude scales
-    y0 = np.zeros(n_state)
-    scale = np.empty(n_state)
+    for s in range(n_state):
+        y0[s] = 0.0
     for p in range(nc):
         y0[p] = cf[p, _C_START]
         s0 = cf[p, _C_MREF] / cap[p]
@@ -1074,12 +1121,6 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
     for p in range(nc):
         if ci[p, _C_SAT]:  # a saturated reservoir: its potential C/K is the solubility
             inv_k[p] = cf[p, _C_SATK]
-    held = np.empty(nc, dtype=np.bool_)
-    has_volume = np.empty(nc, dtype=np.bool_)
-    shrinking = np.empty(nc, dtype=np.bool_)
-    evap = np.empty(nc)
-    residual = np.empty(nc)
-    solubility = np.empty(nc)
     for p in range(nc):
         held[p] = ci[p, _C_HELD] != 0
         has_volume[p] = ci[p, _C_VOL] != 0
@@ -1087,9 +1128,6 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin):
         evap[p] = cf[p, _C_EVAP]
         residual[p] = cf[p, _C_RESID]
         solubility[p] = cf[p, _C_SOL]
-    area = np.empty(n_bar)
     for b in range(n_bar):
-        area[b] = bf[b, 0]
-    return (cap, inv_cap, inv_k, link_p, link_q, link_a, link_b, link_c, link_d, link_loss, link_track, chain_g,
-            other_links, loss_rate, loss_to, lossy, y0, scale, face_ptr, face_link, lay_idx, centres, ends, bstart,
-            blink, held, has_volume, shrinking, evap, residual, solubility, area)
+        area_out[b] = bf[b, 0]
+    return n_other, n_lossy

@@ -144,8 +144,34 @@ def ledger_rows(model: CompiledModel, comp_conc: np.ndarray, cell_amount: np.nda
 def ledger_weights(model: CompiledModel) -> np.ndarray:
     """Which cumulative amounts make each ledger term: a 0/1 matrix (quadratures x 6: dosed by
     infusions and holds, held supply, eliminated, degraded, lost, sampled), for
-    :func:`relative_error_of` (the structure only: every subject of a population shares it)."""
-    return _weights(model)[0]
+    :func:`relative_error_of` (the structure only: every subject of a population shares it).
+    Built once per model, in one compiled pass (:func:`_weight_table`)."""
+    memo = model.__dict__.get("_ledger_w")
+    if memo is None:
+        m = model
+        nd = m.n_dyn
+        memo = model.__dict__["_ledger_w"] = _weight_table(
+            m.n_state - nd, m.n_comp, m.n_bar, m.q_supply - nd, m.q_infused - nd, m.q_lost - nd, m.q_sampled - nd,
+            m.held)
+    return memo
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _weight_table(n_q, nc, nb, sup, inf, lost, smp, held):
+    """:func:`ledger_weights` of a model with ``n_q`` cumulative amounts, ``nc`` compartments
+    (``held``), ``nb`` barriers and the offsets (from the first cumulative amount) of the supplied,
+    infused, lost and sampled amounts."""
+    w = np.zeros((n_q, 6))
+    for p in range(nc):
+        w[inf + p, 0] = 1.0  # dosed: infusions, and the supply of holds on compartments not held
+        w[sup + p, 0] = 0.0 if held[p] else 1.0
+        w[sup + p, 1] = 1.0 if held[p] else 0.0  # a held compartment's supply
+        w[p, 2] = 1.0  # eliminated
+        w[lost + p, 4] = 1.0
+        w[smp + p, 5] = 1.0
+    for b in range(nb):
+        w[nc + b, 3] = 1.0  # degraded
+    return w
 
 
 @njit(**INNER)
@@ -233,19 +259,7 @@ def _weights(model: CompiledModel) -> tuple[np.ndarray, np.ndarray]:
     if memo is not None:
         return memo
     m = model
-    nc, nd, nb = m.n_comp, m.n_dyn, m.n_bar
-    # (each offset read once: the model's offsets are properties)
-    sup, inf, lost, smp = m.q_supply - nd, m.q_infused - nd, m.q_lost - nd, m.q_sampled - nd
-    w = np.zeros((m.n_state - nd, 6))
-    held = m.held
-    w[inf:inf + nc, 0] = 1.0
-    w[sup:sup + nc, 0] = ~held  # (booleans as 0.0 / 1.0)
-    w[sup:sup + nc, 1] = held
-    w[:nc, 2] = 1.0
-    w[nc:nc + nb, 3] = 1.0
-    w[lost:lost + nc, 4] = 1.0
-    w[smp:smp + nc, 5] = 1.0
-    out = (w, np.where(m.has_volume, m.capacity[..., :nc], 0.0))
+    out = (ledger_weights(m), np.where(m.has_volume, m.capacity[..., :m.n_comp], 0.0))
     model.__dict__["_ledger_weights"] = out
     return out
 

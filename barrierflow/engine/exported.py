@@ -59,20 +59,49 @@ def taps_of(model: CompiledModel) -> Taps:
     if memo is not None:
         return memo
     m = model
-    nd, n_state, grids = m.n_dyn, m.n_state, m.grids
-    lp, lq = m.link_p, m.link_q
-    faces = []
-    for g in grids:
-        for link in (g.in_link, g.out_link):
-            faces += [int(lp[link]), int(lq[link])]
-    keep = np.array(sorted({*range(m.n_comp), *faces, *range(nd, n_state)}), dtype=np.int64)
-    pos = np.full(n_state, -1, dtype=np.int64)
-    pos[keep] = np.arange(len(keep))
-    bstart = np.array([g.start for g in grids], dtype=np.int64)
-    bstop = np.array([max(g.start, min(g.stop, nd)) for g in grids], dtype=np.int64)
+    nd, grids = m.n_dyn, m.grids
+    ends = [0] * (4 * len(grids))  # each barrier's first and last link and first and last cell
+    for b, g in enumerate(grids):
+        ends[4 * b:4 * b + 4] = (g.in_link, g.out_link, g.start, max(g.start, min(g.stop, nd)))
+    keep, pos, bstart, bstop = _taps_arrays(m.n_comp, nd, m.n_state, m.link_p, m.link_q,
+                                            np.array(ends, dtype=np.int64))
     taps = Taps(keep, pos, bstart, bstop, 1.0 / m.scale)
     model.__dict__["_taps"] = taps
     return taps
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _taps_arrays(nc, nd, n_state, link_p, link_q, ends):
+    """:func:`taps_of`'s ``keep, pos, bstart, bstop`` in one compiled pass: every compartment, the
+    two states of each barrier's face links (``ends``: per barrier its first and last link, first
+    cell and one past its last), every cumulative amount, increasing."""
+    n_bar = ends.shape[0] // 4
+    kept = np.zeros(n_state, dtype=np.bool_)
+    for i in range(nc):
+        kept[i] = True
+    for i in range(nd, n_state):
+        kept[i] = True
+    bstart = np.empty(n_bar, dtype=np.int64)
+    bstop = np.empty(n_bar, dtype=np.int64)
+    for b in range(n_bar):
+        for k in range(2):
+            link = ends[4 * b + k]
+            kept[link_p[link]] = True
+            kept[link_q[link]] = True
+        bstart[b] = ends[4 * b + 2]
+        bstop[b] = ends[4 * b + 3]
+    n_keep = 0
+    for i in range(n_state):
+        n_keep += kept[i]
+    keep = np.empty(n_keep, dtype=np.int64)
+    pos = np.full(n_state, -1, dtype=np.int64)
+    j = 0
+    for i in range(n_state):
+        if kept[i]:
+            keep[j] = i
+            pos[i] = j
+            j += 1
+    return keep, pos, bstart, bstop
 
 
 def new_buffers(taps: Taps, n_t: int, n_state: int) -> tuple:
@@ -296,21 +325,23 @@ class Rows:
         the guard over them, the last row's included only when it is the buffers' last, through
         :meth:`finished`)."""
         _k, _s, _e, _i, cols, cont, clip, guard, _last = buf
-        fin = not bool(np.isnan(guard[2]))
-        rows = cls(taps_of(model), cols[:n_rows], cont[:n_rows], clip[:n_rows], float(guard[0]), float(guard[1]),
-                   fin)
-        return rows
+        if n_rows != len(cols):
+            cols, cont, clip = cols[:n_rows], cont[:n_rows], clip[:n_rows]
+        low, neg, fin = guard.tolist()
+        return cls(taps_of(model), cols, cont, clip, low, neg, fin == fin)  # (fin: 0.0, or NaN when not finite)
 
     def finished(self, model: CompiledModel, last: np.ndarray) -> Rows:
         """These rows with the last one kept from its full state ``last`` (after the events at the
         very end of the run), and the guard taken over it too."""
         t = self.taps
         n = len(self.cols)
+        y = np.ascontiguousarray(last, dtype=np.float64)
+        # (the buffers' last row is y itself: take_row keeps the last row there, a copy onto itself)
         buf = (t.keep, t.bstart, t.bstop, t.inv_scale, self.cols, self.content, self.clipped,
-               np.array([self.low, self.most_negative, 0.0 if self.finite else np.nan]), np.zeros(len(last)))
-        _finish(np.ascontiguousarray(last, dtype=np.float64), n - 1, buf, model.capacity, model.n_dyn)
-        g = buf[7]
-        return Rows(t, self.cols, self.content, self.clipped, float(g[0]), float(g[1]), not bool(np.isnan(g[2])))
+               np.array([self.low, self.most_negative, 0.0 if self.finite else np.nan]), y)
+        _finish(y, n - 1, buf, model.capacity, model.n_dyn)
+        low, neg, fin = buf[7].tolist()
+        return Rows(t, self.cols, self.content, self.clipped, low, neg, fin == fin)
 
     @classmethod
     def from_states(cls, model: CompiledModel, states: np.ndarray) -> Rows:

@@ -723,7 +723,7 @@ _PURE = textwrap.dedent("""
     from barrierflow.engine.rosenbrock import RosenbrockIntegrator
     from barrierflow.engine.population import simulate_population
     from barrierflow.engine import exact_chain, population, rosenbrock
-    for f in (rosenbrock.run_marks, exact_chain.chain_schedule, population._run_population_exact):
+    for f in (rosenbrock.run_marks, exact_chain.chain_schedule, population._run_population):
         assert not hasattr(f, "signatures"), "numba is compiling: NUMBA_DISABLE_JIT did not take effect"
     out = {{}}
     s = patch_body(cells=2, hold=True)

@@ -284,23 +284,24 @@ class Population:
 
 
 # ---------------------------------------------------------------- the compiled population run
-# Each kernel runs the subjects ``lo`` to ``hi - 1`` one after the other, writing only their own
+# The kernel runs the subjects ``lo`` to ``hi - 1`` one after the other, writing only their own
 # rows of the outputs; :func:`_in_blocks` hands fixed blocks of subjects to a few Python threads,
-# each calling a kernel without the GIL (``nogil``). A kernel is serial code around the single
-# run's own compiled loop (``run_marks``, ``chain_schedule``), which it calls through the loop's
+# each calling the kernel without the GIL (``nogil``). The kernel is serial code around the single
+# run's own compiled loop (``chain_schedule`` when ``exact``, else ``run_marks``; one kernel for
+# both paths, so one compiled form of it), which it calls through the loop's
 # address (``loop``, calls.entry, built by _entries from subject 0 as the kernel builds each
 # subject's arguments): the very code a single run executes, compiled once for both, so the
 # kernel's first compile is that of its own body (linked in, as a direct call would, the run
-# loop's tree was optimised and emitted again inside each kernel: seconds each; a ``prange`` loop
+# loop's tree was optimised and emitted again inside the kernel: seconds; a ``prange`` loop
 # around it took tens). The per-subject copy of the kept columns and the check (_keep_rows) is
-# called the same way (``finish``), compiled once for both kernels.
+# called the same way (``finish``).
 # ``stack`` is the subjects' ModelArrays stacked (arrays.stack_arrays) and ``work`` the runs' own
 # copy of what events change (arrays.working_copy); ``ev`` the shared events with ``ev_values``
 # (n_sub, n_ev) each subject's own values.
 @njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population(lo, hi, loop, finish, marks, times, ev, ev_values, stack, work, sargs, coef, n_w, n_jac, rtol,
-                    atol_rel, max_steps, hold, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content,
-                    low, rel, status, fail_k, stats):
+def _run_population(lo, hi, loop, finish, exact, order, cut, sargs, coef, n_w, rtol, atol_rel, max_steps, hold, marks,
+                    times, ev, ev_values, stack, work, n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed,
+                    out_removed, content, low, rel, status, fail_k, stats):
     n = stack.y0.shape[1]
     n_t = times.shape[0]
     n_int = marks.shape[0] - 1
@@ -310,47 +311,28 @@ def _run_population(lo, hi, loop, finish, marks, times, ev, ev_values, stack, wo
         evi = EventArrays(ev.time, ev.kind, ev.comp, ev_values[i])
         nc = m.n_comp
         states = np.empty((n_t, n))
-        for r in range(n_t):
-            for j in range(n):
-                states[r, j] = np.nan
+        if not exact:
+            for r in range(n_t):
+                for j in range(n):
+                    states[r, j] = np.nan
         evd = np.zeros((n_t, nc))
         evr = np.zeros((n_t, nc))
         y = base.y0.copy()
         s = new_event_state(base, ev.time.shape[0])
-        ptr = np.zeros(2, dtype=np.int64)
         st = np.zeros(6, dtype=np.int64)
-        atol = atol_rel * base.scale
         # the first interval and ``full`` of the types the single run gives them (an int64, a bool):
-        # a literal 0 or True would compile run_marks a second time
-        code, k = _call_run_marks(loop, np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w, n_jac,
-                                  rtol, atol, max_steps, hold, y, ptr, states, evd, evr, st, np.bool_(True),
-                                  empty_taps(n))
-        status[i] = code
-        fail_k[i] = k
-        for j in range(6):
-            stats[i, j] = st[j]
-        _call_keep_rows(finish, states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i],
-                        out_removed[i], content[i], low, rel, i)
-
-
-@njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _run_population_exact(lo, hi, loop, finish, marks, times, ev, ev_values, stack, work, order, cut, n_jac, keep,
-                          n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, stats):
-    n = stack.y0.shape[1]
-    n_t = times.shape[0]
-    for i in range(lo, hi):
-        base = subject(stack, i)
-        m = subject(work, i)
-        evi = EventArrays(ev.time, ev.kind, ev.comp, ev_values[i])
-        nc = m.n_comp
-        states = np.empty((n_t, n))
-        evd = np.zeros((n_t, nc))
-        evr = np.zeros((n_t, nc))
-        st = np.zeros(6, dtype=np.int64)
-        s = new_event_state(base, ev.time.shape[0])
-        status[i] = _call_chain_schedule(loop, marks, times, evi, plain(m), plain(base), s, order, cut, n_jac,
-                                         base.y0.copy(), states, evd, evr, st, np.bool_(True),
-                                         empty_taps(n))  # not a literal True (as above)
+        # a literal 0 or True would call for a second compiled form of the loop
+        if exact:
+            status[i] = _call_chain_schedule(loop, marks, times, evi, plain(m), plain(base), s, order, cut, n_jac, y,
+                                             states, evd, evr, st, np.bool_(True), empty_taps(n))
+        else:
+            ptr = np.zeros(2, dtype=np.int64)
+            atol = atol_rel * base.scale
+            code, k = _call_run_marks(loop, np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w,
+                                      n_jac, rtol, atol, max_steps, hold, y, ptr, states, evd, evr, st,
+                                      np.bool_(True), empty_taps(n))
+            status[i] = code
+            fail_k[i] = k
         for j in range(6):
             stats[i, j] = st[j]
         _call_keep_rows(finish, states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[i], out_dosed[i],
@@ -428,7 +410,7 @@ def _entries(batch: _Batch, work: ModelArrays, order, cut: float, n_jac: int, st
     """The entries (:func:`~barrierflow.engine.calls.entry`) of what a kernel calls per subject:
     the run loop (``chain_schedule`` with ``order``, else ``run_marks``) and :func:`_keep_rows`
     (``kept``: its arguments after the subject's model, the outputs whole); their arguments built
-    for subject 0 as :func:`_run_population_exact` and :func:`_run_population` build them for each."""
+    for subject 0 as :func:`_run_population` builds them for each."""
     ev, n = batch.ev, batch.model.n_state
     base = _subject_arrays(batch.arrays, 0)
     m = _subject_arrays(work, 0)
@@ -795,21 +777,21 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     stats = np.zeros((n_sub, 6), dtype=np.int64)
     n_jac = jacobian_size(m0)
     kept = (keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel)
+    # one kernel for both paths (one compiled form): the exact path's runs take the RODAS4 path's
+    # arguments too (unused), the RODAS4 path's an empty chain order
+    struct = build_structure(m0)
     if order is not None:
         name = "exact (population)"
         cut = -60.0 / _shortest_time(times, marks)
-        loop, finish = _entries(batch, work, order, cut, n_jac, None, integ, kept)
-        _in_blocks(_run_population_exact, n_sub, threads, loop, finish, marks, times, ev, ev_v, arrays, work, order,
-                   cut, n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status,
-                   stats)
     else:
         name = f"{integ.name} (population)"
-        struct = build_structure(m0)
-        loop, finish = _entries(batch, work, None, 0.0, n_jac, struct, integ, kept)
-        _in_blocks(_run_population, n_sub, threads, loop, finish, marks, times, ev, ev_v, arrays, work, struct.args(),
-                   COEF, struct.n_w, n_jac, float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold),
-                   keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel, status, fail_k,
-                   stats)
+        cut = 0.0
+    loop, finish = _entries(batch, work, order, cut, n_jac, struct, integ, kept)
+    _in_blocks(_run_population, n_sub, threads, loop, finish, np.bool_(order is not None),
+               order if order is not None else np.zeros(0, dtype=np.int64), cut, struct.args(), COEF, struct.n_w,
+               float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), marks, times, ev, ev_v,
+               arrays, work, n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel,
+               status, fail_k, stats)
     _apply_at_end_kept(batch, keep, status, out, out_dosed, out_removed)
     # the guard of every run (barrierflow.engine.ledger.verdict), for every subject (its ledger
     # computed in the kernel), then its magnitudes against their scales (ledger.check_magnitudes,

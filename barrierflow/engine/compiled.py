@@ -43,6 +43,7 @@ from itertools import accumulate
 
 import numpy as np
 from numba import njit
+from numba.extending import register_jitable
 
 from ..model import Barrier, Scenario
 from ..model.cohort import Diverging, cohort_size, decide
@@ -52,6 +53,38 @@ from .schedule import RegimenBounds, regimen_bounds
 from .twoport import stack_two_port
 
 __all__ = ["BarrierGrid", "CompiledModel", "ModelArrays", "compile_scenario", "limited_compartments"]
+
+
+@register_jitable
+def state_layout(n_comp, n_bar, n_cells):
+    """Where each part of the full state vector starts (the one home of this layout).
+
+    The state vector holds, in order: the compartments' amounts (n_comp), the barrier cells'
+    amounts (n_cells; with the compartments, the n_dyn dynamic states), then cumulative amounts
+    (mg): eliminated (n_comp), degraded per barrier (n_bar), permeated per barrier (n_bar), then
+    four per compartment from ``q_supply`` on (supplied by doses, infused, lost to the air,
+    sampled). Callable from Python and from compiled code (numba compiles it into its caller).
+
+    Parameters
+    ----------
+    n_comp, n_bar, n_cells : int
+        Numbers of compartments, barriers and barrier cells.
+
+    Returns
+    -------
+    tuple of int
+        ``(n_dyn, q_elim, q_degr, q_perm, q_supply, q_lost, n_state)``: the number of dynamic
+        states, the offsets of the eliminated, degraded, permeated, supplied and lost amounts,
+        and the length of the full state vector.
+    """
+    n_dyn = n_comp + n_cells
+    q_elim = n_dyn
+    q_degr = n_dyn + n_comp
+    q_perm = q_degr + n_bar
+    q_supply = q_perm + n_bar
+    q_lost = q_supply + 2 * n_comp
+    n_state = q_supply + 4 * n_comp
+    return n_dyn, q_elim, q_degr, q_perm, q_supply, q_lost, n_state
 
 
 @dataclass(frozen=True)
@@ -107,8 +140,9 @@ class CompiledModel:
         d = self.__dict__
         d.update(zip(ModelArrays._fields, self.arrays, strict=True))
         n_comp, n_dyn, n_bar = self.arrays.n_comp, self.arrays.n_dyn, self.arrays.area.shape[-1]
-        d.update(n_cells=n_dyn - n_comp, n_bar=n_bar, n_state=n_dyn + 5 * n_comp + 2 * n_bar, q_elim=n_dyn,
-                 q_degr=n_dyn + n_comp, q_perm=n_dyn + n_comp + n_bar, q_lost=n_dyn + 3 * n_comp + 2 * n_bar)
+        _, q_elim, q_degr, q_perm, _, q_lost, n_state = state_layout(n_comp, n_bar, n_dyn - n_comp)
+        d.update(n_cells=n_dyn - n_comp, n_bar=n_bar, n_state=n_state, q_elim=q_elim, q_degr=q_degr, q_perm=q_perm,
+                 q_lost=q_lost)
 
     #: Number of barrier cells.
     n_cells: int = field(init=False, repr=False, compare=False)
@@ -565,13 +599,7 @@ def compile_elementwise(scenario: Scenario, grid: Grid | None = None,
         loss_parts.append(_row([x.degradation_rate for x in b.layers])[..., lay_idx])
         offset += w.shape[-1]
     n_cells = offset - n_comp
-    n_dyn = n_comp + n_cells
-    q_elim0 = n_dyn
-    q_degr0 = n_dyn + n_comp
-    q_perm0 = q_degr0 + n_bar
-    q_supply0 = q_perm0 + n_bar
-    q_lost0 = q_supply0 + 2 * n_comp
-    n_state = q_supply0 + 4 * n_comp
+    n_dyn, q_elim0, q_degr0, q_perm0, q_supply0, q_lost0, n_state = state_layout(n_comp, n_bar, n_cells)
 
     # links, in order: each barrier's links (one for a steady barrier; the from face, the cell
     # faces, the to face for a resolved one), then the exchanges, then the clearances that go to
@@ -810,9 +838,7 @@ def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, i
         exf.append(e.flow)
     w_all = np.concatenate(widths) if widths else np.zeros(0)
     n_cells = len(w_all)
-    n_dyn = n_comp + n_cells
-    q_supply = n_dyn + n_comp + 2 * n_bar
-    n_state = q_supply + 4 * n_comp
+    n_dyn, _, _, _, q_supply, _, n_state = state_layout(n_comp, n_bar, n_cells)
     n_link = n_cells + n_bar + len(exf) + sum(ci[_C_CLINK::_CI])  # (see _assemble)
     # every array in three buffers (float, int, bool), each a run of views (a compiled call boxes
     # each array it returns through an interpreted call, about 1 us apiece on a cold run)
@@ -911,13 +937,7 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin, fb, ib, bb, off):
     nc = cf.shape[0]
     n_bar = bf.shape[0]
     n_cells = w.shape[0]
-    nd = nc + n_cells
-    q_elim = nd
-    q_degr = nd + nc
-    q_perm = q_degr + n_bar
-    q_supply = q_perm + n_bar
-    q_lost = q_supply + 2 * nc
-    n_state = q_supply + 4 * nc
+    nd, q_elim, q_degr, q_perm, q_supply, q_lost, n_state = state_layout(nc, n_bar, n_cells)
     # the cells: each barrier's range of states, first link, layers
     part = np.empty(n_cells)  # partition coefficient of each cell
     dif = np.empty(n_cells)

@@ -59,11 +59,12 @@ __all__ = ["BarrierGrid", "CompiledModel", "ModelArrays", "compile_scenario", "l
 def state_layout(n_comp, n_bar, n_cells):
     """Where each part of the full state vector starts (the one home of this layout).
 
-    The state vector holds, in order: the compartments' amounts (n_comp), the barrier cells'
-    amounts (n_cells; with the compartments, the n_dyn dynamic states), then cumulative amounts
-    (mg): eliminated (n_comp), degraded per barrier (n_bar), permeated per barrier (n_bar), then
-    four per compartment from ``q_supply`` on (supplied by doses, infused, lost to the air,
-    sampled). Callable from Python and from compiled code (numba compiles it into its caller).
+    The state vector holds, in order: the compartments' concentrations (n_comp, mg/mL), the
+    barrier cells' concentrations (n_cells, mg/mL; with the compartments, the n_dyn dynamic
+    states), then cumulative amounts (mg): eliminated per compartment (n_comp), degraded per
+    barrier (n_bar), permeated per barrier (n_bar), then four blocks of n_comp from ``q_supply``
+    on (what a clamp supplied, what was infused, what went to the air, what samples took).
+    Callable from Python and from compiled code (numba compiles it into its caller).
 
     Parameters
     ----------

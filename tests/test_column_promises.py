@@ -15,11 +15,13 @@ peak, at least 1e-4 of the run's largest amount in its units (``test_small_colum
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from test_small_columns import contract_errors, population_errors, reference
 
 import barrierflow as bf
 from barrierflow import SolverError
 from barrierflow.engine import RosenbrockIntegrator, ScipyIntegrator, solve
+from barrierflow.engine.ledger import derived_over
 from barrierflow.engine.population import sample_scenarios
 
 # A compartment of 30 uL with saturable elimination (km 1e-5 mg/mL), fed by infusions and by an
@@ -526,3 +528,253 @@ flow = "5 L/h"
 def test_a_small_eliminated_amount_on_a_chain_network_is_right_or_refused():
     worst, err = _contract(TEN_LAYERS)
     assert err <= 1.0, (worst, err)  # against scipy Radau (52.6 on eliminated:central from the chain path)
+
+
+# The benchmark's patch with ten layers, a body clearance of 3.7 L/h, a bolus of 4.3 ug into the
+# body at 82.7 h with output rows from 1.7e-6 h to 1.7 h either side of it, and the patch replaced
+# every 84 h (extreme patch 217 of the sweep). The exact path declines it (modes too
+# ill-conditioned); the robust RODAS4 run keeps the model's own scales, and the skin's face cell on
+# the body's side, scale 6030 mg/mL, holds 2e-5 of it: the flux's tolerance is 176 times its
+# promise, below DERIVED_EXCESS, and rescaling shrinks it 2.7e5-fold. The default returned the
+# flux through 'skin' 176 times the contract off.
+TEN_LAYERS_BOLUS_NEAR_A_ROW = """
+[scenario]
+name = "adversarial patch to body (invented)"
+duration = "168 h"
+output_times = ["0 h", "16.8 h", "33.6 h", "50.400000000000006 h", "67.2 h", "81.01734206381015 h",
+                "82.68054206381015 h", "82.69717406381015 h", "82.69734038381016 h", "82.69734204701015 h",
+                "82.69734206364215 h", "82.69734206381015 h", "82.69734206397816 h", "82.69734208061016 h",
+                "82.69734374381015 h", "82.69751006381016 h", "82.71414206381016 h", "84 h", "84.37734206381016 h",
+                "100.80000000000001 h", "117.60000000000001 h", "134.4 h", "151.20000000000002 h", "168 h"]
+check_ranges = false
+
+[[compartment]]
+id = "patch"
+volume = "1 mL"
+initial_concentration = "10 mg/mL"
+
+[[compartment]]
+id = "central"
+volume = "5 L"
+clearance = "3739.0550834014666 mL/h"
+
+[[compartment]]
+id = "peripheral"
+volume = "20 L"
+
+[[barrier]]
+id = "skin"
+from = "patch"
+to = "central"
+area = "10 cm^2"
+[[barrier.layer]]
+thickness = "0.011387825281408411 cm"
+diffusivity = "0.0007304682068977827 cm^2/h"
+partition = 0.016115180289314086
+
+[[barrier.layer]]
+thickness = "0.0068169499318225905 cm"
+diffusivity = "1.5632354883493932e-06 cm^2/h"
+partition = 0.010852088945337566
+
+[[barrier.layer]]
+thickness = "0.0019123653224635846 cm"
+diffusivity = "6.748116204727728e-07 cm^2/h"
+partition = 0.2821001271336233
+
+[[barrier.layer]]
+thickness = "0.004758717413318105 cm"
+diffusivity = "4.4742410454119596e-06 cm^2/h"
+partition = 0.4545128771646441
+
+[[barrier.layer]]
+thickness = "0.0002898789844122615 cm"
+diffusivity = "3.891044146346769e-05 cm^2/h"
+partition = 0.7049130302665157
+
+[[barrier.layer]]
+thickness = "0.010193844332390763 cm"
+diffusivity = "1.1935969811357941e-05 cm^2/h"
+partition = 0.013506204840826274
+
+[[barrier.layer]]
+thickness = "0.0003756276235531836 cm"
+diffusivity = "0.003947425815937477 cm^2/h"
+partition = 53.08440077303249
+
+[[barrier.layer]]
+thickness = "0.0017386309812699946 cm"
+diffusivity = "6.855698377166782e-07 cm^2/h"
+partition = 0.9085320470620135
+
+[[barrier.layer]]
+thickness = "0.02378245938610884 cm"
+diffusivity = "2.963717466440361e-05 cm^2/h"
+partition = 1.898744874739167
+
+[[barrier.layer]]
+thickness = "0.0007271811492948437 cm"
+diffusivity = "4.789143146122592e-05 cm^2/h"
+partition = 40.52604710592196
+
+[[exchange]]
+id = "x"
+from = "central"
+to = "peripheral"
+flow = "5 L/h"
+
+[[dose]]
+target = "central"
+kind = "bolus"
+amount = "4.25798162199866 ug"
+at = "82.69734206381015 h"
+
+[[dose]]
+target = "patch"
+kind = "replace"
+concentration = "69.39226762682037 mg/mL"
+at = "84 h"
+every = "84 h"
+
+"""
+
+# Two held compartments linked by two barriers and two exchanges, a 12 uL compartment with
+# saturable elimination emptied at 11.1 h and refilled at 18.6 h (random network 1112 of the
+# sweep's generator, tests/random_networks.py). RODAS4's flux through 'b0' had a tolerance 189
+# times its promise, rescaling would shrink it more than 1e3-fold; the default returned the amount
+# that passed 'b0' 4.0e3 times the contract off.
+HELD_SIDES_REFILLED = """
+[scenario]
+name = "random network (invented)"
+duration = "46.05060469502721 h"
+output_step = "2.1928859378584384 h"
+
+[[compartment]]
+id = "c0"
+partition = 0.7236881426850362
+held_concentration = "0.12697229036759472 mg/mL"
+
+[[compartment]]
+id = "c1"
+partition = 3.2670695918560098
+held_concentration = "0.02137775676614372 mg/mL"
+
+[[compartment]]
+id = "c2"
+volume = "0.011878008485142966 mL"
+initial_concentration = "3.886726596375385 mg/mL"
+partition = 0.2540461258734619
+clearance = "0.25635518196687407 mL/h"
+vmax = "0.8478756206910674 mg/h"
+km = "0.02292990872378059 mg/mL"
+
+[[barrier]]
+id = "b0"
+from = "c1"
+to = "c2"
+area = "0.2886949700371638 cm^2"
+
+[[barrier.layer]]
+thickness = "0.0003680473775997824 cm"
+diffusivity = "8.607186315532531e-08 cm^2/h"
+partition = 7.910696340954761
+cells = 3
+
+[[barrier.layer]]
+thickness = "0.0053339330905980056 cm"
+diffusivity = "9.353371444684511e-06 cm^2/h"
+partition = 4.170615184912413
+cells = 5
+
+[[barrier.layer]]
+thickness = "0.07172286026107053 cm"
+diffusivity = "0.007288986264025896 cm^2/h"
+partition = 0.2004253623055032
+cells = 8
+
+[[barrier]]
+id = "b1"
+from = "c0"
+to = "c1"
+area = "0.7999444124948013 cm^2"
+
+[[barrier.layer]]
+thickness = "0.00010209631879937528 cm"
+diffusivity = "4.659224587599535e-05 cm^2/h"
+partition = 17.909979839974376
+cells = 7
+
+[[exchange]]
+id = "x0"
+from = "c1"
+to = "c0"
+flow = "10.214126195903365 mL/h"
+
+[[exchange]]
+id = "x1"
+from = "c1"
+to = "c0"
+flow = "1717.6085806044787 mL/h"
+
+[[transfer]]
+id = "t0"
+from = "c2"
+to = "c0"
+rate = "0.014381190181821706 1/h"
+
+[[dose]]
+target = "c2"
+kind = "replace"
+concentration = "0.16440920981372475 mg/mL"
+at = "18.55804756464668 h"
+
+[[dose]]
+target = "c2"
+kind = "remove"
+at = "11.055759319457907 h"
+
+"""
+
+
+def _converged(s: bf.Scenario, res: bf.Result) -> bf.Result:
+    """scipy's Radau IIA (Hairer and Wanner, Solving Ordinary Differential Equations II, 2nd ed.,
+    1996, sec. IV.8) at rtol 1e-10 and atol 1e-15 of each state's scale, on ``res``'s grid. The
+    sweep's atol 1e-13 is not converged on these two networks (the default was 1.97 and 1.34 times
+    the contract off it, 0.31 and 0.36 off this one, which agrees with atol 1e-17 within 2 %):
+    face cells hold 1e-5 of their scale there."""
+    return bf.simulate(s, integrator=ScipyIntegrator("Radau", rtol=1e-10, atol=1e-15), grid=res.trajectory.grid,
+                       fallback=False)
+
+
+@pytest.mark.parametrize(("text", "before"), [(TEN_LAYERS_BOLUS_NEAR_A_ROW, "176 on flux:skin"),
+                                              (HELD_SIDES_REFILLED, "4.0e3 on permeated:b0")],
+                         ids=["ten-layers-bolus", "held-sides-refilled"])
+def test_derived_columns_from_scales_far_off_meet_the_contract(text, before):
+    """A flux whose tolerance is 100 to 500 times its promise (below DERIVED_EXCESS), from scales
+    estimated far above what its face cells reached (a rescale shrinks it more than
+    DERIVED_SHRINK-fold), is computed again at observed scales while a rescale remains
+    (``ledger.derived_over``); every exported column within the contract of
+    /work/shared/spec/benchmark.md against scipy's Radau (:func:`_converged`)."""
+    s = bf.loads(text)
+    res = bf.simulate(s)
+    errors = contract_errors(res, _converged(s, res))
+    worst = max(errors, key=errors.get)
+    assert errors[worst] <= 1.0, (worst, errors[worst], before)
+
+
+def test_the_second_rule_applies_only_while_a_rescale_remains():
+    # the figures of the two networks above and of the benchmark's cases (tolerance over promise,
+    # shrink by observed scales), as the guard measured them
+    assert derived_over(176.0, 2.7e5, True) and derived_over(189.0, 1.3e3, True)
+    assert not derived_over(176.0, 2.7e5, False)  # after the last rescale: the first rule alone
+    assert derived_over(838.0, 1e3, False)  # the first rule stands after it (extreme patch 95)
+    assert not derived_over(76.0, 216.0, True)  # the star of 64's fluxes (accurate)
+    assert not derived_over(102.0, 478.0, True)  # the membrane wash-off on Radau at 12 cells (accurate)
+    assert not derived_over(902.0, 173.0, True)  # a flux a rescale cannot help (accurate)
+
+
+def test_the_flux_from_scales_far_off_is_named():
+    tr = solve(bf.loads(TEN_LAYERS_BOLUS_NEAR_A_ROW))
+    assert tr.status == 0
+    assert "the flux of barrier 'skin'" in tr.message
+    assert "with absolute tolerances from the magnitudes it reached" in tr.message

@@ -274,7 +274,8 @@ def solve(
                                traj.volumes, lambda traj=traj: traj.states)
             if not found and fallback:  # its remedy is the second attempt
                 found = check_magnitudes(run_model, traj.rows, traj.initial_amount, traj.event_dosed,
-                                         traj.event_removed, getattr(integ, "atol", None), duration)
+                                         traj.event_removed, getattr(integ, "atol", None), duration,
+                                         rescaled < MAX_RESCALES)
                 small = bool(found)
             if not found:
                 stats = {**traj.stats, "fallbacks": k}

@@ -7,7 +7,9 @@ tests is each subject's own single compile, so any difference would show there a
 check is internal consistency of two builds of the same formulas (common practice: a fast path
 held to its plain reference), over the shipped invented scenarios and seeded random networks
 (held reservoirs, steady barriers, degrading layers, transfers, saturable elimination, every
-dose kind).
+dose kind). The one-pass build also gives, ahead, the chain order and the kept states a run
+reads (`exact_chain.chain_order`, `exported.taps_of`): they equal what the run computes from the
+element-wise model.
 """
 
 from __future__ import annotations
@@ -22,6 +24,8 @@ from random_networks import random_scenario
 import barrierflow as bf
 from barrierflow.engine import arrays, compile_scenario
 from barrierflow.engine.compiled import compile_elementwise
+from barrierflow.engine.exact_chain import chain_order
+from barrierflow.engine.exported import taps_of
 from barrierflow.engine.grid import Grid
 from barrierflow.errors import BarrierflowError
 
@@ -50,6 +54,16 @@ def _same_model(a, b, label):
         for name in ("widths", "centres", "layer_of_cell"):
             x, y = getattr(ga, name), getattr(gb, name)
             assert x.dtype == y.dtype and np.array_equal(x, y), (label, ga.barrier_id, name)
+    # what the one-pass build computes ahead for a run (the chain order, the kept states) is what
+    # the run would compute from the element-wise model
+    assert "_chain_order" in a.__dict__ and "_chain_order" not in b.__dict__, label
+    oa, ob = chain_order(a), chain_order(b)
+    assert (oa is None) == (ob is None), label
+    assert oa is None or (oa.dtype == ob.dtype and np.array_equal(oa, ob)), label
+    ta, tb = taps_of(a), taps_of(b)
+    for name in ("keep", "pos", "bstart", "bstop", "inv_scale"):
+        x, y = getattr(ta, name), getattr(tb, name)
+        assert x.dtype == y.dtype and x.shape == y.shape and np.array_equal(x, y), (label, name)
 
 
 @pytest.mark.parametrize("name", ALL)

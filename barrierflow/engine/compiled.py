@@ -52,7 +52,8 @@ from .grid import Grid, response_time
 from .schedule import RegimenBounds, regimen_bounds
 from .twoport import stack_two_port
 
-__all__ = ["BarrierGrid", "CompiledModel", "ModelArrays", "compile_scenario", "limited_compartments"]
+__all__ = ["BarrierGrid", "CompiledModel", "ModelArrays", "chain_walk", "compile_scenario", "limited_compartments",
+           "taps_arrays"]
 
 
 @register_jitable
@@ -759,6 +760,95 @@ def compile_elementwise(scenario: Scenario, grid: Grid | None = None,
                          barrier_index={b.id: i for i, b in enumerate(bars)})
 
 
+# ---------------------------------------------------------------- rules a run reads from the model
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def chain_walk(nd, held, link_p, link_q, link_b, link_c):
+    """The dynamic states (``nd``) not held (``held``: of the compartments) in chain order, walking
+    each chain from an end; ``[-1]`` when a link's two rates differ (``link_b``, ``link_c``, beyond
+    rounding: the network is not symmetric), a state has a third neighbour or the links close a
+    loop."""
+    for j in range(link_b.shape[0]):
+        if abs(link_b[j] - link_c[j]) > 1e-12 * max(abs(link_b[j]), abs(link_c[j])):
+            return np.full(1, -1, dtype=np.int64)
+    nbr = np.full((nd, 2), -1, dtype=np.int64)
+    off = np.zeros(nd, dtype=np.bool_)
+    for i in range(held.shape[0]):
+        off[i] = held[i]
+    alive = 0
+    for i in range(nd):
+        if not off[i]:
+            alive += 1
+    for j in range(link_p.shape[0]):
+        a = link_p[j]
+        z = link_q[j]
+        if a == z or off[a] or off[z] or nbr[a, 0] == z or nbr[a, 1] == z:
+            continue
+        if nbr[a, 1] >= 0 or nbr[z, 1] >= 0:
+            return np.full(1, -1, dtype=np.int64)  # a third neighbour: not a chain
+        nbr[a, 0 if nbr[a, 0] < 0 else 1] = z
+        nbr[z, 0 if nbr[z, 0] < 0 else 1] = a
+    seen = np.zeros(nd, dtype=np.bool_)
+    order = np.empty(alive, dtype=np.int64)
+    k = 0
+    for start in range(nd):
+        if off[start] or seen[start] or nbr[start, 1] >= 0:
+            continue
+        prev = -1
+        cur = start
+        while cur >= 0 and not seen[cur]:
+            seen[cur] = True
+            order[k] = cur
+            k += 1
+            nxt = -1
+            for e in range(2):
+                c = nbr[cur, e]
+                if c >= 0 and c != prev and not seen[c]:
+                    nxt = c
+                    break
+            prev = cur
+            cur = nxt
+    if k != alive:  # a loop
+        return np.full(1, -1, dtype=np.int64)
+    return order
+
+
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def taps_arrays(nc, nd, n_state, link_p, link_q, ends):
+    """:func:`~barrierflow.engine.exported.taps_of`'s ``keep, pos, bstart, bstop`` in one compiled
+    pass: every compartment, the two states of each barrier's face links (``ends``: per barrier
+    its first and last link, first cell and one past its last), every cumulative amount,
+    increasing (the one rule of which states a run keeps; :func:`_assemble` applies it too)."""
+    n_bar = ends.shape[0] // 4
+    kept = np.zeros(n_state, dtype=np.bool_)
+    for i in range(nc):
+        kept[i] = True
+    for i in range(nd, n_state):
+        kept[i] = True
+    bstart = np.empty(n_bar, dtype=np.int64)
+    bstop = np.empty(n_bar, dtype=np.int64)
+    for b in range(n_bar):
+        for k in range(2):
+            link = ends[4 * b + k]
+            kept[link_p[link]] = True
+            kept[link_q[link]] = True
+        bstart[b] = ends[4 * b + 2]
+        bstop[b] = ends[4 * b + 3]
+    n_keep = 0
+    for i in range(n_state):
+        n_keep += kept[i]
+    keep = np.empty(n_keep, dtype=np.int64)
+    pos = np.full(n_state, -1, dtype=np.int64)
+    j = 0
+    for i in range(n_state):
+        if kept[i]:
+            keep[j] = i
+            pos[i] = j
+            j += 1
+    return keep, pos, bstart, bstop
+
+
 # ---------------------------------------------------------------- one scenario, in one compiled pass
 # The columns of the per-compartment numbers that _compile_one hands to _assemble
 _C_CAP, _C_INVK, _C_LOSS, _C_START, _C_MREF, _C_TIGHT, _C_CLEAR, _C_EVAP, _C_RESID, _C_SOL, _C_SATK = range(11)
@@ -766,11 +856,14 @@ _CF = 11
 _C_OWN, _C_SHRINK, _C_HELD, _C_VOL, _C_CLINK, _C_SAT = range(6)
 _CI = 6
 # the fields of _assemble's three buffers, in order (with the grids' centres and the layers' ends,
-# the barriers' first states and first links)
+# the barriers' first states and first links; and what a run reads of the model besides: the
+# inverse scales, the chain order and the kept states of exported.taps_of)
 _F_FIELDS = ("capacity", "inv_capacity", "inv_partition", "link_a", "link_b", "link_c", "link_d", "chain_g",
-             "loss_rate", "y0", "scale", "evap_rate", "residual", "solubility", "area", "centres", "ends")
+             "loss_rate", "y0", "scale", "evap_rate", "residual", "solubility", "area", "centres", "ends",
+             "inv_scale")
 _I_FIELDS = ("link_p", "link_q", "link_loss", "link_track", "other_links", "loss_to", "lossy", "face_ptr",
-             "face_link", "layer_of_cell", "bstart", "blink")
+             "face_link", "layer_of_cell", "bstart", "blink", "chain_order", "keep", "tap_pos", "tap_bstart",
+             "tap_bstop")
 _B_FIELDS = ("held", "has_volume", "shrinking")
 
 
@@ -844,24 +937,25 @@ def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, i
     # every array in three buffers (float, int, bool), each a run of views (a compiled call boxes
     # each array it returns through an interpreted call, about 1 us apiece on a cold run)
     sizes = (n_dyn, n_dyn, n_dyn, n_link, n_link, n_link, n_link, max(n_cells, 1), n_dyn, n_state, n_state, n_comp,
-             n_comp, n_comp, n_bar, n_cells, n_lay,  # floats: _F_FIELDS
+             n_comp, n_comp, n_bar, n_cells, n_lay, n_state,  # floats: _F_FIELDS
              n_link, n_link, n_link, n_link, n_link, n_dyn, n_dyn, n_comp + 1, 2 * n_bar, n_cells, n_bar + 1,
-             n_bar,  # ints: _I_FIELDS (other_links and lossy: room for all, the first n_other, n_lossy used)
+             n_bar, n_dyn, n_state, n_state, n_bar, n_bar,  # ints: _I_FIELDS (other_links, lossy,
+             # chain_order and keep: room for all, the first n_other, n_lossy, n_order, n_keep used)
              n_comp, n_comp, n_comp)  # bools: _B_FIELDS
     nf, ni = len(_F_FIELDS), len(_I_FIELDS)
     off = [0, *accumulate(sizes[:nf]), 0, *accumulate(sizes[nf:nf + ni]), 0, *accumulate(sizes[nf + ni:])]
     fo, io, bo = off[:nf + 1], off[nf + 1:nf + ni + 2], off[nf + ni + 2:]
     fb, ib, bb = np.empty(fo[-1]), np.empty(io[-1], dtype=np.int64), np.empty(bo[-1], dtype=np.bool_)
-    n_other, n_lossy = _assemble(
+    n_other, n_lossy, n_order, n_keep = _assemble(
         np.array(cf, dtype=np.float64).reshape(n_comp, _CF), np.array(ci, dtype=np.int64).reshape(n_comp, _CI),
         np.array(lf, dtype=np.float64).reshape(n_lay, 5), np.array(cells, dtype=np.int64), w_all,
         np.array(bf, dtype=np.float64).reshape(n_bar, 5),
         np.array(bi, dtype=np.int64).reshape(n_bar, 5), np.array(ex, dtype=np.int64).reshape(-1, 2),
         np.array(exf, dtype=np.float64), POTENTIAL_MARGIN, fb, ib, bb, np.array(off, dtype=np.int64))
     (cap, inv_cap, inv_k, link_a, link_b, link_c, link_d, chain_g, loss_rate, y0, scale, evap, residual, solubility,
-     area, centres, ends) = (fb[fo[k]:fo[k + 1]] for k in range(nf))
+     area, centres, ends, inv_scale) = (fb[fo[k]:fo[k + 1]] for k in range(nf))
     (link_p, link_q, link_loss, link_track, other, loss_to, lossy, face_ptr, face_link, lay_idx, bstart,
-     blink) = (ib[io[k]:io[k + 1]] for k in range(ni))
+     blink, order, keep, tap_pos, tap_bstart, tap_bstop) = (ib[io[k]:io[k + 1]] for k in range(ni))
     other, lossy = other[:n_other], lossy[:n_lossy]
     held, has_volume, shrinking = (bb[bo[k]:bo[k + 1]] for k in range(3))
     tr = scenario.transfers
@@ -886,9 +980,15 @@ def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, i
         lo, hi = start - n_comp, stop - n_comp
         grids.append(BarrierGrid(b.id, start, stop, w_all[lo:hi], centres[lo:hi], lay_idx[lo:hi], interfaces, link,
                                  link + hi - lo))
-    return CompiledModel(arrays, comp_ids=tuple(comp_index), barrier_ids=tuple(b.id for b in bars),
-                         grids=tuple(grids), comp_index=comp_index,
-                         barrier_index={b.id: i for i, b in enumerate(bars)})
+    model = CompiledModel(arrays, comp_ids=tuple(comp_index), barrier_ids=tuple(b.id for b in bars),
+                          grids=tuple(grids), comp_index=comp_index,
+                          barrier_index={b.id: i for i, b in enumerate(bars)})
+    # what exact_chain.chain_order and exported.taps_of would compute from the model (their memos),
+    # by the same compiled rules (chain_walk, taps_arrays) in the same pass
+    d = model.__dict__
+    d["_chain_order"] = order[:n_order] if n_order >= 0 and model.is_linear and not len(tr) else None
+    d["_taps_parts"] = (keep[:n_keep], tap_pos, tap_bstart, tap_bstop, inv_scale)
+    return model
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
@@ -896,8 +996,10 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin, fb, ib, bb, off):
     """Every array of one scenario's model (see :func:`_compile_one` for the columns of the
     arguments), by the arithmetic of :func:`compile_elementwise`, operation for operation, into
     the buffers ``fb``, ``ib``, ``bb`` (float, int, bool: the fields :data:`_F_FIELDS`,
-    :data:`_I_FIELDS`, :data:`_B_FIELDS` one after the other, from the offsets ``off``); returns
-    how many other links and lossy states there are (the first of the room given to each)."""
+    :data:`_I_FIELDS`, :data:`_B_FIELDS` one after the other, from the offsets ``off``), with the
+    model's chain order (:func:`chain_walk`), kept states (:func:`taps_arrays`) and inverse scales;
+    returns how many other links, lossy states, states in chain order (-1: not a chain) and kept
+    states there are (the first of the room given to each)."""
     nf = len(_F_FIELDS)
     ni = len(_I_FIELDS)
     fo = off[:nf + 1]
@@ -932,6 +1034,12 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin, fb, ib, bb, off):
     lay_idx = ib[io[9]:io[10]]
     bstart = ib[io[10]:io[11]]
     blink = ib[io[11]:io[12]]
+    order_out = ib[io[12]:io[13]]
+    keep_out = ib[io[13]:io[14]]
+    pos_out = ib[io[14]:io[15]]
+    bstart_out = ib[io[15]:io[16]]
+    bstop_out = ib[io[16]:io[17]]
+    inv_scale = fb[fo[17]:fo[18]]
     held = bb[bo[0]:bo[1]]
     has_volume = bb[bo[1]:bo[2]]
     shrinking = bb[bo[2]:bo[3]]
@@ -1151,4 +1259,26 @@ def _assemble(cf, ci, lf, cells, w, bf, bi, ex, exf, margin, fb, ib, bb, off):
         solubility[p] = cf[p, _C_SOL]
     for b in range(n_bar):
         area_out[b] = bf[b, 0]
-    return n_other, n_lossy
+    for s in range(n_state):
+        inv_scale[s] = 1.0 / scale[s]
+    walk = chain_walk(nd, held, link_p, link_q, link_b, link_c)
+    n_order = walk.shape[0]
+    if n_order and walk[0] < 0:
+        n_order = -1
+    for a in range(max(n_order, 0)):
+        order_out[a] = walk[a]
+    ends_t = np.empty(4 * n_bar, dtype=np.int64)  # as taps_of takes them from the grids
+    for b in range(n_bar):
+        ends_t[4 * b] = blink[b]
+        ends_t[4 * b + 1] = blink[b] + bstart[b + 1] - bstart[b]
+        ends_t[4 * b + 2] = bstart[b]
+        ends_t[4 * b + 3] = max(bstart[b], min(bstart[b + 1], nd))
+    keep, pos, tb0, tb1 = taps_arrays(nc, nd, n_state, link_p, link_q, ends_t)
+    for a in range(keep.shape[0]):
+        keep_out[a] = keep[a]
+    for a in range(n_state):
+        pos_out[a] = pos[a]
+    for b in range(n_bar):
+        bstart_out[b] = tb0[b]
+        bstop_out[b] = tb1[b]
+    return n_other, n_lossy, n_order, keep.shape[0]

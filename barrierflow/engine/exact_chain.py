@@ -38,7 +38,7 @@ import numpy as np
 from numba import njit
 
 from .arrays import ModelArrays
-from .compiled import CompiledModel
+from .compiled import CompiledModel, chain_walk
 from .exported import chain_taps, flush_chain_guard, take_chain_row, take_row
 from .kernels import INNER, jacobian_kernel, rates_kernel
 from .schedule import apply_events, rows_until
@@ -69,59 +69,8 @@ def _chain_order(model: CompiledModel) -> np.ndarray | None:
     if not m.is_linear or len(m.tr_from):
         return None
     # (the rates of every subject of a stacked model in one row: any that differ refuse the chain)
-    order = _chain_walk(m.n_dyn, m.held, m.link_p, m.link_q, np.ravel(m.link_b), np.ravel(m.link_c))
+    order = chain_walk(m.n_dyn, m.held, m.link_p, m.link_q, np.ravel(m.link_b), np.ravel(m.link_c))
     return order if len(order) == 0 or order[0] >= 0 else None
-
-
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _chain_walk(nd, held, link_p, link_q, link_b, link_c):
-    """The dynamic states (``nd``) not held (``held``: of the compartments) in chain order, walking
-    each chain from an end; ``[-1]`` when a link's two rates differ (``link_b``, ``link_c``, beyond
-    rounding: the network is not symmetric), a state has a third neighbour or the links close a
-    loop."""
-    for j in range(link_b.shape[0]):
-        if abs(link_b[j] - link_c[j]) > 1e-12 * max(abs(link_b[j]), abs(link_c[j])):
-            return np.full(1, -1, dtype=np.int64)
-    nbr = np.full((nd, 2), -1, dtype=np.int64)
-    off = np.zeros(nd, dtype=np.bool_)
-    for i in range(held.shape[0]):
-        off[i] = held[i]
-    alive = 0
-    for i in range(nd):
-        if not off[i]:
-            alive += 1
-    for j in range(link_p.shape[0]):
-        a = link_p[j]
-        z = link_q[j]
-        if a == z or off[a] or off[z] or nbr[a, 0] == z or nbr[a, 1] == z:
-            continue
-        if nbr[a, 1] >= 0 or nbr[z, 1] >= 0:
-            return np.full(1, -1, dtype=np.int64)  # a third neighbour: not a chain
-        nbr[a, 0 if nbr[a, 0] < 0 else 1] = z
-        nbr[z, 0 if nbr[z, 0] < 0 else 1] = a
-    seen = np.zeros(nd, dtype=np.bool_)
-    order = np.empty(alive, dtype=np.int64)
-    k = 0
-    for start in range(nd):
-        if off[start] or seen[start] or nbr[start, 1] >= 0:
-            continue
-        prev = -1
-        cur = start
-        while cur >= 0 and not seen[cur]:
-            seen[cur] = True
-            order[k] = cur
-            k += 1
-            nxt = -1
-            for e in range(2):
-                c = nbr[cur, e]
-                if c >= 0 and c != prev and not seen[c]:
-                    nxt = c
-                    break
-            prev = cur
-            cur = nxt
-    if k != alive:  # a loop
-        return np.full(1, -1, dtype=np.int64)
-    return order
 
 
 # ---------------------------------------------------------------- the chain matrix

@@ -24,7 +24,7 @@ import numpy as np
 from numba import njit
 
 from .arrays import INNER, larger, smaller
-from .compiled import CompiledModel
+from .compiled import CompiledModel, taps_arrays
 
 __all__ = ["Rows", "Taps", "chain_taps", "empty_taps", "flush_chain_guard", "take_chain_row", "take_row", "taps_of"]
 
@@ -55,53 +55,24 @@ class Taps:
 
 def taps_of(model: CompiledModel) -> Taps:
     """The :class:`Taps` of ``model`` (built once: the model is immutable)."""
-    memo = model.__dict__.get("_taps")
+    d = model.__dict__
+    memo = d.get("_taps")
     if memo is not None:
         return memo
+    parts = d.get("_taps_parts")  # computed with the model's arrays (compiled._compile_one)
+    if parts is not None:
+        taps = d["_taps"] = Taps(*parts)
+        return taps
     m = model
     nd, grids = m.n_dyn, m.grids
     ends = [0] * (4 * len(grids))  # each barrier's first and last link and first and last cell
     for b, g in enumerate(grids):
         ends[4 * b:4 * b + 4] = (g.in_link, g.out_link, g.start, max(g.start, min(g.stop, nd)))
-    keep, pos, bstart, bstop = _taps_arrays(m.n_comp, nd, m.n_state, m.link_p, m.link_q,
+    keep, pos, bstart, bstop = taps_arrays(m.n_comp, nd, m.n_state, m.link_p, m.link_q,
                                             np.array(ends, dtype=np.int64))
     taps = Taps(keep, pos, bstart, bstop, 1.0 / m.scale)
     model.__dict__["_taps"] = taps
     return taps
-
-
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _taps_arrays(nc, nd, n_state, link_p, link_q, ends):
-    """:func:`taps_of`'s ``keep, pos, bstart, bstop`` in one compiled pass: every compartment, the
-    two states of each barrier's face links (``ends``: per barrier its first and last link, first
-    cell and one past its last), every cumulative amount, increasing."""
-    n_bar = ends.shape[0] // 4
-    kept = np.zeros(n_state, dtype=np.bool_)
-    for i in range(nc):
-        kept[i] = True
-    for i in range(nd, n_state):
-        kept[i] = True
-    bstart = np.empty(n_bar, dtype=np.int64)
-    bstop = np.empty(n_bar, dtype=np.int64)
-    for b in range(n_bar):
-        for k in range(2):
-            link = ends[4 * b + k]
-            kept[link_p[link]] = True
-            kept[link_q[link]] = True
-        bstart[b] = ends[4 * b + 2]
-        bstop[b] = ends[4 * b + 3]
-    n_keep = 0
-    for i in range(n_state):
-        n_keep += kept[i]
-    keep = np.empty(n_keep, dtype=np.int64)
-    pos = np.full(n_state, -1, dtype=np.int64)
-    j = 0
-    for i in range(n_state):
-        if kept[i]:
-            keep[j] = i
-            pos[i] = j
-            j += 1
-    return keep, pos, bstart, bstop
 
 
 def new_buffers(taps: Taps, n_t: int, n_state: int) -> tuple:

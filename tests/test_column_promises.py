@@ -778,3 +778,30 @@ def test_the_flux_from_scales_far_off_is_named():
     assert tr.status == 0
     assert "the flux of barrier 'skin'" in tr.message
     assert "with absolute tolerances from the magnitudes it reached" in tr.message
+
+
+def test_population_fluxes_from_scales_far_off_meet_the_contract():
+    """A population's subjects are held to the second rule too (one rule, ``ledger.derived_over``):
+    on the robust integrator's tolerances (rtol 1e-8, atol 1e-11) each subject's flux through
+    'skin' has a tolerance 176 times its promise, from scales a rescale would shrink 2.7e5-fold,
+    so each is computed again alone at observed scales. Each subject's flux (and every kept
+    column) against scipy's Radau IIA (rtol 1e-10, atol 1e-15; Hairer and Wanner 1996, sec. IV.8)
+    on its own, as in :func:`test_population_fluxes_near_a_bolus_meet_the_contract`. Before, every
+    subject came back with status 0 and its flux about 175 times the contract off."""
+    s = bf.loads(TEN_LAYERS_BOLUS_NEAR_A_ROW)
+    vary = {"compartment.central.clearance": 0.3}
+    pop = bf.simulate_population(s, vary, 2, seed=3, integrator=RosenbrockIntegrator(rtol=1e-8, atol=1e-11))
+    subjects, _ = sample_scenarios(s, vary, 2, seed=3)
+    for i, sub in enumerate(subjects):
+        assert pop.status[i] == 0, pop.messages[i]
+        ref = bf.simulate(sub, integrator=ScipyIntegrator("Radau", rtol=1e-10, atol=1e-15), fallback=False)
+        assert np.array_equal(pop.times, ref.times)
+        mb = ref.mass_balance
+        big = max(abs(mb.initial), abs(mb.dosed), abs(mb.held_supply), abs(mb.removed))
+        flux = ref.flux("skin")
+        peak = max(float(np.max(np.abs(flux))), 1e-4 * big / sub.barriers[0].area / sub.duration)
+        err = float(np.max(np.abs(pop.flux("skin")[i] - flux))) / peak / 1e-5
+        assert err <= 1.0, (i, err, pop.messages[i])
+        errors = population_errors(pop, i, ref)
+        worst = max(errors, key=errors.get)
+        assert errors[worst] <= 1.0, (i, worst, errors[worst])

@@ -21,8 +21,10 @@ from numba import njit
 
 from ..errors import Problem, ScenarioError, SolverError
 from ..model import Scenario
+from . import exact as _exact_m
 from .arrays import working_copy
 from .compiled import CompiledModel, compile_scenario
+from .exact import _mode_time
 from .exported import Rows
 from .grid import Grid
 from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
@@ -183,6 +185,21 @@ def _snapped(times, marks, tol):
 
 
 
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _set_up(times, marks, tol, rr):
+    """A run's set-up from its output times and its interval bounds ``marks`` (two or more,
+    increasing): the times snapped onto the events (:func:`_snapped`, with ``tol``), whether they
+    still increase, the chain path's mode time of the snapped times
+    (:func:`~barrierflow.engine.exact.mode_time`, ``rr`` its rational rows; 0 where they do not
+    increase: they merge first) and the longest interval, h (:attr:`RunPlan.longest`)."""
+    out, increasing = _snapped(times, marks, tol)
+    cut = _mode_time(out, marks, rr) if increasing else 0.0
+    longest = marks[1] - marks[0] if marks.shape[0] > 1 else 0.0
+    for k in range(1, marks.shape[0] - 1):
+        longest = max(longest, marks[k + 1] - marks[k])
+    return out, increasing, cut, longest
+
+
 ROBUST = RosenbrockIntegrator(rtol=1e-8, atol=1e-11)
 """The integrator a run that failed its check (or whose integrator failed) is computed again with."""
 
@@ -253,10 +270,17 @@ def solve(
     events = [e for e in all_events if e.time < duration]
     at_end = [e for e in all_events if e.time >= duration]
     marks = np.array(sorted({e.time for e in events} | {0.0, duration}), dtype=np.float64)
-    times = _snap(scenario.output_array(), marks, 1e-9 * max(duration, 1.0), merge=True)
+    # the output times snapped onto the events, the chain's mode time and the longest dosing
+    # interval in one compiled pass (the rules of _snap, exact.mode_time and RunPlan.longest)
+    times, increasing, cut, longest = _set_up(scenario.output_array(), marks, 1e-9 * max(duration, 1.0),
+                                              np.int64(_exact_m.RATIONAL_ROWS))
+    if not increasing:  # times snapped onto one event merge
+        times = np.unique(times)
     plan = RunPlan(model, encode_events(events), marks, times, progress)
-    chosen = resolve_integrator(integrator, model, float((marks[1:] - marks[:-1]).max()), len(times), len(marks) - 1,
-                                plan.mode_time, times, marks)
+    if increasing:
+        plan.__dict__["mode_time"] = cut  # what RunPlan.mode_time computes from these times
+    chosen = resolve_integrator(integrator, model, longest, len(times), len(marks) - 1, plan.mode_time, times,
+                                marks)
     check_memory(scenario, model, len(times), chosen)
     robust = robust_for(model)
     notes: list[str] = []

@@ -582,6 +582,7 @@ class ExactIntegrator(Integrator):
         inert[m.link_p] = False
         inert[m.link_q] = False
         inert[m.tr_from] = False
+        inert[m.tr_to] = False  # (a transfer's receiver fills: random case 1812 kept it at zero)
         inert[m.loss_rate != 0.0] = False
         jac: dict[bytes, np.ndarray] = {}
         linked: dict[bytes, CompiledModel] = {s.closed.tobytes(): m}  # the model with the faces as they are

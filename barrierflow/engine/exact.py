@@ -490,9 +490,16 @@ class ExactIntegrator(Integrator):
         ``modes``: eigen-decomposition of the symmetrised network (not for transfers);
         ``expm``: matrix exponentials of the augmented matrix; ``auto`` (default): chain when the
         network is one, else modes when it is symmetric, else expm.
+    rational_rows : bool
+        On the chain path, every output row through the rational approximation of the exponential
+        (:func:`~barrierflow.engine.exact_chain._rational_row`, O(n) solves per row) instead of the
+        slow modes: the run :func:`~barrierflow.engine.solve.solve` takes when the modes' result
+        does not conserve mass to :data:`~barrierflow.engine.solve.EXACT_BALANCE_LIMIT` (see
+        there). Default False.
     """
 
     method: str = "auto"
+    rational_rows: bool = False
     name: str = field(init=False, default="exact")
 
     def __post_init__(self) -> None:
@@ -546,9 +553,11 @@ class ExactIntegrator(Integrator):
             ev_dosed = np.empty((n_t, nc))
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
-            code = chain_schedule(marks, times, ev, tuple(work), tuple(base), s, order,
-                                       _FAST / plan.mode_time, jacobian_size(m), m.y0.copy(), states, ev_dosed,
-                                       ev_removed, st, full, taps)
+            # (a cut of -0.0: the modes serve from no finite time, so every row takes the rational
+            # approximation; chain_schedule computes no mode above it)
+            cut = -0.0 if self.rational_rows else _FAST / plan.mode_time
+            code = chain_schedule(marks, times, ev, tuple(work), tuple(base), s, order, cut, jacobian_size(m),
+                                  m.y0.copy(), states, ev_dosed, ev_removed, st, full, taps)
             stats.add(st)
             if code != 0:
                 return Integration(states[:0] if full else None, ev_dosed[:0], ev_removed[:0], -1,

@@ -42,7 +42,7 @@ __all__ = ["DERIVED_EXCESS", "DERIVED_FINDING", "DERIVED_SHRINK", "DERIVED_TOLER
            "RESCALE_LIMIT", "TOLERANCE_EXCESS", "Ledger", "busiest_part", "check", "check_magnitudes", "check_rows",
            "derived_findings", "derived_over", "describe_state", "judge", "ledger", "ledger_rows", "ledger_weights",
            "magnitude_findings", "magnitudes_failed", "observed_scale", "parts", "passes", "population_magnitudes",
-           "relative_error_of", "rows_ledger", "verdict"]
+           "relative_error_of", "rows_ledger", "rows_relative_error", "verdict"]
 
 MASS_BALANCE_LIMIT = 1e-6
 """Largest relative mass-balance error of a result reported as a success."""
@@ -326,21 +326,32 @@ def rows_ledger(model: CompiledModel, rows: Rows, event_dosed: np.ndarray, event
                        event_dosed, event_removed, initial, volumes)
 
 
+def rows_relative_error(model: CompiledModel, rows: Rows, event_dosed: np.ndarray, event_removed: np.ndarray,
+                        initial: float = 0.0, volumes: np.ndarray | None = None) -> float:
+    """:attr:`Ledger.relative_error` of a run from the rows it kept: in one compiled pass, as for
+    each subject of a population (:func:`relative_error_of`), unless the volumes change
+    (``volumes``: through :func:`rows_ledger`, with the run's ``initial`` amount, mg)."""
+    if volumes is not None or not rows.finite:
+        return rows_ledger(model, rows, event_dosed, event_removed, initial, volumes).relative_error
+    m = model
+    nc, nd = m.n_comp, m.n_dyn
+    return float(_relative_error(rows.cols[:, :nc], rows.cells, rows.cols[:, rows.taps.pos[nd]:] if m.n_state > nd
+                                 else np.zeros((len(rows.cols), 0)), event_dosed, event_removed, m.capacity,
+                                 m.has_volume, m.y0, nd, ledger_weights(m)))
+
+
 def check_rows(model: CompiledModel, rows: Rows, event_dosed: np.ndarray, event_removed: np.ndarray,
-               initial: float, volumes: np.ndarray | None, states: Callable[[], np.ndarray]) -> list[str]:
+               initial: float, volumes: np.ndarray | None, states: Callable[[], np.ndarray],
+               relative_error: float | None = None) -> list[str]:
     """:func:`check` of a run from the rows it kept: the same rule (the guard in ``rows`` is taken
     over every state at every row). Only a run that fails asks for its full states (``states``),
-    to name where each finding is worst."""
+    to name where each finding is worst. ``relative_error``: the run's
+    :func:`rows_relative_error` when the caller has it already."""
     if not len(rows.cols):
         return []
     if volumes is None and rows.finite:
-        # the ledger's relative error in one compiled pass, as for each subject of a population
-        m = model
-        nc, nd = m.n_comp, m.n_dyn
-        rel = _relative_error(rows.cols[:, :nc], rows.cells, rows.cols[:, rows.taps.pos[nd]:] if m.n_state > nd else
-                              np.zeros((len(rows.cols), 0)), event_dosed, event_removed, m.capacity, m.has_volume,
-                              m.y0, nd, ledger_weights(m))
-        found = judge(float(rel), rows.low, True)
+        rel = rows_relative_error(model, rows, event_dosed, event_removed) if relative_error is None else relative_error
+        found = judge(rel, rows.low, True)
     else:
         led = rows_ledger(model, rows, event_dosed, event_removed, initial, volumes) if rows.finite else None
         found = verdict(led, rows.low, rows.finite)

@@ -16,8 +16,7 @@ import pytest
 import barrierflow as bf
 from barrierflow import Barrier, Compartment, Dose, Exchange, Layer, Scenario, Transfer
 from barrierflow.engine import ScipyIntegrator
-from barrierflow.engine.exact import ExactIntegrator
-from barrierflow.engine.solve import EXACT_BALANCE_LIMIT
+from barrierflow.engine.exact import EXACT_BALANCE_LIMIT, ExactIntegrator
 
 H = 3600.0  # s per h
 CUMULATIVE = ("permeated:", "eliminated:", "degraded:", "removed:", "dosed:")

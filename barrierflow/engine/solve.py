@@ -24,7 +24,7 @@ from ..model import Scenario
 from . import exact as _exact_m
 from .arrays import working_copy
 from .compiled import CompiledModel, compile_scenario
-from .exact import ExactIntegrator, _mode_time, exact_plan
+from .exact import ExactIntegrator, _mode_time, exact_balance_findings, exact_plan
 from .exported import Rows
 from .grid import Grid
 from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
@@ -351,39 +351,6 @@ def solve(
     stats = {**traj.stats, "fallbacks": len(notes) - 1}
     return dataclasses.replace(traj, status=-1, message=message, stats=stats,
                                wall_time=_time.perf_counter() - start_clock)
-
-
-EXACT_BALANCE_LIMIT = 1e-10
-"""Largest relative error of the mass balance (:attr:`~barrierflow.engine.ledger.Ledger.relative_error`)
-that a result of the exact paths may have.
-
-An exact solution of the linear network conserves mass to rounding (1e-16 per operation; 93 %
-of the exact runs of the adversarial sweep close their ledger within 1e-10, most within 1e-12),
-so a larger imbalance shows that the path lost accuracy, and where it does the imbalance mostly
-sits in a small quantity: the modes of a chain are accurate in norm (their angle to the true ones
-below 1e-6, :data:`~barrierflow.engine.exact_chain.MODE_ANGLE_LIMIT`), not in each component, and
-a compartment of 1e-6 mL between a barrier and a large compartment, or a body compartment weakly
-coupled to the skin, needs components far below that norm: extreme patches
-1105, 1786, 1882, 1893, 2453, 2473 of tests/benchmarks/adversarial_sweep.py returned an
-eliminated amount or a concentration 17 to 9,400 times the contract off Radau with imbalances of
-4e-9 to 9e-7. The contract's strictest column (a cumulative amount within 1e-6 of a floor of 1e-4
-of the run's largest amount, the sweep's :data:`FLOOR`) allows 1e-10 of that amount, hence this
-limit. A chain run beyond it is computed again with every row through the rational approximation
-(:class:`~barrierflow.engine.exact.ExactIntegrator` ``rational_rows``; its solves are accurate
-component by component on these chains: the six cases close to 1e-10..2e-12 and agree with Radau
-within the contract); a run still beyond it (or of the modes or matrix-exponential paths) fails
-its check and goes to the robust integrator like any other (extreme patch 2482: a patch of
-4e-5 mL on a stratum corneum of 6e-4 cm^2/s, |T| = 5e11 1/h, wrong on both)."""
-
-
-def exact_balance_findings(rel: float) -> list[str]:
-    """The finding of an exact run whose mass balance is off by ``rel`` (relative,
-    :func:`~barrierflow.engine.ledger.rows_relative_error`), more than :data:`EXACT_BALANCE_LIMIT`
-    (empty when it is not)."""
-    if rel <= EXACT_BALANCE_LIMIT:
-        return []
-    return [f"the mass balance is off by {rel:.2g} of the amount moved, more than an exact solution rounds to "
-            f"({EXACT_BALANCE_LIMIT:g})"]
 
 
 MAX_RESCALES = 2

@@ -588,9 +588,8 @@ class ExactIntegrator(Integrator):
             ev_dosed = np.empty((n_t, nc))
             ev_removed = np.empty((n_t, nc))
             st = np.zeros(6, dtype=np.int64)
-            # (a cut of -0.0: the modes serve from no finite time, so every row takes the rational
-            # approximation; chain_schedule computes no mode above it)
-            cut = -0.0 if self.rational_rows else _FAST / plan.mode_time
+            # (a cut of 0: no modes, every row through the rational approximation)
+            cut = 0.0 if self.rational_rows else _FAST / plan.mode_time
             code = chain_schedule(marks, times, ev, tuple(work), tuple(base), s, order, cut, jacobian_size(m),
                                   m.y0.copy(), states, ev_dosed, ev_removed, st, full, taps)
             stats.add(st)

@@ -1192,7 +1192,8 @@ def chain_schedule(marks, times, ev, mt, bt, s, order, cut, n_jac, y, states, ev
     ``cut`` (1/h, < 0) is -60 over the time from an interval's start from which on the modes serve
     (:func:`~barrierflow.engine.exact.mode_time`): the modes above it are computed (at most
     :data:`MAX_MODES`, the cut moving up as needed) and the earlier times go through the rational
-    approximation.
+    approximation; a cut of 0 computes no modes, every row through the rational approximation
+    (``ExactIntegrator(rational_rows=True)``).
 
     The single runs call it from Python and the population kernel through its address (one
     compiled form serves both; see :mod:`~barrierflow.engine.calls`).
@@ -1278,14 +1279,18 @@ def chain_schedule(marks, times, ev, mt, bt, s, order, cut, n_jac, y, states, ev
             comp_of = comp_c[slot]
             # at most MAX_MODES modes; the times before the others decay take the rational
             # approximation
-            cut_now, k_need = _mode_cut(dd, ee, n, cut, comp_of)
-            t_thr = -60.0 / cut_now
-            if k_need > vec_c.shape[1]:
-                vec_c = _more_modes(vec_c, k_need)
-            k_all = _slow_modes(dd, ee, n, cut_now, gedge_c[slot], ediag_c[slot], msq_c[slot], comp_of, lam_c[slot],
-                                vec_c[slot])
-            if k_all < 0:
-                return FAIL_CONDITION
+            if cut == 0.0:  # no modes: every row through the rational approximation (rational_rows)
+                t_thr = np.inf
+                k_all = np.int64(0)
+            else:
+                cut_now, k_need = _mode_cut(dd, ee, n, cut, comp_of)
+                t_thr = -60.0 / cut_now
+                if k_need > vec_c.shape[1]:
+                    vec_c = _more_modes(vec_c, k_need)
+                k_all = _slow_modes(dd, ee, n, cut_now, gedge_c[slot], ediag_c[slot], msq_c[slot], comp_of,
+                                    lam_c[slot], vec_c[slot])
+                if k_all < 0:
+                    return FAIL_CONDITION
             k4 = (k_all + 3) // 4 * 4
             if k4 > vyp_c.shape[1]:
                 vyp_c = _more_modes(vyp_c, k4)

@@ -57,6 +57,12 @@ def _same_model(a, b, label):
     # what the one-pass build computes ahead for a run (the chain order, the kept states) is what
     # the run would compute from the element-wise model
     assert "_chain_order" in a.__dict__ and "_chain_order" not in b.__dict__, label
+    # and its vehicle_terms and is_linear, set ahead from the scenario's numbers, are what the
+    # properties give from the element-wise model's arrays
+    for name in ("vehicle_terms", "is_linear"):
+        assert name in a.__dict__ and name not in b.__dict__, (label, name)
+    assert (a.vehicle_terms, a.is_linear) == (b.vehicle_terms, b.is_linear), label
+    assert type(a.vehicle_terms) is bool and type(a.is_linear) is bool, label
     oa, ob = chain_order(a), chain_order(b)
     assert (oa is None) == (ob is None), label
     assert oa is None or (oa.dtype == ob.dtype and np.array_equal(oa, ob)), label

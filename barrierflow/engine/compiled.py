@@ -48,7 +48,7 @@ from numba.extending import register_jitable
 from ..model import Barrier, Scenario
 from ..model.cohort import Diverging, cohort_size, decide
 from .arrays import ModelArrays
-from .grid import Grid, response_time
+from .grid import DEFAULT_GRID, Grid, response_time
 from .schedule import RegimenBounds, regimen_bounds
 from .twoport import stack_two_port
 
@@ -548,7 +548,7 @@ def compile_scenario(scenario: Scenario, grid: Grid | None = None,
         (barrier index, layer index) to the cell widths of that layer relative to its thickness,
         in place of the default grid (subjects compiled one by one that share one grid).
     """
-    grid = grid or Grid()
+    grid = grid or DEFAULT_GRID
     if cohort_size(scenario) is None:
         return _compile_one(scenario, grid, layer_widths or {})
     return compile_elementwise(scenario, grid, layer_widths)
@@ -559,7 +559,7 @@ def compile_elementwise(scenario: Scenario, grid: Grid | None = None,
     """:func:`compile_scenario` in element-wise numpy arithmetic: a stacked scenario (one value per
     subject in its varied fields) or one scenario (the reference :func:`_compile_one` is held to,
     bit for bit)."""
-    grid = grid or Grid()
+    grid = grid or DEFAULT_GRID
     layer_widths = layer_widths or {}
     n_sub = cohort_size(scenario)
     lead: tuple[int, ...] = () if n_sub is None else (n_sub,)
@@ -888,17 +888,20 @@ def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, i
     cf: list[float] = []
     ci: list[int] = []
     mm_i, mm_v, mm_k = [], [], []
+    vehicle = False  # CompiledModel.vehicle_terms, from the same numbers as the model's arrays
     for i, c in enumerate(comps):
         vol = c.volume
         shrinking = c.id in shrink
         own = c.evaporates or shrinking or c.loss_rate > 0
         saturated = c.held and c.id in limited  # a saturated reservoir: its potential C/K is the solubility
+        evap = _or_zero(c.evaporation_rate)
+        c_sol = sol * c.partition if c.id in limited else inf
         cf += (vol if vol is not None else 1.0, 1.0 / c.partition,
                c.loss_rate if own else (c.clearance / vol if vol is not None else 0.0), c.starting_concentration,
                m_list[i], bound[i] if bound is not None else inf, c.clearance * c.partition,
-               _or_zero(c.evaporation_rate), _or_zero(c.residual_volume),
-               sol * c.partition if c.id in limited else inf, sol / c.held_concentration if saturated else 0.0)
+               evap, _or_zero(c.residual_volume), c_sol, sol / c.held_concentration if saturated else 0.0)
         ci += (own, shrinking, c.held, vol is not None, own and c.clearance != 0, saturated)
+        vehicle = vehicle or evap > 0 or (math.isfinite(c_sol) and not c.held) or shrinking
         if c.vmax is not None and c.vmax != 0:
             mm_i.append(i)
             mm_v.append(c.vmax)
@@ -984,8 +987,12 @@ def _compile_one(scenario: Scenario, grid: Grid, layer_widths: dict[tuple[int, i
                           grids=tuple(grids), comp_index=comp_index,
                           barrier_index={b.id: i for i, b in enumerate(bars)})
     # what exact_chain.chain_order and exported.taps_of would compute from the model (their memos),
-    # by the same compiled rules (chain_walk, taps_arrays) in the same pass
+    # by the same compiled rules (chain_walk, taps_arrays) in the same pass; the model's
+    # vehicle_terms and is_linear from the numbers its arrays hold (read as plain numbers above:
+    # their properties read them back from the arrays, some 25 us of a cold run)
     d = model.__dict__
+    d["vehicle_terms"] = bool(vehicle)
+    d["is_linear"] = not mm_i and not vehicle
     d["_chain_order"] = order[:n_order] if n_order >= 0 and model.is_linear and not len(tr) else None
     d["_taps_parts"] = (keep[:n_keep], tap_pos, tap_bstart, tap_bstop, inv_scale)
     return model

@@ -50,7 +50,7 @@ from ..model import Layer, Scenario
 from ..model.cohort import decide
 from .twoport import layer_pi
 
-__all__ = ["GRID_TOLERANCE", "UPTAKE_TOLERANCE", "Grid", "response_time"]
+__all__ = ["DEFAULT_GRID", "GRID_TOLERANCE", "UPTAKE_TOLERANCE", "Grid", "response_time"]
 
 GRID_TOLERANCE = 1e-3
 """Relative accuracy the default grid promises for each layer's steady fluxes and slowest mode."""
@@ -144,6 +144,11 @@ class Grid:
         degradation) and L / sqrt(D tau) = ``p`` (0 without a time scale; rounded up as the module
         notes say); computed once per value (a fresh copy each call)."""
         return _relative(self.cells_per_layer, self.stretch, self.refine, float(q), _rounded_p(p)).copy()
+
+
+DEFAULT_GRID = Grid()
+"""The default grid (``Grid()``), made once: a run without a grid of its own takes it (a grid holds
+only its three settings; the widths it computed are kept per value by :func:`_relative` anyway)."""
 
 
 def response_time(scenario: Scenario) -> float:

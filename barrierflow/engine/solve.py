@@ -26,7 +26,7 @@ from .arrays import working_copy
 from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _mode_time, exact_balance_findings, exact_plan
 from .exported import Rows
-from .grid import Grid
+from .grid import DEFAULT_GRID, Grid
 from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
 from .ledger import busiest_part, check_magnitudes, check_rows, observed_scale, present_amount, rows_relative_error
 from .rosenbrock import RosenbrockIntegrator
@@ -262,7 +262,7 @@ def solve(
         The message says where (time, dosing interval, part of the network) and what to change.
     """
     start_clock = _time.perf_counter()
-    grid = grid or Grid()
+    grid = grid or DEFAULT_GRID
     model = compile_scenario(scenario, grid)
     all_events = build_schedule(scenario, model.comp_index)
     duration = scenario.duration

@@ -584,7 +584,7 @@ def _present(y, cap, has_volume, nc, nd):
     for p in range(nc):
         if not has_volume[p]:
             amounts[p] = 0.0
-    return numpy_sum(amounts, 0, nc) + numpy_sum(amounts, nc, nd - nc)
+    return numpy_sum(amounts, np.int64(0), nc) + numpy_sum(amounts, nc, nd - nc)  # (np.int64: not a literal 0)
 
 
 def _per_amount(model: CompiledModel) -> np.ndarray:

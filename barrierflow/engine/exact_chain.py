@@ -1000,9 +1000,11 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
     ppg = work[4]
     z0 = np.zeros(ks)
     gz = np.zeros(ks)
+    lim = np.zeros(ks)  # without forcing, the integral of a mode once decayed: -z0 / lam
     for s in range(ks):
         z0[s] = _dot(vec[s], x0, n)
         gz[s] = _dot(vec[s], tg, n) if has_g else 0.0
+        lim[s] = (-1.0 / lam[s]) * z0[s]
     # decayed modes: constants (states) and constant + slope (quadratures), through T^+
     yfast = np.zeros(n)
     qconst = np.zeros(nqd)
@@ -1088,8 +1090,9 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
             zs = zsb[r]
             zi = zib[r]
             # without forcing, a mode decayed below exp(-60) at the block's first time adds nothing
-            # to the states (see below) and its integral has reached its limit: -z0 / lam, the value
-            # the formula gives once exp(x) - 1 rounds to -1
+            # to the states (see below) and its integral has reached its limit: -z0 / lam (lim, one
+            # division per mode and interval, not per row), the value the formula gives once
+            # exp(x) - 1 rounds to -1
             kz = ks
             if not has_g:
                 kz = 0
@@ -1098,7 +1101,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
                 kz = min((kz + 3) // 4 * 4, ks)
             for s in range(kz, ks):
                 zs[s] = 0.0
-                zi[s] = (-1.0 / lam[s]) * z0[s]
+                zi[s] = lim[s]
             for s in range(kz):
                 el = lam[s]
                 x = el * tj

@@ -918,3 +918,23 @@ def test_present_amount_is_numpys(cells):
         amounts = y[:nd] * model.capacity[:nd]
         want = float(np.where(model.has_volume, amounts[:nc], 0.0).sum() + amounts[nc:].sum())
         assert present_amount(model, y) == want
+
+
+@pytest.mark.parametrize("name", ["benchmark_patch.toml", "daily_patch.toml"])
+def test_exact_checks_in_one_pass_equal_the_two_checks(name):
+    """ledger.exact_rows_checks (one compiled pass, what solve takes for an exact run) gives, bit
+    for bit, the ledger's relative error of rows_relative_error and the summary that
+    check_magnitudes takes of the rows (signs only), on two shipped invented scenarios run on the
+    exact path (two forms of one rule held equal: common practice)."""
+    from barrierflow.engine.ledger import _magnitudes, exact_rows_checks, rows_relative_error
+
+    s = bf.load(Path(__file__).parent.parent / "scenarios" / name)
+    traj = solve(s, ExactIntegrator())
+    m, rows = traj.model, traj.rows
+    rel, signs = exact_rows_checks(m, rows, traj.event_dosed, traj.event_removed, traj.initial_amount)
+    assert rel == rows_relative_error(m, rows, traj.event_dosed, traj.event_removed, traj.initial_amount)
+    t = rows.taps
+    want = _magnitudes(rows.cols, t.keep, t.bstart, t.bstop, m.capacity, m.has_volume, m.scale, m.n_comp, m.n_dyn,
+                       m.q_elim, m.q_perm, m.q_lost, m.q_sampled, rows.content, np.ascontiguousarray(traj.event_dosed),
+                       np.ascontiguousarray(traj.event_removed), float(traj.initial_amount), -1.0)
+    assert np.array_equal(signs, want)

@@ -797,3 +797,8 @@ def _advance_expm(m: CompiledModel, a: np.ndarray, g: np.ndarray, y0: np.ndarray
             t_prev = ti
         out[i] = z[:n] * sc
     return out
+
+
+DEFAULT_EXACT = ExactIntegrator()
+"""The exact integrator with its default options, made once (the default's choice returns it; a
+frozen dataclass, so one instance serves every run)."""

@@ -564,7 +564,7 @@ class AutoIntegrator(Integrator):
                 return _split_m.SplitIntegrator(rtol=self.rtol, atol=self.atol, step_budget=split_budget(n_int))
             return _rodas_m.RosenbrockIntegrator(rtol=self.rtol, atol=self.atol)
         if _exact_m.exact_supported(model, longest):
-            exact = _exact_m.ExactIntegrator()
+            exact = _exact_m.DEFAULT_EXACT
             if exact.working_memory(model) <= EXACT_MEMORY:
                 plan, _size = _exact_m.exact_plan(model)
                 n_rows, n_int = rows or 500, intervals or 1

@@ -28,7 +28,7 @@ import barrierflow as bf
 from barrierflow.engine import compile_scenario, solve
 from barrierflow.engine.exact import exact_plan, mode_time
 from barrierflow.engine.exact_chain import MAX_MODES
-from barrierflow.engine.integrators import chain_modes, chain_rows, estimated_seconds
+from barrierflow.engine.integrators import AutoIntegrator, chain_modes, chain_rows, estimated_seconds, rational_cheaper
 from barrierflow.engine.schedule import build_schedule
 
 sys.path.insert(0, str(Path(__file__).resolve().parent / "benchmarks"))
@@ -118,3 +118,74 @@ def test_small_quantities_on_a_chain_network_are_computed_again_and_meet_the_con
     worst = max(errors, key=errors.get)
     assert errors[worst] <= 1.0, (worst, errors[worst])
     assert scaled_error(tr, radau(s)) < SPLIT_TOL
+
+
+def linear_chain_network(i: int) -> bf.Scenario:
+    """Random network ``i`` of the generator made linear, as tests/benchmarks/chain_sweep.py draws
+    it (an invented scenario)."""
+    return random_scenario(random.Random(i), max_comp=4, small_grid=True, default_grid=True, max_barriers=2,
+                           min_barriers=1, linear=True)
+
+
+def meets_the_contract(s: bf.Scenario, res: bf.Result) -> None:
+    """Each exported column within the benchmark's contract of scipy's Radau IIA (Hairer and
+    Wanner 1996, sec. IV.8) at rtol 1e-10 on the same grid (tests/test_small_columns.contract_errors),
+    and every state within SPLIT_TOL of its scale."""
+    from test_small_columns import contract_errors, reference
+
+    errors = contract_errors(res, reference(s, res))
+    worst = max(errors, key=errors.get)
+    assert errors[worst] <= 1.0, (worst, errors[worst])
+    assert scaled_error(res.trajectory, radau(s)) < SPLIT_TOL
+
+
+def test_chain_modes_declined_go_to_the_chain_path_without_modes():
+    """Random network 181 (144 states, 10 dosing intervals, 8 rows): the chain path the estimate
+    chooses declines its modes (time scales too far apart to separate them); the default computes
+    the run again on the chain path with every row through the rational approximation, which
+    integrators.rational_cheaper estimates below RODAS4 (the robust integrator took 399 steps), and
+    the result is exact within the contract."""
+    s = linear_chain_network(181)
+    first = solve(s, fallback=False, raise_on_failure=False)
+    assert first.integrator == "exact" and first.status == -1 and "does not apply" in first.message
+    res = bf.simulate(s)
+    tr = res.trajectory
+    assert tr.integrator == "exact" and tr.stats["fallbacks"] == 1, tr.message
+    assert "rational approximation" in tr.message
+    meets_the_contract(s, res)
+
+
+def test_a_chain_result_that_fails_its_check_goes_to_the_chain_path_without_modes():
+    """Random network 131 (184 states, 18 rows): the chain path's result has a face cell 1e-8 of
+    its scale below zero (ledger.check_rows); the default computes the run again on the chain path
+    with every row through the rational approximation (as a ledger beyond the exact limit), exact
+    within the contract (before, on the robust integrator: 819 steps)."""
+    s = linear_chain_network(131)
+    first = solve(s, fallback=False, raise_on_failure=False)
+    assert first.integrator == "exact" and first.status == -1 and "below zero" in first.message
+    res = bf.simulate(s)
+    tr = res.trajectory
+    assert tr.integrator == "exact" and tr.stats["fallbacks"] == 1, tr.message
+    assert "rational approximation" in tr.message
+    meets_the_contract(s, res)
+
+
+def test_a_declined_chain_path_goes_to_rodas4_at_the_default_tolerances_where_cheaper():
+    """Random network 181 with output every 0.01 h (64 rows instead of 8): the chain path declines
+    its modes as above, and integrators.rational_cheaper puts the rational rows above RODAS4's
+    estimate, so the default computes the run on RODAS4 at its own tolerances (rtol 3e-6, atol
+    3e-9 of the scales, AutoIntegrator's), checked the same way, not on the robust integrator (399
+    steps at 8 rows)."""
+    base = linear_chain_network(181)
+    s = dataclasses.replace(base, output_step=0.01)
+    m = compile_scenario(s)
+    assert not rational_cheaper(m, len(s.output_array()), 10)
+    first = solve(s, fallback=False, raise_on_failure=False)
+    assert first.integrator == "exact" and first.status == -1 and "does not apply" in first.message
+    res = bf.simulate(s)
+    tr = res.trajectory
+    assert tr.integrator == "rodas4" and tr.stats["fallbacks"] == 1, tr.message
+    assert "at the default's tolerances" in tr.message
+    auto = AutoIntegrator()
+    assert (tr.integrator_options["rtol"], tr.integrator_options["atol"]) == (auto.rtol, auto.atol)
+    meets_the_contract(s, res)

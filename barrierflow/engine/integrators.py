@@ -855,6 +855,17 @@ def estimated_seconds(path: str, model: CompiledModel, rows: int, intervals: int
     raise ValueError(f"unknown path {path!r}")
 
 
+def rational_cheaper(model: CompiledModel, rows: int, intervals: int) -> bool:
+    """Whether the exact chain path with every row through its rational approximation (no modes:
+    ``ExactIntegrator(rational_rows=True)``) is estimated (:func:`estimated_seconds`) no dearer than
+    RODAS4 for a run of ``model`` with ``rows`` output rows and ``intervals`` dosing intervals: then
+    the default, whose chain path declined its modes, computes the run again there rather than on
+    RODAS4 at its own tolerances (:func:`~barrierflow.engine.solve.solve`)."""
+    every = rows + intervals  # each row and each interval's end through the approximation
+    return (estimated_seconds("chain", model, rows, intervals, early=every, modes=0.0)
+            <= estimated_seconds("rodas", model, rows, intervals))
+
+
 VEHICLE = ScipyIntegrator("Radau", rtol=1e-7, atol=1e-10)
 """What the default runs a model with vehicle terms on (evaporation, solubility limits, samples
 without replacement; see :mod:`barrierflow.engine.vehicle`): only the scipy integrators take

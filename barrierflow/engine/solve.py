@@ -27,7 +27,7 @@ from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _mode_time, exact_balance_findings, exact_plan
 from .exported import Rows
 from .grid import DEFAULT_GRID, Grid
-from .integrators import Integrator, RunPlan, ScipyIntegrator, resolve_integrator
+from .integrators import AutoIntegrator, Integrator, RunPlan, ScipyIntegrator, rational_cheaper, resolve_integrator
 from .ledger import (
     busiest_part,
     check_magnitudes,
@@ -240,7 +240,11 @@ def solve(
     :func:`~barrierflow.engine.ledger.check_magnitudes` (no kept quantity far below the scale its
     absolute tolerance came from, no one-way cumulative amount below zero); one that does not is
     computed again on the robust integrator with scales from the magnitudes it reached
-    (:func:`~barrierflow.engine.ledger.observed_scale`), at most :data:`MAX_RESCALES` times. If
+    (:func:`~barrierflow.engine.ledger.observed_scale`), at most :data:`MAX_RESCALES` times. The
+    default's chain path whose result fails its check goes first to the chain path on rational
+    rows; an exact path the default chose that declines goes there where
+    :func:`~barrierflow.engine.integrators.rational_cheaper`, else to RODAS4 at the default's
+    tolerances; then to the robust integrator. If
     the last run fails too, the failure is reported (``SolverError``, or a trajectory with status
     -1).
 
@@ -295,7 +299,11 @@ def solve(
     traj = None
     integ, run_model, rescaled = chosen, model, 0
     plain_robust = _same_integrator(chosen, robust)  # the robust integrator on the model's own scales tried
-    for k in range(3 + MAX_RESCALES):  # the run, (the chain path on rational rows,) robust, rescaled
+    # RODAS4 at the default's tolerances, where the default's exact path declined (None: taken, or
+    # an integrator asked for by name)
+    default_rodas = _default_rodas(integrator) if isinstance(chosen, ExactIntegrator) else None
+    # the run, (the chain path on rational rows,) (the default's RODAS4,) robust, rescaled
+    for k in range(4 + MAX_RESCALES):
         if k:
             check_memory(scenario, model, len(times), integ)
         run_plan = plan if k == 0 else dataclasses.replace(plan, model=run_model, progress=None)
@@ -334,10 +342,28 @@ def solve(
         # adversarial sweep, its eliminated amount flagged at 5.64 times its promise, came back
         # from the chain path 52.6 times the contract off scipy Radau; RODAS4 rescaled refuses it,
         # and computes within the contract the 11 sweep runs the chain path got right)
-        if exact_off and not integ.rational_rows and exact_plan(model, integ.method)[0] == "chain":
+        on_modes = (isinstance(integ, ExactIntegrator) and not integ.rational_rows
+                    and exact_plan(model, integ.method)[0] == "chain")  # the chain path, by its modes
+        declined = traj.status != 0 and isinstance(integ, ExactIntegrator)
+        if exact_off and on_modes:
             # the chain path again, every row through the rational approximation (not the modes)
             nxt = (dataclasses.replace(integ, rational_rows=True), run_model,
                    "with every row through the rational approximation of the exponential")
+        elif (fallback and not small and default_rodas is not None and on_modes
+              and (not declined or rational_cheaper(model, len(times), len(marks) - 1))):
+            # the default's chain path declined its modes, or its result failed its check (as a
+            # ledger beyond the exact limit above): the chain path without modes, the first where
+            # estimated no dearer than the default's RODAS4
+            nxt = (dataclasses.replace(integ, rational_rows=True), run_model,
+                   "with every row through the rational approximation of the exponential")
+        elif fallback and default_rodas is not None and declined:
+            # the default's exact path declined (a clean refusal, no result): the run goes where the
+            # default goes without it, checked the same way. Not after a result that failed its
+            # check: that marks a network hard for every path (extreme patch 1882 of the sweep, its
+            # chain ledger off on both kinds of rows, was 1.35 times the contract off Radau on
+            # RODAS4 at the default's tolerances, 7e-3 on the robust integrator)
+            nxt = (default_rodas, model, "at the default's tolerances")
+            default_rodas = None
         elif fallback and small and rescaled < MAX_RESCALES:
             # absolute tolerances from what the run reached, on the robust integrator
             scale = observed_scale(run_model, traj.states, traj.initial_amount, traj.event_dosed,
@@ -381,6 +407,18 @@ def _amended(traj: Trajectory, **changes) -> Trajectory:
     d.update(traj.__dict__)
     d.update(changes)
     return new
+
+
+def _default_rodas(integrator: Integrator | None) -> Integrator | None:
+    """RODAS4 at the tolerances of the default (``integrator`` None or an
+    :class:`~barrierflow.engine.integrators.AutoIntegrator`), what it runs a linear network on
+    when the exact path does not serve; None for an integrator asked for by name (its failure goes
+    to the robust integrator, as any other's)."""
+    if integrator is None:
+        return RosenbrockIntegrator(rtol=AutoIntegrator.rtol, atol=AutoIntegrator.atol)
+    if isinstance(integrator, AutoIntegrator):
+        return RosenbrockIntegrator(rtol=integrator.rtol, atol=integrator.atol)
+    return None
 
 
 def _same_integrator(a: Integrator, b: Integrator) -> bool:

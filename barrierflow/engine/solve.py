@@ -37,7 +37,7 @@ from .ledger import (
     present_amount,
     rows_relative_error,
 )
-from .rosenbrock import RosenbrockIntegrator
+from .rosenbrock import FLUX_FINDING, RosenbrockIntegrator
 from .schedule import Event, apply_events, build_schedule, encode_events, start_events
 
 __all__ = ["ROBUST", "ROBUST_VEHICLE", "Trajectory", "check_memory", "robust_for", "solve"]
@@ -308,7 +308,7 @@ def solve(
             check_memory(scenario, model, len(times), integ)
         run_plan = plan if k == 0 else dataclasses.replace(plan, model=run_model, progress=None)
         traj = _run(run_model, integ, run_plan, at_end, all_events, grid)
-        small = exact_off = False
+        small = exact_off = flux_off = False
         if traj.status == 0:
             exact = isinstance(integ, ExactIntegrator) and len(traj.rows.cols) > 0
             # an exact run's ledger and the signs of its rows in one compiled pass where it can
@@ -336,6 +336,7 @@ def solve(
             note = f"the {traj.integrator} result failed its check ({'; '.join(found)})"
         else:
             note = f"the {traj.integrator} run failed ({traj.message})"
+            flux_off = FLUX_FINDING in traj.message and len(traj.times) == len(times)
         nxt = None
         # (not on the exact chain path, which has no tolerances but rounds at about 1e-7 of each
         # state's scale: no better for a quantity far below its scale. Extreme patch 806 of the
@@ -374,6 +375,15 @@ def solve(
         elif fallback and not small and not plain_robust:
             nxt = (robust, model, "at tighter tolerances")
             plain_robust = True
+        elif fallback and flux_off and rescaled < MAX_RESCALES:
+            # a flux still unresolved at the robust tolerances: its face states' scales far above
+            # what they reached (extreme patch 217 of the adversarial sweep, a face cell holding
+            # 2e-5 of its scale after a bolus), so at scales from what the run reached
+            scale = observed_scale(run_model, traj.states, traj.initial_amount, traj.event_dosed,
+                                   traj.event_removed)
+            nxt = (robust, run_model.with_arrays(run_model.arrays._replace(scale=scale)),
+                   "with absolute tolerances from the magnitudes it reached")
+            rescaled += 1
         notes.append(note + (f", so it was computed again with {nxt[0].name} {nxt[2]}" if nxt else ""))
         if nxt is None:
             break

@@ -88,10 +88,10 @@ from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_s
 from .ledger import (
     FINAL_TOLERANCE,
     MAGNITUDE_FLOOR,
-    RESCALE_LIMIT,
-    TOLERANCE_EXCESS,
+    _floor_peaks,
     _magnitudes,
     describe_state,
+    floor_tolerances,
     present_amount,
     rows_relative_error,
 )
@@ -99,8 +99,7 @@ from .rosenbrock import COEF, GAMMA, RosenbrockIntegrator, step_size
 from .schedule import EV_HOLD_START, apply_events, rows_until, start_events
 
 __all__ = ["BUDGET_START", "CUT_SLOW", "DRIFT", "REPLAY_STEPS", "RESPLIT", "ROW_FACTOR", "STATIC_SHARE",
-           "SPLIT_BALANCE_LIMIT", "SUM_LIMIT", "SplitIntegrator", "floor_tolerances", "linear_part", "split_schedule",
-           "split_unresolved"]
+           "SPLIT_BALANCE_LIMIT", "SUM_LIMIT", "SplitIntegrator", "linear_part", "split_schedule", "split_unresolved"]
 
 CUT_SLOW = 100.0
 """1/h: the modes of the chain no faster than this are integrated (the slow modes), and so are
@@ -134,12 +133,18 @@ number about sqrt(lambda): about 1.4 times the modes; the bound, led by the slow
 
 ROW_FACTOR = 10.0
 """How many times the sum of a cumulative amount's error estimates over the accepted steps its
-error at the rows may be, for :func:`floor_tolerances`: a run is computed again only where this
-many times that sum exceeds the promise on the floor. The rows inside a step come from the dense
-output and the estimates are those of the step ends; on extreme patch 167 and random case 226 of
-the adversarial sweep (flagged at 1,089 and 360 times the promise) the rows' error was a third
-of the sum; random networks 5 and 10 of tests/test_split_random.py's generator (0.31 and 0.43)
-came out within the contract without a second run."""
+error at the rows may be, for :func:`~barrierflow.engine.ledger.floor_tolerances` (the rule for
+the cumulative amounts below the magnitude floor, shared with RODAS4): the split's run is computed
+again only where this many times that sum exceeds the promise on the floor. The split integrates
+only the slow modes and takes few long steps (13 over the 24 h of extreme patch 167 of the
+adversarial sweep); its error comes near its tolerance, and the rows inside a step come from the
+dense output of RODAS4 (order 3 where the step is order 4; Hairer and Wanner, *Solving Ordinary
+Differential Equations II*, 2nd ed., 1996, sec. IV.7), some 13 times the step end's: that patch's
+eliminated amount (2.9e-4 mg, floor 1e-3 mg) came 37 times the promise off scipy Radau. The
+estimates are those of the step ends; on extreme patch 167 and random case 226 of the sweep
+(flagged at 1,089 and 360 times the promise) the rows' error was a third of the sum; random
+networks 5 and 10 of tests/test_split_random.py's generator (0.31 and 0.43) came out within the
+contract without a second run."""
 
 REPLAY_STEPS = 512
 """Each dosing interval of a repeated dose meets what the one before it met: on the benchmark's
@@ -1419,76 +1424,6 @@ def split_schedule(marks, times, ev, m, base, s, order, cut, n_jac, y, states, e
     return OK
 
 
-@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def _floor_peaks(cols, lim, share, peak):
-    """The peak magnitude of each of the last ``len(peak)`` kept columns over the rows ``cols``
-    into ``peak``; whether any is above 0 and below ``lim / share`` (a candidate of
-    :func:`floor_tolerances`). One pass, row by row (numpy's reduction over a strided column
-    block took 30-50 us on the benchmark's 1,009 rows)."""
-    n_t, n_k = cols.shape
-    nq = peak.shape[0]
-    j0 = n_k - nq
-    for q in range(nq):
-        peak[q] = 0.0
-    for r in range(n_t):
-        row = cols[r, j0:]
-        for q in range(nq):
-            peak[q] = larger(peak[q], abs(row[q]))
-    for q in range(nq):
-        if peak[q] > 0.0 and peak[q] * share < lim[q]:
-            return True
-    return False
-
-
-def floor_tolerances(model: CompiledModel, rows: Rows, event_dosed: np.ndarray, event_removed: np.ndarray,
-                     atol: np.ndarray, estimate: np.ndarray) -> np.ndarray | None:
-    """Absolute tolerances (mg, per state) for a second split run, or None when the first run's
-    ``atol`` served (``estimate``, mg: each cumulative amount's error estimates summed over the
-    first run's accepted steps, see :data:`ROW_FACTOR`).
-
-    A cumulative amount whose peak over the kept rows stays below
-    :data:`~barrierflow.engine.ledger.MAGNITUDE_FLOOR` of the run's largest amount is promised
-    :data:`~barrierflow.engine.ledger.FINAL_TOLERANCE` of that floor (the adversarial sweep's
-    floor); :func:`~barrierflow.engine.ledger.check_magnitudes` leaves it out, as its tolerance
-    ``atol * scale`` (scale about the run's largest amount) is 30 times that promise and the
-    integrators' error sits far inside it where the cells' transients keep the steps short. The
-    split integrates only the slow modes and takes few long steps (13 over the 24 h of extreme
-    patch 167 of the sweep); its error comes near its tolerance, and the rows inside a step, from
-    the dense output of RODAS4 (order 3 where the step is order 4; Hairer and Wanner, *Solving
-    Ordinary Differential Equations II*, 2nd ed., 1996, sec. IV.7), some 13 times the step end's:
-    that patch's eliminated amount (2.9e-4 mg, floor 1e-3 mg) came 37 times the promise off scipy
-    Radau. Where such an amount's tolerance exceeds
-    :data:`~barrierflow.engine.ledger.TOLERANCE_EXCESS` times its promise and :data:`ROW_FACTOR`
-    times its summed error estimate exceeds the promise, the run is computed
-    again with the tolerance of each such amount at ``atol`` times the floor (the scale
-    :func:`~barrierflow.engine.ledger.observed_scale` would give it), the others unchanged."""
-    m = model
-    t = rows.taps
-    nq = m.n_state - m.n_dyn  # the cumulative amounts: the last columns kept (taps_of keeps them all, in order)
-    if not len(rows.cols) or not nq:
-        return None
-    lim = atol[m.n_dyn:]
-    peak = np.empty(nq)
-    # a candidate needs 0 < peak < floor < lim / (TOLERANCE_EXCESS FINAL_TOLERANCE): most runs have
-    # none, and the run's largest amount (a pass over the rows) is not needed
-    if not _floor_peaks(rows.cols, lim, TOLERANCE_EXCESS * FINAL_TOLERANCE, peak):
-        return None
-    cand = (peak > 0.0) & (peak * (TOLERANCE_EXCESS * FINAL_TOLERANCE) < lim)
-    big = float(_magnitudes(rows.cols, t.keep, t.bstart, t.bstop, m.capacity, m.has_volume, m.scale, m.n_comp,
-                            m.n_dyn, m.q_elim, m.q_perm, m.q_lost, m.q_sampled, rows.content,
-                            np.ascontiguousarray(event_dosed), np.ascontiguousarray(event_removed),
-                            present_amount(m, m.y0), -1.0)[7])
-    floor = MAGNITUDE_FLOOR * big
-    over = cand & (peak < floor) & (lim > TOLERANCE_EXCESS * FINAL_TOLERANCE * floor)
-    over &= estimate * ROW_FACTOR > FINAL_TOLERANCE * floor
-    if not over.any():
-        return None
-    out = atol.copy()
-    q = m.n_dyn + over.nonzero()[0]
-    out[q] = atol[q] * np.maximum(floor / m.scale[q], RESCALE_LIMIT)
-    return out
-
-
 SPLIT_BALANCE_LIMIT = 1e-9
 """The largest relative error of a split run's ledger (:func:`~barrierflow.engine.ledger.rows_relative_error`)
 that :func:`split_unresolved` accepts. The linear part is exact and RODAS4 keeps the linear
@@ -1640,7 +1575,8 @@ class SplitIntegrator(Integrator):
             if code != OK:
                 break
             rows = Rows.from_states(model, states) if full else Rows.from_buffers(model, taps, n_t)
-            tighter = None if rescaled else floor_tolerances(model, rows, ev_dosed, ev_removed, atol, qerr)
+            tighter = None if rescaled else floor_tolerances(model, rows, ev_dosed, ev_removed, atol, qerr,
+                                                             1.0 / ROW_FACTOR)
             if tighter is None:
                 why = split_unresolved(model, rows, ev_dosed, ev_removed, qerr)
                 if why:

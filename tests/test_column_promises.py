@@ -891,3 +891,481 @@ def test_population_fluxes_from_scales_far_off_meet_the_contract():
         errors = population_errors(pop, i, ref)
         worst = max(errors, key=errors.get)
         assert errors[worst] <= 1.0, (i, worst, errors[worst])
+
+
+# Four random networks of tests/random_networks.py (random cases 1183, 1206, 1487 and 1828 of the
+# adversarial sweep), each with a cumulative amount whose peak stays below 1e-4 of the run's largest
+# amount (the magnitude floor: check_magnitudes leaves it out) and whose tolerance on RODAS4 is 30 to
+# 40 times the promise on that floor. The default (RODAS4) returned them 13.2, 36.0, 16.3 and 15.2
+# times the contract off scipy's Radau, every state within its tolerance: their error estimates,
+# summed over the accepted steps, were 308, 68, 36 and 266 times that promise
+# (ledger.floor_tolerances, rosenbrock.FLOOR_EXCESS).
+PASSED_FROM_A_COMPARTMENT_EMPTIED_IN_SECONDS = """
+[scenario]
+name = "random network (invented)"
+duration = "7.629823925319263 h"
+output_step = "0.23843199766622697 h"
+
+[[compartment]]
+id = "c0"
+volume = "21540.90870118432 mL"
+partition = 1.8366788392716082
+
+[[compartment]]
+id = "c1"
+volume = "0.02938757228374027 mL"
+initial_concentration = "0.015227145089836261 mg/mL"
+partition = 2.826292467075805
+
+[[compartment]]
+id = "c2"
+volume = "0.042800585909928864 mL"
+initial_concentration = "0.008328865833791489 mg/mL"
+partition = 4.330127409144041
+clearance = "5604.254787548726 mL/h"
+vmax = "0.07590048483562889 mg/h"
+km = "0.0002771911185764797 mg/mL"
+
+[[barrier]]
+id = "b0"
+from = "c1"
+to = "c0"
+area = "0.12455449166245176 cm^2"
+model = "steady"
+
+[[barrier.layer]]
+thickness = "0.03950713728365176 cm"
+diffusivity = "7.5987525065331194e-06 cm^2/h"
+partition = 0.605826893340686
+cells = 4
+
+[[barrier.layer]]
+thickness = "0.0010284614363679334 cm"
+diffusivity = "0.008787834740830744 cm^2/h"
+partition = 0.09133254409149597
+cells = 5
+
+[[barrier.layer]]
+thickness = "0.00017431192830662508 cm"
+diffusivity = "8.447826119222081e-06 cm^2/h"
+partition = 0.020963089354189435
+cells = 5
+
+[[barrier]]
+id = "b1"
+from = "c2"
+to = "c1"
+area = "10.0821028328483 cm^2"
+
+[[barrier.layer]]
+thickness = "0.0005060841109993325 cm"
+diffusivity = "2.770444397391754e-07 cm^2/h"
+partition = 19.885890929969253
+cells = 6
+
+[[barrier.layer]]
+thickness = "0.1403708862665657 cm"
+diffusivity = "0.027164568924353854 cm^2/h"
+partition = 65.19765723121645
+cells = 5
+
+[[barrier.layer]]
+thickness = "0.0019908761785863527 cm"
+diffusivity = "2.3433563098576537e-07 cm^2/h"
+partition = 16.13196032512136
+cells = 5
+
+[[exchange]]
+id = "x0"
+from = "c0"
+to = "c1"
+flow = "773.5250202534568 mL/h"
+
+[[transfer]]
+id = "t0"
+from = "c2"
+to = "c1"
+rate = "0.039469410395162705 1/h"
+
+"""
+
+ELIMINATED_BESIDE_A_FAST_EXCHANGE = """
+[scenario]
+name = "random network (invented)"
+duration = "1.7081959491996352 h"
+
+[[compartment]]
+id = "c0"
+volume = "3252.335920323069 mL"
+partition = 0.1144721445621104
+
+[[compartment]]
+id = "c1"
+volume = "1527.8173627104823 mL"
+partition = 4.467573609199607
+vmax = "0.006221235138265324 mg/h"
+km = "0.014807062854351256 mg/mL"
+
+[[compartment]]
+id = "c2"
+volume = "11.23197217930636 mL"
+initial_concentration = "0.04007428058651273 mg/mL"
+partition = 0.4792166500233581
+
+[[exchange]]
+id = "x0"
+from = "c1"
+to = "c2"
+flow = "30.68790452214458 mL/h"
+
+[[exchange]]
+id = "x1"
+from = "c2"
+to = "c0"
+flow = "14908.96136468166 mL/h"
+
+[[transfer]]
+id = "t0"
+from = "c0"
+to = "c1"
+rate = "0.04231427396067456 1/h"
+
+[[dose]]
+target = "c2"
+kind = "bolus"
+amount = "60.171366589877174 mg"
+at = "0.5331964873056528 h"
+
+[[dose]]
+target = "c1"
+kind = "bolus"
+amount = "0.04309137364933852 mg"
+every = "0.7889730409947662 h"
+
+"""
+
+DEGRADED_BESIDE_A_LATE_BOLUS = """
+[scenario]
+name = "random network (invented)"
+duration = "0.9809768383860078 h"
+output_step = "0.03269922794620026 h"
+
+[[compartment]]
+id = "c0"
+volume = "0.04253677485905145 mL"
+partition = 0.20737198570047435
+clearance = "139.06594078102688 mL/h"
+vmax = "1.8967759097293313 mg/h"
+km = "0.2129251157680184 mg/mL"
+
+[[compartment]]
+id = "c1"
+volume = "0.20004777867315626 mL"
+initial_concentration = "0.0015828928463324293 mg/mL"
+partition = 1.7330676270925325
+clearance = "0.22006756973361372 mL/h"
+
+[[barrier]]
+id = "b0"
+from = "c0"
+to = "c1"
+area = "35.65295889661386 cm^2"
+
+[[barrier.layer]]
+thickness = "393.539191412189 um"
+diffusivity = "4.944370331461659e-05 cm^2/h"
+partition = 0.224038556030271
+cells = 2
+
+[[barrier.layer]]
+thickness = "0.10422271039697174 cm"
+diffusivity = "5.451404267669553e-06 cm^2/h"
+partition = 7.053238342804179
+cells = 4
+degradation_rate = "3.291404843963361 1/h"
+
+[[barrier]]
+id = "b1"
+from = "c0"
+to = "c1"
+area = "0.019985771674249177 cm^2"
+
+[[barrier.layer]]
+thickness = "0.05892213299605234 cm"
+diffusivity = "3.378181376336354e-06 cm^2/h"
+partition = 0.03253649971161508
+cells = 8
+
+[[barrier.layer]]
+thickness = "0.0027084495224934642 cm"
+diffusivity = "4.3539802215666035e-07 cm^2/h"
+partition = 6.618282794136001
+cells = 3
+
+[[transfer]]
+id = "t0"
+from = "c0"
+to = "c1"
+rate = "0.014865224486116201 1/h"
+
+[[dose]]
+target = "c0"
+kind = "bolus"
+amount = "85.72328754980775 mg"
+at = "0.5077721408597194 h"
+
+"""
+
+PASSED_TO_A_HELD_SINK = """
+[scenario]
+name = "random network (invented)"
+duration = "55.331939274254495 h"
+output_step = "1.7849012669114352 h"
+
+[[compartment]]
+id = "c0"
+volume = "10.783651120751637 mL"
+initial_concentration = "0.22057676232856058 mg/mL"
+partition = 0.5910215198463022
+clearance = "36.26741609866971 mL/h"
+vmax = "0.001118533432927619 mg/h"
+km = "0.37220267790609207 mg/mL"
+
+[[compartment]]
+id = "c1"
+volume = "0.1944109982177078 mL"
+initial_concentration = "0.29459065532913753 mg/mL"
+partition = 3.2290240677244704
+clearance = "429.8698155023088 mL/h"
+
+[[compartment]]
+id = "c2"
+volume = "0.0016837085759760053 mL"
+initial_concentration = "0.33876439277983283 mg/mL"
+partition = 0.3046060749054296
+clearance = "8844.469144205785 mL/h"
+
+[[compartment]]
+id = "c3"
+partition = 1.0575325558090243
+held_concentration = "0 mg/mL"
+
+[[compartment]]
+id = "c4"
+volume = "43708.9156144479 mL"
+partition = 2.10281144301644
+
+[[compartment]]
+id = "c5"
+volume = "0.09207737556256976 mL"
+initial_concentration = "83.73356797772 mg/L"
+partition = 0.14882774681869412
+clearance = "161.60385201537284 mL/h"
+
+[[barrier]]
+id = "b0"
+from = "c5"
+to = "c4"
+area = "0.7134166097616912 cm^2"
+
+[[barrier.layer]]
+thickness = "0.008385282706698536 cm"
+diffusivity = "3.908504865618383e-08 cm^2/h"
+partition = 22.37844127898632
+cells = 4
+
+[[barrier.layer]]
+thickness = "0.003850525531838451 cm"
+diffusivity = "0.0003226242475546754 cm^2/h"
+partition = 22.182082843244512
+cells = 8
+degradation_rate = "1.839965388468366 1/h"
+
+[[barrier.layer]]
+thickness = "0.00012807257357062615 cm"
+diffusivity = "2.7425519577813513e-08 cm^2/h"
+partition = 0.2881348687222524
+cells = 5
+degradation_rate = "3.769009852337227 1/h"
+
+[[barrier]]
+id = "b1"
+from = "c1"
+to = "c4"
+area = "38.84457778632643 cm^2"
+
+[[barrier.layer]]
+thickness = "0.12405832190915701 cm"
+diffusivity = "4.613073013845183e-09 cm^2/h"
+partition = 0.3593781231807826
+cells = 5
+
+[[barrier]]
+id = "b2"
+from = "c3"
+to = "c2"
+area = "7.866901855228299 cm^2"
+
+[[barrier.layer]]
+thickness = "0.00019382445756933409 cm"
+diffusivity = "5.3706481723158565e-09 cm^2/h"
+partition = 7.2857161605962935
+cells = 3
+degradation_rate = "0.009450614973955843 1/h"
+
+[[barrier.layer]]
+thickness = "0.07381576336217657 cm"
+diffusivity = "6.346652426650582e-05 cm^2/h"
+partition = 5.338916109295974
+cells = 8
+degradation_rate = "0.0033517261057942954 1/h"
+
+[[transfer]]
+id = "t0"
+from = "c0"
+to = "c3"
+rate = "0.4930662134925419 1/h"
+
+[[transfer]]
+id = "t1"
+from = "c5"
+to = "c4"
+rate = "0.0360099293555157 1/h"
+
+[[dose]]
+target = "c2"
+kind = "infusion"
+rate = "0.08506212738693508 mg/h"
+duration = "10.65773380459174 h"
+at = "11.995499916709711 h"
+
+[[dose]]
+target = "c2"
+kind = "remove"
+at = "32.78061940428659 h"
+
+"""
+
+FLOOR_CASES = [(PASSED_FROM_A_COMPARTMENT_EMPTIED_IN_SECONDS, "13.2 on permeated:b1"),
+               (ELIMINATED_BESIDE_A_FAST_EXCHANGE, "36.0 on eliminated:c1"),
+               (DEGRADED_BESIDE_A_LATE_BOLUS, "16.3 on degraded:b0"),
+               (PASSED_TO_A_HELD_SINK, "15.2 on permeated:b2")]
+
+
+@pytest.mark.parametrize(("text", "before"), FLOOR_CASES, ids=["random-1183", "random-1206", "random-1487",
+                                                               "random-1828"])
+def test_amounts_below_the_floor_on_rodas4_meet_the_contract(text, before):
+    """A cumulative amount below the magnitude floor whose summed error estimates exceed
+    FLOOR_EXCESS times its promise is computed again on RODAS4 with it and the states it comes from
+    held to the floor; every exported column within the contract of /work/shared/spec/benchmark.md
+    against scipy's Radau IIA (rtol 1e-10, atol 1e-13 and 1e-15 of each state's scale; Hairer and
+    Wanner, Solving Ordinary Differential Equations II, 2nd ed., 1996, sec. IV.8) on the same grid."""
+    s = bf.loads(text)
+    res = bf.simulate(s)
+    assert res.integrator == "rodas4" and "computed twice" in res.message
+    for ref in (reference(s, res), _converged(s, res)):
+        errors = contract_errors(res, ref)
+        worst = max(errors, key=errors.get)
+        assert errors[worst] <= 1.0, (worst, errors[worst], before)
+
+
+
+# Random case 9 of the sweep (a random network of tests/random_networks.py): what compartment c0
+# eliminated stays below the magnitude floor, its tolerance 30 times the promise on it, and its
+# error estimates summed over the accepted steps come to 15.7 times that promise, below FLOOR_EXCESS:
+# one run, within the contract.
+ELIMINATED_BELOW_THE_FLOOR_ONCE = """
+[scenario]
+name = "random network (invented)"
+duration = "98.55147276154308 h"
+output_step = "3.285049092051436 h"
+
+[[compartment]]
+id = "c0"
+volume = "0.030843214606789772 mL"
+initial_concentration = "0.02255807554513216 mg/mL"
+partition = 0.8461416454035497
+clearance = "2.1785526560117936 mL/h"
+
+[[compartment]]
+id = "c1"
+volume = "669.1721885845758 mL"
+partition = 7.806041906723484
+clearance = "9.080437308837014 mL/h"
+
+[[compartment]]
+id = "c2"
+volume = "84697.13100222178 mL"
+partition = 2.3816694499397517
+clearance = "16249.789266607355 mL/h"
+vmax = "0.0033861195802365514 mg/h"
+km = "0.22836372726665413 mg/mL"
+
+[[barrier]]
+id = "b0"
+from = "c0"
+to = "c2"
+area = "71.7877333350784 cm^2"
+model = "steady"
+
+[[barrier.layer]]
+thickness = "0.0007594435875987233 cm"
+diffusivity = "1.060555527307004e-07 cm^2/h"
+partition = 0.1332716149258447
+degradation_rate = "3.6166311874740855 1/h"
+
+[[barrier.layer]]
+thickness = "0.07995346177340994 cm"
+diffusivity = "8.70618704854616e-09 cm^2/h"
+partition = 0.3275409536801135
+degradation_rate = "0.006279613065045596 1/h"
+
+[[barrier.layer]]
+thickness = "6.04593908901442 um"
+diffusivity = "0.0005127878096409016 cm^2/h"
+partition = 25.28869847024835
+
+[[barrier]]
+id = "b1"
+from = "c2"
+to = "c0"
+area = "1.958450370601485 cm^2"
+
+[[barrier.layer]]
+thickness = "0.0002751961654927831 cm"
+diffusivity = "0.009547831695609132 cm^2/h"
+partition = 1.007426932652518
+
+[[transfer]]
+id = "t0"
+from = "c0"
+to = "c2"
+rate = "0.03771320819992959 1/h"
+
+[[dose]]
+target = "c2"
+kind = "infusion"
+rate = "0.0018658039865476696 mg/h"
+duration = "12.699439631672147 h"
+at = "60.00684347608003 h"
+
+[[dose]]
+target = "c2"
+kind = "infusion"
+rate = "0.7523300955987343 mg/h"
+duration = "1.1538236591454574 h"
+
+"""
+
+
+def test_an_amount_below_the_floor_with_small_estimates_is_computed_once():
+    """The rule's other side: an amount below the floor whose summed error estimates stay below
+    FLOOR_EXCESS times its promise is computed once, and meets the contract against scipy's Radau
+    IIA (rtol 1e-10, atol 1e-13 and 1e-15; Hairer and Wanner 1996, sec. IV.8) on the same grid."""
+    s = bf.loads(ELIMINATED_BELOW_THE_FLOOR_ONCE)
+    res = bf.simulate(s)
+    assert res.integrator == "rodas4" and "computed twice" not in res.message
+    for ref in (reference(s, res), _converged(s, res)):
+        errors = contract_errors(res, ref)
+        worst = max(errors, key=errors.get)
+        assert errors[worst] <= 1.0, (worst, errors[worst])

@@ -330,7 +330,8 @@ def _run_population(lo, hi, loop, finish, exact, order, cut, sargs, coef, n_w, r
             atol = atol_rel * base.scale
             code, k = _call_run_marks(loop, np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w,
                                       n_jac, rtol, atol, max_steps, hold, y, ptr, states, evd, evr, st,
-                                      np.bool_(True), empty_taps(n), np.zeros(0, dtype=np.int64), np.zeros(0))
+                                      np.bool_(True), empty_taps(n), np.zeros(0, dtype=np.int64), np.zeros(0),
+                                      np.zeros(0))
             status[i] = code
             fail_k[i] = k
         for j in range(6):
@@ -430,7 +431,8 @@ def _entries(batch: _Batch, work: ModelArrays, order, cut: float, n_jac: int, st
     return entry(run_marks, np.int64(0), np.int64(len(batch.marks) - 1), batch.marks, batch.times, evi, m, base, s,
                  struct.args(), COEF, struct.n_w, n_jac, float(integ.rtol), float(integ.atol) * base.scale,
                  integ.max_steps, float(integ.hold), y, np.zeros(2, dtype=np.int64), states, evd, evr, st,
-                 np.bool_(True), empty_taps(n), np.zeros(0, dtype=np.int64), np.zeros(0)), finish
+                 np.bool_(True), empty_taps(n), np.zeros(0, dtype=np.int64), np.zeros(0),
+                 np.zeros(0)), finish
 
 
 def _shared_grid(scenarios: Sequence[Scenario], grid: Grid) -> dict[tuple[int, int], np.ndarray]:

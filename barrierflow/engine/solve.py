@@ -346,15 +346,11 @@ def solve(
         on_modes = (isinstance(integ, ExactIntegrator) and not integ.rational_rows
                     and exact_plan(model, integ.method)[0] == "chain")  # the chain path, by its modes
         declined = traj.status != 0 and isinstance(integ, ExactIntegrator)
-        if exact_off and on_modes:
-            # the chain path again, every row through the rational approximation (not the modes)
-            nxt = (dataclasses.replace(integ, rational_rows=True), run_model,
-                   "with every row through the rational approximation of the exponential")
-        elif (fallback and not small and default_rodas is not None and on_modes
-              and (not declined or rational_cheaper(model, len(times), len(marks) - 1))):
-            # the default's chain path declined its modes, or its result failed its check (as a
-            # ledger beyond the exact limit above): the chain path without modes, the first where
-            # estimated no dearer than the default's RODAS4
+        if on_modes and (exact_off or (fallback and not small and default_rodas is not None and (
+                not declined or rational_cheaper(model, len(times), len(marks) - 1)))):
+            # the chain path again, every row through the rational approximation (not the modes):
+            # its ledger beyond the exact limit; or the default's chain path declined its modes (the
+            # first where estimated no dearer than the default's RODAS4) or its result failed its check
             nxt = (dataclasses.replace(integ, rational_rows=True), run_model,
                    "with every row through the rational approximation of the exponential")
         elif fallback and default_rodas is not None and declined:
@@ -367,9 +363,7 @@ def solve(
             default_rodas = None
         elif fallback and small and rescaled < MAX_RESCALES:
             # absolute tolerances from what the run reached, on the robust integrator
-            scale = observed_scale(run_model, traj.states, traj.initial_amount, traj.event_dosed,
-                                   traj.event_removed)
-            nxt = (robust, run_model.with_arrays(run_model.arrays._replace(scale=scale)),
+            nxt = (robust, _at_reached_scales(run_model, traj),
                    "at tighter tolerances, with absolute tolerances from the magnitudes it reached")
             rescaled += 1
         elif fallback and not small and not plain_robust:
@@ -379,9 +373,7 @@ def solve(
             # a flux still unresolved at the robust tolerances: its face states' scales far above
             # what they reached (extreme patch 217 of the adversarial sweep, a face cell holding
             # 2e-5 of its scale after a bolus), so at scales from what the run reached
-            scale = observed_scale(run_model, traj.states, traj.initial_amount, traj.event_dosed,
-                                   traj.event_removed)
-            nxt = (robust, run_model.with_arrays(run_model.arrays._replace(scale=scale)),
+            nxt = (robust, _at_reached_scales(run_model, traj),
                    "with absolute tolerances from the magnitudes it reached")
             rescaled += 1
         notes.append(note + (f", so it was computed again with {nxt[0].name} {nxt[2]}" if nxt else ""))
@@ -417,6 +409,13 @@ def _amended(traj: Trajectory, **changes) -> Trajectory:
     d.update(traj.__dict__)
     d.update(changes)
     return new
+
+
+def _at_reached_scales(model: CompiledModel, traj: Trajectory) -> CompiledModel:
+    """``model`` with the scales of its absolute tolerances from the magnitudes ``traj`` reached
+    (:func:`~barrierflow.engine.ledger.observed_scale`)."""
+    scale = observed_scale(model, traj.states, traj.initial_amount, traj.event_dosed, traj.event_removed)
+    return model.with_arrays(model.arrays._replace(scale=scale))
 
 
 def _default_rodas(integrator: Integrator | None) -> Integrator | None:

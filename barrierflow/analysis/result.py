@@ -20,7 +20,7 @@ from ..caution import CAUTION
 from ..engine import Trajectory
 from ..engine.compiled import limited_compartments
 from ..engine.ledger import rows_ledger
-from ..io import stage_traces, traces_digest, write_traces
+from ..io import traces_digest, write_traces
 from ..io.csv_numbers import csv_row_bytes
 from ..model import Scenario
 from ..units import unit_factor
@@ -611,11 +611,12 @@ class Result:
     def to_csv(self, path: str | os.PathLike[str] | None = None) -> Path:
         """Write the traces CSV and its JSON sidecar ``<name>.json`` beside it, atomically, as a pair.
 
-        The CSV is made, written to a temporary file and flushed to disk in another thread while
-        the sidecar's content is computed; the sidecar is then written to its own temporary file
-        and flushed; only then are both renamed into place, the CSV first and the sidecar last
-        (a failure before leaves no file). The sidecar
-        records the CSV's SHA-256 (``traces``), so :func:`barrierflow.io.traces_match` tells
+        The CSV is made and hashed first (compiled formatting, in this thread), then written to a
+        temporary file whose flush to disk another thread waits for while this one computes the
+        sidecar's content (metrics, warnings, the ledger); the sidecar is then written to its own
+        temporary file and flushed; only then are both renamed into place, the CSV first and the
+        sidecar last, and the folder flushed (a failure before the renames leaves no file). The
+        sidecar records the CSV's SHA-256 (``traces``), so :func:`barrierflow.io.traces_match` tells
         whether the two belong together, even after a run killed between the renames.
 
         Parameters
@@ -631,17 +632,13 @@ class Result:
         if path is None:
             stem = Path(self.scenario.source).stem if self.scenario.source else "barrierflow-run"
             path = Path(f"{stem}.csv")
-        # the values are formatted and hashed, and the CSV written to its temporary file and
-        # flushed to disk, in another thread (compiled code, hashing and the waits for the disk let
-        # the interpreter's lock go) while this one computes what the sidecar shows
-        staged = stage_traces(path, _csv_bytes_and_digest, *self._csv_parts())
-        try:
-            self.metrics(), self.warnings(), self.mass_balance
-            digest = staged.value()
-        except BaseException:
-            staged.discard()
-            raise
-        return write_traces(path, staged, lambda: self._sidecar_text(digest))
+        # all the making in this thread, one piece after the other: on two shared cores a thread
+        # that formats while this one computes the sidecar waits for the interpreter's lock at each
+        # hand-over (up to the 5 ms switch interval), which cost more than the overlap saved; only
+        # the waits for the disk (the CSV's flush while the sidecar is made) run in another thread
+        raw = self.csv_bytes()
+        digest = traces_digest(raw)
+        return write_traces(path, raw, lambda: self._sidecar_text(digest))
 
     def sidecar_text(self, csv_text: str | bytes | None = None) -> str:
         """The JSON sidecar as text, exactly as :meth:`to_csv` writes it (``csv_text``: as in :meth:`sidecar`)."""
@@ -656,11 +653,6 @@ class Result:
 def _csv_bytes(head: bytes, table: np.ndarray | None) -> bytes:
     """The traces CSV: its header line, then the rows of its values."""
     return head if table is None else head + csv_row_bytes(table)
-
-
-def _csv_bytes_and_digest(head: bytes, table: np.ndarray | None) -> tuple[bytes, dict[str, object]]:
-    raw = _csv_bytes(head, table)
-    return raw, traces_digest(raw)
 
 
 def trace_columns(source: Any, scenario: Scenario) -> list[tuple[str, np.ndarray]]:

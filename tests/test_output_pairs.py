@@ -46,10 +46,9 @@ def test_sidecar_records_the_hash_of_the_csv_it_belongs_with(tmp_path):
     assert json.loads(result.sidecar_text())["traces"] == side["traces"]
 
 
-def test_traces_formatted_in_another_thread_are_the_text_and_a_failure_there_leaves_no_file(tmp_path, monkeypatch):
-    # to_csv formats and hashes the table in another thread while the sidecar's content is made:
-    # the bytes written are csv_text's, and a failure in that thread reaches the caller before any
-    # file is written
+def test_to_csv_writes_the_csv_text_and_a_failure_to_format_it_leaves_no_file(tmp_path, monkeypatch):
+    # the bytes written are csv_text's, and a failure of the compiled formatting reaches the
+    # caller before any file is written
     result = barrierflow.simulate(barrierflow.load(CELL))
     out = result.to_csv(tmp_path / "cell.csv")
     assert out.read_bytes() == result.csv_text().encode("utf-8") == result.csv_bytes()
@@ -65,10 +64,10 @@ def test_traces_formatted_in_another_thread_are_the_text_and_a_failure_there_lea
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cell.csv", "cell.json"]
 
 
-def test_a_staged_csv_is_removed_when_the_sidecar_or_its_own_flush_fails(tmp_path, monkeypatch):
-    # to_csv writes and flushes the CSV's temporary file in another thread while the sidecar's
-    # content is computed: a failure of that content, or of the CSV's own flush, leaves the
-    # folder as it was (no temporary file, the older pair untouched)
+def test_the_csv_flushed_in_another_thread_is_removed_when_the_sidecar_or_its_own_flush_fails(tmp_path, monkeypatch):
+    # to_csv writes the CSV's temporary file and another thread waits for its flush while the
+    # sidecar's content is computed: a failure of that content, or of the CSV's own flush, leaves
+    # the folder as it was (no temporary file, the older pair untouched)
     from barrierflow.analysis import Result
 
     result = barrierflow.simulate(barrierflow.load(CELL))
@@ -95,6 +94,83 @@ def test_a_staged_csv_is_removed_when_the_sidecar_or_its_own_flush_fails(tmp_pat
         barrierflow.simulate(barrierflow.load(CELL)).to_csv(out)
     assert info.value.filename == str(out)
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
+
+
+def test_to_csv_flushes_both_files_before_renaming_them_and_the_folder_after(tmp_path, monkeypatch):
+    # the write protocol of a traces pair (common practice for a durable replacement on POSIX:
+    # the new content flushed with fsync before the rename, the folder flushed after it): both
+    # temporaries flushed, the CSV's in another thread while the sidecar is made, then the CSV
+    # renamed, then the sidecar, then one flush of the folder
+    import threading
+
+    out = tmp_path / "cell.csv"
+    result = barrierflow.simulate(barrierflow.load(CELL))
+    result.to_csv(out)  # an older pair to replace
+    events: list[tuple[str, str, bool]] = []
+    real_fsync, real_replace = os.fsync, os.replace
+    caller = threading.get_ident()
+
+    def fsync(fd):
+        real_fsync(fd)
+        events.append(("fsync", os.path.basename(os.readlink(f"/proc/self/fd/{fd}")),
+                       threading.get_ident() == caller))
+
+    def replace(src, dst):
+        real_replace(src, dst)
+        events.append(("replace", Path(dst).name, threading.get_ident() == caller))
+
+    monkeypatch.setattr(os, "fsync", fsync)
+    monkeypatch.setattr(os, "replace", replace)
+    barrierflow.simulate(barrierflow.load(CELL)).to_csv(out)
+    monkeypatch.undo()
+    flushed = {name.split(".")[2]: in_caller for kind, name, in_caller in events[:2] if kind == "fsync"}
+    assert flushed == {"csv": False, "json": True}  # .cell.csv.<pid>-<random>.tmp: in the other thread
+    assert [(kind, name) for kind, name, _ in events[2:]] == [("replace", "cell.csv"), ("replace", "cell.json"),
+                                                            ("fsync", tmp_path.name)]  # the folder, once
+    assert traces_match(out)
+
+
+def test_to_csv_stopped_between_its_renames_leaves_a_complete_csv_that_the_old_sidecar_disowns(tmp_path,
+                                                                                           monkeypatch):
+    # a failure at the sidecar's rename (as a kill between the two renames): the CSV in place is
+    # the complete new one, the sidecar the old one, and traces_match tells they differ; no
+    # temporary file stays, and the next write leaves a matching pair. A failure of the sidecar's
+    # own flush (in the caller, while the CSV's flush runs in the other thread) changes nothing.
+    out = tmp_path / "cell.csv"
+    first = barrierflow.simulate(barrierflow.load(CELL))
+    first.to_csv(out)
+    old_side = (tmp_path / "cell.json").read_bytes()
+    real_fsync, real_replace = os.fsync, os.replace
+
+    def fail_for_the_sidecar_flush(fd):
+        if os.path.basename(os.readlink(f"/proc/self/fd/{fd}")).startswith(".cell.json."):
+            raise OSError(5, "Input/output error")
+        real_fsync(fd)
+
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    with monkeypatch.context() as m:
+        m.setattr(os, "fsync", fail_for_the_sidecar_flush)
+        with pytest.raises(OSError, match="Input/output error") as info:
+            barrierflow.simulate(barrierflow.load(CELL)).to_csv(out)
+    assert info.value.filename == str(tmp_path / "cell.json")
+    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
+
+    def stop_at_the_sidecar(src, dst):
+        if Path(dst).name == "cell.json":
+            raise OSError(5, "Input/output error")
+        real_replace(src, dst)
+
+    second = barrierflow.simulate(barrierflow.load(ROOT / "scenarios" / "benchmark_patch.toml"))  # other traces
+    with monkeypatch.context() as m:
+        m.setattr(os, "replace", stop_at_the_sidecar)
+        with pytest.raises(OSError, match="Input/output error"):
+            second.to_csv(out)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cell.csv", "cell.json"]
+    assert out.read_bytes() == second.csv_bytes()  # complete, the new run's
+    assert (tmp_path / "cell.json").read_bytes() == old_side
+    assert not traces_match(out)
+    second.to_csv(out)
+    assert traces_match(out) and sorted(p.name for p in tmp_path.iterdir()) == ["cell.csv", "cell.json"]
 
 
 def test_a_staged_file_is_renamed_with_the_others_or_removed(tmp_path):

@@ -17,7 +17,7 @@ from .atomic import (
 )
 from .experiment import load_experiment, loads_experiment
 from .scenario_files import load, loads, read_toml, save
-from .traces import sidecar_path, stage_traces, traces_digest, traces_match, write_traces
+from .traces import sidecar_path, traces_digest, traces_match, write_traces
 
 __all__ = [
     "Pending",
@@ -35,7 +35,6 @@ __all__ = [
     "save",
     "sidecar_path",
     "stage",
-    "stage_traces",
     "traces_digest",
     "traces_match",
     "write_traces",

@@ -29,8 +29,11 @@ What is promised, and how the waits for the disk are arranged:
 
 :func:`in_background` hands other work that lets the interpreter's lock go to a thread of the
 same kind; :func:`stage` hands it a whole file: made, written to its temporary file and flushed
-to disk there, then given to :func:`atomic_write_together` as that file's content (the traces CSV
-is made that way while the sidecar's content is computed).
+to disk there, then given to :func:`atomic_write_together` as that file's content. The traces
+CSV is not made that way (:meth:`barrierflow.Result.to_csv` makes it in the caller's thread): a
+thread that makes something in Python while the caller runs Python too waits for the
+interpreter's lock at every hand-over (up to the 5 ms switch interval when the caller does not
+block), which on two shared cores cost more than the overlap saved.
 """
 
 from __future__ import annotations

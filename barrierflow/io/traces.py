@@ -18,9 +18,9 @@ import os
 from collections.abc import Callable
 from pathlib import Path
 
-from .atomic import Staged, atomic_write_together, stage
+from .atomic import Staged, atomic_write_together
 
-__all__ = ["sidecar_path", "stage_traces", "traces_digest", "traces_match", "write_traces"]
+__all__ = ["sidecar_path", "traces_digest", "traces_match", "write_traces"]
 
 
 def sidecar_path(csv_path: str | os.PathLike[str]) -> Path:
@@ -34,27 +34,16 @@ def traces_digest(csv_text: str | bytes) -> dict[str, object]:
     return {"sha256": hashlib.sha256(raw).hexdigest(), "bytes": len(raw)}
 
 
-def stage_traces(csv_path: str | os.PathLike[str], make: Callable[..., tuple[bytes, object]], *args: object) -> Staged:
-    """Make the traces CSV and write it to its temporary file, flushed to disk, in another thread.
-
-    ``make(*args)`` returns ``(csv bytes, value)`` (the value, such as the CSV's
-    :func:`traces_digest`, is :meth:`~barrierflow.io.Staged.value`). Hand the result to
-    :func:`write_traces` as ``csv_text``, or call its ``discard()`` when the write is given up
-    (:func:`barrierflow.io.stage`; the stale temporary files of both files of the pair are
-    removed there).
-    """
-    return stage(csv_path, make, *args, tidy=(sidecar_path(csv_path),))
-
-
 def write_traces(csv_path: str | os.PathLike[str], csv_text: str | bytes | Staged,
                  sidecar_text: str | Callable[[], str]) -> Path:
     """Write the traces CSV and its sidecar (which must record ``traces_digest(csv_text)``).
 
     Nothing is replaced until both are complete on disk; then the CSV is renamed into place,
-    then the sidecar. ``sidecar_text`` may be a function that makes the text: it is called while
-    the CSV's temporary file is being flushed to disk (:func:`~barrierflow.io.atomic_write_together`).
-    ``csv_text`` may be the CSV staged by :func:`stage_traces` for the same path (written and
-    flushed in another thread meanwhile).
+    then the sidecar, and the folder is flushed. ``sidecar_text`` may be a function that makes
+    the text: it is called while another thread waits for the CSV's temporary file to be flushed
+    to disk (:func:`~barrierflow.io.atomic_write_together`). ``csv_text`` may also be a file
+    staged for the same path (:func:`barrierflow.io.stage`; written and flushed in another thread
+    meanwhile).
 
     Returns
     -------

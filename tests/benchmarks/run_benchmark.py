@@ -645,9 +645,9 @@ def file_to_traces_parts(tmp: Path, rounds: int) -> dict[str, float]:
     with every memo of the units module emptied (a process's first file: each distinct unit text
     is read once by pint), ``simulate``, the CSV text, the sidecar text, and the writing of both
     (temporary files flushed to disk, renamed into place); then ``to_csv`` as a whole on a new
-    result of the same run, which makes the CSV, writes it and flushes it to disk in another
-    thread while it makes the sidecar's content (so it takes less than the CSV, the sidecar and
-    the writing one after the other).
+    result of the same run, which waits for the CSV's flush to disk in another thread while it
+    makes the sidecar's content (so it takes less than the CSV, the sidecar and the writing one
+    after the other).
     Rounds alternate with nothing else.
     """
     from barrierflow.io import write_traces
@@ -1185,8 +1185,8 @@ def main(argv: list[str] | None = None) -> int:
                 f"{parts['load'] * 1e3:.2f} (a process's first file, each unit text read by pint once: "
                 f"{parts['first_load'] * 1e3:.2f}), simulate {parts['simulate'] * 1e3:.2f}, CSV text "
                 f"{parts['csv'] * 1e3:.2f}, sidecar text {parts['sidecar'] * 1e3:.2f}, writing both (flushed to "
-                f"disk, renamed) {parts['write'] * 1e3:.2f}; to_csv as a whole (the CSV made, written and flushed to "
-                f"disk in another thread while the sidecar is made) {parts['to_csv'] * 1e3:.2f}")
+                f"disk, renamed) {parts['write'] * 1e3:.2f}; to_csv as a whole (the CSV's flush to disk waited for in "
+                f"another thread while the sidecar is made) {parts['to_csv'] * 1e3:.2f}")
             out()
         if wanted("warm start"):
             ws = warm_start(tmp, 3 if args.quick else 5)

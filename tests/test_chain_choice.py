@@ -28,7 +28,14 @@ import barrierflow as bf
 from barrierflow.engine import compile_scenario, solve
 from barrierflow.engine.exact import exact_plan, mode_time
 from barrierflow.engine.exact_chain import MAX_MODES
-from barrierflow.engine.integrators import AutoIntegrator, chain_modes, chain_rows, estimated_seconds, rational_cheaper
+from barrierflow.engine.integrators import (
+    AutoIntegrator,
+    chain_modes,
+    chain_rescue,
+    chain_rows,
+    estimated_seconds,
+    rational_cheaper,
+)
 from barrierflow.engine.schedule import build_schedule
 
 sys.path.insert(0, str(Path(__file__).resolve().parent / "benchmarks"))
@@ -100,24 +107,45 @@ def test_small_quantities_on_a_chain_network_are_computed_again_and_meet_the_con
     """Random network 21 of the generator made linear (tests/benchmarks/chain_sweep.py, an invented
     scenario): the estimate puts RODAS4 first (344 states, 10 rows), whose result lets what barrier
     'b0' passed through its absolute tolerance (10.9 times the contract's promise on its peak,
-    ledger.check_magnitudes). The remedy is the robust integrator at scales from what the run
-    reached, not the exact chain path (whose rounding, about 1e-7 of each state's scale, is no
-    better for a quantity far below it: extreme patch 806 in tests/test_column_promises.py); each
-    exported column within the contract of scipy's Radau at rtol 1e-10
+    ledger.check_magnitudes). The remedy is the exact chain path (integrators.chain_rescue: its
+    estimate below CHAIN_RESCUE times RODAS4's), which has no tolerances and whose ledger is held to
+    exact.EXACT_BALANCE_LIMIT, not the robust integrator at scales from what the run reached (some
+    ten times dearer); each exported column within the contract of scipy's Radau at rtol 1e-10
     (tests/test_small_columns.contract_errors), and every state within SPLIT_TOL of its scale."""
     from test_small_columns import contract_errors, reference
 
     s = random_scenario(random.Random(21), max_comp=4, small_grid=True, default_grid=True, max_barriers=2,
                         min_barriers=1, linear=True)
     assert solve(s, fallback=False).integrator == "rodas4"  # the estimate's choice
+    m = compile_scenario(s)
+    times = s.output_array()
+    marks = np.array([0.0, s.duration])
+    assert chain_rescue(m, len(times), 1, s.duration, mode_time(times, marks), times, marks) is not None
     res = bf.simulate(s)
     tr = res.trajectory
-    assert tr.integrator == "rodas4" and tr.stats["fallbacks"] == 1, tr.message
-    assert "far below the magnitude" in tr.message and "computed again with rodas4" in tr.message
+    assert tr.integrator == "exact" and tr.stats["fallbacks"] == 1, tr.message
+    assert "far below the magnitude" in tr.message and "computed again with exact on the exact chain" in tr.message
     errors = contract_errors(res, reference(s, res))
     worst = max(errors, key=errors.get)
     assert errors[worst] <= 1.0, (worst, errors[worst])
     assert scaled_error(tr, radau(s)) < SPLIT_TOL
+
+
+def test_a_chain_rescue_that_fails_its_check_goes_to_the_robust_integrator():
+    """Random network 508 of the generator made linear (244 states, 12 rows, an invented scenario):
+    RODAS4's result lets a small quantity through its tolerance, the exact chain path that
+    integrators.chain_rescue sends it to fails its own check (its ledger off by 1.2e-9 of the amount
+    moved, beyond exact.EXACT_BALANCE_LIMIT), and the run goes where RODAS4's
+    finding sends it without that path: the robust integrator at scales from what the RODAS4 run
+    reached; within the contract of scipy's Radau (meets_the_contract)."""
+    s = linear_chain_network(508)
+    assert solve(s, fallback=False, raise_on_failure=False).integrator == "rodas4"
+    res = bf.simulate(s)
+    tr = res.trajectory
+    assert tr.integrator == "rodas4" and tr.stats["fallbacks"] == 2, tr.message
+    assert "computed again with exact on the exact chain path" in tr.message
+    assert "magnitudes the rodas4 run reached" in tr.message
+    meets_the_contract(s, res)
 
 
 def linear_chain_network(i: int) -> bf.Scenario:

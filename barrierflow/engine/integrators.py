@@ -866,6 +866,42 @@ def rational_cheaper(model: CompiledModel, rows: int, intervals: int) -> bool:
             <= estimated_seconds("rodas", model, rows, intervals))
 
 
+CHAIN_RESCUE = 5.0
+"""The default's RODAS4 result that lets a kept quantity through its absolute tolerances
+(:func:`~barrierflow.engine.ledger.check_magnitudes`) on a linear chain network is computed again
+on the exact chain path where that path's estimated cost (:func:`estimated_seconds`) is at most
+this many times RODAS4's (:func:`chain_rescue`), instead of on the robust integrator at scales from
+what the run reached, which took 10 to 20 times RODAS4's estimate on the random networks of
+tests/benchmarks/chain_sweep.py that met it (rtol 1e-8, 500 to 1,100 steps against 120 to 220 at
+the default's tolerances; chain cases 19, 21, 186, 444: 22 to 30 ms against the chain path's 3 to
+8 ms)."""
+
+
+def chain_rescue(model: CompiledModel, rows: int, intervals: int, longest: float, shortest: float,
+                 times: np.ndarray, marks: np.ndarray) -> Integrator | None:
+    """The exact chain path for a run of ``model`` that the default computed on RODAS4 and whose
+    result let a kept quantity through its absolute tolerances, where the default may take that
+    path (a linear chain within :data:`EXACT_MEMORY`, :func:`~barrierflow.engine.exact.exact_supported`
+    for the longest dosing interval ``longest``, h) and its estimated cost is at most
+    :data:`CHAIN_RESCUE` times RODAS4's; else None. Of the path on its modes
+    (:data:`~barrierflow.engine.exact.DEFAULT_EXACT`, the cut at the mode time ``shortest``, h) and
+    on rational rows (every row and interval end through the rational approximation, no modes to
+    compute or decline: where most rows lie before the cut anyway), the one estimated cheaper.
+    ``rows``, ``intervals``, ``times`` and ``marks`` (h) as :meth:`AutoIntegrator.resolve` takes
+    them."""
+    if not _exact_m.exact_supported(model, longest) or _exact_m.exact_plan(model)[0] != "chain":
+        return None
+    exact = _exact_m.DEFAULT_EXACT
+    if exact.working_memory(model) > EXACT_MEMORY:
+        return None
+    modes, early = _chain_counts(model, 60.0 / shortest, times, marks, shortest, -1.0)
+    on_modes = estimated_seconds("chain", model, rows, intervals, shortest=shortest, early=early, modes=modes)
+    rational = estimated_seconds("chain", model, rows, intervals, early=rows + intervals, modes=0.0)
+    if min(on_modes, rational) > CHAIN_RESCUE * estimated_seconds("rodas", model, rows, intervals):
+        return None
+    return exact if on_modes < rational else dataclasses.replace(exact, rational_rows=True)
+
+
 VEHICLE = ScipyIntegrator("Radau", rtol=1e-7, atol=1e-10)
 """What the default runs a model with vehicle terms on (evaporation, solubility limits, samples
 without replacement; see :mod:`barrierflow.engine.vehicle`): only the scipy integrators take

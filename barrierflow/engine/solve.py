@@ -27,8 +27,18 @@ from .compiled import CompiledModel, compile_scenario
 from .exact import ExactIntegrator, _mode_time, exact_balance_findings, exact_plan
 from .exported import Rows
 from .grid import DEFAULT_GRID, Grid
-from .integrators import AutoIntegrator, Integrator, RunPlan, ScipyIntegrator, rational_cheaper, resolve_integrator
+from .integrators import (
+    EXACT_MEMORY,
+    AutoIntegrator,
+    Integrator,
+    RunPlan,
+    ScipyIntegrator,
+    chain_rescue,
+    rational_cheaper,
+    resolve_integrator,
+)
 from .ledger import (
+    DERIVED_FINDING,
     busiest_part,
     check_magnitudes,
     check_rows,
@@ -240,7 +250,10 @@ def solve(
     :func:`~barrierflow.engine.ledger.check_magnitudes` (no kept quantity far below the scale its
     absolute tolerance came from, no one-way cumulative amount below zero); one that does not is
     computed again on the robust integrator with scales from the magnitudes it reached
-    (:func:`~barrierflow.engine.ledger.observed_scale`), at most :data:`MAX_RESCALES` times. The
+    (:func:`~barrierflow.engine.ledger.observed_scale`), at most :data:`MAX_RESCALES` times; the
+    default's RODAS4 run on a linear chain network whose finding is on kept quantities alone goes
+    first to the exact chain path where :func:`~barrierflow.engine.integrators.chain_rescue`
+    estimates it cheap enough, then, if that fails its check or declines, there. The
     default's chain path whose result fails its check goes first to the chain path on rational
     rows; an exact path the default chose that declines goes there where
     :func:`~barrierflow.engine.integrators.rational_cheaper`, else to RODAS4 at the default's
@@ -302,6 +315,11 @@ def solve(
     # RODAS4 at the default's tolerances, where the default's exact path declined (None: taken, or
     # an integrator asked for by name)
     default_rodas = _default_rodas(integrator) if isinstance(chosen, ExactIntegrator) else None
+    # the default's RODAS4 run whose small quantity failed its check may go to the exact chain path
+    # (integrators.chain_rescue); rescued_from holds that RODAS4 run while the chain path's runs
+    rescuable = (isinstance(chosen, RosenbrockIntegrator) and _default_rodas(integrator) is not None
+                 and len(times) * (model.n_state + 2 * model.n_comp) * 8 + EXACT_MEMORY <= MEMORY_BUDGET_BYTES)
+    rescued_from = None
     # the run, (the chain path on rational rows,) (the default's RODAS4,) robust, rescaled
     for k in range(4 + MAX_RESCALES):
         if k:
@@ -346,7 +364,26 @@ def solve(
         on_modes = (isinstance(integ, ExactIntegrator) and not integ.rational_rows
                     and exact_plan(model, integ.method)[0] == "chain")  # the chain path, by its modes
         declined = traj.status != 0 and isinstance(integ, ExactIntegrator)
-        if on_modes and (exact_off or (fallback and not small and default_rodas is not None and (
+        if rescued_from is not None:
+            # the exact chain path after RODAS4's finding failed its own check or declined: the run
+            # goes where that finding sends it, at scales from what the RODAS4 run reached
+            nxt = (robust, _at_reached_scales(model, rescued_from),
+                   "at tighter tolerances, with absolute tolerances from the magnitudes the rodas4 run reached")
+            rescued_from = None
+            rescaled += 1
+        elif (k == 0 and small and rescuable and rescaled < MAX_RESCALES
+              and not any(DERIVED_FINDING in f for f in found)
+              and (rescue := chain_rescue(model, len(times), len(marks) - 1, longest, plan.mode_time, times,
+                                          marks)) is not None):
+            # a quantity far below its scale on a linear chain network: the exact chain path, which has
+            # no tolerances (its rounding shows in its ledger, exact.EXACT_BALANCE_LIMIT), where its
+            # estimate is at most integrators.CHAIN_RESCUE times RODAS4's: the robust integrator at
+            # scales from what the run reached took 10 to 20 times RODAS4's estimate on the random
+            # networks of tests/benchmarks/chain_sweep.py that met this (chain cases 19, 21, 186, ...)
+            nxt = (rescue, model, "on the exact chain path, which has no tolerances" + (
+                ", every row through the rational approximation of the exponential" if rescue.rational_rows else ""))
+            rescued_from = traj
+        elif on_modes and (exact_off or (fallback and not small and default_rodas is not None and (
                 not declined or rational_cheaper(model, len(times), len(marks) - 1)))):
             # the chain path again, every row through the rational approximation (not the modes):
             # its ledger beyond the exact limit; or the default's chain path declined its modes (the

@@ -39,7 +39,7 @@ from numba import njit
 
 from .arrays import ModelArrays
 from .compiled import CompiledModel, chain_walk
-from .exported import chain_taps, flush_chain_guard, take_chain_row, take_row
+from .exported import chain_guard, chain_taps, flush_chain_guard, take_chain_row, take_row
 from .kernels import INNER, jacobian_kernel, rates_kernel
 from .schedule import apply_events, rows_until
 
@@ -345,33 +345,45 @@ def _part_modes(dd_all, ee_all, lo_i, hi_i, cut, gedge_all, ediag_all, msq_all, 
             x = lo[s] + (hi[s] - lo[s]) * (min(max(n - 1 - s - clo[s], 0), j - 1) + 1) / (j + 1)
             if lo[s] < x < hi[s]:
                 xq[s] = x
+    # The recurrence runs at the points of the modes not yet finished only, side by side (``act``
+    # their modes, ``xa`` their points): a finished mode's point no longer moves, so its count is
+    # the one it had, and it narrows the brackets as it did (the same bounds again).
+    act = np.empty(kb, dtype=np.int64)
+    xa = np.empty(kb)
+    dla = np.empty(kb)
+    cna = np.empty(kb, dtype=np.int64)
     for _it in range(200):
-        done = True
+        na = 0
         for s in range(kb):
             if not fin[s]:
-                done = False
-        if done:
+                act[na] = s
+                xa[na] = xq[s]
+                na += 1
+        if na == 0:
             break
-        for s in range(kb):
-            v = dd[0] - xq[s]
+        for s in range(na):
+            v = dd[0] - xa[s]
             v = v if abs(v) >= pivmin else -pivmin
             rq[s] = 1.0 / v
             dq[s] = -1.0
-            dl[s] = -rq[s]
-            cnt[s] = 1 if v < 0.0 else 0
+            dla[s] = -rq[s]
+            cna[s] = 1 if v < 0.0 else 0
         for i in range(1, n):
             e2 = ee[i - 1] * ee[i - 1]
             di = dd[i]
-            for s in range(kb):  # branch-free, so that the shifts run in vector lanes
+            for s in range(na):  # branch-free, so that the shifts run in vector lanes
                 r = rq[s]
-                v = di - xq[s] - e2 * r
+                v = di - xa[s] - e2 * r
                 v = v if abs(v) >= pivmin else -pivmin
                 d = -1.0 + e2 * dq[s] * r * r
                 r = 1.0 / v
                 rq[s] = r
                 dq[s] = d
-                dl[s] += d * r
-                cnt[s] += v < 0.0
+                dla[s] += d * r
+                cna[s] += v < 0.0
+        for s in range(na):
+            dl[act[s]] = dla[s]
+            cnt[act[s]] = cna[s]
         for p in range(kb):  # every point narrows every bracket
             xp = xq[p]
             c = cnt[p]
@@ -895,15 +907,24 @@ def cumulative_at(t, qconst, qslope, moved, n_moved, wt, zi, k, nqd, qs):
 
 
 @njit(inline="always", error_model="numpy")
-def add_modes(vyp, zsb, ysb, n, kb4):
-    """Four rows at a time: ``ysb[r, :n] += sum_s zsb[r, s] vyp[s, :n]`` over the first ``kb4``
-    (a multiple of four) patterns, four patterns per pass over the states, so that a pattern
-    value loaded once serves four rows (the sums of each row in the same order as one row at a
-    time)."""
+def add_modes(base, vyp, zsb, ysb, n, kb4):
+    """Four rows at a time: ``ysb[r, :n] = base[:n] + sum_s zsb[r, s] vyp[s, :n]`` over the first
+    ``kb4`` (a multiple of four) patterns, four patterns per pass over the states, so that a
+    pattern value loaded once serves four rows (the sums of each row in the same order as one row
+    at a time: ``base``, then each pass's four terms added to it); the first pass starts from
+    ``base`` itself (no pass of its own to copy it)."""
     y_0 = ysb[0]
     y_1 = ysb[1]
     y_2 = ysb[2]
     y_3 = ysb[3]
+    if kb4 == 0:
+        for a in range(n):
+            va = base[a]
+            y_0[a] = va
+            y_1[a] = va
+            y_2[a] = va
+            y_3[a] = va
+        return
     for s in range(0, kb4, 4):  # four modes per pass over the states
         v0 = vyp[s]
         v1 = vyp[s + 1]
@@ -913,6 +934,18 @@ def add_modes(vyp, zsb, ysb, n, kb4):
         z10, z11, z12, z13 = zsb[1, s], zsb[1, s + 1], zsb[1, s + 2], zsb[1, s + 3]
         z20, z21, z22, z23 = zsb[2, s], zsb[2, s + 1], zsb[2, s + 2], zsb[2, s + 3]
         z30, z31, z32, z33 = zsb[3, s], zsb[3, s + 1], zsb[3, s + 2], zsb[3, s + 3]
+        if s == 0:
+            for a in range(n):
+                va = v0[a]
+                vb = v1[a]
+                vc = v2[a]
+                vd = v3[a]
+                b = base[a]
+                y_0[a] = b + (va * z00 + vb * z01 + vc * z02 + vd * z03)
+                y_1[a] = b + (va * z10 + vb * z11 + vc * z12 + vd * z13)
+                y_2[a] = b + (va * z20 + vb * z21 + vc * z22 + vd * z23)
+                y_3[a] = b + (va * z30 + vb * z31 + vc * z32 + vd * z33)
+            continue
         for a in range(n):
             va = v0[a]
             vb = v1[a]
@@ -1078,6 +1111,7 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
     zib = np.zeros((4, ks4))
     ysb = np.empty((4, n))
     tb = np.empty(4)
+    use = np.zeros(4, dtype=np.bool_)  # the block's rows kept in chain order (chain_guard)
     j = j0
     while j <= n_t:  # the output times, then the end of the interval
         nb = min(4, n_t + 1 - j)
@@ -1122,10 +1156,6 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
                 if has_g:
                     zs[s] += p1 * gz[s]
                     zi[s] += tj * tj * _phi2(x) * gz[s]
-        for r in range(4):
-            yr = ysb[r]
-            for a in range(n):
-                yr[a] = yfast[a]
         # without forcing, a mode decayed below exp(-60) at the block's first time adds nothing to
         # the states of its rows: later rows need fewer modes
         kb4 = ks4
@@ -1134,7 +1164,9 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
             while kb < ks and lam[kb] * tb[0] > -60.0:
                 kb += 1
             kb4 = (kb + 3) // 4 * 4
-        add_modes(vyp, zsb, ysb, n, kb4)
+        add_modes(yfast, vyp, zsb, ysb, n, kb4)
+        for r in range(4):
+            use[r] = False
         for r in range(nb):
             jr = j + r
             tj = tb[r]
@@ -1153,13 +1185,16 @@ def _interval(y0, g, tau, n, idx, tv, dd, ee, ediag, msq, comp_of, lam, vec, vyp
             for q in range(nqd):
                 dq[q] = y0[nd + q] + qs[q] + g[nd + q] * tj
             if chained and jr < n_t and row0 + jr != last_row:
-                take_chain_row(ys, dst, row0 + jr, taps, pos, capc, isc, plo, phi, mins)
+                take_chain_row(ys, dst, row0 + jr, taps, pos, capc, plo, phi)
+                use[r] = True
                 n_chained += 1
                 continue
             for a in range(n):
                 dst[idx[a]] = ys[a]
             if jr < n_t:
                 take_row(dst, row0 + jr, taps, cap, nd)
+        if chained:
+            chain_guard(ysb, use, isc, mins)
         j += nb
     if n_chained:
         flush_chain_guard(mins, taps, y0, pos)

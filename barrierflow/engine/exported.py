@@ -26,7 +26,8 @@ from numba import njit
 from .arrays import INNER, larger, smaller
 from .compiled import CompiledModel, taps_arrays
 
-__all__ = ["Rows", "Taps", "chain_taps", "empty_taps", "flush_chain_guard", "take_chain_row", "take_row", "taps_of"]
+__all__ = ["Rows", "Taps", "chain_guard", "chain_taps", "empty_taps", "flush_chain_guard", "take_chain_row", "take_row",
+           "taps_of"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -141,18 +142,16 @@ def take_row(y, r, taps, cap, nd):
 
 
 @njit(**_LANES)
-def take_chain_row(ys, dst, r, taps, pos, capc, isc, plo, phi, mins):
+def take_chain_row(ys, dst, r, taps, pos, capc, plo, phi):
     """:func:`take_row` for a row whose chain states are at hand in chain order (the exact chain
-    path): the same values kept by the same rule, without first scattering them into a full state.
+    path, the split path): the same values kept by the same rule, without first scattering them
+    into a full state; the guard over the chain's states is :func:`chain_guard`'s, once per block
+    of rows.
 
     ``ys`` holds the states of the chain's positions, ``pos`` the position of each dynamic state
-    (-1 off the chain: those and the quadratures are read from ``dst``, the full row), ``capc`` and
-    ``isc`` the capacity and the inverse scale of each position, ``plo, phi`` each barrier's range
-    of positions (its cells are neighbours on the chain). The guard over the chain's states goes
-    element by element into ``mins`` (3 x positions: lowest scaled value, most negative value,
-    finite), so that its loop runs in vector lanes; :func:`flush_chain_guard` folds it into the
-    guard (with the states off the chain, which keep their value over an interval). Not for the
-    buffers' last row (:func:`take_row` keeps it whole).
+    (-1 off the chain: those and the quadratures are read from ``dst``, the full row), ``capc`` the
+    capacity of each position, ``plo, phi`` each barrier's range of positions (its cells are
+    neighbours on the chain). Not for the buffers' last row (:func:`take_row` keeps it whole).
     """
     keep, bstart, _bstop, _inv_scale, cols, cont, clip, guard, _last = taps
     nd = pos.shape[0]
@@ -171,27 +170,76 @@ def take_chain_row(ys, dst, r, taps, pos, capc, isc, plo, phi, mins):
             tot += larger(v, 0.0)
         cont[r, b] = acc
         clip[r, b] = tot
-    low = mins[0]
-    neg = mins[1]
-    fin = mins[2]
-    for a in range(capc.shape[0]):
-        v = ys[a]
-        w = v * isc[a]
-        low[a] = w if w < low[a] else low[a]
-        neg[a] = v if v < neg[a] else neg[a]
-        fin[a] += v * 0.0  # NaN for a NaN or an infinity
     f = 0.0
     for i in range(nd, dst.shape[0]):
         f += dst[i] * 0.0
     guard[2] += f
 
 
+@njit(**_LANES)
+def chain_guard(ysb, use, isc, mins):
+    """The guard of :func:`take_row` over the chain's states of the rows ``r`` of the block
+    ``ysb`` (4 x positions, in chain order) with ``use[r]``, kept element by element in ``mins``
+    (3 x positions: lowest scaled value, most negative value, finite), so that its loop runs in
+    vector lanes and each position's minima are loaded and stored once per block of four rows,
+    not once per row; :func:`flush_chain_guard` folds it into the guard. ``isc`` is the inverse
+    scale of each position. (A minimum, and a sum of zeros or NaN, do not depend on the order of
+    the rows.)"""
+    low = mins[0]
+    neg = mins[1]
+    fin = mins[2]
+    if use[0] and use[1] and use[2] and use[3]:
+        y0 = ysb[0]
+        y1 = ysb[1]
+        y2 = ysb[2]
+        y3 = ysb[3]
+        for a in range(isc.shape[0]):
+            s = isc[a]
+            lo = low[a]
+            ne = neg[a]
+            v = y0[a]
+            w = v * s
+            lo = w if w < lo else lo
+            ne = v if v < ne else ne
+            f = v * 0.0  # NaN for a NaN or an infinity
+            v = y1[a]
+            w = v * s
+            lo = w if w < lo else lo
+            ne = v if v < ne else ne
+            f += v * 0.0
+            v = y2[a]
+            w = v * s
+            lo = w if w < lo else lo
+            ne = v if v < ne else ne
+            f += v * 0.0
+            v = y3[a]
+            w = v * s
+            lo = w if w < lo else lo
+            ne = v if v < ne else ne
+            f += v * 0.0
+            low[a] = lo
+            neg[a] = ne
+            fin[a] += f
+        return
+    for r in range(4):
+        if not use[r]:
+            continue
+        ys = ysb[r]
+        for a in range(isc.shape[0]):
+            v = ys[a]
+            w = v * isc[a]
+            low[a] = w if w < low[a] else low[a]
+            neg[a] = v if v < neg[a] else neg[a]
+            fin[a] += v * 0.0  # NaN for a NaN or an infinity
+
+
 @njit(inline="always", error_model="numpy")
 def chain_taps(idx, n, nd, taps, cap, full):
-    """What :func:`take_chain_row` needs for a chain of ``n`` positions (``idx``: the state at each
-    position): ``(chained, pos, plo, phi, capc, isc)``, ``chained`` False when the rows cannot be
-    kept in chain order (the full states asked for, nothing kept, or a barrier whose cells are not
-    neighbours on the chain; they are: a barrier is a path of cells)."""
+    """What :func:`take_chain_row` and :func:`chain_guard` need for a chain of ``n`` positions
+    (``idx``: the state at each position): ``(chained, pos, plo, phi, capc, isc)``, ``chained``
+    False when the rows cannot be kept in chain order (the full states asked for, nothing kept, or
+    a barrier whose cells are not neighbours on the chain; they are: a barrier is a path of
+    cells)."""
     pos = np.full(nd, -1, dtype=np.int64)
     for a in range(n):
         pos[idx[a]] = a
@@ -225,7 +273,7 @@ def chain_taps(idx, n, nd, taps, cap, full):
 
 @njit(**_LANES)
 def flush_chain_guard(mins, taps, y0, pos):
-    """Fold the guard that :func:`take_chain_row` kept element by element into ``taps``' guard,
+    """Fold the guard that :func:`chain_guard` kept element by element into ``taps``' guard,
     with the dynamic states off the chain (held or clamped: their values in ``y0``, the state at
     the interval's start, the same at every row of it), and start ``mins`` again."""
     guard = taps[7]

@@ -82,7 +82,17 @@ from .exact_chain import (
     chain_order,
     cumulative_at,
 )
-from .exported import Rows, chain_taps, empty_taps, flush_chain_guard, new_buffers, take_chain_row, take_row, taps_of
+from .exported import (
+    Rows,
+    chain_guard,
+    chain_taps,
+    empty_taps,
+    flush_chain_guard,
+    new_buffers,
+    take_chain_row,
+    take_row,
+    taps_of,
+)
 from .integrators import Integration, Integrator, RunPlan, RunStats, check_tolerances, refuse_vehicle_terms
 from .kernels import jacobian_kernel, jacobian_size, saturable_rate, saturable_slope
 from .ledger import (
@@ -423,12 +433,9 @@ def _flush_rows(nb, y0, g, out, full, row, taps, row0, cap, n, idx, yfast, alone
     that is asked for, for the buffers' last row, or where the barriers are not neighbours on the
     chain. Returns the number of rows kept in chain order."""
     last_row = taps[4].shape[0] - 1
-    for r in range(4):
-        yr = ysb[r]
-        for a in range(n):
-            yr[a] = yfast[a]
-    add_modes(vyp, zsb, ysb, n, vyp.shape[0])
+    add_modes(yfast, vyp, zsb, ysb, n, vyp.shape[0])
     kept = 0
+    use = np.zeros(4, dtype=np.bool_)  # the rows kept in chain order (chain_guard)
     for r in range(nb):
         t = tb[r]
         io = rix[r]
@@ -444,12 +451,15 @@ def _flush_rows(nb, y0, g, out, full, row, taps, row0, cap, n, idx, yfast, alone
         for q in range(n_fixed):  # the states off the chain (held): take_chain_row reads them from dst
             dst[fixed[q]] = y0[fixed[q]]
         if chained and row0 + io != last_row:
-            take_chain_row(ys, dst, row0 + io, taps, pos, capc, isc, plo, phi, mins)
+            take_chain_row(ys, dst, row0 + io, taps, pos, capc, plo, phi)
+            use[r] = True
             kept += 1
             continue
         for a in range(n):
             dst[idx[a]] = ys[a]
         take_row(dst, row0 + io, taps, cap, nd)
+    if kept:
+        chain_guard(ysb, use, isc, mins)
     return kept
 
 

@@ -265,6 +265,21 @@ def working_copy(arrays: ModelArrays) -> ModelArrays:
     return ModelArrays._make(fields)
 
 
+@njit(**INNER)
+def working_arrays(b):
+    """:func:`working_copy` in compiled code (the same rule: its own copies of the fields of
+    :data:`CHANGING`, the others shared), one line per field, in order: a compiled run loop makes
+    its copy itself (``exact_chain.chain_schedule``), so that its caller passes the model's arrays
+    once."""
+    return ModelArrays(
+        b.n_comp, b.n_dyn, b.q_supply, b.q_infused, b.q_sampled, b.capacity.copy(), b.inv_capacity.copy(),
+        b.inv_partition, b.link_p, b.link_q, b.link_a.copy(), b.link_b.copy(), b.link_c.copy(), b.link_d.copy(),
+        b.link_loss, b.link_track, b.chain_g, b.other_links, b.loss_rate, b.loss_to, b.lossy,
+        b.mm_state, b.mm_vmax, b.mm_km, b.tr_from, b.tr_to, b.tr_rate, b.held,
+        b.has_volume, b.area, b.y0, b.scale, b.face_ptr, b.face_link, b.evap_rate,
+        b.residual, b.solubility, b.shrinking)
+
+
 def stack_arrays(arrays: Sequence[ModelArrays]) -> ModelArrays:
     """The arrays of many subjects of one structure, stacked: each value field gains a first axis
     (the subject); the structure (:data:`SHARED`, and the sizes and offsets) is the first

@@ -570,7 +570,6 @@ class ExactIntegrator(Integrator):
         n_t, nc = len(times), m.n_comp
         stats = RunStats()
         base = m.arrays
-        work = working_copy(base)  # the links as the events leave them (a closed face)
         s = start_events(base, len(ev.time))
         order = chain_order(m) if self.method in ("auto", "chain") else None
         if order is None and self.method == "chain":
@@ -590,7 +589,7 @@ class ExactIntegrator(Integrator):
             st = np.zeros(6, dtype=np.int64)
             # (a cut of 0: no modes, every row through the rational approximation)
             cut = 0.0 if self.rational_rows else _FAST / plan.mode_time
-            code = chain_schedule(marks, times, ev, tuple(work), tuple(base), s, order, cut, jacobian_size(m),
+            code = chain_schedule(marks, times, tuple(ev), tuple(base), tuple(s), order, cut, jacobian_size(m),
                                   m.y0.copy(), states, ev_dosed, ev_removed, st, full, taps)
             stats.add(st)
             if code != 0:
@@ -604,6 +603,7 @@ class ExactIntegrator(Integrator):
                 return Integration(states, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy())
             return Integration(None, ev_dosed, ev_removed, 0, "the run finished", stats, s.moved.copy(),
                                rows=Rows.from_buffers(m, taps, n_t), last=taps[8])
+        work = working_copy(base)  # the links as the events leave them (a closed face)
         use_modes = self.method in ("auto", "modes") and structurally_symmetric(m)
         if self.method == "modes" and not use_modes:
             raise ScenarioError.single("integrator method", "'modes'",

@@ -37,11 +37,11 @@ import math
 import numpy as np
 from numba import njit
 
-from .arrays import ModelArrays
+from .arrays import ModelArrays, working_arrays
 from .compiled import CompiledModel, chain_walk
 from .exported import chain_guard, chain_taps, flush_chain_guard, take_chain_row, take_row
 from .kernels import INNER, jacobian_kernel, rates_kernel
-from .schedule import apply_events, rows_until
+from .schedule import EventArrays, EventState, apply_events, rows_until
 
 FAIL_CONDITION = 5
 """Status of a chain run whose modes failed their a posteriori check (the path is not exact there)."""
@@ -1213,15 +1213,17 @@ def _more_modes(a, k):
 
 # ---------------------------------------------------------------- the whole regimen
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
-def chain_schedule(marks, times, ev, mt, bt, s, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
+def chain_schedule(marks, times, et, bt, st, order, cut, n_jac, y, states, ev_dosed, ev_removed, stats, full, taps):
     """Run the regimen exactly on a chain network; returns a status code (0 when done).
 
-    ``mt`` is the run's copy of the model's arrays (:func:`~barrierflow.engine.arrays.working_copy`),
-    ``bt`` the model's own, both as plain tuples (``tuple(m)``; named again here: numba types a
-    named tuple from Python field by field at every call, about 4 us for these two, a plain tuple
-    in C; compiled callers pass :func:`~barrierflow.engine.calls.plain`), ``s`` the run's
-    :class:`~barrierflow.engine.schedule.EventState`.
-    The events ``ev`` (EventArrays) apply by :func:`~barrierflow.engine.schedule.apply_events` (a
+    ``bt`` is the model's arrays, ``st`` the run's
+    :class:`~barrierflow.engine.schedule.EventState` (changed in place) and ``et`` its events
+    (:class:`~barrierflow.engine.schedule.EventArrays`), each as a plain tuple (``tuple(m)``; named
+    again here: numba types a named tuple from Python field by field at every call, a plain tuple
+    in C; compiled callers pass :func:`~barrierflow.engine.calls.plain`); the run's copy of what
+    events change is made here (:func:`~barrierflow.engine.arrays.working_arrays`: one tuple of the
+    model's arrays to type per call, not two, and no copy made from Python).
+    The events apply by :func:`~barrierflow.engine.schedule.apply_events` (a
     closed face changes the links, and the modes are computed again); the states
     at the output rows ``times`` go to ``states`` and the ledger to ``ev_dosed`` / ``ev_removed``; with
     ``full`` False ``states`` is one row of work space and each row is kept in ``taps`` instead
@@ -1236,8 +1238,10 @@ def chain_schedule(marks, times, ev, mt, bt, s, order, cut, n_jac, y, states, ev
     The single runs call it from Python and the population kernel through its address (one
     compiled form serves both; see :mod:`~barrierflow.engine.calls`).
     """
-    m = ModelArrays(*mt)
     base = ModelArrays(*bt)
+    m = working_arrays(base)
+    ev = EventArrays(*et)
+    s = EventState(*st)
     nc = m.n_comp
     nd = m.n_dyn
     n_state = y.shape[0]

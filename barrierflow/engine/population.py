@@ -323,8 +323,8 @@ def _run_population(lo, hi, loop, finish, exact, order, cut, sargs, coef, n_w, r
         # the first interval and ``full`` of the types the single run gives them (an int64, a bool):
         # a literal 0 or True would call for a second compiled form of the loop
         if exact:
-            status[i] = _call_chain_schedule(loop, marks, times, evi, plain(m), plain(base), s, order, cut, n_jac, y,
-                                             states, evd, evr, st, np.bool_(True), empty_taps(n))
+            status[i] = _call_chain_schedule(loop, marks, times, plain(evi), plain(base), plain(s), order, cut, n_jac,
+                                             y, states, evd, evr, st, np.bool_(True), empty_taps(n))
         else:
             ptr = np.zeros(2, dtype=np.int64)
             atol = atol_rel * base.scale
@@ -426,8 +426,8 @@ def _entries(batch: _Batch, work: ModelArrays, order, cut: float, n_jac: int, st
     finish = entry(_keep_rows, states, evd, evr, keep, n_out, w, bar_lo, bar_hi, base, out[0], out_dosed[0],
                    out_removed[0], content[0], low, rel, np.int64(0))
     if order is not None:
-        return entry(chain_schedule, batch.marks, batch.times, evi, tuple(m), tuple(base), s, order, cut, n_jac, y,
-                     states, evd, evr, st, np.bool_(True), empty_taps(n)), finish
+        return entry(chain_schedule, batch.marks, batch.times, tuple(evi), tuple(base), tuple(s), order, cut, n_jac,
+                     y, states, evd, evr, st, np.bool_(True), empty_taps(n)), finish
     return entry(run_marks, np.int64(0), np.int64(len(batch.marks) - 1), batch.marks, batch.times, evi, m, base, s,
                  struct.args(), COEF, struct.n_w, n_jac, float(integ.rtol), float(integ.atol) * base.scale,
                  integ.max_steps, float(integ.hold), y, np.zeros(2, dtype=np.int64), states, evd, evr, st,

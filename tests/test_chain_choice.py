@@ -148,6 +148,22 @@ def test_a_chain_rescue_that_fails_its_check_goes_to_the_robust_integrator():
     meets_the_contract(s, res)
 
 
+def test_a_flux_rodas4_could_not_resolve_goes_to_the_chain_path():
+    """Random network 257 of the generator made linear (252 states, 4 dosing intervals, 24 rows, an
+    invented scenario): RODAS4's run is refused for the flux of barrier 'b0' (its step error
+    estimates above FLUX_ESTIMATE_LIMIT times the flux's promise, rosenbrock.FLUX_FINDING); the
+    default computes it again on the exact chain path (integrators.chain_rescue) rather than on the
+    robust integrator, and the result is within the contract of scipy's Radau (meets_the_contract)."""
+    s = linear_chain_network(257)
+    first = solve(s, fallback=False, raise_on_failure=False)
+    assert first.integrator == "rodas4" and first.status == -1 and "was not resolved" in first.message
+    res = bf.simulate(s)
+    tr = res.trajectory
+    assert tr.integrator == "exact" and tr.stats["fallbacks"] == 1, tr.message
+    assert "computed again with exact on the exact chain path" in tr.message
+    meets_the_contract(s, res)
+
+
 def linear_chain_network(i: int) -> bf.Scenario:
     """Random network ``i`` of the generator made linear, as tests/benchmarks/chain_sweep.py draws
     it (an invented scenario)."""

@@ -304,10 +304,14 @@ def test_the_default_meets_the_contract(text, before):
 @pytest.mark.parametrize("text", [FLUX_BESIDE_AN_EXCHANGE, FLUX_THICK_LAYER_INFUSION],
                          ids=["random-1410", "extreme-2534"])
 def test_an_unresolved_flux_is_computed_again_and_named(text):
+    # on the robust integrator, or on the exact chain path where the network is a linear chain
+    # that path takes cheaply (integrators.chain_rescue: extreme patch 2534; its result is held to
+    # the contract above)
     tr = solve(bf.loads(text))
     assert tr.status == 0 and tr.stats["fallbacks"] >= 1
     assert "was not resolved" in tr.message
-    assert "computed again with rodas4 at tighter tolerances" in tr.message
+    assert ("computed again with rodas4 at tighter tolerances" in tr.message
+            or "computed again with exact on the exact chain path" in tr.message)
 
 
 def test_rodas4_alone_refuses_an_unresolved_flux():

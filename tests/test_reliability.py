@@ -63,9 +63,12 @@ def test_unlinked_compartments_beside_an_infusion_never_change():
         assert np.all(tr.states[:, m.comp_index[cid]] == 0.0)
     ref = radau(infusion_cell(extra=True))
     assert scaled_error(tr, ref) < 1e-6
+    # RODAS4 by the estimate; its result computed again on the exact chain path where it lets a
+    # small quantity or a flux through (integrators.chain_rescue), held to the same checks below
+    assert solve(infusion_cell(extra=True), fallback=False, raise_on_failure=False).integrator == "rodas4"
     default = solve(infusion_cell(extra=True))
     assert_trusted(default)
-    assert default.integrator == "rodas4"
+    assert default.integrator in ("rodas4", "exact")
     for cid in ("c0", "c1"):
         assert np.all(default.states[:, m.comp_index[cid]] == 0.0)
     # RODAS4 at the product's tolerances (rtol 3e-6, atol 3e-9 of the scale): the benchmark's

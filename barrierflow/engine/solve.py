@@ -38,7 +38,6 @@ from .integrators import (
     resolve_integrator,
 )
 from .ledger import (
-    DERIVED_FINDING,
     busiest_part,
     check_magnitudes,
     check_rows,
@@ -251,8 +250,8 @@ def solve(
     absolute tolerance came from, no one-way cumulative amount below zero); one that does not is
     computed again on the robust integrator with scales from the magnitudes it reached
     (:func:`~barrierflow.engine.ledger.observed_scale`), at most :data:`MAX_RESCALES` times; the
-    default's RODAS4 run on a linear chain network whose finding is on kept quantities alone goes
-    first to the exact chain path where :func:`~barrierflow.engine.integrators.chain_rescue`
+    default's RODAS4 run on a linear chain network with such a finding, or whose flux estimate
+    failed, goes first to the exact chain path where :func:`~barrierflow.engine.integrators.chain_rescue`
     estimates it cheap enough, then, if that fails its check or declines, there. The
     default's chain path whose result fails its check goes first to the chain path on rational
     rows; an exact path the default chose that declines goes there where
@@ -364,22 +363,28 @@ def solve(
         on_modes = (isinstance(integ, ExactIntegrator) and not integ.rational_rows
                     and exact_plan(model, integ.method)[0] == "chain")  # the chain path, by its modes
         declined = traj.status != 0 and isinstance(integ, ExactIntegrator)
-        if rescued_from is not None:
+        if rescued_from is not None and rescued_from.status != 0:
+            # the exact chain path after RODAS4's flux estimate failed, and it failed its own check
+            # or declined: the robust integrator, where that failure sends it
+            nxt = (robust, model, "at tighter tolerances")
+            plain_robust = True
+            rescued_from = None
+        elif rescued_from is not None:
             # the exact chain path after RODAS4's finding failed its own check or declined: the run
             # goes where that finding sends it, at scales from what the RODAS4 run reached
             nxt = (robust, _at_reached_scales(model, rescued_from),
                    "at tighter tolerances, with absolute tolerances from the magnitudes the rodas4 run reached")
             rescued_from = None
             rescaled += 1
-        elif (k == 0 and small and rescuable and rescaled < MAX_RESCALES
-              and not any(DERIVED_FINDING in f for f in found)
+        elif (k == 0 and fallback and rescuable and rescaled < MAX_RESCALES and (small or flux_off)
               and (rescue := chain_rescue(model, len(times), len(marks) - 1, longest, plan.mode_time, times,
                                           marks)) is not None):
-            # a quantity far below its scale on a linear chain network: the exact chain path, which has
-            # no tolerances (its rounding shows in its ledger, exact.EXACT_BALANCE_LIMIT), where its
-            # estimate is at most integrators.CHAIN_RESCUE times RODAS4's: the robust integrator at
-            # scales from what the run reached took 10 to 20 times RODAS4's estimate on the random
-            # networks of tests/benchmarks/chain_sweep.py that met this (chain cases 19, 21, 186, ...)
+            # a quantity far below its scale, or a flux RODAS4 could not resolve, on a linear chain
+            # network: the exact chain path, which has no tolerances (its rounding shows in its
+            # ledger, exact.EXACT_BALANCE_LIMIT), where its estimate is at most
+            # integrators.CHAIN_RESCUE times RODAS4's: the robust integrator took 10 to 20 times
+            # RODAS4's estimate on the random networks of tests/benchmarks/chain_sweep.py that met
+            # this (chain cases 19, 21, 186, 257, 305, 469, ...)
             nxt = (rescue, model, "on the exact chain path, which has no tolerances" + (
                 ", every row through the rational approximation of the exponential" if rescue.rational_rows else ""))
             rescued_from = traj

@@ -674,7 +674,8 @@ def check_magnitudes(model: CompiledModel, rows: Rows, initial: float, event_dos
         n_der, dworst, kind, which = _derived_promise(
             rows.cols, _out_links(m), t.pos, t.bstart, t.bstop, m.link_p, m.link_q, m.link_c, m.link_d,
             m.inv_partition, m.scale, m.has_volume, m.capacity, np.ascontiguousarray(event_removed), float(atol),
-            float(out[7]), float(duration), np.bool_(rescale_left))
+            float(out[7]), float(duration), np.bool_(rescale_left), t.keep, m.n_dyn, np.ascontiguousarray(event_dosed),
+            rows.content, float(initial))
         found += derived_findings(m, n_der, dworst, kind, which)
     return found
 
@@ -750,7 +751,7 @@ def _out_links(model: CompiledModel) -> np.ndarray:
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _derived_promise(cols, outs, pos, bstart, bstop, link_p, link_q, link_c, link_d, inv_k, scale, has_volume, cap,
-                     removed, atol, big, duration, rescale_left):
+                     removed, atol, big, duration, rescale_left, keep, n_dyn, dosed, content, initial):
     """The derived columns of :func:`check_magnitudes` (fluxes, amounts events removed): ``(how
     many :func:`derived_over` flags, the worst one's tolerance over its promise, its kind (0 a
     flux, 1 a removed amount), its barrier or compartment (-1: none))``.
@@ -761,7 +762,10 @@ def _derived_promise(cols, outs, pos, bstart, bstop, link_p, link_q, link_c, lin
     judged on its peak over the kept rows ``cols`` (columns ``pos``), at least MAGNITUDE_FLOOR of
     the run's largest amount ``big`` (mg) over ``duration`` (h; 0: fluxes not judged); what events
     removed from a compartment (``removed``, mg) has ``atol`` times its volume times its scale,
-    judged on its peak, at least MAGNITUDE_FLOOR of ``big``. Each column's tolerance over its
+    judged on its peak, at least MAGNITUDE_FLOOR of the largest amount of the run up to each
+    removal (:func:`_removal_promises`: an amount an event removes is the compartment's content
+    just before it, computed in the dosing intervals before it, whatever events add later).
+    Each column's tolerance over its
     promise and the shrink that scales from what its states reached would give it (each state's
     peak, at least MAGNITUDE_FLOOR of ``big`` in its units: what :func:`observed_scale` gives) go
     to :func:`derived_over` with ``rescale_left``: a column is reported only where that shrink is
@@ -829,6 +833,7 @@ def _derived_promise(cols, outs, pos, bstart, bstop, link_p, link_q, link_c, lin
                 worst = ratio
                 kind = 0
                 which = b
+    upto = np.empty(0)  # the run's largest amount before each row (built at the first removal)
     for c in range(n_c):
         if not has_volume[c]:
             continue
@@ -837,14 +842,81 @@ def _derived_promise(cols, outs, pos, bstart, bstop, link_p, link_q, link_c, lin
             top = max(top, abs(removed[r, c]))
         if top == 0.0:  # nothing removed: no column to promise
             continue
-        ratio = atol * cap[c] * scale[c] / (FINAL_TOLERANCE * max(top, MAGNITUDE_FLOOR * big))
-        if derived_over(ratio, scale[c] / max(top_c[c], MAGNITUDE_FLOOR * big / cap[c], 1e-300), rescale_left):
+        if upto.shape[0] == 0:
+            upto = _largest_before(cols, keep, n_c, n_dyn, cap, has_volume, dosed, removed, content, initial)
+        ratio, shrink = _removal_promises(cols, c, removed, upto, top, cap[c], scale[c], atol, rescale_left)
+        if derived_over(ratio, shrink, rescale_left):
             n_over += 1
             if ratio > worst:
                 worst = ratio
                 kind = 1
                 which = c
     return n_over, worst, kind, which
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _largest_before(cols, keep, n_comp, n_dyn, cap, has_volume, dosed, removed, content, initial):
+    """The run's largest amount (mg, as :func:`_magnitudes` counts it: what it started with, what
+    events dosed or removed, a compartment's amount, a barrier's content, a cumulative amount) over
+    the rows before each row: ``out[r]`` over rows ``0 .. r - 1`` (``out[0]`` what it started
+    with)."""
+    n_t, n_k = cols.shape
+    n_c = dosed.shape[1]
+    out = np.empty(n_t)
+    big = abs(initial)
+    for r in range(n_t):
+        out[r] = big
+        a = 0.0
+        b = 0.0
+        for c in range(n_c):
+            a += abs(dosed[r, c])
+            b += abs(removed[r, c])
+        big = max(big, a, b)
+        for g in range(content.shape[1]):
+            big = max(big, abs(content[r, g]))
+        for j in range(n_k):
+            i = keep[j]
+            if i < n_comp:
+                if has_volume[i]:
+                    big = max(big, abs(cols[r, j]) * cap[i])
+            elif i >= n_dyn:
+                big = max(big, abs(cols[r, j]))
+    return out
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _removal_promises(cols, c, removed, upto, top, vol, scale_c, atol, rescale_left):
+    """The amounts events removed from compartment ``c`` (column ``c`` of the kept rows ``cols``,
+    volume ``vol``, mL, scale ``scale_c``): the worst removal's tolerance over its promise and the
+    shrink of :func:`_derived_promise`, each removal (a rise of ``removed[:, c]``, mg, at a row)
+    judged on the magnitudes of the run before it. An amount a removal takes is the compartment's
+    content just before the event, held to ``atol * vol * scale_c``; its promise is
+    FINAL_TOLERANCE of the column's peak ``top``, at least MAGNITUDE_FLOOR of the run's largest
+    amount before that row (``upto``, :func:`_largest_before`, and the removed amount itself), not
+    of amounts added later (random case 358 of the adversarial sweep: a replace that puts 178 g
+    into a compartment holding 0.127 mg, whose scale counts the 178 g, took that 0.127 mg 55 times
+    the contract off against scipy's Radau: on the whole run's largest amount, 1.8e5 mg, its
+    promise was 1.8e-5 mg and its tolerance 31 times that, on the 2.6 g before the replace 2.1e3
+    times). The shrink compares the scale with what the compartment
+    reached before the removal (its peak over the rows before, the amount removed, the floor)."""
+    ratio = 0.0
+    shrink = 0.0
+    reach = 0.0  # the compartment's peak concentration over the rows before
+    before = 0.0
+    for r in range(removed.shape[0]):
+        taken = removed[r, c] - before
+        before = removed[r, c]
+        if taken > 0.0:
+            floor = MAGNITUDE_FLOOR * max(upto[r], taken)
+            ra = atol * vol * scale_c / (FINAL_TOLERANCE * max(top, floor))
+            sh = scale_c / max(reach, taken / vol, floor / vol, 1e-300)
+            flag = derived_over(ra, sh, rescale_left)
+            flagged = derived_over(ratio, shrink, rescale_left)
+            if (flag and (not flagged or ra > ratio)) or (not flag and not flagged and ra > ratio):
+                ratio = ra  # the worst flagged removal, else the worst
+                shrink = sh
+        reach = max(reach, abs(cols[r, c]))
+    return ratio, shrink
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
@@ -970,7 +1042,8 @@ def population_magnitudes(lo, hi, cols, content, dosed, removed, keep, bstart, b
             left = atol >= 0.0  # every rescale left (a computed bool: no literal-typed compiled form)
             n_der, worst, kind, which = _derived_promise(cols[i], outs, pos, bstart, bstop, link_p, link_q, link_c[i],
                                                          link_d[i], inv_k[i], scale[i], has_volume, cap, removed[i],
-                                                         atol, res[7], duration, left)
+                                                         atol, res[7], duration, left, keep, n_dyn, dosed[i],
+                                                         content[i], initial)
             found[i, 8] = n_der
             found[i, 9] = worst
             found[i, 10] = kind

@@ -1371,6 +1371,28 @@ def test_an_amount_below_the_floor_with_small_estimates_is_computed_once():
         assert errors[worst] <= 1.0, (worst, errors[worst])
 
 
+# A population whose subject on RODAS4 hits the rule for cumulative amounts below the floor (random
+# case 1183 above) is held to it as the single run is: the rule (ledger.floor_candidates) applied
+# to each subject's summed error estimates, and the subject computed again alone.
+def test_a_population_subject_below_the_floor_is_checked_as_its_single_run():
+    """Each subject (the network of random case 1183, twice) is flagged by RODAS4's rule for amounts
+    below the magnitude floor and computed again alone, as its single run is computed twice; every
+    kept column within the contract against scipy's Radau IIA (rtol 1e-10, atol 1e-15; Hairer and
+    Wanner, Solving Ordinary Differential Equations II, 2nd ed., 1996, sec. IV.8)."""
+    s = bf.loads(PASSED_FROM_A_COMPARTMENT_EMPTIED_IN_SECONDS)
+    single = bf.simulate(s, integrator=RosenbrockIntegrator())
+    assert "computed twice" in single.message
+    pop = bf.simulate_many([s, s], integrator=RosenbrockIntegrator())
+    ref = _converged(s, single)
+    for i in range(2):
+        assert pop.status[i] == 0, pop.messages[i]
+        assert "below the magnitude floor" in pop.messages[i] and "computed again on its own" in pop.messages[i]
+        assert np.array_equal(pop.permeated("b1")[i], single.permeated("b1"))
+        errors = population_errors(pop, i, ref)
+        worst = max(errors, key=errors.get)
+        assert errors[worst] <= 1.0, (i, worst, errors[worst])
+
+
 # Random case 358 of the adversarial sweep (a random network of tests/random_networks.py): a
 # compartment of 42 L fed by a 0.15 cm^2 barrier and a transfer from a held compartment holds
 # 0.127 mg when a replace at 1.96 h puts 178 g into it. Its scale (4.4 mg/mL) counts the 178 g, so

@@ -1135,12 +1135,25 @@ def floor_estimates(model: CompiledModel, rows: Rows, event_dosed: np.ndarray, e
                             m.n_dyn, m.q_elim, m.q_perm, m.q_lost, m.q_sampled, rows.content,
                             np.ascontiguousarray(event_dosed), np.ascontiguousarray(event_removed),
                             present_amount(m, m.y0), -1.0)[7])
-    floor = MAGNITUDE_FLOOR * big
-    promise = FINAL_TOLERANCE * floor
-    cand = (peak > 0.0) & (peak < floor) & (lim > TOLERANCE_EXCESS * promise)
-    if not cand.any() or promise <= 0.0:
+    cand, ratio = floor_candidates(peak, lim, big, estimate)
+    if not cand.any():
         return None
-    return cand, estimate / promise, floor
+    return cand, ratio, MAGNITUDE_FLOOR * big
+
+
+def floor_candidates(peak: np.ndarray, lim: np.ndarray, big: np.ndarray | float,
+                     estimate: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The rule of :func:`floor_estimates` on its numbers, for one run (``peak``, ``lim``,
+    ``estimate`` per cumulative amount, ``big`` a float) or a population's subjects (each with a
+    leading subject axis, ``big`` of shape (n, 1)): per amount whether it is a candidate (its peak
+    above 0 and below :data:`MAGNITUDE_FLOOR` of the run's largest amount ``big``, mg, its
+    tolerance ``lim``, mg, above :data:`TOLERANCE_EXCESS` times its promise,
+    :data:`FINAL_TOLERANCE` of that floor) and its error estimates summed over the accepted steps
+    (``estimate``, mg) over that promise."""
+    floor = MAGNITUDE_FLOOR * np.asarray(big, dtype=np.float64)
+    promise = FINAL_TOLERANCE * floor
+    cand = (peak > 0.0) & (peak < floor) & (lim > TOLERANCE_EXCESS * promise) & (promise > 0.0)
+    return cand, estimate / np.maximum(promise, 1e-300)
 
 
 def floor_tolerances(model: CompiledModel, rows: Rows, event_dosed: np.ndarray, event_removed: np.ndarray,

@@ -52,6 +52,8 @@ from .grid import Grid, response_time
 from .kernels import INNER, jacobian_size
 from .ledger import (
     POPULATION_FOUND,
+    describe_state,
+    floor_candidates,
     judge,
     ledger_weights,
     magnitude_findings,
@@ -60,7 +62,19 @@ from .ledger import (
     population_magnitudes,
     relative_error_of,
 )
-from .rosenbrock import _FAILURES, COEF, OK, ST_STEPS, RosenbrockIntegrator, build_structure, run_marks
+from .rosenbrock import (
+    _FAILURES,
+    COEF,
+    FLOOR_EXCESS,
+    FLUX_ESTIMATE_LIMIT,
+    FLUX_FINDING,
+    OK,
+    ST_STEPS,
+    RosenbrockIntegrator,
+    build_structure,
+    flux_estimate_ratio,
+    run_marks,
+)
 from .schedule import EventArrays, apply_events, build_schedule, closed_rows, encode_events, new_event_state
 from .solve import _snap, solve
 
@@ -301,7 +315,7 @@ class Population:
 @njit(nogil=True, cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _run_population(lo, hi, loop, finish, exact, order, cut, sargs, coef, n_w, rtol, atol_rel, max_steps, hold, marks,
                     times, ev, ev_values, stack, work, n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed,
-                    out_removed, content, low, rel, status, fail_k, stats):
+                    out_removed, content, low, rel, status, fail_k, stats, outs, ferr, qerr):
     n = stack.y0.shape[1]
     n_t = times.shape[0]
     n_int = marks.shape[0] - 1
@@ -330,8 +344,7 @@ def _run_population(lo, hi, loop, finish, exact, order, cut, sargs, coef, n_w, r
             atol = atol_rel * base.scale
             code, k = _call_run_marks(loop, np.int64(0), n_int, marks, times, evi, m, base, s, sargs, coef, n_w,
                                       n_jac, rtol, atol, max_steps, hold, y, ptr, states, evd, evr, st,
-                                      np.bool_(True), empty_taps(n), np.zeros(0, dtype=np.int64), np.zeros(0),
-                                      np.zeros(0))
+                                      np.bool_(True), empty_taps(n), outs, ferr[i], qerr[i])
             status[i] = code
             fail_k[i] = k
         for j in range(6):
@@ -789,11 +802,16 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
         name = f"{integ.name} (population)"
         cut = 0.0
     loop, finish = _entries(batch, work, order, cut, n_jac, struct, integ, kept)
+    outs = np.array([g.out_link for g in m0.grids], dtype=np.int64)
+    # a RODAS4 subject's error estimates, as a single run's (rosenbrock.run_marks): each flux's
+    # largest and each cumulative amount's sum over the accepted steps
+    ferr = np.zeros((n_sub, len(outs) if order is None else 0))
+    qerr = np.zeros((n_sub, n - nd if order is None else 0))
     _in_blocks(_run_population, n_sub, threads, loop, finish, np.bool_(order is not None),
                order if order is not None else np.zeros(0, dtype=np.int64), cut, struct.args(), COEF, struct.n_w,
                float(integ.rtol), float(integ.atol), integ.max_steps, float(integ.hold), marks, times, ev, ev_v,
                arrays, work, n_jac, keep, n_out, w, bar_lo, bar_hi, out, out_dosed, out_removed, content, low, rel,
-               status, fail_k, stats)
+               status, fail_k, stats, outs if order is None else np.zeros(0, dtype=np.int64), ferr, qerr)
     _apply_at_end_kept(batch, keep, status, out, out_dosed, out_removed)
     # the guard of every run (barrierflow.engine.ledger.verdict), for every subject (its ledger
     # computed in the kernel), then its magnitudes against their scales (ledger.check_magnitudes,
@@ -809,18 +827,26 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
     bstop = np.array([max(g.start, min(g.stop, nd)) for g in m0.grids], dtype=np.int64)
     pos = np.full(n, -1, dtype=np.int64)  # each state's kept column (the derived pass reads the face cells')
     pos[keep] = np.arange(len(keep))
-    outs = np.array([g.out_link for g in m0.grids], dtype=np.int64)
     _in_blocks(population_magnitudes, n_sub, threads, out, content, out_dosed, out_removed, keep, bar_lo, bstop,
                cap, arrays.has_volume, arrays.scale, arrays.y0, nc, nd, m0.q_elim, m0.q_perm, m0.q_lost,
                m0.q_sampled, -1.0 if order is not None else float(integ.atol), np.where(good, OK, -1), outs, pos,
                m0.link_p, m0.link_q, arrays.link_c, arrays.link_d, arrays.inv_partition, float(batch.duration), found)
     small = good & magnitudes_failed(found)
     good &= ~small
+    # RODAS4's own rules of a single run (RosenbrockIntegrator.run): a cumulative amount below the
+    # magnitude floor whose summed estimates exceed FLOOR_EXCESS times its promise, a flux whose
+    # estimate exceeds FLUX_ESTIMATE_LIMIT times its promise; such a subject is computed again alone
+    estimated = _estimate_findings(m0, arrays, keep, out, found, good, ferr, qerr, float(integ.atol),
+                                   float(batch.duration)) if order is None else {}
+    for i in estimated:
+        good[i] = False
     messages = ["the run finished"] * n_sub
     st = np.where(good, 0, -1)
     for i in np.flatnonzero(~good).tolist():
         if small[i]:
             note = f"the {name} result failed its check ({'; '.join(magnitude_findings(m0, keep, found[i]))})"
+        elif i in estimated:
+            note = f"the {name} result failed its check ({estimated[i]})"
         elif exact_off[i]:
             note = f"the {name} result failed its check ({'; '.join(exact_balance_findings(float(rel[i])))})"
         elif status[i] == OK:
@@ -872,6 +898,54 @@ def _run(batch: _Batch, order, integrator, grid: Grid, threads: int | None, fact
         wall_time=_time.perf_counter() - start, _conc=out[:, :, :nc], _quad=out[:, :, nc + n_out:],
         _flux=flux, _area=area, _volume=volume, _dosed=out_dosed, _removed=out_removed, _content=content,
         _n_comp=nc, _n_bar=m0.n_bar, scenario=batch.first, _solubility=arrays.solubility[0].copy())
+
+
+def _estimate_findings(m0: CompiledModel, arrays: ModelArrays, keep: np.ndarray, out: np.ndarray, found: np.ndarray,
+                       good: np.ndarray, ferr: np.ndarray, qerr: np.ndarray, atol: float,
+                       duration: float) -> dict[int, str]:
+    """The subjects (of those ``good``) that RODAS4's own rules would have run again or refused as
+    single runs (:meth:`~barrierflow.engine.rosenbrock.RosenbrockIntegrator.run`), with why: a
+    cumulative amount below the magnitude floor whose error estimates, summed over the accepted
+    steps (``qerr``, mg), exceed :data:`~barrierflow.engine.rosenbrock.FLOOR_EXCESS` times its
+    promise (:func:`~barrierflow.engine.ledger.floor_candidates`), a barrier's flux whose largest
+    error estimate (``ferr``, mg/h) exceeds :data:`~barrierflow.engine.rosenbrock.FLUX_ESTIMATE_LIMIT`
+    times its promise (:func:`~barrierflow.engine.rosenbrock.flux_estimate_ratio`). ``found[:, 7]``
+    is each subject's largest amount (:func:`~barrierflow.engine.ledger.population_magnitudes`),
+    ``out`` the kept columns (the cumulative amounts last). Vectorised over the subjects: a few
+    numpy passes over the kept rows."""
+    n_sub = out.shape[0]
+    if not n_sub or not out.shape[1] or not good.any():
+        return {}
+    nd = m0.n_dyn
+    nq = m0.n_state - nd
+    big = found[:, 7:8]
+    why: dict[int, str] = {}
+    with np.errstate(invalid="ignore"):
+        if nq:
+            peak = np.abs(out[:, :, len(keep) - nq:]).max(axis=1)
+            cand, ratio = floor_candidates(peak, atol * arrays.scale[:, nd:], big, qerr)
+            over = np.where(cand & (ratio > FLOOR_EXCESS), ratio, 0.0)
+            for i in np.flatnonzero(good & (over.max(axis=1) > 0.0)).tolist():
+                q = int(over[i].argmax())
+                why[i] = (f"{int((over[i] > 0).sum())} cumulative amounts below the magnitude floor whose error "
+                          f"estimates summed to more than {FLOOR_EXCESS:g} times their promise (worst: "
+                          f"{describe_state(m0, nd + q)}, {over[i, q]:.3g} times)")
+        if len(m0.grids) and ferr.shape[1]:
+            col = {int(s): j for j, s in enumerate(keep)}
+            peak = np.empty((n_sub, len(m0.grids)))
+            inv_k = arrays.inv_partition
+            for b, g in enumerate(m0.grids):
+                j = g.out_link
+                p, q = int(m0.link_p[j]), int(m0.link_q[j])
+                fp = (arrays.link_c[:, j] * inv_k[:, p])[:, None]
+                fq = (arrays.link_d[:, j] * inv_k[:, q])[:, None]
+                peak[:, b] = np.abs(fp * out[:, :, col[p]] - fq * out[:, :, col[q]]).max(axis=1)
+            ratio = flux_estimate_ratio(ferr, peak, big, duration)
+            for i in np.flatnonzero(good & (ratio.max(axis=1) > FLUX_ESTIMATE_LIMIT)).tolist():
+                b = int(ratio[i].argmax())
+                why.setdefault(i, f"the flux of barrier '{m0.barrier_ids[b]}' {FLUX_FINDING}, applied to it, was "
+                                  f"{ratio[i, b]:.3g} times the accuracy promised on its peak")
+    return why
 
 
 def simulate_population(scenario: Scenario, variations: Mapping[str, float], n: int, seed: int = 0, *,

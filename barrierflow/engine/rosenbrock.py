@@ -1525,10 +1525,20 @@ def flux_estimate_over(model: CompiledModel, out: Integration, ferr: np.ndarray,
                             m.n_dyn, m.q_elim, m.q_perm, m.q_lost, m.q_sampled, rows.content,
                             np.ascontiguousarray(out.event_dosed), np.ascontiguousarray(out.event_removed),
                             present_amount(m, m.y0), -1.0)[7])
-    promise = PEAK_TOLERANCE * np.maximum(peak, MAGNITUDE_FLOOR * big / duration)
-    over = ferr / np.maximum(promise, 1e-300)
+    over = flux_estimate_ratio(ferr, peak, big, duration)
     b = int(over.argmax())
     return float(over[b]), b
+
+
+def flux_estimate_ratio(ferr: np.ndarray, peak: np.ndarray, big: np.ndarray | float, duration: float) -> np.ndarray:
+    """The rule of :func:`flux_estimate_over` on its numbers, for one run (per barrier, ``big`` a
+    float) or a population's subjects (a leading subject axis, ``big`` of shape (n, 1)): each
+    flux's largest error estimate ``ferr`` (mg/h) over :data:`~barrierflow.engine.ledger.PEAK_TOLERANCE`
+    of its peak ``peak`` (mg/h), floored at :data:`~barrierflow.engine.ledger.MAGNITUDE_FLOOR` of
+    the run's largest amount ``big`` (mg) over ``duration`` (h, above 0); a run is refused where it
+    is above :data:`FLUX_ESTIMATE_LIMIT`."""
+    promise = PEAK_TOLERANCE * np.maximum(peak, MAGNITUDE_FLOOR * np.asarray(big, dtype=np.float64) / duration)
+    return ferr / np.maximum(promise, 1e-300)
 
 
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)

@@ -1080,7 +1080,40 @@ def observed_scale(model: CompiledModel, states: np.ndarray, initial: float, eve
     peak = np.abs(states).max(axis=0)
     floor = np.maximum(MAGNITUDE_FLOOR * big * per, RESCALE_LIMIT * m.scale)
     new = np.minimum(m.scale, np.maximum(peak, floor))
+    removed = np.ascontiguousarray(event_removed)
+    if removed.size and np.any(removed[-1] != 0.0):
+        # a compartment that events empty: at most what it reached before each removal (as the
+        # guard judges the amount removed, _removal_promises), so that what events add later does
+        # not hold the content they remove to its tolerance
+        before = _reach_before_removals(rows.cols, removed, _largest_before(
+            rows.cols, t.keep, m.n_comp, m.n_dyn, m.capacity, m.has_volume, np.ascontiguousarray(event_dosed),
+            removed, rows.content, float(initial)), m.capacity[:m.n_comp], m.has_volume)
+        nc = m.n_comp
+        new[:nc] = np.minimum(new[:nc], np.maximum(before, RESCALE_LIMIT * m.scale[:nc]))
     return np.where((per > 0) & (new > 0), new, m.scale)
+
+
+@njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
+def _reach_before_removals(cols, removed, upto, vol, has_volume):
+    """Per compartment (mg/mL), the smallest over the removals from it (rises of ``removed``) of
+    what it reached before each (its peak over the rows before, the amount removed over its volume,
+    MAGNITUDE_FLOOR of the run's largest amount before it, ``upto``, over its volume): the scale
+    :func:`observed_scale` gives a compartment that events empty (inf where nothing was removed)."""
+    n_c = removed.shape[1]
+    out = np.full(n_c, np.inf)
+    for c in range(n_c):
+        if not has_volume[c]:
+            continue
+        reach = 0.0
+        before = 0.0
+        for r in range(removed.shape[0]):
+            taken = removed[r, c] - before
+            before = removed[r, c]
+            if taken > 0.0:
+                v = max(reach, taken / vol[c], MAGNITUDE_FLOOR * max(upto[r], taken) / vol[c])
+                out[c] = min(out[c], v)
+            reach = max(reach, abs(cols[r, c]))
+    return out
 
 
 # ------------------------------------------------------------ cumulative amounts below the floor

@@ -379,6 +379,15 @@ def _single_runs() -> None:
             result.metrics()
             for bid in result.barrier_ids[:1]:
                 result.profile(bid, 0.0)  # the full states, computed again on request
+    # the scales from what a run reached where events removed amounts (ledger.observed_scale),
+    # which only a run the guard computes again reaches
+    from ..engine.ledger import observed_scale
+
+    for scenario in _scenarios().values():
+        tr = simulate(scenario).trajectory
+        if tr.event_removed.size and tr.event_removed[-1].any():
+            observed_scale(tr.model, tr.states, tr.initial_amount, tr.event_dosed, tr.event_removed)
+            break
 
 
 EXACT_METHODS = ("chain", "modes", "expm")

@@ -315,7 +315,7 @@ def solve(
     # an integrator asked for by name)
     default_rodas = _default_rodas(integrator) if isinstance(chosen, ExactIntegrator) else None
     # the default's RODAS4 run whose small quantity failed its check may go to the exact chain path
-    # (integrators.chain_rescue); rescued_from holds that RODAS4 run while the chain path's runs
+    # (integrators.chain_rescue); rescued_from holds that RODAS4 run while the chain path's run is computed
     rescuable = (isinstance(chosen, RosenbrockIntegrator) and _default_rodas(integrator) is not None
                  and len(times) * (model.n_state + 2 * model.n_comp) * 8 + EXACT_MEMORY <= MEMORY_BUDGET_BYTES)
     rescued_from = None

@@ -854,6 +854,19 @@ def _derived_promise(cols, outs, pos, bstart, bstop, link_p, link_q, link_c, lin
     return n_over, worst, kind, which
 
 
+@register_jitable
+def _event_amounts(dosed, removed, r, n_c):
+    """What the events at row ``r`` dosed and what they removed, each summed over the ``n_c``
+    compartments (mg): the larger, as the run's largest amount counts events
+    (:func:`_magnitudes`, :func:`_largest_before`)."""
+    a = 0.0
+    b = 0.0
+    for c in range(n_c):
+        a += abs(dosed[r, c])
+        b += abs(removed[r, c])
+    return max(a, b)
+
+
 @njit(cache=True, error_model="numpy", no_cfunc_wrapper=True)
 def _largest_before(cols, keep, n_comp, n_dyn, cap, has_volume, dosed, removed, content, initial):
     """The run's largest amount (mg, as :func:`_magnitudes` counts it: what it started with, what
@@ -866,12 +879,7 @@ def _largest_before(cols, keep, n_comp, n_dyn, cap, has_volume, dosed, removed, 
     big = abs(initial)
     for r in range(n_t):
         out[r] = big
-        a = 0.0
-        b = 0.0
-        for c in range(n_c):
-            a += abs(dosed[r, c])
-            b += abs(removed[r, c])
-        big = max(big, a, b)
+        big = max(big, _event_amounts(dosed, removed, r, n_c))
         for g in range(content.shape[1]):
             big = max(big, abs(content[r, g]))
         for j in range(n_k):
@@ -933,12 +941,7 @@ def _magnitudes(cols, keep, bstart, bstop, cap, has_volume, scale, n_comp, n_dyn
     # the run's largest amount (see the docstring)
     big = abs(initial)
     for r in range(dosed.shape[0]):
-        a = 0.0
-        b = 0.0
-        for c in range(n_c):
-            a += abs(dosed[r, c])
-            b += abs(removed[r, c])
-        big = max(big, a, b)
+        big = max(big, _event_amounts(dosed, removed, r, n_c))
     for r in range(content.shape[0]):
         for c in range(content.shape[1]):
             big = max(big, abs(content[r, c]))
